@@ -1,0 +1,154 @@
+"""Plain-text and HTML presentation of fits and results (no computation here)."""
+
+from __future__ import annotations
+
+import html
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .fit import LinearFit
+    from .results import RestrictedFit, WaldTest
+
+
+def _p(p: float) -> str:
+    if not np.isfinite(p):
+        return "nan"
+    return "< 1e-16" if p < 1e-16 else f"{p:.4g}"
+
+
+def _num(v: float) -> str:
+    return "—" if not np.isfinite(v) else f"{v:.6g}"
+
+
+def _table_text(header: list[str], rows: list[list[str]]) -> str:
+    widths = [
+        max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)
+    ]
+
+    def fmt(cells: list[str]) -> str:
+        pairs = enumerate(zip(cells, widths, strict=True))
+        return "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in pairs)
+
+    line = fmt(header)
+    out = [line, "  ".join("-" * w for w in widths)]
+    for r in rows:
+        out.append(fmt(r))
+    return "\n".join(out)
+
+
+def _table_html(header: list[str], rows: list[list[str]]) -> str:
+    th = "".join(f"<th>{html.escape(h)}</th>" for h in header)
+    body = "".join(
+        "<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>" for r in rows
+    )
+    return f"<table class='lincomb'><thead><tr>{th}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _fit_rows(f: LinearFit) -> list[list[str]]:
+    try:
+        frame = f.coef_frame()
+    except Exception:  # noqa: BLE001 - a degenerate fit still prints its estimates
+        return [[n, _num(v), "", "", ""] for n, v in f.coefficients.items()]
+    rows = []
+    for r in frame.itertuples():
+        if r.status == "aliased":
+            rows.append([r.coefficient, "aliased", "", "", ""])
+        else:
+            rows.append(
+                [r.coefficient, _num(r.estimate), _num(r.std_error), _num(r.t), _p(r.p_value)]
+            )
+    return rows
+
+
+def _fit_head(f: LinearFit) -> str:
+    kind = "WLS" if f.weighted else "OLS"
+    what = f.formula or f"{f.response} on {len(f.names)} columns"
+    extra = f", {f.n_dropped} dropped for missing values" if f.n_dropped else ""
+    return (
+        f"LinearFit ({kind}): {what}\n"
+        f"n = {f.n_obs}{extra}; rank = {f.rank} of {len(f.names)}; residual df = "
+        f"{f.df_resid}; sigma = {f.sigma:.6g}"
+    )
+
+
+def fit_text(f: LinearFit) -> str:
+    head = _fit_head(f)
+    table = _table_text(["coefficient", "estimate", "std.error", "t", "p"], _fit_rows(f))
+    tail = f"\naliased (not estimable): {', '.join(f.aliased)}" if f.aliased else ""
+    return f"{head}\n{table}{tail}"
+
+
+def fit_html(f: LinearFit) -> str:
+    head = "<br>".join(html.escape(s) for s in _fit_head(f).split("\n"))
+    table = _table_html(["coefficient", "estimate", "std. error", "t", "p"], _fit_rows(f))
+    tail = (
+        f"<p>aliased (not estimable): {html.escape(', '.join(f.aliased))}</p>" if f.aliased else ""
+    )
+    return f"<div class='lincomb-fit'><p><b>{head}</b></p>{table}{tail}</div>"
+
+
+def _wald_head(w: WaldTest) -> str:
+    dist = f"F({w.df_num}, {w.df_den:g})" if w.distribution == "F" else f"chi2({w.df_num})"
+    red = f"; {len(w.redundant)} redundant row(s) ignored" if w.redundant else ""
+    return (
+        f"Wald test of {len(w.labels)} restriction row(s), rank {w.df_num}{red}\n"
+        f"{dist} = {w.statistic:.6g}, p = {_p(w.p_value)}  [{w.covariance} covariance]"
+    )
+
+
+def _wald_rows(w: WaldTest) -> list[list[str]]:
+    ci = w.intervals(0.95)
+    rows = []
+    for i, lab in enumerate(w.labels):
+        mark = " (redundant)" if i in w.redundant else ""
+        rows.append(
+            [
+                lab + mark,
+                _num(w.estimate[i]),
+                _num(w.std_error[i]),
+                _num(w.t[i]),
+                _p(w.row_p_value[i]),
+                f"[{_num(ci['lower'].iloc[i])}, {_num(ci['upper'].iloc[i])}]",
+            ]
+        )
+    return rows
+
+
+_WALD_HEADER = ["restriction", "estimate", "std.error", "t", "p", "95% interval"]
+
+
+def wald_text(w: WaldTest) -> str:
+    return f"{_wald_head(w)}\n{_table_text(_WALD_HEADER, _wald_rows(w))}"
+
+
+def wald_html(w: WaldTest) -> str:
+    head = "<br>".join(html.escape(s) for s in _wald_head(w).split("\n"))
+    table = _table_html(_WALD_HEADER, _wald_rows(w))
+    return f"<div class='lincomb-wald'><p><b>{head}</b></p>{table}</div>"
+
+
+def _restricted_parts(r: RestrictedFit) -> tuple[str, list[list[str]]]:
+    head = (
+        f"Restricted least squares under {r.rank} independent restriction(s): "
+        f"{' & '.join(r.labels)}\nRSS = {r.rss:.6g} (unrestricted {r.rss_unrestricted:.6g});"
+        f" residual df = {r.df_resid}; sigma = {r.sigma:.6g}"
+    )
+    se = r.std_errors()
+    rows = [[n, _num(v), _num(se[n])] for n, v in r.coefficients.items()]
+    return head, rows
+
+
+def restricted_text(r: RestrictedFit) -> str:
+    head, rows = _restricted_parts(r)
+    return f"{head}\n{_table_text(['coefficient', 'estimate', 'std.error'], rows)}"
+
+
+def restricted_html(r: RestrictedFit) -> str:
+    head, rows = _restricted_parts(r)
+    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    return (
+        f"<div class='lincomb-restricted'><p><b>{h}</b></p>"
+        f"{_table_html(['coefficient', 'estimate', 'std. error'], rows)}</div>"
+    )

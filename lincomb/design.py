@@ -1,0 +1,497 @@
+"""From user data to a numeric design: formulas, arrays, missing values, coefficient names.
+
+This module turns a Wilkinson formula and a DataFrame (through formulaic) or plain arrays into
+validated float64 arrays, and records how coefficients are named: by column, by term, and by
+the factor levels each column codes.  It knows nothing of linear algebra.
+
+Its :class:`CoefficientIndex` answers the builder's questions ("which column is
+``C(dose)[T.40]``?", "which columns make up the term ``C(dose):rain``?") and raises
+:class:`~lincomb.errors.UnknownCoefficientError` with close matches when a name is wrong.
+"""
+
+from __future__ import annotations
+
+import difflib
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+
+from .errors import InputError, MissingValueError, UnknownCoefficientError, UnseenLevelError
+
+__all__ = ["Design", "CoefficientIndex", "design_from_formula", "design_from_arrays"]
+
+# prefixes formulaic puts in front of level names in reduced-rank codings
+_LEVEL_PREFIXES = ("T.", "S.", "H.", "D.")
+
+
+@dataclass(frozen=True)
+class CoefficientIndex:
+    """Names of a design's coefficients, grouped by term and labelled by factor level.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Column names, in design order.
+    terms : dict
+        ``{term label: (column indices)}`` in formula order.
+    levels : tuple
+        Per column, a tuple with the level label each categorical factor of its term codes
+        (``None`` for a numeric factor), or ``()`` for columns outside a formula.
+    factors : dict
+        ``{term label: (factor expressions)}``.
+    """
+
+    names: tuple[str, ...]
+    terms: dict[str, tuple[int, ...]]
+    levels: tuple[tuple[str | None, ...], ...]
+    factors: dict[str, tuple[str, ...]] = field(default_factory=dict)
+
+    @property
+    def p(self) -> int:
+        return len(self.names)
+
+    def _suggest(self, wrong: str, pool: Sequence[str]) -> str:
+        close = difflib.get_close_matches(wrong, list(pool), n=4, cutoff=0.5)
+        if not close:
+            close = [s for s in pool if wrong.lower() in s.lower()][:4]
+        hint = f" Did you mean one of: {close}?" if close else ""
+        return hint
+
+    def column(self, name: str) -> int:
+        """Index of the column called ``name``."""
+        try:
+            return self.names.index(name)
+        except ValueError:
+            pass
+        if name in self.terms and len(self.terms[name]) == 1:
+            return self.terms[name][0]
+        raise UnknownCoefficientError(
+            f"no coefficient named {name!r}.{self._suggest(name, self.names + tuple(self.terms))}"
+            f" Known coefficients: {list(self.names)}"
+        )
+
+    def _term_key(self, term: str) -> str:
+        if term in self.terms:
+            return term
+        if term in ("1", "Intercept") and "1" in self.terms:
+            return "1"
+        wanted = _factor_set(term)
+        for label, facs in self.factors.items():
+            if wanted is not None and frozenset(facs) == wanted:
+                return label
+        raise UnknownCoefficientError(
+            f"no term {term!r} in this fit.{self._suggest(term, tuple(self.terms))}"
+            f" Terms: {list(self.terms)}"
+        )
+
+    def term_columns(self, term: str) -> tuple[int, ...]:
+        """Column indices of a term (a factor, an interaction, a numeric variable)."""
+        return self.terms[self._term_key(term)]
+
+    def term_levels(self, term: str) -> list[tuple[str | None, ...]]:
+        """Level labels of each column of a term, in column order."""
+        return [self.levels[j] for j in self.term_columns(term)]
+
+    def level_column(self, term: str, key: tuple[str, ...]) -> int:
+        """Index of the column of ``term`` that codes the level(s) ``key``."""
+        label = self._term_key(term)
+        cols = self.terms[label]
+        key = tuple(str(k) for k in key)
+
+        def match(strip: bool) -> list[int]:
+            found = []
+            for j in cols:
+                labs = tuple(lv for lv in self.levels[j] if lv is not None)
+                if strip:
+                    labs = tuple(_strip_prefix(lv) for lv in labs)
+                if labs == key:
+                    found.append(j)
+            return found
+
+        hits = match(False) or match(True)
+        if len(hits) == 1:
+            return hits[0]
+        shown = [tuple(lv for lv in self.levels[j] if lv is not None) for j in cols]
+        shown_txt = [s[0] if len(s) == 1 else s for s in shown]
+        raise UnknownCoefficientError(
+            f"term {label!r} has no column for level {key[0] if len(key) == 1 else key!r}."
+            f" Its columns code: {shown_txt}. A reference (baseline) level has no column of its"
+            " own: test differences from it, or refit with another reference."
+        )
+
+
+def _strip_prefix(label: str) -> str:
+    for pre in _LEVEL_PREFIXES:
+        if label.startswith(pre):
+            return label[len(pre) :]
+    return label
+
+
+def _factor_set(term: str) -> frozenset[str] | None:
+    try:
+        from formulaic import Formula
+
+        terms = list(Formula(term).rhs) if hasattr(Formula(term), "rhs") else list(Formula(term))
+    except Exception:  # noqa: BLE001 - any parse failure just means "no match"
+        return None
+    terms = [t for t in terms if str(t) != "1"]
+    if len(terms) != 1:
+        return None
+    return frozenset(str(f.expr) for f in terms[0].factors)
+
+
+def _parse_levels(column: str, exprs: Sequence[str]) -> tuple[str | None, ...]:
+    """Split ``C(a)[T.x]:z:C(b)[y]`` into per-factor level labels (None for numeric)."""
+    out: list[str | None] = []
+    rest = column
+    for i, expr in enumerate(exprs):
+        if not rest.startswith(expr):
+            return ()
+        rest = rest[len(expr) :]
+        if rest.startswith("["):
+            last = i == len(exprs) - 1
+            if last:
+                end = len(rest) - 1 if rest.endswith("]") else -1
+            else:
+                end = rest.find("]:" + exprs[i + 1])
+            if end < 0:
+                return ()
+            out.append(rest[1:end])
+            rest = rest[end + 1 :]
+        else:
+            out.append(None)
+        if i < len(exprs) - 1:
+            if not rest.startswith(":"):
+                return ()
+            rest = rest[1:]
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class Design:
+    """A validated numeric design with its naming.
+
+    Attributes
+    ----------
+    x : (n, p) ndarray
+        Design matrix (a private float64 copy).
+    y : (n,) ndarray
+        Response.
+    weights : (n,) ndarray or None
+    index : CoefficientIndex
+    intercept : int or None
+        Index of the intercept column.
+    response : str
+    row_index : pandas.Index
+        Labels of the rows used (after dropping missing values).
+    dropped : pandas.Index
+        Labels of rows dropped for missing values.
+    spec : object or None
+        formulaic's model spec (both sides), reused to encode new data.
+    formula : str or None
+    """
+
+    x: NDArray[np.float64]
+    y: NDArray[np.float64]
+    weights: NDArray[np.float64] | None
+    index: CoefficientIndex
+    intercept: int | None
+    response: str
+    row_index: pd.Index
+    dropped: pd.Index
+    spec: Any = None
+    formula: str | None = None
+
+
+def _check_finite(
+    a: NDArray[np.float64], what: str, names: Sequence[str] | None, rows: pd.Index | None
+) -> None:
+    bad = ~np.isfinite(a)
+    if not bad.any():
+        return
+    if a.ndim == 1:
+        i = int(np.flatnonzero(bad)[0])
+        lab = rows[i] if rows is not None else i
+        raise InputError(
+            f"{what} holds {a[i]!r} at row {lab!r} ({int(bad.sum())} non-finite values in all);"
+            " remove or replace them before fitting."
+        )
+    i, j = (int(v) for v in np.argwhere(bad)[0])
+    col = names[j] if names is not None else j
+    lab = rows[i] if rows is not None else i
+    raise InputError(
+        f"{what} column {col!r} holds {a[i, j]!r} at row {lab!r} ({int(bad[:, j].sum())}"
+        " non-finite values in that column); remove or replace them before fitting."
+    )
+
+
+def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
+    _check_finite(w, "weights", None, rows)
+    bad = np.flatnonzero(w <= 0)
+    if bad.size:
+        i = int(bad[0])
+        lab = rows[i] if rows is not None else i
+        raise InputError(
+            f"weights must be positive: row {lab!r} has weight {w[i]!r} ({bad.size} rows with"
+            " weight <= 0). Drop those rows, or give them a small positive weight on purpose."
+        )
+
+
+def _find_intercept(x: NDArray[np.float64], names: Sequence[str]) -> int | None:
+    if x.shape[0] == 0:
+        return None
+    for j in range(x.shape[1]):
+        col = x[:, j]
+        if col[0] != 0 and np.all(col == col[0]):
+            return j
+    return None
+
+
+def design_from_arrays(
+    x: ArrayLike,
+    y: ArrayLike,
+    names: Sequence[str] | None = None,
+    weights: ArrayLike | None = None,
+    response: str = "y",
+) -> Design:
+    """Validate arrays ``X``, ``y`` (and weights) into a :class:`Design`.
+
+    A column whose entries all equal one nonzero constant is treated as the intercept.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = design_from_arrays(np.c_[np.ones(3), [1.0, 2, 4]], [1.0, 2, 3], names=["one", "x"])
+    >>> d.index.names, d.intercept
+    (('one', 'x'), 0)
+    """
+    if isinstance(x, pd.DataFrame):
+        if names is None:
+            names = [str(c) for c in x.columns]
+        rows = x.index
+    else:
+        rows = None
+    try:
+        xa = np.array(x, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        msg = f"X must be numeric: {exc}. Encode categories first (or use a formula)."
+        raise InputError(msg) from None
+    try:
+        ya = np.array(y, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"the response must be numeric: {exc}.") from None
+    if xa.ndim == 1:
+        xa = xa[:, None]
+    if xa.ndim != 2:
+        raise InputError(f"X must be 2-dimensional, got shape {xa.shape}.")
+    if ya.ndim != 1:
+        raise InputError(f"y must be 1-dimensional, got shape {ya.shape}.")
+    n, p = xa.shape
+    if ya.shape[0] != n:
+        raise InputError(f"X has {n} rows but y has {ya.shape[0]}; they must match.")
+    if names is None:
+        names = [f"x{j}" for j in range(p)]
+    names = [str(s) for s in names]
+    if len(names) != p:
+        raise InputError(f"{len(names)} names given for {p} columns of X.")
+    if len(set(names)) != p:
+        dup = sorted({s for s in names if names.count(s) > 1})
+        raise InputError(f"column names must be unique; repeated: {dup}.")
+    _check_finite(xa, "X", names, rows)
+    _check_finite(ya, "y", None, rows)
+    wa = None
+    if weights is not None:
+        wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
+        if wa.shape[0] != n:
+            raise InputError(f"weights has {wa.shape[0]} entries for {n} rows.")
+        _validate_weights(wa, rows)
+    index = CoefficientIndex(
+        names=tuple(names),
+        terms={s: (j,) for j, s in enumerate(names)},
+        levels=tuple(() for _ in names),
+        factors={},
+    )
+    row_index = rows if rows is not None else pd.RangeIndex(n)
+    return Design(
+        x=xa,
+        y=ya,
+        weights=wa,
+        index=index,
+        intercept=_find_intercept(xa, names),
+        response=response,
+        row_index=row_index,
+        dropped=row_index[:0],
+    )
+
+
+def _term_label(term: Any) -> str:
+    s = str(term)
+    return s
+
+
+def _index_from_spec(columns: Sequence[str], spec: Any) -> CoefficientIndex:
+    terms: dict[str, tuple[int, ...]] = {}
+    factors: dict[str, tuple[str, ...]] = {}
+    levels: list[tuple[str | None, ...]] = [() for _ in columns]
+    for term, idx in spec.term_indices.items():
+        label = _term_label(term)
+        terms[label] = tuple(int(i) for i in idx)
+        exprs = tuple(str(f.expr) for f in term.factors)
+        factors[label] = exprs if label != "1" else ()
+        for j in idx:
+            levels[j] = _parse_levels(columns[j], exprs) if label != "1" else ()
+    return CoefficientIndex(
+        names=tuple(columns), terms=terms, levels=tuple(levels), factors=factors
+    )
+
+
+def design_from_formula(
+    formula: str,
+    data: pd.DataFrame,
+    weights: str | ArrayLike | None = None,
+    missing: str = "drop",
+) -> Design:
+    """Build a :class:`Design` from a two-sided Wilkinson formula via formulaic.
+
+    Parameters
+    ----------
+    formula : str
+        ``"response ~ terms"`` as formulaic parses it.
+    data : pandas.DataFrame
+        Not modified.
+    weights : str, array_like or None
+        Name of a column of ``data`` or an array aligned with its rows.
+    missing : {'drop', 'raise'}
+        Drop rows with missing values in the formula's variables (or the weights) and count them
+        on the fit, or raise :class:`~lincomb.errors.MissingValueError`.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3, 5], "g": ["a", "b", "a", "b"], "x": [0.0, 1, 3, None]})
+    >>> d = design_from_formula("y ~ g + x", df)
+    >>> d.index.names, len(d.dropped)
+    (('Intercept', 'g[T.b]', 'x'), 1)
+    """
+    import formulaic
+
+    if not isinstance(data, pd.DataFrame):
+        raise InputError(f"data must be a pandas DataFrame, got {type(data).__name__}.")
+    if missing not in ("drop", "raise"):
+        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    if not isinstance(formula, str) or "~" not in formula:
+        raise InputError(f"formula {formula!r} has no response: write it as 'response ~ terms'.")
+    w_series: pd.Series | None = None
+    if weights is not None:
+        if isinstance(weights, str):
+            if weights not in data.columns:
+                close = difflib.get_close_matches(weights, [str(c) for c in data.columns])
+                raise InputError(f"weights column {weights!r} is not in data. Close: {close}")
+            w_series = data[weights]
+        else:
+            wv = np.asarray(weights)
+            if wv.shape[0] != len(data):
+                raise InputError(f"weights has {wv.shape[0]} entries for {len(data)} rows.")
+            w_series = pd.Series(wv, index=data.index)
+        try:
+            w_series = w_series.astype(np.float64)
+        except (TypeError, ValueError):
+            raise InputError("weights must be numeric.") from None
+    # find rows with missing values among the formula's variables, plus weights
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
+            mm = formulaic.model_matrix(formula, data, na_action="ignore")
+    except formulaic.errors.FormulaicError as exc:
+        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+    except Exception as exc:  # formulaic raises plain errors for unknown variables
+        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+    lhs, rhs = mm.lhs, mm.rhs
+    if lhs.shape[1] != 1:
+        raise InputError(
+            f"the response of {formula!r} expands to {lhs.shape[1]} columns {list(lhs.columns)}:"
+            " it must be one numeric variable (recode a categorical outcome first)."
+        )
+    variables = sorted(
+        {str(v) for v in mm.model_spec.lhs.variables}
+        | {str(v) for v in mm.model_spec.rhs.variables}
+    )
+    used = [v for v in variables if v in data.columns]
+    na_rows = data[used].isna().any(axis=1) if used else pd.Series(False, index=data.index)
+    if w_series is not None:
+        na_rows = na_rows | w_series.isna()
+    n_missing = int(na_rows.sum())
+    if n_missing and missing == "raise":
+        counts = {c: int(data[c].isna().sum()) for c in used if data[c].isna().any()}
+        if w_series is not None and w_series.isna().any():
+            counts["<weights>"] = int(w_series.isna().sum())
+        raise MissingValueError(
+            f"{n_missing} rows have missing values (per column: {counts}); drop or impute them,"
+            " or fit with missing='drop'."
+        )
+    keep = ~na_rows.to_numpy()
+    sub = data.loc[keep] if n_missing else data
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
+            mm = formulaic.model_matrix(formula, sub, na_action="raise")
+    except Exception as exc:
+        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+    lhs, rhs = mm.lhs, mm.rhs
+    response = str(lhs.columns[0])
+    if not (pd.api.types.is_numeric_dtype(sub[response]) if response in sub.columns else True):
+        raise InputError(f"the response {response!r} must be numeric.")
+    names = [str(c) for c in rhs.columns]
+    xa = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
+    ya = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+    rows = sub.index
+    _check_finite(xa, "design", names, rows)
+    _check_finite(ya, f"response {response!r}", None, rows)
+    wa = None
+    if w_series is not None:
+        wa = w_series.loc[rows].to_numpy(dtype=np.float64, copy=True)
+        _validate_weights(wa, rows)
+    index = _index_from_spec(names, mm.model_spec.rhs)
+    intercept = index.terms.get("1", (None,))[0]
+    return Design(
+        x=xa,
+        y=ya,
+        weights=wa,
+        index=index,
+        intercept=intercept,
+        response=response,
+        row_index=rows,
+        dropped=data.index[~keep],
+        spec=mm.model_spec,
+        formula=formula,
+    )
+
+
+def encode_new(design: Design, data: pd.DataFrame) -> pd.DataFrame:
+    """Encode new data with the fit's formula spec, refusing levels the fit never saw."""
+    import formulaic
+
+    if design.spec is None:
+        raise InputError("this fit was made from arrays; it has no formula to encode new data.")
+    if not isinstance(data, pd.DataFrame):
+        raise InputError(f"new data must be a pandas DataFrame, got {type(data).__name__}.")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
+        x = design.spec.rhs.get_model_matrix(data, na_action="raise")
+    for w in caught:
+        if issubclass(w.category, formulaic.errors.DataMismatchWarning):
+            raise UnseenLevelError(
+                f"new data hold a factor level the fit never saw ({w.message}). Such rows would"
+                " silently be coded like the reference level; remove them or refit with the"
+                " level present."
+            )
+    return x
+
+
+def normalize_mapping(obj: Mapping[str, float] | None) -> dict[str, float]:
+    return dict(obj or {})

@@ -1,0 +1,527 @@
+"""Fitting a linear model and testing restrictions on it.
+
+:func:`fit` (formula + DataFrame) and :func:`fit_arrays` (``X``, ``y``) return a
+:class:`LinearFit`: the fit's sufficient statistics (a small triangular factor, the rotated
+response, the residual sum of squares, the rank decision and the coefficient names).  Tests and
+restricted fits are computed from those alone, so their cost does not grow with the number of
+observations.
+
+The fit joins the two halves of the library: it resolves a restriction built by
+:mod:`lincomb.restriction` through its coefficient index (:mod:`lincomb.design`), maps it to
+working coordinates and hands plain arrays to :mod:`lincomb.linalg`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+from scipy import stats
+
+from . import linalg
+from ._format import fit_html, fit_text
+from .design import Design, design_from_arrays, design_from_formula, encode_new
+from .errors import (
+    DegenerateFitError,
+    InconsistentRestrictionError,
+    NotEstimableError,
+)
+from .restriction import RestrictionSystem, as_system
+from .results import RestrictedFit, WaldTest
+
+__all__ = ["LinearFit", "fit", "fit_arrays"]
+
+#: A residual sum of squares at most this fraction of the centred response's squared norm
+#: (squared) counts as zero: the model reproduces the data and no error variance is left.
+ZERO_RSS_TOL: float = 1e-12
+
+
+@dataclass(frozen=True)
+class LinearFit:
+    """A least-squares fit, kept as its sufficient statistics.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Coefficient names in design order.
+    coefficients : pandas.Series
+        Estimates; ``NaN`` for aliased (not estimable) columns.  With aliased columns, the
+        others are those of the fit without the aliased columns.
+    aliased : tuple of str
+        Columns found linearly dependent on earlier ones (see :mod:`lincomb.linalg`).
+    rank : int
+        Numerical rank of the design.
+    n_obs : int
+        Observations used.
+    n_dropped : int
+        Rows dropped for missing values.
+    df_resid : int
+        ``n_obs - rank``.
+    rss : float
+        (Weighted) residual sum of squares.
+    sigma : float
+        Residual standard deviation ``sqrt(rss / df_resid)``.
+    weighted : bool
+    response : str
+    formula : str or None
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("yield_t_ha ~ C(nitrogen) + variety + rainfall_mm", lc.datasets.field_trial())
+    >>> f.n_obs, f.n_dropped, f.rank
+    (216, 4, 7)
+    >>> res = f.wald(lc.term("C(nitrogen)")["40"] == lc.term("C(nitrogen)")["80"])
+    >>> bool(res.p_value < 0.05)
+    True
+    """
+
+    names: tuple[str, ...]
+    coefficients: pd.Series
+    aliased: tuple[str, ...]
+    rank: int
+    n_obs: int
+    n_dropped: int
+    df_resid: int
+    rss: float
+    sigma: float
+    weighted: bool
+    response: str
+    formula: str | None
+    rank_tol: float = field(default=linalg.RANK_TOL, repr=False)
+    _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _moments: linalg.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _sol: linalg.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+
+    # -- construction -------------------------------------------------------------------
+    @classmethod
+    def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
+        moments = linalg.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
+        return cls._from_moments(design, moments, rank_tol)
+
+    @classmethod
+    def _from_moments(cls, design: Design, moments: linalg.Moments, rank_tol: float) -> LinearFit:
+        if not (0 < rank_tol < 1):
+            raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
+        sol = linalg.solve(moments, rank_tol)
+        names = design.index.names
+        if sol.n <= sol.rank:
+            raise DegenerateFitError(
+                f"{sol.n} observations for {sol.rank} estimable coefficients leave no residual"
+                " degrees of freedom, so no error variance and no test. Add observations or drop"
+                " terms."
+            )
+        beta = sol.coefficients()
+        sigma = float(np.sqrt(sol.rss / sol.df_resid))
+        return cls(
+            names=names,
+            coefficients=pd.Series(beta, index=list(names), name="estimate"),
+            aliased=tuple(names[j] for j in sorted(sol.aliased)),
+            rank=sol.rank,
+            n_obs=sol.n,
+            n_dropped=len(design.dropped),
+            df_resid=sol.df_resid,
+            rss=sol.rss,
+            sigma=sigma,
+            weighted=design.weights is not None,
+            response=design.response,
+            formula=design.formula,
+            rank_tol=rank_tol,
+            _design=design,
+            _moments=moments,
+            _sol=sol,
+        )
+
+    # -- basic quantities ---------------------------------------------------------------
+    @property
+    def index(self) -> Any:
+        """The coefficient index (names, terms, levels) used to resolve restrictions."""
+        return self._design.index
+
+    @property
+    def terms(self) -> dict[str, tuple[str, ...]]:
+        """``{term label: column names}`` in formula order."""
+        idx = self._design.index
+        return {t: tuple(idx.names[j] for j in cols) for t, cols in idx.terms.items()}
+
+    @property
+    def dropped_rows(self) -> pd.Index:
+        """Labels of the rows dropped for missing values."""
+        return self._design.dropped
+
+    def _check_variance(self) -> None:
+        if self._sol.rss <= (ZERO_RSS_TOL * self._sol.y_norm) ** 2:
+            raise DegenerateFitError(
+                f"the residual sum of squares is zero to working precision ({self._sol.rss:.3g}):"
+                " the model reproduces the response exactly, so there is no error variance and no"
+                " F or t test. Check for a response that is a function of the regressors."
+            )
+
+    def covariance(self) -> pd.DataFrame:
+        """Classical covariance matrix of the coefficients (NaN rows/columns for aliased ones).
+
+        Computed as ``σ² A R⁻¹ R⁻ᵀ Aᵀ`` from the triangular factor, never by inverting ``XᵀX``.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit_arrays(np.c_[np.ones(5), [1.0, 2, 3, 4, 6]], [1.0, 2.5, 2.9, 4.2, 6.1])
+        >>> cov = f.covariance()
+        >>> bool(np.allclose(cov, cov.T))
+        True
+        """
+        self._check_variance()
+        sol = self._sol
+        p = sol.p
+        est = np.setdiff1d(np.arange(p), sol.aliased)
+        eye = np.eye(p)[est]
+        root = sol.root(sol.to_working(eye)[:, sol.kept]) * self.sigma
+        cov = np.full((p, p), np.nan)
+        cov[np.ix_(est, est)] = root.T @ root
+        return pd.DataFrame(cov, index=list(self.names), columns=list(self.names))
+
+    def std_errors(self) -> pd.Series:
+        """Classical standard errors (NaN for aliased coefficients)."""
+        return pd.Series(
+            np.sqrt(np.diag(self.covariance().to_numpy())), index=list(self.names), name="std_error"
+        )
+
+    def coef_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """One row per coefficient: estimate, standard error, t, p-value, interval, status.
+
+        Columns: ``coefficient, term, estimate, std_error, t, p_value, lower, upper, level,
+        status`` where status is ``"estimable"``, ``"aliased"`` (its column depends on earlier
+        ones; no estimate) or ``"not estimable"`` (estimated only with the aliased columns fixed
+        at zero: its value depends on that choice and it cannot be tested alone).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> list(f.coef_frame().columns)[:4]
+        ['coefficient', 'term', 'estimate', 'std_error']
+        """
+        _check_level(level)
+        est = self.coefficients.to_numpy()
+        se = self.std_errors().to_numpy()
+        t = est / se
+        p = 2 * stats.t.sf(np.abs(t), self.df_resid)
+        q = stats.t.ppf(0.5 + level / 2, self.df_resid)
+        term_of = {}
+        for tlabel, cols in self._design.index.terms.items():
+            for j in cols:
+                term_of[j] = "Intercept" if tlabel == "1" else tlabel
+        return pd.DataFrame(
+            {
+                "coefficient": list(self.names),
+                "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
+                "estimate": est,
+                "std_error": se,
+                "t": t,
+                "p_value": p,
+                "lower": est - q * se,
+                "upper": est + q * se,
+                "level": level,
+                "status": self._status(),
+            }
+        )
+
+    def _status(self) -> list[str]:
+        """Per coefficient: ``estimable``, ``aliased``, or ``not estimable`` (a kept column whose
+        coefficient is only identified once the aliased columns are fixed at zero)."""
+        sol = self._sol
+        resid = sol.estimability_residual(sol.to_working(np.eye(sol.p)))
+        out = []
+        for j, name in enumerate(self.names):
+            if name in self.aliased:
+                out.append("aliased")
+            else:
+                out.append("estimable" if resid[j] <= linalg.ROW_TOL else "not estimable")
+        return out
+
+    # -- restrictions -------------------------------------------------------------------
+    def resolve(
+        self, restrictions: object
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
+        """Turn restrictions into ``(C, d, labels)`` on this fit's coefficients.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> c, d, labels = f.resolve(lc.coef("line[T.L2]") == lc.coef("line[T.L3]"))
+        >>> c.tolist(), d.tolist()
+        ([[0.0, 1.0, -1.0, 0.0]], [0.0])
+        """
+        system: RestrictionSystem = as_system(restrictions)
+        return system.resolve(self._design.index)
+
+    def _prepare(
+        self, restrictions: object
+    ) -> tuple[
+        NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], linalg.RowAnalysis
+    ]:
+        c, d, labels = self.resolve(restrictions)
+        sol = self._sol
+        cu = sol.to_working(c)
+        analysis = linalg.analyze_rows(cu, d, linalg.ROW_TOL)
+        if analysis.inconsistent:
+            lines = []
+            for row, dval, implied in analysis.inconsistent:
+                dep = analysis.dependencies[row]
+                combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
+                lines.append(
+                    f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
+                    f" but its d is {dval:.6g}"
+                )
+            raise InconsistentRestrictionError(
+                "the restrictions contradict each other: "
+                + "; ".join(lines)
+                + ". Remove one of the conflicting rows or correct its value."
+            )
+        resid = sol.estimability_residual(cu)
+        bad = np.flatnonzero(resid > linalg.ROW_TOL)
+        if bad.size:
+            msgs = []
+            for i in bad:
+                touched = [self.names[j] for j in sol.aliased_touched(cu[i], linalg.ROW_TOL)]
+                msgs.append(f"row {int(i)} ({labels[i]}) involves aliased coefficients {touched}")
+            raise NotEstimableError(
+                "restriction not estimable under this rank-deficient design: "
+                + "; ".join(msgs)
+                + f". Aliased columns: {list(self.aliased)}. Restate the row as a contrast that"
+                " the data identify, or remove the aliasing from the design."
+            )
+        return c, d, labels, cu, analysis
+
+    def wald(self, restrictions: object) -> WaldTest:
+        """Wald test of ``C·β = d``: an F for the system and a t for each row.
+
+        Parameters
+        ----------
+        restrictions : Restriction, RestrictionSystem, or list of them
+            Built with :func:`~lincomb.coef`, :func:`~lincomb.term`, ``==`` and ``&``, or
+            :func:`~lincomb.from_matrix`.
+
+        Returns
+        -------
+        WaldTest
+
+        Raises
+        ------
+        InconsistentRestrictionError
+            A redundant row carries a ``d`` that contradicts the rows it depends on.
+        NotEstimableError
+            A row is not estimable under a rank-deficient design.
+        DegenerateFitError
+            The residual sum of squares is zero.
+
+        Notes
+        -----
+        The numerator degrees of freedom are the rank of ``C``; redundant rows are reported on
+        the result (``redundant``) and do not count.  With ``V = R⁻ᵀ C_Kᵀ`` over the independent
+        rows ``K``, ``F = ‖R_V⁻ᵀ (C_K β̂ - d_K)‖² / (q σ²)`` where ``V = Q_V R_V``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
+        >>> res = f.wald(lc.term("line") == 0)
+        >>> res.df_num, res.df_den
+        (3, 294.0)
+        """
+        self._check_variance()
+        c, d, labels, cu, analysis = self._prepare(restrictions)
+        sol = self._sol
+        root = sol.root(cu[:, sol.kept]) * self.sigma
+        est = cu[:, sol.kept] @ sol.theta
+        core = linalg.wald_from_root(est - d, root, analysis.independent)
+        q = core.rank
+        stat = core.quad / q
+        return WaldTest(
+            labels=tuple(labels),
+            estimate=est,
+            target=d.copy(),
+            std_error=core.std_error,
+            t=core.statistic_rows,
+            statistic=float(stat),
+            df_num=q,
+            df_den=float(self.df_resid),
+            p_value=float(stats.f.sf(stat, q, self.df_resid)),
+            distribution="F",
+            covariance="classical",
+            redundant=analysis.dependencies,
+            matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
+        )
+
+    def restrict(self, restrictions: object) -> RestrictedFit:
+        """Least squares subject to ``C·β = d``.
+
+        Returns the restricted coefficients, their covariance (``σ_r² W Wᵀ`` with
+        ``σ_r² = RSS_r / (n - rank + q)``) and the restricted residual sum of squares, computed
+        from the unrestricted factor as ``RSS_r = RSS + ‖R (θ_r - θ̂)‖²``.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> r = f.restrict(lc.coef("line[T.L2]") == 0)
+        >>> float(r.coefficients["line[T.L2]"])
+        0.0
+        >>> w = f.wald(lc.coef("line[T.L2]") == 0)
+        >>> bool(np.isclose((r.rss - f.rss) / f.rss * f.df_resid, w.statistic))
+        True
+        """
+        self._check_variance()
+        c, d, labels, cu, analysis = self._prepare(restrictions)
+        sol = self._sol
+        k = analysis.independent
+        root_k = sol.root(cu[k][:, sol.kept])
+        delta_k = cu[k][:, sol.kept] @ sol.theta - d[k]
+        step, w = linalg.restricted_step(sol, root_k, delta_k)
+        theta_r = sol.theta + step
+        u = np.zeros(sol.p)
+        u[sol.kept] = theta_r
+        beta = u / sol.scale
+        if sol.intercept is not None:
+            beta[sol.intercept] -= sol.center @ beta
+        beta[sol.aliased] = np.nan
+        rss_r = sol.rss + float(np.sum((sol.r @ step) ** 2))
+        q = int(k.size)
+        df_r = sol.df_resid + q
+        sigma_r2 = rss_r / df_r
+        # covariance: map W (working, kept) back to β through A = T⁻¹ S⁻¹ on kept columns
+        amap = np.zeros((sol.p, sol.rank))
+        for col, j in enumerate(sol.kept):
+            amap[j, col] = 1.0 / sol.scale[j]
+        if sol.intercept is not None:
+            amap[sol.intercept] -= sol.center @ amap
+        aw = amap @ w
+        cov = sigma_r2 * (aw @ aw.T)
+        cov[sol.aliased, :] = np.nan
+        cov[:, sol.aliased] = np.nan
+        names = list(self.names)
+        return RestrictedFit(
+            labels=tuple(labels),
+            coefficients=pd.Series(beta, index=names, name="restricted"),
+            rss=rss_r,
+            rss_unrestricted=sol.rss,
+            rank=q,
+            df_resid=df_r,
+            sigma=float(np.sqrt(sigma_r2)),
+            redundant=analysis.dependencies,
+            _cov=pd.DataFrame(cov, index=names, columns=names),
+        )
+
+    def encode(self, data: pd.DataFrame) -> pd.DataFrame:
+        """Design matrix of new data with this fit's encoding; unseen factor levels raise.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.encode(pd.DataFrame({"line": ["L2", "L4"]})).shape
+        (2, 4)
+        """
+        return encode_new(self._design, data)
+
+    # -- presentation -------------------------------------------------------------------
+    def __repr__(self) -> str:
+        return fit_text(self)
+
+    def _repr_html_(self) -> str:
+        return fit_html(self)
+
+
+def _check_level(level: float) -> None:
+    if not (0 < level < 1):
+        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+
+
+def fit(
+    formula: str,
+    data: pd.DataFrame,
+    *,
+    weights: str | ArrayLike | None = None,
+    missing: str = "drop",
+    rank_tol: float = linalg.RANK_TOL,
+) -> LinearFit:
+    """Fit a linear model by (weighted) least squares from a formula.
+
+    Parameters
+    ----------
+    formula : str
+        Two-sided Wilkinson formula as formulaic parses it, e.g.
+        ``"yield_t_ha ~ C(nitrogen) * variety + rainfall_mm"``; ``0 +`` or ``- 1`` removes the
+        intercept.
+    data : pandas.DataFrame
+        Not modified.
+    weights : str or array_like, optional
+        Positive weights (a column name or an array aligned with ``data``): WLS.
+    missing : {'drop', 'raise'}, default 'drop'
+        Rows with missing values in the formula's variables are dropped and counted
+        (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
+    rank_tol : float, default 1e-10
+        Relative rank tolerance (see :mod:`lincomb.linalg`).
+
+    Returns
+    -------
+    LinearFit
+
+    Raises
+    ------
+    InputError
+        Non-numeric or non-finite data, bad weights, a formula without response.
+    DegenerateFitError
+        No residual degrees of freedom.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + shift + temperature_c", lc.datasets.fill_lines())
+    >>> f.df_resid
+    293
+    """
+    design = design_from_formula(formula, data, weights=weights, missing=missing)
+    return LinearFit._from_design(design, rank_tol)
+
+
+def fit_arrays(
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    names: Sequence[str] | None = None,
+    weights: ArrayLike | None = None,
+    rank_tol: float = linalg.RANK_TOL,
+) -> LinearFit:
+    """Fit a linear model by (weighted) least squares from arrays.
+
+    Parameters
+    ----------
+    x : (n, p) array_like or DataFrame
+        Design.  A column whose entries all equal one nonzero constant is the intercept; without
+        one the model has none.  Column names come from ``names`` or a DataFrame's columns
+        (default ``x0, x1, ...``).
+    y : (n,) array_like
+    names : sequence of str, optional
+    weights : (n,) array_like, optional
+    rank_tol : float, default 1e-10
+
+    Returns
+    -------
+    LinearFit
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> x = np.c_[np.ones(4), [0.0, 1, 2, 3]]
+    >>> f = lc.fit_arrays(x, [1.0, 3.1, 4.9, 7.0], names=["const", "slope"])
+    >>> round(float(f.coefficients["slope"]), 2)
+    1.98
+    """
+    design = design_from_arrays(x, y, names=names, weights=weights)
+    return LinearFit._from_design(design, rank_tol)

@@ -1,0 +1,553 @@
+"""A small, immutable builder for linear restrictions ``C·β = d`` written in coefficient names.
+
+Nothing here touches data or linear algebra.  Expressions hold *references* (a coefficient name,
+or a level of a term) with weights; they are resolved into a numeric ``C`` and ``d`` only when a
+fit asks, through any object with the :class:`Resolver` methods (the design's coefficient
+index).
+
+>>> from lincomb import coef, term
+>>> r = (coef("x1") - 2 * coef("x2") == 1) & (term("C(site)") == 0)
+>>> r
+<RestrictionSystem: x1 - 2*x2 = 1 & C(site) = 0>
+
+Every operator returns a new object.  Because ``==`` builds a restriction, ``bool()`` of one
+raises ``TypeError`` (write ``&`` to combine, not ``and``), and expressions are unhashable.
+"""
+
+from __future__ import annotations
+
+import numbers
+from collections.abc import Iterable, Iterator, Sequence
+from dataclasses import dataclass
+from typing import Any, Protocol
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+
+from .errors import EmptyRestrictionError, RestrictionShapeError, UnknownCoefficientError
+
+__all__ = [
+    "coef",
+    "term",
+    "from_matrix",
+    "Expr",
+    "Restriction",
+    "RestrictionSystem",
+    "TermRef",
+    "Resolver",
+    "as_system",
+]
+
+
+class Resolver(Protocol):
+    """What the builder needs from a fit to turn names into column positions."""
+
+    names: tuple[str, ...]
+
+    def column(self, name: str) -> int: ...
+
+    def term_columns(self, term: str) -> tuple[int, ...]: ...
+
+    def level_column(self, term: str, key: tuple[str, ...]) -> int: ...
+
+
+@dataclass(frozen=True)
+class _Name:
+    name: str
+
+    def label(self) -> str:
+        return self.name
+
+    def resolve(self, index: Resolver) -> int:
+        return index.column(self.name)
+
+
+@dataclass(frozen=True)
+class _Level:
+    term: str
+    key: tuple[str, ...]
+
+    def label(self) -> str:
+        inner = ", ".join(self.key)
+        return f"{self.term}[{inner}]"
+
+    def resolve(self, index: Resolver) -> int:
+        return index.level_column(self.term, self.key)
+
+
+_Ref = _Name | _Level
+
+_BOOL_MSG = (
+    "a restriction has no truth value: combine restrictions with '&' (not 'and'), and test"
+    " them with a fit, e.g. fit.wald(r1 & r2)."
+)
+
+
+def _is_number(v: object) -> bool:
+    return isinstance(v, numbers.Real) and not isinstance(v, bool)
+
+
+def _fmt_num(v: float) -> str:
+    return f"{v:.12g}"
+
+
+class Expr:
+    """A linear expression ``Σ wᵢ·βᵢ + k`` in named coefficients.
+
+    Build one with :func:`coef` or by indexing a :func:`term`; combine with ``+``, ``-``,
+    unary ``-``, and ``*`` or ``/`` by a number.  Comparing with ``==`` gives a
+    :class:`Restriction`.
+
+    Examples
+    --------
+    >>> from lincomb import coef
+    >>> e = 0.5 * (coef("a") + coef("b")) - coef("c")
+    >>> e
+    <Expr: 0.5*a + 0.5*b - c>
+    >>> e == 2
+    <Restriction: 0.5*a + 0.5*b - c = 2>
+    """
+
+    __slots__ = ("_terms", "_const")
+    __hash__ = None  # type: ignore[assignment]
+
+    def __init__(self, terms: dict[_Ref, float] | None = None, const: float = 0.0) -> None:
+        self._terms: dict[_Ref, float] = {k: float(v) for k, v in (terms or {}).items() if v != 0}
+        self._const = float(const)
+
+    # -- arithmetic ---------------------------------------------------------------------
+    def _combine(self, other: object, sign: float) -> Expr:
+        if isinstance(other, Expr):
+            terms = dict(self._terms)
+            for k, v in other._terms.items():
+                terms[k] = terms.get(k, 0.0) + sign * v
+            return Expr(terms, self._const + sign * other._const)
+        if _is_number(other):
+            if not np.isfinite(float(other)):  # type: ignore[arg-type]
+                raise RestrictionShapeError(f"constant {other!r} is not finite.")
+            return Expr(self._terms, self._const + sign * float(other))  # type: ignore[arg-type]
+        return NotImplemented
+
+    def __add__(self, other: object) -> Expr:
+        return self._combine(other, 1.0)
+
+    def __radd__(self, other: object) -> Expr:
+        return self._combine(other, 1.0)
+
+    def __sub__(self, other: object) -> Expr:
+        return self._combine(other, -1.0)
+
+    def __rsub__(self, other: object) -> Expr:
+        return (-self)._combine(other, 1.0)
+
+    def __neg__(self) -> Expr:
+        return Expr({k: -v for k, v in self._terms.items()}, -self._const)
+
+    def __pos__(self) -> Expr:
+        return self
+
+    def __mul__(self, other: object) -> Expr:
+        if isinstance(other, Expr):
+            raise TypeError(
+                "a product of two coefficients is not linear; multiply by numbers only."
+            )
+        if not _is_number(other):
+            return NotImplemented
+        f = float(other)  # type: ignore[arg-type]
+        if not np.isfinite(f):
+            raise RestrictionShapeError(f"multiplier {other!r} is not finite.")
+        return Expr({k: v * f for k, v in self._terms.items()}, self._const * f)
+
+    __rmul__ = __mul__
+
+    def __truediv__(self, other: object) -> Expr:
+        if not _is_number(other):
+            if isinstance(other, Expr):
+                raise TypeError("dividing by a coefficient is not linear; divide by numbers only.")
+            return NotImplemented
+        if float(other) == 0:  # type: ignore[arg-type]
+            raise ZeroDivisionError("restriction expression divided by zero")
+        return self * (1.0 / float(other))  # type: ignore[arg-type]
+
+    # -- comparison ---------------------------------------------------------------------
+    def __eq__(self, other: object) -> Restriction:  # type: ignore[override]
+        if isinstance(other, Expr):
+            diff = self - other
+        elif _is_number(other):
+            diff = self - other
+        else:
+            return NotImplemented
+        return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
+
+    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+
+    def __bool__(self) -> bool:
+        raise TypeError(_BOOL_MSG)
+
+    # -- presentation -------------------------------------------------------------------
+    def text(self) -> str:
+        """The expression as algebra in coefficient names."""
+        parts: list[str] = []
+        for ref, w in self._terms.items():
+            mag = abs(w)
+            body = ref.label() if mag == 1 else f"{_fmt_num(mag)}*{ref.label()}"
+            if not parts:
+                parts.append(body if w > 0 else f"-{body}")
+            else:
+                parts.append(f"{'+' if w > 0 else '-'} {body}")
+        if self._const or not parts:
+            c = self._const
+            if not parts:
+                parts.append(_fmt_num(c))
+            else:
+                parts.append(f"{'+' if c > 0 else '-'} {_fmt_num(abs(c))}")
+        return " ".join(parts)
+
+    def __repr__(self) -> str:
+        return f"<Expr: {self.text()}>"
+
+    def _row(self, index: Resolver) -> NDArray[np.float64]:
+        row = np.zeros(len(index.names))
+        for ref, w in self._terms.items():
+            row[ref.resolve(index)] += w
+        return row
+
+
+def coef(name: str) -> Expr:
+    """Refer to one coefficient by its column name.
+
+    Parameters
+    ----------
+    name : str
+        A column name of the fit, e.g. ``"rainfall_mm"`` or ``"C(variety)[T.Brora]"``.  It is
+        checked only when a fit resolves the restriction.
+
+    Examples
+    --------
+    >>> from lincomb import coef
+    >>> coef("price") == 1
+    <Restriction: price = 1>
+    """
+    if not isinstance(name, str) or not name:
+        raise TypeError(f"coef() needs a non-empty column name, got {name!r}.")
+    return Expr({_Name(name): 1.0})
+
+
+@dataclass(frozen=True, eq=False)
+class TermRef:
+    """All the columns of one model term (a factor, an interaction or a numeric variable).
+
+    Index it by level to get one coefficient; compare it with a number to restrict every one of
+    its coefficients at once.
+
+    Examples
+    --------
+    >>> from lincomb import term
+    >>> t = term("C(dose)")
+    >>> t["40"] - t["10"] == 0
+    <Restriction: C(dose)[40] - C(dose)[10] = 0>
+    >>> t == 0
+    <RestrictionSystem: C(dose) = 0>
+    """
+
+    name: str
+
+    __hash__ = None  # type: ignore[assignment]
+
+    def __getitem__(self, key: object) -> Expr:
+        keys = tuple(key) if isinstance(key, tuple) else (key,)
+        return Expr({_Level(self.name, tuple(str(k) for k in keys)): 1.0})
+
+    def __eq__(self, other: object) -> RestrictionSystem:  # type: ignore[override]
+        if not _is_number(other):
+            return NotImplemented
+        return RestrictionSystem((_TermRows(self.name, float(other)),))  # type: ignore[arg-type]
+
+    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+
+    def __bool__(self) -> bool:
+        raise TypeError(_BOOL_MSG)
+
+    def __repr__(self) -> str:
+        return f"<TermRef: {self.name}>"
+
+
+def term(name: str) -> TermRef:
+    """Refer to a model term by its formula label, e.g. ``"C(dose)"`` or ``"C(a):x"``.
+
+    Examples
+    --------
+    >>> from lincomb import term
+    >>> term("C(line)")["L3"] == 0
+    <Restriction: C(line)[L3] = 0>
+    """
+    if not isinstance(name, str) or not name:
+        raise TypeError(f"term() needs a non-empty term label, got {name!r}.")
+    return TermRef(name)
+
+
+class _Item:
+    """One building block of a system: resolves into one or more rows."""
+
+    def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
+        raise NotImplementedError
+
+    def text(self) -> str:
+        raise NotImplementedError
+
+
+class Restriction(_Item):
+    """One linear restriction ``c·β = d``.
+
+    Combine restrictions into a system with ``&``.
+
+    Examples
+    --------
+    >>> from lincomb import coef
+    >>> r = coef("a") == coef("b")
+    >>> r
+    <Restriction: a - b = 0>
+    >>> (r & (coef("c") == 1)).text()
+    'a - b = 0 & c = 1'
+    """
+
+    __slots__ = ("expr", "target")
+    __hash__ = None  # type: ignore[assignment]
+
+    def __init__(self, expr: Expr, target: float) -> None:
+        self.expr = expr
+        self.target = float(target)
+
+    def text(self) -> str:
+        return f"{self.expr.text()} = {_fmt_num(self.target)}"
+
+    def __repr__(self) -> str:
+        return f"<Restriction: {self.text()}>"
+
+    def __bool__(self) -> bool:
+        raise TypeError(_BOOL_MSG)
+
+    def __and__(self, other: object) -> RestrictionSystem:
+        return as_system(self) & other
+
+    def __rand__(self, other: object) -> RestrictionSystem:
+        return as_system(other) & self
+
+    def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
+        row = self.expr._row(index)
+        if not row.any():
+            raise EmptyRestrictionError(
+                f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
+                " remove it or fix its terms."
+            )
+        yield row, self.target, self.text()
+
+
+@dataclass(frozen=True)
+class _TermRows(_Item):
+    name: str
+    value: float
+
+    def text(self) -> str:
+        return f"{self.name} = {_fmt_num(self.value)}"
+
+    def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
+        for j in index.term_columns(self.name):
+            row = np.zeros(len(index.names))
+            row[j] = 1.0
+            yield row, self.value, f"{index.names[j]} = {_fmt_num(self.value)}"
+
+
+class _MatrixRows(_Item):
+    def __init__(self, c: Any, d: Any, labels: Sequence[str] | None) -> None:
+        self.c = c
+        self.d = d
+        self.labels = labels
+
+    def text(self) -> str:
+        m = self.c.shape[0]
+        return f"[{m} explicit row{'s' if m != 1 else ''}]"
+
+    def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
+        p = len(index.names)
+        if isinstance(self.c, pd.DataFrame):
+            mat = np.zeros((self.c.shape[0], p))
+            for col in self.c.columns:
+                j = index.column(str(col))
+                mat[:, j] += self.c[col].to_numpy(dtype=np.float64)
+        else:
+            mat = self.c
+            if mat.shape[1] != p:
+                raise RestrictionShapeError(
+                    f"C has {mat.shape[1]} columns but the fit has {p} coefficients"
+                    f" {list(index.names)}; give one column per coefficient, or a DataFrame"
+                    " whose columns are coefficient names."
+                )
+        for i in range(mat.shape[0]):
+            row = mat[i]
+            if self.labels is not None:
+                label = str(self.labels[i])
+            else:
+                e = Expr({_Name(index.names[j]): row[j] for j in np.flatnonzero(row)})
+                label = f"{e.text()} = {_fmt_num(self.d[i])}"
+            if not row.any():
+                raise EmptyRestrictionError(f"row {i} of C ({label!r}) is all zeros; drop it.")
+            yield row.copy(), float(self.d[i]), label
+
+
+class RestrictionSystem:
+    """An ordered system of restrictions ``C·β = d``, built with ``&``.
+
+    Examples
+    --------
+    >>> from lincomb import coef, term
+    >>> s = (coef("a") == 0) & (coef("b") - coef("c") == 2.5)
+    >>> len(s.items), s.text()
+    (2, 'a = 0 & b - c = 2.5')
+    """
+
+    __hash__ = None  # type: ignore[assignment]
+
+    def __init__(self, items: Iterable[_Item]) -> None:
+        self.items: tuple[_Item, ...] = tuple(items)
+
+    def __and__(self, other: object) -> RestrictionSystem:
+        if isinstance(other, (RestrictionSystem, _Item)):
+            return RestrictionSystem(self.items + as_system(other).items)
+        if isinstance(other, (Expr, TermRef)):
+            raise TypeError(
+                f"{other!r} is an expression, not a restriction: compare it with '==' first."
+            )
+        return NotImplemented
+
+    def __rand__(self, other: object) -> RestrictionSystem:
+        return as_system(other) & self
+
+    def __bool__(self) -> bool:
+        raise TypeError(_BOOL_MSG)
+
+    def text(self) -> str:
+        return " & ".join(item.text() for item in self.items)
+
+    def __repr__(self) -> str:
+        return f"<RestrictionSystem: {self.text()}>"
+
+    def resolve(
+        self, index: Resolver
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
+        """Turn the system into ``(C, d, row labels)`` for the coefficients of ``index``."""
+        rows: list[NDArray[np.float64]] = []
+        ds: list[float] = []
+        labels: list[str] = []
+        for item in self.items:
+            for row, d, label in item.rows(index):
+                rows.append(row)
+                ds.append(d)
+                labels.append(label)
+        if not rows:
+            raise EmptyRestrictionError("the restriction system has no rows; add a restriction.")
+        return np.array(rows), np.array(ds), labels
+
+
+def from_matrix(
+    c: ArrayLike | pd.DataFrame,
+    d: ArrayLike | None = None,
+    labels: Sequence[str] | None = None,
+) -> RestrictionSystem:
+    """Build a system from an explicit ``C`` (and ``d``, zero by default).
+
+    Parameters
+    ----------
+    c : (m, p) array_like or DataFrame
+        With an array, one column per coefficient in fit order (checked at test time).  With a
+        DataFrame, columns are coefficient names; coefficients not named get weight 0.
+    d : (m,) array_like, optional
+    labels : sequence of str, optional
+        Row labels; default: the row written as algebra.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from lincomb import from_matrix
+    >>> from_matrix(pd.DataFrame({"a": [1.0, 0], "b": [-1.0, 1]}), d=[0, 2])
+    <RestrictionSystem: [2 explicit rows]>
+    """
+    if isinstance(c, pd.DataFrame):
+        cm: Any = c.astype(np.float64)
+        arr = cm.to_numpy()
+        if labels is None and not isinstance(c.index, pd.RangeIndex):
+            labels = [str(i) for i in c.index]
+    else:
+        try:
+            arr = np.array(c, dtype=np.float64, copy=True)
+        except (TypeError, ValueError):
+            raise RestrictionShapeError("C must be numeric.") from None
+        if arr.ndim == 1:
+            arr = arr[None, :]
+        if arr.ndim != 2:
+            raise RestrictionShapeError(f"C must be 2-dimensional, got shape {arr.shape}.")
+        cm = arr
+    m = arr.shape[0]
+    if m == 0:
+        raise EmptyRestrictionError("C has no rows; give at least one restriction.")
+    bad = np.argwhere(~np.isfinite(arr))
+    if bad.size:
+        i, j = bad[0]
+        raise RestrictionShapeError(
+            f"C holds {arr[i, j]!r} at row {i}, column {j}; C must be finite."
+        )
+    if d is None:
+        dv = np.zeros(m)
+    else:
+        try:
+            dv = np.array(d, dtype=np.float64, copy=True).reshape(-1)
+        except (TypeError, ValueError):
+            raise RestrictionShapeError("d must be numeric.") from None
+        if dv.size == 1 and m > 1 and np.ndim(d) == 0:
+            dv = np.full(m, float(dv[0]))
+        if dv.shape[0] != m:
+            raise RestrictionShapeError(f"d has {dv.shape[0]} entries but C has {m} rows.")
+        badd = np.flatnonzero(~np.isfinite(dv))
+        if badd.size:
+            raise RestrictionShapeError(
+                f"d holds {dv[badd[0]]!r} at row {badd[0]}; d must be finite."
+            )
+    if labels is not None and len(labels) != m:
+        raise RestrictionShapeError(f"{len(labels)} labels for {m} rows of C.")
+    return RestrictionSystem((_MatrixRows(cm, dv, labels),))
+
+
+def as_system(obj: object) -> RestrictionSystem:
+    """Accept a restriction, a system, or a term comparison; return a system unchanged.
+
+    Examples
+    --------
+    >>> from lincomb import coef
+    >>> s = as_system(coef("a") == 0)
+    >>> as_system(s) is s
+    True
+    """
+    if isinstance(obj, RestrictionSystem):
+        return obj
+    if isinstance(obj, _Item):
+        return RestrictionSystem((obj,))
+    if isinstance(obj, (Expr, TermRef)):
+        raise TypeError(
+            f"{obj!r} is an expression, not a restriction: compare it with '==', e.g. "
+            "coef('x') == 0."
+        )
+    if isinstance(obj, (list, tuple)):
+        out = RestrictionSystem(())
+        for o in obj:
+            out = out & as_system(o)
+        return out
+    raise TypeError(
+        f"expected a restriction built with coef()/term() and '==', got {type(obj).__name__}."
+    )
+
+
+def _unused() -> UnknownCoefficientError:  # pragma: no cover - keeps the import for type users
+    return UnknownCoefficientError("")
