@@ -356,6 +356,7 @@ class LinearFit:
             covariance="classical",
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
+            estimate_covariance=root.T @ root,
         )
 
     def restrict(self, restrictions: object) -> RestrictedFit:

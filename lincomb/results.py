@@ -71,6 +71,8 @@ class WaldTest:
         ``{row: {independent row: weight}}`` for each redundant row.
     matrix : pandas.DataFrame
         The resolved ``C`` (rows labelled, columns named by coefficient).
+    estimate_covariance : (m, m) ndarray
+        Estimated covariance of ``Cβ̂`` under the test's covariance estimator (all rows).
 
     Examples
     --------
@@ -96,6 +98,7 @@ class WaldTest:
     covariance: str
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     matrix: pd.DataFrame | None = field(default=None, repr=False)
+    estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
 
     @property
     def row_p_value(self) -> NDArray[np.float64]:
