@@ -56,7 +56,8 @@ class CoefficientIndex:
         return len(self.names)
 
     def _suggest(self, wrong: str, pool: Sequence[str]) -> str:
-        close = difflib.get_close_matches(wrong, list(pool), n=4, cutoff=0.5)
+        pool = list(dict.fromkeys(pool))  # a one-column term shares its column's name
+        close = difflib.get_close_matches(wrong, pool, n=4, cutoff=0.5)
         if not close:
             close = [s for s in pool if wrong.lower() in s.lower()][:4]
         hint = f" Did you mean one of: {close}?" if close else ""
@@ -101,6 +102,8 @@ class CoefficientIndex:
         """Index of the column of ``term`` that codes the level(s) ``key``."""
         label = self._term_key(term)
         cols = self.terms[label]
+        if cols:
+            key = _reorder_key(term, self.factors.get(label, ()), self.levels[cols[0]], key)
         key = tuple(str(k) for k in key)
 
         def match(strip: bool) -> list[int]:
@@ -116,7 +119,9 @@ class CoefficientIndex:
         hits = match(False) or match(True)
         if len(hits) == 1:
             return hits[0]
-        shown = [tuple(lv for lv in self.levels[j] if lv is not None) for j in cols]
+        shown = [
+            tuple(_strip_prefix(lv) for lv in self.levels[j] if lv is not None) for j in cols
+        ]
         shown_txt = [s[0] if len(s) == 1 else s for s in shown]
         raise UnknownCoefficientError(
             f"term {label!r} has no column for level {key[0] if len(key) == 1 else key!r}."
@@ -132,7 +137,26 @@ def _strip_prefix(label: str) -> str:
     return label
 
 
+def _reorder_key(
+    term: str, stored: Sequence[str], levels: tuple[str | None, ...], key: tuple[object, ...]
+) -> tuple[object, ...]:
+    """Put level labels given in the user's factor order (``"b:a"``) into the fit's (``"a:b"``)."""
+    given = _factor_list(term)
+    if given is None or len(levels) != len(stored) or sorted(given) != sorted(stored):
+        return key
+    cats = [f for f, lv in zip(stored, levels, strict=True) if lv is not None]
+    cats_given = [f for f in given if f in cats]
+    if len(cats) != len(key) or cats_given == cats:
+        return key
+    return tuple(key[cats_given.index(f)] for f in cats)
+
+
 def _factor_set(term: str) -> frozenset[str] | None:
+    facs = _factor_list(term)
+    return None if facs is None else frozenset(facs)
+
+
+def _factor_list(term: str) -> tuple[str, ...] | None:
     try:
         from formulaic import Formula
 
@@ -142,7 +166,7 @@ def _factor_set(term: str) -> frozenset[str] | None:
     terms = [t for t in terms if str(t) != "1"]
     if len(terms) != 1:
         return None
-    return frozenset(str(f.expr) for f in terms[0].factors)
+    return tuple(str(f.expr) for f in terms[0].factors)
 
 
 def _parse_levels(column: str, exprs: Sequence[str]) -> tuple[str | None, ...]:
@@ -218,14 +242,14 @@ def _check_finite(
         i = int(np.flatnonzero(bad)[0])
         lab = rows[i] if rows is not None else i
         raise InputError(
-            f"{what} holds {a[i]!r} at row {lab!r} ({int(bad.sum())} non-finite values in all);"
+            f"{what} holds {float(a[i])!r} at row {lab!r} ({int(bad.sum())} non-finite values in all);"
             " remove or replace them before fitting."
         )
     i, j = (int(v) for v in np.argwhere(bad)[0])
     col = names[j] if names is not None else j
     lab = rows[i] if rows is not None else i
     raise InputError(
-        f"{what} column {col!r} holds {a[i, j]!r} at row {lab!r} ({int(bad[:, j].sum())}"
+        f"{what} column {col!r} holds {float(a[i, j])!r} at row {lab!r} ({int(bad[:, j].sum())}"
         " non-finite values in that column); remove or replace them before fitting."
     )
 
@@ -237,7 +261,7 @@ def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
         i = int(bad[0])
         lab = rows[i] if rows is not None else i
         raise InputError(
-            f"weights must be positive: row {lab!r} has weight {w[i]!r} ({bad.size} rows with"
+            f"weights must be positive: row {lab!r} has weight {float(w[i])!r} ({bad.size} rows with"
             " weight <= 0). Drop those rows, or give them a small positive weight on purpose."
         )
 
@@ -480,9 +504,20 @@ def encode_new(design: Design, data: pd.DataFrame) -> pd.DataFrame:
         raise InputError("this fit was made from arrays; it has no formula to encode new data.")
     if not isinstance(data, pd.DataFrame):
         raise InputError(f"new data must be a pandas DataFrame, got {type(data).__name__}.")
+    used = [v for v in sorted(str(v) for v in design.spec.rhs.variables) if v in data.columns]
+    na = data[used].isna()
+    if na.to_numpy().any():
+        counts = {c: int(na[c].sum()) for c in used if na[c].any()}
+        raise MissingValueError(
+            f"new data have missing values (per column: {counts}); drop or impute those rows"
+            " before encoding."
+        )
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
-        x = design.spec.rhs.get_model_matrix(data, na_action="raise")
+        try:
+            x = design.spec.rhs.get_model_matrix(data, na_action="raise")
+        except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
+            raise InputError(f"could not encode the new data: {exc}") from None
     for w in caught:
         if issubclass(w.category, formulaic.errors.DataMismatchWarning):
             raise UnseenLevelError(
