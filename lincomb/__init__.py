@@ -12,10 +12,32 @@ in coefficient names with :func:`coef`, :func:`term`, ``==`` and ``&``, and test
 1
 """
 
-from . import datasets, errors, linalg
+from . import (
+    batch,
+    chunked,
+    contrasts,
+    covariance,
+    datasets,
+    distributed,
+    errors,
+    linalg,
+    many,
+    multiplicity,
+    plot,
+    pooled,
+    power,
+)
+from .chunked import fit_array_chunks, fit_chunks
+from .contrasts import LevelContrasts, LevelMeans, levels
+from .covariance import clustered, given, serial
+from .distributed import fit_dask, fit_dask_arrays
 from .fit import LinearFit, fit, fit_arrays
+from .many import ManyFit, ManyWaldTest, fit_many, fit_many_arrays
+from .multiplicity import MultipleInference, adjust_pvalues
+from .pooled import combine, without_rows
+from .power import PlannedDesign, PowerPlan, planned_design, power_plan
 from .restriction import Expr, Restriction, RestrictionSystem, TermRef, coef, from_matrix, term
-from .results import RestrictedFit, WaldTest
+from .results import RestrictedFit, WaldBatch, WaldTest
 
 __all__ = [
     "fit",
@@ -23,8 +45,20 @@ __all__ = [
     "coef",
     "term",
     "from_matrix",
+    "levels",
+    "LevelMeans",
+    "LevelContrasts",
+    "adjust_pvalues",
+    "MultipleInference",
+    "contrasts",
+    "multiplicity",
+    "clustered",
+    "serial",
+    "given",
+    "covariance",
     "LinearFit",
     "WaldTest",
+    "WaldBatch",
     "RestrictedFit",
     "Expr",
     "Restriction",
@@ -33,6 +67,27 @@ __all__ = [
     "datasets",
     "errors",
     "linalg",
+    "batch",
+    "plot",
+    "power",
+    "planned_design",
+    "power_plan",
+    "PlannedDesign",
+    "PowerPlan",
+    "fit_many",
+    "fit_many_arrays",
+    "ManyFit",
+    "ManyWaldTest",
+    "fit_chunks",
+    "fit_array_chunks",
+    "fit_dask",
+    "fit_dask_arrays",
+    "combine",
+    "without_rows",
+    "chunked",
+    "distributed",
+    "many",
+    "pooled",
 ]
 
 __version__ = "0.1.0"

@@ -9,7 +9,7 @@ import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover
     from .fit import LinearFit
-    from .results import RestrictedFit, WaldTest
+    from .results import RestrictedFit, WaldBatch, WaldTest
 
 
 def _p(p: float) -> str:
@@ -56,9 +56,9 @@ def _fit_rows(f: LinearFit) -> list[list[str]]:
         if r.status == "aliased":
             rows.append([r.coefficient, "aliased", "", "", ""])
         else:
-            rows.append(
-                [r.coefficient, _num(r.estimate), _num(r.std_error), _num(r.t), _p(r.p_value)]
-            )
+            # identified only with the aliased columns fixed at 0: say so beside the numbers
+            name = r.coefficient + (" (not estimable)" if r.status == "not estimable" else "")
+            rows.append([name, _num(r.estimate), _num(r.std_error), _num(r.t), _p(r.p_value)])
     return rows
 
 
@@ -66,10 +66,12 @@ def _fit_head(f: LinearFit) -> str:
     kind = "WLS" if f.weighted else "OLS"
     what = f.formula or f"{f.response} on {len(f.names)} columns"
     extra = f", {f.n_dropped} dropped for missing values" if f.n_dropped else ""
+    cov = f.covariance_estimator
+    cov_txt = "" if cov == "classical" else f"\nstandard errors: {cov} covariance"
     return (
         f"LinearFit ({kind}): {what}\n"
         f"n = {f.n_obs}{extra}; rank = {f.rank} of {len(f.names)}; residual df = "
-        f"{f.df_resid}; sigma = {f.sigma:.6g}"
+        f"{f.df_resid}; sigma = {f.sigma:.6g}{cov_txt}"
     )
 
 
@@ -151,4 +153,50 @@ def restricted_html(r: RestrictedFit) -> str:
     return (
         f"<div class='lincomb-restricted'><p><b>{h}</b></p>"
         f"{_table_html(['coefficient', 'estimate', 'std. error'], rows)}</div>"
+    )
+
+
+def _batch_parts(b: WaldBatch, limit: int = 10) -> tuple[str, list[list[str]], str]:
+    k, m = b.estimate.shape
+    kinds = {
+        "redundant": "with redundant rows",
+        "inconsistent": "inconsistent (no test)",
+        "not estimable": "not estimable (no test)",
+    }
+    flags = ", ".join(f"{b.status.count(s)} {say}" for s, say in kinds.items() if s in b.status)
+    head = (
+        f"Wald tests of {k} system(s) of {m} restriction row(s) each  [{b.covariance} covariance]"
+        f"\n{b.distribution} tests with denominator df {b.df_den:g}"
+        + (f"; systems: {flags}" if flags else "")
+    )
+    rows = [
+        [
+            str(b.systems[s]),
+            str(int(b.df_num[s])),
+            _num(float(b.statistic[s])),
+            _p(float(b.p_value[s])),
+            b.status[s],
+        ]
+        for s in range(min(k, limit))
+    ]
+    tail = f"... {k - limit} more system(s); see to_frame()" if k > limit else ""
+    return head, rows, tail
+
+
+_BATCH_HEADER = ["system", "rank", "F", "p", "status"]
+
+
+def batch_text(b: WaldBatch) -> str:
+    head, rows, tail = _batch_parts(b)
+    out = f"{head}\n{_table_text(_BATCH_HEADER, rows)}"
+    return f"{out}\n{tail}" if tail else out
+
+
+def batch_html(b: WaldBatch) -> str:
+    head, rows, tail = _batch_parts(b)
+    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    more = f"<p>{html.escape(tail)}</p>" if tail else ""
+    return (
+        f"<div class='lincomb-wald-batch'><p><b>{h}</b></p>"
+        f"{_table_html(_BATCH_HEADER, rows)}{more}</div>"
     )

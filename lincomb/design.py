@@ -44,6 +44,15 @@ class CoefficientIndex:
         (``None`` for a numeric factor), or ``()`` for columns outside a formula.
     factors : dict
         ``{term label: (factor expressions)}``.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> index = lc.fit("yield_t_ha ~ C(nitrogen) * variety", lc.datasets.field_trial()).index
+    >>> list(index.terms)
+    ['1', 'C(nitrogen)', 'variety', 'C(nitrogen):variety']
+    >>> index.names[index.level_column("C(nitrogen):variety", ("80", "Corrin"))]
+    'C(nitrogen)[T.80]:variety[T.Corrin]'
     """
 
     names: tuple[str, ...]
@@ -64,7 +73,15 @@ class CoefficientIndex:
         return hint
 
     def column(self, name: str) -> int:
-        """Index of the column called ``name``."""
+        """Index of the column called ``name``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines()).index
+        >>> index.column("temperature_c")
+        4
+        """
         try:
             return self.names.index(name)
         except ValueError:
@@ -91,15 +108,39 @@ class CoefficientIndex:
         )
 
     def term_columns(self, term: str) -> tuple[int, ...]:
-        """Column indices of a term (a factor, an interaction, a numeric variable)."""
+        """Column indices of a term (a factor, an interaction, a numeric variable).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines()).index
+        >>> index.term_columns("line"), index.term_columns("temperature_c")
+        ((1, 2, 3), (4,))
+        """
         return self.terms[self._term_key(term)]
 
     def term_levels(self, term: str) -> list[tuple[str | None, ...]]:
-        """Level labels of each column of a term, in column order."""
+        """Level labels of each column of a term, in column order.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> index.term_levels("line")
+        [('T.L2',), ('T.L3',), ('T.L4',)]
+        """
         return [self.levels[j] for j in self.term_columns(term)]
 
     def level_column(self, term: str, key: tuple[str, ...]) -> int:
-        """Index of the column of ``term`` that codes the level(s) ``key``."""
+        """Index of the column of ``term`` that codes the level(s) ``key``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> index.level_column("line", ("L3",))
+        2
+        """
         label = self._term_key(term)
         cols = self.terms[label]
         if cols:
@@ -119,9 +160,7 @@ class CoefficientIndex:
         hits = match(False) or match(True)
         if len(hits) == 1:
             return hits[0]
-        shown = [
-            tuple(_strip_prefix(lv) for lv in self.levels[j] if lv is not None) for j in cols
-        ]
+        shown = [tuple(_strip_prefix(lv) for lv in self.levels[j] if lv is not None) for j in cols]
         shown_txt = [s[0] if len(s) == 1 else s for s in shown]
         raise UnknownCoefficientError(
             f"term {label!r} has no column for level {key[0] if len(key) == 1 else key!r}."
@@ -218,6 +257,16 @@ class Design:
     spec : object or None
         formulaic's model spec (both sides), reused to encode new data.
     formula : str or None
+    source : pandas.DataFrame or None
+        The data rows used (a shallow copy, same order as ``x``), so that per-row variables
+        outside the formula (cluster labels, a time order) can be looked up by column name.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> d = design_from_formula("fill_g ~ line", lc.datasets.fill_lines())
+    >>> d.x.shape, d.response, d.intercept, d.weighted
+    ((300, 4), 'fill_g', 0, False)
     """
 
     x: NDArray[np.float64]
@@ -230,11 +279,21 @@ class Design:
     dropped: pd.Index
     spec: Any = None
     formula: str | None = None
+    source: pd.DataFrame | None = None
+
+    @property
+    def weighted(self) -> bool:
+        """Whether the fit is weighted (summary designs without rows answer this too)."""
+        return self.weights is not None
 
 
 def _check_finite(
     a: NDArray[np.float64], what: str, names: Sequence[str] | None, rows: pd.Index | None
 ) -> None:
+    with np.errstate(over="ignore", invalid="ignore"):
+        total = np.add.reduce(a, axis=None) if a.size else 0.0
+    if np.isfinite(total):
+        return  # one pass, no temporary: a NaN or inf anywhere makes the sum non-finite
     bad = ~np.isfinite(a)
     if not bad.any():
         return
@@ -242,8 +301,8 @@ def _check_finite(
         i = int(np.flatnonzero(bad)[0])
         lab = rows[i] if rows is not None else i
         raise InputError(
-            f"{what} holds {float(a[i])!r} at row {lab!r} ({int(bad.sum())} non-finite values in all);"
-            " remove or replace them before fitting."
+            f"{what} holds {float(a[i])!r} at row {lab!r} ({int(bad.sum())} non-finite values in"
+            " all); remove or replace them before fitting."
         )
     i, j = (int(v) for v in np.argwhere(bad)[0])
     col = names[j] if names is not None else j
@@ -261,17 +320,18 @@ def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
         i = int(bad[0])
         lab = rows[i] if rows is not None else i
         raise InputError(
-            f"weights must be positive: row {lab!r} has weight {float(w[i])!r} ({bad.size} rows with"
-            " weight <= 0). Drop those rows, or give them a small positive weight on purpose."
+            f"weights must be positive: row {lab!r} has weight {float(w[i])!r} ({bad.size} rows"
+            " with weight <= 0). Drop those rows, or give them a small positive weight on purpose."
         )
 
 
 def _find_intercept(x: NDArray[np.float64], names: Sequence[str]) -> int | None:
     if x.shape[0] == 0:
         return None
-    for j in range(x.shape[1]):
+    for j in np.flatnonzero(x[0] == 1.0).tolist():  # scan only columns that start with 1
         col = x[:, j]
-        if col[0] != 0 and np.all(col == col[0]):
+        # only a column of ones: the working coordinates give the intercept column weight one
+        if np.all(col == 1.0):
             return j
     return None
 
@@ -285,7 +345,7 @@ def design_from_arrays(
 ) -> Design:
     """Validate arrays ``X``, ``y`` (and weights) into a :class:`Design`.
 
-    A column whose entries all equal one nonzero constant is treated as the intercept.
+    A column whose entries all equal one is treated as the intercept.
 
     Examples
     --------
@@ -468,8 +528,14 @@ def design_from_formula(
         raise InputError(f"could not build the design for {formula!r}: {exc}") from None
     lhs, rhs = mm.lhs, mm.rhs
     response = str(lhs.columns[0])
-    if not (pd.api.types.is_numeric_dtype(sub[response]) if response in sub.columns else True):
-        raise InputError(f"the response {response!r} must be numeric.")
+    # a one-level text column expands to a single indicator column: check the variables
+    lhs_vars = sorted({str(v) for v in mm.model_spec.lhs.variables} & {str(c) for c in sub.columns})
+    bad = [v for v in lhs_vars if not pd.api.types.is_numeric_dtype(sub[v])]
+    if bad:
+        raise InputError(
+            f"the response {response!r} must be numeric, but {bad} hold {sub[bad[0]].dtype}"
+            " values; convert them to numbers first."
+        )
     names = [str(c) for c in rhs.columns]
     xa = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
     ya = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
@@ -493,6 +559,7 @@ def design_from_formula(
         dropped=data.index[~keep],
         spec=mm.model_spec,
         formula=formula,
+        source=sub.copy(deep=False),
     )
 
 

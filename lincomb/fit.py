@@ -14,7 +14,7 @@ working coordinates and hands plain arrays to :mod:`lincomb.linalg`.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -22,8 +22,10 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
+from . import covariance as covmod
 from . import linalg
 from ._format import fit_html, fit_text
+from .contrasts import ModelResolver
 from .design import Design, design_from_arrays, design_from_formula, encode_new
 from .errors import (
     DegenerateFitError,
@@ -31,7 +33,7 @@ from .errors import (
     NotEstimableError,
 )
 from .restriction import RestrictionSystem, as_system
-from .results import RestrictedFit, WaldTest
+from .results import RestrictedFit, WaldBatch, WaldTest
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
@@ -96,6 +98,7 @@ class LinearFit:
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _moments: linalg.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _sol: linalg.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _vcov: covmod.CovarianceEstimate | None = field(repr=False, compare=False, default=None)
 
     # -- construction -------------------------------------------------------------------
     @classmethod
@@ -127,7 +130,7 @@ class LinearFit:
             df_resid=sol.df_resid,
             rss=sol.rss,
             sigma=sigma,
-            weighted=design.weights is not None,
+            weighted=design.weighted,
             response=design.response,
             formula=design.formula,
             rank_tol=rank_tol,
@@ -161,10 +164,61 @@ class LinearFit:
                 " F or t test. Check for a response that is a function of the regressors."
             )
 
-    def covariance(self) -> pd.DataFrame:
-        """Classical covariance matrix of the coefficients (NaN rows/columns for aliased ones).
+    @property
+    def covariance_estimator(self) -> str:
+        """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
+        return "classical" if self._vcov is None else self._vcov.label
 
-        Computed as ``σ² A R⁻¹ R⁻ᵀ Aᵀ`` from the triangular factor, never by inverting ``XᵀX``.
+    def _covariance_estimate(self, covariance: object) -> covmod.CovarianceEstimate:
+        if covariance is None and self._vcov is not None:
+            return self._vcov
+        return covmod.evaluate(self, covariance)
+
+    def with_covariance(self, covariance: object) -> LinearFit:
+        """This fit with another default covariance estimator, evaluated once for every test.
+
+        Parameters
+        ----------
+        covariance : str or estimator
+            ``"classical"``, ``"HC0"`` ... ``"HC4"``, or built with :func:`~lincomb.clustered`,
+            :func:`~lincomb.serial` or :func:`~lincomb.given` (see :mod:`lincomb.covariance`).
+
+        Returns
+        -------
+        LinearFit
+            A new fit (this one is unchanged) whose :meth:`wald`, :meth:`coef_frame`,
+            :meth:`covariance`, :meth:`std_errors` and printout use ``covariance`` unless told
+            otherwise.  The estimator is evaluated here, once: the new fit keeps the small
+            factor of its meat, so each later test costs nothing that grows with the number
+            of observations.  :meth:`restrict` stays classical.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        >>> robust = f.with_covariance(lc.clustered(by="site"))
+        >>> robust.covariance_estimator, f.covariance_estimator
+        ('cluster by site (40 groups)', 'classical')
+        >>> robust.wald(lc.coef("staffing") == 0).df_den
+        39.0
+        """
+        return replace(self, _vcov=covmod.evaluate(self, covariance))
+
+    def covariance(self, covariance: object = None) -> pd.DataFrame:
+        """Covariance matrix of the coefficients (NaN rows/columns for aliased ones).
+
+        Parameters
+        ----------
+        covariance : str or estimator, optional
+            ``"classical"``, ``"HC0"`` ... ``"HC4"``, or built with :func:`~lincomb.clustered`,
+            :func:`~lincomb.serial` or :func:`~lincomb.given`.  Default: the fit's own
+            (classical unless set with :meth:`with_covariance`).
+
+        Notes
+        -----
+        Computed from the triangular factor (``σ² A R⁻¹ R⁻ᵀ Aᵀ`` when classical, with the factor
+        of the meat in between for a sandwich; see :mod:`lincomb.covariance`), never by
+        inverting ``XᵀX``.
 
         Examples
         --------
@@ -173,30 +227,59 @@ class LinearFit:
         >>> cov = f.covariance()
         >>> bool(np.allclose(cov, cov.T))
         True
+        >>> hc3 = f.covariance("HC3")
+        >>> bool(np.allclose(hc3, hc3.T))
+        True
         """
-        self._check_variance()
+        vcov = self._covariance_estimate(covariance)
         sol = self._sol
         p = sol.p
         est = np.setdiff1d(np.arange(p), sol.aliased)
         eye = np.eye(p)[est]
-        root = sol.root(sol.to_working(eye)[:, sol.kept]) * self.sigma
+        root = vcov.root(sol.to_working(eye)[:, sol.kept])
         cov = np.full((p, p), np.nan)
         cov[np.ix_(est, est)] = root.T @ root
         return pd.DataFrame(cov, index=list(self.names), columns=list(self.names))
 
-    def std_errors(self) -> pd.Series:
-        """Classical standard errors (NaN for aliased coefficients)."""
+    def std_errors(self, covariance: object = None) -> pd.Series:
+        """Standard errors (NaN for aliased coefficients) under ``covariance`` (see
+        :meth:`covariance`).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> se = f.std_errors().to_frame("classical").assign(HC3=f.std_errors("HC3"))
+        >>> se.shape, se.index[0]
+        ((4, 2), 'Intercept')
+        """
         return pd.Series(
-            np.sqrt(np.diag(self.covariance().to_numpy())), index=list(self.names), name="std_error"
+            np.sqrt(np.diag(self.covariance(covariance).to_numpy())),
+            index=list(self.names),
+            name="std_error",
         )
 
-    def coef_frame(self, level: float = 0.95) -> pd.DataFrame:
+    def coef_frame(
+        self, level: float = 0.95, *, covariance: object = None, reference: str = "F"
+    ) -> pd.DataFrame:
         """One row per coefficient: estimate, standard error, t, p-value, interval, status.
 
+        Parameters
+        ----------
+        level : float, default 0.95
+            Confidence level of the intervals.
+        covariance : str or estimator, optional
+            Covariance estimator (see :meth:`covariance`); default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+            ``'F'``: t with the estimator's denominator degrees of freedom; ``'chi2'``: the
+            standard normal (large-sample).
+
         Columns: ``coefficient, term, estimate, std_error, t, p_value, lower, upper, level,
-        status`` where status is ``"estimable"``, ``"aliased"`` (its column depends on earlier
-        ones; no estimate) or ``"not estimable"`` (estimated only with the aliased columns fixed
-        at zero: its value depends on that choice and it cannot be tested alone).
+        status, distribution, df, covariance`` where status is ``"estimable"``, ``"aliased"``
+        (its column depends on earlier ones; no estimate) or ``"not estimable"`` (estimated only
+        with the aliased columns fixed at zero: its value depends on that choice and it cannot
+        be tested alone); ``distribution`` is ``"t"`` or ``"normal"``, ``df`` its degrees of
+        freedom (``inf`` for normal) and ``covariance`` the estimator's label.
 
         Examples
         --------
@@ -204,13 +287,19 @@ class LinearFit:
         >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
         >>> list(f.coef_frame().columns)[:4]
         ['coefficient', 'term', 'estimate', 'std_error']
+        >>> f.coef_frame(covariance="HC3", reference="chi2")["distribution"].iloc[0]
+        'normal'
         """
         _check_level(level)
+        ref = covmod.check_reference(reference)
+        vcov = self._covariance_estimate(covariance)
+        dfree = vcov.df_den if ref == "F" else np.inf
+        dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
-        se = self.std_errors().to_numpy()
+        se = self.std_errors(vcov).to_numpy()
         t = est / se
-        p = 2 * stats.t.sf(np.abs(t), self.df_resid)
-        q = stats.t.ppf(0.5 + level / 2, self.df_resid)
+        p = 2 * dist.sf(np.abs(t))
+        q = dist.ppf(0.5 + level / 2)
         term_of = {}
         for tlabel, cols in self._design.index.terms.items():
             for j in cols:
@@ -227,6 +316,9 @@ class LinearFit:
                 "upper": est + q * se,
                 "level": level,
                 "status": self._status(),
+                "distribution": "t" if ref == "F" else "normal",
+                "df": dfree,
+                "covariance": vcov.label,
             }
         )
 
@@ -258,7 +350,8 @@ class LinearFit:
         ([[0.0, 1.0, -1.0, 0.0]], [0.0])
         """
         system: RestrictionSystem = as_system(restrictions)
-        return system.resolve(self._design.index)
+        # the resolver also carries the formula encoder, for contrasts on level means
+        return system.resolve(ModelResolver.of(self))
 
     def _prepare(
         self, restrictions: object
@@ -298,7 +391,9 @@ class LinearFit:
             )
         return c, d, labels, cu, analysis
 
-    def wald(self, restrictions: object) -> WaldTest:
+    def wald(
+        self, restrictions: object, *, covariance: object = None, reference: str = "F"
+    ) -> WaldTest:
         """Wald test of ``C·β = d``: an F for the system and a t for each row.
 
         Parameters
@@ -306,6 +401,16 @@ class LinearFit:
         restrictions : Restriction, RestrictionSystem, or list of them
             Built with :func:`~lincomb.coef`, :func:`~lincomb.term`, ``==`` and ``&``, or
             :func:`~lincomb.from_matrix`.
+        covariance : str or estimator, optional
+            Covariance of ``β̂`` the test uses: ``"classical"``, ``"HC0"`` ... ``"HC4"``, or
+            built with :func:`~lincomb.clustered`, :func:`~lincomb.serial` or
+            :func:`~lincomb.given` (see :mod:`lincomb.covariance`).  Default: the fit's own
+            (classical unless set with :meth:`with_covariance`).
+        reference : {'F', 'chi2'}, default 'F'
+            ``'F'``: statistic / rank against F with the estimator's denominator degrees of
+            freedom (``n − rank``; ``G − 1`` for clusters), rows against t with the same df.
+            ``'chi2'``: the Wald form against chi-squared with rank degrees of freedom, rows
+            against the standard normal (``df_den`` is then ``inf``).
 
         Returns
         -------
@@ -319,12 +424,16 @@ class LinearFit:
             A row is not estimable under a rank-deficient design.
         DegenerateFitError
             The residual sum of squares is zero.
+        SingularCovarianceError
+            Under a robust estimator the independent rows have a singular covariance (e.g. more
+            rows than clusters).
 
         Notes
         -----
         The numerator degrees of freedom are the rank of ``C``; redundant rows are reported on
         the result (``redundant``) and do not count.  With ``V = R⁻ᵀ C_Kᵀ`` over the independent
-        rows ``K``, ``F = ‖R_V⁻ᵀ (C_K β̂ - d_K)‖² / (q σ²)`` where ``V = Q_V R_V``.
+        rows ``K``, ``F = ‖R_V⁻ᵀ (C_K β̂ - d_K)‖² / (q σ²)`` where ``V = Q_V R_V``.  A robust
+        estimator replaces ``σ V`` by ``F_M V`` with ``F_M`` a factor of its meat.
 
         Examples
         --------
@@ -333,30 +442,120 @@ class LinearFit:
         >>> res = f.wald(lc.term("line") == 0)
         >>> res.df_num, res.df_den
         (3, 294.0)
+        >>> hc = f.wald(lc.term("line") == 0, covariance="HC3", reference="chi2")
+        >>> hc.distribution, hc.df_den, hc.covariance
+        ('chi2', inf, 'HC3')
         """
-        self._check_variance()
+        vcov = self._covariance_estimate(covariance)
+        ref = covmod.check_reference(reference)
         c, d, labels, cu, analysis = self._prepare(restrictions)
         sol = self._sol
-        root = sol.root(cu[:, sol.kept]) * self.sigma
+        root = vcov.root(cu[:, sol.kept])
         est = cu[:, sol.kept] @ sol.theta
+        covmod.check_rank(root, analysis.independent, labels, vcov)
         core = linalg.wald_from_root(est - d, root, analysis.independent)
-        q = core.rank
-        stat = core.quad / q
+        dist, stat, df_den, p_value = covmod.reference_result(
+            core.quad, core.rank, vcov.df_den, ref
+        )
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
             target=d.copy(),
             std_error=core.std_error,
             t=core.statistic_rows,
-            statistic=float(stat),
-            df_num=q,
-            df_den=float(self.df_resid),
-            p_value=float(stats.f.sf(stat, q, self.df_resid)),
-            distribution="F",
-            covariance="classical",
+            statistic=stat,
+            df_num=core.rank,
+            df_den=df_den,
+            p_value=p_value,
+            distribution=dist,
+            covariance=vcov.label,
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
             estimate_covariance=root.T @ root,
+        )
+
+    def wald_batch(
+        self,
+        c: ArrayLike | Sequence[object],
+        d: ArrayLike | None = None,
+        *,
+        ids: Sequence[Any] | None = None,
+        covariance: object = None,
+        reference: str = "F",
+        on_invalid: str = "raise",
+    ) -> WaldBatch:
+        """Wald tests of many restriction systems at once, vectorized over the systems.
+
+        Gives, for each system ``C_s·β = d_s``, the numbers :meth:`wald` gives (F, rank, p,
+        and per row the estimate, standard error and t), at a cost per system that depends
+        on neither ``n`` nor a Python-level pass through the single-system path.
+
+        Parameters
+        ----------
+        c : (k, m, p) array_like, or sequence of restrictions
+            ``k`` systems of ``m`` rows on the fit's coefficients (in fit order), or ``k``
+            restriction systems (each anything :meth:`wald` accepts) with ``m`` rows each;
+            those are resolved first, which costs a Python pass per system.
+        d : scalar, (m,) or (k, m) array_like, optional
+            Right-hand sides for an array ``c`` (default 0).  Restrictions carry their own.
+        ids : sequence, optional
+            One identifier per system for the results (default ``0 .. k-1``).
+        covariance : str or estimator, optional
+            As in :meth:`wald` (default: the fit's own).
+        reference : {'F', 'chi2'}, default 'F'
+            As in :meth:`wald`.
+        on_invalid : {'raise', 'nan'}, default 'raise'
+            A system with contradictory rows, non-estimable rows or (under a robust estimator)
+            a singular covariance raises the error :meth:`wald` would raise, naming the
+            system and row; with ``'nan'`` it gets a NaN statistic and its ``status`` says why.
+
+        Returns
+        -------
+        WaldBatch
+
+        Raises
+        ------
+        RestrictionShapeError, EmptyRestrictionError
+            ``c`` or ``d`` has the wrong shape, holds NaN/inf or an all-zero row, or the
+            restriction systems differ in their number of rows.
+        InconsistentRestrictionError, NotEstimableError, SingularCovarianceError
+            As in :meth:`wald` (with ``on_invalid='raise'``).
+        DegenerateFitError
+            The residual sum of squares is zero.
+
+        Notes
+        -----
+        Redundant rows are found and handled as in :meth:`wald` (the F uses the rank).  The
+        arithmetic is in :mod:`lincomb.batch`: one triangular solve for all ``k·m`` rows, a
+        stacked QR of the small ``m``-column roots, and the single-system path for any
+        system with a row near a rank or estimability threshold, so the decisions are the
+        same as :meth:`wald`'s.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> pairs = [("line[T.L2]", "line[T.L3]"), ("line[T.L3]", "line[T.L4]")]
+        >>> systems = [(lc.coef(a) == lc.coef(b)) & (lc.coef("temperature_c") == 0)
+        ...            for a, b in pairs]
+        >>> b = f.wald_batch(systems, ids=["L2 vs L3", "L3 vs L4"])
+        >>> b.to_frame()[["system", "rank", "df_den"]]
+             system  rank  df_den
+        0  L2 vs L3     2   295.0
+        1  L3 vs L4     2   295.0
+        >>> bool(np.isclose(b.p_value[1], f.wald(systems[1]).p_value, rtol=1e-10))
+        True
+        """
+        from ._batch_fit import wald_batch
+
+        return wald_batch(
+            self,
+            c,
+            d,
+            ids=ids,
+            covariance=covariance,
+            reference=reference,
+            on_invalid=on_invalid,
         )
 
     def restrict(self, restrictions: object) -> RestrictedFit:
@@ -364,7 +563,8 @@ class LinearFit:
 
         Returns the restricted coefficients, their covariance (``σ_r² W Wᵀ`` with
         ``σ_r² = RSS_r / (n - rank + q)``) and the restricted residual sum of squares, computed
-        from the unrestricted factor as ``RSS_r = RSS + ‖R (θ_r - θ̂)‖²``.
+        from the unrestricted factor as ``RSS_r = RSS + ‖R (θ_r - θ̂)‖²``.  A row that names a
+        single coefficient fixes it exactly (value ``d / c``, variance 0).
 
         Examples
         --------
@@ -403,6 +603,13 @@ class LinearFit:
             amap[sol.intercept] -= sol.center @ amap
         aw = amap @ w
         cov = sigma_r2 * (aw @ aw.T)
+        # a row naming one coefficient fixes it: write the exact value, not one off by rounding
+        for i in k:
+            nz = np.flatnonzero(c[i])
+            if nz.size == 1:
+                beta[nz[0]] = d[i] / c[i, nz[0]]
+                cov[nz[0], :] = 0.0
+                cov[:, nz[0]] = 0.0
         cov[sol.aliased, :] = np.nan
         cov[:, sol.aliased] = np.nan
         names = list(self.names)
@@ -504,7 +711,7 @@ def fit_arrays(
     Parameters
     ----------
     x : (n, p) array_like or DataFrame
-        Design.  A column whose entries all equal one nonzero constant is the intercept; without
+        Design.  A column whose entries all equal one is the intercept; without
         one the model has none.  Column names come from ``names`` or a DataFrame's columns
         (default ``x0, x1, ...``).
     y : (n,) array_like

@@ -16,7 +16,7 @@ Coordinates
 The user's coefficients ``β`` (length ``p``) are mapped to *working* coordinates ``u`` in which
 all computations happen:
 
-1. If column ``k`` is an intercept (all entries equal to one nonzero constant), every other
+1. If column ``k`` is an intercept (all entries equal to one), every other
    column ``j`` is centred on its weighted mean ``m_j``.  The intercept then absorbs the offset:
    ``u_k = β_k + Σ_j m_j β_j``.  A large common offset (values near 1e12 that vary in the
    10th digit) therefore costs no accuracy beyond what the float64 input holds.
@@ -28,12 +28,16 @@ A row ``c`` of ``C`` maps to ``c_u = c T⁻¹ S⁻¹`` (see :meth:`Solution.to_w
 
 Rank
 ----
-The centred, scaled ``R`` is refactored by a column-pivoted QR (LAPACK ``geqp3``).  Column ``j``
-is *aliased* when the diagonal entry it receives is at most ``rank_tol`` (default
-:data:`RANK_TOL` = 1e-10) times the largest one; since each column has unit norm, this says that
-the part of the column not explained by the intercept and the columns chosen before it has at
-most ``rank_tol`` of the column's own norm.  A non-intercept column whose centred norm is at most
-``rank_tol`` times its raw norm is constant to working precision and aliased with the intercept.
+Columns of the centred, scaled ``R`` are taken in design order (a greedy Gram-Schmidt with
+reorthogonalization on the small factor).  Column ``j`` is *aliased* when the part of it not
+explained by the intercept and the kept columns before it has at most ``rank_tol`` (default
+:data:`RANK_TOL` = 1e-10) of the column's own (unit) norm.  So of a set of dependent columns the
+last one in design order is aliased, and which one does not depend on rounding.  The kept columns,
+then the aliased ones, are refactored by QR.  A non-intercept column whose centred norm is at most
+:data:`CONSTANT_TOL` (64 machine epsilons, about 1.4e-14) times its raw norm varies only in its
+last bits: it is constant to working precision and aliased with the intercept.  This threshold is
+tied to float64 itself rather than to ``rank_tol``, so a column near 1e12 that varies by units
+(four significant digits of real variation) is kept and fitted to the accuracy its values hold.
 
 Restrictions
 ------------
@@ -54,6 +58,7 @@ from numpy.typing import NDArray
 
 __all__ = [
     "RANK_TOL",
+    "CONSTANT_TOL",
     "ROW_TOL",
     "Moments",
     "Solution",
@@ -66,23 +71,76 @@ __all__ = [
     "wald_from_root",
     "restricted_step",
     "triangular_factor",
+    "upper_solve",
+    "ResponseBlock",
+    "DesignFactor",
+    "factor_design",
+    "solve_responses",
+    "wald_quadratic_forms",
 ]
 
 Array = NDArray[np.float64]
 
 #: Relative tolerance for the rank of the design (see the module notes).
 RANK_TOL: float = 1e-10
+#: A centred column norm at most this fraction of the raw norm means "constant" (module notes).
+CONSTANT_TOL: float = 64 * float(np.finfo(np.float64).eps)
 #: Relative tolerance for redundant / inconsistent / non-estimable restriction rows.
 ROW_TOL: float = 1e-9
 
 
-def triangular_factor(a: Array) -> Array:
+def upper_solve(r: Array, b: Array, *, trans: bool = False) -> Array:
+    """``R⁻¹ b`` (``R⁻ᵀ b`` with ``trans``) for a square upper-triangular ``R``.
+
+    Parameters
+    ----------
+    r : (k, k) ndarray
+        Upper triangular (entries below the diagonal are ignored).
+    b : (k,) or (k, N) ndarray
+    trans : bool, default False
+
+    Raises
+    ------
+    numpy.linalg.LinAlgError
+        A zero on the diagonal of ``R``.
+
+    Notes
+    -----
+    BLAS ``trsm`` (forward or back substitution), the same arithmetic as
+    ``scipy.linalg.solve_triangular`` (LAPACK ``trtrs``).  OpenBLAS runs its ``trtrs`` on all
+    its threads whatever the size: with every core busy, one solve with three right-hand sides
+    then waits milliseconds for a thread (median 40 ms measured on two shared cores), while
+    ``trsm`` keeps small solves on the calling thread (2 µs).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> r = np.array([[2.0, 1.0], [0.0, 4.0]])
+    >>> x = upper_solve(r, np.array([1.0, 2.0]), trans=True)
+    >>> bool(np.allclose(r.T @ x, [1.0, 2.0]))
+    True
+    """
+    if np.any(np.diagonal(r) == 0):
+        i = int(np.flatnonzero(np.diagonal(r) == 0)[0])
+        raise np.linalg.LinAlgError(f"singular matrix: zero at diagonal {i}")
+    vec = b.ndim == 1
+    b2 = b[:, None] if vec else b
+    if b2.size == 0:
+        return np.zeros(b.shape)
+    x = sla.blas.dtrsm(1.0, r, b2, trans_a=int(trans))
+    return x[:, 0] if vec else x
+
+
+def triangular_factor(a: Array, *, overwrite_a: bool = False) -> Array:
     """Return the square upper-triangular ``R`` of ``a = Q R`` without forming ``Q``.
 
     Parameters
     ----------
     a : (M, N) array_like
-        Matrix to factor.  It is not modified.
+        Matrix to factor.  It is not modified, unless ``overwrite_a``.
+    overwrite_a : bool, default False
+        Allow a float64 ndarray ``a`` to be used as LAPACK's work array (its contents are then
+        destroyed); saves a copy when ``a`` is already Fortran-ordered.
 
     Returns
     -------
@@ -101,7 +159,8 @@ def triangular_factor(a: Array) -> Array:
     >>> bool(np.allclose(r.T @ r, a.T @ a))
     True
     """
-    a = np.array(a, dtype=np.float64, order="F", copy=True)
+    if not (overwrite_a and isinstance(a, np.ndarray) and a.dtype == np.float64):
+        a = np.array(a, dtype=np.float64, order="F", copy=True)
     m, n = a.shape
     if m == 0:
         return np.zeros((n, n))
@@ -134,6 +193,16 @@ class Moments:
     r : (q + 1, q + 1) ndarray
         Triangular factor of the centred, ``sqrt(w)``-scaled non-intercept columns and ``y``
         (``q = p - 1`` with an intercept, ``p`` without).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> m = moments_from_arrays(x, y, intercept=0)
+    >>> m.n, m.p, m.others.tolist(), m.r.shape
+    (20, 3, [1, 2], (3, 3))
     """
 
     n: int
@@ -196,31 +265,42 @@ def moments_from_arrays(
     """
     n, p = x.shape
     cols = np.arange(p) if intercept is None else np.delete(np.arange(p), intercept)
-    a = np.empty((n, cols.size + 1), order="F")
-    a[:, :-1] = x[:, cols]
-    a[:, -1] = y
+    q = cols.size
+    # one Fortran-ordered work array, filled from column slices (fancy indexing would make a
+    # full temporary), centred and scaled in place, then factored in place
+    a = np.empty((n, q + 1), order="F")
+    if intercept is None:
+        a[:, :q] = x
+    else:
+        a[:, :intercept] = x[:, :intercept]
+        a[:, intercept:q] = x[:, intercept + 1 :]
+    a[:, q] = y
     center = np.zeros(p + 1)
-    raw_sq = np.einsum("ij,ij->j", a, a) if w is None else w @ (a * a)
-    raw_norm = np.zeros(p + 1)
-    raw_norm[np.append(cols, p)] = np.sqrt(raw_sq)
     wsum = float(n if w is None else w.sum())
-    if intercept is not None:
-        raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept]))
-        if n > 0:
-            m1 = _weighted_mean(a, w)
-            a -= m1
-            m2 = _weighted_mean(a, w)
-            a -= m2
-            center[np.append(cols, p)] = m1 + m2
+    if intercept is not None and n > 0:
+        m1 = _weighted_mean(a, w)
+        a -= m1
+        m2 = _weighted_mean(a, w)
+        a -= m2
+        center[np.append(cols, p)] = m1 + m2
     if w is not None:
         a *= np.sqrt(w)[:, None]
+    r = triangular_factor(a, overwrite_a=True)
+    # raw (uncentred) norms without another pass over the data: the column norms of R are
+    # the centred norms, and the weighted centred columns sum to zero, so
+    # Σ w x² = Σ w (x - m)² + W m²
+    raw_norm = np.zeros(p + 1)
+    kept = np.append(cols, p)
+    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", r, r) + wsum * center[kept] ** 2)
+    if intercept is not None:
+        raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept]))
     return Moments(
         n=n,
         weight_sum=wsum,
         intercept=intercept,
         center=center,
         raw_norm=raw_norm,
-        r=triangular_factor(a),
+        r=r,
     )
 
 
@@ -296,6 +376,17 @@ class Solution:
         One null vector per aliased column (its own entry is one), in working coordinates.
     y_norm : float
         Weighted norm of the centred response (for deciding that an RSS is zero).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+    >>> reference = np.linalg.lstsq(x, y, rcond=None)[0]
+    >>> bool(np.allclose(sol.coefficients(), reference)), sol.rank, sol.df_resid
+    (True, 3, 17)
     """
 
     p: int
@@ -319,7 +410,21 @@ class Solution:
         return self.n - self.rank
 
     def to_working(self, c: Array) -> Array:
-        """Map rows of ``C`` (m, p) on ``β`` to working coordinates ``u`` (all p columns)."""
+        """Map rows of ``C`` (m, p) on ``β`` to working coordinates ``u`` (all p columns).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+        >>> c = np.array([[0.0, 1.0, -1.0], [1.0, 0.5, 0.0]])
+        >>> u = np.zeros(3)
+        >>> u[sol.kept] = sol.theta
+        >>> bool(np.allclose(sol.to_working(c) @ u, c @ sol.coefficients()))
+        True
+        """
         c = np.asarray(c, dtype=np.float64)
         cu = c.copy()
         if self.intercept is not None:
@@ -327,7 +432,17 @@ class Solution:
         return cu / self.scale
 
     def coefficients(self) -> Array:
-        """Basic solution ``β`` (aliased entries are NaN)."""
+        """Basic solution ``β`` (aliased entries are NaN).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
+        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])
+        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        >>> np.isnan(sol.coefficients()).tolist()
+        [False, False, True, False]
+        """
         u = np.zeros(self.p)
         u[self.kept] = self.theta
         beta = u / self.scale
@@ -337,13 +452,37 @@ class Solution:
         return beta
 
     def root(self, cu_kept: Array) -> Array:
-        """``R⁻ᵀ C_keptᵀ``: the classical covariance of ``Cβ̂`` is ``σ² rootᵀ root``."""
+        """``R⁻ᵀ C_keptᵀ``: the classical covariance of ``Cβ̂`` is ``σ² rootᵀ root``.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+        >>> c = np.array([[0.0, 1.0, -1.0]])
+        >>> root = sol.root(sol.to_working(c)[:, sol.kept])
+        >>> bool(np.allclose(root.T @ root, c @ np.linalg.solve(x.T @ x, c.T)))
+        True
+        """
         if self.rank == 0:
             return np.zeros((0, cu_kept.shape[0]))
-        return sla.solve_triangular(self.r, cu_kept.T, trans="T", check_finite=False)
+        return upper_solve(self.r, cu_kept.T, trans=True)
 
     def estimability_residual(self, cu: Array) -> Array:
-        """Relative size of each row's component in the null space (0 = estimable)."""
+        """Relative size of each row's component in the null space (0 = estimable).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
+        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
+        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        >>> c = np.array([[0.0, 1, -1, 0], [0.0, 1, 0, 0]])  # a - b is estimable, a is not
+        >>> (sol.estimability_residual(sol.to_working(c)) > ROW_TOL).tolist()
+        [False, True]
+        """
         if self.null_basis.shape[1] == 0:
             return np.zeros(cu.shape[0])
         norms = np.linalg.norm(cu, axis=1)
@@ -351,10 +490,42 @@ class Solution:
         return np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
 
     def aliased_touched(self, cu_row: Array, tol: float) -> list[int]:
-        """Aliased columns whose null direction a non-estimable row does not annihilate."""
+        """Aliased columns whose null direction a non-estimable row does not annihilate.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
+        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
+        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        >>> sol.aliased_touched(sol.to_working(np.array([0.0, 1, 0, 0])), ROW_TOL)
+        [2]
+        """
         nv = self.null_vectors
         proj = cu_row @ nv / (np.linalg.norm(nv, axis=0) * max(np.linalg.norm(cu_row), 1e-300))
         return [int(self.aliased[i]) for i in np.flatnonzero(np.abs(proj) > tol)]
+
+
+def _ordered_columns(rs: Array, tol: float) -> tuple[NDArray[np.intp], int]:
+    """Keep unit-norm columns in order while each adds more than ``tol`` outside the kept span.
+
+    Returns the kept columns followed by the aliased ones (both in design order), and the rank.
+    """
+    basis = np.zeros(rs.shape)
+    kept: list[int] = []
+    dropped: list[int] = []
+    for j in range(rs.shape[1]):
+        b = basis[:, : len(kept)]
+        v = rs[:, j]
+        for _ in range(2):  # reorthogonalize once: classical Gram-Schmidt twice is enough
+            v = v - b @ (b.T @ v)
+        nv = float(np.linalg.norm(v))
+        if nv > tol:
+            basis[:, len(kept)] = v / nv
+            kept.append(j)
+        else:
+            dropped.append(j)
+    return np.array(kept + dropped, dtype=np.intp), len(kept)
 
 
 def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
@@ -372,7 +543,7 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
 
     Notes
     -----
-    The small factor ``R`` (not the data) is refactored by column-pivoted QR (``geqp3``); the
+    The small factor ``R`` (not the data) is refactored by QR, kept columns first; the
     rotated response gives the coefficients by one triangular solve and the residual sum of
     squares is the squared norm of what is left, including the response's components along
     numerically null directions.
@@ -395,15 +566,13 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     col_norm = np.linalg.norm(rx, axis=0)
     raw = m.raw_norm[others]
     # constant-to-working-precision columns are aliased with the intercept (module notes)
-    live = col_norm > rank_tol * np.maximum(raw, np.finfo(float).tiny)
+    live = col_norm > CONSTANT_TOL * np.maximum(raw, np.finfo(float).tiny)
     scale_o = np.where(live, col_norm, 1.0)
     rs = rx / scale_o
     rs[:, ~live] = 0.0
     if q:
-        q2, r2, piv = sla.qr(rs, pivoting=True, check_finite=False)
-        diag = np.abs(np.diag(r2))
-        top = diag[0] if diag.size else 0.0
-        rank_o = int(np.count_nonzero(diag > rank_tol * top)) if top > 0 else 0
+        piv, rank_o = _ordered_columns(rs, rank_tol)
+        q2, r2 = sla.qr(rs[:, piv], check_finite=False)
         z = q2.T @ qty
     else:
         r2 = np.zeros((0, 0))
@@ -478,6 +647,13 @@ class RowAnalysis:
         ``C[row] = Σ weight · C[independent_row]``.
     inconsistent : list of tuple
         ``(row, d[row], implied)`` for redundant rows whose ``d`` differs from the implied value.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ra = analyze_rows(np.array([[1.0, 0], [0, 1], [1, 1]]), np.array([0.0, 1, 2]))
+    >>> ra.independent.tolist(), ra.dependencies, ra.inconsistent
+    ([0, 1], {2: {0: 1.0, 1: 1.0}}, [(2, 2.0, 1.0)])
     """
 
     independent: NDArray[np.intp]
@@ -545,6 +721,13 @@ class WaldCore:
 
     ``estimate``, ``std_error`` and ``statistic_rows`` cover every row (redundant ones too);
     ``statistic`` is the F (or chi-squared, if ``scale`` is fixed) over the independent rows.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> core = wald_from_root(np.array([1.0, 2.0]), np.eye(2), np.array([0, 1]))
+    >>> core.quad, core.rank, core.std_error.tolist()
+    (5.0, 2, [1.0, 1.0])
     """
 
     estimate: Array
@@ -587,7 +770,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     chol = triangular_factor(vk)
     q = independent.size
     if q:
-        sol = sla.solve_triangular(chol, delta[independent], trans="T", check_finite=False)
+        sol = upper_solve(chol, delta[independent], trans=True)
         quad = float(sol @ sol)
     else:
         quad = 0.0
@@ -624,6 +807,18 @@ def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array
     -----
     With ``V = Q_V R_V`` (full QR), ``V (VᵀV)⁻¹ δ = Q_V R_V⁻ᵀ δ`` and the restricted
     covariance is ``R⁻¹ (I - Q_V Q_Vᵀ) R⁻ᵀ``; only triangular solves are used.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+    >>> cu = sol.to_working(np.array([[0.0, 1.0, -1.0]]))[:, sol.kept]  # β1 - β2 = 3
+    >>> step, w = restricted_step(sol, sol.root(cu), cu @ sol.theta - 3.0)
+    >>> bool(np.allclose(cu @ (sol.theta + step), 3.0)), w.shape
+    (True, (3, 2))
     """
     q = delta_k.size
     qv, rv = np.linalg.qr(root_k, mode="complete")
@@ -632,3 +827,400 @@ def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array
     step = -sla.solve_triangular(sol.r, qv[:, :q] @ g, check_finite=False)
     w = sla.solve_triangular(sol.r, qv[:, q:], check_finite=False)
     return step, w
+
+
+# -- many responses sharing one design --------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ResponseBlock:
+    """Sufficient statistics of several responses fitted on one shared design.
+
+    With ``Q R`` the QR factorization of the centred, ``sqrt(w)``-scaled non-intercept design
+    columns (see :class:`DesignFactor`), a response ``y`` is summarized by ``Qᵀ y_c`` (its first
+    ``q`` entries) and the norm of the rest: exactly the last column of the :class:`Moments`
+    factor of ``[X y]``.
+
+    Attributes
+    ----------
+    qty : (q, r) ndarray
+        First ``q`` rows of ``Qᵀ`` times the centred, scaled responses.
+    resid : (r,) ndarray
+        Norm of the remaining rows (the residual norm against all ``q`` columns).
+    center : (r,) ndarray
+        Weighted means of the responses (zeros without an intercept).
+    raw_norm : (r,) ndarray
+        Weighted norms of the uncentred responses.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> block = factor_design(x, intercept=0).project(np.column_stack([y, 2 * y, -y]))
+    >>> block.count, block.qty.shape
+    (3, (2, 3))
+    """
+
+    qty: Array
+    resid: Array
+    center: Array
+    raw_norm: Array
+
+    @property
+    def count(self) -> int:
+        return int(self.resid.shape[0])
+
+    def take(self, cols: NDArray[np.intp]) -> ResponseBlock:
+        """The responses at positions ``cols``.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> block = factor_design(x, intercept=0).project(np.column_stack([y, 2 * y, 3 * y]))
+        >>> part = block.take(np.array([2, 0]))
+        >>> part.count, bool(np.isclose(part.resid[0], 3 * part.resid[1]))
+        (2, True)
+        """
+        return ResponseBlock(
+            self.qty[:, cols], self.resid[cols], self.center[cols], self.raw_norm[cols]
+        )
+
+    def finite(self) -> NDArray[np.bool_]:
+        """Responses whose summaries are finite (a missing or infinite value propagates).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> bad = y.copy()
+        >>> bad[3] = np.nan
+        >>> factor_design(x, intercept=0).project(np.column_stack([y, bad])).finite().tolist()
+        [True, False]
+        """
+        return (
+            np.isfinite(self.resid)
+            & np.isfinite(self.center)
+            & np.isfinite(self.raw_norm)
+            & np.isfinite(self.qty).all(axis=0)
+        )
+
+    @staticmethod
+    def concat(blocks: list[ResponseBlock], q: int) -> ResponseBlock:
+        """Join blocks of responses (in order) into one.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> f = factor_design(x, intercept=0)
+        >>> both = ResponseBlock.concat([f.project(y), f.project(2 * y)], q=2)
+        >>> both.count, bool(np.allclose(both.resid[1], 2 * both.resid[0]))
+        (2, True)
+        """
+        if not blocks:
+            return ResponseBlock(np.zeros((q, 0)), np.zeros(0), np.zeros(0), np.zeros(0))
+        return ResponseBlock(
+            qty=np.concatenate([b.qty for b in blocks], axis=1),
+            resid=np.concatenate([b.resid for b in blocks]),
+            center=np.concatenate([b.center for b in blocks]),
+            raw_norm=np.concatenate([b.raw_norm for b in blocks]),
+        )
+
+
+@dataclass(frozen=True)
+class DesignFactor:
+    """QR factorization of a design, with its thin ``Q`` kept to project responses.
+
+    Build it with :func:`factor_design`.  ``moments`` are the :class:`Moments` of ``[X 0]``
+    (a zero response), so :func:`solve` on them gives the design's rank decision and working
+    coordinates; :meth:`project` summarizes any number of responses against the same factor.
+    The thin ``Q`` (n, q) is the size of the design itself.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> f = factor_design(x, intercept=0)
+    >>> solve(f.moments).rank, f.moments.n
+    (3, 20)
+    """
+
+    moments: Moments
+    weights: Array | None
+    _q: Array = field(repr=False)
+
+    def project(self, y: Array) -> ResponseBlock:
+        """Summarize responses ``y`` (n, b) against this design; ``y`` is not modified.
+
+        Notes
+        -----
+        One copy of ``y`` is centred (two passes, as in :func:`moments_from_arrays`), scaled,
+        and rotated by ``Qᵀ`` (one matrix product); the residual norm comes from the explicit
+        residual ``y_c − Q Qᵀ y_c`` (a second product, in place), not from
+        ``‖y_c‖² − ‖Qᵀy_c‖²``, which would cancel when the fit is close.  The work memory is
+        one copy of the block given, so callers bound memory by passing blocks of columns.
+        Missing or infinite values propagate into the summaries of their column (non-finite
+        ``center``, ``qty`` or ``resid``), which callers use to find them.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> block = factor_design(x, intercept=0).project(y)
+        >>> rss = np.sum((y - x @ np.linalg.lstsq(x, y, rcond=None)[0]) ** 2)
+        >>> bool(np.isclose(block.resid[0] ** 2, rss))
+        True
+        """
+        with np.errstate(invalid="ignore", over="ignore"):  # NaN/inf propagate on purpose
+            return self._project(np.asarray(y, dtype=np.float64))
+
+    def _project(self, y: Array) -> ResponseBlock:
+        m = self.moments
+        n = m.n
+        w = self.weights
+        if y.ndim == 1:
+            y = y[:, None]
+        if m.intercept is not None and n > 0:
+            m1 = _weighted_mean(y, w)
+            yb = y - m1  # the one copy of the block
+            m2 = _weighted_mean(yb, w)
+            yb -= m2
+            center = m1 + m2
+        else:
+            yb = np.array(y, copy=True)
+            center = np.zeros(yb.shape[1])
+        if w is not None:
+            yb *= np.sqrt(w)[:, None]
+        q = m.others.size
+        qd = self._q
+        k = qd.shape[1]
+        qty = np.zeros((q, yb.shape[1]))
+        if k:
+            qk = qd.T @ yb
+            qty[:k] = qk
+            yb = _subtract_product(yb, qd, qk)
+        resid2 = np.einsum("ij,ij->j", yb, yb)
+        # ‖√w·y‖² = ‖Qᵀy_c‖² + ‖residual‖² + W·mean²: a sum of squares, no cancellation
+        raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
+        return ResponseBlock(qty=qty, resid=np.sqrt(resid2), center=center, raw_norm=raw)
+
+    def response_moments(self, block: ResponseBlock, j: int) -> Moments:
+        """The :class:`Moments` of ``[X y_j]`` for response ``j`` of ``block``.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        >>> f = factor_design(x, intercept=0)
+        >>> one = f.response_moments(f.project(np.column_stack([-y, y])), 1)
+        >>> bool(np.allclose(solve(one).coefficients(), np.linalg.lstsq(x, y, rcond=None)[0]))
+        True
+        """
+        m = self.moments
+        q = m.others.size
+        r = m.r.copy()
+        r[:q, q] = block.qty[:, j]
+        r[q, q] = block.resid[j]
+        center = m.center.copy()
+        center[m.p] = block.center[j] if m.intercept is not None else 0.0
+        raw = m.raw_norm.copy()
+        raw[m.p] = block.raw_norm[j]
+        return Moments(m.n, m.weight_sum, m.intercept, center, raw, r)
+
+
+def _subtract_product(c: Array, a: Array, b: Array) -> Array:
+    """``c − a·b``, in place in ``c`` when its layout allows (one BLAS ``gemm``, no temporary)."""
+    if c.flags.f_contiguous:
+        return sla.blas.dgemm(-1.0, a, b, beta=1.0, c=c, overwrite_c=True)
+    if c.flags.c_contiguous:
+        ct = sla.blas.dgemm(
+            -1.0, b, a, beta=1.0, c=c.T, trans_a=True, trans_b=True, overwrite_c=True
+        )
+        return ct.T
+    return c - a @ b
+
+
+def factor_design(x: Array, w: Array | None = None, intercept: int | None = None) -> DesignFactor:
+    """Factor a design once so that many responses can be fitted against it.
+
+    Parameters
+    ----------
+    x : (n, p) ndarray
+        Design.  Not modified.
+    w : (n,) ndarray or None
+        Positive weights (validated by the caller).
+    intercept : int or None
+        Index of the intercept column.
+
+    Returns
+    -------
+    DesignFactor
+
+    Notes
+    -----
+    The centring (two passes) and scaling are those of :func:`moments_from_arrays`; the QR is
+    LAPACK ``geqrf``, then ``orgqr`` forms the thin ``Q`` (n, q) once, so that every block of
+    responses is projected by matrix products (much faster than applying ``q`` reflectors one
+    block at a time when ``q`` is small).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))]); y = rng.normal(size=30)
+    >>> f = factor_design(x, intercept=0)
+    >>> one = f.response_moments(f.project(y[:, None]), 0)
+    >>> ref = moments_from_arrays(x, y, intercept=0)
+    >>> bool(np.allclose(one.r.T @ one.r, ref.r.T @ ref.r))
+    True
+    """
+    n, p = x.shape
+    cols = np.arange(p) if intercept is None else np.delete(np.arange(p), intercept)
+    a = np.empty((n, cols.size), order="F")
+    a[:] = x[:, cols]
+    center = np.zeros(p + 1)
+    raw_norm = np.zeros(p + 1)
+    raw_sq = np.einsum("ij,ij->j", a, a) if w is None else w @ (a * a)
+    raw_norm[cols] = np.sqrt(raw_sq)
+    wsum = float(n if w is None else w.sum())
+    if intercept is not None:
+        raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept])) if n else 0.0
+        if n > 0:
+            m1 = _weighted_mean(a, w)
+            a -= m1
+            m2 = _weighted_mean(a, w)
+            a -= m2
+            center[cols] = m1 + m2
+    if w is not None:
+        a *= np.sqrt(w)[:, None]
+    q = cols.size
+    r = np.zeros((q + 1, q + 1))
+    if q and n:
+        qr, tau, _work, info = sla.lapack.dgeqrf(a, overwrite_a=1)
+        if info != 0:  # pragma: no cover - LAPACK argument error
+            raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
+        k = min(n, q)
+        r[:k, :q] = np.triu(qr[:k])
+        thin, _work, info = sla.lapack.dorgqr(qr[:, :k], tau[:k], overwrite_a=0)
+        if info != 0:  # pragma: no cover - LAPACK argument error
+            raise RuntimeError(f"LAPACK dorgqr failed with info={info}")
+    else:
+        thin = np.zeros((n, 0))
+    moments = Moments(
+        n=n, weight_sum=wsum, intercept=intercept, center=center, raw_norm=raw_norm, r=r
+    )
+    return DesignFactor(moments=moments, weights=w, _q=thin)
+
+
+def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Array, Array, Array]:
+    """Coefficients and residual sums of squares of many responses on one solved design.
+
+    Parameters
+    ----------
+    m : Moments
+        The design's moments (from :class:`DesignFactor`).
+    sol : Solution
+        ``solve(m, rank_tol)``: the rank decision and working coordinates, shared by every
+        response.
+    block : ResponseBlock
+
+    Returns
+    -------
+    theta : (rank, r) ndarray
+        Working coefficients of the kept columns (as :attr:`Solution.theta`, per response).
+    rss : (r,) ndarray
+        Residual sums of squares.
+    y_norm : (r,) ndarray
+        Norms of the centred, scaled responses (for deciding that an RSS is zero).
+
+    Notes
+    -----
+    The kept working columns of the small factor are refactored by one QR (complete ``Q``);
+    every response then costs a matrix product and one triangular solve, all vectorized.  The
+    results equal :func:`solve` on each response's own moments up to rounding.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> f = factor_design(x, intercept=0)
+    >>> block = f.project(np.column_stack([y, 3 * y]))
+    >>> theta, rss, y_norm = solve_responses(f.moments, solve(f.moments), block)
+    >>> bool(np.isclose(rss[1], 9 * rss[0])), theta.shape
+    (True, (3, 2))
+    """
+    others = m.others
+    q = others.size
+    kept_o = sol.kept if m.intercept is None else sol.kept[1:]
+    rank_o = kept_o.size
+    r_count = block.count
+    qty = block.qty
+    if rank_o:
+        pos = np.searchsorted(others, kept_o)
+        rs_k = m.r[:q, :q][:, pos] / sol.scale[kept_o]
+        qk, rk = np.linalg.qr(rs_k, mode="complete")
+        z = qk.T @ qty
+        theta_o = sla.solve_triangular(rk[:rank_o], z[:rank_o], check_finite=False)
+        tail = z[rank_o:]
+    else:
+        theta_o = np.zeros((0, r_count))
+        tail = qty
+    rss = block.resid**2 + np.einsum("ij,ij->j", tail, tail)
+    y_norm = np.hypot(np.linalg.norm(qty, axis=0), block.resid)
+    if m.intercept is not None:
+        theta = np.vstack([block.center[None, :], theta_o])
+    else:
+        theta = theta_o
+    return theta, rss, y_norm
+
+
+def wald_quadratic_forms(
+    delta: Array, root: Array, independent: NDArray[np.intp]
+) -> tuple[Array, Array]:
+    """Vectorized :func:`wald_from_root` for many responses that share ``root`` up to a scale.
+
+    Parameters
+    ----------
+    delta : (m, r) ndarray
+        ``Cβ̂ - d`` per response (columns).
+    root : (k, m) ndarray
+        ``V`` with ``Cov(Cβ̂) = σ² Vᵀ V`` (unscaled, shared by every response).
+    independent : (q,) ndarray of int
+
+    Returns
+    -------
+    quad : (r,) ndarray
+        ``δ_Kᵀ (Vᵀ V)⁻¹ δ_K`` per response (divide by ``q σ²`` for the F).
+    std_error : (m,) ndarray
+        Unscaled standard error of each row (multiply by ``σ``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> quad, se = wald_quadratic_forms(np.array([[2.0, 4.0]]), np.array([[2.0]]), np.array([0]))
+    >>> quad.tolist(), se.tolist()
+    ([1.0, 4.0], [2.0])
+    """
+    se = np.linalg.norm(root, axis=0)
+    if independent.size == 0:
+        return np.zeros(delta.shape[1]), se
+    chol = triangular_factor(root[:, independent])
+    sol = sla.solve_triangular(chol, delta[independent], trans="T", check_finite=False)
+    return np.einsum("ij,ij->j", sol, sol), se

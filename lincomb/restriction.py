@@ -41,15 +41,54 @@ __all__ = [
 
 
 class Resolver(Protocol):
-    """What the builder needs from a fit to turn names into column positions."""
+    """What the builder needs from a fit to turn names into column positions.
+
+    A fit's coefficient index (``fit.index``) is one; anything with these methods will do.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+    >>> index.names
+    ('Intercept', 'line[T.L2]', 'line[T.L3]', 'line[T.L4]')
+    >>> (lc.term("line") == 0).resolve(index)[0].shape
+    (3, 4)
+    """
 
     names: tuple[str, ...]
 
-    def column(self, name: str) -> int: ...
+    def column(self, name: str) -> int:
+        """Position of the coefficient called ``name``.
 
-    def term_columns(self, term: str) -> tuple[int, ...]: ...
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index.column("line[T.L3]")
+        2
+        """
+        ...
 
-    def level_column(self, term: str, key: tuple[str, ...]) -> int: ...
+    def term_columns(self, term: str) -> tuple[int, ...]:
+        """Positions of every coefficient of a model term.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index.term_columns("line")
+        (1, 2, 3)
+        """
+        ...
+
+    def level_column(self, term: str, key: tuple[str, ...]) -> int:
+        """Position of the coefficient of ``term`` at the factor level(s) ``key``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index.level_column("line", ("L4",))
+        3
+        """
+        ...
 
 
 @dataclass(frozen=True)
@@ -188,7 +227,14 @@ class Expr:
 
     # -- presentation -------------------------------------------------------------------
     def text(self) -> str:
-        """The expression as algebra in coefficient names."""
+        """The expression as algebra in coefficient names.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> (2 * coef("a") - coef("b") / 4 + 1).text()
+        '2*a - 0.25*b + 1'
+        """
         parts: list[str] = []
         for ref, w in self._terms.items():
             mag = abs(w)
@@ -322,6 +368,14 @@ class Restriction(_Item):
         self.target = float(target)
 
     def text(self) -> str:
+        """The restriction as an equation in coefficient names.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> (coef("a") + 1 == coef("b")).text()
+        'a - b = -1'
+        """
         return f"{self.expr.text()} = {_fmt_num(self.target)}"
 
     def __repr__(self) -> str:
@@ -337,6 +391,15 @@ class Restriction(_Item):
         return as_system(other) & self
 
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
+        """Yield the restriction's one ``(row of C, d, label)`` on the columns of ``index``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> [(c.tolist(), d, label) for c, d, label in (lc.coef("line[T.L2]") == 1).rows(index)]
+        [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
+        """
         row = self.expr._row(index)
         if not row.any():
             raise EmptyRestrictionError(
@@ -430,6 +493,14 @@ class RestrictionSystem:
         raise TypeError(_BOOL_MSG)
 
     def text(self) -> str:
+        """The system as equations joined by ``&``.
+
+        Examples
+        --------
+        >>> from lincomb import coef, term
+        >>> ((coef("a") == 0) & (term("C(g)") == 1)).text()
+        'a = 0 & C(g) = 1'
+        """
         return " & ".join(item.text() for item in self.items)
 
     def __repr__(self) -> str:
@@ -438,7 +509,16 @@ class RestrictionSystem:
     def resolve(
         self, index: Resolver
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
-        """Turn the system into ``(C, d, row labels)`` for the coefficients of ``index``."""
+        """Turn the system into ``(C, d, row labels)`` for the coefficients of ``index``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> c, d, labels = ((lc.term("line") == 0) & (lc.coef("Intercept") == 500)).resolve(index)
+        >>> c.shape, d.tolist(), labels[-1]
+        ((4, 4), [0.0, 0.0, 0.0, 500.0], 'Intercept = 500')
+        """
         rows: list[NDArray[np.float64]] = []
         ds: list[float] = []
         labels: list[str] = []
@@ -497,7 +577,7 @@ def from_matrix(
     if bad.size:
         i, j = bad[0]
         raise RestrictionShapeError(
-            f"C holds {arr[i, j]!r} at row {i}, column {j}; C must be finite."
+            f"C holds {float(arr[i, j])!r} at row {i}, column {j}; C must be finite."
         )
     if d is None:
         dv = np.zeros(m)
@@ -513,7 +593,7 @@ def from_matrix(
         badd = np.flatnonzero(~np.isfinite(dv))
         if badd.size:
             raise RestrictionShapeError(
-                f"d holds {dv[badd[0]]!r} at row {badd[0]}; d must be finite."
+                f"d holds {float(dv[badd[0]])!r} at row {badd[0]}; d must be finite."
             )
     if labels is not None and len(labels) != m:
         raise RestrictionShapeError(f"{len(labels)} labels for {m} rows of C.")

@@ -3,15 +3,35 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 from scipy import stats
 
-from ._format import restricted_html, restricted_text, wald_html, wald_text
+from ._format import (
+    batch_html,
+    batch_text,
+    restricted_html,
+    restricted_text,
+    wald_html,
+    wald_text,
+)
+from .multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 
-__all__ = ["WaldTest", "RestrictedFit", "ROW_COLUMNS", "TEST_COLUMNS"]
+if TYPE_CHECKING:  # pragma: no cover
+    from .multiplicity import MultipleInference
+
+__all__ = [
+    "WaldTest",
+    "RestrictedFit",
+    "WaldBatch",
+    "ROW_COLUMNS",
+    "TEST_COLUMNS",
+    "BATCH_COLUMNS",
+    "BATCH_ROW_COLUMNS",
+]
 
 #: Columns of :meth:`WaldTest.to_frame` (one row per restriction row).
 ROW_COLUMNS = (
@@ -25,6 +45,9 @@ ROW_COLUMNS = (
     "upper",
     "level",
     "role",
+    "distribution",
+    "df",
+    "covariance",
 )
 #: Columns of :meth:`WaldTest.test_frame` (one row per test).
 TEST_COLUMNS = (
@@ -80,7 +103,7 @@ class WaldTest:
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
     >>> res = f.wald((lc.coef("line[T.L2]") == 0) & (lc.coef("line[T.L3]") == 2))
     >>> res.to_frame().shape
-    (2, 10)
+    (2, 13)
     >>> bool(abs(res.t[0]) ** 2 - f.wald(lc.coef("line[T.L2]") == 0).statistic < 1e-9)
     True
     """
@@ -136,7 +159,17 @@ class WaldTest:
         Columns: ``restriction`` (the row as algebra), ``estimate`` (``Cβ̂``), ``target``
         (``d``), ``std_error``, ``t``, ``p_value`` (two-sided, per row), ``lower``/``upper``
         (marginal interval at ``level``), ``level``, ``role`` (``"independent"`` or
-        ``"redundant"``).
+        ``"redundant"``), ``distribution`` of the row statistics (``"t"``, or ``"normal"``
+        under a chi-squared reference), its ``df`` (``inf`` for normal) and the
+        ``covariance`` estimator.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> rows = f.wald((lc.coef("Intercept") == 500) & (lc.term("line")["L3"] == 1)).to_frame()
+        >>> rows[["restriction", "target", "role"]].values.tolist()
+        [['Intercept = 500', 500.0, 'independent'], ['line[L3] = 1', 1.0, 'independent']]
         """
         ci = self.intervals(level)
         role = [
@@ -154,6 +187,9 @@ class WaldTest:
                 "upper": ci["upper"].to_numpy(),
                 "level": level,
                 "role": role,
+                "distribution": "t" if np.isfinite(self.df_den) else "normal",
+                "df": self.df_den,
+                "covariance": self.covariance,
             }
         )
 
@@ -163,6 +199,14 @@ class WaldTest:
         Columns: ``restrictions`` (the system as algebra), ``rows``, ``rank``, ``statistic``,
         ``distribution``, ``df_num``, ``df_den``, ``p_value``, ``covariance``,
         ``redundant_rows``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> one = f.wald(lc.levels("line").pairwise()).test_frame()
+        >>> one[["rows", "rank", "df_num", "redundant_rows"]].values.tolist()
+        [[6, 3, 3, 3]]
         """
         return pd.DataFrame(
             [
@@ -179,6 +223,118 @@ class WaldTest:
                     "redundant_rows": len(self.redundant),
                 }
             ]
+        )
+
+    def plot(self, level: float = 0.95, **kwargs: Any) -> Any:
+        """Interval chart of the rows, hypothesized values marked (needs ``lincomb[plot]``).
+
+        Delegates to :func:`lincomb.plot.intervals`; keyword arguments are passed on.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> fig = f.wald(lc.term("line") == 0).plot(level=0.9)
+        >>> len(fig.axes[0].get_yticklabels())
+        3
+        """
+        from .plot import intervals
+
+        return intervals(self, level, **kwargs)
+
+    def adjust(
+        self,
+        method: str = "holm",
+        *,
+        redundant: str = "keep",
+        tol: float = DEFAULT_TOL,
+        seed: int = DEFAULT_SEED,
+        max_points: int = DEFAULT_MAX_POINTS,
+    ) -> MultipleInference:
+        """p-values of the rows adjusted for testing them together.
+
+        Parameters
+        ----------
+        method : str, default 'holm'
+            ``'bonferroni'``, ``'holm'``, ``'sidak'``, ``'hochberg'``,
+            ``'benjamini-hochberg'``, ``'benjamini-yekutieli'`` (from the row p-values, see
+            :func:`lincomb.multiplicity.adjust_pvalues`), ``'scheffe'`` (every combination in
+            the span of ``C``) or ``'max-t'`` (single step, joint multivariate t of the rows).
+        redundant : {'keep', 'drop'}, default 'keep'
+            Keep rows that depend on others (e.g. all pairwise differences) in the family, or
+            drop them (they get no adjusted p-value; the result lists them).
+        tol, seed, max_points
+            Integration settings of ``'max-t'`` (see :mod:`lincomb.multiplicity`).
+
+        Returns
+        -------
+        MultipleInference
+            One row per contrast; ``to_frame()`` holds raw and adjusted p-values.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> adj = f.wald(lc.levels("line").pairwise()).adjust("holm")
+        >>> adj.family_size, adj.rank, bool((adj.p_adjusted >= adj.p_value).all())
+        (6, 3, True)
+        """
+        from .multiplicity import adjust_wald
+
+        return adjust_wald(
+            self, method, redundant=redundant, tol=tol, seed=seed, max_points=max_points
+        )
+
+    def simultaneous(
+        self,
+        method: str = "max-t",
+        level: float = 0.95,
+        *,
+        redundant: str = "keep",
+        tol: float = DEFAULT_TOL,
+        seed: int = DEFAULT_SEED,
+        max_points: int = DEFAULT_MAX_POINTS,
+    ) -> MultipleInference:
+        """Simultaneous confidence intervals for the rows, with matching adjusted p-values.
+
+        Parameters
+        ----------
+        method : {'max-t', 'bonferroni', 'sidak', 'scheffe', 'none'}, default 'max-t'
+            Critical value for the whole family: ``'max-t'`` is the ``level`` quantile of
+            ``max |T_i|`` under the rows' joint multivariate t distribution (exact coverage;
+            integrated numerically, see :mod:`lincomb.multiplicity`); ``'scheffe'`` covers
+            every combination in the span of ``C`` (``c² = q F_{q, df}``); ``'none'`` gives
+            marginal intervals.
+        level : float, default 0.95
+            Simultaneous coverage.
+        redundant : {'keep', 'drop'}, default 'keep'
+            See :meth:`adjust`.
+        tol, seed, max_points
+            Integration settings of ``'max-t'``; what was used is reported on the result.
+
+        Returns
+        -------
+        MultipleInference
+            With ``critical_value``, ``lower``/``upper`` and single-step adjusted p-values
+            (an interval excludes the target exactly when its adjusted p is below
+            ``1 - level``).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> from scipy import stats
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> res = f.wald(lc.levels("line").versus("L1"))
+        >>> sim = res.simultaneous("bonferroni", 0.95)
+        >>> bool(abs(sim.critical_value - stats.t.isf(0.05 / 6, res.df_den)) < 1e-12)
+        True
+        >>> sim.to_frame().shape
+        (3, 12)
+        """
+        from .multiplicity import simultaneous_wald
+
+        return simultaneous_wald(
+            self, method, level, redundant=redundant, tol=tol, seed=seed, max_points=max_points
         )
 
     def __repr__(self) -> str:
@@ -207,6 +363,16 @@ class RestrictedFit:
     sigma : float
         ``sqrt(rss / df_resid)``.
     redundant : dict
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> r = f.restrict(lc.coef("line[T.L2]") == lc.coef("line[T.L4]"))
+    >>> bool(abs(r.coefficients["line[T.L2]"] - r.coefficients["line[T.L4]"]) < 1e-12)
+    True
+    >>> r.rank, r.df_resid - f.df_resid
+    (1, 1)
     """
 
     labels: tuple[str, ...]
@@ -220,21 +386,56 @@ class RestrictedFit:
     _cov: pd.DataFrame = field(default=None, repr=False)  # type: ignore[assignment]
 
     def covariance(self) -> pd.DataFrame:
-        """Covariance of the restricted coefficients (singular: it lives on ``C·β = d``)."""
+        """Covariance of the restricted coefficients (singular: it lives on ``C·β = d``).
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> cov = f.restrict(lc.coef("line[T.L2]") == lc.coef("line[T.L4]")).covariance()
+        >>> c = np.array([0.0, 1, 0, -1, 0])  # the restricted combination has no variance
+        >>> bool(abs(c @ cov.to_numpy() @ c) < 1e-12)
+        True
+        """
         return self._cov.copy()
 
     def std_errors(self) -> pd.Series:
-        """Standard errors of the restricted coefficients (0 for fixed ones)."""
+        """Standard errors of the restricted coefficients (0 for fixed ones).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> float(f.restrict(lc.coef("temperature_c") == 0.25).std_errors()["temperature_c"])
+        0.0
+        """
         v = np.clip(np.diag(self._cov.to_numpy()), 0, None)
         return pd.Series(np.sqrt(v), index=self._cov.index, name="std_error")
 
     def f_statistic(self) -> float:
-        """``((RSS_r - RSS) / q) / (RSS / (n - rank))``: equals the Wald F (classical)."""
+        """``((RSS_r - RSS) / q) / (RSS / (n - rank))``: equals the Wald F (classical).
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> r = lc.term("line") == 0
+        >>> bool(np.isclose(f.restrict(r).f_statistic(), f.wald(r).statistic, rtol=1e-10))
+        True
+        """
         df_u = self.df_resid - self.rank
         return ((self.rss - self.rss_unrestricted) / self.rank) / (self.rss_unrestricted / df_u)
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per coefficient: ``coefficient, estimate, std_error``."""
+        """One row per coefficient: ``coefficient, estimate, std_error``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.restrict(lc.term("line") == 0).to_frame()["estimate"].round(6).tolist()[1:]
+        [0.0, 0.0, 0.0]
+        """
         return pd.DataFrame(
             {
                 "coefficient": list(self.coefficients.index),
@@ -248,3 +449,217 @@ class RestrictedFit:
 
     def _repr_html_(self) -> str:
         return restricted_html(self)
+
+
+#: Columns of :meth:`WaldBatch.to_frame` (one row per system).
+BATCH_COLUMNS = (
+    "system",
+    "rows",
+    "rank",
+    "statistic",
+    "df_num",
+    "df_den",
+    "p_value",
+    "status",
+)
+#: Columns of :meth:`WaldBatch.rows_frame` (one row per system and restriction row).
+BATCH_ROW_COLUMNS = (
+    "system",
+    "row",
+    "restriction",
+    "estimate",
+    "target",
+    "std_error",
+    "t",
+    "p_value",
+    "lower",
+    "upper",
+    "level",
+    "role",
+)
+
+
+@dataclass(frozen=True)
+class WaldBatch:
+    """Wald tests of many restriction systems ``C_s·β = d_s`` on one fit, one F per system.
+
+    Made by :meth:`LinearFit.wald_batch <lincomb.fit.LinearFit.wald_batch>`.  Per-system
+    numbers are arrays of length ``k``; per-row numbers are ``(k, m)`` arrays.
+
+    Attributes
+    ----------
+    systems : tuple
+        System identifiers: the keys given, or the positions ``0 .. k-1``.
+    estimate : (k, m) ndarray
+        ``C_s β̂`` per row (NaN for rows that are not estimable).
+    target : (k, m) ndarray
+        Hypothesized ``d_s``.
+    std_error : (k, m) ndarray
+        Standard error of each row's estimate.
+    t : (k, m) ndarray
+        ``(C_s β̂ - d_s) / std_error`` per row.
+    statistic : (k,) ndarray
+        Each system's F (or chi-squared) statistic; NaN for a system without a test.
+    df_num : (k,) ndarray of int
+        Rank of each ``C_s`` (redundant rows do not count).
+    df_den : float
+        Denominator degrees of freedom (``inf`` for a chi-squared reference).
+    p_value : (k,) ndarray
+    status : tuple of str
+        Per system: ``"independent"`` (all rows independent), ``"redundant"`` (some rows
+        depend on others and agree with them; tested on the rank), or, with
+        ``on_invalid="nan"``, ``"inconsistent"``, ``"not estimable"`` or ``"singular
+        covariance"`` (no test: statistic and p-value are NaN).
+    redundant : dict
+        ``{system position: {row: {independent row: weight}}}`` for systems with redundant rows.
+    names : tuple of str
+        Coefficient names (columns of ``matrix``).
+    matrix : (k, m, p) ndarray
+        The resolved systems.
+    labels : tuple of tuple of str, or None
+        Row labels when the systems were given as restrictions; otherwise they are written
+        from ``matrix`` when a frame asks for them.
+    distribution : {'F', 'chi2'}
+        Reference distribution of the statistics.
+    covariance : str
+        Covariance estimator the tests used.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> c = np.zeros((2, 2, 5))
+    >>> c[0, 0, 1] = c[0, 1, 2] = 1.0                  # L2 = L3 = 0 (vs L1)
+    >>> c[1, 0, 2], c[1, 0, 3], c[1, 1, 4] = 1.0, -1.0, 1.0  # L3 = L4, temperature = 0
+    >>> b = f.wald_batch(c)
+    >>> b.to_frame().shape, b.rows_frame().shape
+    ((2, 8), (4, 12))
+    >>> single = f.wald(lc.from_matrix(c[1]))
+    >>> bool(np.isclose(b.statistic[1], single.statistic, rtol=1e-12))
+    True
+    """
+
+    systems: tuple[Any, ...]
+    estimate: NDArray[np.float64]
+    target: NDArray[np.float64]
+    std_error: NDArray[np.float64]
+    t: NDArray[np.float64]
+    statistic: NDArray[np.float64]
+    df_num: NDArray[np.intp]
+    df_den: float
+    p_value: NDArray[np.float64]
+    status: tuple[str, ...]
+    redundant: dict[int, dict[int, dict[int, float]]] = field(default_factory=dict)
+    names: tuple[str, ...] = ()
+    matrix: NDArray[np.float64] | None = field(default=None, repr=False)
+    labels: tuple[tuple[str, ...], ...] | None = field(default=None, repr=False)
+    distribution: str = "F"
+    covariance: str = "classical"
+    _index: Any = field(default=None, repr=False, compare=False)
+
+    def __len__(self) -> int:
+        return len(self.systems)
+
+    @property
+    def row_p_value(self) -> NDArray[np.float64]:
+        """Two-sided p-value of each row, ``(k, m)`` (t with ``df_den``; normal if inf)."""
+        return 2 * self._row_dist().sf(np.abs(self.t))
+
+    def _row_dist(self):  # type: ignore[no-untyped-def]
+        return stats.norm() if not np.isfinite(self.df_den) else stats.t(self.df_den)
+
+    def row_labels(self, system: int) -> tuple[str, ...]:
+        """Labels of the rows of the system at position ``system`` (written as algebra).
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]), d=[[0.0], [-1.0]])
+        >>> b.row_labels(1)
+        ('line[T.L4] = -1',)
+        """
+        if self.labels is not None:
+            return self.labels[system]
+        if self.matrix is None or self._index is None:
+            return tuple(f"row {i}" for i in range(self.estimate.shape[1]))
+        from .restriction import from_matrix
+
+        c = self.matrix[system]
+        return tuple(from_matrix(c, self.target[system]).resolve(self._index)[2])
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per system.
+
+        Columns: ``system`` (identifier), ``rows`` (``m``), ``rank``, ``statistic`` (F),
+        ``df_num`` (= rank), ``df_den``, ``p_value``, ``status`` (see the class notes).
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]), ids=["L2-L3", "L4"])
+        >>> b.to_frame()[["system", "rank", "status"]].values.tolist()
+        [['L2-L3', 1, 'independent'], ['L4', 1, 'independent']]
+        """
+        k, m = self.estimate.shape
+        return pd.DataFrame(
+            {
+                "system": list(self.systems),
+                "rows": np.full(k, m),
+                "rank": self.df_num,
+                "statistic": self.statistic,
+                "df_num": self.df_num,
+                "df_den": self.df_den,
+                "p_value": self.p_value,
+                "status": list(self.status),
+            }
+        )
+
+    def rows_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """One row per system and restriction row (``k·m`` rows).
+
+        Columns: ``system``, ``row`` (position in the system), ``restriction`` (the row as
+        algebra), ``estimate``, ``target``, ``std_error``, ``t``, ``p_value`` (two-sided, per
+        row), ``lower``/``upper`` (marginal interval at ``level``), ``level``, ``role``
+        (``"independent"``, ``"redundant"`` or ``"not estimable"``).
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]))
+        >>> b.rows_frame(level=0.9)[["system", "row", "level"]].values.tolist()
+        [[0, 0, 0.9], [1, 0, 0.9]]
+        """
+        if not (0 < level < 1):
+            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        k, m = self.estimate.shape
+        q = self._row_dist().ppf(0.5 + level / 2)
+        role = np.full((k, m), "independent", dtype=object)
+        for s, deps in self.redundant.items():
+            role[s, list(deps)] = "redundant"
+        role[np.isnan(self.estimate)] = "not estimable"
+        labels = [lab for s in range(k) for lab in self.row_labels(s)]
+        return pd.DataFrame(
+            {
+                "system": np.repeat(np.array(self.systems, dtype=object), m),
+                "row": np.tile(np.arange(m), k),
+                "restriction": labels,
+                "estimate": self.estimate.ravel(),
+                "target": self.target.ravel(),
+                "std_error": self.std_error.ravel(),
+                "t": self.t.ravel(),
+                "p_value": self.row_p_value.ravel(),
+                "lower": (self.estimate - q * self.std_error).ravel(),
+                "upper": (self.estimate + q * self.std_error).ravel(),
+                "level": level,
+                "role": role.ravel(),
+            }
+        )
+
+    def __repr__(self) -> str:
+        return batch_text(self)
+
+    def _repr_html_(self) -> str:
+        return batch_html(self)

@@ -288,3 +288,26 @@ def test_large_offset_against_mpmath(stackloss, weighted):
     yc = (y - (wv @ y) / wv.sum()) * sw
     centred_naive = np.linalg.solve(zc.T @ zc, zc.T @ yc)
     assert rel_err(centred_naive[:2], ref_beta[1:3]).max() > 10 * tol
+
+
+def test_column_near_1e12_varying_by_units_is_kept_and_exact():
+    """A column 1e12 + u with integer u in 0..9 holds about one significant digit of variation
+    relative to 1e-12 of its size; float64 stores every value exactly (integers below 2**53),
+    so the fit must equal the fit on u itself (x - 1e12 = u exactly, the intercept absorbs the
+    offset). Identity of the trade; no outside number needed."""
+    rng = np.random.default_rng(20261201)
+    u = rng.integers(0, 10, size=60).astype(float)
+    z = rng.normal(size=60)
+    y = 2.0 + 3.0 * u - 0.5 * z + rng.normal(scale=0.3, size=60)
+    big = lc.fit_arrays(np.c_[np.ones(60), 1e12 + u, z], y, names=["one", "x", "z"])
+    small = lc.fit_arrays(np.c_[np.ones(60), u, z], y, names=["one", "x", "z"])
+    assert big.aliased == ()
+    np.testing.assert_allclose(
+        big.coefficients[["x", "z"]], small.coefficients[["x", "z"]], rtol=1e-12
+    )
+    np.testing.assert_allclose(
+        big.std_errors()[["x", "z"]], small.std_errors()[["x", "z"]], rtol=1e-10
+    )
+    f_big = big.wald(lc.coef("x") == 3).statistic
+    f_small = small.wald(lc.coef("x") == 3).statistic
+    np.testing.assert_allclose(f_big, f_small, rtol=1e-9)

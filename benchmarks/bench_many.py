@@ -1,0 +1,201 @@
+"""Many responses on one design: lincomb.fit_many_arrays against a statsmodels loop.
+
+Run (unset the two OpenBLAS variables for timing only, in this command alone)::
+
+    env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python benchmarks/bench_many.py
+    env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python benchmarks/bench_many.py --json
+    ... --threads 1        # limit BLAS threads (threadpoolctl) for the whole run
+    ... --subset 300       # responses in the timed statsmodels loop (see below)
+
+Needs the ``bench`` extra (statsmodels, threadpoolctl).  statsmodels is a timing and numerical
+reference only.
+
+Problem: n = 500 rows, p = 10 columns (an intercept and 9 standard normal columns, seeded),
+r = 10,000 responses (standard normal, seeded: an (n, r) float64 matrix of 40 MB), one 2-row
+system (``x1 - x2 = 0`` and ``x3 = 0``).
+
+* lincomb: ``lc.fit_many_arrays(X, Y)``, then ``.wald(system)``, then ``.to_frame()`` (the tidy
+  frame with Benjamini–Hochberg adjusted p-values): the whole pipeline is timed.
+* statsmodels: per response ``OLS(y, X).fit().f_test((C, d))``.  Timing the loop over all
+  10,000 responses would take minutes, so it runs over the first ``--subset`` responses and the
+  time is **extrapolated linearly** to 10,000 (each response costs the same: same design, same
+  size).  Target: statsmodels / lincomb >= 150.
+
+Memory: ``tracemalloc`` (numpy reports its allocations to it) traces one more run of the lincomb
+pipeline; we report its peak above the memory held before the run (the input arrays), as a
+fraction of the response matrix's size.  Target <= 1.2.
+
+Correctness is checked before timing: F statistics and p-values of the subset against
+statsmodels (largest relative difference reported).
+
+Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
+run interleaved in every repeat so that load changes on a shared machine hit both alike; we
+report medians and the median of the per-repeat ratios, in wall time and (as a check against
+other processes' load) in CPU time of this process (``time.process_time``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import json
+import os
+import platform
+import statistics
+import sys
+import time
+import tracemalloc
+from typing import Any
+
+import numpy as np
+
+SEED = 20240715
+N, P, R = 500, 10, 10_000
+
+
+def make_data() -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(SEED)
+    x = np.column_stack([np.ones(N), rng.normal(size=(N, P - 1))])
+    y = rng.normal(size=(N, R))
+    y[:, ::7] += 0.2 * x[:, [3]]  # a few responses with a real effect on x3
+    return x, y
+
+
+def blas_info() -> list[dict[str, Any]]:
+    from threadpoolctl import threadpool_info
+
+    keep = ("user_api", "internal_api", "num_threads", "version", "architecture", "prefix")
+    return [{k: d.get(k) for k in keep} for d in threadpool_info()]
+
+
+def run(repeats: int, subset: int) -> dict[str, Any]:
+    import statsmodels.api as sm
+
+    import lincomb as lc
+
+    x, y = make_data()
+    names = [f"x{j}" for j in range(P)]
+    system = (lc.coef("x1") == lc.coef("x2")) & (lc.coef("x3") == 0)
+    c = np.zeros((2, P))
+    c[0, 1], c[0, 2], c[1, 3] = 1.0, -1.0, 1.0
+    d = np.zeros(2)
+
+    def lincomb_all() -> Any:
+        mf = lc.fit_many_arrays(x, y, names=names)
+        res = mf.wald(system)
+        return res, res.to_frame()
+
+    def sm_subset() -> list[Any]:
+        return [sm.OLS(y[:, j], x).fit().f_test((c, d)) for j in range(subset)]
+
+    # correctness first
+    res, frame = lincomb_all()
+    ref = sm_subset()
+    f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
+    p_sm = np.array([float(t.pvalue) for t in ref])
+    f_rel = float(np.max(np.abs(res.statistic[:subset] / f_sm - 1)))
+    p_rel = float(np.max(np.abs(res.p_value[:subset] / p_sm - 1)))
+    assert f_rel < 1e-9, f_rel
+
+    times: dict[str, list[float]] = {"lincomb": [], "statsmodels_subset": []}
+    ratios, cpu_ratios, cpu_lc = [], [], []
+    for _ in range(repeats):
+        t0, c0 = time.perf_counter(), time.process_time()
+        lincomb_all()
+        t1, c1 = time.perf_counter(), time.process_time()
+        sm_subset()
+        t2, c2 = time.perf_counter(), time.process_time()
+        times["lincomb"].append(t1 - t0)
+        times["statsmodels_subset"].append(t2 - t1)
+        ratios.append((t2 - t1) / subset * R / (t1 - t0))
+        cpu_ratios.append((c2 - c1) / subset * R / (c1 - c0))
+        cpu_lc.append(c1 - c0)
+
+    # memory above the input, in a separate traced run
+    del res, frame
+    tracemalloc.start()
+    base = tracemalloc.get_traced_memory()[0]
+    tracemalloc.reset_peak()
+    out = lincomb_all()
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    del out
+    extra = peak - base
+
+    med_lc = statistics.median(times["lincomb"])
+    med_sm = statistics.median(times["statsmodels_subset"]) / subset * R
+    return {
+        "n": N,
+        "p": P,
+        "responses": R,
+        "statsmodels_subset": subset,
+        "repeats": repeats,
+        "lincomb_s": med_lc,
+        "statsmodels_extrapolated_s": med_sm,
+        "statsmodels_per_response_ms": med_sm / R * 1e3,
+        "ratio_statsmodels_over_lincomb": statistics.median(ratios),
+        "lincomb_cpu_s": statistics.median(cpu_lc),
+        "ratio_cpu_time": statistics.median(cpu_ratios),
+        "target_ratio": 150.0,
+        "peak_extra_bytes": int(extra),
+        "response_bytes": int(y.nbytes),
+        "peak_extra_over_responses": extra / y.nbytes,
+        "target_memory": 1.2,
+        "max_rel_diff_F_vs_statsmodels": f_rel,
+        "max_rel_diff_p_vs_statsmodels": p_rel,
+        "blas": blas_info(),
+        "python": sys.version.split()[0],
+        "machine": platform.machine(),
+        "cpus": os.cpu_count(),
+        "load_average": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
+    }
+
+
+def report(res: dict[str, Any]) -> str:
+    lines = [
+        f"many responses: n = {res['n']}, p = {res['p']}, r = {res['responses']},"
+        f" one 2-row system; {res['repeats']} interleaved repeats (medians)",
+        f"  lincomb fit_many_arrays + wald + to_frame : {res['lincomb_s'] * 1e3:9.1f} ms",
+        f"  statsmodels OLS + f_test loop (extrapolated from {res['statsmodels_subset']}"
+        f" responses): {res['statsmodels_extrapolated_s']:8.2f} s"
+        f" ({res['statsmodels_per_response_ms']:.3f} ms per response)",
+        f"  ratio statsmodels / lincomb: {res['ratio_statsmodels_over_lincomb']:.0f}x wall time"
+        f" (target >= {res['target_ratio']:.0f}x); {res['ratio_cpu_time']:.0f}x in CPU time"
+        f" (lincomb {res['lincomb_cpu_s'] * 1e3:.1f} ms CPU)",
+        f"  peak memory above the input: {res['peak_extra_bytes'] / 2**20:.1f} MiB ="
+        f" {res['peak_extra_over_responses']:.2f} x the response matrix"
+        f" ({res['response_bytes'] / 2**20:.1f} MiB; target <= {res['target_memory']})",
+        f"  F vs statsmodels: max relative difference {res['max_rel_diff_F_vs_statsmodels']:.2e}"
+        f" (p: {res['max_rel_diff_p_vs_statsmodels']:.2e})",
+        f"  load average at the end: {res['load_average']}",
+        "BLAS (threadpoolctl): "
+        + "; ".join(
+            f"{b['internal_api']} {b['version']} {b['num_threads']} threads ({b['prefix']})"
+            for b in res["blas"]
+        ),
+    ]
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--json", action="store_true", help="also print one JSON object last")
+    ap.add_argument("--threads", type=int, default=None, help="BLAS threads (threadpoolctl)")
+    ap.add_argument("--repeats", type=int, default=5)
+    ap.add_argument("--subset", type=int, default=300, help="responses in the statsmodels loop")
+    args = ap.parse_args(argv)
+    import scipy.linalg  # noqa: F401 - load scipy's BLAS so threadpoolctl sees it
+    import statsmodels.api  # noqa: F401
+    from threadpoolctl import threadpool_limits
+
+    ctx = threadpool_limits(args.threads) if args.threads else contextlib.nullcontext()
+    with ctx:
+        res = run(args.repeats, args.subset)
+    print(report(res))
+    if args.json:
+        print(json.dumps(res, sort_keys=True))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

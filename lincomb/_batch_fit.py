@@ -1,0 +1,276 @@
+"""The fit-level side of :meth:`LinearFit.wald_batch`: inputs, names, errors, references.
+
+:mod:`lincomb.batch` does the arithmetic on arrays; this module turns what the user gives
+(a ``(k, m, p)`` array, or a sequence of restriction systems) into those arrays, names the
+offending system and row when something is wrong, and attaches the reference distribution.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import special
+
+from . import covariance as covmod
+from .batch import BatchCore, wald_systems
+from .errors import (
+    EmptyRestrictionError,
+    InconsistentRestrictionError,
+    InputError,
+    LincombError,
+    NotEstimableError,
+    RestrictionShapeError,
+    SingularCovarianceError,
+)
+from .linalg import ROW_TOL
+from .restriction import Expr, RestrictionSystem, TermRef, _Item
+from .results import WaldBatch
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .fit import LinearFit
+
+#: How many offending systems an error message lists before it says "and N more".
+_SHOWN = 3
+
+_ON_INVALID = ("raise", "nan")
+
+
+def _is_restriction(obj: object) -> bool:
+    if isinstance(obj, (list, tuple)):
+        return bool(obj) and _is_restriction(obj[0])
+    return isinstance(obj, (RestrictionSystem, _Item, Expr, TermRef))
+
+
+def _from_restrictions(
+    fit: LinearFit, items: Sequence[object]
+) -> tuple[NDArray[np.float64], NDArray[np.float64], tuple[tuple[str, ...], ...]]:
+    cs, ds, labels = [], [], []
+    for i, obj in enumerate(items):
+        try:
+            c, d, lab = fit.resolve(obj)
+        except LincombError as exc:
+            raise type(exc)(f"system {i}: {exc}") from exc
+        if cs and c.shape[0] != cs[0].shape[0]:
+            raise RestrictionShapeError(
+                f"system {i} has {c.shape[0]} rows but system 0 has {cs[0].shape[0]}: a batch"
+                " holds systems of one size. Group the systems by their number of rows and"
+                " call wald_batch once per group."
+            )
+        cs.append(c)
+        ds.append(d)
+        labels.append(tuple(lab))
+    return np.stack(cs), np.stack(ds), tuple(labels)
+
+
+def _from_arrays(
+    names: Sequence[str], c: object, d: ArrayLike | None
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    p = len(names)
+    try:
+        arr = np.array(c, dtype=np.float64, copy=True)
+    except (TypeError, ValueError):
+        raise RestrictionShapeError(
+            "C must be a numeric (systems, rows, coefficients) array or a sequence of"
+            " restriction systems."
+        ) from None
+    if arr.ndim != 3:
+        raise RestrictionShapeError(
+            f"C must have shape (systems, rows, {p}), got {arr.shape}; for one system use"
+            " wald(), or add a leading axis (C[None])."
+        )
+    k, m, pc = arr.shape
+    if k == 0 or m == 0:
+        raise EmptyRestrictionError(f"C of shape {arr.shape} holds no restriction rows.")
+    if pc != p:
+        raise RestrictionShapeError(
+            f"C has {pc} columns but the fit has {p} coefficients {list(names)}; give one column"
+            " per coefficient, in fit order."
+        )
+    if not np.isfinite(arr).all():
+        s, i, j = (int(v) for v in np.argwhere(~np.isfinite(arr))[0])
+        raise RestrictionShapeError(
+            f"C holds {float(arr[s, i, j])!r} at system {s}, row {i}, column {j} ({names[j]});"
+            " C must be finite."
+        )
+    nonzero = arr.any(axis=2)
+    if not nonzero.all():
+        zero = np.argwhere(~nonzero)
+        s, i = (int(v) for v in zero[0])
+        raise EmptyRestrictionError(
+            f"row {i} of system {s} is all zeros ({zero.shape[0]} such rows in all); every row"
+            " must involve a coefficient, so drop it."
+        )
+    if d is None:
+        dv = np.zeros((k, m))
+    else:
+        try:
+            dv = np.array(np.broadcast_to(np.asarray(d, dtype=np.float64), (k, m)))
+        except (TypeError, ValueError):
+            raise RestrictionShapeError(
+                f"d has shape {np.shape(d)}; give a scalar, one value per row ({m},) or one per"
+                f" system and row ({k}, {m})."
+            ) from None
+        if not np.isfinite(dv).all():
+            s, i = (int(v) for v in np.argwhere(~np.isfinite(dv))[0])
+            raise RestrictionShapeError(
+                f"d holds {float(dv[s, i])!r} at system {s}, row {i}; d must be finite."
+            )
+    return arr, dv
+
+
+def _more(n: int) -> str:
+    return f" (and {n - _SHOWN} more system(s))" if n > _SHOWN else ""
+
+
+def _raise_invalid(
+    fit: LinearFit, core: BatchCore, res: WaldBatch, estimate: covmod.CovarianceEstimate
+) -> None:
+    """Raise the single-system test's typed error, naming the system(s) and row(s)."""
+    fix = " Or pass on_invalid='nan' to get the other systems' tests with these marked."
+    if core.inconsistent:
+        parts = []
+        for s, bad in list(core.inconsistent.items())[:_SHOWN]:
+            labels = res.row_labels(s)
+            for row, dval, implied in bad:
+                dep = core.dependencies[s][row]
+                combo = " + ".join(f"{w:.6g}·(row {j}: {labels[j]})" for j, w in dep.items())
+                parts.append(
+                    f"system {res.systems[s]!r}, row {row} ({labels[row]}) equals {combo or '0'},"
+                    f" which implies d = {implied:.6g}, but its d is {dval:.6g}"
+                )
+        raise InconsistentRestrictionError(
+            "the restrictions contradict each other: "
+            + "; ".join(parts)
+            + _more(len(core.inconsistent))
+            + ". Remove one of the conflicting rows or correct its value."
+            + fix
+        )
+    if core.not_estimable:
+        sol = fit._sol
+        cu = sol.to_working(res.matrix)
+        parts = []
+        for s, rows in list(core.not_estimable.items())[:_SHOWN]:
+            labels = res.row_labels(s)
+            for i in rows.tolist():
+                touched = [fit.names[j] for j in sol.aliased_touched(cu[s, i], ROW_TOL)]
+                parts.append(
+                    f"system {res.systems[s]!r}, row {i} ({labels[i]}) involves aliased"
+                    f" coefficients {touched}"
+                )
+        raise NotEstimableError(
+            "restriction not estimable under this rank-deficient design: "
+            + "; ".join(parts)
+            + _more(len(core.not_estimable))
+            + f". Aliased columns: {list(fit.aliased)}. Restate the row as a contrast that the"
+            " data identify, or remove the aliasing from the design." + fix
+        )
+    if core.singular:
+        parts = []
+        for s, (row, rank) in list(core.singular.items())[:_SHOWN]:
+            labels = res.row_labels(s)
+            parts.append(
+                f"system {res.systems[s]!r}: row {row} ({labels[row]}) adds no variance outside"
+                f" the rows before it (covariance rank {rank} of {int(core.rank[s])})"
+            )
+        why = ""
+        if estimate.groups:
+            why = (
+                ". A cluster-robust covariance has rank at most G − 1 ="
+                f" {min(estimate.groups) - 1} (the scores of the clusters sum to zero)"
+            )
+        raise SingularCovarianceError(
+            f"under the {estimate.label} covariance the independent rows have a singular"
+            " covariance: "
+            + "; ".join(parts)
+            + _more(len(core.singular))
+            + why
+            + ". Test fewer rows at once, or choose an estimator with more information"
+            " (more clusters, another estimator)." + fix
+        )
+
+
+def wald_batch(
+    fit: LinearFit,
+    c: ArrayLike | Sequence[object],
+    d: ArrayLike | None = None,
+    *,
+    ids: Sequence[Any] | None = None,
+    covariance: object = None,
+    reference: str = "F",
+    on_invalid: str = "raise",
+) -> WaldBatch:
+    """See :meth:`lincomb.fit.LinearFit.wald_batch`."""
+    if on_invalid not in _ON_INVALID:
+        raise InputError(
+            f"on_invalid must be 'raise' (stop at an invalid system) or 'nan' (mark it and test"
+            f" the others), got {on_invalid!r}."
+        )
+    vcov = fit._covariance_estimate(covariance)
+    ref = covmod.check_reference(reference)
+    labels = None
+    if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
+        items = list(c)  # type: ignore[arg-type]
+        if items and _is_restriction(items[0]):
+            if d is not None:
+                raise RestrictionShapeError(
+                    "d comes with the restrictions themselves (the right-hand side of '=='):"
+                    " pass d only with an array C."
+                )
+            cs, ds, labels = _from_restrictions(fit, items)
+        else:
+            cs, ds = _from_arrays(fit.names, items, d)
+    else:
+        cs, ds = _from_arrays(fit.names, c, d)
+    k, m, _ = cs.shape
+    systems = tuple(range(k)) if ids is None else tuple(ids)
+    if len(systems) != k:
+        raise InputError(f"{len(systems)} ids given for {k} systems; give one id per system.")
+
+    if vcov.method == "classical":  # the core's own BLAS-free root, σ R⁻ᵀ Cᵀ
+        core = wald_systems(fit._sol, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
+    else:
+        core = wald_systems(
+            fit._sol, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
+        )
+    status = np.where(core.rank < m, "redundant", "independent").astype(object)
+    for s in core.singular:
+        status[s] = "singular covariance"
+    for s in core.not_estimable:
+        status[s] = "not estimable"
+    for s in core.inconsistent:
+        status[s] = "inconsistent"
+    q = core.rank
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if ref == "F":
+            stat = np.where(q > 0, core.quad / np.maximum(q, 1), np.nan)
+            df_den = float(vcov.df_den)
+            p_value = special.fdtrc(q, df_den, stat)  # the function behind stats.f.sf
+        else:
+            stat = np.where(q > 0, core.quad, np.nan)
+            df_den = float("inf")
+            p_value = special.chdtrc(q, stat)  # the function behind stats.chi2.sf
+    res = WaldBatch(
+        systems=systems,
+        estimate=core.estimate,
+        target=ds,
+        std_error=core.std_error,
+        t=core.statistic_rows,
+        statistic=stat,
+        df_num=q,
+        df_den=df_den,
+        p_value=p_value,
+        status=tuple(status.tolist()),
+        redundant=core.dependencies,
+        names=tuple(fit.names),
+        matrix=cs,
+        labels=labels,
+        distribution=ref,
+        covariance=vcov.label,
+        _index=fit.index,
+    )
+    if on_invalid == "raise":
+        _raise_invalid(fit, core, res, vcov)
+    return res

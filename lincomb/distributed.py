@@ -1,0 +1,616 @@
+"""Fits from Dask collections: the cluster passes over the data, the client holds p×p summaries.
+
+Needs the optional extra ``lincomb[dask]`` (dask with its DataFrame support, and threadpoolctl).
+
+:func:`fit_dask` fits a formula to a Dask DataFrame and :func:`fit_dask_arrays` fits Dask arrays
+``X``, ``y``.  Every partition (block of rows) is reduced to :class:`lincomb.linalg.Moments` by
+a task on the workers; the moments are merged by a tree reduction of small QRs
+(:func:`lincomb.linalg.merge_moments`, ``split_every`` at a time).  Only the triangular factors
+travel: ``dask.array.linalg.tsqr`` would form every block's ``Q`` as well, which a test needs
+nowhere.  The result is the same :class:`~lincomb.fit.LinearFit` as an in-memory fit of the
+computed data (equal to rounding).
+
+Encoding
+--------
+The formula's encoding is fixed before any partition is read, because a model spec built from
+a Dask DataFrame's metadata (an empty frame) silently leaves out every factor of string dtype
+(it sees no level).  So the levels of every categorical variable (string, categorical or bool
+columns, and numeric columns wrapped in ``C()``) are taken, in this order, from ``levels=``,
+from a categorical dtype with known categories, or else computed over the rows without missing
+values, in one extra pass (all such columns at once; sorted as pandas sorts categories, which is
+what an in-memory fit does).  The spec is then built on the metadata with those levels, and a
+partition holding another level raises :class:`~lincomb.errors.UnseenLevelError`.  The response
+and the design are always encoded together by the two-sided spec, so a row dropped for a missing
+value leaves both (a right-hand-side-only spec would drop it from ``X`` alone).
+
+Threads
+-------
+Each task limits BLAS to ``blas_threads`` threads (default 1) with threadpoolctl: Dask already
+runs one task per core, and nested BLAS threads oversubscribe the cores.
+
+Covariances that need the rows
+------------------------------
+HC0-HC4 and cluster-robust covariances take the data again: :func:`covariance_pass` is a second
+distributed pass returning an estimate to give as ``covariance=`` to the fit's tests.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import linalg
+from .chunked import FrameEncoder, _cast_levels, _formula_variables
+from .design import CoefficientIndex, design_from_arrays
+from .errors import IncompatibleFitError, InputError, OptionalDependencyError
+from .fit import LinearFit
+from .pooled import SummaryDesign, fit_from_moments
+
+__all__ = ["fit_dask", "fit_dask_arrays", "covariance_pass", "DEFAULT_SPLIT_EVERY"]
+
+#: How many partition summaries one reduction task merges.
+DEFAULT_SPLIT_EVERY: int = 8
+
+_HINT = (
+    "For HC0-HC4 or cluster-robust covariances make a second pass over the data with"
+    " lincomb.distributed.covariance_pass(fit, data, 'HC3') and give the estimate it returns as"
+    " covariance= to the test."
+)
+
+
+def _require_dask() -> Any:
+    try:
+        import dask
+        import dask.array  # noqa: F401
+        import dask.dataframe  # noqa: F401
+        import threadpoolctl  # noqa: F401
+    except ImportError as exc:
+        raise OptionalDependencyError(
+            f"fits from Dask collections need the optional extra: {exc}. Install it with"
+            " pip install 'lincomb[dask]'."
+        ) from None
+    return dask
+
+
+class _Limited:
+    """Run a function with BLAS limited to a number of threads (None: no limit)."""
+
+    def __init__(self, threads: int | None) -> None:
+        self.threads = threads
+
+    def __enter__(self) -> None:
+        self._ctx = None
+        if self.threads is not None:
+            from threadpoolctl import threadpool_limits
+
+            self._ctx = threadpool_limits(limits=self.threads, user_api="blas")
+            self._ctx.__enter__()
+
+    def __exit__(self, *exc: object) -> None:
+        if self._ctx is not None:
+            self._ctx.__exit__(*exc)
+
+
+@dataclass(frozen=True)
+class _Part:
+    """A partition's (or a merged group's) contribution."""
+
+    moments: linalg.Moments | None
+    dropped: tuple[pd.Index, ...]
+    rows: int
+    ones: np.ndarray | None = None  # arrays: which columns were all ones
+
+
+def _merge_parts(*parts: _Part) -> _Part:
+    live = [p.moments for p in parts if p.moments is not None]
+    merged = None
+    if live:
+        merged = live[0]
+        for m in live[1:]:
+            merged = linalg.merge_moments(merged, m)
+    ones = None
+    if parts and parts[0].ones is not None:
+        ones = np.logical_and.reduce([p.ones for p in parts if p.ones is not None])
+    return _Part(
+        moments=merged,
+        dropped=tuple(d for p in parts for d in p.dropped),
+        rows=sum(p.rows for p in parts),
+        ones=ones,
+    )
+
+
+def _tree(dask: Any, leaves: list[Any], merge: Any, split_every: int) -> Any:
+    level = leaves
+    while len(level) > 1:
+        level = [
+            dask.delayed(merge, pure=True)(*level[i : i + split_every])
+            for i in range(0, len(level), split_every)
+        ]
+    return level[0]
+
+
+def _check_split(split_every: int) -> None:
+    if (
+        isinstance(split_every, bool)
+        or not isinstance(split_every, (int, np.integer))
+        or split_every < 2
+    ):
+        raise InputError(f"split_every must be a whole number >= 2, got {split_every!r}.")
+
+
+def _check_threads(blas_threads: int | None) -> None:
+    if blas_threads is None:
+        return
+    if (
+        isinstance(blas_threads, bool)
+        or not isinstance(blas_threads, (int, np.integer))
+        or blas_threads < 1
+    ):
+        raise InputError(
+            f"blas_threads must be a positive whole number or None, got {blas_threads!r}."
+        )
+
+
+# -- DataFrames --------------------------------------------------------------------------------
+
+
+def _frame_part(frame: pd.DataFrame, encoder: FrameEncoder, k: int, threads: int | None) -> _Part:
+    where = f"partition {k}"
+    with _Limited(threads):
+        enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
+        m = None
+        if enc.x.shape[0]:
+            m = linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept)
+    return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
+
+
+def _categorical_variables(
+    formula: str, meta: pd.DataFrame, declared: Mapping[str, Any]
+) -> list[str]:
+    """Data columns that feed a categorical factor of the formula."""
+    import warnings
+
+    import formulaic
+
+    variables = _formula_variables(formula, meta)
+    found = {
+        v
+        for v in variables
+        if isinstance(meta[v].dtype, pd.CategoricalDtype)
+        or pd.api.types.is_string_dtype(meta[v].dtype)
+        or pd.api.types.is_object_dtype(meta[v].dtype)
+        or pd.api.types.is_bool_dtype(meta[v].dtype)
+    }
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            spec = formulaic.model_matrix(
+                formula, _cast_levels(meta, declared, "metadata")
+            ).model_spec
+        for factor in spec.rhs.factor_contrasts:
+            found |= {
+                str(v) for v in spec.rhs.factor_variables.get(factor, ()) if v in meta.columns
+            }
+    except Exception as exc:  # noqa: BLE001 - reported with the formula below
+        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+    return sorted(found)
+
+
+def _levels_of(
+    data: Any,
+    formula: str,
+    weights: str | None,
+    declared: Mapping[str, Sequence[Any]],
+    dask: Any,
+    scheduler: Any,
+) -> dict[str, list[Any]]:
+    meta = data._meta
+    cats = _categorical_variables(formula, meta, declared)
+    out = {k: list(v) for k, v in declared.items()}
+    todo = []
+    for v in cats:
+        if v in out:
+            continue
+        dtype = meta[v].dtype
+        if isinstance(dtype, pd.CategoricalDtype) and data[v].cat.known:
+            out[v] = list(dtype.categories)
+        else:
+            todo.append(v)
+    if todo:
+        used = _formula_variables(formula, meta) + ([weights] if weights else [])
+        clean = data[used].dropna()
+        found = dask.compute(*[clean[v].drop_duplicates() for v in todo], scheduler=scheduler)
+        for v, values in zip(todo, found, strict=True):
+            cats_sorted = pd.Series(np.asarray(values.to_numpy(), dtype=object)).astype("category")
+            out[v] = list(cats_sorted.cat.categories)
+    return out
+
+
+def fit_dask(
+    formula: str,
+    data: Any,
+    *,
+    weights: str | None = None,
+    levels: Mapping[str, Sequence[Any]] | None = None,
+    missing: str = "drop",
+    rank_tol: float = linalg.RANK_TOL,
+    split_every: int = DEFAULT_SPLIT_EVERY,
+    blas_threads: int | None = 1,
+    scheduler: Any = None,
+) -> LinearFit:
+    """Fit a formula to a Dask DataFrame with a tree reduction of per-partition moments.
+
+    Parameters
+    ----------
+    formula : str
+        Two-sided Wilkinson formula, as for :func:`~lincomb.fit`.
+    data : dask.dataframe.DataFrame
+        Not modified.
+    weights : str, optional
+        Name of a column of positive weights (WLS).
+    levels : mapping, optional
+        ``{column: [levels...]}``: complete, ordered levels of categorical variables.  Others
+        come from a known categorical dtype or are computed in one extra pass (see the module
+        notes).
+    missing : {'drop', 'raise'}, default 'drop'
+        Rows with missing values in the formula's variables or the weights are dropped (and
+        counted), or raise :class:`~lincomb.errors.MissingValueError`.
+    rank_tol : float, default 1e-10
+    split_every : int, default 8
+        Partition summaries merged per reduction task.
+    blas_threads : int or None, default 1
+        BLAS threads per task (threadpoolctl); ``None`` leaves BLAS alone.
+    scheduler : optional
+        Passed to ``dask.compute`` (``"threads"``, ``"processes"``, ``"sync"``, a distributed
+        client...); default Dask's.
+
+    Returns
+    -------
+    LinearFit
+        Equal to rounding to ``lc.fit(formula, data.compute())``; it keeps no rows (see
+        :func:`covariance_pass` for robust covariances).
+
+    Examples
+    --------
+    >>> import dask.dataframe as dd, lincomb as lc
+    >>> sites = lc.datasets.service_sites()
+    >>> f = fit_dask("wait_min ~ staffing + protocol", dd.from_pandas(sites, npartitions=4),
+    ...              scheduler="sync")
+    >>> g = lc.fit("wait_min ~ staffing + protocol", sites)
+    >>> bool(abs(f.wald(lc.coef("staffing") == 0).statistic
+    ...          - g.wald(lc.coef("staffing") == 0).statistic) < 1e-8 * 170)
+    True
+    """
+    dask = _require_dask()
+    import dask.dataframe as dd
+
+    FrameEncoder.check_options(formula, weights, missing)
+    _check_split(split_every)
+    _check_threads(blas_threads)
+    if isinstance(data, pd.DataFrame):
+        raise InputError("data is a pandas DataFrame: use lc.fit for data in memory.")
+    if not isinstance(data, dd.DataFrame):
+        raise InputError(f"data must be a Dask DataFrame, got {type(data).__name__}.")
+    all_levels = _levels_of(data, formula, weights, dict(levels or {}), dask, scheduler)
+    encoder = FrameEncoder.from_sample(
+        formula,
+        data._meta,
+        levels=all_levels,
+        weights=weights,
+        missing=missing,
+        where="the data's metadata",
+    )
+    enc_d = dask.delayed(encoder, pure=True)
+    leaves = [
+        dask.delayed(_frame_part, pure=True)(part, enc_d, k, blas_threads)
+        for k, part in enumerate(data.to_delayed())
+    ]
+    (total,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
+    if total.moments is None:
+        raise InputError(
+            f"no rows to fit: the {data.npartitions} partitions held {total.rows} rows, all with"
+            " missing values."
+        )
+    dropped = (
+        pd.Index([]) if not total.dropped else total.dropped[0].append(list(total.dropped[1:]))
+    )
+    design = SummaryDesign(
+        index=encoder.index,
+        intercept=encoder.intercept,
+        response=encoder.response,
+        dropped=dropped,
+        weighted=weights is not None,
+        origin=f"{data.npartitions} Dask partitions",
+        spec=encoder.specs,
+        formula=formula,
+        hint=_HINT,
+        encoder=encoder,
+    )
+    return fit_from_moments(design, total.moments, rank_tol)
+
+
+# -- arrays ------------------------------------------------------------------------------------
+
+
+class _ArraySpec:
+    def __init__(self, names: tuple[str, ...], intercept: int | None) -> None:
+        self.names = names
+        self.intercept = intercept
+
+
+def _array_moments(
+    x: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray | None,
+    spec: _ArraySpec,
+    k: int,
+    threads: int | None,
+) -> _Part:
+    try:
+        d = design_from_arrays(
+            x, np.reshape(y, -1), names=spec.names, weights=None if w is None else np.reshape(w, -1)
+        )
+    except InputError as exc:
+        raise type(exc)(f"block {k}: {exc}") from None
+    ones = np.all(d.x == 1.0, axis=0) if d.x.shape[0] else np.ones(d.x.shape[1], dtype=bool)
+    j = spec.intercept
+    if j is not None and not ones[j]:
+        return _Part(None, (), d.x.shape[0], ones)  # the intercept guess fails: redo (see below)
+    with _Limited(threads):
+        m = linalg.moments_from_arrays(d.x, d.y, d.weights, j) if d.x.shape[0] else None
+    return _Part(m, (), d.x.shape[0], ones)
+
+
+def _first_ones(x0: np.ndarray) -> int | None:
+    x0 = np.asarray(x0, dtype=np.float64)
+    if x0.shape[0] == 0:
+        return None
+    hits = np.flatnonzero(np.all(x0 == 1.0, axis=0))
+    return int(hits[0]) if hits.size else None
+
+
+def _blocks(x: Any, y: Any, w: Any) -> tuple[list[Any], list[Any], list[Any] | None, int]:
+    import dask.array as da
+
+    for name, a in (("x", x), ("y", y), ("weights", w)):
+        if a is None:
+            continue
+        if not isinstance(a, da.Array):
+            raise InputError(
+                f"{name} must be a Dask array, got {type(a).__name__}; use lc.fit_arrays for"
+                " arrays in memory."
+            )
+    if x.ndim != 2:
+        raise InputError(f"x must be 2-dimensional, got {x.ndim} dimensions.")
+    if any(np.isnan(c) for c in x.chunks[0]):
+        raise InputError(
+            "x has unknown chunk sizes; call x.compute_chunk_sizes() (or build it with known"
+            " chunks) first."
+        )
+    n, p = x.shape
+    for name, a in (("y", y), ("weights", w)):
+        if a is None:
+            continue
+        if a.ndim == 2 and a.shape[1] == 1:
+            a = a[:, 0]
+        if a.ndim != 1 or a.shape[0] != n:
+            raise InputError(f"{name} must have shape ({n},), got {a.shape}.")
+    x = x.rechunk({1: -1})
+    yb = y.reshape(-1).rechunk((x.chunks[0],))
+    xs = list(x.to_delayed()[:, 0])
+    ys = list(yb.to_delayed())
+    ws = None
+    if w is not None:
+        ws = list(w.reshape(-1).rechunk((x.chunks[0],)).to_delayed())
+    return xs, ys, ws, p
+
+
+def fit_dask_arrays(
+    x: Any,
+    y: Any,
+    *,
+    names: Sequence[str] | None = None,
+    weights: Any = None,
+    rank_tol: float = linalg.RANK_TOL,
+    split_every: int = DEFAULT_SPLIT_EVERY,
+    blas_threads: int | None = 1,
+    scheduler: Any = None,
+) -> LinearFit:
+    """Fit ``y`` on ``X`` given as Dask arrays, with a tree reduction of per-block moments.
+
+    Parameters
+    ----------
+    x : dask.array.Array, shape (n, p)
+        Design (chunked by rows; columns are gathered into one chunk).  Must be finite.
+    y : dask.array.Array, shape (n,)
+    names : sequence of str, optional
+    weights : dask.array.Array, shape (n,), optional
+    rank_tol, split_every, blas_threads, scheduler
+        As for :func:`fit_dask`.
+
+    Returns
+    -------
+    LinearFit
+        Equal to rounding to ``lc.fit_arrays(x.compute(), y.compute())``.  As there, a column
+        of ones is the intercept: it is guessed from the first block and confirmed by every
+        block (if a later block disproves it, the moments are computed again without it).
+
+    Examples
+    --------
+    >>> import numpy as np, dask.array as da, lincomb as lc
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(600), rng.normal(size=(600, 2))]); y = rng.normal(size=600)
+    >>> f = fit_dask_arrays(da.from_array(x, chunks=(128, 3)), da.from_array(y, chunks=128),
+    ...                     scheduler="sync")
+    >>> bool(np.allclose(f.coefficients, lc.fit_arrays(x, y).coefficients, rtol=1e-10))
+    True
+    """
+    dask = _require_dask()
+    _check_split(split_every)
+    _check_threads(blas_threads)
+    xs, ys, ws, p = _blocks(x, y, weights)
+    if names is None:
+        names = [f"x{j}" for j in range(p)]
+    names_t = tuple(str(s) for s in names)
+    if len(names_t) != p or len(set(names_t)) != p:
+        raise InputError(f"names must be {p} unique strings, got {list(names_t)}.")
+    (guess,) = dask.compute(dask.delayed(_first_ones)(xs[0]), scheduler=scheduler)
+
+    def run(intercept: int | None) -> _Part:
+        spec_d = dask.delayed(_ArraySpec(names_t, intercept), pure=True)
+        leaves = [
+            dask.delayed(_array_moments, pure=True)(
+                xk, yk, None if ws is None else ws[k], spec_d, k, blas_threads
+            )
+            for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
+        ]
+        (tot,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
+        return tot
+
+    total = run(guess)
+    true_ones = np.flatnonzero(total.ones) if total.ones is not None else np.zeros(0)
+    truth = int(true_ones[0]) if true_ones.size else None
+    if truth != guess:  # rare: a column of ones in the first block only
+        total = run(truth)
+    if total.moments is None:
+        raise InputError("no rows to fit: the arrays are empty.")
+    design = SummaryDesign(
+        index=CoefficientIndex(
+            names=names_t,
+            terms={s: (j,) for j, s in enumerate(names_t)},
+            levels=tuple(() for _ in names_t),
+            factors={},
+        ),
+        intercept=truth,
+        response="y",
+        dropped=pd.Index([]),
+        weighted=weights is not None,
+        origin=f"{len(xs)} Dask array blocks",
+        hint=_HINT,
+        encoder=_ArraySpec(names_t, truth),
+    )
+    return fit_from_moments(design, total.moments, rank_tol)
+
+
+# -- second pass -------------------------------------------------------------------------------
+
+
+def _frame_rows(
+    frame: pd.DataFrame, encoder: FrameEncoder, rp: Any, k: int, threads: int | None
+) -> Any:
+    where = f"partition {k}"
+    with _Limited(threads):
+        enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where, keep_frame=True)
+        if not enc.x.shape[0]:
+            return None
+        return rp.block(enc.x, enc.y, enc.w, enc.frame, where)
+
+
+def _array_rows(
+    x: np.ndarray, y: np.ndarray, w: np.ndarray | None, rp: Any, k: int, threads: int | None
+) -> Any:
+    with _Limited(threads):
+        x = np.asarray(x, dtype=np.float64)
+        if not x.shape[0]:
+            return None
+        return rp.block(
+            x,
+            np.reshape(np.asarray(y, dtype=np.float64), -1),
+            None if w is None else np.reshape(np.asarray(w, dtype=np.float64), -1),
+            None,
+            f"block {k}",
+        )
+
+
+def _merge_rows(rp: Any, *parts: Any) -> Any:
+    live = [p for p in parts if p is not None]
+    if not live:
+        return None
+    acc = live[0]
+    for p in live[1:]:
+        acc = rp.merge(acc, p)
+    return acc
+
+
+def covariance_pass(
+    fit: LinearFit,
+    data: Any,
+    covariance: object,
+    *,
+    split_every: int = DEFAULT_SPLIT_EVERY,
+    blas_threads: int | None = 1,
+    scheduler: Any = None,
+) -> Any:
+    """Evaluate a row-based covariance estimator on a Dask fit with a second distributed pass.
+
+    Parameters
+    ----------
+    fit : LinearFit
+        Made by :func:`fit_dask` or :func:`fit_dask_arrays`.
+    data : dask.dataframe.DataFrame or tuple of dask arrays
+        The same data again (``(x, y)`` or ``(x, y, weights)`` for an array fit).
+    covariance : str or estimator
+        ``"HC0"`` ... ``"HC4"``, or :func:`~lincomb.clustered` with column name(s) of ``data``.
+    split_every, blas_threads, scheduler
+        As for :func:`fit_dask`.
+
+    Returns
+    -------
+    lincomb.covariance.CovarianceEstimate
+        Give it as ``covariance=`` to the fit's tests, or attach it with
+        :meth:`~lincomb.fit.LinearFit.with_covariance`.
+
+    Examples
+    --------
+    >>> import dask.dataframe as dd, lincomb as lc
+    >>> sites = dd.from_pandas(lc.datasets.service_sites(), npartitions=3)
+    >>> f = fit_dask("wait_min ~ staffing", sites, scheduler="sync")
+    >>> est = covariance_pass(f, sites, "HC3", scheduler="sync")
+    >>> f.wald(lc.coef("staffing") == 0, covariance=est).covariance
+    'HC3'
+    """
+    dask = _require_dask()
+    from ._robust_pass import RowPass
+
+    _check_split(split_every)
+    _check_threads(blas_threads)
+    encoder = getattr(fit._design, "encoder", None)
+    rp = RowPass(fit, covariance)
+    rp_d = dask.delayed(rp, pure=True)
+    if isinstance(encoder, FrameEncoder):
+        import dask.dataframe as dd
+
+        if not isinstance(data, dd.DataFrame):
+            raise InputError("this fit came from a Dask DataFrame: pass that DataFrame again.")
+        enc_d = dask.delayed(encoder, pure=True)
+        leaves = [
+            dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, blas_threads)
+            for k, part in enumerate(data.to_delayed())
+        ]
+    elif isinstance(encoder, _ArraySpec):
+        if not isinstance(data, tuple) or len(data) not in (2, 3):
+            raise InputError("this fit came from Dask arrays: pass (x, y) or (x, y, weights).")
+        xs, ys, ws, p = _blocks(data[0], data[1], data[2] if len(data) == 3 else None)
+        if p != len(fit.names):
+            raise IncompatibleFitError(f"x has {p} columns but the fit has {len(fit.names)}.")
+        leaves = [
+            dask.delayed(_array_rows, pure=True)(
+                xk, yk, None if ws is None else ws[k], rp_d, k, blas_threads
+            )
+            for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
+        ]
+    else:
+        raise InputError(
+            "covariance_pass needs a fit made by fit_dask or fit_dask_arrays; for an in-memory"
+            " fit pass covariance= to its tests directly."
+        )
+
+    def merge(*parts: Any) -> Any:
+        return _merge_rows(rp, *parts)
+
+    (total,) = dask.compute(_tree(dask, leaves, merge, split_every), scheduler=scheduler)
+    return rp.finish(total)

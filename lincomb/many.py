@@ -1,0 +1,1249 @@
+"""Many responses, one design: factorize once, test every response at once.
+
+Screening studies fit one design to thousands of outcomes (assays, sensors, products).
+:func:`fit_many` (formula) and :func:`fit_many_arrays` (arrays) factor the design once (QR with
+its thin ``Q`` kept, :func:`lincomb.linalg.factor_design`) and project every response onto it
+by matrix products, in blocks of columns so that the work memory is a small fraction of the
+response matrix (:data:`BLOCK_BYTES` per block).  A restriction system is then tested on every
+response with one triangular solve (:meth:`ManyFit.wald`); :meth:`ManyFit.screen` runs several
+systems and returns one tidy frame with a row per response × test (or per response × test ×
+row) and p-values adjusted across responses for the false discovery rate (Benjamini–Hochberg
+by default, Benjamini–Yekutieli on request, or any method of
+:func:`lincomb.multiplicity.adjust_pvalues`).
+
+Each response's numbers equal those of its own :func:`~lincomb.fit` to rounding, and
+:meth:`ManyFit.fit_of` gives that fit.
+
+Missing values in the responses
+-------------------------------
+Handled exactly, per response: a response with missing values is fitted on the rows where it
+is observed, as its own ``lc.fit`` would with ``missing="drop"``; it never shrinks or shifts
+the design of the other responses.  Responses sharing a pattern of missing values share one
+factorization of the design rows they use.  Each response reports its own ``n_obs`` and
+``df_resid``; the rank of a subset of rows can be lower (aliased columns), a restriction can
+then be not estimable for that response: its test is NaN with status ``"not estimable"``.
+``missing="raise"`` refuses any missing response value instead.  Rows with missing values in
+the *design* variables (or weights) are dropped for every response and counted in
+``n_dropped``, as in a single fit.
+
+Statuses
+--------
+``"ok"``; ``"too few rows"`` (no residual degrees of freedom left); ``"exact fit"`` (the
+residual sum of squares is zero to working precision, e.g. a constant response: no error
+variance, no test); ``"not estimable"`` (a test only: see above).  Tests of such responses are
+NaN and take no part in the false discovery rate adjustment.
+
+Only the classical covariance is offered here: a robust covariance needs each response's
+residuals row by row (use :meth:`ManyFit.fit_of` for one response).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import difflib
+import html
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+from scipy import stats
+
+from . import linalg
+from ._format import _num, _p, _table_html, _table_text
+from .design import Design, design_from_arrays, design_from_formula
+from .errors import (
+    DegenerateFitError,
+    InputError,
+    MissingValueError,
+    NotEstimableError,
+)
+from .fit import ZERO_RSS_TOL, LinearFit
+from .multiplicity import P_METHODS, adjust_pvalues
+from .restriction import as_system
+
+__all__ = [
+    "ManyFit",
+    "ManyWaldTest",
+    "fit_many",
+    "fit_many_arrays",
+    "SCREEN_COLUMNS",
+    "SCREEN_ROW_COLUMNS",
+    "BLOCK_BYTES",
+]
+
+#: Bytes of response values projected at a time (bounds the work memory of a fit; blocks stay
+#: cache-sized).  A block holds at least :data:`MIN_BLOCK_COLUMNS` responses.
+BLOCK_BYTES: int = 2**20
+#: Fewest responses per block, so that very tall designs still use matrix products.
+MIN_BLOCK_COLUMNS: int = 16
+
+#: Columns of :meth:`ManyWaldTest.to_frame` (one row per response).
+SCREEN_COLUMNS = (
+    "response",
+    "restrictions",
+    "rows",
+    "rank",
+    "statistic",
+    "distribution",
+    "df_num",
+    "df_den",
+    "p_value",
+    "p_adjusted",
+    "adjustment",
+    "covariance",
+    "redundant_rows",
+    "n_obs",
+    "status",
+)
+#: Columns of :meth:`ManyWaldTest.row_frame` (one row per response × restriction row).
+SCREEN_ROW_COLUMNS = (
+    "response",
+    "restriction",
+    "estimate",
+    "target",
+    "std_error",
+    "t",
+    "p_value",
+    "p_adjusted",
+    "adjustment",
+    "lower",
+    "upper",
+    "level",
+    "role",
+    "n_obs",
+    "status",
+)
+
+_DUMMY = "__lincomb_response__"
+
+#: Status of a response (and of its test), in code order.
+STATUSES = ("ok", "too few rows", "exact fit", "not estimable")
+_OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
+
+_CONTROLLER: Any = None
+
+
+def _blas_threads(threads: int | None) -> contextlib.AbstractContextManager[Any]:
+    """Limit BLAS to ``threads`` while blocks are projected (needs threadpoolctl; else no-op).
+
+    Each block's products are small: waking BLAS worker threads for each costs more than the
+    product, and on a busy machine it can stall for milliseconds per call.
+    """
+    global _CONTROLLER
+    if threads is None:
+        return contextlib.nullcontext()
+    try:
+        from threadpoolctl import ThreadpoolController
+    except ImportError:
+        return contextlib.nullcontext()
+    if _CONTROLLER is None:
+        _CONTROLLER = ThreadpoolController()
+    return _CONTROLLER.limit(limits=threads, user_api="blas")
+
+
+def _check_threads(threads: int | None) -> None:
+    if threads is None:
+        return
+    if isinstance(threads, bool) or not isinstance(threads, (int, np.integer)) or threads < 1:
+        raise InputError(f"blas_threads must be a positive whole number or None, got {threads!r}.")
+
+
+# -- response sources --------------------------------------------------------------------------
+
+
+class _Responses:
+    """Columns of responses read in blocks, without copying the whole matrix."""
+
+    def __init__(self, names: tuple[str, ...], get: Callable[[Any], Any], n: int) -> None:
+        self.names = names
+        self._get = get
+        self.n = n
+
+    @property
+    def count(self) -> int:
+        return len(self.names)
+
+    def block(self, cols: slice | NDArray[np.intp]) -> NDArray[np.float64]:
+        raw = self._get(cols)
+        try:
+            if isinstance(raw, pd.DataFrame):
+                return raw.to_numpy(dtype=np.float64, na_value=np.nan)
+            return np.asarray(raw, dtype=np.float64)
+        except (TypeError, ValueError):
+            names = np.asarray(self.names, dtype=object)[cols]
+            for j, nm in enumerate(names):
+                try:
+                    frame_col = raw.iloc[:, j] if isinstance(raw, pd.DataFrame) else raw[:, j]
+                    np.asarray(frame_col, dtype=np.float64)
+                except (TypeError, ValueError):
+                    raise InputError(
+                        f"response {nm!r} is not numeric; recode it or leave it out."
+                    ) from None
+            raise  # pragma: no cover
+
+    def column(self, j: int) -> NDArray[np.float64]:
+        return self.block(np.array([j]))[:, 0]
+
+
+def _unique_names(names: Sequence[Any], what: str) -> tuple[str, ...]:
+    out = tuple(map(str, names))
+    if len(set(out)) != len(out):
+        dup = sorted({s for s in out if out.count(s) > 1})[:5]
+        raise InputError(f"{what} must be unique; repeated: {dup}.")
+    return out
+
+
+def _array_source(
+    y: Any, n: int, response_names: Sequence[str] | None, index: pd.Index | None
+) -> _Responses:
+    if isinstance(y, pd.DataFrame):
+        if len(y) != n:
+            raise InputError(f"the responses have {len(y)} rows but the design has {n}.")
+        if index is not None and not y.index.equals(index):
+            raise InputError(
+                "the responses' index differs from the data's; align them (e.g."
+                " responses.reindex(data.index)) or pass the responses as column names of data."
+            )
+        names = _unique_names(
+            y.columns if response_names is None else response_names, "response names"
+        )
+        if len(names) != y.shape[1]:
+            raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")
+        return _Responses(names, lambda c: y.iloc[:, c], n)
+    if isinstance(y, pd.Series):
+        name = str(y.name) if y.name is not None else "y"
+        return _array_source(y.to_frame(name), n, response_names, index)
+    arr = np.asarray(y)
+    if arr.ndim == 1:
+        arr = arr[:, None]
+    if arr.ndim != 2:
+        raise InputError(f"responses must be 2-dimensional (n, r), got shape {arr.shape}.")
+    if arr.shape[0] != n:
+        raise InputError(
+            f"the responses have {arr.shape[0]} rows but the design has {n}; responses are"
+            " columns, one row per observation."
+        )
+    if arr.dtype.kind not in "fiub":
+        raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
+    r = arr.shape[1]
+    if response_names is None:
+        names = tuple(np.char.add("y", np.arange(r).astype(str)).tolist())
+    else:
+        names = _unique_names(response_names, "response names")
+        if len(names) != r:
+            raise InputError(f"{len(names)} response names for {r} responses.")
+    return _Responses(names, lambda c: arr[:, c], n)
+
+
+# -- groups of responses sharing rows ----------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Group:
+    """Responses fitted on the same rows: one factorization, vectorized solutions."""
+
+    columns: NDArray[np.intp]
+    rows: NDArray[np.intp] | None  # positions in the design's rows; None = all
+    n: int
+    fit: LinearFit | None  # the design's own fit (zero response): rank, names, restrictions
+    theta: NDArray[np.float64]
+    rss: NDArray[np.float64]
+    y_norm: NDArray[np.float64]
+
+    @property
+    def sol(self) -> linalg.Solution | None:
+        return None if self.fit is None else self.fit._sol
+
+
+def _design_fit(
+    design: Design, rows: NDArray[np.intp] | None, rank_tol: float
+) -> tuple[linalg.DesignFactor, LinearFit | None]:
+    x = design.x if rows is None else design.x[rows]
+    w = design.weights if rows is None or design.weights is None else design.weights[rows]
+    factor = linalg.factor_design(x, w, design.intercept)
+    try:
+        lf = LinearFit._from_moments(design, factor.moments, rank_tol)
+    except DegenerateFitError:
+        lf = None
+    return factor, lf
+
+
+def _solve_group(
+    factor: linalg.DesignFactor,
+    lf: LinearFit | None,
+    blocks: list[linalg.ResponseBlock],
+    columns: NDArray[np.intp],
+    rows: NDArray[np.intp] | None,
+) -> _Group:
+    q = factor.moments.others.size
+    block = linalg.ResponseBlock.concat(blocks, q)
+    r = columns.size
+    if lf is None:
+        nan = np.full(r, np.nan)
+        return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
+    theta, rss, y_norm = linalg.solve_responses(factor.moments, lf._sol, block)
+    return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
+
+
+def _coefficients(sol: linalg.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+    u = np.zeros((sol.p, theta.shape[1]))
+    u[sol.kept] = theta
+    beta = u / sol.scale[:, None]
+    if sol.intercept is not None:
+        beta[sol.intercept] -= sol.center @ beta
+    beta[sol.aliased] = np.nan
+    return beta
+
+
+# -- results -----------------------------------------------------------------------------------
+
+
+def _fdr(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.float64], str]:
+    """Adjust the finite p-values (NaN stay NaN); ``None`` means no adjustment."""
+    if method is None or (isinstance(method, str) and method.strip().lower() == "none"):
+        return p.copy(), "none"
+    out = np.full(p.shape, np.nan)
+    ok = np.isfinite(p)
+    adj = adjust_pvalues(p[ok], method)
+    out[ok] = adj
+    # canonical name via a one-element call (the function validates and names the method)
+    from .multiplicity import _canonical
+
+    return out, _canonical(method, P_METHODS, "p-value")
+
+
+def _repeat(value: str, r: int) -> pd.Categorical:
+    """A column holding one label ``r`` times (categorical: cheap for many rows)."""
+    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=[value])
+
+
+@dataclass(frozen=True)
+class ManyWaldTest:
+    """One restriction system ``C·β = d`` tested on every response of a :class:`ManyFit`.
+
+    Attributes
+    ----------
+    responses : tuple of str
+    labels : tuple of str
+        The system's rows as algebra.
+    estimate : (r, m) ndarray
+        ``Cβ̂`` per response (rows) and restriction row (columns).
+    target : (m,) ndarray
+        ``d``.
+    std_error : (r, m) ndarray
+    t : (r, m) ndarray
+        ``(Cβ̂ - d) / std_error``.
+    statistic : (r,) ndarray
+        F statistic per response (NaN unless the status is ``"ok"``).
+    df_num : int
+        Rank of ``C`` (redundant rows do not count).
+    df_den : (r,) ndarray
+        Residual degrees of freedom per response.
+    p_value : (r,) ndarray
+    status : (r,) ndarray of str
+        Per response: ``"ok"``, ``"too few rows"``, ``"exact fit"`` or ``"not estimable"``.
+    n_obs : (r,) ndarray of int
+    redundant : dict
+        ``{row: {independent row: weight}}`` for redundant rows of the system.
+    distribution : str
+        ``"F"``.
+    covariance : str
+        ``"classical"``.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> rng = np.random.default_rng(3)
+    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+    >>> ys = rng.normal(size=(40, 5)); ys[:, 0] += 2 * x[:, 1]
+    >>> res = lc.fit_many_arrays(x, ys, names=["one", "a", "b"]).wald(lc.coef("a") == 0)
+    >>> int(np.argmin(res.p_value)), res.to_frame().shape
+    (0, (5, 15))
+    """
+
+    responses: tuple[str, ...]
+    labels: tuple[str, ...]
+    estimate: NDArray[np.float64]
+    target: NDArray[np.float64]
+    std_error: NDArray[np.float64]
+    t: NDArray[np.float64]
+    statistic: NDArray[np.float64]
+    df_num: int
+    df_den: NDArray[np.float64]
+    p_value: NDArray[np.float64]
+    status: NDArray[np.str_]
+    n_obs: NDArray[np.int64]
+    redundant: dict[int, dict[int, float]] = field(default_factory=dict)
+    distribution: str = "F"
+    covariance: str = "classical"
+
+    def row_p_values(self) -> NDArray[np.float64]:
+        """Two-sided t p-value of each row, per response: (r, m).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+        ...     lc.term("treatment") == 0)
+        >>> res.row_p_values().shape
+        (6, 3)
+        """
+        return 2 * stats.t.sf(np.abs(self.t), self.df_den[:, None])
+
+    def adjusted(self, method: str | None = "benjamini-hochberg") -> NDArray[np.float64]:
+        """The F p-values adjusted across responses (NaN where there is no test).
+
+        Parameters
+        ----------
+        method : str or None
+            ``"benjamini-hochberg"`` (``"bh"``), ``"benjamini-yekutieli"`` (``"by"``), or any
+            method of :func:`lincomb.multiplicity.adjust_pvalues`; ``None`` for none.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+        ...     lc.term("treatment") == 0)
+        >>> adj = res.adjusted("benjamini-hochberg")
+        >>> markers[int(adj.argmin())], bool((adj >= res.p_value).all())
+        ('g0004', True)
+        """
+        return _fdr(self.p_value, method)[0]
+
+    def intervals(self, level: float = 0.95) -> pd.DataFrame:
+        """Marginal intervals for each row's ``Cβ`` per response (tidy).
+
+        Columns: ``response, restriction, lower, upper, level``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+        ...     lc.term("treatment") == 0)
+        >>> res.intervals(0.9).shape
+        (18, 5)
+        """
+        _check_level(level)
+        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
+        r, m = self.estimate.shape
+        return pd.DataFrame(
+            {
+                "response": np.repeat(np.asarray(self.responses, dtype=object), m),
+                "restriction": np.tile(np.asarray(self.labels, dtype=object), r),
+                "lower": (self.estimate - q * self.std_error).ravel(),
+                "upper": (self.estimate + q * self.std_error).ravel(),
+                "level": level,
+            }
+        )
+
+    def to_frame(self, fdr: str | None = "benjamini-hochberg") -> pd.DataFrame:
+        """One row per response; columns :data:`SCREEN_COLUMNS`.
+
+        ``p_adjusted`` adjusts ``p_value`` across the responses with ``fdr`` (named in
+        ``adjustment``); responses without a test (status other than ``"ok"``) are left out of
+        the family and get NaN.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+        ...     lc.term("treatment") == 0)
+        >>> screen = res.to_frame(fdr="holm")
+        >>> screen.shape, screen["adjustment"].iloc[0]
+        ((6, 15), 'holm')
+        """
+        adj, name = _fdr(self.p_value, fdr)
+        r = len(self.responses)
+        return pd.DataFrame(
+            {
+                "response": list(self.responses),
+                "restrictions": _repeat(" & ".join(self.labels), r),
+                "rows": len(self.labels),
+                "rank": self.df_num,
+                "statistic": self.statistic,
+                "distribution": _repeat(self.distribution, r),
+                "df_num": self.df_num,
+                "df_den": self.df_den,
+                "p_value": self.p_value,
+                "p_adjusted": adj,
+                "adjustment": _repeat(name, r),
+                "covariance": _repeat(self.covariance, r),
+                "redundant_rows": len(self.redundant),
+                "n_obs": self.n_obs,
+                "status": pd.Categorical(self.status, categories=STATUSES),
+            },
+            index=pd.RangeIndex(r),
+        )
+
+    def row_frame(
+        self, level: float = 0.95, fdr: str | None = "benjamini-hochberg"
+    ) -> pd.DataFrame:
+        """One row per response × restriction row; columns :data:`SCREEN_ROW_COLUMNS`.
+
+        Each row's t p-values are adjusted across the responses (one family per restriction
+        row).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+        ...     lc.term("treatment") == 0)
+        >>> rows = res.row_frame(level=0.9)
+        >>> rows.shape, rows["restriction"].iloc[0]
+        ((18, 15), 'treatment[T.low] = 0')
+        """
+        _check_level(level)
+        r, m = self.estimate.shape
+        pr = self.row_p_values()
+        adj = np.empty_like(pr)
+        name = "none"
+        for i in range(m):
+            adj[:, i], name = _fdr(pr[:, i], fdr)
+        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
+        role = np.array(
+            ["redundant" if i in self.redundant else "independent" for i in range(m)],
+            dtype=object,
+        )
+        return pd.DataFrame(
+            {
+                "response": np.repeat(np.asarray(self.responses, dtype=object), m),
+                "restriction": np.tile(np.asarray(self.labels, dtype=object), r),
+                "estimate": self.estimate.ravel(),
+                "target": np.tile(self.target, r),
+                "std_error": self.std_error.ravel(),
+                "t": self.t.ravel(),
+                "p_value": pr.ravel(),
+                "p_adjusted": adj.ravel(),
+                "adjustment": _repeat(name, r * m),
+                "lower": (self.estimate - q * self.std_error).ravel(),
+                "upper": (self.estimate + q * self.std_error).ravel(),
+                "level": level,
+                "role": np.tile(role, r),
+                "n_obs": np.repeat(self.n_obs, m),
+                "status": pd.Categorical(np.repeat(self.status, m), categories=STATUSES),
+            }
+        )
+
+    def _summary_rows(self, top: int = 10) -> tuple[str, list[str], list[list[str]]]:
+        adj = self.adjusted("benjamini-hochberg")
+        ok = np.isfinite(self.p_value)
+        head = (
+            f"ManyWaldTest (F, classical): {' & '.join(self.labels)}\n"
+            f"{len(self.responses)} responses, {int(ok.sum())} tested; df_num = {self.df_num};"
+            f" p < 0.05: {int(np.sum(self.p_value[ok] < 0.05))};"
+            f" BH-adjusted p < 0.05: {int(np.sum(adj[ok] < 0.05))}"
+        )
+        order = np.argsort(np.where(ok, self.p_value, np.inf), kind="stable")[:top]
+        rows = [
+            [
+                self.responses[i],
+                _num(self.statistic[i]),
+                _num(self.df_den[i]),
+                _p(self.p_value[i]),
+                _p(adj[i]),
+                self.status[i],
+            ]
+            for i in order
+        ]
+        return head, ["response", "F", "df_den", "p", "p (BH)", "status"], rows
+
+    def __repr__(self) -> str:
+        head, cols, rows = self._summary_rows()
+        return f"{head}\nsmallest p-values:\n{_table_text(cols, rows)}"
+
+    def _repr_html_(self) -> str:
+        head, cols, rows = self._summary_rows()
+        body = "<br>".join(html.escape(s) for s in head.split("\n"))
+        return f"<div class='lincomb'><p>{body}</p>{_table_html(cols, rows)}</div>"
+
+
+@dataclass(frozen=True)
+class ManyFit:
+    """Least-squares fits of many responses on one design, kept as sufficient statistics.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Coefficient names.
+    responses : tuple of str
+        Response names, in input order.
+    coefficients : pandas.DataFrame
+        Estimates, one column per response (index: coefficient names; NaN where aliased).
+    n_obs : pandas.Series
+        Rows used per response.
+    df_resid : pandas.Series
+    rss : pandas.Series
+    sigma : pandas.Series
+    rank : pandas.Series
+        Rank of the design on each response's rows.
+    status : pandas.Series
+        ``"ok"``, ``"too few rows"`` or ``"exact fit"`` (see the module notes).
+    aliased : tuple of str
+        Columns aliased on the design's full rows.
+    n_dropped : int
+        Design rows dropped for missing values in the design variables or weights.
+    weighted : bool
+    formula : str or None
+        The right-hand side the design was built from.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> panel = lc.datasets.assay_panel()
+    >>> assays = [c for c in panel.columns if c.startswith("g")]
+    >>> mf = lc.fit_many("~ treatment + batch", panel, responses=assays)
+    >>> len(mf.responses) == len(assays), mf.names[:2]
+    (True, ('Intercept', 'treatment[T.low]'))
+    """
+
+    names: tuple[str, ...]
+    responses: tuple[str, ...]
+    coefficients: pd.DataFrame
+    n_obs: pd.Series
+    df_resid: pd.Series
+    rss: pd.Series
+    sigma: pd.Series
+    rank: pd.Series
+    status: pd.Series
+    aliased: tuple[str, ...]
+    n_dropped: int
+    weighted: bool
+    formula: str | None
+    rank_tol: float = field(default=linalg.RANK_TOL, repr=False)
+    _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _groups: tuple[_Group, ...] = field(repr=False, compare=False, default=())
+    _source: _Responses = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _frame: pd.DataFrame | None = field(repr=False, compare=False, default=None)
+    _positions: NDArray[np.intp] | None = field(repr=False, compare=False, default=None)
+    _blas: int | None = field(repr=False, compare=False, default=1)
+
+    # -- single responses ----------------------------------------------------------------------
+    def _position(self, response: str | int) -> int:
+        if isinstance(response, (int, np.integer)) and not isinstance(response, bool):
+            if not 0 <= int(response) < len(self.responses):
+                raise InputError(
+                    f"response position {response} is out of range (0..{len(self.responses) - 1})."
+                )
+            return int(response)
+        try:
+            return self.responses.index(str(response))
+        except ValueError:
+            close = difflib.get_close_matches(str(response), list(self.responses), n=4)
+            hint = f" Did you mean one of: {close}?" if close else ""
+            raise InputError(f"no response named {response!r}.{hint}") from None
+
+    def fit_of(self, response: str | int) -> LinearFit:
+        """The single :class:`~lincomb.fit.LinearFit` of one response (its own rows).
+
+        Equal to ``lc.fit(f"{response} ~ ...", data)`` (or ``lc.fit_arrays``); robust
+        covariances work on it.  The responses are read again from the object given to
+        :func:`fit_many`, which is kept by reference, not copied: do not modify it meanwhile.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> mf = lc.fit_many("~ treatment + batch", panel, responses=["g0001", "g0002"])
+        >>> one = mf.fit_of("g0002")
+        >>> ref = lc.fit("g0002 ~ treatment + batch", panel)
+        >>> bool(abs(one.rss - ref.rss) < 1e-9 * ref.rss), one.n_obs == ref.n_obs
+        (True, True)
+        """
+        j = self._position(response)
+        name = self.responses[j]
+        d = self._design
+        y_all = self._source.column(j)
+        if self._positions is not None:
+            y_all = y_all[self._positions]
+        obs = ~np.isnan(y_all)
+        rows = np.flatnonzero(obs)
+        y = y_all[rows]
+        w = None if d.weights is None else d.weights[rows]
+        if d.spec is None:
+            names = list(self.names)
+            return LinearFit._from_design(
+                design_from_arrays(d.x[rows], y, names=names, weights=w, response=name),
+                self.rank_tol,
+            )
+        row_index = d.row_index[rows]
+        source = None
+        if self._frame is not None:
+            source = self._frame.loc[row_index]
+        design = replace(
+            d,
+            x=d.x[rows],
+            y=y,
+            weights=w,
+            response=name,
+            row_index=row_index,
+            dropped=d.dropped.append(d.row_index[~obs]),
+            formula=f"{name} ~ {self.formula}",
+            **({"source": source} if hasattr(d, "source") else {}),
+        )
+        return LinearFit._from_design(design, self.rank_tol)
+
+    # -- tests ---------------------------------------------------------------------------------
+    def wald(self, restrictions: object) -> ManyWaldTest:
+        """Wald F test (and a t per row) of ``C·β = d`` on every response.
+
+        Parameters
+        ----------
+        restrictions : Restriction, RestrictionSystem, or list of them
+            As for :meth:`LinearFit.wald <lincomb.fit.LinearFit.wald>`.
+
+        Returns
+        -------
+        ManyWaldTest
+
+        Raises
+        ------
+        InconsistentRestrictionError, NotEstimableError, UnknownCoefficientError
+            As for a single fit, judged on the design's full rows.
+
+        Notes
+        -----
+        The restriction is resolved, checked and mapped once per group of responses sharing
+        rows; ``V = R⁻ᵀ C_keptᵀ`` is shared by the group, so each response costs a product
+        with its coefficients and one triangular solve (:func:`lincomb.linalg.
+        wald_quadratic_forms`), vectorized over responses.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> mf = lc.fit_many("~ treatment + batch", panel, responses=["g0001", "g0002"])
+        >>> res = mf.wald(lc.term("treatment") == 0)
+        >>> ref = lc.fit("g0002 ~ treatment + batch", panel).wald(lc.term("treatment") == 0)
+        >>> bool(abs(res.statistic[1] - ref.statistic) < 1e-9 * ref.statistic)
+        True
+        """
+        with _blas_threads(self._blas):
+            return self._wald(as_system(restrictions))
+
+    def _wald(self, system: Any) -> ManyWaldTest:
+        r = len(self.responses)
+        labels: list[str] | None = None
+        target = None
+        redundant: dict[int, dict[int, float]] = {}
+        df_num = 0
+        est_all: NDArray[np.float64] | None = None
+        se_all = t_all = None
+        stat = np.full(r, np.nan)
+        pval = np.full(r, np.nan)
+        df_den = self.df_resid.to_numpy(dtype=np.float64).copy()
+        status = self.status.cat.codes.to_numpy().astype(np.int8)
+        main = self._groups[0]
+        for gi, g in enumerate(self._groups):
+            if g.fit is None:
+                continue
+            try:
+                c, d, lab, cu, analysis = g.fit._prepare(system)
+            except NotEstimableError:
+                if gi == 0:
+                    raise
+                status[g.columns] = np.where(
+                    status[g.columns] == _OK, _NOT_ESTIMABLE, status[g.columns]
+                )
+                if labels is None:
+                    c, d, lab = g.fit.resolve(system)
+                    labels, target = lab, d
+                continue
+            if labels is None or gi == 0:
+                labels, target = lab, d
+                redundant = analysis.dependencies
+                df_num = int(analysis.independent.size)
+            if est_all is None:
+                m = len(lab)
+                est_all = np.full((r, m), np.nan)
+                se_all = np.full((r, m), np.nan)
+                t_all = np.full((r, m), np.nan)
+            sol = g.fit._sol
+            ck = cu[:, sol.kept]
+            root = sol.root(ck)
+            est = ck @ g.theta  # (m, r_g)
+            delta = est - d[:, None]
+            quad, se0 = linalg.wald_quadratic_forms(delta, root, analysis.independent)
+            dfg = g.n - sol.rank
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sigma = np.sqrt(g.rss / dfg)
+                se = se0[:, None] * sigma[None, :]
+                tt = delta / se
+                qn = analysis.independent.size
+                f = quad / (qn * sigma**2)
+            ok = status[g.columns] == _OK
+            cols = g.columns
+            est_all[cols] = est.T
+            se_all[cols] = np.where(ok[:, None], se.T, np.nan)  # type: ignore[index]
+            t_all[cols] = np.where(ok[:, None], tt.T, np.nan)  # type: ignore[index]
+            stat[cols] = np.where(ok, f, np.nan)
+            pval[cols] = np.where(ok, stats.f.sf(f, qn, dfg), np.nan)
+        if labels is None or est_all is None:
+            # every group lacked rows or estimability: resolve on the design for the labels
+            c, d, lab = (main.fit or _first_fit(self._groups)).resolve(system)
+            labels, target = lab, d
+            m = len(lab)
+            est_all = np.full((r, m), np.nan)
+            se_all = np.full((r, m), np.nan)
+            t_all = np.full((r, m), np.nan)
+        assert target is not None and se_all is not None and t_all is not None
+        return ManyWaldTest(
+            responses=self.responses,
+            labels=tuple(labels),
+            estimate=est_all,
+            target=np.asarray(target, dtype=np.float64).copy(),
+            std_error=se_all,
+            t=t_all,
+            statistic=stat,
+            df_num=df_num,
+            df_den=df_den,
+            p_value=pval,
+            status=np.asarray(STATUSES)[status],
+            n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
+            redundant=redundant,
+        )
+
+    def screen(
+        self,
+        tests: Mapping[str, object] | object,
+        *,
+        fdr: str | None = "benjamini-hochberg",
+        family: str = "test",
+        rows: bool = False,
+        level: float = 0.95,
+    ) -> pd.DataFrame:
+        """Run several restriction systems on every response: one tidy frame.
+
+        Parameters
+        ----------
+        tests : mapping or restriction
+            ``{name: restrictions}``; a single system is named by its algebra.
+        fdr : str or None, default 'benjamini-hochberg'
+            Adjustment across responses: ``"benjamini-hochberg"`` (``"bh"``),
+            ``"benjamini-yekutieli"`` (``"by"``), any method of
+            :func:`lincomb.multiplicity.adjust_pvalues`, or ``None``.
+        family : {'test', 'all'}, default 'test'
+            Adjust within each test (and each restriction row, with ``rows=True``) across
+            responses, or over every p-value of the frame at once.
+        rows : bool, default False
+            One row per response × test (columns ``test`` + :data:`SCREEN_COLUMNS`) or per
+            response × test × restriction row (``test`` + :data:`SCREEN_ROW_COLUMNS`).
+        level : float, default 0.95
+            Confidence level of the row intervals (``rows=True``).
+
+        Returns
+        -------
+        pandas.DataFrame
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> panel = lc.datasets.assay_panel()
+        >>> assays = [c for c in panel.columns if c.startswith("g")]
+        >>> mf = lc.fit_many("~ treatment + batch", panel, responses=assays)
+        >>> tests = {"treatment": lc.term("treatment") == 0, "batch": lc.term("batch") == 0}
+        >>> tab = mf.screen(tests)
+        >>> tab.shape[0] == 2 * len(assays), list(tab.columns[:3])
+        (True, ['response', 'test', 'restrictions'])
+        """
+        if family not in ("test", "all"):
+            raise InputError(f"family must be 'test' or 'all', got {family!r}.")
+        if isinstance(tests, Mapping):
+            items = [(str(k), v) for k, v in tests.items()]
+        else:
+            system = as_system(tests)
+            items = [(system.text(), system)]
+        if not items:
+            raise InputError("screen needs at least one test.")
+        frames = []
+        for name, restr in items:
+            res = self.wald(restr)
+            fr = res.row_frame(level, fdr) if rows else res.to_frame(fdr)
+            fr.insert(1, "test", name)
+            frames.append(fr)
+        out = pd.concat(frames, ignore_index=True)
+        if family == "all":
+            adj, label = _fdr(out["p_value"].to_numpy(dtype=np.float64), fdr)
+            out["p_adjusted"] = adj
+            out["adjustment"] = label
+        return out
+
+    # -- presentation --------------------------------------------------------------------------
+    def _head(self) -> str:
+        kind = "WLS" if self.weighted else "OLS"
+        what = self.formula or f"{len(self.names)} columns"
+        counts = self.status.value_counts()
+        counts = counts[counts > 0]
+        extra = ", ".join(f"{int(v)} {k}" for k, v in counts.items() if k != "ok")
+        n = self.n_obs.to_numpy()
+        return (
+            f"ManyFit ({kind}): {len(self.responses)} responses on {what}\n"
+            f"n = {int(n.min())}..{int(n.max())} per response; design rank {self._rank_text()} of"
+            f" {len(self.names)}; {self.n_dropped} design rows dropped for missing values"
+            + (f"; {extra}" if extra else "")
+        )
+
+    def _rank_text(self) -> str:
+        lo, hi = int(self.rank.min()), int(self.rank.max())
+        return str(lo) if lo == hi else f"{lo}..{hi}"
+
+    def __repr__(self) -> str:
+        return self._head()
+
+    def _repr_html_(self) -> str:
+        body = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        return f"<div class='lincomb'><p>{body}</p></div>"
+
+
+def _first_fit(groups: Sequence[_Group]) -> LinearFit:
+    for g in groups:
+        if g.fit is not None:
+            return g.fit
+    raise DegenerateFitError(  # pragma: no cover - the design fit is checked at construction
+        "no group of responses has enough rows for a fit."
+    )
+
+
+def _check_level(level: float) -> None:
+    if not (0 < level < 1):
+        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+
+
+# -- construction ------------------------------------------------------------------------------
+
+
+def _build(
+    design: Design,
+    source: _Responses,
+    positions: NDArray[np.intp] | None,
+    missing: str,
+    rank_tol: float,
+    formula: str | None,
+    frame: pd.DataFrame | None,
+    blas_threads: int | None = 1,
+) -> ManyFit:
+    if missing not in ("drop", "raise"):
+        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    n = design.x.shape[0]
+    r = source.count
+    if r == 0:
+        raise InputError("no responses given.")
+    factor, lf = _design_fit(design, None, rank_tol)
+    if lf is None:
+        raise DegenerateFitError(
+            f"{n} rows for a design of rank {linalg.solve(factor.moments, rank_tol).rank} leave"
+            " no residual degrees of freedom for any response. Add rows or drop terms."
+        )
+    width = _block_width(r, n)
+    main_blocks: list[linalg.ResponseBlock] = []
+    main_cols: list[NDArray[np.intp]] = []
+    patterns: dict[bytes, list[int]] = {}
+    masks: dict[bytes, NDArray[np.bool_]] = {}
+    for j0 in range(0, r, width):
+        cols = np.arange(j0, min(r, j0 + width))
+        yb = source.block(slice(j0, j0 + cols.size))
+        if positions is not None:
+            yb = yb[positions]
+        block = factor.project(yb)
+        good = block.finite()  # a NaN or inf in a column makes its summaries non-finite
+        if not good.all():
+            bad = np.flatnonzero(~good)
+            sub = yb[:, bad]
+            _check_no_inf(sub, source.names, cols[bad], design)
+            nan = np.isnan(sub)
+            overflow = bad[~nan.any(axis=0)]
+            if overflow.size:
+                raise InputError(
+                    f"response {source.names[cols[overflow[0]]]!r} holds values too large to"
+                    " square in float64; rescale it."
+                )
+            if missing == "raise":
+                raise MissingValueError(
+                    f"response {source.names[cols[bad[0]]]!r} has {int(nan[:, 0].sum())} missing"
+                    f" values ({bad.size} responses in this block have some); fit with"
+                    " missing='drop' to fit each response on its observed rows."
+                )
+            for t, j in enumerate(bad):
+                key = np.packbits(nan[:, t]).tobytes()
+                patterns.setdefault(key, []).append(j0 + int(j))
+                masks.setdefault(key, ~nan[:, t])
+            keep = np.flatnonzero(good)
+            if keep.size:
+                main_blocks.append(block.take(keep))
+                main_cols.append(cols[keep])
+        else:
+            main_blocks.append(block)
+            main_cols.append(cols)
+        del yb
+    main_columns = np.concatenate(main_cols) if main_cols else np.zeros(0, dtype=np.intp)
+    groups = [_solve_group(factor, lf, main_blocks, main_columns, None)]
+    del main_blocks
+    for key, members in patterns.items():
+        rows = np.flatnonzero(masks[key])
+        cols = np.asarray(members, dtype=np.intp)
+        gfactor, glf = _design_fit(design, rows, rank_tol)
+        blocks = []
+        sub_width = _block_width(cols.size, rows.size)
+        for k0 in range(0, cols.size, sub_width):
+            part = cols[k0 : k0 + sub_width]
+            yb = source.block(part)
+            if positions is not None:
+                yb = yb[positions]
+            blocks.append(gfactor.project(yb[rows]) if glf is not None else None)
+        groups.append(_solve_group(gfactor, glf, [b for b in blocks if b is not None], cols, rows))
+    fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
+    return replace(fit, _blas=blas_threads)
+
+
+def _block_width(r: int, n: int) -> int:
+    return max(1, min(r, max(MIN_BLOCK_COLUMNS, BLOCK_BYTES // (8 * max(n, 1)))))
+
+
+def _check_no_inf(
+    yb: NDArray[np.float64], names: tuple[str, ...], cols: NDArray[np.intp], design: Design
+) -> None:
+    bad = np.isinf(yb)
+    if bad.any():
+        i, j = (int(v) for v in np.argwhere(bad)[0])
+        raise InputError(
+            f"response {names[cols[j]]!r} holds {float(yb[i, j])!r} at row"
+            f" {design.row_index[i]!r};"
+            " remove or replace infinite values (missing values are fine: NaN)."
+        )
+
+
+def _assemble(
+    design: Design,
+    source: _Responses,
+    groups: list[_Group],
+    lf: LinearFit,
+    rank_tol: float,
+    formula: str | None,
+    frame: pd.DataFrame | None,
+    positions: NDArray[np.intp] | None,
+) -> ManyFit:
+    r = source.count
+    p = len(design.index.names)
+    coef = np.full((p, r), np.nan)
+    n_obs = np.zeros(r, dtype=np.int64)
+    rank = np.zeros(r, dtype=np.int64)
+    rss = np.full(r, np.nan)
+    status = np.full(r, _OK, dtype=np.int8)
+    for g in groups:
+        cols = g.columns
+        n_obs[cols] = g.n
+        if g.fit is None:
+            status[cols] = _FEW
+            rank[cols] = min(g.n, p)
+            continue
+        sol = g.fit._sol
+        rank[cols] = sol.rank
+        coef[:, cols] = _coefficients(sol, g.theta)
+        rss[cols] = g.rss
+        exact = g.rss <= (ZERO_RSS_TOL * g.y_norm) ** 2
+        status[cols[exact]] = _EXACT
+    df = n_obs - rank
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sigma = np.where(df > 0, np.sqrt(rss / np.where(df > 0, df, 1)), np.nan)
+    idx = pd.Index(source.names, name="response")
+    names = design.index.names
+    return ManyFit(
+        names=names,
+        responses=source.names,
+        coefficients=pd.DataFrame(coef, index=list(names), columns=idx),
+        n_obs=pd.Series(n_obs, index=idx, name="n_obs"),
+        df_resid=pd.Series(df, index=idx, name="df_resid"),
+        rss=pd.Series(rss, index=idx, name="rss"),
+        sigma=pd.Series(sigma, index=idx, name="sigma"),
+        rank=pd.Series(rank, index=idx, name="rank"),
+        status=pd.Series(
+            pd.Categorical.from_codes(status, categories=STATUSES), index=idx, name="status"
+        ),
+        aliased=lf.aliased,
+        n_dropped=len(design.dropped),
+        weighted=design.weights is not None,
+        formula=formula,
+        rank_tol=rank_tol,
+        _design=design,
+        _groups=tuple(groups),
+        _source=source,
+        _frame=frame,
+        _positions=positions,
+    )
+
+
+def fit_many(
+    design: str,
+    data: pd.DataFrame,
+    responses: Sequence[str] | pd.DataFrame | ArrayLike,
+    *,
+    weights: str | ArrayLike | None = None,
+    missing: str = "drop",
+    rank_tol: float = linalg.RANK_TOL,
+    response_names: Sequence[str] | None = None,
+    blas_threads: int | None = 1,
+) -> ManyFit:
+    """Fit many responses on one design given by a formula's right-hand side.
+
+    Parameters
+    ----------
+    design : str
+        The terms, ``"~ treatment + batch"`` (or without ``~``), as formulaic parses them.
+    data : pandas.DataFrame
+        Holds the design's variables (and the responses, when named).  Not modified.
+    responses : list of str, DataFrame or (n, r) array_like
+        Column names of ``data``; a DataFrame with ``data``'s index; or an array with one row
+        per row of ``data``.
+    weights : str or array_like, optional
+        Positive weights (a column of ``data`` or an array aligned with it): WLS.
+    missing : {'drop', 'raise'}, default 'drop'
+        ``'drop'``: rows with missing design values are dropped for all responses; a response's
+        own missing values drop rows for that response only (exactly, see the module notes).
+        ``'raise'``: any missing value raises :class:`~lincomb.errors.MissingValueError`.
+    rank_tol : float, default 1e-10
+    response_names : sequence of str, optional
+        Names for array responses (default ``y0, y1, ...``).
+    blas_threads : int or None, default 1
+        BLAS threads while the responses are projected, set with threadpoolctl when it is
+        installed (``None`` leaves BLAS alone).  The products are small, one block of responses
+        at a time, and gain nothing from threads.
+
+    Returns
+    -------
+    ManyFit
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> panel = lc.datasets.assay_panel()
+    >>> mf = lc.fit_many("~ treatment + batch", panel, responses=["g0001", "g0002"])
+    >>> mf.status.tolist()
+    ['ok', 'ok']
+    """
+    if not isinstance(data, pd.DataFrame):
+        raise InputError(f"data must be a pandas DataFrame, got {type(data).__name__}.")
+    if not isinstance(design, str):
+        raise InputError(f"design must be a formula string like '~ a + b', got {design!r}.")
+    rhs = design.strip()
+    if "~" in rhs:
+        lhs, rhs = rhs.split("~", 1)
+        if lhs.strip():
+            raise InputError(
+                f"give the design without a response ('~ {rhs.strip()}') and the responses"
+                f" with responses=; got {design!r}."
+            )
+    rhs = rhs.strip()
+    if not rhs:
+        raise InputError("the design formula has no terms; write e.g. '~ 1' or '~ x + g'.")
+    as_names = isinstance(responses, (list, tuple)) and all(isinstance(s, str) for s in responses)
+    if as_names:
+        names = _unique_names(responses, "response names")  # type: ignore[arg-type]
+        absent = [s for s in names if s not in data.columns]
+        if absent:
+            close = difflib.get_close_matches(absent[0], [str(c) for c in data.columns], n=4)
+            hint = f" Did you mean one of: {close}?" if close else ""
+            raise InputError(f"response column(s) {absent[:5]} not in data.{hint}")
+        if response_names is not None:
+            raise InputError("response_names is for array responses; columns keep their names.")
+    import formulaic
+
+    try:
+        needed = formulaic.Formula(rhs).required_variables
+    except Exception as exc:
+        raise InputError(f"could not parse the design {rhs!r}: {exc}") from None
+    design_vars = [str(v) for v in needed if v in data.columns]
+    if as_names:
+        overlap = [s for s in names if s in design_vars]
+        if overlap:
+            raise InputError(
+                f"response(s) {overlap} are also design variables; leave them out of one side."
+            )
+    small = data[design_vars].copy(deep=False)
+    small[_DUMMY] = 0.0
+    if isinstance(weights, str):
+        if weights not in data.columns:
+            close = difflib.get_close_matches(weights, [str(c) for c in data.columns])
+            raise InputError(f"weights column {weights!r} is not in data. Close: {close}")
+        small[weights] = data[weights]
+    dsg = design_from_formula(f"{_DUMMY} ~ {rhs}", small, weights=weights, missing=missing)
+    positions = None
+    if len(dsg.dropped):
+        positions = data.index.get_indexer_for(dsg.row_index)
+        if (positions < 0).any() or not data.index.is_unique:
+            positions = np.flatnonzero(~data.index.isin(dsg.dropped))
+    dsg = replace(dsg, y=np.zeros(dsg.x.shape[0]), response="")
+    if as_names:
+        cols = data.columns.get_indexer(list(names))
+        src = _Responses(names, lambda c: data.iloc[:, cols[c]], len(data))
+        frame = data.drop(columns=list(names))
+    else:
+        src = _array_source(responses, len(data), response_names, data.index)
+        frame = data
+    _check_threads(blas_threads)
+    with _blas_threads(blas_threads):
+        return _build(dsg, src, positions, missing, rank_tol, rhs, frame, blas_threads)
+
+
+def fit_many_arrays(
+    x: ArrayLike,
+    responses: ArrayLike | pd.DataFrame,
+    *,
+    names: Sequence[str] | None = None,
+    response_names: Sequence[str] | None = None,
+    weights: ArrayLike | None = None,
+    missing: str = "drop",
+    rank_tol: float = linalg.RANK_TOL,
+    blas_threads: int | None = 1,
+) -> ManyFit:
+    """Fit many responses (columns of an (n, r) array or DataFrame) on one design ``X``.
+
+    Parameters
+    ----------
+    x : (n, p) array_like or DataFrame
+        Design, as for :func:`~lincomb.fit_arrays` (a column of ones is the intercept).  Must be
+        finite.
+    responses : (n, r) array_like or DataFrame
+        One column per response; NaN marks a missing value (see ``missing``).
+    names : sequence of str, optional
+        Coefficient names.
+    response_names : sequence of str, optional
+        Default: a DataFrame's columns, else ``y0, y1, ...``.
+    weights : (n,) array_like, optional
+    missing : {'drop', 'raise'}, default 'drop'
+        Per-response exact handling of missing response values, or refuse them.
+    rank_tol : float, default 1e-10
+    blas_threads : int or None, default 1
+        As for :func:`fit_many`.
+
+    Returns
+    -------
+    ManyFit
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(50), rng.normal(size=(50, 2))])
+    >>> ys = rng.normal(size=(50, 3)); ys[5, 1] = np.nan
+    >>> mf = lc.fit_many_arrays(x, ys)
+    >>> mf.n_obs.tolist()
+    [50, 49, 50]
+    """
+    n = np.shape(x)[0] if np.ndim(x) else 0
+    dsg = design_from_arrays(x, np.zeros(n), names=names, weights=weights, response="")
+    src = _array_source(responses, dsg.x.shape[0], response_names, None)
+    _check_threads(blas_threads)
+    with _blas_threads(blas_threads):
+        return _build(dsg, src, None, missing, rank_tol, None, None, blas_threads)

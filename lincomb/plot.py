@@ -1,0 +1,309 @@
+"""Pictures of test results (needs the optional extra ``lincomb[plot]``, i.e. matplotlib).
+
+matplotlib is imported only when a picture is drawn, so ``import lincomb`` never needs it.
+Without it, drawing raises :class:`~lincomb.errors.OptionalDependencyError` with the install
+command.
+
+Every function returns a :class:`matplotlib.figure.Figure` that pyplot does not track: in a
+notebook, leave it as the last expression of a cell to show it; elsewhere save it with
+``fig.savefig("intervals.png")``.  Pass ``ax=`` to draw into an axes of your own figure
+instead.
+
+>>> import lincomb as lc
+>>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+>>> fig = lc.plot.intervals(f.wald(lc.term("line") == 0))
+>>> fig.axes[0].get_xlabel()
+'value of the restricted combination'
+"""
+
+from __future__ import annotations
+
+import importlib
+import textwrap
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from ._format import _p
+from .errors import OptionalDependencyError
+from .multiplicity import MultipleInference
+
+if TYPE_CHECKING:  # pragma: no cover
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+    from .results import WaldTest
+
+__all__ = ["intervals", "INTERVAL_ARTISTS"]
+
+#: Artist ``gid`` values set by :func:`intervals`, so a picture can be inspected or restyled:
+#: the marginal interval bars, the simultaneous interval bars, the estimates and the
+#: hypothesized values ``d``.
+INTERVAL_ARTISTS = ("marginal", "simultaneous", "estimate", "target")
+
+# our own palette: marginal intervals in slate blue, simultaneous in burnt orange, targets in
+# near-black; redundant rows are drawn in grey.
+_MARGINAL = "#3d5a80"
+_SIMULTANEOUS = "#d1603d"
+_TARGET = "#202020"
+_MUTED = "#9a9a9a"
+_LABEL_WIDTH = 46
+
+
+def _pyplot() -> Any:
+    """Import matplotlib's pyplot, or explain how to install it."""
+    try:
+        importlib.import_module("matplotlib")
+        plt = importlib.import_module("matplotlib.pyplot")
+    except ImportError as exc:
+        raise OptionalDependencyError(
+            "drawing needs matplotlib, which is not installed. Install the plotting extra with"
+            " `python -m pip install 'lincomb[plot]'` (or `python -m pip install matplotlib`)."
+        ) from exc
+    return plt
+
+
+def _new_figure(figsize: tuple[float, float]) -> Figure:
+    """A figure on pyplot's current backend that pyplot no longer tracks.
+
+    Creating it through pyplot gives it the backend's canvas (in a notebook, the one that
+    displays it inline); closing it at once means pyplot neither shows it a second time at the
+    end of a cell nor keeps it alive.
+    """
+    plt = _pyplot()
+    fig = plt.figure(figsize=figsize, layout="constrained")
+    plt.close(fig)
+    return fig
+
+
+def _short(label: str) -> str:
+    return textwrap.shorten(label, width=_LABEL_WIDTH, placeholder=" …")
+
+
+def _family_bounds(fam: Any, labels: Sequence[str]) -> tuple[NDArray[np.float64], ...]:
+    """Place a family's intervals on the rows of the test they came from (by label, in order)."""
+    if fam.level is None:
+        raise ValueError(
+            f"the {fam.method!r} result holds adjusted p-values but no intervals; make"
+            " simultaneous intervals with result.simultaneous(method, level) instead."
+        )
+    m = len(labels)
+    lo, hi = np.full(m, np.nan), np.full(m, np.nan)
+    used: set[int] = set()
+    for k, label in enumerate(fam.labels):
+        rows = [i for i in range(m) if labels[i] == label and i not in used]
+        if not rows:
+            raise ValueError(
+                f"simultaneous interval {k} ({label!r}) is not a row of this test; draw a"
+                " family made from the same test."
+            )
+        used.add(rows[0])
+        lo[rows[0]], hi[rows[0]] = fam.lower[k], fam.upper[k]
+    return lo, hi
+
+
+def _simultaneous(
+    result: WaldTest, spec: object, level: float, label: str | None
+) -> tuple[NDArray[np.float64], NDArray[np.float64], str] | None:
+    """Lower and upper simultaneous bounds per row (NaN: none) and their legend text."""
+    if spec is None:
+        return None
+    m = len(result.labels)
+    if isinstance(spec, str):
+        spec = result.simultaneous(spec, level)
+    if isinstance(spec, MultipleInference):
+        lo, hi = _family_bounds(spec, result.labels)
+        return lo, hi, label or f"{spec.level:.0%} simultaneous ({spec.method})"
+    if isinstance(spec, pd.DataFrame) and {"lower", "upper"} <= set(spec.columns):
+        if len(spec) != m:
+            raise ValueError(
+                f"simultaneous has {len(spec)} rows but the test has {m} restriction rows"
+                f" ({list(result.labels)}); give one interval per row, in the test's order."
+            )
+        lo = spec["lower"].to_numpy(dtype=np.float64)
+        hi = spec["upper"].to_numpy(dtype=np.float64)
+        return lo, hi, label or "simultaneous"
+    raise TypeError(
+        "simultaneous must be a method name such as 'max-t', 'bonferroni' or 'scheffe', a"
+        " result of WaldTest.simultaneous(), or a DataFrame with columns 'lower' and 'upper'"
+        f" (one row per restriction row); got {type(spec).__name__}."
+    )
+
+
+def intervals(
+    result: WaldTest,
+    level: float = 0.95,
+    *,
+    simultaneous: str | MultipleInference | pd.DataFrame | None = None,
+    simultaneous_label: str | None = None,
+    ax: Axes | None = None,
+    title: str | None = None,
+) -> Figure:
+    """Interval chart of the rows of a restriction system.
+
+    One line per row of ``C·β = d``, first row at the top: the estimate ``Cβ̂`` as an open
+    circle on a thick bar for its marginal interval, the hypothesized value ``d`` as a black
+    vertical dash.  When simultaneous intervals are given, each row gets a second, thinner bar
+    just below the marginal one, so the two can be compared side by side.  Redundant rows are
+    drawn in grey and marked in their label.  The title states the joint test.
+
+    Parameters
+    ----------
+    result : WaldTest
+        The test whose rows to draw (from :meth:`~lincomb.LinearFit.wald`).
+    level : float, default 0.95
+        Confidence level of the marginal intervals (:meth:`~lincomb.WaldTest.intervals`).
+    simultaneous : str, MultipleInference or DataFrame, optional
+        Intervals that hold jointly over the rows, drawn beside the marginal ones at the same
+        ``level``: a method of :meth:`~lincomb.WaldTest.simultaneous` (``"max-t"``,
+        ``"bonferroni"``, ``"sidak"``, ``"scheffe"``), the result of that method (rows it
+        dropped get no bar), or a DataFrame with columns ``lower`` and ``upper``, one row per
+        restriction row in the test's order.
+    simultaneous_label : str, optional
+        Legend text for the simultaneous bars; default names the level and the method.
+    ax : matplotlib Axes, optional
+        Draw here instead of in a new figure; the axes' figure is returned.
+    title : str, optional
+        Replaces the default title (the joint test).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    OptionalDependencyError
+        matplotlib is not installed.
+    ValueError
+        ``level`` is not in (0, 1), or ``simultaneous`` does not match the test's rows.
+    TypeError
+        ``simultaneous`` is of another kind.
+
+    Notes
+    -----
+    The artists carry ``gid`` values from :data:`INTERVAL_ARTISTS` (``"marginal"``,
+    ``"simultaneous"``, ``"estimate"``, ``"target"``), and row ``i`` is drawn at ``y = i``
+    (marginal bar, estimate and target; the simultaneous bar at ``y = i + 0.22``) with the
+    y-axis inverted, so its data can be read back.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", lc.datasets.field_trial())
+    >>> n = lc.term("C(nitrogen)")
+    >>> res = f.wald((n["80"] - n["40"] == 0.5) & (n["160"] - n["80"] == 0.5))
+    >>> fig = lc.plot.intervals(res, level=0.90)
+    >>> ax = fig.axes[0]
+    >>> est = next(a for a in ax.lines if a.get_gid() == "estimate")
+    >>> bool(np.allclose(est.get_xdata(), res.estimate))
+    True
+
+    Bonferroni intervals beside the marginal ones (they are wider):
+
+    >>> ax = res.plot(simultaneous="bonferroni").axes[0]
+    >>> marginal, joint = (
+    ...     next(a for a in ax.collections if a.get_gid() == gid).get_segments()
+    ...     for gid in ("marginal", "simultaneous"))
+    >>> [bool(np.ptp(j[:, 0]) > np.ptp(m[:, 0])) for m, j in zip(marginal, joint)]
+    [True, True]
+    """
+    _pyplot()
+    m = len(result.labels)
+    marg = result.intervals(level)
+    lo, hi = marg["lower"].to_numpy(), marg["upper"].to_numpy()
+    sim = _simultaneous(result, simultaneous, level, simultaneous_label)
+
+    own_figure = ax is None
+    if ax is None:
+        fig = _new_figure((7.5, 1.6 + 0.5 * m))
+        ax = fig.add_subplot()
+    else:
+        fig = ax.figure
+    y = np.arange(m, dtype=float)
+    redundant = np.array([i in result.redundant for i in range(m)])
+    colors = np.where(redundant, _MUTED, _MARGINAL)
+
+    ax.hlines(
+        y,
+        lo,
+        hi,
+        colors=list(colors),
+        linewidth=7,
+        alpha=0.45,
+        capstyle="butt",
+        gid="marginal",
+        label=f"{level:.0%} marginal interval",
+    )
+    if sim is not None:
+        s_lo, s_hi, s_label = sim
+        has = np.isfinite(s_lo) & np.isfinite(s_hi)
+        ax.hlines(
+            y[has] + 0.22,
+            s_lo[has],
+            s_hi[has],
+            colors=list(np.where(redundant, _MUTED, _SIMULTANEOUS)[has]),
+            linewidth=2.2,
+            gid="simultaneous",
+            label=s_label,
+        )
+    ax.plot(
+        result.estimate,
+        y,
+        linestyle="none",
+        marker="o",
+        markersize=7,
+        markerfacecolor="white",
+        markeredgecolor=_TARGET,
+        markeredgewidth=1.4,
+        gid="estimate",
+        label="estimate",
+        zorder=3,
+    )
+    ax.plot(
+        result.target,
+        y,
+        linestyle="none",
+        marker="|",
+        markersize=17,
+        markeredgewidth=2.2,
+        color=_TARGET,
+        gid="target",
+        label="hypothesized value d",
+        zorder=4,
+    )
+    if m and np.all(result.target == result.target[0]):
+        ax.axvline(result.target[0], color=_TARGET, linewidth=0.6, linestyle=":", zorder=0)
+
+    labels = [
+        _short(lab) + (" (redundant)" if red else "")
+        for lab, red in zip(result.labels, redundant, strict=True)
+    ]
+    ax.set_yticks(y, labels)
+    for tick, red in zip(ax.get_yticklabels(), redundant, strict=True):
+        if red:
+            tick.set_color(_MUTED)
+    ax.set_ylim(m - 0.4, -0.6)
+    ax.set_xlabel("value of the restricted combination")
+    ax.grid(axis="x", color="#e4e4e4", linewidth=0.8)
+    ax.set_axisbelow(True)
+    for side in ("top", "right", "left"):
+        ax.spines[side].set_visible(False)
+    ax.tick_params(axis="y", length=0)
+    if title is None:
+        dist = (
+            f"F({result.df_num}, {result.df_den:g})"
+            if result.distribution == "F"
+            else f"chi2({result.df_num})"
+        )
+        p = _p(result.p_value)
+        title = f"Joint test: {dist} = {result.statistic:.4g}, p {'' if '<' in p else '= '}{p}"
+    ax.set_title(title, loc="left", fontsize="medium")
+    legend = {"frameon": False, "fontsize": "small", "handlelength": 1.6}
+    if own_figure:
+        fig.legend(loc="outside lower center", ncols=4 if sim is not None else 3, **legend)
+    else:
+        ax.legend(loc="best", **legend)
+    return fig

