@@ -27,6 +27,11 @@ second case is n = 200,000, which still shows whether memory grows with n.
 * Correctness: coefficients and the F of a 3-row system equal the in-memory fit's (rtol 1e-10)
   for the 2,000,000-row case.
 
+Threads: the chunked fits run with their default ``blas_threads=1`` (each chunk's QR on one
+BLAS thread; the limit is lifted while the generator makes the next chunk); the in-memory QR
+uses the BLAS threads of the process (all cores unless ``--threads`` is given), so it gets
+every advantage threads can give.
+
 Timing: ``time.perf_counter``; the chunked fit and the in-memory QR run interleaved in every
 repeat; medians and the median of the per-repeat ratios are reported.
 """

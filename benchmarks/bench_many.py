@@ -15,7 +15,9 @@ r = 10,000 responses (standard normal, seeded: an (n, r) float64 matrix of 40 MB
 system (``x1 - x2 = 0`` and ``x3 = 0``).
 
 * lincomb: ``lc.fit_many_arrays(X, Y)``, then ``.wald(system)``, then ``.to_frame()`` (the tidy
-  frame with Benjamini–Hochberg adjusted p-values): the whole pipeline is timed.
+  frame with Benjamini–Hochberg adjusted p-values): the whole pipeline is timed, with its
+  defaults (blocks of responses projected by one thread per CPU, at most 4, each on one BLAS
+  thread).
 * statsmodels: per response ``OLS(y, X).fit().f_test((C, d))``.  Timing the loop over all
   10,000 responses would take minutes, so it runs over the first ``--subset`` responses and the
   time is **extrapolated linearly** to 10,000 (each response costs the same: same design, same
@@ -30,8 +32,9 @@ statsmodels (largest relative difference reported).
 
 Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
 run interleaved in every repeat so that load changes on a shared machine hit both alike; we
-report medians and the median of the per-repeat ratios, in wall time and (as a check against
-other processes' load) in CPU time of this process (``time.process_time``).
+report medians and the median of the per-repeat ratios, in wall time (the target) and in CPU
+time of this process, all its threads (``time.process_time``: the work done, whatever the load
+of other processes).
 """
 
 from __future__ import annotations

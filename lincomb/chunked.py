@@ -47,6 +47,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from . import linalg
+from ._threads import blas_limit, check_threads
 from .design import (
     CoefficientIndex,
     _check_finite,
@@ -472,6 +473,7 @@ def fit_chunks(
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
+    blas_threads: int | None = 1,
 ) -> LinearFit:
     """Fit a formula to data read chunk by chunk, in one pass and bounded memory.
 
@@ -496,6 +498,10 @@ def fit_chunks(
         Relative rank tolerance (see :mod:`lincomb.linalg`).
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
+    blas_threads : int or None, default 1
+        BLAS threads while a chunk is factored (threadpoolctl, when installed); ``None`` leaves
+        BLAS alone.  Chunk-sized QRs run faster and steadier on one thread; the limit is lifted
+        while the next chunk is read.
 
     Returns
     -------
@@ -527,6 +533,7 @@ def fit_chunks(
     True
     """
     FrameEncoder.check_options(formula, weights, missing)
+    check_threads(blas_threads)
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     merger = _TreeMerger()
@@ -550,9 +557,10 @@ def fit_chunks(
             encoder = FrameEncoder.from_sample(
                 formula, frame, levels=levels, weights=weights, missing=missing, where=where
             )
-        enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
-        if enc.x.shape[0]:
-            merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
+        with blas_limit(blas_threads):
+            enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
+            if enc.x.shape[0]:
+                merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     moments = merger.result()
     if moments is None or encoder is None:
@@ -614,6 +622,7 @@ def fit_array_chunks(
     intercept: int | None | str = "auto",
     rank_tol: float = linalg.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
+    blas_threads: int | None = 1,
 ) -> LinearFit:
     """Fit ``y`` on ``X`` read as array chunks ``(X, y)`` or ``(X, y, weights)``, in one pass.
 
@@ -631,6 +640,8 @@ def fit_array_chunks(
     rank_tol : float, default 1e-10
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
+    blas_threads : int or None, default 1
+        As for :func:`fit_chunks`.
 
     Returns
     -------
@@ -647,6 +658,7 @@ def fit_array_chunks(
     >>> bool(np.allclose(f.coefficients, lc.fit_arrays(x, y).coefficients, rtol=1e-10))
     True
     """
+    check_threads(blas_threads)
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     merger = _TreeMerger()
@@ -682,9 +694,10 @@ def fit_array_chunks(
                 f" {'did not' if weighted is False else 'did'}; give weights with every chunk"
                 " or with none."
             )
-        enc = encoder.encode(chunk, where)
-        if enc.x.shape[0]:
-            merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
+        with blas_limit(blas_threads):
+            enc = encoder.encode(chunk, where)
+            if enc.x.shape[0]:
+                merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
         p.record(enc.rows_read, enc.x.shape[0], None)
     moments = merger.result()
     if moments is None or encoder is None:
@@ -713,6 +726,7 @@ def covariance_pass(
     covariance: object,
     *,
     progress: Callable[[ChunkProgress], None] | None = None,
+    blas_threads: int | None = 1,
 ) -> Any:
     """Evaluate a row-based covariance estimator on a chunked fit with a second pass.
 
@@ -727,6 +741,8 @@ def covariance_pass(
         ``"HC0"`` ... ``"HC4"``, or :func:`~lincomb.clustered` with column name(s) of the
         chunks (labels may span chunks).
     progress : callable, optional
+    blas_threads : int or None, default 1
+        As for :func:`fit_chunks`.
 
     Returns
     -------
@@ -774,14 +790,17 @@ def covariance_pass(
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     acc = None
+    check_threads(blas_threads)
     for k, chunk in enumerate(it):
         where = f"chunk {k}"
-        if isinstance(encoder, FrameEncoder):
-            enc = encoder.encode(_cast_levels(chunk, encoder.levels, where), where, keep_frame=True)
-        else:
-            enc = encoder.encode(chunk, where)
-        if enc.x.shape[0]:
-            part = rp.block(enc.x, enc.y, enc.w, enc.frame, where)
-            acc = part if acc is None else rp.merge(acc, part)
+        with blas_limit(blas_threads):
+            if isinstance(encoder, FrameEncoder):
+                framed = _cast_levels(chunk, encoder.levels, where)
+                enc = encoder.encode(framed, where, keep_frame=True)
+            else:
+                enc = encoder.encode(chunk, where)
+            if enc.x.shape[0]:
+                part = rp.block(enc.x, enc.y, enc.w, enc.frame, where)
+                acc = part if acc is None else rp.merge(acc, part)
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     return rp.finish(acc)

@@ -36,6 +36,7 @@ distributed pass returning an estimate to give as ``covariance=`` to the fit's t
 
 from __future__ import annotations
 
+import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -44,6 +45,7 @@ import numpy as np
 import pandas as pd
 
 from . import linalg
+from ._threads import blas_limit, check_threads
 from .chunked import FrameEncoder, _cast_levels, _formula_variables
 from .design import CoefficientIndex, design_from_arrays
 from .errors import IncompatibleFitError, InputError, OptionalDependencyError
@@ -76,23 +78,27 @@ def _require_dask() -> Any:
     return dask
 
 
-class _Limited:
-    """Run a function with BLAS limited to a number of threads (None: no limit)."""
+_Spec = tuple[int | None, int]  # (BLAS threads per task, the client's process id)
 
-    def __init__(self, threads: int | None) -> None:
-        self.threads = threads
+
+class _Limited:
+    """Limit BLAS threads inside a task that runs in another process than the client.
+
+    ``spec`` is ``(threads, client pid)``.  Tasks that run in the client's process (the local
+    threaded and synchronous schedulers) are covered by one limit around ``dask.compute``
+    instead: concurrent per-task limits in one process could race and leave it limited.
+    """
+
+    def __init__(self, spec: _Spec) -> None:
+        threads, client = spec
+        self.threads = threads if os.getpid() != client else None
 
     def __enter__(self) -> None:
-        self._ctx = None
-        if self.threads is not None:
-            from threadpoolctl import threadpool_limits
-
-            self._ctx = threadpool_limits(limits=self.threads, user_api="blas")
-            self._ctx.__enter__()
+        self._ctx = blas_limit(self.threads)
+        self._ctx.__enter__()
 
     def __exit__(self, *exc: object) -> None:
-        if self._ctx is not None:
-            self._ctx.__exit__(*exc)
+        self._ctx.__exit__(*exc)
 
 
 @dataclass(frozen=True)
@@ -142,23 +148,10 @@ def _check_split(split_every: int) -> None:
         raise InputError(f"split_every must be a whole number >= 2, got {split_every!r}.")
 
 
-def _check_threads(blas_threads: int | None) -> None:
-    if blas_threads is None:
-        return
-    if (
-        isinstance(blas_threads, bool)
-        or not isinstance(blas_threads, (int, np.integer))
-        or blas_threads < 1
-    ):
-        raise InputError(
-            f"blas_threads must be a positive whole number or None, got {blas_threads!r}."
-        )
-
-
 # -- DataFrames --------------------------------------------------------------------------------
 
 
-def _frame_part(frame: pd.DataFrame, encoder: FrameEncoder, k: int, threads: int | None) -> _Part:
+def _frame_part(frame: pd.DataFrame, encoder: FrameEncoder, k: int, threads: _Spec) -> _Part:
     where = f"partition {k}"
     with _Limited(threads):
         enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
@@ -290,7 +283,7 @@ def fit_dask(
 
     FrameEncoder.check_options(formula, weights, missing)
     _check_split(split_every)
-    _check_threads(blas_threads)
+    check_threads(blas_threads)
     if isinstance(data, pd.DataFrame):
         raise InputError("data is a pandas DataFrame: use lc.fit for data in memory.")
     if not isinstance(data, dd.DataFrame):
@@ -306,10 +299,11 @@ def fit_dask(
     )
     enc_d = dask.delayed(encoder, pure=True)
     leaves = [
-        dask.delayed(_frame_part, pure=True)(part, enc_d, k, blas_threads)
+        dask.delayed(_frame_part, pure=True)(part, enc_d, k, (blas_threads, os.getpid()))
         for k, part in enumerate(data.to_delayed())
     ]
-    (total,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
+    with blas_limit(blas_threads):
+        (total,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
     if total.moments is None:
         raise InputError(
             f"no rows to fit: the {data.npartitions} partitions held {total.rows} rows, all with"
@@ -348,7 +342,7 @@ def _array_moments(
     w: np.ndarray | None,
     spec: _ArraySpec,
     k: int,
-    threads: int | None,
+    threads: _Spec,
 ) -> _Part:
     try:
         d = design_from_arrays(
@@ -451,7 +445,7 @@ def fit_dask_arrays(
     """
     dask = _require_dask()
     _check_split(split_every)
-    _check_threads(blas_threads)
+    check_threads(blas_threads)
     xs, ys, ws, p = _blocks(x, y, weights)
     if names is None:
         names = [f"x{j}" for j in range(p)]
@@ -464,11 +458,14 @@ def fit_dask_arrays(
         spec_d = dask.delayed(_ArraySpec(names_t, intercept), pure=True)
         leaves = [
             dask.delayed(_array_moments, pure=True)(
-                xk, yk, None if ws is None else ws[k], spec_d, k, blas_threads
+                xk, yk, None if ws is None else ws[k], spec_d, k, (blas_threads, os.getpid())
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
-        (tot,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
+        with blas_limit(blas_threads):
+            (tot,) = dask.compute(
+                _tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler
+            )
         return tot
 
     total = run(guess)
@@ -499,9 +496,7 @@ def fit_dask_arrays(
 # -- second pass -------------------------------------------------------------------------------
 
 
-def _frame_rows(
-    frame: pd.DataFrame, encoder: FrameEncoder, rp: Any, k: int, threads: int | None
-) -> Any:
+def _frame_rows(frame: pd.DataFrame, encoder: FrameEncoder, rp: Any, k: int, threads: _Spec) -> Any:
     where = f"partition {k}"
     with _Limited(threads):
         enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where, keep_frame=True)
@@ -511,7 +506,12 @@ def _frame_rows(
 
 
 def _array_rows(
-    x: np.ndarray, y: np.ndarray, w: np.ndarray | None, rp: Any, k: int, threads: int | None
+    x: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray | None,
+    rp: Any,
+    k: int,
+    threads: _Spec,
 ) -> Any:
     with _Limited(threads):
         x = np.asarray(x, dtype=np.float64)
@@ -577,7 +577,7 @@ def covariance_pass(
     from ._robust_pass import RowPass
 
     _check_split(split_every)
-    _check_threads(blas_threads)
+    check_threads(blas_threads)
     encoder = getattr(fit._design, "encoder", None)
     rp = RowPass(fit, covariance)
     rp_d = dask.delayed(rp, pure=True)
@@ -588,7 +588,7 @@ def covariance_pass(
             raise InputError("this fit came from a Dask DataFrame: pass that DataFrame again.")
         enc_d = dask.delayed(encoder, pure=True)
         leaves = [
-            dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, blas_threads)
+            dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, (blas_threads, os.getpid()))
             for k, part in enumerate(data.to_delayed())
         ]
     elif isinstance(encoder, _ArraySpec):
@@ -599,7 +599,7 @@ def covariance_pass(
             raise IncompatibleFitError(f"x has {p} columns but the fit has {len(fit.names)}.")
         leaves = [
             dask.delayed(_array_rows, pure=True)(
-                xk, yk, None if ws is None else ws[k], rp_d, k, blas_threads
+                xk, yk, None if ws is None else ws[k], rp_d, k, (blas_threads, os.getpid())
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
@@ -612,5 +612,6 @@ def covariance_pass(
     def merge(*parts: Any) -> Any:
         return _merge_rows(rp, *parts)
 
-    (total,) = dask.compute(_tree(dask, leaves, merge, split_every), scheduler=scheduler)
+    with blas_limit(blas_threads):
+        (total,) = dask.compute(_tree(dask, leaves, merge, split_every), scheduler=scheduler)
     return rp.finish(total)

@@ -39,10 +39,12 @@ residuals row by row (use :meth:`ManyFit.fit_of` for one response).
 
 from __future__ import annotations
 
-import contextlib
 import difflib
 import html
-from collections.abc import Callable, Mapping, Sequence
+import os
+from collections import deque
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -53,6 +55,7 @@ from scipy import stats
 
 from . import linalg
 from ._format import _num, _p, _table_html, _table_text
+from ._threads import blas_limit, check_threads
 from .design import Design, design_from_arrays, design_from_formula
 from .errors import (
     DegenerateFitError,
@@ -76,9 +79,11 @@ __all__ = [
 
 #: Bytes of response values projected at a time (bounds the work memory of a fit; blocks stay
 #: cache-sized).  A block holds at least :data:`MIN_BLOCK_COLUMNS` responses.
-BLOCK_BYTES: int = 2**20
+BLOCK_BYTES: int = 2**21
 #: Fewest responses per block, so that very tall designs still use matrix products.
 MIN_BLOCK_COLUMNS: int = 16
+#: Most threads projecting blocks by default (the work is bound by memory bandwidth).
+MAX_WORKERS: int = 4
 
 #: Columns of :meth:`ManyWaldTest.to_frame` (one row per response).
 SCREEN_COLUMNS = (
@@ -122,34 +127,6 @@ _DUMMY = "__lincomb_response__"
 #: Status of a response (and of its test), in code order.
 STATUSES = ("ok", "too few rows", "exact fit", "not estimable")
 _OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
-
-_CONTROLLER: Any = None
-
-
-def _blas_threads(threads: int | None) -> contextlib.AbstractContextManager[Any]:
-    """Limit BLAS to ``threads`` while blocks are projected (needs threadpoolctl; else no-op).
-
-    Each block's products are small: waking BLAS worker threads for each costs more than the
-    product, and on a busy machine it can stall for milliseconds per call.
-    """
-    global _CONTROLLER
-    if threads is None:
-        return contextlib.nullcontext()
-    try:
-        from threadpoolctl import ThreadpoolController
-    except ImportError:
-        return contextlib.nullcontext()
-    if _CONTROLLER is None:
-        _CONTROLLER = ThreadpoolController()
-    return _CONTROLLER.limit(limits=threads, user_api="blas")
-
-
-def _check_threads(threads: int | None) -> None:
-    if threads is None:
-        return
-    if isinstance(threads, bool) or not isinstance(threads, (int, np.integer)) or threads < 1:
-        raise InputError(f"blas_threads must be a positive whole number or None, got {threads!r}.")
-
 
 # -- response sources --------------------------------------------------------------------------
 
@@ -730,7 +707,7 @@ class ManyFit:
         >>> bool(abs(res.statistic[1] - ref.statistic) < 1e-9 * ref.statistic)
         True
         """
-        with _blas_threads(self._blas):
+        with blas_limit(self._blas):
             return self._wald(as_system(restrictions))
 
     def _wald(self, system: Any) -> ManyWaldTest:
@@ -933,6 +910,7 @@ def _build(
     formula: str | None,
     frame: pd.DataFrame | None,
     blas_threads: int | None = 1,
+    workers: int = 1,
 ) -> ManyFit:
     if missing not in ("drop", "raise"):
         raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
@@ -951,12 +929,7 @@ def _build(
     main_cols: list[NDArray[np.intp]] = []
     patterns: dict[bytes, list[int]] = {}
     masks: dict[bytes, NDArray[np.bool_]] = {}
-    for j0 in range(0, r, width):
-        cols = np.arange(j0, min(r, j0 + width))
-        yb = source.block(slice(j0, j0 + cols.size))
-        if positions is not None:
-            yb = yb[positions]
-        block = factor.project(yb)
+    for j0, cols, yb, block in _projected(factor, source, positions, r, width, workers):
         good = block.finite()  # a NaN or inf in a column makes its summaries non-finite
         if not good.all():
             bad = np.flatnonzero(~good)
@@ -1005,6 +978,51 @@ def _build(
         groups.append(_solve_group(gfactor, glf, [b for b in blocks if b is not None], cols, rows))
     fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
     return replace(fit, _blas=blas_threads)
+
+
+def _projected(
+    factor: linalg.DesignFactor,
+    source: _Responses,
+    positions: NDArray[np.intp] | None,
+    r: int,
+    width: int,
+    workers: int,
+) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], linalg.ResponseBlock]]:
+    """Blocks of responses with their projections, in order.
+
+    Blocks are read in this thread (pandas is not asked to serve several threads) and projected
+    by ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
+    """
+
+    def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+        cols = np.arange(j0, min(r, j0 + width))
+        yb = source.block(slice(j0, j0 + cols.size))
+        return cols, (yb if positions is None else yb[positions])
+
+    if workers <= 1:
+        for j0 in range(0, r, width):
+            cols, yb = read(j0)
+            yield j0, cols, yb, factor.project(yb)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[Any]]] = deque()
+        for j0 in range(0, r, width):
+            cols, yb = read(j0)
+            pending.append((j0, cols, yb, pool.submit(factor.project, yb)))
+            if len(pending) > workers:
+                k0, kc, ky, fut = pending.popleft()
+                yield k0, kc, ky, fut.result()
+        while pending:
+            k0, kc, ky, fut = pending.popleft()
+            yield k0, kc, ky, fut.result()
+
+
+def _workers(workers: object) -> int:
+    if workers is None:
+        return max(1, min(MAX_WORKERS, os.cpu_count() or 1))
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise InputError(f"workers must be a positive whole number or None, got {workers!r}.")
+    return int(workers)
 
 
 def _block_width(r: int, n: int) -> int:
@@ -1094,6 +1112,7 @@ def fit_many(
     rank_tol: float = linalg.RANK_TOL,
     response_names: Sequence[str] | None = None,
     blas_threads: int | None = 1,
+    workers: int | None = None,
 ) -> ManyFit:
     """Fit many responses on one design given by a formula's right-hand side.
 
@@ -1118,7 +1137,10 @@ def fit_many(
     blas_threads : int or None, default 1
         BLAS threads while the responses are projected, set with threadpoolctl when it is
         installed (``None`` leaves BLAS alone).  The products are small, one block of responses
-        at a time, and gain nothing from threads.
+        at a time, and gain nothing from BLAS threads.
+    workers : int, optional
+        Threads projecting blocks of responses in parallel (numpy and BLAS release the GIL).
+        Default: the number of CPUs, at most :data:`MAX_WORKERS`; 1 projects in this thread.
 
     Returns
     -------
@@ -1191,9 +1213,10 @@ def fit_many(
     else:
         src = _array_source(responses, len(data), response_names, data.index)
         frame = data
-    _check_threads(blas_threads)
-    with _blas_threads(blas_threads):
-        return _build(dsg, src, positions, missing, rank_tol, rhs, frame, blas_threads)
+    check_threads(blas_threads)
+    nw = _workers(workers)
+    with blas_limit(blas_threads):
+        return _build(dsg, src, positions, missing, rank_tol, rhs, frame, blas_threads, nw)
 
 
 def fit_many_arrays(
@@ -1206,6 +1229,7 @@ def fit_many_arrays(
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
     blas_threads: int | None = 1,
+    workers: int | None = None,
 ) -> ManyFit:
     """Fit many responses (columns of an (n, r) array or DataFrame) on one design ``X``.
 
@@ -1226,6 +1250,8 @@ def fit_many_arrays(
     rank_tol : float, default 1e-10
     blas_threads : int or None, default 1
         As for :func:`fit_many`.
+    workers : int, optional
+        As for :func:`fit_many`.
 
     Returns
     -------
@@ -1244,6 +1270,7 @@ def fit_many_arrays(
     n = np.shape(x)[0] if np.ndim(x) else 0
     dsg = design_from_arrays(x, np.zeros(n), names=names, weights=weights, response="")
     src = _array_source(responses, dsg.x.shape[0], response_names, None)
-    _check_threads(blas_threads)
-    with _blas_threads(blas_threads):
-        return _build(dsg, src, None, missing, rank_tol, None, None, blas_threads)
+    check_threads(blas_threads)
+    nw = _workers(workers)
+    with blas_limit(blas_threads):
+        return _build(dsg, src, None, missing, rank_tol, None, None, blas_threads, nw)

@@ -8,6 +8,8 @@ mtcars, airquality, carData's Prestige).
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -186,10 +188,18 @@ def test_missing_extra_is_a_typed_error(
         fit_dask("mpg ~ wt", mtcars)
 
 
-def test_tasks_limit_blas_threads() -> None:
-    # threadpoolctl reports the limit in force inside a task's context.
-    with distributed._Limited(1):
-        inside = [
-            i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"
-        ]
-    assert inside and all(t == 1 for t in inside)
+def _blas_threads() -> list[int]:
+    return [i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"]
+
+
+def test_tasks_limit_blas_threads(mtcars: pd.DataFrame) -> None:
+    # threadpoolctl reports the limit in force inside a task run in a worker process (the
+    # client's pid differs), and none inside the client itself (its compute is limited once).
+    before = _blas_threads()
+    with distributed._Limited((1, -1)):
+        assert all(t == 1 for t in _blas_threads())
+    with distributed._Limited((1, os.getpid())):
+        assert _blas_threads() == before
+    # a threaded fit leaves the process's BLAS threads as they were
+    fit_dask("mpg ~ wt", dd.from_pandas(mtcars, npartitions=4), scheduler="threads")
+    assert _blas_threads() == before

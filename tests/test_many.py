@@ -291,14 +291,24 @@ def test_infinite_response_is_refused(mtcars: pd.DataFrame) -> None:
         lc.fit_many("~ wt", mtcars, responses=ys)
 
 
-def test_blocks_give_the_same_answer(monkeypatch: pytest.MonkeyPatch, iris: pd.DataFrame) -> None:
-    # Forcing one response per block exercises the block loop; results must not change.
-    ys = iris[["sepal_length", "sepal_width", "petal_length"]]
-    whole = lc.fit_many("~ Species", iris, responses=ys).wald(lc.term("Species") == 0)
+@pytest.mark.parametrize("workers", [1, 3])
+def test_blocks_give_the_same_answer(
+    monkeypatch: pytest.MonkeyPatch, airquality: pd.DataFrame, workers: int
+) -> None:
+    # One response per block, projected by one or several threads, with missing values in
+    # some blocks: the results must not change.
+    ys = airquality[["Ozone", "Temp", "Solar_R", "Wind"]]
+    whole = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
     monkeypatch.setattr(many, "BLOCK_BYTES", 8)
     monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
-    split = lc.fit_many("~ Species", iris, responses=ys).wald(lc.term("Species") == 0)
-    np.testing.assert_allclose(split.statistic, whole.statistic, rtol=1e-13)
+    split = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=workers)
+    system = lc.term("C(Month)") == 0
+    np.testing.assert_allclose(
+        split.wald(system).statistic, whole.wald(system).statistic, rtol=1e-13
+    )
+    assert split.n_obs.tolist() == whole.n_obs.tolist() == [116, 153, 146, 153]
+    with pytest.raises(InputError, match="workers must be a positive whole number"):
+        lc.fit_many("~ C(Month)", airquality, responses=ys, workers=0)
 
 
 def test_screen_several_tests_and_family_all(mtcars: pd.DataFrame) -> None:
