@@ -65,12 +65,11 @@ from .errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
     InputError,
-    NotEstimableError,
     OptionalDependencyError,
     ParameterError,
     UnreachablePowerError,
 )
-from .fit import LinearFit
+from .fit import LinearFit, check_rows
 from .restriction import RestrictionSystem, as_system
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -1036,35 +1035,7 @@ def power_plan(
         )
     c, d, labels = design.resolve(restrictions)
     sol = design._sol
-    cu = sol.to_working(c)
-    analysis = linalg.analyze_rows(cu, d, linalg.ROW_TOL)
-    if analysis.inconsistent:
-        lines = []
-        for row, dval, implied in analysis.inconsistent:
-            dep = analysis.dependencies[row]
-            combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
-            lines.append(
-                f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
-                f" but its d is {dval:.6g}"
-            )
-        raise InconsistentRestrictionError(
-            "the restrictions contradict each other: "
-            + "; ".join(lines)
-            + ". Remove one of the conflicting rows or correct its value."
-        )
-    resid = sol.estimability_residual(cu)
-    bad = np.flatnonzero(resid > linalg.ROW_TOL)
-    if bad.size:
-        msgs = []
-        for i in bad:
-            touched = [design.names[j] for j in sol.aliased_touched(cu[i], linalg.ROW_TOL)]
-            msgs.append(f"row {int(i)} ({labels[i]}) involves aliased coefficients {touched}")
-        raise NotEstimableError(
-            "restriction not estimable under the planned design: "
-            + "; ".join(msgs)
-            + f". Aliased columns: {list(design.aliased)}. Restate the row as a contrast the"
-            " design identifies, or change the planned pattern so those columns are not aliased."
-        )
+    cu, analysis = check_rows(sol, c, d, labels, design.names, where="the planned design")
     # one replicate, σ = 1: Cov(Cβ̂) = rootᵀ root with root = R⁻ᵀ C_keptᵀ (C-ordered for BLAS)
     root = np.ascontiguousarray(sol.root(np.asfortranarray(cu[:, sol.kept])))
     return PowerPlan(
