@@ -12,6 +12,12 @@ if TYPE_CHECKING:  # pragma: no cover
     from .results import RestrictedFit, WaldBatch, WaldTest
 
 
+def _p_clause(p: float) -> str:
+    """``p = 0.031`` or ``p < 1e-16`` (never ``p = < 1e-16``)."""
+    text = _p(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
+
+
 def _p(p: float) -> str:
     if not np.isfinite(p):
         return "nan"
@@ -96,7 +102,7 @@ def _wald_head(w: WaldTest) -> str:
     red = f"; {len(w.redundant)} redundant row(s) ignored" if w.redundant else ""
     return (
         f"Wald test of {len(w.labels)} restriction row(s), rank {w.df_num}{red}\n"
-        f"{dist} = {w.statistic:.6g}, p = {_p(w.p_value)}  [{w.covariance} covariance]"
+        f"{dist} = {w.statistic:.6g}, {_p_clause(w.p_value)}  [{w.covariance} covariance]"
     )
 
 
