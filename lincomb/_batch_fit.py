@@ -235,13 +235,16 @@ def wald_batch(
         core = wald_systems(
             fit._sol, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
         )
-    status = np.where(core.rank < m, "redundant", "independent").astype(object)
-    for s in core.singular:
-        status[s] = "singular covariance"
-    for s in core.not_estimable:
-        status[s] = "not estimable"
-    for s in core.inconsistent:
-        status[s] = "inconsistent"
+    status = ["independent"] * k
+    for s in core.exact.tolist():  # only these can be anything else
+        if s in core.inconsistent:
+            status[s] = "inconsistent"
+        elif s in core.not_estimable:
+            status[s] = "not estimable"
+        elif s in core.singular:
+            status[s] = "singular covariance"
+        elif core.rank[s] < m:
+            status[s] = "redundant"
     q = core.rank
     with np.errstate(divide="ignore", invalid="ignore"):
         if ref == "F":
@@ -262,7 +265,7 @@ def wald_batch(
         df_num=q,
         df_den=df_den,
         p_value=p_value,
-        status=tuple(status.tolist()),
+        status=tuple(status),
         redundant=core.dependencies,
         names=tuple(fit.names),
         matrix=cs,

@@ -118,6 +118,14 @@ class BatchCore:
     exact: NDArray[np.intp]
 
 
+def _to_working(sol: Solution, c: Array) -> Array:
+    """:meth:`Solution.to_working` for a stack of systems, in two passes over ``c``."""
+    if sol.intercept is None:
+        return c / sol.scale
+    j = sol.intercept
+    return np.subtract(c, c[..., j : j + 1] * sol.center, order="C") / sol.scale
+
+
 def _dot(a: Array, b: Array) -> Array:
     """Row-wise dot products over the last axis (plain loops, no BLAS threads for tiny rows)."""
     return np.einsum("...i,...i->...", a, b)
@@ -143,7 +151,8 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
             x = x - np.einsum("kip,ki->kp", b, np.einsum("kip,kp->ki", b, x))
         rn = np.sqrt(_dot(x, x))
         out[:, i] = np.where(norms[:, i] > 0, rn, 0.0)
-        v[:, i, :] = x / np.where(rn > 0, rn, 1.0)[:, None]
+        if i + 1 < m:
+            v[:, i, :] = x / np.where(rn > 0, rn, 1.0)[:, None]
     return out, norms
 
 
@@ -188,10 +197,12 @@ def root_rows(r: Array, rows: Array, sigma: float = 1.0) -> Array:
     True
     """
     n, k = rows.shape
-    out = np.empty((n, k))
+    rt = np.ascontiguousarray(rows.T)  # one row per column of R: each step is a long axpy
+    xt = np.empty((k, n))
     for j in range(k):
-        acc = rows[:, j] - np.einsum("ni,i->n", out[:, :j], r[:j, j]) if j else rows[:, 0]
-        out[:, j] = acc / r[j, j]
+        acc = rt[j] - np.einsum("i,in->n", r[:j, j], xt[:j]) if j else rt[0]
+        np.divide(acc, r[j, j], out=xt[j])
+    out = np.ascontiguousarray(xt.T)
     if sigma != 1.0:
         out *= sigma
     return out
@@ -272,7 +283,7 @@ def wald_systems(
     True
     """
     k, m, p = c.shape
-    cu = sol.to_working(c)
+    cu = _to_working(sol, c)
     flat = cu.reshape(k * m, p)[:, sol.kept]
     estimate = np.einsum("nr,r->n", flat, sol.theta).reshape(k, m)
     delta = estimate - d
@@ -301,7 +312,7 @@ def wald_systems(
     rank = np.full(k, m, dtype=np.intp)
     fast = np.flatnonzero(clear)
     if fast.size:
-        rv = _stacked_triangle(root[fast])
+        rv = _stacked_triangle(root if fast.size == k else root[fast])
         if cov_rank_tol is not None:
             diag = np.abs(np.diagonal(rv, axis1=1, axis2=2))
             tiny = np.finfo(float).tiny

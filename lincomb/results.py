@@ -629,8 +629,9 @@ class WaldBatch:
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]))
-        >>> b.rows_frame(level=0.9)[["system", "row", "level"]].values.tolist()
-        [[0, 0, 0.9], [1, 0, 0.9]]
+        >>> rows = b.rows_frame(level=0.9)
+        >>> rows[["system", "row"]].values.tolist(), rows["level"].tolist()
+        ([[0, 0], [1, 0]], [0.9, 0.9])
         """
         if not (0 < level < 1):
             raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
@@ -643,7 +644,7 @@ class WaldBatch:
         labels = [lab for s in range(k) for lab in self.row_labels(s)]
         return pd.DataFrame(
             {
-                "system": np.repeat(np.array(self.systems, dtype=object), m),
+                "system": [sid for sid in self.systems for _ in range(m)],
                 "row": np.tile(np.arange(m), k),
                 "restriction": labels,
                 "estimate": self.estimate.ravel(),
