@@ -38,19 +38,18 @@ repeat; medians and the median of the per-repeat ratios are reported.
 
 from __future__ import annotations
 
-import argparse
-import contextlib
-import json
-import os
-import platform
 import statistics
-import sys
 import time
 import tracemalloc
 from collections.abc import Iterator
 from typing import Any
 
 import numpy as np
+
+try:
+    from _common import emit, machine, parser, thread_limit
+except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
+    from benchmarks._common import emit, machine, parser, thread_limit
 
 SEED = 20240801
 P = 20
@@ -87,13 +86,6 @@ class Chunks:
                 item = (x, y)
             self.seconds += time.perf_counter() - t0
             yield item
-
-
-def blas_info() -> list[dict[str, Any]]:
-    from threadpoolctl import threadpool_info
-
-    keep = ("user_api", "internal_api", "num_threads", "version", "architecture", "prefix")
-    return [{k: d.get(k) for k in keep} for d in threadpool_info()]
 
 
 def chunked_pass(n: int, chunk: int, frames: bool = False) -> tuple[Any, float, float]:
@@ -196,11 +188,7 @@ def run(repeats: int, chunk: int, big: bool) -> dict[str, Any]:
         "max_rel_diff_coefficients": coef_rel,
         "rel_diff_F": f_rel,
         "max_rel_diff_coefficients_frames": frame_rel,
-        "blas": blas_info(),
-        "python": sys.version.split()[0],
-        "machine": platform.machine(),
-        "cpus": os.cpu_count(),
-        "load_average": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
+        **machine(),
     }
 
 
@@ -239,22 +227,16 @@ def report(res: dict[str, Any]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--json", action="store_true", help="also print one JSON object last")
-    ap.add_argument("--threads", type=int, default=None, help="BLAS threads (threadpoolctl)")
+    ap = parser(__doc__)
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--chunk", type=int, default=100_000, help="rows per chunk")
     ap.add_argument("--big", action="store_true", help="second case n = 20,000,000 (slow)")
     args = ap.parse_args(argv)
     import scipy.linalg  # noqa: F401 - load scipy's BLAS so threadpoolctl sees it
-    from threadpoolctl import threadpool_limits
 
-    ctx = threadpool_limits(args.threads) if args.threads else contextlib.nullcontext()
-    with ctx:
+    with thread_limit(args.threads):
         res = run(args.repeats, args.chunk, args.big)
-    print(report(res))
-    if args.json:
-        print(json.dumps(res, sort_keys=True))
+    emit(report(res), res, args.json)
     return 0
 
 

@@ -34,17 +34,17 @@ we report the median time of each and the median of the per-repeat ratios.
 
 from __future__ import annotations
 
-import argparse
-import contextlib
-import json
-import os
-import platform
 import sys
 import time
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
+
+try:
+    from _common import scaled_main
+except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
+    from benchmarks._common import scaled_main
 
 SEED = 20240602
 N = 100_000
@@ -83,13 +83,6 @@ def ratio(res: dict, num: str, den: str) -> float:
     """Median over repeats of time[num] / time[den] (both measured in the same repeat)."""
     t = res["times"]
     return float(np.median(np.array(t[num]) / np.array(t[den])))
-
-
-def blas_info() -> list[dict[str, Any]]:
-    from threadpoolctl import threadpool_info
-
-    keep = ("user_api", "internal_api", "num_threads", "version", "architecture", "prefix")
-    return [{k: d.get(k) for k in keep} for d in threadpool_info()]
 
 
 def run(repeats_scale: float = 1.0) -> dict[str, Any]:
@@ -273,40 +266,7 @@ def report(res: dict[str, Any]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--json", action="store_true", help="also print one JSON object last")
-    ap.add_argument("--threads", type=int, default=None, help="limit BLAS threads to N")
-    ap.add_argument(
-        "--repeats", type=float, default=1.0, help="scale the number of repeats (default 1)"
-    )
-    args = ap.parse_args(argv)
-
-    # load every BLAS before limiting threads: threadpoolctl limits only loaded libraries
-    import scipy
-    import scipy.linalg  # noqa: F401
-    import statsmodels
-    import statsmodels.api  # noqa: F401
-    from threadpoolctl import threadpool_limits
-
-    import lincomb  # noqa: F401
-
-    ctx = threadpool_limits(args.threads) if args.threads else contextlib.nullcontext()
-    with ctx:
-        res = run(args.repeats)
-        res["blas"] = blas_info()
-    res.update(
-        python=platform.python_version(),
-        numpy=np.__version__,
-        scipy=scipy.__version__,
-        statsmodels=statsmodels.__version__,
-        threads=args.threads or "none (library default)",
-        env={k: os.environ.get(k, "unset") for k in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")},
-        cpu_count=os.cpu_count(),
-    )
-    print(report(res))
-    if args.json:
-        print(json.dumps(res, sort_keys=True))
-    return 0
+    return scaled_main(__doc__, run, report, argv)
 
 
 if __name__ == "__main__":

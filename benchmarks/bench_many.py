@@ -39,18 +39,17 @@ of other processes).
 
 from __future__ import annotations
 
-import argparse
-import contextlib
-import json
-import os
-import platform
 import statistics
-import sys
 import time
 import tracemalloc
 from typing import Any
 
 import numpy as np
+
+try:
+    from _common import emit, machine, parser, thread_limit
+except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
+    from benchmarks._common import emit, machine, parser, thread_limit
 
 SEED = 20240715
 N, P, R = 500, 10, 10_000
@@ -62,13 +61,6 @@ def make_data() -> tuple[np.ndarray, np.ndarray]:
     y = rng.normal(size=(N, R))
     y[:, ::7] += 0.2 * x[:, [3]]  # a few responses with a real effect on x3
     return x, y
-
-
-def blas_info() -> list[dict[str, Any]]:
-    from threadpoolctl import threadpool_info
-
-    keep = ("user_api", "internal_api", "num_threads", "version", "architecture", "prefix")
-    return [{k: d.get(k) for k in keep} for d in threadpool_info()]
 
 
 def run(repeats: int, subset: int) -> dict[str, Any]:
@@ -146,11 +138,7 @@ def run(repeats: int, subset: int) -> dict[str, Any]:
         "target_memory": 1.2,
         "max_rel_diff_F_vs_statsmodels": f_rel,
         "max_rel_diff_p_vs_statsmodels": p_rel,
-        "blas": blas_info(),
-        "python": sys.version.split()[0],
-        "machine": platform.machine(),
-        "cpus": os.cpu_count(),
-        "load_average": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
+        **machine(),
     }
 
 
@@ -181,22 +169,16 @@ def report(res: dict[str, Any]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--json", action="store_true", help="also print one JSON object last")
-    ap.add_argument("--threads", type=int, default=None, help="BLAS threads (threadpoolctl)")
+    ap = parser(__doc__)
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--subset", type=int, default=300, help="responses in the statsmodels loop")
     args = ap.parse_args(argv)
     import scipy.linalg  # noqa: F401 - load scipy's BLAS so threadpoolctl sees it
     import statsmodels.api  # noqa: F401
-    from threadpoolctl import threadpool_limits
 
-    ctx = threadpool_limits(args.threads) if args.threads else contextlib.nullcontext()
-    with ctx:
+    with thread_limit(args.threads):
         res = run(args.repeats, args.subset)
-    print(report(res))
-    if args.json:
-        print(json.dumps(res, sort_keys=True))
+    emit(report(res), res, args.json)
     return 0
 
 

@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import scipy.linalg as sla
 from numpy.typing import NDArray
 
 from . import covariance as covmod
@@ -83,7 +82,7 @@ class RowPass:
             resid *= sw
         if sol.rank == 0:
             return np.zeros((0, x.shape[0])), resid
-        zt = sla.solve_triangular(sol.r, xw.T, trans="T", check_finite=False)
+        zt = linalg.upper_solve(sol.r, xw.T, trans=True)
         return zt, resid
 
     def block(
@@ -96,18 +95,9 @@ class RowPass:
         if isinstance(est, covmod.Heteroskedastic):
             omega_root = np.abs(resid)
             if est.kind in ("HC2", "HC3", "HC4"):
-                n_all, k = self.fit.n_obs, self.sol.rank
-                h = np.einsum("ij,ij->j", zt, zt)
-                free = np.clip(1.0 - h, 0.0, None)
-                exact = free <= covmod.LEVERAGE_TOL
-                if est.kind == "HC2":
-                    power = np.ones(n)
-                elif est.kind == "HC3":
-                    power = np.full(n, 2.0)
-                else:
-                    power = np.minimum(4.0, n_all * h / k)
-                with np.errstate(divide="ignore", invalid="ignore"):
-                    adj = np.where(exact, 0.0, np.power(np.where(exact, 1.0, free), -power / 2))
+                adj = covmod._leverage_weights(
+                    est.kind, zt, self.fit.n_obs, self.sol.rank, root=True
+                )
                 omega_root = omega_root * adj
             scores = zt * omega_root
             return Partial(n, rss, linalg.triangular_factor(scores.T))

@@ -38,6 +38,15 @@ def blas_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
     return _CONTROLLER.limit(limits=threads, user_api="blas")
 
 
+def can_limit() -> bool:
+    """True when threadpoolctl is installed, so :func:`blas_limit` takes effect."""
+    try:
+        import threadpoolctl  # noqa: F401
+    except ImportError:  # pragma: no cover - the test environment has it
+        return False
+    return True
+
+
 def check_threads(threads: object) -> None:
     """Refuse a thread count that is not a positive whole number (``None`` is fine)."""
     if threads is None:

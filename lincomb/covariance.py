@@ -84,7 +84,6 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-import scipy.linalg as sla
 from numpy.typing import ArrayLike, NDArray
 from scipy import sparse, stats
 
@@ -234,18 +233,7 @@ class Heteroskedastic(Estimator):
         if self.kind == "HC1":
             scale = n / (n - k)
         elif self.kind in ("HC2", "HC3", "HC4"):
-            h = np.einsum("ij,ij->j", zt, zt)
-            free = np.clip(1.0 - h, 0.0, None)
-            exact = free <= LEVERAGE_TOL
-            if self.kind == "HC2":
-                power = np.ones(n)
-            elif self.kind == "HC3":
-                power = np.full(n, 2.0)
-            else:
-                power = np.minimum(4.0, n * h / k)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                adj = np.where(exact, 0.0, np.power(np.where(exact, 1.0, free), -power))
-            omega = omega * adj
+            omega = omega * _leverage_weights(self.kind, zt, n, k)
         factor, _ = _psd_factor(scale * ((zt * omega) @ zt.T))
         return CovarianceEstimate(
             method=self.kind,
@@ -302,7 +290,7 @@ class Clustered(Estimator):
         def meat_of(c: NDArray[np.intp], g: int) -> tuple[Array, float]:
             member = sparse.csc_array((u, c, rows), shape=(g, n))  # column i: u_i at row c_i
             sums = member @ xc  # (g, k)
-            sq = sla.solve_triangular(rs, sums.T, trans="T", check_finite=False)
+            sq = linalg.upper_solve(rs, sums.T, trans=True)
             adj = g / (g - 1) * (n - 1) / (n - k) if self.small_sample else 1.0
             return sq @ sq.T, adj
 
@@ -879,6 +867,27 @@ def _centered_rows(fit: LinearFit) -> tuple[Array, Array, Array, Array | None]:
     return xc, resid, sol.r * scale, design.weights
 
 
+def _leverage_weights(kind: str, zt: Array, n_obs: int, k: int, *, root: bool = False) -> Array:
+    """HC2-HC4 weights ``(1 - h_i)^-a_i`` of the squared residuals (``^-a_i/2``, for the
+    absolute residuals, with ``root``), from the working rows ``zt`` (k, n) of some or all of
+    the fit's ``n_obs`` rows.  A row with leverage within ``LEVERAGE_TOL`` of 1 gets weight 0:
+    its residual is exactly zero.
+    """
+    h = np.einsum("ij,ij->j", zt, zt)
+    free = np.clip(1.0 - h, 0.0, None)
+    exact = free <= LEVERAGE_TOL
+    if kind == "HC2":
+        power = np.ones(h.size)
+    elif kind == "HC3":
+        power = np.full(h.size, 2.0)
+    else:
+        power = np.minimum(4.0, n_obs * h / k)
+    if root:
+        power = power / 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(exact, 0.0, np.power(np.where(exact, 1.0, free), -power))
+
+
 def _working_rows(fit: LinearFit) -> tuple[Array, Array]:
     """``Zᵀ = R⁻ᵀ X̃_wᵀ`` (k, n) and the weighted residuals ``ẽ`` (n,), from the fit's rows."""
     xc, resid, rs, w = _centered_rows(fit)
@@ -888,7 +897,7 @@ def _working_rows(fit: LinearFit) -> tuple[Array, Array]:
         resid *= sw
     if rs.shape[0] == 0:
         return np.zeros((0, resid.size)), resid
-    zt = sla.solve_triangular(rs, xc.T, trans="T", check_finite=False)
+    zt = linalg.upper_solve(rs, xc.T, trans=True)
     return zt, resid
 
 

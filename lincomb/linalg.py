@@ -50,11 +50,14 @@ the null space of the design is at most ``row_tol`` times its norm (both in work
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
+
+from ._threads import blas_limit, can_limit
 
 __all__ = [
     "RANK_TOL",
@@ -225,6 +228,10 @@ class Moments:
 
 #: Rows per block when a row-ordered design is copied into the column-ordered work array.
 _COPY_ROWS = 1024
+#: Rows per block when a tall design is factored block by block (see moments_from_arrays).
+_QR_ROWS = 8192
+#: Designs this wide or wider are factored in one block (merging wide blocks costs more).
+_QR_MAX_COLS = 128
 
 
 def _weighted_mean(a: Array, w: Array | None) -> Array:
@@ -259,6 +266,14 @@ def moments_from_arrays(
     centred columns are orthogonal to the intercept to working precision even when the offset is
     huge.  The factor is computed by :func:`triangular_factor`.
 
+    Called on the main thread with at least ``2 * _QR_ROWS`` rows, fewer than ``_QR_MAX_COLS``
+    columns and threadpoolctl installed, blocks of ``_QR_ROWS`` rows are factored one by one on
+    one BLAS thread, centred on a common shift and then on their own means, and merged by
+    :func:`merge_moments` in a balanced tree: each block is copied, centred and factored while
+    it is in cache, and no work array of the whole design is allocated.  The result equals the
+    one-block factor up to rounding; at n = 2,000,000, p = 20 it took 0.30 s against 0.63 s
+    for one block on two busy cores.
+
     Examples
     --------
     >>> import numpy as np
@@ -266,6 +281,59 @@ def moments_from_arrays(
     >>> m = moments_from_arrays(x, np.array([1.0, 2, 2, 4]), intercept=0)
     >>> m.n, float(m.center[1])
     (4, 2.75)
+    """
+    n, p = x.shape
+    # only on the main thread: limits set and restored by concurrent threads race (a thread's
+    # restore can be lost and leave the process on one BLAS thread)
+    on_main = threading.current_thread() is threading.main_thread()
+    if not (n >= 2 * _QR_ROWS and p < _QR_MAX_COLS and on_main and can_limit()):
+        return _moments_block(x, y, w, intercept)
+    # Blocks are centred on a common shift (the means of the first block) before their own
+    # two-pass centring, so the block means, and the between-block rows of the merges, are of
+    # the spread of the data and not of its offset: large offsets cost no accuracy.
+    kept = np.arange(p + 1) if intercept is None else np.delete(np.arange(p + 1), intercept)
+    shift = None
+    if intercept is not None:
+        shift = np.append(x[:_QR_ROWS].mean(axis=0), y[:_QR_ROWS].mean())[kept]
+    with blas_limit(1):
+        parts = [
+            _moments_block(
+                x[s : s + _QR_ROWS],
+                y[s : s + _QR_ROWS],
+                None if w is None else w[s : s + _QR_ROWS],
+                intercept,
+                shift,
+            )
+            for s in range(0, n, _QR_ROWS)
+        ]
+        while len(parts) > 1:
+            pairs = range(0, len(parts) - 1, 2)
+            merged = [merge_moments(parts[i], parts[i + 1]) for i in pairs]
+            parts = merged + parts[len(merged) * 2 :]
+    m = parts[0]
+    if shift is None:
+        return m
+    center = m.center.copy()
+    center[kept] += shift
+    raw_norm = m.raw_norm.copy()
+    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", m.r, m.r) + m.weight_sum * center[kept] ** 2)
+    return Moments(
+        n=m.n,
+        weight_sum=m.weight_sum,
+        intercept=intercept,
+        center=center,
+        raw_norm=raw_norm,
+        r=m.r,
+    )
+
+
+def _moments_block(
+    x: Array, y: Array, w: Array | None, intercept: int | None, shift: Array | None = None
+) -> Moments:
+    """:func:`moments_from_arrays` on one block of rows, with one work array.
+
+    With ``shift`` (one value per centred column and the response), the block is centred on
+    ``shift`` first: ``center`` and ``raw_norm`` then describe the shifted data.
     """
     n, p = x.shape
     cols = np.arange(p) if intercept is None else np.delete(np.arange(p), intercept)
@@ -286,6 +354,8 @@ def moments_from_arrays(
     center = np.zeros(p + 1)
     wsum = float(n if w is None else w.sum())
     if intercept is not None and n > 0:
+        if shift is not None:
+            a -= shift
         m1 = _weighted_mean(a, w)
         a -= m1
         m2 = _weighted_mean(a, w)
@@ -608,16 +678,12 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         kept = np.concatenate([[m.intercept], kept_o]).astype(np.intp)
     else:
         rfull, zfull, kept = r11, z1, kept_o.astype(np.intp)
-    theta = sla.solve_triangular(rfull, zfull, check_finite=False) if kept.size else np.zeros(0)
+    theta = upper_solve(rfull, zfull) if kept.size else np.zeros(0)
     # null space: u_alias free, u_kept_o = -R11⁻¹ R12 u_alias (intercept rows stay zero)
     n_alias = alias_o.size
     null_vectors = np.zeros((p, n_alias))
     if n_alias:
-        coef = (
-            -sla.solve_triangular(r11, r12, check_finite=False)
-            if rank_o
-            else np.zeros((0, n_alias))
-        )
+        coef = -upper_solve(r11, r12) if rank_o else np.zeros((0, n_alias))
         null_vectors[kept_o, :] = coef
         null_vectors[alias_o, np.arange(n_alias)] = 1.0
         null_basis = np.linalg.qr(null_vectors)[0]
@@ -831,9 +897,9 @@ def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array
     q = delta_k.size
     qv, rv = np.linalg.qr(root_k, mode="complete")
     rv = rv[:q]
-    g = sla.solve_triangular(rv, delta_k, trans="T", check_finite=False)
-    step = -sla.solve_triangular(sol.r, qv[:, :q] @ g, check_finite=False)
-    w = sla.solve_triangular(sol.r, qv[:, q:], check_finite=False)
+    g = upper_solve(rv, delta_k, trans=True)
+    step = -upper_solve(sol.r, qv[:, :q] @ g)
+    w = upper_solve(sol.r, qv[:, q:])
     return step, w
 
 
@@ -1185,7 +1251,7 @@ def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Ar
         rs_k = m.r[:q, :q][:, pos] / sol.scale[kept_o]
         qk, rk = np.linalg.qr(rs_k, mode="complete")
         z = qk.T @ qty
-        theta_o = sla.solve_triangular(rk[:rank_o], z[:rank_o], check_finite=False)
+        theta_o = upper_solve(rk[:rank_o], z[:rank_o])
         tail = z[rank_o:]
     else:
         theta_o = np.zeros((0, r_count))
@@ -1230,5 +1296,5 @@ def wald_quadratic_forms(
     if independent.size == 0:
         return np.zeros(delta.shape[1]), se
     chol = triangular_factor(root[:, independent])
-    sol = sla.solve_triangular(chol, delta[independent], trans="T", check_finite=False)
+    sol = upper_solve(chol, delta[independent], trans=True)
     return np.einsum("ij,ij->j", sol, sol), se

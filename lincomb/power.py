@@ -1074,10 +1074,12 @@ def _effect_rows(
     )
 
 
-def _study_line(r: int, n: int, q: int, df2: int, lam: float, alpha: float, sigma: float) -> str:
+def _study_line(res: Any) -> str:
+    """The study line of a result with ``replicates, n_obs, df_num, df_den, noncentrality,
+    alpha, sigma`` (a :class:`PowerResult` or :class:`DetectableEffect`)."""
     return (
-        f"n = {n} ({r} replicate(s)); F({q}, {df2}) at alpha = {alpha:g}, sigma = {sigma:.6g};"
-        f" noncentrality = {lam:.6g}"
+        f"n = {res.n_obs} ({res.replicates} replicate(s)); F({res.df_num}, {res.df_den}) at"
+        f" alpha = {res.alpha:g}, sigma = {res.sigma:.6g}; noncentrality = {res.noncentrality:.6g}"
     )
 
 
@@ -1202,16 +1204,7 @@ class PowerResult:
     def _head(self) -> str:
         return (
             f"Power {self.power:.4f} of the F test of {len(self.labels)} restriction row(s),"
-            f" rank {self.df_num}\n"
-            + _study_line(
-                self.replicates,
-                self.n_obs,
-                self.df_num,
-                self.df_den,
-                self.noncentrality,
-                self.alpha,
-                self.sigma,
-            )
+            f" rank {self.df_num}\n" + _study_line(self)
         )
 
     def __repr__(self) -> str:
@@ -1297,13 +1290,9 @@ class SampleSize:
             if np.isfinite(self.previous_power)
             else ""
         )
-        r = self.result
         return (
             f"{self.replicates} replicate(s) (n = {self.n_obs}) reach power {self.power:.4f}"
-            f" >= {self.target_power:g}{prev}\n"
-            + _study_line(
-                r.replicates, r.n_obs, r.df_num, r.df_den, r.noncentrality, r.alpha, r.sigma
-            )
+            f" >= {self.target_power:g}{prev}\n" + _study_line(self.result)
         )
 
     def __repr__(self) -> str:
@@ -1397,16 +1386,7 @@ class DetectableEffect:
     def _head(self) -> str:
         return (
             f"Detectable with power {self.target_power:g}: scale {self.scale:.6g} along the"
-            f" direction {np.round(self.direction, 6).tolist()}\n"
-            + _study_line(
-                self.replicates,
-                self.n_obs,
-                self.df_num,
-                self.df_den,
-                self.noncentrality,
-                self.alpha,
-                self.sigma,
-            )
+            f" direction {np.round(self.direction, 6).tolist()}\n" + _study_line(self)
         )
 
     def __repr__(self) -> str:

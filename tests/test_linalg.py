@@ -289,3 +289,69 @@ def test_restricted_step_matches_kkt_solution():
     # restricted RSS = RSS + ‖R step‖² equals the direct weighted RSS at β_r
     rss_direct = float(w @ (y - x @ ref) ** 2)
     assert sol.rss + float(np.sum((sol.r @ step) ** 2)) == pytest.approx(rss_direct, rel=1e-9)
+
+
+@pytest.mark.parametrize("weighted", [False, True])
+@pytest.mark.parametrize("intercept", [0, None])
+def test_blocked_moments_by_identity(monkeypatch, weighted, intercept):
+    # Identity (common practice, no source): the factor of the centred, weighted [X y] satisfies
+    # RᵀR = Σ w (z - m)(z - m)ᵀ with m the weighted column means, however the rows are blocked.
+    monkeypatch.setattr(linalg, "_QR_ROWS", 64)
+    rng = np.random.default_rng(7)
+    n = 1000
+    x = np.column_stack([np.ones(n), rng.normal(size=(n, 3)) + [5.0, -2.0, 30.0]])
+    y = x @ [1.0, 0.5, -1.0, 2.0] + rng.normal(size=n)
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    x0, y0 = x.copy(), y.copy()
+    m = moments_from_arrays(x, y, w, intercept)
+    assert np.array_equal(x, x0) and np.array_equal(y, y0)  # inputs untouched
+    ww = np.ones(n) if w is None else w
+    z = np.column_stack([x, y]) if intercept is None else np.column_stack([x[:, 1:], y])
+    mean = (ww @ z) / ww.sum() if intercept is not None else np.zeros(z.shape[1])
+    zc = (z - mean) * np.sqrt(ww)[:, None]
+    np.testing.assert_allclose(m.r.T @ m.r, zc.T @ zc, rtol=1e-10)
+    assert m.n == n and m.weight_sum == pytest.approx(ww.sum(), rel=1e-14)
+    if intercept is not None:
+        np.testing.assert_allclose(m.center[1:], mean, rtol=1e-12)
+        np.testing.assert_allclose(m.raw_norm[1:], np.sqrt(ww @ z**2), rtol=1e-12)
+    # huge offsets: blocks centred on a common shift match the one-block two-pass factor to
+    # working precision (the between-block rows carry the spread, not the offset)
+    big = x.copy()
+    big[:, 1:] += 1e8
+    one = linalg._moments_block(big, y, w, 0)
+    blocked = moments_from_arrays(big, y, w, 0)
+    gram = one.r.T @ one.r
+    tol = 1e-12 * np.abs(gram).max()
+    np.testing.assert_allclose(blocked.r.T @ blocked.r, gram, rtol=1e-12, atol=tol)
+    np.testing.assert_allclose(blocked.center, one.center, rtol=1e-15)
+    np.testing.assert_allclose(blocked.raw_norm, one.raw_norm, rtol=1e-14)
+
+
+def test_moments_leave_blas_threads_as_they_were(monkeypatch):
+    # Concurrent callers leave the process's BLAS thread counts as they were (limits set and
+    # restored by several threads race), and the main thread's blocked factor restores them
+    # too; the blocked and one-block factors agree (common practice).
+    from concurrent.futures import ThreadPoolExecutor
+
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+    from lincomb import _threads
+
+    def counts() -> list[int]:
+        return [
+            i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"
+        ]
+
+    before = counts()
+    monkeypatch.setattr(linalg, "_QR_ROWS", 64)
+    rng = np.random.default_rng(3)
+    x = np.column_stack([np.ones(2000), rng.normal(size=(2000, 2))])
+    y = rng.normal(size=2000)
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        parts = list(pool.map(lambda _: moments_from_arrays(x, y, None, 0), range(16)))
+    assert counts() == before
+    main = moments_from_arrays(x, y, None, 0)  # blocked here, one block in the workers
+    assert counts() == before
+    np.testing.assert_allclose(main.r.T @ main.r, parts[0].r.T @ parts[0].r, rtol=1e-12)
+    with _threads.blas_limit(1):
+        assert all(c == 1 for c in counts())
+    assert counts() == before
