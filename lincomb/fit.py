@@ -555,24 +555,14 @@ class LinearFit:
         root_k = sol.root(cu[k][:, sol.kept])
         delta_k = cu[k][:, sol.kept] @ sol.theta - d[k]
         step, w = linalg.restricted_step(sol, root_k, delta_k)
-        theta_r = sol.theta + step
-        u = np.zeros(sol.p)
-        u[sol.kept] = theta_r
-        beta = u / sol.scale
-        if sol.intercept is not None:
-            beta[sol.intercept] -= sol.center @ beta
+        beta = sol.from_working(sol.theta + step)
         beta[sol.aliased] = np.nan
         rss_r = sol.rss + float(np.sum((sol.r @ step) ** 2))
         q = int(k.size)
         df_r = sol.df_resid + q
         sigma_r2 = rss_r / df_r
         # covariance: map W (working, kept) back to β through A = T⁻¹ S⁻¹ on kept columns
-        amap = np.zeros((sol.p, sol.rank))
-        for col, j in enumerate(sol.kept):
-            amap[j, col] = 1.0 / sol.scale[j]
-        if sol.intercept is not None:
-            amap[sol.intercept] -= sol.center @ amap
-        aw = amap @ w
+        aw = sol.from_working(w)
         cov = sigma_r2 * (aw @ aw.T)
         # a row naming one coefficient fixes it: write the exact value, not one off by rounding
         for i in k:

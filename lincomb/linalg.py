@@ -521,12 +521,31 @@ class Solution:
         >>> np.isnan(sol.coefficients()).tolist()
         [False, False, True, False]
         """
-        u = np.zeros(self.p)
-        u[self.kept] = self.theta
-        beta = u / self.scale
+        beta = self.from_working(self.theta)
+        beta[self.aliased] = np.nan
+        return beta
+
+    def from_working(self, theta: Array) -> Array:
+        """Map working coefficients of the kept columns back to ``β`` (``A θ``, ``A = T⁻¹ S⁻¹``).
+
+        ``theta`` is ``(rank,)`` or ``(rank, k)`` (one column each); aliased rows of the result
+        are zero.  Used for the coefficients, restricted coefficients and their covariance
+        factor, and many responses at once.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> x = np.column_stack([np.ones(5), [0.0, 1, 2, 3, 5]])
+        >>> sol = solve(moments_from_arrays(x, np.array([1.0, 2, 2, 4, 5]), intercept=0))
+        >>> bool(np.allclose(sol.from_working(sol.theta), np.linalg.lstsq(x, [1, 2, 2, 4, 5])[0]))
+        True
+        """
+        theta = np.asarray(theta, dtype=np.float64)
+        u = np.zeros((self.p, *theta.shape[1:]))
+        u[self.kept] = theta
+        beta = u / self.scale.reshape(-1, *([1] * (theta.ndim - 1)))
         if self.intercept is not None:
             beta[self.intercept] -= self.center @ beta
-        beta[self.aliased] = np.nan
         return beta
 
     def root(self, cu_kept: Array) -> Array:

@@ -266,11 +266,7 @@ def _solve_group(
 
 
 def _coefficients(sol: linalg.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
-    u = np.zeros((sol.p, theta.shape[1]))
-    u[sol.kept] = theta
-    beta = u / sol.scale[:, None]
-    if sol.intercept is not None:
-        beta[sol.intercept] -= sol.center @ beta
+    beta = sol.from_working(theta)
     beta[sol.aliased] = np.nan
     return beta
 
