@@ -13,6 +13,7 @@ import json
 import os
 import platform
 import sys
+import time
 from collections.abc import Callable
 from typing import Any
 
@@ -40,6 +41,15 @@ def thread_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
     from threadpoolctl import threadpool_limits
 
     return threadpool_limits(threads)
+
+
+def blas_line(blas: list[dict[str, Any]]) -> str:
+    """The loaded BLAS libraries (from :func:`blas_info`) on one line of a report."""
+    return "BLAS (threadpoolctl): " + "; ".join(
+        f"{d['internal_api']} {d['version']} {d.get('architecture')} threads={d['num_threads']}"
+        f" ({d['prefix']})"
+        for d in blas
+    )
 
 
 def blas_info() -> list[dict[str, Any]]:
@@ -75,6 +85,43 @@ def machine() -> dict[str, Any]:
         "cpus": os.cpu_count(),
         "load_average": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
     }
+
+
+def interleaved(
+    fns: dict[str, Callable[[], Any]],
+    rounds: int,
+    inner: dict[str, int] | None = None,
+    warmup: int = 2,
+) -> dict:
+    """Time callables round robin: each round runs every callable ``inner[name]`` times (1 by
+    default), each call timed on its own.  Returns every time and the medians (seconds)."""
+    inner = inner or {}
+    for f in fns.values():
+        for _ in range(warmup):
+            f()
+    times: dict[str, list[float]] = {name: [] for name in fns}
+    for _ in range(rounds):
+        for name, f in fns.items():
+            for _ in range(inner.get(name, 1)):
+                t0 = time.perf_counter()
+                f()
+                times[name].append(time.perf_counter() - t0)
+    median = {k: float(np.median(v)) for k, v in times.items()}
+    return {"median": median, "times": times, "inner": inner}
+
+
+def ratio(res: dict, num: str, den: str) -> float:
+    """Ratio of the median times (the headline figure)."""
+    return res["median"][num] / res["median"][den]
+
+
+def paired_ratio(res: dict, num: str, den: str) -> float:
+    """Median over rounds of time[num] / time[den], each from the first call of the round:
+    a second view that cancels slow drifts of the machine's load."""
+    t, inner = res["times"], res["inner"]
+    first_num = np.array(t[num])[:: inner.get(num, 1)]
+    first_den = np.array(t[den])[:: inner.get(den, 1)]
+    return float(np.median(first_num / first_den))
 
 
 def emit(text: str, res: dict[str, Any], as_json: bool) -> None:

@@ -47,16 +47,14 @@ with ``--threads 1``.
 from __future__ import annotations
 
 import sys
-import time
-from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 
 try:
-    from _common import scaled_main
+    from _common import blas_line, interleaved, paired_ratio, ratio, scaled_main
 except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
-    from benchmarks._common import scaled_main
+    from benchmarks._common import blas_line, interleaved, paired_ratio, ratio, scaled_main
 
 SEED = 20240601
 N_SINGLE = 100_000
@@ -88,43 +86,6 @@ def make_systems(k: int, seed: int = SEED + 1) -> tuple[np.ndarray, np.ndarray, 
     for s, (i, j, h) in enumerate(picks):
         c[s, 0, i], c[s, 0, j], c[s, 1, h] = 1.0, -1.0, 1.0
     return c, np.zeros((k, 2)), picks
-
-
-def interleaved(
-    fns: dict[str, Callable[[], Any]],
-    rounds: int,
-    inner: dict[str, int] | None = None,
-    warmup: int = 2,
-) -> dict:
-    """Time callables round robin: each round runs every callable ``inner[name]`` times (1 by
-    default), each call timed on its own.  Returns every time and the medians (seconds)."""
-    inner = inner or {}
-    for f in fns.values():
-        for _ in range(warmup):
-            f()
-    times: dict[str, list[float]] = {name: [] for name in fns}
-    for _ in range(rounds):
-        for name, f in fns.items():
-            for _ in range(inner.get(name, 1)):
-                t0 = time.perf_counter()
-                f()
-                times[name].append(time.perf_counter() - t0)
-    median = {k: float(np.median(v)) for k, v in times.items()}
-    return {"median": median, "times": times, "inner": inner}
-
-
-def ratio(res: dict, num: str, den: str) -> float:
-    """Ratio of the median times (the headline figure)."""
-    return res["median"][num] / res["median"][den]
-
-
-def paired_ratio(res: dict, num: str, den: str) -> float:
-    """Median over rounds of time[num] / time[den], each from the first call of the round:
-    a second view that cancels slow drifts of the machine's load."""
-    t, inner = res["times"], res["inner"]
-    first_num = np.array(t[num])[:: inner.get(num, 1)]
-    first_den = np.array(t[den])[:: inner.get(den, 1)]
-    return float(np.median(first_num / first_den))
 
 
 def run(repeats_scale: float = 1.0) -> dict[str, Any]:
@@ -282,12 +243,7 @@ def report(res: dict[str, Any]) -> str:
         f"python {res['python']}, numpy {res['numpy']}, scipy {res['scipy']},"
         f" statsmodels {res['statsmodels']}; OPENBLAS_CORETYPE={res['env']['OPENBLAS_CORETYPE']}"
         f" OPENBLAS_L2_SIZE={res['env']['OPENBLAS_L2_SIZE']}; thread limit: {res['threads']}",
-        "BLAS (threadpoolctl): "
-        + "; ".join(
-            f"{d['internal_api']} {d['version']} {d['architecture']} threads={d['num_threads']}"
-            f" ({d['prefix']})"
-            for d in res["blas"]
-        ),
+        blas_line(res["blas"]),
         "",
         f"1. single fit, n = {s['n']:,}, p = {s['p']}, {s['rows']}-row Wald test",
         f"   lincomb fit_arrays + wald  {s['lincomb_ms']:9.2f} ms"

@@ -35,16 +35,16 @@ we report the median time of each and the median of the per-repeat ratios.
 from __future__ import annotations
 
 import sys
-import time
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 
 try:
-    from _common import scaled_main
+    from _common import blas_line, interleaved, paired_ratio, scaled_main
 except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
-    from benchmarks._common import scaled_main
+    from benchmarks._common import blas_line, interleaved, paired_ratio, scaled_main
+
 
 SEED = 20240602
 N = 100_000
@@ -63,26 +63,6 @@ def make_data(n: int, seed: int = SEED) -> tuple[np.ndarray, np.ndarray, np.ndar
     effect = rng.normal(size=GROUPS)[g] * 0.5
     y = x @ beta + rng.normal(size=n) * (1.0 + 0.5 * np.abs(x[:, 1])) + effect
     return x, y, g
-
-
-def interleaved(fns: dict[str, Callable[[], Any]], repeats: int, warmup: int = 2) -> dict:
-    """Median seconds per callable, timed round robin; ``times`` keeps every repeat."""
-    for f in fns.values():
-        for _ in range(warmup):
-            f()
-    times: dict[str, list[float]] = {name: [] for name in fns}
-    for _ in range(repeats):
-        for name, f in fns.items():
-            t0 = time.perf_counter()
-            f()
-            times[name].append(time.perf_counter() - t0)
-    return {"median": {k: float(np.median(v)) for k, v in times.items()}, "times": times}
-
-
-def ratio(res: dict, num: str, den: str) -> float:
-    """Median over repeats of time[num] / time[den] (both measured in the same repeat)."""
-    t = res["times"]
-    return float(np.median(np.array(t[num]) / np.array(t[den])))
 
 
 def run(repeats_scale: float = 1.0) -> dict[str, Any]:
@@ -147,10 +127,10 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
         "cluster_ms": 1e3 * m1["cluster"],
         "prepared_HC3_ms": 1e3 * m1["prepared_HC3"],
         "prepared_cluster_ms": 1e3 * m1["prepared_cluster"],
-        "HC3_over_classical": ratio(r1, "HC3", "classical"),
-        "cluster_over_classical": ratio(r1, "cluster", "classical"),
-        "prepared_HC3_over_classical": ratio(r1, "prepared_HC3", "classical"),
-        "prepared_cluster_over_classical": ratio(r1, "prepared_cluster", "classical"),
+        "HC3_over_classical": paired_ratio(r1, "HC3", "classical"),
+        "cluster_over_classical": paired_ratio(r1, "cluster", "classical"),
+        "prepared_HC3_over_classical": paired_ratio(r1, "prepared_HC3", "classical"),
+        "prepared_cluster_over_classical": paired_ratio(r1, "prepared_cluster", "classical"),
     }
 
     # per-test cost on prepared fits does not grow with n
@@ -173,7 +153,7 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
         "systems": PER_TEST_SYSTEMS,
         "n_10000_us": 1e6 * r1b["median"]["n_10000"] / PER_TEST_SYSTEMS,
         "n_100000_us": 1e6 * r1b["median"]["n_100000"] / PER_TEST_SYSTEMS,
-        "ratio_1e5_to_1e4": ratio(r1b, "n_100000", "n_10000"),
+        "ratio_1e5_to_1e4": paired_ratio(r1b, "n_100000", "n_10000"),
     }
 
     # -- 2. fit + robust test against statsmodels -----------------------------------------
@@ -209,8 +189,8 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
         "lincomb_cluster_ms": 1e3 * m2["lincomb_cluster"],
         "statsmodels_cluster_ms": 1e3 * m2["statsmodels_cluster"],
         "lincomb_fit_only_ms": 1e3 * m2["lincomb_fit_only"],
-        "speedup_HC3": ratio(r2, "statsmodels_HC3", "lincomb_HC3"),
-        "speedup_cluster": ratio(r2, "statsmodels_cluster", "lincomb_cluster"),
+        "speedup_HC3": paired_ratio(r2, "statsmodels_HC3", "lincomb_HC3"),
+        "speedup_cluster": paired_ratio(r2, "statsmodels_cluster", "lincomb_cluster"),
     }
     out["checks"] = checks
     out["targets"] = {
@@ -228,12 +208,7 @@ def report(res: dict[str, Any]) -> str:
         f" statsmodels {res['statsmodels']}; OPENBLAS_CORETYPE={res['env']['OPENBLAS_CORETYPE']}"
         f" OPENBLAS_L2_SIZE={res['env']['OPENBLAS_L2_SIZE']}; thread limit: {res['threads']};"
         f" cpus: {res['cpu_count']}",
-        "BLAS (threadpoolctl): "
-        + "; ".join(
-            f"{d['internal_api']} {d['version']} {d['architecture']} threads={d['num_threads']}"
-            f" ({d['prefix']})"
-            for d in res["blas"]
-        ),
+        blas_line(res["blas"]),
         "",
         f"1. tests on one fit, n = {a['n']:,}, p = {a['p']}, {a['rows']}-row system,"
         f" {a['clusters']:,} clusters",

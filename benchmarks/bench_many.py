@@ -47,9 +47,9 @@ from typing import Any
 import numpy as np
 
 try:
-    from _common import emit, machine, parser, thread_limit
+    from _common import blas_line, emit, machine, parser, thread_limit
 except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
-    from benchmarks._common import emit, machine, parser, thread_limit
+    from benchmarks._common import blas_line, emit, machine, parser, thread_limit
 
 SEED = 20240715
 N, P, R = 500, 10, 10_000
@@ -159,11 +159,7 @@ def report(res: dict[str, Any]) -> str:
         f"  F vs statsmodels: max relative difference {res['max_rel_diff_F_vs_statsmodels']:.2e}"
         f" (p: {res['max_rel_diff_p_vs_statsmodels']:.2e})",
         f"  load average at the end: {res['load_average']}",
-        "BLAS (threadpoolctl): "
-        + "; ".join(
-            f"{b['internal_api']} {b['version']} {b['num_threads']} threads ({b['prefix']})"
-            for b in res["blas"]
-        ),
+        blas_line(res["blas"]),
     ]
     return "\n".join(lines)
 
