@@ -12,82 +12,75 @@ in coefficient names with :func:`coef`, :func:`term`, ``==`` and ``&``, and test
 1
 """
 
-from . import (
-    batch,
-    chunked,
-    contrasts,
-    covariance,
-    datasets,
-    distributed,
-    errors,
-    linalg,
-    many,
-    multiplicity,
-    plot,
-    pooled,
-    power,
+from lincomb import datasets, errors
+from lincomb._builder.contrasts import LevelContrasts, LevelMeans, levels
+from lincomb._builder.restriction import (
+    Expr,
+    Restriction,
+    RestrictionSystem,
+    TermRef,
+    coef,
+    from_matrix,
+    term,
 )
-from .chunked import fit_array_chunks, fit_chunks
-from .contrasts import LevelContrasts, LevelMeans, levels
-from .covariance import clustered, given, serial
-from .distributed import fit_dask, fit_dask_arrays
-from .fit import LinearFit, fit, fit_arrays
-from .many import ManyFit, ManyWaldTest, fit_many, fit_many_arrays
-from .multiplicity import MultipleInference, adjust_pvalues
-from .pooled import combine, without_rows
-from .power import PlannedDesign, PowerPlan, planned_design, power_plan
-from .restriction import Expr, Restriction, RestrictionSystem, TermRef, coef, from_matrix, term
-from .results import RestrictedFit, WaldBatch, WaldTest
+from lincomb._covariance.estimators import clustered, given, serial
+from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
+from lincomb._fit.chunked import fit_array_chunks, fit_chunks
+from lincomb._fit.distributed import covariance_pass as dask_covariance_pass
+from lincomb._fit.distributed import fit_dask, fit_dask_arrays
+from lincomb._fit.linear import LinearFit, fit, fit_arrays
+from lincomb._fit.many import ManyFit, ManyWaldTest, fit_many, fit_many_arrays
+from lincomb._fit.pooled import combine, without_rows
+from lincomb._plan.power import PlannedDesign, PowerPlan, planned_design, power_plan
+from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
+from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 
 __all__ = [
+    # fitting
     "fit",
     "fit_arrays",
-    "coef",
-    "term",
-    "from_matrix",
-    "levels",
-    "LevelMeans",
-    "LevelContrasts",
-    "adjust_pvalues",
-    "MultipleInference",
-    "contrasts",
-    "multiplicity",
-    "clustered",
-    "serial",
-    "given",
-    "covariance",
-    "LinearFit",
-    "WaldTest",
-    "WaldBatch",
-    "RestrictedFit",
-    "Expr",
-    "Restriction",
-    "RestrictionSystem",
-    "TermRef",
-    "datasets",
-    "errors",
-    "linalg",
-    "batch",
-    "plot",
-    "power",
-    "planned_design",
-    "power_plan",
-    "PlannedDesign",
-    "PowerPlan",
     "fit_many",
     "fit_many_arrays",
-    "ManyFit",
-    "ManyWaldTest",
     "fit_chunks",
     "fit_array_chunks",
     "fit_dask",
     "fit_dask_arrays",
     "combine",
     "without_rows",
-    "chunked",
-    "distributed",
-    "many",
-    "pooled",
+    "chunk_covariance_pass",
+    "dask_covariance_pass",
+    "LinearFit",
+    "ManyFit",
+    # restrictions
+    "coef",
+    "term",
+    "from_matrix",
+    "levels",
+    "Expr",
+    "Restriction",
+    "RestrictionSystem",
+    "TermRef",
+    "LevelMeans",
+    "LevelContrasts",
+    # covariance estimators
+    "clustered",
+    "serial",
+    "given",
+    # results
+    "WaldTest",
+    "WaldBatch",
+    "ManyWaldTest",
+    "RestrictedFit",
+    "MultipleInference",
+    "adjust_pvalues",
+    # planning
+    "planned_design",
+    "power_plan",
+    "PlannedDesign",
+    "PowerPlan",
+    # modules
+    "datasets",
+    "errors",
 ]
 
 __version__ = "0.1.0"

@@ -12,7 +12,7 @@ import warnings
 
 import pandas as pd
 
-from . import clustered, coef, datasets, fit, term
+from lincomb import clustered, coef, datasets, fit, term
 
 
 def main() -> None:

@@ -27,15 +27,15 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ._format import _p
-from .errors import OptionalDependencyError
-from .multiplicity import MultipleInference
+from lincomb._results.format import _p
+from lincomb._results.multiplicity import MultipleInference
+from lincomb.errors import OptionalDependencyError
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
-    from .results import WaldTest
+    from lincomb._results.wald import WaldTest
 
 __all__ = ["intervals", "INTERVAL_ARTISTS"]
 

@@ -25,7 +25,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import lincomb as lc
-from lincomb import batch, linalg
+from lincomb._core import batch, linalg
+from lincomb._results.wald import BATCH_COLUMNS, BATCH_ROW_COLUMNS
 from lincomb.errors import (
     EmptyRestrictionError,
     InconsistentRestrictionError,
@@ -34,7 +35,6 @@ from lincomb.errors import (
     RestrictionShapeError,
     SingularCovarianceError,
 )
-from lincomb.results import BATCH_COLUMNS, BATCH_ROW_COLUMNS
 
 RTOL_SELF = 1e-10
 RTOL_SM = 1e-8
@@ -389,7 +389,7 @@ def test_moments_raw_norms_and_factor_by_identity(mtcars):
 
 
 def test_design_checks_after_the_one_pass_shortcuts():
-    from lincomb.design import design_from_arrays
+    from lincomb._model.design import design_from_arrays
 
     big = np.array([[1e308, 1.0, 1.0], [1e308, 1.0, 2.0], [1.0, 1.0, 4.0]])
     d = design_from_arrays(big, [1.0, 2.0, 3.0])  # the sum overflows; the values are finite

@@ -21,7 +21,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import lincomb as lc
-from lincomb.chunked import ChunkProgress, covariance_pass, fit_array_chunks, fit_chunks
+from lincomb._fit.chunked import ChunkProgress, covariance_pass, fit_array_chunks, fit_chunks
 from lincomb.errors import (
     CovarianceInputError,
     FewClustersWarning,

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
 import lincomb as lc
-from lincomb.contrasts import ModelResolver, orthogonal_polynomials
+from lincomb._builder.contrasts import PARTITION_COLUMNS, ModelResolver, orthogonal_polynomials
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
@@ -270,7 +270,7 @@ def test_partition_of_dose_ss_adds_to_anova(tooth) -> None:
         assert np.isclose(part.ss.sum(), dose_ss, rtol=1e-10)
         assert np.isclose(part.term_ss, dose_ss, rtol=1e-10)
         frame = part.to_frame()
-        assert list(frame.columns) == list(lc.contrasts.PARTITION_COLUMNS)
+        assert list(frame.columns) == list(PARTITION_COLUMNS)
         assert np.isclose(frame["share"].sum(), 1.0)
     # each single-df component against statsmodels' polynomial-coded fit: SS = t² σ²
     poly = smf.ols("len ~ C(dose, Poly(scores=[0.5, 1, 2])) + supp", tooth).fit()

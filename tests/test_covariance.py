@@ -44,7 +44,8 @@ from hypothesis import strategies as st
 from scipy import stats
 
 import lincomb as lc
-from lincomb import covariance as covmod
+from lincomb._covariance import estimators as covmod
+from lincomb._results.wald import ROW_COLUMNS
 from lincomb.errors import (
     CovarianceInputError,
     FewClustersWarning,
@@ -580,7 +581,7 @@ def test_frames_show_reference_and_covariance(warp):
     assert (test["distribution"], test["df_den"], test["covariance"]) == ("chi2", math.inf, "HC1")
     close(test["p_value"], stats.chi2.sf(res.statistic, 2))
     rows = res.to_frame()
-    assert list(rows.columns) == list(lc.results.ROW_COLUMNS)
+    assert list(rows.columns) == list(ROW_COLUMNS)
     assert set(rows["distribution"]) == {"normal"} and set(rows["covariance"]) == {"HC1"}
     close(rows["p_value"], 2 * stats.norm.sf(np.abs(res.t)))
     assert "chi2(2)" in repr(res) and "[HC1 covariance]" in repr(res)

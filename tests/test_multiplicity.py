@@ -19,13 +19,13 @@ from statsmodels.stats.multicomp import pairwise_tukeyhsd
 from statsmodels.stats.multitest import multipletests
 
 import lincomb as lc
-from lincomb.errors import InputError, IntegrationAccuracyWarning
-from lincomb.multiplicity import (
+from lincomb._results.multiplicity import (
     MULTIPLE_COLUMNS,
     adjust_pvalues,
     max_abs_t_cdf,
     max_abs_t_quantile,
 )
+from lincomb.errors import InputError, IntegrationAccuracyWarning
 
 # our method name -> statsmodels.stats.multitest.multipletests method name
 SM_NAMES = {

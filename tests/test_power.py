@@ -30,7 +30,9 @@ from scipy import stats
 from threadpoolctl import threadpool_limits
 
 import lincomb as lc
-from lincomb.design import design_from_formula
+from lincomb._builder.restriction import as_system
+from lincomb._model.design import design_from_formula
+from lincomb._plan.power import CURVE_COLUMNS, POWER_COLUMNS
 from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
@@ -43,7 +45,6 @@ from lincomb.errors import (
     UnknownCoefficientError,
     UnreachablePowerError,
 )
-from lincomb.power import CURVE_COLUMNS, POWER_COLUMNS
 
 ALPHA = 0.05
 
@@ -76,7 +77,7 @@ def all_slopes_zero(u: int) -> lc.RestrictionSystem:
     system = lc.coef("x0") == 0
     for j in range(1, u):
         system = system & (lc.coef(f"x{j}") == 0)
-    return lc.restriction.as_system(system)
+    return as_system(system)
 
 
 def direct_lambda(x, w, c, shift, sigma):
@@ -136,7 +137,7 @@ def test_simulation_factorial_pattern_term_test():
     full_beta[design.names.index("Intercept")] = 6.0
     full_beta[design.names.index("rain")] = 0.004
     # the array fit has no terms: the same rows written coefficient by coefficient
-    by_name = lc.restriction.as_system([lc.coef(name) == 0 for name in beta])
+    by_name = as_system([lc.coef(name) == 0 for name in beta])
     same = lc.power_plan(design, by_name, sigma=sigma).power(beta=beta, replicates=2)
     assert same.noncentrality == pytest.approx(res.noncentrality, rel=1e-12)
     rate = _rejection_rate(x, list(design.names), full_beta, by_name, sigma, 1000, seed=20240611)

@@ -15,12 +15,12 @@ import pytest
 
 import lincomb as lc
 from lincomb import coef, from_matrix, term
+from lincomb._builder.restriction import Expr, Restriction, RestrictionSystem, TermRef, as_system
 from lincomb.errors import (
     EmptyRestrictionError,
     RestrictionShapeError,
     UnknownCoefficientError,
 )
-from lincomb.restriction import Expr, Restriction, RestrictionSystem, TermRef, as_system
 
 # Columns of "mpg ~ wt + hp + C(cyl) * C(am)" on R's mtcars (cyl in {4, 6, 8}, reference 4;
 # am in {0, 1}, reference 0), treatment coding: formulaic names them like this, in this order.

@@ -50,17 +50,17 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ._format import _num, _p, _table_html, _table_text
-from .errors import (
+from lincomb._builder.restriction import RestrictionSystem, _fmt_num, _is_number, _Item, as_system
+from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
     NotOrthogonalError,
     UnknownCoefficientError,
 )
-from .restriction import RestrictionSystem, _fmt_num, _is_number, _Item, as_system
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .fit import LinearFit
+    from lincomb._fit.linear import LinearFit
 
 __all__ = [
     "ZERO_SUM_TOL",

@@ -44,13 +44,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import linalg
-from ._threads import blas_limit, check_threads
-from .chunked import FrameEncoder, _cast_levels, _formula_variables
-from .design import CoefficientIndex, design_from_arrays
-from .errors import IncompatibleFitError, InputError, OptionalDependencyError
-from .fit import LinearFit
-from .pooled import SummaryDesign, fit_from_moments
+from lincomb._core import linalg
+from lincomb._fit.chunked import FrameEncoder, _cast_levels, _formula_variables
+from lincomb._fit.linear import LinearFit
+from lincomb._fit.pooled import SummaryDesign, fit_from_moments
+from lincomb._model.design import CoefficientIndex, design_from_arrays
+from lincomb._settings import blas_limit, check_threads
+from lincomb.errors import IncompatibleFitError, InputError, OptionalDependencyError
 
 __all__ = ["fit_dask", "fit_dask_arrays", "covariance_pass", "DEFAULT_SPLIT_EVERY"]
 
@@ -574,7 +574,7 @@ def covariance_pass(
     'HC3'
     """
     dask = _require_dask()
-    from ._robust_pass import RowPass
+    from lincomb._covariance.second_pass import RowPass
 
     _check_split(split_every)
     check_threads(blas_threads)

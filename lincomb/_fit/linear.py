@@ -22,18 +22,18 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from . import covariance as covmod
-from . import linalg
-from ._format import fit_html, fit_text
-from .contrasts import ModelResolver
-from .design import Design, design_from_arrays, design_from_formula, encode_new
-from .errors import (
+from lincomb._builder.contrasts import ModelResolver
+from lincomb._builder.restriction import RestrictionSystem, as_system
+from lincomb._core import linalg
+from lincomb._covariance import estimators as covmod
+from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
+from lincomb._results.format import fit_html, fit_text
+from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
+from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
     NotEstimableError,
 )
-from .restriction import RestrictionSystem, as_system
-from .results import RestrictedFit, WaldBatch, WaldTest
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
@@ -517,7 +517,7 @@ class LinearFit:
         >>> bool(np.isclose(b.p_value[1], f.wald(systems[1]).p_value, rtol=1e-10))
         True
         """
-        from ._batch_fit import wald_batch
+        from lincomb._fit.batch import wald_batch
 
         return wald_batch(
             self,

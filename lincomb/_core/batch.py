@@ -54,7 +54,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from .linalg import ROW_TOL, Solution, analyze_rows, triangular_factor, wald_from_root
+from lincomb._core.linalg import ROW_TOL, Solution, analyze_rows, triangular_factor, wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
 
@@ -95,7 +95,7 @@ class BatchCore:
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb import linalg
+    >>> from lincomb._core import linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
     >>> sol = linalg.solve(linalg.moments_from_arrays(x, rng.normal(size=30), intercept=0))
@@ -267,7 +267,7 @@ def wald_systems(
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb import linalg
+    >>> from lincomb._core import linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 3))])
     >>> y = x @ [1.0, 0.5, 0.0, -0.2] + rng.normal(size=30)

@@ -14,9 +14,12 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import special
 
-from . import covariance as covmod
-from .batch import BatchCore, wald_systems
-from .errors import (
+from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
+from lincomb._core.batch import BatchCore, wald_systems
+from lincomb._core.linalg import ROW_TOL
+from lincomb._covariance import estimators as covmod
+from lincomb._results.wald import WaldBatch
+from lincomb.errors import (
     EmptyRestrictionError,
     InconsistentRestrictionError,
     InputError,
@@ -25,12 +28,9 @@ from .errors import (
     RestrictionShapeError,
     SingularCovarianceError,
 )
-from .linalg import ROW_TOL
-from .restriction import Expr, RestrictionSystem, TermRef, _Item
-from .results import WaldBatch
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .fit import LinearFit
+    from lincomb._fit.linear import LinearFit
 
 #: How many offending systems an error message lists before it says "and N more".
 _SHOWN = 3

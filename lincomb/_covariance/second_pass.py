@@ -19,9 +19,9 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from . import covariance as covmod
-from . import linalg
-from .errors import CovarianceInputError, FewClustersWarning, IncompatibleFitError
+from lincomb._core import linalg
+from lincomb._covariance import estimators as covmod
+from lincomb.errors import CovarianceInputError, FewClustersWarning, IncompatibleFitError
 
 Array = NDArray[np.float64]
 

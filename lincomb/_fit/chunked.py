@@ -46,18 +46,18 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from . import linalg
-from ._threads import blas_limit, check_threads
-from .design import (
+from lincomb._core import linalg
+from lincomb._fit.linear import LinearFit
+from lincomb._fit.pooled import SummaryDesign, fit_from_moments
+from lincomb._model.design import (
     CoefficientIndex,
     _check_finite,
     _index_from_spec,
     _validate_weights,
     design_from_arrays,
 )
-from .errors import InputError, MissingValueError, UnseenLevelError
-from .fit import LinearFit
-from .pooled import SummaryDesign, fit_from_moments
+from lincomb._settings import blas_limit, check_threads
+from lincomb.errors import InputError, MissingValueError, UnseenLevelError
 
 __all__ = [
     "ChunkProgress",
@@ -778,7 +778,7 @@ def covariance_pass(
     >>> bool(abs(a.statistic - b.statistic) < 1e-8 * b.statistic), a.df_den
     (True, 39.0)
     """
-    from ._robust_pass import RowPass
+    from lincomb._covariance.second_pass import RowPass
 
     rp = RowPass(fit, covariance)
     encoder = getattr(fit._design, "encoder", None)

@@ -53,19 +53,19 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from . import linalg
-from ._format import _num, _p, _table_html, _table_text
-from ._threads import blas_limit, check_threads
-from .design import Design, design_from_arrays, design_from_formula
-from .errors import (
+from lincomb._builder.restriction import as_system
+from lincomb._core import linalg
+from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
+from lincomb._model.design import Design, design_from_arrays, design_from_formula
+from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
+from lincomb._settings import blas_limit, check_threads
+from lincomb.errors import (
     DegenerateFitError,
     InputError,
     MissingValueError,
     NotEstimableError,
 )
-from .fit import ZERO_RSS_TOL, LinearFit
-from .multiplicity import P_METHODS, adjust_pvalues
-from .restriction import as_system
 
 __all__ = [
     "ManyFit",
@@ -283,7 +283,7 @@ def _fdr(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.float64
     adj = adjust_pvalues(p[ok], method)
     out[ok] = adj
     # canonical name via a one-element call (the function validates and names the method)
-    from .multiplicity import _canonical
+    from lincomb._results.multiplicity import _canonical
 
     return out, _canonical(method, P_METHODS, "p-value")
 

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from .errors import InputError, MissingValueError, UnknownCoefficientError, UnseenLevelError
+from lincomb.errors import InputError, MissingValueError, UnknownCoefficientError, UnseenLevelError
 
 __all__ = ["Design", "CoefficientIndex", "design_from_formula", "design_from_arrays"]
 

@@ -87,8 +87,8 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import sparse, stats
 
-from . import linalg
-from .errors import (
+from lincomb._core import linalg
+from lincomb.errors import (
     CovarianceInputError,
     FewClustersWarning,
     IncompatibleFitError,
@@ -98,7 +98,7 @@ from .errors import (
 )
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .fit import LinearFit
+    from lincomb._fit.linear import LinearFit
 
 __all__ = [
     "HC_KINDS",
@@ -806,7 +806,7 @@ def check_reference(reference: object) -> str:
 def _user_stacklevel() -> int:
     """Stack level of the first frame outside this package (for warnings that point at the
     caller's line whichever public method led here)."""
-    here = os.path.dirname(os.path.abspath(__file__))
+    here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))  # the lincomb package
     frame = sys._getframe(1)
     level = 1
     while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(here):

@@ -8,8 +8,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .fit import LinearFit
-    from .results import RestrictedFit, WaldBatch, WaldTest
+    from lincomb._fit.linear import LinearFit
+    from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 
 
 def _p_clause(p: float) -> str:

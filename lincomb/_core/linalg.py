@@ -57,7 +57,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from ._threads import blas_limit, can_limit
+from lincomb._settings import blas_limit, can_limit
 
 __all__ = [
     "RANK_TOL",

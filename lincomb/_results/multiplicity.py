@@ -55,11 +55,11 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, special, stats
 
-from ._format import _num, _p, _table_html, _table_text
-from .errors import InputError, IntegrationAccuracyWarning
+from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb.errors import InputError, IntegrationAccuracyWarning
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .results import WaldTest
+    from lincomb._results.wald import WaldTest
 
 __all__ = [
     "P_METHODS",

@@ -58,10 +58,12 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, stats
 
-from . import linalg
-from ._format import _num, _table_html, _table_text
-from .design import CoefficientIndex, design_from_arrays, design_from_formula
-from .errors import (
+from lincomb._builder.restriction import RestrictionSystem, as_system
+from lincomb._core import linalg
+from lincomb._fit.linear import LinearFit, check_rows
+from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
+from lincomb._results.format import _num, _table_html, _table_text
+from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
     InputError,
@@ -69,8 +71,6 @@ from .errors import (
     ParameterError,
     UnreachablePowerError,
 )
-from .fit import LinearFit, check_rows
-from .restriction import RestrictionSystem, as_system
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -382,7 +382,7 @@ def planned_design(
         frame = data.assign(**{response: 0.0})
         design = design_from_formula(f"{response} ~ {formula}", frame, weights=weights)
         if len(design.dropped):
-            from .errors import MissingValueError
+            from lincomb.errors import MissingValueError
 
             raise MissingValueError(
                 f"the planned pattern has missing values in rows {list(design.dropped)[:10]}"
@@ -1523,7 +1523,7 @@ class PowerCurve:
             ) from exc
         if ax is None:
             # made on pyplot's backend (then released by pyplot) so a notebook shows it inline
-            from .plot import _new_figure
+            from lincomb.plot import _new_figure
 
             fig = _new_figure((6.0, 4.0))
             ax = fig.add_subplot()

@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from .errors import EmptyRestrictionError, RestrictionShapeError, UnknownCoefficientError
+from lincomb.errors import EmptyRestrictionError, RestrictionShapeError, UnknownCoefficientError
 
 __all__ = [
     "coef",

@@ -10,7 +10,7 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import stats
 
-from ._format import (
+from lincomb._results.format import (
     batch_html,
     batch_text,
     restricted_html,
@@ -18,10 +18,10 @@ from ._format import (
     wald_html,
     wald_text,
 )
-from .multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
+from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .multiplicity import MultipleInference
+    from lincomb._results.multiplicity import MultipleInference
 
 __all__ = [
     "WaldTest",
@@ -238,7 +238,7 @@ class WaldTest:
         >>> len(fig.axes[0].get_yticklabels())
         3
         """
-        from .plot import intervals
+        from lincomb.plot import intervals
 
         return intervals(self, level, **kwargs)
 
@@ -279,7 +279,7 @@ class WaldTest:
         >>> adj.family_size, adj.rank, bool((adj.p_adjusted >= adj.p_value).all())
         (6, 3, True)
         """
-        from .multiplicity import adjust_wald
+        from lincomb._results.multiplicity import adjust_wald
 
         return adjust_wald(
             self, method, redundant=redundant, tol=tol, seed=seed, max_points=max_points
@@ -331,7 +331,7 @@ class WaldTest:
         >>> sim.to_frame().shape
         (3, 12)
         """
-        from .multiplicity import simultaneous_wald
+        from lincomb._results.multiplicity import simultaneous_wald
 
         return simultaneous_wald(
             self, method, level, redundant=redundant, tol=tol, seed=seed, max_points=max_points
@@ -583,7 +583,7 @@ class WaldBatch:
             return self.labels[system]
         if self.matrix is None or self._index is None:
             return tuple(f"row {i}" for i in range(self.estimate.shape[1]))
-        from .restriction import from_matrix
+        from lincomb._builder.restriction import from_matrix
 
         c = self.matrix[system]
         return tuple(from_matrix(c, self.target[system]).resolve(self._index)[2])

@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError
+from lincomb.errors import InputError
 
 _CONTROLLER: Any = None
 

@@ -1,0 +1,1 @@
+"""Private layer of lincomb; see DEVELOPERS.md."""
