@@ -17,6 +17,8 @@ __all__ = [
     "UnknownDatasetError",
     "RestrictionShapeError",
     "EmptyRestrictionError",
+    "RestrictionSyntaxError",
+    "ZeroDivisorError",
     "InconsistentRestrictionError",
     "NotEstimableError",
     "DegenerateFitError",
@@ -135,6 +137,35 @@ class RestrictionShapeError(LincombError, ValueError):
     Traceback (most recent call last):
     ...
     lincomb.errors.RestrictionShapeError: d has 2 entries but C has 1 rows.
+    """
+
+
+class RestrictionSyntaxError(LincombError, TypeError):
+    """A restriction was written with an operator that builds nothing linear or nothing at all.
+
+    Raised for ``and``/``or``/``not`` (truth values), ``!=``, ``<``/``<=``/``>``/``>=``, a product
+    or quotient of two coefficients, and objects that are not restrictions where one is needed.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> lc.coef("a") < 1
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.RestrictionSyntaxError: '<' builds nothing: ...
+    """
+
+
+class ZeroDivisorError(LincombError, ZeroDivisionError):
+    """A restriction expression was divided by zero.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> lc.coef("a") / 0
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.ZeroDivisorError: a divided by zero: ...
     """
 
 

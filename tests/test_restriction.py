@@ -422,3 +422,29 @@ def test_coef_and_term_need_names():
         coef("")
     with pytest.raises(TypeError, match="term\\(\\) needs a non-empty term label"):
         term(3)  # type: ignore[arg-type]
+
+
+# -- misuse of the operators: every case is a typed error that also keeps its built-in type ---
+MISUSE = [
+    ("and", lambda: (coef("a") == 0) and (coef("b") == 0), "RestrictionSyntaxError", TypeError),
+    ("not", lambda: not (coef("a") == 0), "RestrictionSyntaxError", TypeError),
+    ("!=", lambda: coef("a") != 0, "RestrictionSyntaxError", TypeError),
+    ("<", lambda: coef("a") < 1, "RestrictionSyntaxError", TypeError),
+    ("<=", lambda: coef("a") <= coef("b"), "RestrictionSyntaxError", TypeError),
+    (">", lambda: term("g") > 0, "RestrictionSyntaxError", TypeError),
+    (">=", lambda: 1 >= coef("a"), "RestrictionSyntaxError", TypeError),
+    ("a*b", lambda: coef("a") * coef("b"), "RestrictionSyntaxError", TypeError),
+    ("a/b", lambda: coef("a") / coef("b"), "RestrictionSyntaxError", TypeError),
+    ("/0", lambda: coef("a") / 0, "ZeroDivisorError", ZeroDivisionError),
+    ("term !=", lambda: term("g") != 0, "RestrictionSyntaxError", TypeError),
+    ("coef(1)", lambda: coef(1), "RestrictionSyntaxError", TypeError),  # type: ignore[arg-type]
+    ("as_system(str)", lambda: as_system("a = 0"), "RestrictionSyntaxError", TypeError),
+]
+
+
+@pytest.mark.parametrize(("op", "build", "error", "builtin"), MISUSE, ids=[m[0] for m in MISUSE])
+def test_operator_misuse_is_a_typed_error(op, build, error, builtin):
+    with pytest.raises(builtin) as info:
+        build()
+    assert type(info.value).__name__ == error
+    assert isinstance(info.value, lc.errors.LincombError)

@@ -25,7 +25,12 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from lincomb.errors import EmptyRestrictionError, RestrictionShapeError, UnknownCoefficientError
+from lincomb.errors import (
+    EmptyRestrictionError,
+    RestrictionShapeError,
+    RestrictionSyntaxError,
+    ZeroDivisorError,
+)
 
 __all__ = [
     "coef",
@@ -188,7 +193,7 @@ class Expr:
 
     def __mul__(self, other: object) -> Expr:
         if isinstance(other, Expr):
-            raise TypeError(
+            raise RestrictionSyntaxError(
                 "a product of two coefficients is not linear; multiply by numbers only."
             )
         if not _is_number(other):
@@ -203,10 +208,14 @@ class Expr:
     def __truediv__(self, other: object) -> Expr:
         if not _is_number(other):
             if isinstance(other, Expr):
-                raise TypeError("dividing by a coefficient is not linear; divide by numbers only.")
+                raise RestrictionSyntaxError(
+                    "dividing by a coefficient is not linear; divide by numbers only."
+                )
             return NotImplemented
         if float(other) == 0:  # type: ignore[arg-type]
-            raise ZeroDivisionError("restriction expression divided by zero")
+            raise ZeroDivisorError(
+                f"{self.text()} divided by zero: divide an expression by a non-zero number."
+            )
         return self * (1.0 / float(other))  # type: ignore[arg-type]
 
     # -- comparison ---------------------------------------------------------------------
@@ -220,10 +229,28 @@ class Expr:
         return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
 
     def __ne__(self, other: object) -> bool:  # type: ignore[override]
-        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
-        raise TypeError(_BOOL_MSG)
+        raise RestrictionSyntaxError(_BOOL_MSG)
+
+    def _no_order(self, op: str) -> RestrictionSyntaxError:
+        return RestrictionSyntaxError(
+            f"'{op}' builds nothing: restrictions are equalities written with '==' "
+            "(a one-sided question is read from a row's estimate and interval)."
+        )
+
+    def __lt__(self, other: object) -> bool:
+        raise self._no_order("<")
+
+    def __le__(self, other: object) -> bool:
+        raise self._no_order("<=")
+
+    def __gt__(self, other: object) -> bool:
+        raise self._no_order(">")
+
+    def __ge__(self, other: object) -> bool:
+        raise self._no_order(">=")
 
     # -- presentation -------------------------------------------------------------------
     def text(self) -> str:
@@ -277,7 +304,7 @@ def coef(name: str) -> Expr:
     <Restriction: price = 1>
     """
     if not isinstance(name, str) or not name:
-        raise TypeError(f"coef() needs a non-empty column name, got {name!r}.")
+        raise RestrictionSyntaxError(f"coef() needs a non-empty column name, got {name!r}.")
     return Expr({_Name(name): 1.0})
 
 
@@ -312,10 +339,28 @@ class TermRef:
         return RestrictionSystem((_TermRows(self.name, float(other)),))  # type: ignore[arg-type]
 
     def __ne__(self, other: object) -> bool:  # type: ignore[override]
-        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
-        raise TypeError(_BOOL_MSG)
+        raise RestrictionSyntaxError(_BOOL_MSG)
+
+    def _no_order(self, op: str) -> RestrictionSyntaxError:
+        return RestrictionSyntaxError(
+            f"'{op}' builds nothing: restrictions are equalities written with '==' "
+            "(a one-sided question is read from a row's estimate and interval)."
+        )
+
+    def __lt__(self, other: object) -> bool:
+        raise self._no_order("<")
+
+    def __le__(self, other: object) -> bool:
+        raise self._no_order("<=")
+
+    def __gt__(self, other: object) -> bool:
+        raise self._no_order(">")
+
+    def __ge__(self, other: object) -> bool:
+        raise self._no_order(">=")
 
     def __repr__(self) -> str:
         return f"<TermRef: {self.name}>"
@@ -331,7 +376,7 @@ def term(name: str) -> TermRef:
     <Restriction: C(line)[L3] = 0>
     """
     if not isinstance(name, str) or not name:
-        raise TypeError(f"term() needs a non-empty term label, got {name!r}.")
+        raise RestrictionSyntaxError(f"term() needs a non-empty term label, got {name!r}.")
     return TermRef(name)
 
 
@@ -382,7 +427,7 @@ class Restriction(_Item):
         return f"<Restriction: {self.text()}>"
 
     def __bool__(self) -> bool:
-        raise TypeError(_BOOL_MSG)
+        raise RestrictionSyntaxError(_BOOL_MSG)
 
     def __and__(self, other: object) -> RestrictionSystem:
         return as_system(self) & other
@@ -481,7 +526,7 @@ class RestrictionSystem:
         if isinstance(other, (RestrictionSystem, _Item)):
             return RestrictionSystem(self.items + as_system(other).items)
         if isinstance(other, (Expr, TermRef)):
-            raise TypeError(
+            raise RestrictionSyntaxError(
                 f"{other!r} is an expression, not a restriction: compare it with '==' first."
             )
         return NotImplemented
@@ -490,7 +535,7 @@ class RestrictionSystem:
         return as_system(other) & self
 
     def __bool__(self) -> bool:
-        raise TypeError(_BOOL_MSG)
+        raise RestrictionSyntaxError(_BOOL_MSG)
 
     def text(self) -> str:
         """The system as equations joined by ``&``.
@@ -615,7 +660,7 @@ def as_system(obj: object) -> RestrictionSystem:
     if isinstance(obj, _Item):
         return RestrictionSystem((obj,))
     if isinstance(obj, (Expr, TermRef)):
-        raise TypeError(
+        raise RestrictionSyntaxError(
             f"{obj!r} is an expression, not a restriction: compare it with '==', e.g. "
             "coef('x') == 0."
         )
@@ -624,10 +669,6 @@ def as_system(obj: object) -> RestrictionSystem:
         for o in obj:
             out = out & as_system(o)
         return out
-    raise TypeError(
+    raise RestrictionSyntaxError(
         f"expected a restriction built with coef()/term() and '==', got {type(obj).__name__}."
     )
-
-
-def _unused() -> UnknownCoefficientError:  # pragma: no cover - keeps the import for type users
-    return UnknownCoefficientError("")
