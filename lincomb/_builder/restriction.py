@@ -19,7 +19,8 @@ from __future__ import annotations
 import numbers
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
-from typing import Any, Protocol
+from types import NotImplementedType
+from typing import Any, Protocol, TypeGuard
 
 import numpy as np
 import pandas as pd
@@ -128,7 +129,8 @@ _BOOL_MSG = (
 )
 
 
-def _is_number(v: object) -> bool:
+def _is_number(v: object) -> TypeGuard[float]:
+    """A real number (numpy scalars included), not a bool; typed as ``float`` for ``float(v)``."""
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
 
@@ -161,17 +163,17 @@ class Expr:
         self._const = float(const)
 
     # -- arithmetic ---------------------------------------------------------------------
-    def _combine(self, other: object, sign: float) -> Expr:
+    def _combine(self, other: object, sign: float) -> Expr | NotImplementedType:
         if isinstance(other, Expr):
             terms = dict(self._terms)
             for k, v in other._terms.items():
                 terms[k] = terms.get(k, 0.0) + sign * v
             return Expr(terms, self._const + sign * other._const)
         if _is_number(other):
-            if not np.isfinite(float(other)):  # type: ignore[arg-type]
+            if not np.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
-            return Expr(self._terms, self._const + sign * float(other))  # type: ignore[arg-type]
-        return NotImplemented
+            return Expr(self._terms, self._const + sign * float(other))
+        return NotImplemented  # type: ignore[no-any-return]  # typeshed types it as Any
 
     def __add__(self, other: object) -> Expr:
         return self._combine(other, 1.0)
@@ -198,7 +200,7 @@ class Expr:
             )
         if not _is_number(other):
             return NotImplemented
-        f = float(other)  # type: ignore[arg-type]
+        f = float(other)
         if not np.isfinite(f):
             raise RestrictionShapeError(f"multiplier {other!r} is not finite.")
         return Expr({k: v * f for k, v in self._terms.items()}, self._const * f)
@@ -212,11 +214,11 @@ class Expr:
                     "dividing by a coefficient is not linear; divide by numbers only."
                 )
             return NotImplemented
-        if float(other) == 0:  # type: ignore[arg-type]
+        if float(other) == 0:
             raise ZeroDivisorError(
                 f"{self.text()} divided by zero: divide an expression by a non-zero number."
             )
-        return self * (1.0 / float(other))  # type: ignore[arg-type]
+        return self * (1.0 / float(other))
 
     # -- comparison ---------------------------------------------------------------------
     def __eq__(self, other: object) -> Restriction:  # type: ignore[override]
@@ -228,7 +230,7 @@ class Expr:
             return NotImplemented
         return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
 
-    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+    def __ne__(self, other: object) -> bool:
         raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
@@ -336,9 +338,9 @@ class TermRef:
     def __eq__(self, other: object) -> RestrictionSystem:  # type: ignore[override]
         if not _is_number(other):
             return NotImplemented
-        return RestrictionSystem((_TermRows(self.name, float(other)),))  # type: ignore[arg-type]
+        return RestrictionSystem((_TermRows(self.name, float(other)),))
 
-    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+    def __ne__(self, other: object) -> bool:
         raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
