@@ -54,7 +54,10 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb._core.linalg import ROW_TOL, Solution, analyze_rows, triangular_factor, wald_from_root
+from lincomb._core.rows import ROW_TOL, analyze_rows
+from lincomb._core.solve import Solution
+from lincomb._core.triangular import triangular_factor
+from lincomb._core.wald import wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
 
@@ -95,7 +98,7 @@ class BatchCore:
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb._core import linalg
+    >>> from lincomb import _core as linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
     >>> sol = linalg.solve(linalg.moments_from_arrays(x, rng.normal(size=30), intercept=0))
@@ -267,7 +270,7 @@ def wald_systems(
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb._core import linalg
+    >>> from lincomb import _core as linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 3))])
     >>> y = x @ [1.0, 0.5, 0.0, -0.2] + rng.normal(size=30)

@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import SummaryDesign, fit_from_moments
 from lincomb._model.design import (

@@ -44,7 +44,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.chunked import FrameEncoder, _cast_levels, _formula_variables
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import SummaryDesign, fit_from_moments

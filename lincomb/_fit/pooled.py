@@ -36,7 +36,7 @@ from typing import Any
 
 import pandas as pd
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import CoefficientIndex, Design
 from lincomb.errors import IncompatibleFitError, InputError, RowsUnavailableError
@@ -135,7 +135,7 @@ def merge_all(parts: Sequence[linalg.Moments]) -> linalg.Moments:
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb._core import linalg
+    >>> from lincomb import _core as linalg
     >>> rng = np.random.default_rng(2)
     >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))]); y = rng.normal(size=40)
     >>> parts = [linalg.moments_from_arrays(x[i:i + 10], y[i:i + 10], intercept=0)
