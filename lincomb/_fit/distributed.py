@@ -113,11 +113,7 @@ class _Part:
 
 def _merge_parts(*parts: _Part) -> _Part:
     live = [p.moments for p in parts if p.moments is not None]
-    merged = None
-    if live:
-        merged = live[0]
-        for m in live[1:]:
-            merged = linalg.merge_moments(merged, m)
+    merged = linalg.merge_tree(live) if live else None
     ones = None
     if parts and parts[0].ones is not None:
         ones = np.logical_and.reduce([p.ones for p in parts if p.ones is not None])
