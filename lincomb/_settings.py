@@ -45,7 +45,10 @@ def blas_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
         return contextlib.nullcontext()
     if _CONTROLLER is None:
         _CONTROLLER = ThreadpoolController()
-    return _CONTROLLER.limit(limits=threads, user_api="blas")
+    limit: contextlib.AbstractContextManager[Any] = _CONTROLLER.limit(
+        limits=threads, user_api="blas"
+    )
+    return limit
 
 
 def can_limit() -> bool:

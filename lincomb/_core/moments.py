@@ -64,7 +64,7 @@ class Moments:
 
     @property
     def p(self) -> int:
-        return self.center.shape[0] - 1
+        return int(self.center.shape[0]) - 1
 
     @property
     def others(self) -> NDArray[np.intp]:
@@ -82,9 +82,8 @@ _QR_MAX_COLS = 128
 
 
 def _weighted_mean(a: Array, w: Array | None) -> Array:
-    if w is None:
-        return a.mean(axis=0)
-    return (w @ a) / w.sum()
+    mean: Array = a.mean(axis=0) if w is None else (w @ a) / w.sum()
+    return mean
 
 
 def moments_from_arrays(

@@ -9,6 +9,7 @@ of squares.  The :class:`Solution` maps rows of ``C`` to working coordinates and
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import cast
 
 import numpy as np
 import scipy.linalg as sla
@@ -198,7 +199,8 @@ class Solution:
             return np.zeros(cu.shape[0])
         norms = np.linalg.norm(cu, axis=1)
         res = np.linalg.norm(cu @ self.null_basis, axis=1)
-        return np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
+        rel: Array = np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
+        return rel
 
     def aliased_touched(self, cu_row: Array, tol: float) -> list[int]:
         """Aliased columns whose null direction a non-estimable row does not annihilate.
@@ -285,7 +287,7 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     rs[:, ~live] = 0.0
     if q:
         piv, rank_o = _ordered_columns(rs, rank_tol)
-        q2, r2 = sla.qr(rs[:, piv], check_finite=False)
+        q2, r2 = cast("tuple[Array, Array]", sla.qr(rs[:, piv], check_finite=False))
         z = q2.T @ qty
     else:
         r2 = np.zeros((0, 0))
@@ -304,6 +306,8 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         center[others] = m.center[others]
     kept_o = others[piv[:rank_o]]
     alias_o = others[piv[rank_o:]]
+    rfull: Array
+    zfull: Array
     if m.intercept is not None:
         rw = np.sqrt(m.weight_sum)
         rfull = np.zeros((rank_o + 1, rank_o + 1))
