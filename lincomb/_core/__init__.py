@@ -68,7 +68,7 @@ tolerance ``row_tol``) or the system is inconsistent.  A row is *estimable* when
 the null space of the design is at most ``row_tol`` times its norm (both in working coordinates).
 """
 
-from lincomb._core.batch import BatchCore, root_rows, wald_systems
+from lincomb._core.batch import BatchCore, wald_systems
 from lincomb._core.many import (
     DesignFactor,
     ResponseBlock,
@@ -114,6 +114,5 @@ __all__ = [
     "wald_quadratic_forms",
     # many restriction systems on one fit
     "BatchCore",
-    "root_rows",
     "wald_systems",
 ]

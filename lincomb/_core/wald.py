@@ -23,8 +23,18 @@ Array = NDArray[np.float64]
 class WaldCore:
     """Numbers of a Wald test, before names are attached.
 
-    ``estimate``, ``std_error`` and ``statistic_rows`` cover every row (redundant ones too);
-    ``statistic`` is the F (or chi-squared, if ``scale`` is fixed) over the independent rows.
+    Attributes
+    ----------
+    std_error : (m,) ndarray
+        Standard error of every row (redundant ones too).
+    statistic_rows : (m,) ndarray
+        ``δ / std_error`` per row (NaN where the standard error is zero).
+    quad : float
+        ``δ_Kᵀ (Vᵀ V)⁻¹ δ_K`` over the independent rows ``K`` (divide by ``rank`` for the F).
+    rank : int
+        Number of independent rows.
+    chol : (q, q) ndarray
+        Upper-triangular factor with ``cholᵀ chol = V_Kᵀ V_K``.
 
     Examples
     --------
@@ -34,13 +44,11 @@ class WaldCore:
     (5.0, 2, [1.0, 1.0])
     """
 
-    estimate: Array
     std_error: Array
     statistic_rows: Array
     quad: float
     rank: int
     chol: Array
-    independent: NDArray[np.intp]
 
 
 def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> WaldCore:
@@ -78,15 +86,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
         quad = float(sol @ sol)
     else:
         quad = 0.0
-    return WaldCore(
-        estimate=delta,
-        std_error=se,
-        statistic_rows=stat,
-        quad=quad,
-        rank=q,
-        chol=chol,
-        independent=independent,
-    )
+    return WaldCore(std_error=se, statistic_rows=stat, quad=quad, rank=q, chol=chol)
 
 
 def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array, Array]:
