@@ -34,6 +34,7 @@ from lincomb._fit.pooled import combine, without_rows
 from lincomb._plan.power import PlannedDesign, PowerPlan, planned_design, power_plan
 from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
+from lincomb._settings import blas_threads, set_blas_threads
 
 __all__ = [
     # fitting
@@ -78,6 +79,9 @@ __all__ = [
     "power_plan",
     "PlannedDesign",
     "PowerPlan",
+    # settings
+    "blas_threads",
+    "set_blas_threads",
     # modules
     "datasets",
     "errors",

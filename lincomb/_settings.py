@@ -1,14 +1,19 @@
-"""Limit BLAS threads around small, repeated factorizations (optional threadpoolctl).
+"""BLAS threads: the one global setting, and the helpers that apply it (optional threadpoolctl).
 
 Chunked, many-response and Dask fits call BLAS/LAPACK on many blocks of moderate size.  Waking
 BLAS worker threads for each call can cost more than the call, and on a machine whose cores are
 busy it stalls for milliseconds per call; one thread per block is both faster and steadier.
+So work on blocks of rows or responses (chunks, partitions, groups of responses, the row blocks
+of a tall in-memory factor) runs on :func:`worker_threads` BLAS threads: one by default, or what
+:func:`set_blas_threads` / :func:`blas_threads` chose.
+
 threadpoolctl is not a runtime dependency: without it these helpers do nothing.
 """
 
 from __future__ import annotations
 
 import contextlib
+from collections.abc import Iterator
 from typing import Any
 
 import numpy as np
@@ -16,6 +21,11 @@ import numpy as np
 from lincomb.errors import InputError
 
 _CONTROLLER: Any = None
+
+#: BLAS threads inside workers when nothing is set (see :func:`set_blas_threads`).
+DEFAULT_WORKER_THREADS = 1
+#: The global setting: ``None`` means :data:`DEFAULT_WORKER_THREADS`.
+_WORKER_THREADS: int | None = None
 
 
 def blas_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
@@ -35,7 +45,10 @@ def blas_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
         return contextlib.nullcontext()
     if _CONTROLLER is None:
         _CONTROLLER = ThreadpoolController()
-    return _CONTROLLER.limit(limits=threads, user_api="blas")
+    limit: contextlib.AbstractContextManager[Any] = _CONTROLLER.limit(
+        limits=threads, user_api="blas"
+    )
+    return limit
 
 
 def can_limit() -> bool:
@@ -53,3 +66,106 @@ def check_threads(threads: object) -> None:
         return
     if isinstance(threads, bool) or not isinstance(threads, (int, np.integer)) or threads < 1:
         raise InputError(f"blas_threads must be a positive whole number or None, got {threads!r}.")
+
+
+def worker_threads() -> int:
+    """BLAS threads for work on blocks of rows or responses, as set globally (default 1).
+
+    Examples
+    --------
+    >>> worker_threads()
+    1
+    """
+    return DEFAULT_WORKER_THREADS if _WORKER_THREADS is None else _WORKER_THREADS
+
+
+def set_blas_threads(n: int | None) -> None:
+    """Set the BLAS threads that lincomb's block-wise work uses, for the whole process.
+
+    Chunked fits (each chunk), Dask fits (each partition task), many-response fits (each group
+    of responses) and the row blocks of a tall in-memory factor call BLAS on many moderate
+    blocks; they run with at most ``n`` BLAS threads.  Other work leaves BLAS as it is.
+
+    Parameters
+    ----------
+    n : int or None
+        A positive number of threads, or None for the library default: one BLAS thread inside
+        those workers (waking more threads for each small block costs more than it saves, and
+        on busy cores stalls for milliseconds).
+
+    Raises
+    ------
+    lincomb.errors.InputError
+        ``n`` is not a positive whole number or None.
+
+    See Also
+    --------
+    blas_threads : the same setting for a ``with`` block only.
+
+    Notes
+    -----
+    Takes effect only when threadpoolctl is installed (it comes with the ``lincomb[dask]``
+    extra).  A fitting function's ``blas_threads=k`` argument is this setting for one call:
+    ``k`` (a whole number) means ``blas_threads(k)``, the argument's default ``1`` is the
+    library default (``None`` here), and ``blas_threads=None`` (leave BLAS alone) corresponds
+    to ``n`` = the number of threads BLAS would use anyway (for example ``os.cpu_count()``).
+    The setting is a process-wide value read when work starts, not a per-thread one; Dask
+    sends it with each task to worker processes.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> lc.set_blas_threads(2)
+    >>> from lincomb._settings import worker_threads
+    >>> worker_threads()
+    2
+    >>> lc.set_blas_threads(None)  # back to the default: one thread in workers
+    >>> worker_threads()
+    1
+    """
+    global _WORKER_THREADS
+    check_threads(n)
+    _WORKER_THREADS = None if n is None else int(n)
+
+
+@contextlib.contextmanager
+def blas_threads(n: int | None) -> Iterator[None]:
+    """Use ``n`` BLAS threads in lincomb's block-wise work inside a ``with`` block.
+
+    The setting of :func:`set_blas_threads` for the block only; the previous setting is
+    restored on leaving it, also when an error is raised.
+
+    Parameters
+    ----------
+    n : int or None
+        A positive number of threads, or None for the library default (one BLAS thread inside
+        chunk, partition and many-response workers).
+
+    Raises
+    ------
+    lincomb.errors.InputError
+        ``n`` is not a positive whole number or None.
+
+    See Also
+    --------
+    set_blas_threads : the same setting for the whole process, and how a fitting function's
+        ``blas_threads=`` argument maps to it.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> from lincomb._settings import worker_threads
+    >>> with lc.blas_threads(2):
+    ...     worker_threads()
+    2
+    >>> worker_threads()
+    1
+    """
+    global _WORKER_THREADS
+    check_threads(n)
+    before = _WORKER_THREADS
+    _WORKER_THREADS = None if n is None else int(n)
+    try:
+        yield
+    finally:
+        _WORKER_THREADS = before

@@ -25,7 +25,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import lincomb as lc
-from lincomb._core import batch, linalg
+from lincomb import _core as linalg
+from lincomb._core import batch
 from lincomb._results.wald import BATCH_COLUMNS, BATCH_ROW_COLUMNS
 from lincomb.errors import (
     EmptyRestrictionError,

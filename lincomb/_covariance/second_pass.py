@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._covariance import estimators as covmod
 from lincomb.errors import CovarianceInputError, FewClustersWarning, IncompatibleFitError
 

@@ -15,8 +15,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import special
 
 from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
-from lincomb._core.batch import BatchCore, wald_systems
-from lincomb._core.linalg import ROW_TOL
+from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance import estimators as covmod
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (

@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import SummaryDesign, fit_from_moments
 from lincomb._model.design import (
@@ -374,32 +374,6 @@ def _na_rows(
     return frame[cols].isna().to_numpy().any(axis=1)
 
 
-# -- streaming merge -------------------------------------------------------------------------
-
-
-class _TreeMerger:
-    """Merge a stream of moments in a balanced binary tree, holding O(log k) factors."""
-
-    def __init__(self) -> None:
-        self._stack: list[tuple[int, linalg.Moments]] = []
-
-    def add(self, m: linalg.Moments) -> None:
-        level = 0
-        while self._stack and self._stack[-1][0] == level:
-            _, prev = self._stack.pop()
-            m = linalg.merge_moments(prev, m)
-            level += 1
-        self._stack.append((level, m))
-
-    def result(self) -> linalg.Moments | None:
-        if not self._stack:
-            return None
-        acc = self._stack[-1][1]
-        for _, m in reversed(self._stack[:-1]):
-            acc = linalg.merge_moments(m, acc)
-        return acc
-
-
 class _Pass:
     """Bookkeeping of one pass over chunks: counts, dropped labels, progress reports."""
 
@@ -536,7 +510,7 @@ def fit_chunks(
     check_threads(blas_threads)
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
-    merger = _TreeMerger()
+    merger = linalg.MomentMerger()
     encoder: FrameEncoder | None = None
     for k, frame in enumerate(it):
         where = f"chunk {k}"
@@ -661,7 +635,7 @@ def fit_array_chunks(
     check_threads(blas_threads)
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
-    merger = _TreeMerger()
+    merger = linalg.MomentMerger()
     encoder: ArrayEncoder | None = None
     weighted: bool | None = None
     for k, chunk in enumerate(it):

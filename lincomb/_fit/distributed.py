@@ -44,7 +44,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.chunked import FrameEncoder, _cast_levels, _formula_variables
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import SummaryDesign, fit_from_moments
@@ -113,11 +113,7 @@ class _Part:
 
 def _merge_parts(*parts: _Part) -> _Part:
     live = [p.moments for p in parts if p.moments is not None]
-    merged = None
-    if live:
-        merged = live[0]
-        for m in live[1:]:
-            merged = linalg.merge_moments(merged, m)
+    merged = linalg.merge_tree(live) if live else None
     ones = None
     if parts and parts[0].ones is not None:
         ones = np.logical_and.reduce([p.ones for p in parts if p.ones is not None])

@@ -22,9 +22,9 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
+from lincomb import _core as linalg
 from lincomb._builder.contrasts import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
-from lincomb._core import linalg
 from lincomb._covariance import estimators as covmod
 from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
 from lincomb._results.format import fit_html, fit_text

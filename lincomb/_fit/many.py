@@ -53,8 +53,8 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
+from lincomb import _core as linalg
 from lincomb._builder.restriction import as_system
-from lincomb._core import linalg
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
 from lincomb._model.design import Design, design_from_arrays, design_from_formula
 from lincomb._results.format import _num, _p, _table_html, _table_text

@@ -30,18 +30,18 @@ and cluster-robust covariances with a second pass over the data
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Any
 
 import pandas as pd
 
-from lincomb._core import linalg
+from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import CoefficientIndex, Design
 from lincomb.errors import IncompatibleFitError, InputError, RowsUnavailableError
 
-__all__ = ["SummaryDesign", "combine", "without_rows", "fit_from_moments", "merge_all"]
+__all__ = ["SummaryDesign", "combine", "without_rows", "fit_from_moments"]
 
 
 @dataclass(frozen=True)
@@ -127,33 +127,6 @@ _DEFAULT_HINT = (
     "Fit the pooled rows in memory (lc.fit), or for chunked and Dask fits compute it with a"
     " second pass: lincomb.chunked.covariance_pass or lincomb.distributed.covariance_pass."
 )
-
-
-def merge_all(parts: Sequence[linalg.Moments]) -> linalg.Moments:
-    """Merge moments pairwise in a balanced tree (``log2(k)`` levels of small QRs).
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> from lincomb._core import linalg
-    >>> rng = np.random.default_rng(2)
-    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))]); y = rng.normal(size=40)
-    >>> parts = [linalg.moments_from_arrays(x[i:i + 10], y[i:i + 10], intercept=0)
-    ...          for i in range(0, 40, 10)]
-    >>> m = merge_all(parts)
-    >>> whole = linalg.moments_from_arrays(x, y, intercept=0)
-    >>> bool(np.allclose(m.r.T @ m.r, whole.r.T @ whole.r)), m.n
-    (True, 40)
-    """
-    level = list(parts)
-    if not level:
-        raise ValueError("no moments to merge")
-    while len(level) > 1:
-        nxt = [linalg.merge_moments(a, b) for a, b in zip(level[::2], level[1::2], strict=False)]
-        if len(level) % 2:
-            nxt.append(level[-1])
-        level = nxt
-    return level[0]
 
 
 def fit_from_moments(
@@ -333,7 +306,7 @@ def combine(fits: Iterable[LinearFit], *, rank_tol: float | None = None) -> Line
     first = fits[0]
     for k, f in enumerate(fits[1:], start=1):
         _check_same(first, f, k)
-    moments = merge_all([f._moments for f in fits])
+    moments = linalg.merge_tree([f._moments for f in fits])
     d0 = first._design
     dropped_parts = [(k, lab) for k, f in enumerate(fits) for lab in f._design.dropped]
     dropped = (

@@ -58,8 +58,8 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, stats
 
+from lincomb import _core as linalg
 from lincomb._builder.restriction import RestrictionSystem, as_system
-from lincomb._core import linalg
 from lincomb._fit.linear import LinearFit, check_rows
 from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
 from lincomb._results.format import _num, _table_html, _table_text

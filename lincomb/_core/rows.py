@@ -1,0 +1,102 @@
+"""Restriction rows: which are independent, redundant or contradictory.
+
+:func:`analyze_rows` splits the rows of ``C`` (in working coordinates) into independent and
+redundant ones with tolerance :data:`ROW_TOL` (see the package notes in :mod:`lincomb._core`);
+estimability of a row is judged by :meth:`lincomb._core.solve.Solution.estimability_residual`
+against the same tolerance.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["ROW_TOL", "RowAnalysis", "analyze_rows"]
+
+Array = NDArray[np.float64]
+
+#: Relative tolerance for redundant / inconsistent / non-estimable restriction rows.
+ROW_TOL: float = 1e-9
+
+
+@dataclass(frozen=True)
+class RowAnalysis:
+    """Which rows of a restriction system are independent, and how the others depend on them.
+
+    Attributes
+    ----------
+    independent : (q,) ndarray of int
+        Rows kept, in order; ``q`` is the rank of ``C``.
+    dependencies : dict
+        ``{row: {independent_row: weight}}`` for each redundant row:
+        ``C[row] = Σ weight · C[independent_row]``.
+    inconsistent : list of tuple
+        ``(row, d[row], implied)`` for redundant rows whose ``d`` differs from the implied value.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ra = analyze_rows(np.array([[1.0, 0], [0, 1], [1, 1]]), np.array([0.0, 1, 2]))
+    >>> ra.independent.tolist(), ra.dependencies, ra.inconsistent
+    ([0, 1], {2: {0: 1.0, 1: 1.0}}, [(2, 2.0, 1.0)])
+    """
+
+    independent: NDArray[np.intp]
+    dependencies: dict[int, dict[int, float]]
+    inconsistent: list[tuple[int, float, float]]
+
+
+def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
+    """Split the rows of ``C`` into independent and redundant ones, in the order given.
+
+    Parameters
+    ----------
+    cu : (m, p) ndarray
+        Rows of ``C`` (working coordinates are best: they are unit free).
+    d : (m,) ndarray
+    tol : float, default :data:`ROW_TOL`
+
+    Notes
+    -----
+    Greedy Gram–Schmidt with reorthogonalization on the row-normalized ``C``: a row is redundant
+    when what is left after projecting it on the kept rows is at most ``tol`` of its norm.  Its
+    weights on the kept rows come from a least-squares solve.  Cost is O(m² p).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c = np.array([[1.0, 0, 0], [0, 1, 0], [1, 1, 0]])
+    >>> a = analyze_rows(c, np.array([1.0, 2, 3]))
+    >>> a.independent.tolist(), a.dependencies, a.inconsistent
+    ([0, 1], {2: {0: 1.0, 1: 1.0}}, [])
+    """
+    m = cu.shape[0]
+    norms = np.linalg.norm(cu, axis=1)
+    basis: list[Array] = []
+    kept: list[int] = []
+    deps: dict[int, dict[int, float]] = {}
+    bad: list[tuple[int, float, float]] = []
+    for i in range(m):
+        v = cu[i] / norms[i] if norms[i] > 0 else cu[i]
+        resid = v
+        if basis:
+            qb = np.array(basis)
+            resid = v - qb.T @ (qb @ v)
+            resid = resid - qb.T @ (qb @ resid)
+        rn = float(np.linalg.norm(resid))
+        if norms[i] > 0 and rn > tol:
+            basis.append(resid / rn)
+            kept.append(i)
+            continue
+        if kept:
+            w, *_ = np.linalg.lstsq(cu[kept].T, cu[i], rcond=None)
+        else:
+            w = np.zeros(0)
+        deps[i] = {k: float(wk) for k, wk in zip(kept, w, strict=True)}
+        implied = float(w @ d[kept]) if kept else 0.0
+        size = max(abs(float(d[i])), float(np.abs(w) @ np.abs(d[kept])) if kept else 0.0)
+        if abs(float(d[i]) - implied) > tol * size:
+            bad.append((i, float(d[i]), implied))
+    return RowAnalysis(np.array(kept, dtype=np.intp), deps, bad)

@@ -1,0 +1,134 @@
+"""Wald statistics and restricted least squares from a covariance root.
+
+Both work on a root ``V`` of the covariance of ``Cβ̂`` (``Cov = VᵀV``) and use triangular
+solves only: ``VᵀV`` is never formed.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from lincomb._core.solve import Solution
+from lincomb._core.triangular import triangular_factor, upper_solve
+
+__all__ = ["WaldCore", "restricted_step", "wald_from_root"]
+
+Array = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class WaldCore:
+    """Numbers of a Wald test, before names are attached.
+
+    Attributes
+    ----------
+    std_error : (m,) ndarray
+        Standard error of every row (redundant ones too).
+    statistic_rows : (m,) ndarray
+        ``δ / std_error`` per row (NaN where the standard error is zero).
+    quad : float
+        ``δ_Kᵀ (Vᵀ V)⁻¹ δ_K`` over the independent rows ``K`` (divide by ``rank`` for the F).
+    rank : int
+        Number of independent rows.
+    chol : (q, q) ndarray
+        Upper-triangular factor with ``cholᵀ chol = V_Kᵀ V_K``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> core = wald_from_root(np.array([1.0, 2.0]), np.eye(2), np.array([0, 1]))
+    >>> core.quad, core.rank, core.std_error.tolist()
+    (5.0, 2, [1.0, 1.0])
+    """
+
+    std_error: Array
+    statistic_rows: Array
+    quad: float
+    rank: int
+    chol: Array
+
+
+def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> WaldCore:
+    """Quadratic form ``δ_Kᵀ (Vᵀ V)⁻¹ δ_K`` over the independent rows ``K`` of a system.
+
+    Parameters
+    ----------
+    delta : (m,) ndarray
+        ``Cβ̂ - d``.
+    root : (k, m) ndarray
+        A matrix ``V`` with ``Cov(Cβ̂) = Vᵀ V`` (scale included).
+    independent : (q,) ndarray of int
+        Rows to use (from :func:`analyze_rows`).
+
+    Notes
+    -----
+    ``Vᵀ V`` is never formed: the QR of ``V_K`` gives its Cholesky factor, and the form is the
+    squared norm of one triangular solve.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> w = wald_from_root(np.array([2.0]), np.array([[2.0]]), np.array([0]))
+    >>> w.quad, w.std_error.tolist()
+    (1.0, [2.0])
+    """
+    se = np.linalg.norm(root, axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
+    vk = root[:, independent]
+    chol = triangular_factor(vk)
+    q = independent.size
+    if q:
+        sol = upper_solve(chol, delta[independent], trans=True)
+        quad = float(sol @ sol)
+    else:
+        quad = 0.0
+    return WaldCore(std_error=se, statistic_rows=stat, quad=quad, rank=q, chol=chol)
+
+
+def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array, Array]:
+    """Change of working coefficients imposed by ``C_K u = d_K``, and the residual projector.
+
+    Parameters
+    ----------
+    sol : Solution
+    root_k : (rank, q) ndarray
+        ``R⁻ᵀ C_Kᵀ`` (classical, unscaled) for the independent rows.
+    delta_k : (q,) ndarray
+        ``C_K β̂ - d_K``.
+
+    Returns
+    -------
+    step : (rank,) ndarray
+        ``θ_r - θ̂ = -R⁻¹ Q_V R_V⁻ᵀ δ``.
+    w : (rank, rank - q) ndarray
+        ``R⁻¹ Q_⊥`` so that the restricted covariance is ``σ² W Wᵀ``.
+
+    Notes
+    -----
+    With ``V = Q_V R_V`` (full QR), ``V (VᵀV)⁻¹ δ = Q_V R_V⁻ᵀ δ`` and the restricted
+    covariance is ``R⁻¹ (I - Q_V Q_Vᵀ) R⁻ᵀ``; only triangular solves are used.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import moments_from_arrays, solve
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+    >>> cu = sol.to_working(np.array([[0.0, 1.0, -1.0]]))[:, sol.kept]  # β1 - β2 = 3
+    >>> step, w = restricted_step(sol, sol.root(cu), cu @ sol.theta - 3.0)
+    >>> bool(np.allclose(cu @ (sol.theta + step), 3.0)), w.shape
+    (True, (3, 2))
+    """
+    q = delta_k.size
+    qv, rv = np.linalg.qr(root_k, mode="complete")
+    rv = rv[:q]
+    g = upper_solve(rv, delta_k, trans=True)
+    step = -upper_solve(sol.r, qv[:, :q] @ g)
+    w = upper_solve(sol.r, qv[:, q:])
+    return step, w

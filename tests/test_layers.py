@@ -1,0 +1,101 @@
+"""Import direction between lincomb's layers, read from the source with ``ast``.
+
+The numerical core (``lincomb/_core/``) works on arrays only: it may import numpy, scipy and
+the standard library, and of lincomb only ``lincomb._core`` itself, ``lincomb.errors`` and
+``lincomb._settings``.  It never imports pandas or formulaic.
+"""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+import pytest
+
+PACKAGE = Path(__file__).resolve().parents[1] / "lincomb"
+CORE = PACKAGE / "_core"
+
+_CORE_FORBIDDEN_TOP = {"pandas", "formulaic"}
+_CORE_ALLOWED_LINCOMB = ("lincomb._core", "lincomb.errors", "lincomb._settings")
+
+
+def _module_name(path: Path, root: Path) -> str:
+    parts = path.relative_to(root.parent).with_suffix("").parts
+    return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+
+
+def _imports(path: Path, root: Path = PACKAGE) -> list[tuple[int, str]]:
+    """Every module a file imports (absolute names; relative imports resolved), with lines.
+
+    ``from a import b`` yields both ``a`` and ``a.b`` (``b`` may be a submodule), so
+    ``from lincomb import _fit`` is caught as ``lincomb._fit``.
+    """
+    tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+    package = _module_name(path, root)
+    if path.name != "__init__.py":
+        package = package.rpartition(".")[0]
+    found: list[tuple[int, str]] = []
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            found += [(node.lineno, alias.name) for alias in node.names]
+        elif isinstance(node, ast.ImportFrom):
+            base = node.module or ""
+            if node.level:
+                anchor = package.split(".")
+                anchor = anchor[: len(anchor) - (node.level - 1)]
+                base = ".".join([*anchor, base] if base else anchor)
+            found.append((node.lineno, base))
+            found += [(node.lineno, f"{base}.{alias.name}") for alias in node.names]
+    return found
+
+
+def _core_violation(name: str) -> bool:
+    top = name.split(".")[0]
+    if top in _CORE_FORBIDDEN_TOP:
+        return True
+    if top != "lincomb":
+        return False
+    if name == "lincomb":  # `from lincomb import x`: judged by the `lincomb.x` entry
+        return False
+    return not any(name == ok or name.startswith(ok + ".") for ok in _CORE_ALLOWED_LINCOMB)
+
+
+def _core_files() -> list[Path]:
+    return sorted(CORE.rglob("*.py"))
+
+
+def test_the_core_has_modules_to_check():
+    names = {p.stem for p in _core_files()}
+    assert {"__init__", "moments", "merge", "solve"} <= names
+
+
+@pytest.mark.parametrize("path", _core_files(), ids=lambda p: p.name)
+def test_core_imports_only_arrays_errors_and_settings(path):
+    bad = [f"line {line}: {name}" for line, name in _imports(path) if _core_violation(name)]
+    assert not bad, f"{path.relative_to(PACKAGE.parent)} imports outside its layer: {bad}"
+
+
+@pytest.mark.parametrize(
+    ("source", "bad"),
+    [
+        ("import pandas as pd", True),
+        ("from formulaic import model_matrix", True),
+        ("from lincomb._fit import linear", True),
+        ("from lincomb import _fit", True),
+        ("import lincomb._model.design", True),
+        ("from .. import _results", True),
+        ("from lincomb.errors import InputError", False),
+        ("from lincomb._settings import blas_limit", False),
+        ("from lincomb._core.solve import Solution", False),
+        ("from . import solve", False),
+        ("import numpy as np", False),
+    ],
+)
+def test_the_check_itself_tells_allowed_from_forbidden(tmp_path, source, bad):
+    # the checker must be able to fail: feed it one import line in a fake core module
+    fake_pkg = tmp_path / "lincomb" / "_core"
+    fake_pkg.mkdir(parents=True)
+    f = fake_pkg / "fake.py"
+    f.write_text(source + "\n", encoding="utf-8")
+    found = any(_core_violation(name) for _, name in _imports(f, tmp_path / "lincomb"))
+    assert found is bad
