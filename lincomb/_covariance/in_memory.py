@@ -24,7 +24,6 @@ from lincomb._settings import blas_limit, can_limit
 from lincomb.errors import CovarianceInputError
 
 if TYPE_CHECKING:  # pragma: no cover
-    from lincomb._covariance.meats import Partial
     from lincomb._fit.linear import LinearFit
 
 __all__ = ["BLOCK_ELEMENTS", "heteroskedastic", "clustered", "serial", "automatic_lag"]
@@ -50,32 +49,34 @@ def _over_rows(
     fit: LinearFit,
     labels: tuple[NDArray[Any], ...] = (),
     order: NDArray[np.intp] | None = None,
-) -> Partial:
-    """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given) and merge."""
+) -> CovarianceEstimate:
+    """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given), merge and
+    finish, on one BLAS thread when the fit is large (threads woken for small products cost
+    more than the products on busy cores)."""
     x, y, w = fit_rows(fit)
     rmap = RowMap.of(fit._sol)
     n = x.shape[0]
     step = max(_MIN_ROWS, BLOCK_ELEMENTS // max(rmap.kept.size, 1))
     on_main = threading.current_thread() is threading.main_thread()
-    blocked = n >= 2 * step and on_main and can_limit()
-    if not blocked:
+    limited = n >= 2 * step and on_main and can_limit()
+    if not (limited and meat.row_blocks):
         step = max(n, 1)
-    with blas_limit(1) if blocked else contextlib.nullcontext():
+    with blas_limit(1) if limited else contextlib.nullcontext():
         parts = []
         for s in range(0, n, step):
             rows: slice | NDArray[np.intp] = (
                 slice(s, s + step) if order is None else order[s : s + step]
             )
-            xc, resid = rmap.rows(x[rows], y[rows])
+            xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
             weights = None if w is None else w[rows]
             parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
-        return meat.merge(*parts)  # type: ignore[no-any-return]
+        return meat.finish(meat.merge(*parts))  # type: ignore[no-any-return]
 
 
 def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
     """``HC0`` ... ``HC4`` on an in-memory fit."""
     meat = HeteroskedasticMeat(fit, kind)
-    return meat.finish(_over_rows(meat, fit))
+    return _over_rows(meat, fit)
 
 
 def clustered(
@@ -90,7 +91,7 @@ def clustered(
         codes.append(c)
         names.append(name)
     meat = ClusterMeat(fit, tuple(names), small_sample, df)
-    return meat.finish(_over_rows(meat, fit, tuple(codes)))
+    return _over_rows(meat, fit, tuple(codes))
 
 
 def serial(
@@ -112,4 +113,4 @@ def serial(
         values, order_name = row_values(fit, order, "time order")
         perm = time_order(fit, values, order_name)
     meat = SerialMeat(fit, lag, order_name, small_sample, df)
-    return meat.finish(_over_rows(meat, fit, order=perm))
+    return _over_rows(meat, fit, order=perm)

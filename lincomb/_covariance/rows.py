@@ -62,14 +62,15 @@ class RowMap:
         all_kept = kept.size == sol.center.size and np.array_equal(kept, np.arange(kept.size))
         return cls(kept, sol.center[kept], sol.theta / scale, sol.r * scale, bool(all_kept))
 
-    def rows(self, x: Array, y: Array) -> tuple[Array, Array]:
+    def rows(self, x: Array, y: Array, *, fortran: bool = False) -> tuple[Array, Array]:
         """``(X_c, e)`` for a block of raw rows ``x`` (b, p) and responses ``y`` (b,);
-        ``X_c`` is a new array."""
+        ``X_c`` is a new array (column-major with ``fortran``, for a solve from the right)."""
         if self.all_kept and x.shape[1] == self.kept.size:
-            xc = x - self.center  # one pass, no gather
+            src = x  # one pass, no gather
         else:
-            xc = x[:, self.kept]  # a copy: fancy indexing
-            xc -= self.center
+            src = x[:, self.kept]  # a copy: fancy indexing
+        xc = np.empty(src.shape, order="F" if fortran else "C")
+        np.subtract(src, self.center, out=xc)
         return xc, y - xc @ self.theta
 
 

@@ -77,7 +77,7 @@ class RowPass:
         labels: tuple[NDArray[Any], ...] = ()
         if isinstance(self.meat, ClusterMeat):
             labels = _labels(self.meat.names, frame, where)
-        xc, resid = self.rows.rows(x, y)
+        xc, resid = self.rows.rows(x, y, fortran=self.meat.fortran)
         return self.meat.block(xc, resid, w, labels)
 
     def merge(self, a: Partial, b: Partial) -> Partial:
