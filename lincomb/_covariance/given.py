@@ -101,7 +101,7 @@ def _given_block(fit: LinearFit, matrix: Any) -> Array:
     big = float(np.abs(v).max()) if v.size else 0.0
     asym = float(np.abs(v - v.T).max()) if v.size else 0.0
     if asym > SYMMETRY_TOL * big:
-        i, j = np.unravel_index(int(np.argmax(np.abs(v - v.T))), v.shape)
+        i, j = (int(t) for t in np.unravel_index(int(np.argmax(np.abs(v - v.T))), v.shape))
         raise CovarianceInputError(
             f"the given covariance is not symmetric: entry ({names[kept[i]]!r},"
             f" {names[kept[j]]!r}) is {v[i, j]:.6g} but ({names[kept[j]]!r}, {names[kept[i]]!r})"
@@ -115,4 +115,5 @@ def _given_block(fit: LinearFit, matrix: Any) -> Array:
                 f" {lam[0]:.6g} (largest {lam[-1]:.6g}). A covariance matrix cannot give a"
                 " negative variance to any combination of coefficients."
             )
-    return (v + v.T) / 2
+    sym: Array = (v + v.T) / 2
+    return sym
