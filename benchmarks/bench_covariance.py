@@ -19,6 +19,11 @@ cluster, 1,000 clusters; a 3-row restriction system.
    a test on a fit prepared with ``fit.with_covariance(...)`` (the meat computed once): its
    cost per test does not grow with n (checked at n = 10,000 and 100,000).
 
+   **Covariance over fit**: ``fit.with_covariance("HC3")`` and ``fit.with_covariance(
+   lc.clustered(by=g))`` (the meat, a pass over the rows) against ``lc.fit_arrays(X, y)`` (the
+   fit itself), interleaved in the same run: the ratio covariance time / fit time.  Target:
+   at most 1.5 for each.
+
 2. **Robust fit + test against statsmodels** -- lincomb ``fit_arrays(X, y)`` then
    ``wald(r, covariance=...)`` against statsmodels ``OLS(y, X).fit(cov_type="HC3")`` /
    ``fit(cov_type="cluster", cov_kwds={"groups": g})`` then ``f_test((C, d))``, interleaved.
@@ -133,6 +138,24 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
         "prepared_cluster_over_classical": paired_ratio(r1, "prepared_cluster", "classical"),
     }
 
+    # the covariance itself against the fit's own time
+    r1c = interleaved(
+        {
+            "fit": lambda: lc.fit_arrays(x, y),
+            "HC3": lambda: f.with_covariance("HC3"),
+            "cluster": lambda: f.with_covariance(cluster),
+        },
+        reps(15),
+    )
+    m1c = r1c["median"]
+    out["over_fit"] = {
+        "fit_ms": 1e3 * m1c["fit"],
+        "HC3_ms": 1e3 * m1c["HC3"],
+        "cluster_ms": 1e3 * m1c["cluster"],
+        "HC3_over_fit": paired_ratio(r1c, "HC3", "fit"),
+        "cluster_over_fit": paired_ratio(r1c, "cluster", "fit"),
+    }
+
     # per-test cost on prepared fits does not grow with n
     small_x, small_y, small_g = make_data(10_000, SEED + 7)
     prepared = {
@@ -194,6 +217,8 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
     }
     out["checks"] = checks
     out["targets"] = {
+        "HC3_within_1.5x_fit": out["over_fit"]["HC3_over_fit"] <= 1.5,
+        "cluster_within_1.5x_fit": out["over_fit"]["cluster_over_fit"] <= 1.5,
         "HC3_faster_than_statsmodels": out["vs_statsmodels"]["speedup_HC3"] > 1,
         "cluster_faster_than_statsmodels": out["vs_statsmodels"]["speedup_cluster"] > 1,
     }
@@ -203,6 +228,7 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
 
 def report(res: dict[str, Any]) -> str:
     a, q, s, c = res["on_fit"], res["per_test"], res["vs_statsmodels"], res["checks"]
+    o = res["over_fit"]
     lines = [
         f"python {res['python']}, numpy {res['numpy']}, scipy {res['scipy']},"
         f" statsmodels {res['statsmodels']}; OPENBLAS_CORETYPE={res['env']['OPENBLAS_CORETYPE']}"
@@ -221,6 +247,9 @@ def report(res: dict[str, Any]) -> str:
         f"   ({a['prepared_HC3_over_classical']:.2f}x classical)",
         f"   prepared cluster fit, wald    {a['prepared_cluster_ms']:9.3f} ms"
         f"   ({a['prepared_cluster_over_classical']:.2f}x classical)",
+        f"   covariance over fit: fit {o['fit_ms']:.2f} ms, with_covariance('HC3')"
+        f" {o['HC3_ms']:.2f} ms ({o['HC3_over_fit']:.2f}x fit), with_covariance(clustered)"
+        f" {o['cluster_ms']:.2f} ms ({o['cluster_over_fit']:.2f}x fit)",
         f"   per test on a prepared cluster fit: n = 10,000 {q['n_10000_us']:.1f} us,"
         f" n = 100,000 {q['n_100000_us']:.1f} us (ratio {q['ratio_1e5_to_1e4']:.2f})",
         "",

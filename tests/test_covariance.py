@@ -683,3 +683,99 @@ def test_intercept_must_be_a_column_of_ones():
     y = np.array([1.0, 2.5, 2.9, 4.2, 6.1])
     f = lc.fit_arrays(x, y)
     close(f.coefficients.to_numpy(), np.linalg.lstsq(x, y, rcond=None)[0], rtol=1e-12)
+
+
+# -- block / merge / finish ---------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def large() -> pd.DataFrame:
+    # seeded simulation, large enough (60,000 rows, 4 kept columns) that an in-memory fit's
+    # meat is summed over several row blocks on one BLAS thread
+    rng = np.random.default_rng(20260412)
+    n = 60_000
+    x1, x2 = rng.normal(size=n), rng.normal(size=n)
+    g = rng.integers(0, 200, size=n)
+    t = rng.permutation(n)
+    e = rng.normal(size=n) * (1 + 0.5 * np.abs(x1)) + rng.normal(size=200)[g] * 0.3
+    w = rng.uniform(0.5, 2.0, size=n)
+    return pd.DataFrame(
+        {"y": 1 + 0.2 * x1 - 0.1 * x2 + e, "x1": x1, "x2": x2, "g": g, "t": t, "w": w}
+    )
+
+
+@pytest.mark.parametrize("kind", ["HC1", "HC3", "HC4"])
+def test_blocked_hc_against_statsmodels(large, kind):
+    # statsmodels wls(weights=w).fit(cov_type=kind) <-> fit(weights="w").wald(covariance=kind)
+    from lincomb._covariance.in_memory import BLOCK_ELEMENTS
+
+    form = "y ~ x1 + x2 + C(g % 3)"
+    f = lc.fit(form, large, weights="w")
+    assert f.n_obs > 2 * BLOCK_ELEMENTS // f.rank  # the blocked path runs
+    if kind == "HC4":  # statsmodels has no HC4: the direct formula, one row at a time in numpy
+        x = f._design.x
+        sw = np.sqrt(large["w"].to_numpy())
+        xt, et = x * sw[:, None], (large["y"].to_numpy() - x @ f.coefficients.to_numpy()) * sw
+        q, _ = np.linalg.qr(xt)
+        h = np.einsum("ij,ij->i", q, q)
+        om = et**2 / (1 - h) ** np.minimum(4, len(h) * h / x.shape[1])
+        bread = np.linalg.pinv(xt.T @ xt)
+        close(f.covariance("HC4").to_numpy(), bread @ (xt.T * om) @ xt @ bread, rtol=1e-7)
+        return
+    sm_t = smf.wls(form, large, weights=large["w"]).fit(cov_type=kind, use_t=True)
+    sm_n = smf.wls(form, large, weights=large["w"]).fit(cov_type=kind)
+    assert_matches(f, (lc.coef("x1") == 0) & (lc.coef("x2") == 0.1), kind, sm_t, sm_n)
+
+
+def test_blocked_serial_against_statsmodels(large):
+    # statsmodels cov_type="HAC", maxlags=5 on the rows sorted by t <-> serial(lag=5, order="t")
+    f = lc.fit("y ~ x1 + x2", large)
+    ordered = large.sort_values("t").reset_index(drop=True)
+    sm_t = smf.ols("y ~ x1 + x2", ordered).fit(cov_type="HAC", cov_kwds={"maxlags": 5}, use_t=True)
+    sm_n = smf.ols("y ~ x1 + x2", ordered).fit(cov_type="HAC", cov_kwds={"maxlags": 5})
+    assert_matches(f, lc.coef("x1") == 0, lc.serial(lag=5, order="t"), sm_t, sm_n)
+
+
+@pytest.mark.parametrize("sizes", [(1, 2, 3, 50), (7, 7, 7, 7, 4), (32,)])
+def test_block_merge_finish_equal_brute_force_loops(cars, sizes):
+    # brute force: the meats summed pair by pair / cluster by cluster in plain Python loops
+    # over the working scores g_i = z_i ẽ_i, against blocks of the given sizes merged
+    from lincomb._covariance.meats import ClusterMeat, SerialMeat
+    from lincomb._covariance.rows import RowMap
+
+    f = lc.fit("mpg ~ wt + hp + qsec", cars)
+    x, y = f._design.x, f._design.y
+    rmap = RowMap.of(f._sol)
+    xc, e = rmap.rows(x, y)
+    z = np.linalg.solve(rmap.rs.T, xc.T).T
+    s = z * e[:, None]
+    n, lag = len(e), 3
+    want = np.zeros((4, 4))
+    for i in range(n):
+        for j in range(n):
+            if abs(i - j) <= lag:
+                want += (1 - abs(i - j) / (lag + 1)) * np.outer(s[i], s[j])
+    labels = (cars["cyl"].to_numpy(), cars["gear"].to_numpy())
+    cl_want = []
+    for key in (labels[0], labels[1], [f"{a}/{b}" for a, b in zip(*labels, strict=True)]):
+        m = np.zeros((4, 4))
+        for v in set(key):
+            sg = s[[k == v for k in key]].sum(axis=0)
+            m += np.outer(sg, sg)
+        cl_want.append(m)
+    serial = SerialMeat(f, lag, "row order", False, None)
+    clus = ClusterMeat(f, ("cyl", "gear"), False, None)
+    edges = np.cumsum((0, *sizes))
+    sp, cp = [], []
+    for a, b in zip(edges[:-1], edges[1:], strict=True):
+        xb, eb = rmap.rows(x[a:b], y[a:b], fortran=True)
+        sp.append(serial.block(xb, eb, None))
+        xb, eb = rmap.rows(x[a:b], y[a:b])
+        cp.append(clus.block(xb, eb, None, tuple(lab[a:b] for lab in labels)))
+    got = sp[0]
+    for p in sp[1:]:
+        got = serial.merge(got, p)
+    close(got.gram, want, atol=1e-12)
+    merged = clus.merge(*cp[::-1])  # cluster partials merge in any order
+    for grp, m in zip(merged.groups, cl_want, strict=True):
+        sq = np.linalg.solve(rmap.rs.T, grp.sums.T)
+        close(sq @ sq.T, m, atol=1e-12)
+    assert merged.n == n and math.isclose(merged.rss, f.rss, rel_tol=1e-12)

@@ -1,0 +1,50 @@
+"""The few-clusters warning, pointed at the user's line whichever public call led to it."""
+
+from __future__ import annotations
+
+import os
+import sys
+import warnings
+from collections.abc import Sequence
+
+from lincomb.errors import FewClustersWarning
+
+__all__ = ["FEW_CLUSTERS", "warn_few_clusters"]
+
+#: Fewer clusters than this draw a :class:`~lincomb.errors.FewClustersWarning`.
+FEW_CLUSTERS: int = 30
+
+
+def warn_few_clusters(names: Sequence[str], sizes: Sequence[int]) -> None:
+    """Warn when a clustering variable has fewer than :data:`FEW_CLUSTERS` clusters.
+
+    Examples
+    --------
+    >>> import warnings
+    >>> with warnings.catch_warnings(record=True) as seen:
+    ...     warnings.simplefilter("always")
+    ...     warn_few_clusters(["site"], [12])
+    >>> str(seen[0].message).split(".")[0]
+    'few clusters: site (12)'
+    """
+    few = [f"{nm} ({g})" for nm, g in zip(names, sizes, strict=True) if g < FEW_CLUSTERS]
+    if few:
+        warnings.warn(
+            f"few clusters: {', '.join(few)}. Cluster-robust tests lean on many clusters;"
+            f" with fewer than {FEW_CLUSTERS} their size can be far from nominal. Read the"
+            " p-values with care, or use a coarser model of the dependence.",
+            FewClustersWarning,
+            stacklevel=_user_stacklevel(),
+        )
+
+
+def _user_stacklevel() -> int:
+    """Stack level of the first frame outside this package (for warnings that point at the
+    caller's line whichever public method led here)."""
+    here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))  # the lincomb package
+    frame = sys._getframe(1)
+    level = 1
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(here):
+        frame = frame.f_back  # type: ignore[assignment]
+        level += 1
+    return level

@@ -1,0 +1,116 @@
+"""Robust covariances of an in-memory fit: the meats of :mod:`~lincomb._covariance.meats` run
+over blocks of the fit's rows.
+
+On the main thread with threadpoolctl installed, rows are visited in blocks of about
+:data:`BLOCK_ELEMENTS` numbers (``rows × kept columns``) on one BLAS thread: each block is
+centred, solved and summed while it is in cache, and no ``n × k`` work array is allocated.
+Elsewhere (worker threads, where thread limits would race) the rows form one block.  The result
+is the same up to the order of summation.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import threading
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
+from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
+from lincomb._settings import blas_limit, can_limit
+from lincomb.errors import CovarianceInputError
+
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._fit.linear import LinearFit
+
+__all__ = ["BLOCK_ELEMENTS", "heteroskedastic", "clustered", "serial", "automatic_lag"]
+
+#: Numbers (rows × kept columns) in one block of rows: 512 KiB, well inside a core's L2 cache.
+BLOCK_ELEMENTS: int = 1 << 16
+_MIN_ROWS = 256
+
+
+def automatic_lag(n: int) -> int:
+    """The Newey–West (1994) rule of thumb ``floor(4 (n/100)^(2/9))`` for the Bartlett kernel.
+
+    Examples
+    --------
+    >>> automatic_lag(100), automatic_lag(1000)
+    (4, 6)
+    """
+    return int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0)))
+
+
+def _over_rows(
+    meat: Any,
+    fit: LinearFit,
+    labels: tuple[NDArray[Any], ...] = (),
+    order: NDArray[np.intp] | None = None,
+) -> CovarianceEstimate:
+    """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given), merge and
+    finish, on one BLAS thread when the fit is large (threads woken for small products cost
+    more than the products on busy cores)."""
+    x, y, w = fit_rows(fit)
+    rmap = RowMap.of(fit._sol)
+    n = x.shape[0]
+    step = max(_MIN_ROWS, BLOCK_ELEMENTS // max(rmap.kept.size, 1))
+    on_main = threading.current_thread() is threading.main_thread()
+    limited = n >= 2 * step and on_main and can_limit()
+    if not (limited and meat.row_blocks):
+        step = max(n, 1)
+    with blas_limit(1) if limited else contextlib.nullcontext():
+        parts = []
+        for s in range(0, n, step):
+            rows: slice | NDArray[np.intp] = (
+                slice(s, s + step) if order is None else order[s : s + step]
+            )
+            xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
+            weights = None if w is None else w[rows]
+            parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
+        return meat.finish(meat.merge(*parts))  # type: ignore[no-any-return]
+
+
+def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
+    """``HC0`` ... ``HC4`` on an in-memory fit."""
+    meat = HeteroskedasticMeat(fit, kind)
+    return _over_rows(meat, fit)
+
+
+def clustered(
+    fit: LinearFit, by: tuple[Any, ...], small_sample: bool, df: float | None
+) -> CovarianceEstimate:
+    """One- or two-way cluster-robust covariance on an in-memory fit."""
+    codes = []
+    names = []
+    for b in by:
+        values, name = row_values(fit, b, "cluster labels")
+        c, _ = cluster_codes(fit, values, name)
+        codes.append(c)
+        names.append(name)
+    meat = ClusterMeat(fit, tuple(names), small_sample, df)
+    return _over_rows(meat, fit, tuple(codes))
+
+
+def serial(
+    fit: LinearFit, lag: int | None, order: Any, small_sample: bool, df: float | None
+) -> CovarianceEstimate:
+    """Newey–West covariance on an in-memory fit, rows taken in time order."""
+    n = fit.n_obs
+    lag = automatic_lag(n) if lag is None else lag
+    if lag >= n:
+        raise CovarianceInputError(
+            f"lag {lag} is not smaller than the {n} observations the fit used; a lag must"
+            f" be below n (the automatic rule gives {automatic_lag(n)})."
+        )
+    fit_rows(fit)  # rows first: a fit without rows says so before the order is read
+    if order is None:
+        perm: NDArray[np.intp] | None = None
+        order_name = "row order"
+    else:
+        values, order_name = row_values(fit, order, "time order")
+        perm = time_order(fit, values, order_name)
+    meat = SerialMeat(fit, lag, order_name, small_sample, df)
+    return _over_rows(meat, fit, order=perm)

@@ -1,0 +1,424 @@
+"""The covariance estimators a user writes: specifications without data, evaluated on a fit.
+
+``"classical"`` (or None), ``"HC0"`` ... ``"HC4"``, :func:`clustered`, :func:`serial` and
+:func:`given` name an estimator; :func:`as_estimator` turns any of them into an
+:class:`Estimator`, whose :meth:`~Estimator.evaluate` gives the
+:class:`~lincomb._covariance.estimate.CovarianceEstimate` of one fit (the row-based ones through
+:mod:`lincomb._covariance.in_memory`).  See :mod:`lincomb._covariance.estimators` for the
+formulas.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+from lincomb._covariance import in_memory
+from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.given import given_estimate
+from lincomb.errors import CovarianceInputError
+
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._fit.linear import LinearFit
+
+__all__ = [
+    "HC_KINDS",
+    "Estimator",
+    "Classical",
+    "Heteroskedastic",
+    "Clustered",
+    "Serial",
+    "Given",
+    "clustered",
+    "serial",
+    "given",
+    "as_estimator",
+]
+
+#: The heteroskedasticity-consistent estimators, by their names in the trade.
+HC_KINDS: tuple[str, ...] = ("HC0", "HC1", "HC2", "HC3", "HC4")
+
+# -- estimator specifications (no data; evaluated on a fit) ---------------------------------
+
+
+class Estimator:
+    """Base class of the covariance estimator specifications.
+
+    A specification holds only the user's choices; :meth:`evaluate` turns it into a
+    :class:`CovarianceEstimate` for one fit.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> isinstance(lc.clustered(by="site"), Estimator), isinstance(as_estimator("HC1"), Estimator)
+    (True, True)
+    """
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:  # pragma: no cover - abstract
+        """Evaluate this estimator on ``fit`` (subclasses implement it).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> as_estimator("HC1").evaluate(f)
+        <CovarianceEstimate: HC1; reference df 295>
+        """
+        raise NotImplementedError
+
+
+@dataclass(frozen=True)
+class Classical(Estimator):
+    """``σ² (X̃ᵀX̃)⁻¹``: the covariance under constant error variance (the default).
+
+    Written as the string ``"classical"`` (or ``None``) where an estimator is accepted.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> Classical().evaluate(f)
+    <CovarianceEstimate: classical; reference df 295>
+    """
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit._check_variance()
+        return CovarianceEstimate(
+            method="classical",
+            label="classical",
+            df_den=float(fit.df_resid),
+            _sol=fit._sol,
+            _sigma=fit.sigma,
+        )
+
+
+@dataclass(frozen=True)
+class Heteroskedastic(Estimator):
+    """One of the heteroskedasticity-consistent sandwiches ``HC0`` to ``HC4``.
+
+    Written as the string ``"HC0"`` ... ``"HC4"`` where an estimator is accepted.  The F
+    reference uses ``n − rank`` denominator degrees of freedom.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> f.wald(lc.term("line") == 0, covariance=Heteroskedastic("HC2")).covariance
+    'HC2'
+    """
+
+    kind: str = "HC3"
+
+    def __post_init__(self) -> None:
+        if self.kind not in HC_KINDS:
+            raise CovarianceInputError(
+                f"unknown heteroskedasticity-consistent estimator {self.kind!r}; use one of"
+                f" {list(HC_KINDS)}."
+            )
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit._check_variance()
+        return in_memory.heteroskedastic(fit, self.kind)
+
+
+@dataclass(frozen=True, eq=False)
+class Clustered(Estimator):
+    """Cluster-robust covariance; build it with :func:`clustered`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> lc.clustered(by="site").evaluate(f)
+    <CovarianceEstimate: cluster by site (40 groups); reference df 39>
+    """
+
+    by: tuple[Any, ...]
+    small_sample: bool = True
+    df: float | None = None
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit._check_variance()
+        return in_memory.clustered(fit, self.by, self.small_sample, self.df)
+
+
+@dataclass(frozen=True, eq=False)
+class Serial(Estimator):
+    """Newey–West covariance with Bartlett weights; build it with :func:`serial`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> sites = lc.datasets.service_sites()
+    >>> f = lc.fit("wait_min ~ staffing", sites[sites["site"] == "S01"])
+    >>> lc.serial(lag=2, order="week").evaluate(f)
+    <CovarianceEstimate: serial (Bartlett, lag 2, week); reference df 24>
+    """
+
+    lag: int | None = None
+    order: Any = None
+    small_sample: bool = False
+    df: float | None = None
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit._check_variance()
+        return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df)
+
+
+@dataclass(frozen=True, eq=False)
+class Given(Estimator):
+    """A covariance matrix of the coefficients supplied by the user; build it with
+    :func:`given`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> lc.given(f.covariance("HC3"), df=100).evaluate(f)
+    <CovarianceEstimate: given matrix; reference df 100>
+    """
+
+    matrix: Any
+    df: float | None = None
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        return given_estimate(fit, self.matrix, self.df)
+
+
+# -- public constructors --------------------------------------------------------------------
+
+
+def clustered(
+    by: str | ArrayLike | pd.Series | Sequence[Any],
+    *,
+    small_sample: bool = True,
+    df: float | None = None,
+) -> Clustered:
+    """Cluster-robust covariance: errors may correlate within a cluster, not across clusters.
+
+    Parameters
+    ----------
+    by : str, array_like, pandas.Series, or a list of two of them
+        Cluster labels of the rows: the name of a column of the data the fit was made from
+        (rows dropped for missing values are dropped here too), a Series aligned by index with
+        that data, or an array with one label per row *used* by the fit.  Two of them (a list
+        of two names, a two-column DataFrame or array) give two-way clustering.  A list of
+        strings always names columns: give the labels themselves as an array or Series.
+    small_sample : bool, default True
+        Multiply each one-way meat by ``G/(G−1) · (N−1)/(N−K)`` (``G`` clusters, ``N`` rows,
+        ``K`` the rank of the design).
+    df : float, optional
+        Denominator degrees of freedom of the F (and t) reference.  Default ``G − 1``; with two
+        clustering variables ``min(G₁, G₂) − 1``.
+
+    Returns
+    -------
+    Clustered
+
+    Notes
+    -----
+    One-way: ``M = Σ_g s_g s_gᵀ`` with ``s_g`` the sum of the scores ``x̃_i ẽ_i`` of cluster
+    ``g``.  Two-way: ``M₁ + M₂ − M₁₂``, where ``M₁₂`` clusters by the intersection of the two
+    labellings and each term carries its own small-sample factor; this difference need not be
+    positive semi-definite, so its negative eigenvalues are set to zero (the fix proposed by
+    Cameron, Gelbach and Miller, 2011) and their number is reported on the estimate
+    (``clipped``) and in its label.  Labels with missing values, a length that does not match
+    the rows used, or a single cluster raise :class:`~lincomb.errors.CovarianceInputError`.
+    Fewer than :data:`FEW_CLUSTERS` clusters draw a :class:`~lincomb.errors.FewClustersWarning`.
+    A cluster-robust covariance has rank at most ``G − 1``: a system with more independent rows
+    raises :class:`~lincomb.errors.SingularCovarianceError`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.clustered(by="site"))
+    >>> res.covariance, res.df_den
+    ('cluster by site (40 groups)', 39.0)
+    """
+    if isinstance(by, str):
+        parts: tuple[Any, ...] = (by,)
+    elif isinstance(by, pd.DataFrame):
+        parts = tuple(by[c] for c in by.columns)
+    elif isinstance(by, pd.Series):
+        parts = (by,)
+    elif isinstance(by, (list, tuple)) and by and _all_names_or_vectors(by):
+        parts = tuple(by)
+    else:
+        arr = np.asarray(by)
+        if arr.ndim == 2:
+            parts = tuple(arr[:, j] for j in range(arr.shape[1]))
+        elif arr.ndim == 1:
+            parts = (arr,)
+        else:
+            raise CovarianceInputError(
+                f"cluster labels must be one-dimensional (or two columns for two-way"
+                f" clustering); got shape {arr.shape}."
+            )
+    if not 1 <= len(parts) <= 2:
+        raise CovarianceInputError(
+            f"clustering by {len(parts)} variables is not supported: give one variable, or two"
+            " for two-way clustering."
+        )
+    _check_df(df)
+    return Clustered(by=parts, small_sample=bool(small_sample), df=df)
+
+
+def serial(
+    lag: int | None = None,
+    *,
+    order: str | ArrayLike | pd.Series | None = None,
+    small_sample: bool = False,
+    df: float | None = None,
+) -> Serial:
+    """Heteroskedasticity-and-autocorrelation consistent covariance (Newey–West).
+
+    Parameters
+    ----------
+    lag : int, optional
+        Highest lag with a nonzero weight; lag ``ℓ`` gets the Bartlett weight
+        ``1 − ℓ/(lag + 1)``.  Default: the rule of thumb ``floor(4 (n/100)^(2/9))`` of Newey and
+        West (1994), see :func:`automatic_lag`.  Must be a whole number below ``n``.
+    order : str, array_like or pandas.Series, optional
+        Time order of the rows: a column of the fit's data, or one value per row used.  Rows
+        are sorted by it (ties are refused: one series, one observation per time point).
+        Default: the order of the rows in the data.
+    small_sample : bool, default False
+        Multiply the meat by ``n/(n−k)``.
+    df : float, optional
+        Denominator degrees of freedom of the F (and t) reference; default ``n − rank``.
+
+    Returns
+    -------
+    Serial
+
+    Notes
+    -----
+    ``M = Γ₀ + Σ_{ℓ=1..lag} (1 − ℓ/(lag+1)) (Γ_ℓ + Γ_ℓᵀ)`` with ``Γ_ℓ = Σ_t g_t g_{t−ℓ}ᵀ`` over
+    the scores in time order.  Lags count rows in that order, not units of time: gaps in the
+    time values are not filled.  The Bartlett weights keep ``M`` positive semi-definite; negative
+    rounding is set to zero.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> sites = lc.datasets.service_sites()
+    >>> one = sites[sites["site"] == "S01"]
+    >>> f = lc.fit("wait_min ~ staffing", one)
+    >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.serial(lag=2, order="week"))
+    >>> res.covariance
+    'serial (Bartlett, lag 2, week)'
+    """
+    if lag is not None:
+        if isinstance(lag, bool) or not isinstance(lag, (int, np.integer)):
+            raise CovarianceInputError(
+                f"lag must be a whole number of rows, got {lag!r}; e.g. serial(lag=4)."
+            )
+        if lag < 0:
+            raise CovarianceInputError(f"lag must be 0 or more, got {lag}.")
+        lag = int(lag)
+    _check_df(df)
+    return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df)
+
+
+def given(matrix: ArrayLike | pd.DataFrame, *, df: float | None = None) -> Given:
+    """A covariance matrix of the coefficients supplied by the user.
+
+    Parameters
+    ----------
+    matrix : (p, p) array_like or pandas.DataFrame
+        Covariance of ``β̂`` in the fit's coefficient order, or a DataFrame whose index and
+        columns are the coefficient names (any order).  It must be finite, symmetric (to
+        :data:`SYMMETRY_TOL`) and positive semi-definite (to :data:`PSD_TOL`) on the estimable
+        coefficients.  Rows and columns of aliased coefficients are ignored (they may be NaN).
+    df : float, optional
+        Denominator degrees of freedom of the F (and t) reference; default ``n − rank`` of the
+        fit.
+
+    Returns
+    -------
+    Given
+
+    Notes
+    -----
+    For a rank-deficient fit the matrix is read as the covariance of the basic solution (the
+    aliased coefficients fixed at zero); only estimable rows can be tested.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> r = lc.coef("temperature_c") == 0
+    >>> a = f.wald(r, covariance=lc.given(f.covariance()))
+    >>> bool(np.isclose(a.statistic, f.wald(r).statistic))
+    True
+    """
+    _check_df(df)
+    return Given(matrix=matrix, df=df)
+
+
+def as_estimator(obj: object) -> Estimator:
+    """Turn ``None``, a name (``"classical"``, ``"HC0"`` ... ``"HC4"``) or an estimator into one.
+
+    Examples
+    --------
+    >>> as_estimator("HC3")
+    Heteroskedastic(kind='HC3')
+    >>> as_estimator(None)
+    Classical()
+    """
+    if obj is None:
+        return Classical()
+    if isinstance(obj, Estimator):
+        return obj
+    if isinstance(obj, str):
+        key = obj.strip()
+        if key.lower() == "classical":
+            return Classical()
+        if key.upper() in HC_KINDS:
+            return Heteroskedastic(key.upper())
+        names = {"CLASSICAL": "classical", **{k: k for k in HC_KINDS}}
+        close = [names[c] for c in difflib.get_close_matches(key.upper(), names, n=3, cutoff=0.6)]
+        hint = f" Did you mean one of: {close}?" if close else ""
+        raise CovarianceInputError(
+            f"unknown covariance estimator {obj!r}.{hint} Use 'classical', one of"
+            f" {list(HC_KINDS)}, lc.clustered(...), lc.serial(...) or lc.given(...)."
+        )
+    raise CovarianceInputError(
+        f"covariance must be 'classical', one of {list(HC_KINDS)}, or built with"
+        f" lc.clustered(...), lc.serial(...) or lc.given(...); got {type(obj).__name__}."
+    )
+
+
+# -- helpers ----------------------------------------------------------------------------
+
+
+def _check_df(df: float | None) -> None:
+    if df is None:
+        return
+    try:
+        ok = float(df) > 0 and math.isfinite(float(df))
+    except (TypeError, ValueError):
+        ok = False
+    if not ok:
+        raise CovarianceInputError(
+            f"df must be a positive finite number, got {df!r}; for a large-sample test use"
+            " reference='chi2' instead."
+        )
+
+
+def _all_names_or_vectors(items: Sequence[Any]) -> bool:
+    if all(isinstance(b, str) for b in items):
+        return True  # column names (labels go in an array or Series, not a list of strings)
+    return len(items) <= 2 and (
+        all(isinstance(b, (pd.Series, np.ndarray, list, tuple)) and np.ndim(b) == 1 for b in items)
+        and len({len(b) for b in items}) == 1
+        and len(items[0]) > 2
+    )
