@@ -454,3 +454,64 @@ def test_rows_frame_is_tidy_per_contrast(plant_fit) -> None:
     assert isinstance(frame, pd.DataFrame) and len(frame) == 2
     assert frame["contrast"].tolist() == ["group[trt1] - group[ctrl]", "group[trt2] - group[ctrl]"]
     assert np.allclose(frame["p_adjusted"], 1 - (1 - frame["p_value"]) ** 2)
+
+
+# ---------------------------------------------------------------------------------------------
+# Holm–Šidák, Hommel and adaptive two-stage Benjamini–Hochberg
+# ---------------------------------------------------------------------------------------------
+# our name -> statsmodels.stats.multitest.multipletests method string: "holm-sidak",
+# "hommel" and "fdr_tsbky" (two-stage, first stage at alpha/(1+alpha); its adjusted p-values
+# depend on alpha, passed as our `rate`)
+SM_NEW = {
+    "holm-sidak": "holm-sidak",
+    "hommel": "hommel",
+    "adaptive-benjamini-hochberg": "fdr_tsbky",
+}
+NEW_P = [
+    [0.01, 0.04, 0.03, 0.005],
+    [0.2, 0.2, 0.2, 0.01, 0.01],  # ties
+    [0.001, 0.001, 0.02, 0.5, 0.5, 0.9],  # ties, first BH pass rejects some
+    [0.0, 1.0, 0.5, 1e-12, 0.049],
+    [0.3, 0.6, 0.9],  # the first pass rejects none
+    [0.7],
+]
+
+
+@pytest.mark.parametrize("method", sorted(SM_NEW))
+@pytest.mark.parametrize("p", NEW_P)
+@pytest.mark.parametrize("rate", [0.05, 0.1])
+def test_new_adjustments_match_statsmodels(method: str, p: list[float], rate: float) -> None:
+    with np.errstate(divide="ignore"):
+        ref = multipletests(p, alpha=rate, method=SM_NEW[method])[1]
+    assert np.allclose(adjust_pvalues(p, method, rate=rate), ref, rtol=1e-12, atol=1e-15)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    st.lists(st.floats(0.0, 1.0, allow_nan=False), min_size=1, max_size=25),
+    st.sampled_from(sorted(SM_NEW)),
+)
+def test_new_adjustments_match_statsmodels_random(p: list[float], method: str) -> None:
+    with np.errstate(divide="ignore"):
+        ref = multipletests(p, alpha=0.05, method=SM_NEW[method])[1]
+    assert np.allclose(adjust_pvalues(p, method), ref, rtol=1e-10, atol=1e-14)
+
+
+def test_new_adjustments_by_hand() -> None:
+    # derived by hand on p = (0.01, 0.04, 0.03), sorted (0.01, 0.03, 0.04), m = 3
+    p = [0.01, 0.04, 0.03]
+    # Holm–Šidák: 1-0.99^3 = 0.029701, 1-0.97^2 = 0.0591, 1-0.96 = 0.04 -> running max
+    assert np.allclose(adjust_pvalues(p, "holm-sidak"), [0.029701, 0.0591, 0.0591], atol=1e-12)
+    # Hommel: largest Simes p over subsets holding each hypothesis; for 0.01 the full set
+    # gives min(3·0.01, 3·0.03/2, 0.04) = 0.03; for 0.03 and 0.04 the pair {0.03, 0.04}
+    # gives min(2·0.03, 0.04) = 0.04
+    assert np.allclose(adjust_pvalues(p, "hommel"), [0.03, 0.04, 0.04], atol=1e-12)
+    # adaptive BH at 0.05: BH gives (0.03, 0.04, 0.04), all <= 0.05/1.05, so m0 = m and
+    # the factor is 1.05
+    assert np.allclose(adjust_pvalues(p, "adaptive-bh"), [0.0315, 0.042, 0.042], atol=1e-12)
+    # p = (0.001, 0.02, 0.5): BH (0.003, 0.03, 0.5); two below 0.0476, m0 = 1, factor 1.05/3
+    assert np.allclose(
+        adjust_pvalues([0.001, 0.02, 0.5], "adaptive-bh"), [0.00105, 0.0105, 0.175], atol=1e-12
+    )
+    with pytest.raises(InputError, match="rate must be in"):
+        adjust_pvalues(p, "adaptive-bh", rate=0.0)

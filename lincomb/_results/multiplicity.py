@@ -76,6 +76,9 @@ P_METHODS = (
     "hochberg",
     "benjamini-hochberg",
     "benjamini-yekutieli",
+    "holm-sidak",
+    "hommel",
+    "adaptive-benjamini-hochberg",
 )
 #: Adjustments available on a Wald test (they also use the rows' joint distribution).
 WALD_P_METHODS = P_METHODS + ("scheffe", "max-t")
@@ -86,6 +89,8 @@ INTERVAL_METHODS = ("bonferroni", "sidak", "scheffe", "max-t", "none")
 _ALIASES = {
     "bh": "benjamini-hochberg",
     "by": "benjamini-yekutieli",
+    "adaptive-bh": "adaptive-benjamini-hochberg",
+    "two-stage-bh": "adaptive-benjamini-hochberg",
     "maxt": "max-t",
     "max-|t|": "max-t",
     "max|t|": "max-t",
@@ -112,7 +117,7 @@ def _canonical(method: object, allowed: tuple[str, ...], what: str) -> str:
 # ---------------------------------------------------------------------------------------------
 # p-value adjustments
 # ---------------------------------------------------------------------------------------------
-def adjust_pvalues(p: ArrayLike, method: str = "holm") -> Array:
+def adjust_pvalues(p: ArrayLike, method: str = "holm", *, rate: float = 0.05) -> Array:
     """Adjust p-values of a family of hypotheses for multiplicity.
 
     Parameters
@@ -126,7 +131,17 @@ def adjust_pvalues(p: ArrayLike, method: str = "holm") -> Array:
         under independence or positive dependence).  False discovery rate:
         Benjamini–Hochberg (independence or positive dependence) and Benjamini–Yekutieli
         (any dependence; BH times ``Σ_{i<=m} 1/i``).  Accents and case are ignored; ``"bh"``
-        and ``"by"`` are accepted.
+        and ``"by"`` are accepted.  Also Holm–Šidák (``'holm-sidak'``: step-down with
+        ``1 - (1 - p_(j))^{m-j+1}``, valid under independence or positive dependence),
+        Hommel's method (``'hommel'``: closed testing of Simes tests, valid under positive
+        dependence) and the adaptive two-stage Benjamini–Hochberg method
+        (``'adaptive-benjamini-hochberg'``, also ``'adaptive-bh'``: a first BH pass at
+        ``rate/(1+rate)`` estimates the number ``m0`` of true hypotheses; the adjusted
+        p-values are BH's times ``(1 + rate) m0 / m``, ``m0 = m`` when the first pass rejects
+        none or all).
+    rate : float, default 0.05
+        The false discovery rate aimed at; used only by the adaptive method, whose adjusted
+        p-values depend on it (compare them with this same rate).
 
     Returns
     -------
@@ -140,8 +155,12 @@ def adjust_pvalues(p: ArrayLike, method: str = "holm") -> Array:
     [0.03, 0.06, 0.06]
     >>> adjust_pvalues([0.01, 0.04, 0.03], "benjamini-hochberg").round(6).tolist()
     [0.03, 0.04, 0.04]
+    >>> adjust_pvalues([0.01, 0.04, 0.03], "hommel").round(6).tolist()
+    [0.03, 0.04, 0.04]
     """
     key = _canonical(method, P_METHODS, "p-value")
+    if not (0 < float(rate) < 1):
+        raise InputError(f"rate must be in (0, 1), got {rate!r}; e.g. 0.05.")
     try:
         pv = np.array(p, dtype=np.float64, copy=True)
     except (TypeError, ValueError):
@@ -154,10 +173,27 @@ def adjust_pvalues(p: ArrayLike, method: str = "holm") -> Array:
             f"p-value at position {int(bad[0])} is {float(pv[bad[0]])!r}; every p-value must"
             " lie in [0, 1]."
         )
-    return _adjust(pv, key)
+    return _adjust(pv, key, float(rate))
 
 
-def _adjust(p: Array, key: str) -> Array:
+def _hommel_sorted(ps: Array) -> Array:
+    """Hommel's adjusted p-values for ascending ``ps``: for each subset size ``j`` from ``m``
+    down to 2, the largest Simes p-value over the subsets of size ``j`` holding a hypothesis
+    (Wright's algorithm, common practice)."""
+    m = ps.size
+    pa = np.full(m, float(np.min(m * ps / np.arange(1, m + 1))))
+    for j in range(m - 1, 1, -1):
+        head = np.arange(m - j + 1)  # the m-j+1 smallest
+        tail = np.arange(m - j + 1, m)
+        q1 = float(np.min(j * ps[tail] / np.arange(2, j + 1)))
+        q = np.empty(m)
+        q[head] = np.minimum(j * ps[head], q1)
+        q[tail] = q[m - j]
+        pa = np.maximum(pa, q)
+    return np.maximum(pa, ps)
+
+
+def _adjust(p: Array, key: str, rate: float = 0.05) -> Array:
     m = p.size
     if m == 0:
         return p.copy()
@@ -171,6 +207,16 @@ def _adjust(p: Array, key: str) -> Array:
     rank = np.arange(1, m + 1)
     if key == "holm":
         adj = np.maximum.accumulate((m - rank + 1) * ps)
+    elif key == "holm-sidak":
+        with np.errstate(divide="ignore"):
+            adj = np.maximum.accumulate(-np.expm1((m - rank + 1) * np.log1p(-ps)))
+    elif key == "hommel":
+        adj = _hommel_sorted(ps)
+    elif key == "adaptive-benjamini-hochberg":
+        bh = np.minimum(1.0, np.minimum.accumulate((m * ps / rank)[::-1])[::-1])
+        first = int(np.count_nonzero(bh <= rate / (1 + rate)))
+        m0 = m if first in (0, m) else m - first
+        adj = bh * (1 + rate) * m0 / m
     elif key == "hochberg":
         adj = np.minimum.accumulate(((m - rank + 1) * ps)[::-1])[::-1]
     else:
@@ -450,9 +496,11 @@ def adjust_wald(
     tol: float = DEFAULT_TOL,
     seed: int = DEFAULT_SEED,
     max_points: int = DEFAULT_MAX_POINTS,
+    rate: float = 0.05,
 ) -> MultipleInference:
     """Adjusted p-values for the rows of a Wald test (see :meth:`WaldTest.adjust
-    <lincomb.results.WaldTest.adjust>`)."""
+    <lincomb.results.WaldTest.adjust>`); ``rate`` is the false discovery rate of the
+    adaptive Benjamini–Hochberg method (see :func:`adjust_pvalues`)."""
     key = _canonical(method, WALD_P_METHODS, "p-value")
     fam = _family(wald, redundant)
     k = fam["keep"]
@@ -460,7 +508,7 @@ def adjust_wald(
     p = 2 * _row_dist(fam["df"]).sf(np.abs(t))
     integration = None
     if key in P_METHODS:
-        p_adj = _adjust(p, key)
+        p_adj = _adjust(p, key, float(rate))
     elif key == "scheffe":
         p_adj = _scheffe_p(t, fam["rank"], fam["df"])
     else:
