@@ -515,3 +515,85 @@ def test_new_adjustments_by_hand() -> None:
     )
     with pytest.raises(InputError, match="rate must be in"):
         adjust_pvalues(p, "adaptive-bh", rate=0.0)
+
+
+# ---------------------------------------------------------------------------------------------
+# structured families: studentized range and equal correlations
+# ---------------------------------------------------------------------------------------------
+def _pairs_corr(k: int) -> np.ndarray:
+    b = np.array([np.eye(k)[i] - np.eye(k)[j] for i in range(k) for j in range(i + 1, k)])
+    return b @ b.T / 2
+
+
+# 5% points of the studentized range q(k, df), three decimals, from memory of the printed
+# tables (common practice); also checked against scipy.stats.studentized_range below
+TABLE_Q05 = [(3, 10, 3.877), (4, 10, 4.327), (5, 20, 4.232), (3, 20, 3.578), (3, np.inf, 3.314)]
+
+
+@pytest.mark.parametrize(("k", "df", "q"), TABLE_Q05)
+def test_all_pairs_critical_value_is_the_studentized_range(k, df, q) -> None:
+    crit, rep = max_abs_t_quantile(0.95, _pairs_corr(k), df)
+    assert rep.routine == "studentized range quadrature" and rep.converged
+    assert abs(crit * np.sqrt(2) - q) <= 6e-4  # table rounding
+    ref = stats.studentized_range.ppf(0.95, k, df) / np.sqrt(2)  # scipy.stats
+    assert abs(crit - ref) <= rep.critical_std_error + 1e-8, (crit, ref, rep)
+
+
+def test_studentized_range_tails_and_far_tail() -> None:
+    k, df = 12, 228.0
+    cs = np.array([1.0, 2.5, 3.3, 4.5, 6.0])
+    prob, rep = max_abs_t_cdf(cs, _pairs_corr(k), df)
+    ref = stats.studentized_range.sf(cs * np.sqrt(2), k, df)  # scipy, all above 1e-9 here
+    assert np.all(np.abs((1 - prob) - ref) <= rep.std_error + 1e-12), (1 - prob, ref)
+    # far tail, where scipy's sf is wrong (LIBRARY-NOTES): between the largest single-row
+    # tail and the Bonferroni bound over the 66 rows (exact bounds)
+    res = lc.fit(
+        "y ~ g",
+        pd.DataFrame({"g": np.repeat(list("abcdefghijkl"), 20), "y": np.arange(240.0) % 7}),
+    ).wald(lc.levels("g").pairwise())
+    from lincomb._core.maxt import _Integrator
+
+    integ = _Integrator(_pairs_corr(k), df, k - 1, 1, "auto")
+    tail, _err = integ.tail(np.array([11.0]), 0)
+    single = 2 * stats.t.sf(11.0, df)
+    assert single < tail[0] <= 66 * single and tail[0] < 1e-19
+    # the pairs in the far tail: each dominated pair contributes about its own tail, so the
+    # sum over the pairs is within a few per cent (two terms overlap only at higher order)
+    assert tail[0] / (66 * single) > 0.9
+    assert res.simultaneous("max-t").integration.routine == "studentized range quadrature"
+
+
+@pytest.mark.parametrize(("m", "rho", "df"), [(5, 0.5, 66.0), (3, 0.0, 10.0), (7, 0.6, np.inf)])
+# (at rho = 0.9 the 120-node Gauss-Hermite reference above is itself off by 2e-5: an adaptive
+# scipy.integrate.quad of the same integrand agrees with the route to 1e-14)
+def test_equicorrelated_route_matches_reduction_with_signs_and_duplicates(m, rho, df) -> None:
+    corr = np.full((m, m), rho) + (1 - rho) * np.eye(m)
+    s = np.where(np.arange(m) % 2 == 0, 1.0, -1.0)  # sign flips keep the family's max|T|
+    flipped = corr * np.outer(s, s)
+    dup = np.vstack([flipped, flipped[:1]])  # a duplicated row
+    dup = np.hstack([dup, dup[:, :1]])
+    cs = [1.2, 2.5, 3.5]
+    for c_ in (flipped, dup):
+        prob, rep = max_abs_t_cdf(cs, c_, df)
+        assert rep.routine == "equicorrelated quadrature"
+        ref = np.array([equicorrelated_cdf(c, m, rho, df) for c in cs])  # written above
+        assert np.all(np.abs(prob - ref) <= rep.std_error + 1e-9), (prob, ref)
+
+
+def test_reported_error_is_honest_over_seeds() -> None:
+    # a general full-rank family (unequal correlations): the spread of the critical value over
+    # independent seeds must be consistent with the reported standard error.  With 12 seeds
+    # the sample s.d. over the mean reported s.e. lies below 1.8 with probability > 0.99 if the
+    # report is honest (chi distribution with 11 df; seeded, so the check is deterministic)
+    rng = np.random.default_rng(5)
+    a = rng.normal(size=(6, 6))
+    cov = a @ a.T + 2 * np.eye(6)
+    d = np.sqrt(np.diag(cov))
+    corr = cov / np.outer(d, d)
+    crits, ses = [], []
+    for seed in range(12):
+        c, rep = max_abs_t_quantile(0.95, corr, 25.0, seed=seed, tol=1e-4)
+        crits.append(c)
+        ses.append(rep.critical_std_error)
+    ratio = np.std(crits, ddof=1) / np.mean(ses)
+    assert 0.3 < ratio < 1.8, (ratio, crits, ses)
