@@ -371,7 +371,7 @@ class _Integrator:
                         val = stats.multivariate_t.cdf(
                             lim,
                             shape=self.corr,
-                            df=self.df,
+                            df=self.df,  # type: ignore[arg-type]  # stubs say int
                             lower_limit=-lim,
                             maxpts=points,
                             random_state=rng,

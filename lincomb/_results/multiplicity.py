@@ -190,7 +190,7 @@ def _hommel_sorted(ps: Array) -> Array:
         q[head] = np.minimum(j * ps[head], q1)
         q[tail] = q[m - j]
         pa = np.maximum(pa, q)
-    return np.maximum(pa, ps)
+    return np.asarray(np.maximum(pa, ps), dtype=np.float64)
 
 
 def _adjust(p: Array, key: str, rate: float = 0.05) -> Array:
@@ -201,7 +201,7 @@ def _adjust(p: Array, key: str, rate: float = 0.05) -> Array:
         return np.minimum(1.0, m * p)
     if key == "sidak":
         with np.errstate(divide="ignore"):  # p = 1 gives log1p(-1) = -inf and 1 - 0 = 1
-            return -np.expm1(m * np.log1p(-p))
+            return np.asarray(-np.expm1(m * np.log1p(-p)), dtype=np.float64)
     order = np.argsort(p, kind="stable")
     ps = p[order]
     rank = np.arange(1, m + 1)
@@ -440,7 +440,7 @@ def _corr_of(wald: WaldTest, keep: NDArray[np.intp]) -> Array:
     corr = c / np.outer(d, d)
     corr = (corr + corr.T) / 2
     np.fill_diagonal(corr, 1.0)
-    return corr
+    return np.asarray(corr, dtype=np.float64)
 
 
 def _assemble(
