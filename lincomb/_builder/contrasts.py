@@ -18,7 +18,8 @@ The mean of level ``a`` is the model's prediction with the factor's variable set
 other variables at stated values: ``μ_a = x(a, others)·β``, where the row ``x`` is produced by
 the fit's own formula encoder (:class:`lincomb._model.encoder.FormulaEncoder`).  A weight
 vector ``w`` on the levels then becomes the restriction row ``c = Σ_a w_a x(a, others)``.
-Because every coding of a factor spans the same columns space, ``c·β̂`` and its standard error do not depend on the coding.
+Because every coding of a factor spans the same columns space, ``c·β̂`` and its standard
+error do not depend on the coding.
 
 * When the weights sum to zero (a *contrast*), terms that do not involve the factor's variable
   cancel exactly and are left out; only variables that interact with the factor need values.
