@@ -293,7 +293,7 @@ class FormulaEncoder:
             response_vars = tuple(
                 sorted(_data_vars(spec.lhs.variables) & set(map(str, sub.columns)))
             )
-            _check_response(sub, response, response_vars, where)
+            _check_response(sub, lhs, response_vars, where)
         for factor, state in rhs_spec.factor_contrasts.items():
             if len(state.levels) == 0:
                 raise InputError(
@@ -600,7 +600,7 @@ class FormulaEncoder:
         sub = work.loc[~na] if na.any() else work
         dropped = frame.index[na]
         if self.response is not None:
-            _check_response(sub, self.response, self._response_variables, where)
+            _check_response(sub, _split(self.formula)[0], self._response_variables, where)
         if len(sub) == 0:
             p = self.index.p
             y = None if self.response is None else np.zeros(0)
