@@ -345,7 +345,9 @@ def fit_chunks(
                 enc = recipe.encode(frame, where)
             if enc.x.shape[0]:
                 merger.add(
-                    linalg.moments_from_arrays(enc.x, enc.y, enc.weights, recipe.encoder.intercept)
+                    linalg.moments_from_arrays(
+                        enc.x, enc.response, enc.weights, recipe.encoder.intercept
+                    )
                 )
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     moments = merger.result()
@@ -480,7 +482,9 @@ def fit_array_chunks(
         with blas_limit(threads):
             enc = encoder.encode(chunk, where)
             if enc.x.shape[0]:
-                merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.weights, encoder.intercept))
+                merger.add(
+                    linalg.moments_from_arrays(enc.x, enc.response, enc.weights, encoder.intercept)
+                )
         p.record(enc.rows_read, enc.x.shape[0], None)
     moments = merger.result()
     if moments is None or encoder is None:
@@ -576,7 +580,7 @@ def covariance_pass(
         with blas_limit(threads):
             enc = encoder.encode(chunk, where, keep_frame=True)
             if enc.x.shape[0]:
-                part = rp.block(enc.x, enc.y, enc.weights, enc.frame, where)
+                part = rp.block(enc.x, enc.response, enc.weights, enc.frame, where)
                 acc = part if acc is None else rp.merge(acc, part)
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     return rp.finish(acc)

@@ -99,7 +99,7 @@ class _Limited:
         self._ctx = blas_limit(self.threads)
         self._ctx.__enter__()
 
-    def __exit__(self, *exc: object) -> None:
+    def __exit__(self, *exc: Any) -> None:
         self._ctx.__exit__(*exc)
 
 
@@ -159,7 +159,9 @@ def _frame_part(frame: pd.DataFrame, recipe: FrameRows, k: int, threads: _Spec) 
         enc = recipe.encode(frame, where)
         m = None
         if enc.x.shape[0]:
-            m = linalg.moments_from_arrays(enc.x, enc.y, enc.weights, recipe.encoder.intercept)
+            m = linalg.moments_from_arrays(
+                enc.x, enc.response, enc.weights, recipe.encoder.intercept
+            )
     return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
 
 
@@ -431,7 +433,8 @@ def fit_dask_arrays(
             (tot,) = dask.compute(
                 _tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler
             )
-        return tot
+        part: _Part = tot
+        return part
 
     total = run(guess)
     true_ones = np.flatnonzero(total.ones) if total.ones is not None else np.zeros(0)
@@ -467,7 +470,7 @@ def _frame_rows(frame: pd.DataFrame, recipe: FrameRows, rp: Any, k: int, threads
         enc = recipe.encode(frame, where, keep_frame=True)
         if not enc.x.shape[0]:
             return None
-        return rp.block(enc.x, enc.y, enc.weights, enc.frame, where)
+        return rp.block(enc.x, enc.response, enc.weights, enc.frame, where)
 
 
 def _array_rows(

@@ -151,9 +151,10 @@ class CoefficientIndex:
         """
         label = self._term_key(term)
         cols = self.terms[label]
+        ordered: tuple[object, ...] = key
         if cols:
-            key = _reorder_key(term, self.factors.get(label, ()), self.levels[cols[0]], key)
-        key = tuple(str(k) for k in key)
+            ordered = _reorder_key(term, self.factors.get(label, ()), self.levels[cols[0]], key)
+        key = tuple(str(k) for k in ordered)
 
         def match(strip: bool) -> list[int]:
             found = []

@@ -168,6 +168,21 @@ class EncodedRows:
     rows_read: int
     frame: pd.DataFrame | None = field(default=None, repr=False)
 
+    @property
+    def response(self) -> NDArray[np.float64]:
+        """``y``, for callers whose formula has a response (raises otherwise).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2], "x": [0.5, 1]})
+        >>> FormulaEncoder.from_data("y ~ x", df).encode(df).response.tolist()
+        [1.0, 2.0]
+        """
+        if self.y is None:
+            raise InputError("these rows have no response (the formula has no left-hand side).")
+        return self.y
+
 
 def _data_vars(variables: Any) -> set[str]:
     return {str(v) for v in variables if getattr(v, "source", "data") == "data"}
@@ -699,6 +714,7 @@ class FormulaEncoder:
                 x = spec.get_model_matrix(data, na_action="raise")
             except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
                 raise InputError(f"could not encode the new data: {exc}") from None
+        out: pd.DataFrame = x
         for w in caught:
             if issubclass(w.category, formulaic.errors.DataMismatchWarning):
                 raise UnseenLevelError(
@@ -706,7 +722,7 @@ class FormulaEncoder:
                     " would silently be coded like the reference level; remove them or refit"
                     " with the level present."
                 )
-        return x
+        return out
 
     def encode_grid(
         self, frame: pd.DataFrame, terms: Sequence[str] | None = None, where: str = ""
@@ -765,9 +781,11 @@ def _na_mask(
     frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
 ) -> NDArray[np.bool_]:
     cols = [c for c in variables if c in frame.columns]
-    na = frame[cols].isna().to_numpy().any(axis=1) if cols else np.zeros(len(frame), dtype=bool)
+    na = np.zeros(len(frame), dtype=bool)
+    if cols:
+        na |= frame[cols].isna().to_numpy().any(axis=1)
     if w is not None:
-        na = na | w.isna().to_numpy()
+        na |= w.isna().to_numpy()
     return na
 
 
