@@ -111,15 +111,16 @@ class ChunkProgress:
 def worker_threads() -> int | None:
     """BLAS threads for chunk, partition and many-response work (default 1).
 
-    Read from ``lincomb._settings.worker_blas_threads()`` when the package-wide BLAS setting
-    provides it; otherwise one thread, the long-standing default (``None`` leaves BLAS alone).
+    Read from the package-wide setting ``lincomb._settings.worker_threads()`` (set with
+    ``blas_threads(n)`` / ``set_blas_threads(n)``) when it exists; otherwise one thread, the
+    long-standing default.
 
     Examples
     --------
-    >>> worker_threads() in (None, 1) or worker_threads() >= 1
+    >>> worker_threads() is None or worker_threads() >= 1
     True
     """
-    get = getattr(_settings, "worker_blas_threads", None)
+    get = getattr(_settings, "worker_threads", None)
     return 1 if get is None else get()
 
 
