@@ -581,7 +581,7 @@ def test_factor_errors_and_lookup(tooth) -> None:
     arr = lc.fit_arrays(np.c_[np.ones(4), [0.0, 1, 0, 1]], [1.0, 2, 3, 5])
     with pytest.raises(ContrastError, match="need a fit made from a formula"):
         arr.wald(lc.levels("g").pairwise())
-    assert ModelResolver.of(arr).model_spec is None
+    assert ModelResolver.of(arr).encoder is None
 
 
 def test_level_order_for_ordered_contrasts(tooth) -> None:

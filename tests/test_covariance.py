@@ -542,7 +542,7 @@ def test_few_clusters_warning_only_below_thirty():
 def test_fit_without_rows_refuses_robust_covariance(warp):
     # a fit that keeps only summary statistics (as a fit merged from summaries would)
     f = lc.fit("breaks ~ wool + tension", warp)
-    summary_only = dataclasses.replace(f, _design=dataclasses.replace(f._design, x=None))
+    summary_only = dataclasses.replace(f, _design=dataclasses.replace(f._design, rows=None))
     with pytest.raises(RowsUnavailableError, match="holds only summary statistics"):
         summary_only.wald(lc.coef("wool[T.B]") == 0, covariance="HC3")
     close(

@@ -173,8 +173,6 @@ def test_input_errors(mtcars: pd.DataFrame) -> None:
         fit_dask_arrays(np.ones((3, 2)), da.ones(3))
     with pytest.raises(InputError, match="split_every must be a whole number >= 2"):
         fit_dask("mpg ~ wt", dd.from_pandas(mtcars, npartitions=2), split_every=1)
-    with pytest.raises(InputError, match="blas_threads"):
-        fit_dask("mpg ~ wt", dd.from_pandas(mtcars, npartitions=2), blas_threads=0)
 
 
 def test_missing_extra_is_a_typed_error(

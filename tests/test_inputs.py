@@ -222,7 +222,7 @@ def test_unseen_level_in_new_data(breaks):
     with pytest.raises(UnseenLevelError, match="never saw"):
         f.encode(new)
     # why: formulaic itself codes the unseen level "X" like the reference level L (all zeros)
-    spec = f._design.spec.rhs
+    spec = f._design.encoder.rhs_spec
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the mismatch warning, and pandas' about the category
         silent = spec.get_model_matrix(new.assign(tension=["L", "X"]))

@@ -16,9 +16,10 @@ How level means are defined
 ---------------------------
 The mean of level ``a`` is the model's prediction with the factor's variable set to ``a`` and the
 other variables at stated values: ``μ_a = x(a, others)·β``, where the row ``x`` is produced by
-the fit's own formula encoder (formulaic's model spec).  A weight vector ``w`` on the levels then
-becomes the restriction row ``c = Σ_a w_a x(a, others)``.  Because every coding of a factor
-spans the same columns space, ``c·β̂`` and its standard error do not depend on the coding.
+the fit's own formula encoder (:class:`lincomb._model.encoder.FormulaEncoder`).  A weight
+vector ``w`` on the levels then becomes the restriction row ``c = Σ_a w_a x(a, others)``.
+Because every coding of a factor spans the same columns space, ``c·β̂`` and its standard
+error do not depend on the coding.
 
 * When the weights sum to zero (a *contrast*), terms that do not involve the factor's variable
   cancel exactly and are left out; only variables that interact with the factor need values.
@@ -41,7 +42,6 @@ from __future__ import annotations
 
 import itertools
 import re
-import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any
@@ -55,6 +55,7 @@ from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
+    LincombError,
     NotOrthogonalError,
     UnknownCoefficientError,
 )
@@ -91,23 +92,24 @@ _DEGREE_NAMES = {1: "linear", 2: "quadratic", 3: "cubic", 4: "quartic", 5: "quin
 class ModelResolver:
     """A fit's coefficient index plus its formula encoder, as seen by restriction items.
 
-    It has the methods of :class:`lincomb.restriction.Resolver` (delegated to the index) and a
-    ``model_spec`` attribute (formulaic's right-hand-side model spec, ``None`` for fits made
-    from arrays) that :class:`LevelContrasts` uses to evaluate the model at chosen levels.
+    It has the methods of :class:`lincomb.restriction.Resolver` (delegated to the index) and an
+    ``encoder`` attribute (the fit's :class:`~lincomb._model.encoder.FormulaEncoder`, ``None``
+    for fits made from arrays) that :class:`LevelContrasts` uses to evaluate the model at chosen
+    levels.
 
     Examples
     --------
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
     >>> r = ModelResolver.of(f)
-    >>> r.column("line[T.L3]"), r.model_spec is not None
+    >>> r.column("line[T.L3]"), r.encoder is not None
     (2, True)
     """
 
-    def __init__(self, index: Any, model_spec: Any = None) -> None:
+    def __init__(self, index: Any, encoder: Any = None) -> None:
         self.index = index
         self.names: tuple[str, ...] = tuple(index.names)
-        self.model_spec = model_spec
+        self.encoder = encoder
 
     @classmethod
     def of(cls, fit: LinearFit) -> ModelResolver:
@@ -121,8 +123,7 @@ class ModelResolver:
         ('Intercept', 'line[T.L2]')
         """
         design = fit._design
-        spec = getattr(design, "spec", None)
-        return cls(design.index, getattr(spec, "rhs", None) if spec is not None else None)
+        return cls(design.index, design.encoder)
 
     def column(self, name: str) -> int:
         """Position of the coefficient called ``name``.
@@ -231,34 +232,10 @@ class _Factor:
     labels: tuple[str, ...]
 
 
-def _data_vars(variables: Any) -> set[str]:
-    return {str(v) for v in variables if getattr(v, "source", "data") == "data"}
-
-
-def _categoricals(spec: Any) -> dict[str, list[tuple[str, tuple[Any, ...]]]]:
-    """``{data variable: [(factor expression, categories), ...]}`` for categorical factors."""
-    out: dict[str, list[tuple[str, tuple[Any, ...]]]] = {}
-    for fac, variables in spec.factor_variables.items():
-        state = spec.encoder_state.get(str(fac))
-        if state is None or getattr(state[0], "value", state[0]) != "categorical":
-            continue
-        dv = _data_vars(variables)
-        if len(dv) != 1:
-            continue
-        info = state[1] if isinstance(state[1], Mapping) else {}
-        cats = info.get("categories")
-        if cats is None and "contrasts" in info:
-            cats = info["contrasts"].levels
-        if cats is None:
-            continue
-        out.setdefault(next(iter(dv)), []).append((str(fac), tuple(cats)))
-    return out
-
-
-def _model_vars(spec: Any) -> set[str]:
+def _model_vars(encoder: Any) -> set[str]:
     out: set[str] = set()
-    for variables in spec.term_variables.values():
-        out |= _data_vars(variables)
+    for variables in encoder.term_variables().values():
+        out |= variables
     return out
 
 
@@ -288,8 +265,8 @@ def _level_index(value: Any, cats: Sequence[Any]) -> int | None:
     return None
 
 
-def _find_factor(spec: Any, name: str, order: Sequence[Any] | None) -> _Factor:
-    cats = _categoricals(spec)
+def _find_factor(encoder: Any, name: str, order: Sequence[Any] | None) -> _Factor:
+    cats = encoder.categoricals()
     wanted = _squash(name)
     hit: tuple[str, tuple[Any, ...]] | None = None
     for var, facs in cats.items():
@@ -305,7 +282,7 @@ def _find_factor(spec: Any, name: str, order: Sequence[Any] | None) -> _Factor:
             hit = (found[0], cats[found[0]][0][1])
     if hit is None:
         known = sorted({expr for facs in cats.values() for expr, _ in facs})
-        if name in _model_vars(spec):
+        if name in _model_vars(encoder):
             raise ContrastError(
                 f"{name!r} enters this model as a numeric variable, so it has no level means."
                 f" Write C({name}) in the formula to treat it as a factor. Factors: {known}"
@@ -334,21 +311,6 @@ def _find_factor(spec: Any, name: str, order: Sequence[Any] | None) -> _Factor:
     return _Factor(name=name, variable=var, levels=levs, labels=tuple(str(v) for v in levs))
 
 
-def _encode(spec: Any, frame: pd.DataFrame, where: str) -> Array:
-    import formulaic
-
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            mm = spec.get_model_matrix(frame, na_action="raise")
-        except Exception as exc:  # noqa: BLE001 - formulaic raises plain errors
-            raise ContrastError(f"could not evaluate the model {where}: {exc}") from None
-    for w in caught:
-        if issubclass(w.category, formulaic.errors.DataMismatchWarning):
-            raise ContrastError(f"could not evaluate the model {where}: {w.message}")
-    return np.asarray(mm.to_numpy(dtype=np.float64) if hasattr(mm, "to_numpy") else mm)
-
-
 def _level_rows(
     resolver: Any,
     factor: _Factor,
@@ -357,10 +319,11 @@ def _level_rows(
     whole_model: bool,
 ) -> Array:
     """``(k, p)``: the model row of each level mean (only the factor's terms unless whole)."""
-    spec = resolver.model_spec
+    encoder = resolver.encoder
     var = factor.variable
-    cats = _categoricals(spec)
-    model_vars = _model_vars(spec)
+    cats = encoder.categoricals()
+    term_vars = encoder.term_variables()
+    model_vars = _model_vars(encoder)
     pinned = dict(at)
     for key in list(pinned) + list(averaging):
         if key not in model_vars:
@@ -381,11 +344,11 @@ def _level_rows(
                 f"cannot average over {key!r}: it is numeric in this model. Fix it with"
                 f" .at({key}=value) instead."
             )
-    terms = [t for t in spec.terms if whole_model or var in _data_vars(spec.term_variables[t])]
+    terms = [t for t, tv in term_vars.items() if whole_model or var in tv]
     needs: dict[str, list[str]] = {}
     for t in terms:
-        for v in _data_vars(spec.term_variables[t]) - {var}:
-            needs.setdefault(v, []).append(str(t))
+        for v in term_vars[t] - {var}:
+            needs.setdefault(v, []).append(t)
     missing = sorted(v for v in needs if v not in pinned and v not in averaging)
     if missing:
         why = "; ".join(f"{v!r} (through {', '.join(needs[v])})" for v in missing)
@@ -426,11 +389,14 @@ def _level_rows(
         frame[v] = [val] * (k * g)
     for j, v in enumerate(avg):
         frame[v] = [c[j] for _ in range(k) for c in combos]
-    sub = spec if whole_model else spec.subset(terms)
     where = f"at the levels of {factor.name!r}"
-    x = _encode(sub, frame, where).reshape(k, g, -1).mean(axis=1)
+    try:
+        grid, columns_of = encoder.encode_grid(frame, None if whole_model else terms, where)
+    except LincombError as exc:
+        raise ContrastError(str(exc)) from None
+    x = grid.reshape(k, g, -1).mean(axis=1)
     out = np.zeros((k, len(resolver.names)))
-    for j, name in enumerate(sub.column_names):
+    for j, name in enumerate(columns_of):
         try:
             col = resolver.names.index(str(name))
         except ValueError:
@@ -743,14 +709,14 @@ class LevelContrasts(_Item):
 
     # -- resolution ----------------------------------------------------------------------
     def _factor(self, resolver: Any) -> _Factor:
-        spec = getattr(resolver, "model_spec", None)
-        if spec is None:
+        encoder = getattr(resolver, "encoder", None)
+        if encoder is None:
             raise ContrastError(
                 f"contrasts on the level means of {self.factor!r} need a fit made from a formula"
                 " (lc.fit); this fit has no factor information. Write the rows with lc.coef()"
                 " instead."
             )
-        return _find_factor(spec, self.factor, self.order)
+        return _find_factor(encoder, self.factor, self.order)
 
     def _weights(self, resolver: Any) -> tuple[_Factor, Array, list[str]]:
         fac = self._factor(resolver)

@@ -35,36 +35,27 @@ to any test of the fit.  Serial (Newey-West) covariances are not available for c
 
 from __future__ import annotations
 
-import difflib
 import time
-import warnings
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
-from lincomb._fit.pooled import SummaryDesign, fit_from_moments
-from lincomb._model.design import (
-    CoefficientIndex,
-    _check_finite,
-    _index_from_spec,
-    _validate_weights,
-    design_from_arrays,
-)
-from lincomb._settings import blas_limit, check_threads
-from lincomb.errors import InputError, MissingValueError, UnseenLevelError
+from lincomb._fit.pooled import fit_from_moments
+from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
+from lincomb._model.encoder import EncodedRows, FormulaEncoder, require_response
+from lincomb._settings import blas_limit, worker_threads
+from lincomb.errors import InputError, MissingValueError
 
 __all__ = [
     "ChunkProgress",
     "fit_chunks",
     "fit_array_chunks",
     "covariance_pass",
-    "FrameEncoder",
 ]
 
 _SECOND_PASS_HINT = (
@@ -116,262 +107,40 @@ class ChunkProgress:
 # -- encoding fixed once ---------------------------------------------------------------------
 
 
+def _check_options(weights: object, missing: object) -> None:
+    """Validate the options of a chunked or Dask fit before any chunk is read."""
+    if weights is not None and not isinstance(weights, str):
+        raise InputError(
+            "weights must name a column of the chunks (an array cannot be aligned with"
+            f" chunks); got {type(weights).__name__}."
+        )
+    if missing not in ("drop", "raise"):
+        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+
+
 @dataclass(frozen=True)
-class EncodedChunk:
-    """One chunk turned into arrays: the rows used, and the labels of the rows dropped."""
+class FrameRows:
+    """How a chunked or Dask fit turns each frame into rows: the encoder, weights, missing.
 
-    x: NDArray[np.float64]
-    y: NDArray[np.float64]
-    w: NDArray[np.float64] | None
-    dropped: pd.Index
-    rows_read: int
-    frame: pd.DataFrame | None
-
-
-def _cast_levels(
-    frame: pd.DataFrame, levels: Mapping[str, Sequence[Any]], where: str
-) -> pd.DataFrame:
-    """Give the columns in ``levels`` a categorical dtype with exactly those categories."""
-    if not levels:
-        return frame
-    out = frame.copy(deep=False)
-    for var, lv in levels.items():
-        if var not in out.columns:
-            continue
-        col = out[var]
-        lv_list = list(lv)
-        if isinstance(col.dtype, pd.CategoricalDtype) and list(col.cat.categories) == lv_list:
-            continue
-        present = col.dropna()
-        unseen = pd.Index(present.unique()).difference(pd.Index(lv_list))
-        if len(unseen):
-            raise UnseenLevelError(
-                f"{where}: column {var!r} holds level(s) {list(unseen)[:5]} not among the"
-                f" declared levels {lv_list}. Add them to levels[{var!r}]."
-            )
-        out[var] = pd.Categorical(col, categories=lv_list)
-    return out
-
-
-class FrameEncoder:
-    """A formula's encoding, fixed once, applied to any number of data frames.
-
-    Build one with :meth:`from_sample`.  Its model spec keeps the factor levels and contrasts;
-    :meth:`encode` turns a frame into the arrays of the rows used, refusing factor levels the
-    encoding lacks.
+    Kept on the fit's design so that a second pass encodes the data exactly as the fit did.
 
     Examples
     --------
     >>> import pandas as pd
-    >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"], "x": [0.5, 1, 2, 3]})
-    >>> enc = FrameEncoder.from_sample("y ~ g + x", df, levels={"g": ["a", "b", "c"]})
-    >>> enc.index.names
-    ('Intercept', 'g[T.b]', 'g[T.c]', 'x')
-    >>> enc.encode(df.iloc[:2], "chunk 1").x.shape
-    (2, 4)
+    >>> from lincomb._model.encoder import FormulaEncoder
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, None, 2]})
+    >>> FrameRows(FormulaEncoder.from_data("y ~ x", df)).encode(df, "chunk 0").x.shape
+    (2, 2)
     """
 
-    def __init__(
-        self,
-        formula: str,
-        specs: Any,
-        index: CoefficientIndex,
-        variables: tuple[str, ...],
-        weights: str | None,
-        missing: str,
-        levels: Mapping[str, Sequence[Any]],
-    ) -> None:
-        self.formula = formula
-        self.specs = specs
-        self.index = index
-        self.variables = variables
-        self.weights = weights
-        self.missing = missing
-        self.levels = {k: list(v) for k, v in levels.items()}
-        self.intercept: int | None = index.terms.get("1", (None,))[0]
-        self.response = str(specs.lhs.column_names[0])
+    encoder: FormulaEncoder
+    weights: str | None = None
+    missing: str = "drop"
 
-    @staticmethod
-    def check_options(formula: object, weights: object, missing: object) -> None:
-        """Validate the options of a chunked fit before any chunk is read.
-
-        Examples
-        --------
-        >>> FrameEncoder.check_options("~ x", None, "drop")
-        Traceback (most recent call last):
-        ...
-        lincomb.errors.InputError: formula '~ x' has no response: write it as 'response ~ terms'.
-        """
-        if not isinstance(formula, str) or "~" not in formula or not formula.split("~")[0].strip():
-            raise InputError(
-                f"formula {formula!r} has no response: write it as 'response ~ terms'."
-            )
-        if weights is not None and not isinstance(weights, str):
-            raise InputError(
-                "weights must name a column of the chunks (an array cannot be aligned with"
-                f" chunks); got {type(weights).__name__}."
-            )
-        if missing not in ("drop", "raise"):
-            raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
-
-    @classmethod
-    def from_sample(
-        cls,
-        formula: str,
-        sample: pd.DataFrame,
-        *,
-        levels: Mapping[str, Sequence[Any]] | None = None,
-        weights: str | None = None,
-        missing: str = "drop",
-        where: str = "the first chunk",
-    ) -> FrameEncoder:
-        """Fix the encoding of ``formula`` on ``sample`` (with ``levels`` applied to it).
-
-        ``sample`` may be an empty frame when every categorical variable has declared levels.
-
-        Examples
-        --------
-        >>> import pandas as pd
-        >>> empty = pd.DataFrame({"y": [], "g": [], "x": []})
-        >>> FrameEncoder.from_sample("y ~ g + x", empty, levels={"g": ["a", "b"]}).index.names
-        ('Intercept', 'g[T.b]', 'x')
-        """
-        import formulaic
-
-        cls.check_options(formula, weights, missing)
-        levels = dict(levels or {})
-        if not isinstance(sample, pd.DataFrame):
-            raise InputError(f"{where} is a {type(sample).__name__}, not a pandas DataFrame.")
-        unknown = [v for v in levels if v not in sample.columns]
-        if unknown:
-            raise InputError(
-                f"levels were declared for {unknown}, which {where} does not have as columns."
-                f" Columns: {[str(c) for c in sample.columns]}"
-            )
-        if weights is not None and weights not in sample.columns:
-            close = difflib.get_close_matches(weights, [str(c) for c in sample.columns])
-            raise InputError(f"weights column {weights!r} is not in {where}. Close: {close}")
-        work = _cast_levels(sample, levels, where)
-        variables = _formula_variables(formula, work)
-        na = _na_rows(work, variables, weights)
-        if na.any():
-            work = work.loc[~na]
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
-                mm = formulaic.model_matrix(formula, work, na_action="raise")
-        except Exception as exc:  # formulaic raises plain errors for unknown variables
-            raise InputError(f"could not build the design for {formula!r}: {exc}") from None
-        specs = mm.model_spec
-        if mm.lhs.shape[1] != 1:
-            raise InputError(
-                f"the response of {formula!r} expands to {mm.lhs.shape[1]} columns"
-                f" {list(mm.lhs.columns)}: it must be one numeric variable."
-            )
-        stateful = sorted(
-            {str(k) for k in specs.rhs.transform_state}
-            | {str(k) for k in specs.lhs.transform_state}
+    def encode(self, frame: pd.DataFrame, where: str, keep_frame: bool = False) -> EncodedRows:
+        return self.encoder.encode(
+            frame, weights=self.weights, missing=self.missing, where=where, keep_frame=keep_frame
         )
-        if stateful:
-            raise InputError(
-                f"the formula uses stateful transform(s) {stateful}: their state (a mean, a"
-                " scale, knots, polynomial coefficients) would come from one chunk, so the fit"
-                " would not be the fit of all rows. Compute the transformed column before"
-                " chunking, or write the transform with fixed numbers (e.g. 'I(x - 12.5)')."
-            )
-        for factor, state in specs.rhs.factor_contrasts.items():
-            if len(state.levels) == 0:
-                raise InputError(
-                    f"factor {str(factor)!r} has no levels in {where}: declare them, e.g."
-                    " levels={'name': [...]} (an empty sample cannot reveal them)."
-                )
-        names = [str(c) for c in mm.rhs.columns]
-        index = _index_from_spec(names, specs.rhs)
-        return cls(formula, specs, index, tuple(variables), weights, missing, levels)
-
-    def encode(self, frame: pd.DataFrame, where: str, keep_frame: bool = False) -> EncodedChunk:
-        """Arrays of the rows of ``frame`` used by the fit (``where`` names it in errors).
-
-        Examples
-        --------
-        >>> import pandas as pd
-        >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"],
-        ...                    "x": [0.5, None, 2, 3]})
-        >>> chunk = FrameEncoder.from_sample("y ~ g + x", df).encode(df, "chunk 1")
-        >>> chunk.x.shape, list(chunk.dropped)
-        ((3, 3), [1])
-        """
-        import formulaic
-
-        if not isinstance(frame, pd.DataFrame):
-            raise InputError(f"{where} is a {type(frame).__name__}, not a pandas DataFrame.")
-        need = list(self.variables) + ([self.weights] if self.weights else [])
-        absent = [v for v in need if v not in frame.columns]
-        if absent:
-            raise InputError(
-                f"{where} lacks column(s) {absent} that the formula (or weights) uses."
-                f" It has: {[str(c) for c in frame.columns]}"
-            )
-        na = _na_rows(frame, self.variables, self.weights)
-        n_na = int(na.sum())
-        if n_na and self.missing == "raise":
-            counts = {c: int(frame[c].isna().sum()) for c in need if frame[c].isna().any()}
-            raise MissingValueError(
-                f"{where}: {n_na} rows have missing values (per column: {counts}); drop or"
-                " impute them, or fit with missing='drop'."
-            )
-        sub = frame.loc[~na] if n_na else frame
-        dropped = frame.index[na] if n_na else frame.index[:0]
-        if len(sub) == 0:
-            return EncodedChunk(
-                np.zeros((0, self.index.p)), np.zeros(0), None, dropped, len(frame), None
-            )
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
-            try:
-                mm = self.specs.get_model_matrix(sub, na_action="raise")
-            except Exception as exc:
-                raise InputError(f"{where}: could not encode the rows: {exc}") from None
-        for wrn in caught:
-            if issubclass(wrn.category, formulaic.errors.DataMismatchWarning):
-                raise UnseenLevelError(
-                    f"{where} holds a factor level the encoding lacks ({wrn.message}). Those"
-                    " rows would silently be coded like the reference level. Declare every"
-                    " level up front, e.g. levels={'column': [...]}, or drop those rows."
-                )
-        x = mm.rhs.to_numpy(dtype=np.float64)
-        y = mm.lhs.to_numpy(dtype=np.float64)[:, 0]
-        if x.shape[1] != self.index.p:  # pragma: no cover - the spec fixes the columns
-            raise InputError(f"{where}: encoded to {x.shape[1]} columns instead of {self.index.p}.")
-        _check_finite(x, f"{where}: design", self.index.names, sub.index)
-        _check_finite(y, f"{where}: response {self.response!r}", None, sub.index)
-        w = None
-        if self.weights is not None:
-            try:
-                w = sub[self.weights].to_numpy(dtype=np.float64)
-            except (TypeError, ValueError):
-                raise InputError(f"{where}: weights {self.weights!r} must be numeric.") from None
-            _validate_weights(w, sub.index)
-        return EncodedChunk(x, y, w, dropped, len(frame), sub if keep_frame else None)
-
-
-def _formula_variables(formula: str, frame: pd.DataFrame) -> list[str]:
-    import formulaic
-
-    try:
-        required = formulaic.Formula(formula).required_variables
-    except Exception as exc:
-        raise InputError(f"could not parse the formula {formula!r}: {exc}") from None
-    return sorted(str(v) for v in required if v in frame.columns)
-
-
-def _na_rows(
-    frame: pd.DataFrame, variables: Sequence[str], weights: str | None
-) -> NDArray[np.bool_]:
-    cols = [c for c in list(variables) + ([weights] if weights else []) if c in frame.columns]
-    if not cols:
-        return np.zeros(len(frame), dtype=bool)
-    return frame[cols].isna().to_numpy().any(axis=1)
 
 
 class _Pass:
@@ -447,7 +216,6 @@ def fit_chunks(
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
-    blas_threads: int | None = 1,
 ) -> LinearFit:
     """Fit a formula to data read chunk by chunk, in one pass and bounded memory.
 
@@ -472,10 +240,6 @@ def fit_chunks(
         Relative rank tolerance (see :mod:`lincomb.linalg`).
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
-    blas_threads : int or None, default 1
-        BLAS threads while a chunk is factored (threadpoolctl, when installed); ``None`` leaves
-        BLAS alone.  Chunk-sized QRs run faster and steadier on one thread; the limit is lifted
-        while the next chunk is read.
 
     Returns
     -------
@@ -506,50 +270,58 @@ def fit_chunks(
     ...          - g.wald(lc.term("variety") == 0).statistic) < 1e-8)
     True
     """
-    FrameEncoder.check_options(formula, weights, missing)
-    check_threads(blas_threads)
+    require_response(formula)
+    _check_options(weights, missing)
+    threads = worker_threads()
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     merger = linalg.MomentMerger()
-    encoder: FrameEncoder | None = None
+    recipe: FrameRows | None = None
     for k, frame in enumerate(it):
         where = f"chunk {k}"
-        if encoder is None:
-            if not isinstance(frame, pd.DataFrame):
-                raise InputError(f"{where} is a {type(frame).__name__}, not a pandas DataFrame.")
-            work = _cast_levels(frame, levels or {}, where)
-            variables = _formula_variables(formula, work)
-            na = _na_rows(work, variables, weights)
-            if bool(na.all()):  # no row to learn the encoding from yet
-                if missing == "raise" and len(frame):
-                    raise MissingValueError(
-                        f"{where}: all {len(frame)} rows have missing values; drop or impute"
-                        " them, or fit with missing='drop'."
+        with blas_limit(threads):
+            if recipe is None:
+                if not isinstance(frame, pd.DataFrame):
+                    raise InputError(
+                        f"{where} is a {type(frame).__name__}, not a pandas DataFrame."
                     )
-                p.record(len(frame), 0, frame.index)
-                continue
-            encoder = FrameEncoder.from_sample(
-                formula, frame, levels=levels, weights=weights, missing=missing, where=where
-            )
-        with blas_limit(blas_threads):
-            enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
+                if FormulaEncoder.complete_rows(formula, frame, weights) == 0:
+                    # no row to learn the encoding from yet
+                    if missing == "raise" and len(frame):
+                        raise MissingValueError(
+                            f"{where}: all {len(frame)} rows have missing values; drop or"
+                            " impute them, or fit with missing='drop'."
+                        )
+                    p.record(len(frame), 0, frame.index)
+                    continue
+                encoder, enc = FormulaEncoder.learn(
+                    formula, frame, levels=levels, weights=weights, missing=missing, where=where
+                )
+                encoder.check_stateless()
+                recipe = FrameRows(encoder, weights, missing)
+            else:
+                enc = recipe.encode(frame, where)
             if enc.x.shape[0]:
-                merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
+                merger.add(
+                    linalg.moments_from_arrays(
+                        enc.x, enc.response, enc.weights, recipe.encoder.intercept
+                    )
+                )
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     moments = merger.result()
-    if moments is None or encoder is None:
+    if moments is None or recipe is None:
         raise _no_rows(p)
-    design = SummaryDesign(
-        index=encoder.index,
-        intercept=encoder.intercept,
-        response=encoder.response,
+    design = Design(
+        index=recipe.encoder.index,
+        intercept=recipe.encoder.intercept,
+        response=recipe.encoder.response,
         dropped=p.dropped_index(),
         weighted=weights is not None,
-        origin=f"{p.chunks} chunks",
-        spec=encoder.specs,
+        encoder=recipe.encoder,
         formula=formula,
+        origin=f"{p.chunks} chunks",
         hint=_SECOND_PASS_HINT,
-        encoder=encoder,
+        second_pass=recipe,
     )
     return fit_from_moments(design, moments, rank_tol)
 
@@ -561,7 +333,7 @@ class ArrayEncoder:
         self.names = names
         self.intercept = intercept
 
-    def encode(self, chunk: Any, where: str) -> EncodedChunk:
+    def encode(self, chunk: Any, where: str, keep_frame: bool = False) -> EncodedRows:
         if not isinstance(chunk, tuple) or len(chunk) not in (2, 3):
             raise InputError(
                 f"{where} must be a tuple (X, y) or (X, y, weights), got {type(chunk).__name__}."
@@ -586,7 +358,7 @@ class ArrayEncoder:
                 f" first chunk) but holds {d.x[i, j]!r} at row {i}. Pass intercept=None, or"
                 " the index of the true column of ones."
             )
-        return EncodedChunk(d.x, d.y, d.weights, pd.Index([]), d.x.shape[0], None)
+        return EncodedRows(d.x, d.y, d.weights, d.row_index, pd.Index([]), d.x.shape[0])
 
 
 def fit_array_chunks(
@@ -596,7 +368,6 @@ def fit_array_chunks(
     intercept: int | None | str = "auto",
     rank_tol: float = linalg.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
-    blas_threads: int | None = 1,
 ) -> LinearFit:
     """Fit ``y`` on ``X`` read as array chunks ``(X, y)`` or ``(X, y, weights)``, in one pass.
 
@@ -614,8 +385,6 @@ def fit_array_chunks(
     rank_tol : float, default 1e-10
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
-    blas_threads : int or None, default 1
-        As for :func:`fit_chunks`.
 
     Returns
     -------
@@ -632,7 +401,7 @@ def fit_array_chunks(
     >>> bool(np.allclose(f.coefficients, lc.fit_arrays(x, y).coefficients, rtol=1e-10))
     True
     """
-    check_threads(blas_threads)
+    threads = worker_threads()
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     merger = linalg.MomentMerger()
@@ -668,15 +437,17 @@ def fit_array_chunks(
                 f" {'did not' if weighted is False else 'did'}; give weights with every chunk"
                 " or with none."
             )
-        with blas_limit(blas_threads):
+        with blas_limit(threads):
             enc = encoder.encode(chunk, where)
             if enc.x.shape[0]:
-                merger.add(linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept))
+                merger.add(
+                    linalg.moments_from_arrays(enc.x, enc.response, enc.weights, encoder.intercept)
+                )
         p.record(enc.rows_read, enc.x.shape[0], None)
     moments = merger.result()
     if moments is None or encoder is None:
         raise _no_rows(p)
-    design = SummaryDesign(
+    design = Design(
         index=CoefficientIndex(
             names=encoder.names,
             terms={s: (j,) for j, s in enumerate(encoder.names)},
@@ -689,7 +460,7 @@ def fit_array_chunks(
         weighted=bool(weighted),
         origin=f"{p.chunks} array chunks",
         hint=_SECOND_PASS_HINT,
-        encoder=encoder,
+        second_pass=encoder,
     )
     return fit_from_moments(design, moments, rank_tol)
 
@@ -700,7 +471,6 @@ def covariance_pass(
     covariance: object,
     *,
     progress: Callable[[ChunkProgress], None] | None = None,
-    blas_threads: int | None = 1,
 ) -> Any:
     """Evaluate a row-based covariance estimator on a chunked fit with a second pass.
 
@@ -715,8 +485,6 @@ def covariance_pass(
         ``"HC0"`` ... ``"HC4"``, or :func:`~lincomb.clustered` with column name(s) of the
         chunks (labels may span chunks).
     progress : callable, optional
-    blas_threads : int or None, default 1
-        As for :func:`fit_chunks`.
 
     Returns
     -------
@@ -755,8 +523,8 @@ def covariance_pass(
     from lincomb._covariance.second_pass import RowPass
 
     rp = RowPass(fit, covariance)
-    encoder = getattr(fit._design, "encoder", None)
-    if encoder is None:
+    encoder = fit._design.second_pass
+    if not isinstance(encoder, (FrameRows, ArrayEncoder)):
         raise InputError(
             "covariance_pass needs a fit made by fit_chunks or fit_array_chunks; for an"
             " in-memory fit pass covariance= to its tests directly."
@@ -764,17 +532,13 @@ def covariance_pass(
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
     acc = None
-    check_threads(blas_threads)
+    threads = worker_threads()
     for k, chunk in enumerate(it):
         where = f"chunk {k}"
-        with blas_limit(blas_threads):
-            if isinstance(encoder, FrameEncoder):
-                framed = _cast_levels(chunk, encoder.levels, where)
-                enc = encoder.encode(framed, where, keep_frame=True)
-            else:
-                enc = encoder.encode(chunk, where)
+        with blas_limit(threads):
+            enc = encoder.encode(chunk, where, keep_frame=True)
             if enc.x.shape[0]:
-                part = rp.block(enc.x, enc.y, enc.w, enc.frame, where)
+                part = rp.block(enc.x, enc.response, enc.weights, enc.frame, where)
                 acc = part if acc is None else rp.merge(acc, part)
         p.record(enc.rows_read, enc.x.shape[0], enc.dropped)
     return rp.finish(acc)

@@ -25,8 +25,9 @@ value leaves both (a right-hand-side-only spec would drop it from ``X`` alone).
 
 Threads
 -------
-Each task limits BLAS to ``blas_threads`` threads (default 1) with threadpoolctl: Dask already
-runs one task per core, and nested BLAS threads oversubscribe the cores.
+Each task limits BLAS to one thread (the package's worker setting, see
+:func:`lincomb._fit.chunked.worker_threads`) with threadpoolctl: Dask already runs one task per
+core, and nested BLAS threads oversubscribe the cores.
 
 Covariances that need the rows
 ------------------------------
@@ -45,11 +46,12 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as linalg
-from lincomb._fit.chunked import FrameEncoder, _cast_levels, _formula_variables
+from lincomb._fit.chunked import FrameRows, _check_options
 from lincomb._fit.linear import LinearFit
-from lincomb._fit.pooled import SummaryDesign, fit_from_moments
-from lincomb._model.design import CoefficientIndex, design_from_arrays
-from lincomb._settings import blas_limit, check_threads
+from lincomb._fit.pooled import fit_from_moments
+from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
+from lincomb._model.encoder import FormulaEncoder, require_response
+from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import IncompatibleFitError, InputError, OptionalDependencyError
 
 __all__ = ["fit_dask", "fit_dask_arrays", "covariance_pass", "DEFAULT_SPLIT_EVERY"]
@@ -97,7 +99,7 @@ class _Limited:
         self._ctx = blas_limit(self.threads)
         self._ctx.__enter__()
 
-    def __exit__(self, *exc: object) -> None:
+    def __exit__(self, *exc: Any) -> None:
         self._ctx.__exit__(*exc)
 
 
@@ -147,46 +149,16 @@ def _check_split(split_every: int) -> None:
 # -- DataFrames --------------------------------------------------------------------------------
 
 
-def _frame_part(frame: pd.DataFrame, encoder: FrameEncoder, k: int, threads: _Spec) -> _Part:
+def _frame_part(frame: pd.DataFrame, recipe: FrameRows, k: int, threads: _Spec) -> _Part:
     where = f"partition {k}"
     with _Limited(threads):
-        enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where)
+        enc = recipe.encode(frame, where)
         m = None
         if enc.x.shape[0]:
-            m = linalg.moments_from_arrays(enc.x, enc.y, enc.w, encoder.intercept)
+            m = linalg.moments_from_arrays(
+                enc.x, enc.response, enc.weights, recipe.encoder.intercept
+            )
     return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
-
-
-def _categorical_variables(
-    formula: str, meta: pd.DataFrame, declared: Mapping[str, Any]
-) -> list[str]:
-    """Data columns that feed a categorical factor of the formula."""
-    import warnings
-
-    import formulaic
-
-    variables = _formula_variables(formula, meta)
-    found = {
-        v
-        for v in variables
-        if isinstance(meta[v].dtype, pd.CategoricalDtype)
-        or pd.api.types.is_string_dtype(meta[v].dtype)
-        or pd.api.types.is_object_dtype(meta[v].dtype)
-        or pd.api.types.is_bool_dtype(meta[v].dtype)
-    }
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            spec = formulaic.model_matrix(
-                formula, _cast_levels(meta, declared, "metadata")
-            ).model_spec
-        for factor in spec.rhs.factor_contrasts:
-            found |= {
-                str(v) for v in spec.rhs.factor_variables.get(factor, ()) if v in meta.columns
-            }
-    except Exception as exc:  # noqa: BLE001 - reported with the formula below
-        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
-    return sorted(found)
 
 
 def _levels_of(
@@ -198,7 +170,7 @@ def _levels_of(
     scheduler: Any,
 ) -> dict[str, list[Any]]:
     meta = data._meta
-    cats = _categorical_variables(formula, meta, declared)
+    cats = FormulaEncoder.categorical_variables(formula, meta, declared)
     out = {k: list(v) for k, v in declared.items()}
     todo = []
     for v in cats:
@@ -210,7 +182,7 @@ def _levels_of(
         else:
             todo.append(v)
     if todo:
-        used = _formula_variables(formula, meta) + ([weights] if weights else [])
+        used = FormulaEncoder.columns_read(formula, meta) + ([weights] if weights else [])
         clean = data[used].dropna()
         found = dask.compute(*[clean[v].drop_duplicates() for v in todo], scheduler=scheduler)
         for v, values in zip(todo, found, strict=True):
@@ -228,7 +200,6 @@ def fit_dask(
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
     split_every: int = DEFAULT_SPLIT_EVERY,
-    blas_threads: int | None = 1,
     scheduler: Any = None,
 ) -> LinearFit:
     """Fit a formula to a Dask DataFrame with a tree reduction of per-partition moments.
@@ -251,8 +222,6 @@ def fit_dask(
     rank_tol : float, default 1e-10
     split_every : int, default 8
         Partition summaries merged per reduction task.
-    blas_threads : int or None, default 1
-        BLAS threads per task (threadpoolctl); ``None`` leaves BLAS alone.
     scheduler : optional
         Passed to ``dask.compute`` (``"threads"``, ``"processes"``, ``"sync"``, a distributed
         client...); default Dask's.
@@ -277,28 +246,27 @@ def fit_dask(
     dask = _require_dask()
     import dask.dataframe as dd
 
-    FrameEncoder.check_options(formula, weights, missing)
+    require_response(formula)
+    _check_options(weights, missing)
     _check_split(split_every)
-    check_threads(blas_threads)
+    threads = worker_threads()
     if isinstance(data, pd.DataFrame):
         raise InputError("data is a pandas DataFrame: use lc.fit for data in memory.")
     if not isinstance(data, dd.DataFrame):
         raise InputError(f"data must be a Dask DataFrame, got {type(data).__name__}.")
+    FormulaEncoder.check_response(formula, data._meta)  # before the pass that finds levels
     all_levels = _levels_of(data, formula, weights, dict(levels or {}), dask, scheduler)
-    encoder = FrameEncoder.from_sample(
-        formula,
-        data._meta,
-        levels=all_levels,
-        weights=weights,
-        missing=missing,
-        where="the data's metadata",
+    encoder = FormulaEncoder.from_data(
+        formula, data._meta, levels=all_levels, weights=weights, where="the data's metadata"
     )
-    enc_d = dask.delayed(encoder, pure=True)
+    encoder.check_stateless()
+    recipe = FrameRows(encoder, weights, missing)
+    rec_d = dask.delayed(recipe, pure=True)
     leaves = [
-        dask.delayed(_frame_part, pure=True)(part, enc_d, k, (blas_threads, os.getpid()))
+        dask.delayed(_frame_part, pure=True)(part, rec_d, k, (threads, os.getpid()))
         for k, part in enumerate(data.to_delayed())
     ]
-    with blas_limit(blas_threads):
+    with blas_limit(threads):
         (total,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
     if total.moments is None:
         raise InputError(
@@ -308,17 +276,17 @@ def fit_dask(
     dropped = (
         pd.Index([]) if not total.dropped else total.dropped[0].append(list(total.dropped[1:]))
     )
-    design = SummaryDesign(
+    design = Design(
         index=encoder.index,
         intercept=encoder.intercept,
         response=encoder.response,
         dropped=dropped,
         weighted=weights is not None,
-        origin=f"{data.npartitions} Dask partitions",
-        spec=encoder.specs,
-        formula=formula,
-        hint=_HINT,
         encoder=encoder,
+        formula=formula,
+        origin=f"{data.npartitions} Dask partitions",
+        hint=_HINT,
+        second_pass=recipe,
     )
     return fit_from_moments(design, total.moments, rank_tol)
 
@@ -407,7 +375,6 @@ def fit_dask_arrays(
     weights: Any = None,
     rank_tol: float = linalg.RANK_TOL,
     split_every: int = DEFAULT_SPLIT_EVERY,
-    blas_threads: int | None = 1,
     scheduler: Any = None,
 ) -> LinearFit:
     """Fit ``y`` on ``X`` given as Dask arrays, with a tree reduction of per-block moments.
@@ -419,7 +386,7 @@ def fit_dask_arrays(
     y : dask.array.Array, shape (n,)
     names : sequence of str, optional
     weights : dask.array.Array, shape (n,), optional
-    rank_tol, split_every, blas_threads, scheduler
+    rank_tol, split_every, scheduler
         As for :func:`fit_dask`.
 
     Returns
@@ -441,7 +408,7 @@ def fit_dask_arrays(
     """
     dask = _require_dask()
     _check_split(split_every)
-    check_threads(blas_threads)
+    threads = worker_threads()
     xs, ys, ws, p = _blocks(x, y, weights)
     if names is None:
         names = [f"x{j}" for j in range(p)]
@@ -454,15 +421,16 @@ def fit_dask_arrays(
         spec_d = dask.delayed(_ArraySpec(names_t, intercept), pure=True)
         leaves = [
             dask.delayed(_array_moments, pure=True)(
-                xk, yk, None if ws is None else ws[k], spec_d, k, (blas_threads, os.getpid())
+                xk, yk, None if ws is None else ws[k], spec_d, k, (threads, os.getpid())
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
-        with blas_limit(blas_threads):
+        with blas_limit(threads):
             (tot,) = dask.compute(
                 _tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler
             )
-        return tot
+        part: _Part = tot
+        return part
 
     total = run(guess)
     true_ones = np.flatnonzero(total.ones) if total.ones is not None else np.zeros(0)
@@ -471,7 +439,7 @@ def fit_dask_arrays(
         total = run(truth)
     if total.moments is None:
         raise InputError("no rows to fit: the arrays are empty.")
-    design = SummaryDesign(
+    design = Design(
         index=CoefficientIndex(
             names=names_t,
             terms={s: (j,) for j, s in enumerate(names_t)},
@@ -484,7 +452,7 @@ def fit_dask_arrays(
         weighted=weights is not None,
         origin=f"{len(xs)} Dask array blocks",
         hint=_HINT,
-        encoder=_ArraySpec(names_t, truth),
+        second_pass=_ArraySpec(names_t, truth),
     )
     return fit_from_moments(design, total.moments, rank_tol)
 
@@ -492,13 +460,13 @@ def fit_dask_arrays(
 # -- second pass -------------------------------------------------------------------------------
 
 
-def _frame_rows(frame: pd.DataFrame, encoder: FrameEncoder, rp: Any, k: int, threads: _Spec) -> Any:
+def _frame_rows(frame: pd.DataFrame, recipe: FrameRows, rp: Any, k: int, threads: _Spec) -> Any:
     where = f"partition {k}"
     with _Limited(threads):
-        enc = encoder.encode(_cast_levels(frame, encoder.levels, where), where, keep_frame=True)
+        enc = recipe.encode(frame, where, keep_frame=True)
         if not enc.x.shape[0]:
             return None
-        return rp.block(enc.x, enc.y, enc.w, enc.frame, where)
+        return rp.block(enc.x, enc.response, enc.weights, enc.frame, where)
 
 
 def _array_rows(
@@ -538,7 +506,6 @@ def covariance_pass(
     covariance: object,
     *,
     split_every: int = DEFAULT_SPLIT_EVERY,
-    blas_threads: int | None = 1,
     scheduler: Any = None,
 ) -> Any:
     """Evaluate a row-based covariance estimator on a Dask fit with a second distributed pass.
@@ -551,7 +518,7 @@ def covariance_pass(
         The same data again (``(x, y)`` or ``(x, y, weights)`` for an array fit).
     covariance : str or estimator
         ``"HC0"`` ... ``"HC4"``, or :func:`~lincomb.clustered` with column name(s) of ``data``.
-    split_every, blas_threads, scheduler
+    split_every, scheduler
         As for :func:`fit_dask`.
 
     Returns
@@ -573,18 +540,18 @@ def covariance_pass(
     from lincomb._covariance.second_pass import RowPass
 
     _check_split(split_every)
-    check_threads(blas_threads)
-    encoder = getattr(fit._design, "encoder", None)
+    threads = worker_threads()
+    encoder = fit._design.second_pass
     rp = RowPass(fit, covariance)
     rp_d = dask.delayed(rp, pure=True)
-    if isinstance(encoder, FrameEncoder):
+    if isinstance(encoder, FrameRows):
         import dask.dataframe as dd
 
         if not isinstance(data, dd.DataFrame):
             raise InputError("this fit came from a Dask DataFrame: pass that DataFrame again.")
         enc_d = dask.delayed(encoder, pure=True)
         leaves = [
-            dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, (blas_threads, os.getpid()))
+            dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, (threads, os.getpid()))
             for k, part in enumerate(data.to_delayed())
         ]
     elif isinstance(encoder, _ArraySpec):
@@ -595,7 +562,7 @@ def covariance_pass(
             raise IncompatibleFitError(f"x has {p} columns but the fit has {len(fit.names)}.")
         leaves = [
             dask.delayed(_array_rows, pure=True)(
-                xk, yk, None if ws is None else ws[k], rp_d, k, (blas_threads, os.getpid())
+                xk, yk, None if ws is None else ws[k], rp_d, k, (threads, os.getpid())
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
@@ -608,6 +575,6 @@ def covariance_pass(
     def merge(*parts: Any) -> Any:
         return _merge_rows(rp, *parts)
 
-    with blas_limit(blas_threads):
+    with blas_limit(threads):
         (total,) = dask.compute(_tree(dask, leaves, merge, split_every), scheduler=scheduler)
     return rp.finish(total)

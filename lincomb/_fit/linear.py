@@ -27,6 +27,7 @@ from lincomb._builder.contrasts import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._covariance import estimators as covmod
 from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
+from lincomb._model.encoder import require_response
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb.errors import (
@@ -131,7 +132,7 @@ class LinearFit:
             rss=sol.rss,
             sigma=sigma,
             weighted=design.weighted,
-            response=design.response,
+            response=design.response or "",
             formula=design.formula,
             rank_tol=rank_tol,
             _design=design,
@@ -725,6 +726,7 @@ def fit(
     >>> f.df_resid
     293
     """
+    require_response(formula)
     design = design_from_formula(formula, data, weights=weights, missing=missing)
     return LinearFit._from_design(design, rank_tol)
 

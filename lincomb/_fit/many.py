@@ -56,10 +56,11 @@ from scipy import stats
 from lincomb import _core as linalg
 from lincomb._builder.restriction import as_system
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
-from lincomb._model.design import Design, design_from_arrays, design_from_formula
+from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
+from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
-from lincomb._settings import blas_limit, check_threads
+from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
@@ -122,7 +123,6 @@ SCREEN_ROW_COLUMNS = (
     "status",
 )
 
-_DUMMY = "__lincomb_response__"
 
 #: Status of a response (and of its test), in code order.
 STATUSES = ("ok", "too few rows", "exact fit", "not estimable")
@@ -645,7 +645,7 @@ class ManyFit:
         rows = np.flatnonzero(obs)
         y = y_all[rows]
         w = None if d.weights is None else d.weights[rows]
-        if d.spec is None:
+        if d.encoder is None:
             names = list(self.names)
             return LinearFit._from_design(
                 design_from_arrays(d.x[rows], y, names=names, weights=w, response=name),
@@ -657,14 +657,10 @@ class ManyFit:
             source = self._frame.loc[row_index]
         design = replace(
             d,
-            x=d.x[rows],
-            y=y,
-            weights=w,
+            rows=DesignRows(d.x[rows], y, w, row_index, source),
             response=name,
-            row_index=row_index,
             dropped=d.dropped.append(d.row_index[~obs]),
             formula=f"{name} ~ {self.formula}",
-            **({"source": source} if hasattr(d, "source") else {}),
         )
         return LinearFit._from_design(design, self.rank_tol)
 
@@ -905,7 +901,7 @@ def _build(
     rank_tol: float,
     formula: str | None,
     frame: pd.DataFrame | None,
-    blas_threads: int | None = 1,
+    threads: int | None = 1,
     workers: int = 1,
 ) -> ManyFit:
     if missing not in ("drop", "raise"):
@@ -973,7 +969,7 @@ def _build(
             blocks.append(gfactor.project(yb[rows]) if glf is not None else None)
         groups.append(_solve_group(gfactor, glf, [b for b in blocks if b is not None], cols, rows))
     fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
-    return replace(fit, _blas=blas_threads)
+    return replace(fit, _blas=threads)
 
 
 def _projected(
@@ -1107,7 +1103,6 @@ def fit_many(
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
     response_names: Sequence[str] | None = None,
-    blas_threads: int | None = 1,
     workers: int | None = None,
 ) -> ManyFit:
     """Fit many responses on one design given by a formula's right-hand side.
@@ -1130,10 +1125,6 @@ def fit_many(
     rank_tol : float, default 1e-10
     response_names : sequence of str, optional
         Names for array responses (default ``y0, y1, ...``).
-    blas_threads : int or None, default 1
-        BLAS threads while the responses are projected, set with threadpoolctl when it is
-        installed (``None`` leaves BLAS alone).  The products are small, one block of responses
-        at a time, and gain nothing from BLAS threads.
     workers : int, optional
         Threads projecting blocks of responses in parallel (numpy and BLAS release the GIL).
         Default: the number of CPUs, at most :data:`MAX_WORKERS`; 1 projects in this thread.
@@ -1175,33 +1166,28 @@ def fit_many(
             raise InputError(f"response column(s) {absent[:5]} not in data.{hint}")
         if response_names is not None:
             raise InputError("response_names is for array responses; columns keep their names.")
-    import formulaic
-
-    try:
-        needed = formulaic.Formula(rhs).required_variables
-    except Exception as exc:
-        raise InputError(f"could not parse the design {rhs!r}: {exc}") from None
-    design_vars = [str(v) for v in needed if v in data.columns]
+    design_vars = FormulaEncoder.columns_read(f"~ {rhs}", data)
     if as_names:
         overlap = [s for s in names if s in design_vars]
         if overlap:
             raise InputError(
                 f"response(s) {overlap} are also design variables; leave them out of one side."
             )
+        refuse_non_numeric_responses(data, names)
+    elif isinstance(responses, pd.DataFrame):
+        refuse_non_numeric_responses(responses, list(responses.columns))
     small = data[design_vars].copy(deep=False)
-    small[_DUMMY] = 0.0
     if isinstance(weights, str):
         if weights not in data.columns:
             close = difflib.get_close_matches(weights, [str(c) for c in data.columns])
             raise InputError(f"weights column {weights!r} is not in data. Close: {close}")
         small[weights] = data[weights]
-    dsg = design_from_formula(f"{_DUMMY} ~ {rhs}", small, weights=weights, missing=missing)
+    dsg = design_from_formula(f"~ {rhs}", small, weights=weights, missing=missing)
     positions = None
     if len(dsg.dropped):
         positions = data.index.get_indexer_for(dsg.row_index)
         if (positions < 0).any() or not data.index.is_unique:
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
-    dsg = replace(dsg, y=np.zeros(dsg.x.shape[0]), response="")
     if as_names:
         cols = data.columns.get_indexer(list(names))
         src = _Responses(names, lambda c: data.iloc[:, cols[c]], len(data))
@@ -1209,10 +1195,10 @@ def fit_many(
     else:
         src = _array_source(responses, len(data), response_names, data.index)
         frame = data
-    check_threads(blas_threads)
+    threads = worker_threads()
     nw = _workers(workers)
-    with blas_limit(blas_threads):
-        return _build(dsg, src, positions, missing, rank_tol, rhs, frame, blas_threads, nw)
+    with blas_limit(threads):
+        return _build(dsg, src, positions, missing, rank_tol, rhs, frame, threads, nw)
 
 
 def fit_many_arrays(
@@ -1224,7 +1210,6 @@ def fit_many_arrays(
     weights: ArrayLike | None = None,
     missing: str = "drop",
     rank_tol: float = linalg.RANK_TOL,
-    blas_threads: int | None = 1,
     workers: int | None = None,
 ) -> ManyFit:
     """Fit many responses (columns of an (n, r) array or DataFrame) on one design ``X``.
@@ -1244,8 +1229,6 @@ def fit_many_arrays(
     missing : {'drop', 'raise'}, default 'drop'
         Per-response exact handling of missing response values, or refuse them.
     rank_tol : float, default 1e-10
-    blas_threads : int or None, default 1
-        As for :func:`fit_many`.
     workers : int, optional
         As for :func:`fit_many`.
 
@@ -1263,10 +1246,11 @@ def fit_many_arrays(
     >>> mf.n_obs.tolist()
     [50, 49, 50]
     """
-    n = np.shape(x)[0] if np.ndim(x) else 0
-    dsg = design_from_arrays(x, np.zeros(n), names=names, weights=weights, response="")
+    dsg = design_from_arrays(x, None, names=names, weights=weights)
+    if isinstance(responses, pd.DataFrame):
+        refuse_non_numeric_responses(responses, list(responses.columns))
     src = _array_source(responses, dsg.x.shape[0], response_names, None)
-    check_threads(blas_threads)
+    threads = worker_threads()
     nw = _workers(workers)
-    with blas_limit(blas_threads):
-        return _build(dsg, src, None, missing, rank_tol, None, None, blas_threads, nw)
+    with blas_limit(threads):
+        return _build(dsg, src, None, missing, rank_tol, None, None, threads, nw)

@@ -31,96 +31,16 @@ and cluster-robust covariances with a second pass over the data
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass, field
-from typing import Any
 
 import pandas as pd
 
 from lincomb import _core as linalg
 from lincomb._fit.linear import LinearFit
-from lincomb._model.design import CoefficientIndex, Design
-from lincomb.errors import IncompatibleFitError, InputError, RowsUnavailableError
+from lincomb._model.design import Design
+from lincomb._model.encoder import FormulaEncoder
+from lincomb.errors import IncompatibleFitError, InputError
 
-__all__ = ["SummaryDesign", "combine", "without_rows", "fit_from_moments"]
-
-
-@dataclass(frozen=True)
-class SummaryDesign:
-    """The naming and encoding of a design whose rows are not kept.
-
-    It answers everything :class:`~lincomb.design.Design` answers except the rows: ``x``, ``y``,
-    ``weights``, ``source`` and ``row_index`` raise :class:`~lincomb.errors.RowsUnavailableError`
-    with a message that says how to get what was asked (``hint``).
-
-    Attributes
-    ----------
-    index : CoefficientIndex
-    intercept : int or None
-    response : str
-    dropped : pandas.Index
-        Labels of rows dropped for missing values, as the chunks or partitions labelled them
-        (labels may repeat when the chunks' indexes restart).
-    weighted : bool
-    origin : str
-        Where the summary came from, e.g. ``"12 chunks"`` or ``"3 combined fits"``.
-    spec : object or None
-        formulaic's model spec (both sides) when the fit came from a formula.
-    formula : str or None
-    hint : str
-        How to compute a row-based covariance for this fit.
-    encoder : object or None
-        The chunk encoder (levels fixed once) that built the fit, reused by a second pass.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines()))
-    >>> summary = shared._design
-    >>> summary.index.names[1], summary.weighted
-    ('line[T.L2]', False)
-    >>> summary.x
-    Traceback (most recent call last):
-    ...
-    lincomb.errors.RowsUnavailableError: this fit was built from ... not the rows (design matrix)...
-    """
-
-    index: CoefficientIndex
-    intercept: int | None
-    response: str
-    dropped: pd.Index
-    weighted: bool
-    origin: str
-    spec: Any = None
-    formula: str | None = None
-    hint: str = ""
-    encoder: Any = field(default=None, repr=False, compare=False)
-
-    def _missing(self, what: str) -> RowsUnavailableError:
-        return RowsUnavailableError(
-            f"this fit was built from {self.origin} and keeps only summary statistics, not the"
-            f" rows ({what}). Classical tests, covariances and restricted fits work from the"
-            f" summaries; a covariance that needs residuals row by row does not. {self.hint}"
-        )
-
-    @property
-    def x(self) -> Any:
-        raise self._missing("design matrix")
-
-    @property
-    def y(self) -> Any:
-        raise self._missing("response values")
-
-    @property
-    def weights(self) -> Any:
-        raise self._missing("weights")
-
-    @property
-    def source(self) -> Any:
-        raise self._missing("data frame")
-
-    @property
-    def row_index(self) -> Any:
-        raise self._missing("row labels")
+__all__ = ["combine", "without_rows", "fit_from_moments"]
 
 
 _DEFAULT_HINT = (
@@ -129,9 +49,7 @@ _DEFAULT_HINT = (
 )
 
 
-def fit_from_moments(
-    design: SummaryDesign | Design, moments: linalg.Moments, rank_tol: float
-) -> LinearFit:
+def fit_from_moments(design: Design, moments: linalg.Moments, rank_tol: float) -> LinearFit:
     """The :class:`~lincomb.fit.LinearFit` of ``moments`` named by ``design``.
 
     The fit is the same object an in-memory fit is; only its rows may be missing.
@@ -144,7 +62,7 @@ def fit_from_moments(
     >>> again.rss == f.rss, again.names == f.names
     (True, True)
     """
-    return LinearFit._from_moments(design, moments, rank_tol)  # type: ignore[arg-type]
+    return LinearFit._from_moments(design, moments, rank_tol)
 
 
 def without_rows(fit: LinearFit) -> LinearFit:
@@ -165,42 +83,21 @@ def without_rows(fit: LinearFit) -> LinearFit:
     if not isinstance(fit, LinearFit):
         raise InputError(f"without_rows needs a LinearFit, got {type(fit).__name__}.")
     d = fit._design
-    if isinstance(d, SummaryDesign):
-        summary = SummaryDesign(
-            index=d.index,
-            intercept=d.intercept,
-            response=d.response,
-            dropped=pd.RangeIndex(len(d.dropped)),
-            weighted=d.weighted,
-            origin=d.origin,
-            spec=d.spec,
-            formula=d.formula,
-            hint=d.hint,
+    positions = pd.RangeIndex(len(d.dropped))
+    if d.has_rows:
+        summary = d.without_rows(
+            "a fit shared without its rows",
+            "Robust covariances must be computed where the rows are.",
+            dropped=positions,
         )
     else:
-        summary = SummaryDesign(
-            index=d.index,
-            intercept=d.intercept,
-            response=d.response,
-            dropped=pd.RangeIndex(len(d.dropped)),
-            weighted=d.weighted,
-            origin="a fit shared without its rows",
-            spec=d.spec,
-            formula=d.formula,
-            hint="Robust covariances must be computed where the rows are.",
-        )
+        summary = d.without_rows(d.origin, d.hint, dropped=positions)
     return fit_from_moments(summary, fit._moments, fit.rank_tol)
 
 
-def _encoding(spec: Any) -> dict[str, tuple[tuple[Any, ...], str]] | None:
+def _encoding(encoder: FormulaEncoder | None) -> dict[str, tuple[tuple[object, ...], str]] | None:
     """Per categorical factor of the right-hand side: its levels and contrast coding."""
-    if spec is None:
-        return None
-    rhs = getattr(spec, "rhs", spec)
-    out: dict[str, tuple[tuple[Any, ...], str]] = {}
-    for factor, state in rhs.factor_contrasts.items():
-        out[str(factor)] = (tuple(state.levels), repr(state.contrasts))
-    return out
+    return None if encoder is None else encoder.codings()
 
 
 def _check_same(first: LinearFit, other: LinearFit, k: int) -> None:
@@ -219,7 +116,7 @@ def _check_same(first: LinearFit, other: LinearFit, k: int) -> None:
             " formula with the same factor levels: declare the levels (pd.Categorical with"
             " the full list of categories) at every site."
         )
-    ea, eb = _encoding(a.spec), _encoding(b.spec)
+    ea, eb = _encoding(a.encoder), _encoding(b.encoder)
     if (ea is None) != (eb is None):
         raise IncompatibleFitError(
             f"fit {k} was built {'from arrays' if eb is None else 'from a formula'} but fit 0"
@@ -314,15 +211,15 @@ def combine(fits: Iterable[LinearFit], *, rank_tol: float | None = None) -> Line
         if dropped_parts
         else pd.MultiIndex.from_arrays([[], []], names=["fit", "row"])
     )
-    design = SummaryDesign(
+    design = Design(
         index=d0.index,
         intercept=d0.intercept,
         response=d0.response,
         dropped=dropped,
         weighted=first.weighted,
-        origin=f"{len(fits)} combined fits",
-        spec=d0.spec,
+        encoder=d0.encoder,
         formula=d0.formula,
+        origin=f"{len(fits)} combined fits",
         hint="Robust covariances need the rows: compute them where the data are.",
     )
     tol = first.rank_tol if rank_tol is None else rank_tol

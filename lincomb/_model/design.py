@@ -12,18 +12,26 @@ Its :class:`CoefficientIndex` answers the builder's questions ("which column is
 from __future__ import annotations
 
 import difflib
-import warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
-from typing import Any
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from lincomb.errors import InputError, MissingValueError, UnknownCoefficientError, UnseenLevelError
+from lincomb.errors import InputError, RowsUnavailableError, UnknownCoefficientError
 
-__all__ = ["Design", "CoefficientIndex", "design_from_formula", "design_from_arrays"]
+if TYPE_CHECKING:
+    from lincomb._model.encoder import FormulaEncoder
+
+__all__ = [
+    "Design",
+    "DesignRows",
+    "CoefficientIndex",
+    "design_from_formula",
+    "design_from_arrays",
+]
 
 # prefixes formulaic puts in front of level names in reduced-rank codings
 _LEVEL_PREFIXES = ("T.", "S.", "H.", "D.")
@@ -143,9 +151,10 @@ class CoefficientIndex:
         """
         label = self._term_key(term)
         cols = self.terms[label]
+        ordered: tuple[object, ...] = key
         if cols:
-            key = _reorder_key(term, self.factors.get(label, ()), self.levels[cols[0]], key)
-        key = tuple(str(k) for k in key)
+            ordered = _reorder_key(term, self.factors.get(label, ()), self.levels[cols[0]], key)
+        key = tuple(str(k) for k in ordered)
 
         def match(strip: bool) -> list[int]:
             found = []
@@ -236,55 +245,154 @@ def _parse_levels(column: str, exprs: Sequence[str]) -> tuple[str | None, ...]:
 
 
 @dataclass(frozen=True)
-class Design:
-    """A validated numeric design with its naming.
+class DesignRows:
+    """The rows of a design: what a fit keeps when it keeps its data.
 
     Attributes
     ----------
     x : (n, p) ndarray
         Design matrix (a private float64 copy).
-    y : (n,) ndarray
-        Response.
+    y : (n,) ndarray or None
+        Response (``None`` for a design without one, e.g. a right-hand-side-only formula).
     weights : (n,) ndarray or None
-    index : CoefficientIndex
-    intercept : int or None
-        Index of the intercept column.
-    response : str
     row_index : pandas.Index
         Labels of the rows used (after dropping missing values).
-    dropped : pandas.Index
-        Labels of rows dropped for missing values.
-    spec : object or None
-        formulaic's model spec (both sides), reused to encode new data.
-    formula : str or None
     source : pandas.DataFrame or None
         The data rows used (a shallow copy, same order as ``x``), so that per-row variables
         outside the formula (cluster labels, a time order) can be looked up by column name.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> d = design_from_formula("fill_g ~ line", lc.datasets.fill_lines())
-    >>> d.x.shape, d.response, d.intercept, d.weighted
-    ((300, 4), 'fill_g', 0, False)
+    >>> import numpy as np
+    >>> design_from_arrays(np.c_[np.ones(3), [1.0, 2, 4]], [1.0, 2, 3]).rows.x.shape
+    (3, 2)
     """
 
     x: NDArray[np.float64]
-    y: NDArray[np.float64]
+    y: NDArray[np.float64] | None
     weights: NDArray[np.float64] | None
-    index: CoefficientIndex
-    intercept: int | None
-    response: str
     row_index: pd.Index
-    dropped: pd.Index
-    spec: Any = None
-    formula: str | None = None
     source: pd.DataFrame | None = None
 
+
+@dataclass(frozen=True)
+class Design:
+    """A validated numeric design with its naming; with its rows, or kept as a summary.
+
+    Attributes
+    ----------
+    index : CoefficientIndex
+    intercept : int or None
+        Index of the intercept column.
+    response : str or None
+        ``None`` for a design without a response.
+    dropped : pandas.Index
+        Labels of rows dropped for missing values (for chunked and Dask fits as the chunks or
+        partitions labelled them, so labels may repeat).
+    weighted : bool
+    rows : DesignRows or None
+        The rows (``x``, ``y``, weights, row labels, source frame), or ``None`` when the design
+        keeps only its naming: a fit of chunks, of Dask partitions, of combined fits, or a fit
+        shared without its rows.  ``x``, ``y``, ``weights``, ``row_index`` and ``source`` read
+        the rows and raise :class:`~lincomb.errors.RowsUnavailableError` without them.
+    encoder : FormulaEncoder or None
+        The formula's encoding (``None`` for designs made from arrays).
+    formula : str or None
+    origin : str
+        Where a design without rows came from, e.g. ``"12 chunks"`` (used in messages).
+    hint : str
+        How to compute a row-based covariance when the rows are not kept.
+    second_pass : object or None
+        What a second pass over the data needs to encode it again (chunked and Dask fits).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> d = design_from_formula("fill_g ~ line", lc.datasets.fill_lines())
+    >>> d.x.shape, d.response, d.intercept, d.weighted, d.has_rows
+    ((300, 4), 'fill_g', 0, False, True)
+    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines()))._design
+    >>> shared.has_rows, shared.index.names[1]
+    (False, 'line[T.L2]')
+    >>> shared.x
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.RowsUnavailableError: this fit was built from ... not the rows (design matrix)...
+    """
+
+    index: CoefficientIndex
+    intercept: int | None
+    response: str | None
+    dropped: pd.Index
+    weighted: bool
+    rows: DesignRows | None = field(default=None, repr=False)
+    encoder: FormulaEncoder | None = field(default=None, repr=False)
+    formula: str | None = None
+    origin: str = "data in memory"
+    hint: str = ""
+    second_pass: Any = field(default=None, repr=False, compare=False)
+
     @property
-    def weighted(self) -> bool:
-        """Whether the fit is weighted (summary designs without rows answer this too)."""
-        return self.weights is not None
+    def has_rows(self) -> bool:
+        """Whether the design keeps its rows."""
+        return self.rows is not None
+
+    def _rows(self, what: str) -> DesignRows:
+        if self.rows is None:
+            raise RowsUnavailableError(
+                f"this fit was built from {self.origin} and holds only summary statistics, not"
+                f" the rows ({what}). Classical tests, covariances and restricted fits work from"
+                " the summaries; a covariance that needs residuals row by row does not."
+                f" {self.hint}".rstrip()
+            )
+        return self.rows
+
+    @property
+    def x(self) -> NDArray[np.float64]:
+        """Design matrix (raises without rows)."""
+        return self._rows("design matrix").x
+
+    @property
+    def y(self) -> NDArray[np.float64]:
+        """Response values (raises without rows or without a response)."""
+        y = self._rows("response values").y
+        if y is None:
+            raise InputError("this design has no response (its formula has no left-hand side).")
+        return y
+
+    @property
+    def weights(self) -> NDArray[np.float64] | None:
+        """Weights, or None (raises without rows)."""
+        return self._rows("weights").weights
+
+    @property
+    def row_index(self) -> pd.Index:
+        """Labels of the rows used (raises without rows)."""
+        return self._rows("row labels").row_index
+
+    @property
+    def source(self) -> pd.DataFrame | None:
+        """The data rows used, or None (raises without rows)."""
+        return self._rows("data frame").source
+
+    def without_rows(self, origin: str, hint: str, dropped: pd.Index | None = None) -> Design:
+        """The same naming and encoding without the rows.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> d = design_from_arrays(np.c_[np.ones(3), [1.0, 2, 4]], [1.0, 2, 3])
+        >>> d.without_rows("a test", "").has_rows
+        False
+        """
+        return replace(
+            self,
+            rows=None,
+            origin=origin,
+            hint=hint,
+            dropped=self.dropped if dropped is None else dropped,
+            second_pass=None,
+        )
 
 
 def _check_finite(
@@ -338,14 +446,15 @@ def _find_intercept(x: NDArray[np.float64], names: Sequence[str]) -> int | None:
 
 def design_from_arrays(
     x: ArrayLike,
-    y: ArrayLike,
+    y: ArrayLike | None,
     names: Sequence[str] | None = None,
     weights: ArrayLike | None = None,
     response: str = "y",
 ) -> Design:
     """Validate arrays ``X``, ``y`` (and weights) into a :class:`Design`.
 
-    A column whose entries all equal one is treated as the intercept.
+    A column whose entries all equal one is treated as the intercept.  ``y=None`` gives a
+    design without a response.
 
     Examples
     --------
@@ -365,18 +474,20 @@ def design_from_arrays(
     except (TypeError, ValueError) as exc:
         msg = f"X must be numeric: {exc}. Encode categories first (or use a formula)."
         raise InputError(msg) from None
-    try:
-        ya = np.array(y, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"the response must be numeric: {exc}.") from None
+    ya = None
+    if y is not None:
+        try:
+            ya = np.array(y, dtype=np.float64, copy=True)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"the response must be numeric: {exc}.") from None
     if xa.ndim == 1:
         xa = xa[:, None]
     if xa.ndim != 2:
         raise InputError(f"X must be 2-dimensional, got shape {xa.shape}.")
-    if ya.ndim != 1:
+    if ya is not None and ya.ndim != 1:
         raise InputError(f"y must be 1-dimensional, got shape {ya.shape}.")
     n, p = xa.shape
-    if ya.shape[0] != n:
+    if ya is not None and ya.shape[0] != n:
         raise InputError(f"X has {n} rows but y has {ya.shape[0]}; they must match.")
     if names is None:
         names = [f"x{j}" for j in range(p)]
@@ -387,7 +498,8 @@ def design_from_arrays(
         dup = sorted({s for s in names if names.count(s) > 1})
         raise InputError(f"column names must be unique; repeated: {dup}.")
     _check_finite(xa, "X", names, rows)
-    _check_finite(ya, "y", None, rows)
+    if ya is not None:
+        _check_finite(ya, "y", None, rows)
     wa = None
     if weights is not None:
         wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
@@ -402,14 +514,12 @@ def design_from_arrays(
     )
     row_index = rows if rows is not None else pd.RangeIndex(n)
     return Design(
-        x=xa,
-        y=ya,
-        weights=wa,
         index=index,
         intercept=_find_intercept(xa, names),
-        response=response,
-        row_index=row_index,
+        response=response if ya is not None else None,
         dropped=row_index[:0],
+        weighted=wa is not None,
+        rows=DesignRows(xa, ya, wa, row_index),
     )
 
 
@@ -440,12 +550,13 @@ def design_from_formula(
     weights: str | ArrayLike | None = None,
     missing: str = "drop",
 ) -> Design:
-    """Build a :class:`Design` from a two-sided Wilkinson formula via formulaic.
+    """Build a :class:`Design` from a Wilkinson formula via the formula encoder.
 
     Parameters
     ----------
     formula : str
-        ``"response ~ terms"`` as formulaic parses it.
+        ``"response ~ terms"`` as formulaic parses it, or the right-hand side alone
+        (``"~ terms"`` or ``"terms"``): a design without a response (``y`` is then absent).
     data : pandas.DataFrame
         Not modified.
     weights : str, array_like or None
@@ -461,138 +572,32 @@ def design_from_formula(
     >>> d = design_from_formula("y ~ g + x", df)
     >>> d.index.names, len(d.dropped)
     (('Intercept', 'g[T.b]', 'x'), 1)
+    >>> design_from_formula("~ g + x", df).response is None
+    True
     """
-    import formulaic
+    from lincomb._model.encoder import FormulaEncoder
 
-    if not isinstance(data, pd.DataFrame):
-        raise InputError(f"data must be a pandas DataFrame, got {type(data).__name__}.")
-    if missing not in ("drop", "raise"):
-        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
-    if not isinstance(formula, str) or "~" not in formula:
-        raise InputError(f"formula {formula!r} has no response: write it as 'response ~ terms'.")
-    w_series: pd.Series | None = None
-    if weights is not None:
-        if isinstance(weights, str):
-            if weights not in data.columns:
-                close = difflib.get_close_matches(weights, [str(c) for c in data.columns])
-                raise InputError(f"weights column {weights!r} is not in data. Close: {close}")
-            w_series = data[weights]
-        else:
-            wv = np.asarray(weights)
-            if wv.shape[0] != len(data):
-                raise InputError(f"weights has {wv.shape[0]} entries for {len(data)} rows.")
-            w_series = pd.Series(wv, index=data.index)
-        try:
-            w_series = w_series.astype(np.float64)
-        except (TypeError, ValueError):
-            raise InputError("weights must be numeric.") from None
-    # find rows with missing values among the formula's variables, plus weights
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
-            mm = formulaic.model_matrix(formula, data, na_action="ignore")
-    except formulaic.errors.FormulaicError as exc:
-        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
-    except Exception as exc:  # formulaic raises plain errors for unknown variables
-        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
-    lhs, rhs = mm.lhs, mm.rhs
-    if lhs.shape[1] != 1:
-        raise InputError(
-            f"the response of {formula!r} expands to {lhs.shape[1]} columns {list(lhs.columns)}:"
-            " it must be one numeric variable (recode a categorical outcome first)."
-        )
-    variables = sorted(
-        {str(v) for v in mm.model_spec.lhs.variables}
-        | {str(v) for v in mm.model_spec.rhs.variables}
+    encoder, rows = FormulaEncoder.learn(
+        formula, data, weights=weights, missing=missing, keep_frame=True
     )
-    used = [v for v in variables if v in data.columns]
-    na_rows = data[used].isna().any(axis=1) if used else pd.Series(False, index=data.index)
-    if w_series is not None:
-        na_rows = na_rows | w_series.isna()
-    n_missing = int(na_rows.sum())
-    if n_missing and missing == "raise":
-        counts = {c: int(data[c].isna().sum()) for c in used if data[c].isna().any()}
-        if w_series is not None and w_series.isna().any():
-            counts["<weights>"] = int(w_series.isna().sum())
-        raise MissingValueError(
-            f"{n_missing} rows have missing values (per column: {counts}); drop or impute them,"
-            " or fit with missing='drop'."
-        )
-    keep = ~na_rows.to_numpy()
-    sub = data.loc[keep] if n_missing else data
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
-            mm = formulaic.model_matrix(formula, sub, na_action="raise")
-    except Exception as exc:
-        raise InputError(f"could not build the design for {formula!r}: {exc}") from None
-    lhs, rhs = mm.lhs, mm.rhs
-    response = str(lhs.columns[0])
-    # a one-level text column expands to a single indicator column: check the variables
-    lhs_vars = sorted({str(v) for v in mm.model_spec.lhs.variables} & {str(c) for c in sub.columns})
-    bad = [v for v in lhs_vars if not pd.api.types.is_numeric_dtype(sub[v])]
-    if bad:
-        raise InputError(
-            f"the response {response!r} must be numeric, but {bad} hold {sub[bad[0]].dtype}"
-            " values; convert them to numbers first."
-        )
-    names = [str(c) for c in rhs.columns]
-    xa = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
-    ya = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
-    rows = sub.index
-    _check_finite(xa, "design", names, rows)
-    _check_finite(ya, f"response {response!r}", None, rows)
-    wa = None
-    if w_series is not None:
-        wa = w_series.loc[rows].to_numpy(dtype=np.float64, copy=True)
-        _validate_weights(wa, rows)
-    index = _index_from_spec(names, mm.model_spec.rhs)
-    intercept = index.terms.get("1", (None,))[0]
+    source = rows.frame.copy(deep=False) if rows.frame is not None else None
     return Design(
-        x=xa,
-        y=ya,
-        weights=wa,
-        index=index,
-        intercept=intercept,
-        response=response,
-        row_index=rows,
-        dropped=data.index[~keep],
-        spec=mm.model_spec,
+        index=encoder.index,
+        intercept=encoder.intercept,
+        response=encoder.response,
+        dropped=rows.dropped,
+        weighted=rows.weights is not None,
+        rows=DesignRows(rows.x, rows.y, rows.weights, rows.rows, source),
+        encoder=encoder,
         formula=formula,
-        source=sub.copy(deep=False),
     )
 
 
 def encode_new(design: Design, data: pd.DataFrame) -> pd.DataFrame:
-    """Encode new data with the fit's formula spec, refusing levels the fit never saw."""
-    import formulaic
-
-    if design.spec is None:
+    """Encode new data with the fit's formula encoder, refusing levels the fit never saw."""
+    if design.encoder is None:
         raise InputError("this fit was made from arrays; it has no formula to encode new data.")
-    if not isinstance(data, pd.DataFrame):
-        raise InputError(f"new data must be a pandas DataFrame, got {type(data).__name__}.")
-    used = [v for v in sorted(str(v) for v in design.spec.rhs.variables) if v in data.columns]
-    na = data[used].isna()
-    if na.to_numpy().any():
-        counts = {c: int(na[c].sum()) for c in used if na[c].any()}
-        raise MissingValueError(
-            f"new data have missing values (per column: {counts}); drop or impute those rows"
-            " before encoding."
-        )
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
-        try:
-            x = design.spec.rhs.get_model_matrix(data, na_action="raise")
-        except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
-            raise InputError(f"could not encode the new data: {exc}") from None
-    for w in caught:
-        if issubclass(w.category, formulaic.errors.DataMismatchWarning):
-            raise UnseenLevelError(
-                f"new data hold a factor level the fit never saw ({w.message}). Such rows would"
-                " silently be coded like the reference level; remove them or refit with the"
-                " level present."
-            )
-    return x
+    return design.encoder.encode_new(data)
 
 
 def normalize_mapping(obj: Mapping[str, float] | None) -> dict[str, float]:

@@ -1,0 +1,842 @@
+"""One formula encoder for every route: in memory, chunks, Dask partitions, new data, contrasts.
+
+A :class:`FormulaEncoder` is a formula's encoding fixed once (columns, factor levels, contrast
+codings, the response), learned from a data sample or from declared levels.  It is frozen and
+picklable, so the same object encodes a whole frame, each chunk of a chunked fit, each partition
+of a Dask fit (on the workers), new data given to :meth:`lincomb.LinearFit.encode`, and the grid
+of level combinations that contrasts on level means evaluate.  Every check on the rows (missing
+values, unseen levels, a non-numeric response, non-finite values, bad weights) is made here, in
+one place, so every route accepts and refuses the same inputs.
+
+This is the only module of lincomb that imports formulaic (with :mod:`lincomb._model.design`,
+which builds on it); other layers see formulaic's model spec only through this class.
+"""
+
+from __future__ import annotations
+
+import difflib
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from lincomb._model.design import (
+    CoefficientIndex,
+    _check_finite,
+    _index_from_spec,
+    _validate_weights,
+)
+from lincomb.errors import InputError, MissingValueError, UnseenLevelError
+
+__all__ = [
+    "FormulaEncoder",
+    "EncodedRows",
+    "require_response",
+    "cast_levels",
+    "refuse_non_numeric_responses",
+]
+
+
+def _split(formula: object) -> tuple[str, str]:
+    """``(left side, right side)`` of a formula; the left side is ``""`` when there is none."""
+    if not isinstance(formula, str):
+        raise InputError(f"formula must be a string like 'y ~ a + b', got {formula!r}.")
+    if "~" in formula:
+        lhs, rhs = formula.split("~", 1)
+        return lhs.strip(), rhs.strip()
+    return "", formula.strip()
+
+
+def require_response(formula: object) -> None:
+    """Refuse a formula without a response (fits need one; designs and plans do not).
+
+    Examples
+    --------
+    >>> require_response("~ x")
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: formula '~ x' has no response: write it as 'response ~ terms'.
+    """
+    if not isinstance(formula, str) or not _split(formula)[0]:
+        raise InputError(f"formula {formula!r} has no response: write it as 'response ~ terms'.")
+
+
+def cast_levels(
+    frame: pd.DataFrame, levels: Mapping[str, Sequence[Any]], where: str
+) -> pd.DataFrame:
+    """Give the columns in ``levels`` a categorical dtype with exactly those categories.
+
+    A value outside the declared levels raises :class:`~lincomb.errors.UnseenLevelError`.
+    ``frame`` is not modified (a shallow copy is changed when a column needs casting).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> out = cast_levels(pd.DataFrame({"g": ["b", "a"]}), {"g": ["a", "b", "c"]}, "data")
+    >>> out["g"].cat.categories.tolist()
+    ['a', 'b', 'c']
+    """
+    if not levels:
+        return frame
+    out = frame
+    for var, lv in levels.items():
+        if var not in frame.columns:
+            continue
+        col = frame[var]
+        lv_list = list(lv)
+        if isinstance(col.dtype, pd.CategoricalDtype) and list(col.cat.categories) == lv_list:
+            continue
+        present = col.dropna()
+        unseen = pd.Index(present.unique()).difference(pd.Index(lv_list))
+        if len(unseen):
+            raise UnseenLevelError(
+                f"{where}: column {var!r} holds level(s) {list(unseen)[:5]} not among the"
+                f" declared levels {lv_list}. Add them to levels[{var!r}]."
+            )
+        if out is frame:
+            out = frame.copy(deep=False)
+        out[var] = pd.Categorical(col, categories=lv_list)
+    return out
+
+
+def _prefix(where: str | None) -> str:
+    return f"{where}: " if where else ""
+
+
+def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> pd.Series | None:
+    """Weights as a float Series aligned with ``frame`` (a column name or an aligned array)."""
+    if weights is None:
+        return None
+    if isinstance(weights, str):
+        if weights not in frame.columns:
+            close = difflib.get_close_matches(weights, [str(c) for c in frame.columns])
+            raise InputError(
+                f"weights column {weights!r} is not in {where or 'data'}. Close: {close}"
+            )
+        series = frame[weights]
+    else:
+        wv = np.asarray(weights)
+        if wv.ndim != 1 or wv.shape[0] != len(frame):
+            raise InputError(
+                f"weights has {wv.shape[0] if wv.ndim else 1} entries for {len(frame)} rows."
+            )
+        series = pd.Series(wv, index=frame.index)
+    try:
+        return series.astype(np.float64)
+    except (TypeError, ValueError):
+        raise InputError(f"{_prefix(where)}weights must be numeric.") from None
+
+
+@dataclass(frozen=True)
+class EncodedRows:
+    """Rows of a frame turned into arrays by a :class:`FormulaEncoder`.
+
+    Attributes
+    ----------
+    x : (n, p) ndarray
+        Design rows (a float64 array of its own).
+    y : (n,) ndarray or None
+        Response (``None`` for a right-hand-side-only formula).
+    weights : (n,) ndarray or None
+    rows : pandas.Index
+        Labels of the rows used, in the order of ``x``.
+    dropped : pandas.Index
+        Labels of the rows dropped for missing values.
+    rows_read : int
+        Rows in the frame given.
+    frame : pandas.DataFrame or None
+        The rows used (a shallow view of the frame given), when asked for.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, None, 2]})
+    >>> rows = FormulaEncoder.from_data("y ~ x", df).encode(df)
+    >>> rows.x.shape, list(rows.dropped)
+    ((2, 2), [1])
+    """
+
+    x: NDArray[np.float64]
+    y: NDArray[np.float64] | None
+    weights: NDArray[np.float64] | None
+    rows: pd.Index
+    dropped: pd.Index
+    rows_read: int
+    frame: pd.DataFrame | None = field(default=None, repr=False)
+
+    @property
+    def response(self) -> NDArray[np.float64]:
+        """``y``, for callers whose formula has a response (raises otherwise).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2], "x": [0.5, 1]})
+        >>> FormulaEncoder.from_data("y ~ x", df).encode(df).response.tolist()
+        [1.0, 2.0]
+        """
+        if self.y is None:
+            raise InputError("these rows have no response (the formula has no left-hand side).")
+        return self.y
+
+
+def _data_vars(variables: Any) -> set[str]:
+    return {str(v) for v in variables if getattr(v, "source", "data") == "data"}
+
+
+@dataclass(frozen=True)
+class FormulaEncoder:
+    """A formula's encoding, fixed once, applied to any frame.
+
+    Build one with :meth:`from_data` (a sample of the data, possibly empty when the levels are
+    declared) or :meth:`from_levels`; :meth:`learn` builds it and encodes the sample's rows in
+    the same pass.
+
+    Attributes
+    ----------
+    formula : str
+        The formula as given: two-sided (``"y ~ a + b"``) or right-hand side only
+        (``"~ a + b"`` or ``"a + b"``).
+    response : str or None
+        Name of the response column of the design (``None`` without a left-hand side).
+    index : CoefficientIndex
+        Coefficient names, terms and levels.
+    intercept : int or None
+        Column of the intercept.
+    variables : tuple of str
+        Data columns the formula reads (both sides).
+    levels : dict
+        Declared ``{column: levels}``, applied to every frame before encoding.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"], "x": [0.5, 1, 2, 3]})
+    >>> enc = FormulaEncoder.from_data("y ~ g + x", df, levels={"g": ["a", "b", "c"]})
+    >>> enc.index.names, enc.response
+    (('Intercept', 'g[T.b]', 'g[T.c]', 'x'), 'y')
+    >>> enc.encode(df.iloc[:2], where="chunk 1").x.shape
+    (2, 4)
+    >>> FormulaEncoder.from_data("~ g", df).response is None
+    True
+    """
+
+    formula: str
+    response: str | None
+    index: CoefficientIndex
+    intercept: int | None
+    variables: tuple[str, ...]
+    levels: dict[str, tuple[Any, ...]] = field(default_factory=dict)
+    _response_variables: tuple[str, ...] = field(default=(), repr=False, compare=False)
+    _spec: Any = field(default=None, repr=False, compare=False)
+
+    # -- construction ------------------------------------------------------------------------
+    @classmethod
+    def learn(
+        cls,
+        formula: str,
+        data: pd.DataFrame,
+        *,
+        levels: Mapping[str, Sequence[Any]] | None = None,
+        weights: object = None,
+        missing: str = "drop",
+        where: str | None = None,
+        keep_frame: bool = False,
+    ) -> tuple[FormulaEncoder, EncodedRows]:
+        """Fix the encoding on ``data`` and encode its rows, in one formulaic pass.
+
+        Rows with a missing value in a variable of the formula (or in the weights) do not
+        inform the encoding; they are dropped and listed, or raise with ``missing="raise"``.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", None]})
+        >>> enc, rows = FormulaEncoder.learn("y ~ g", df)
+        >>> enc.index.names, rows.x.tolist(), list(rows.dropped)
+        (('Intercept', 'g[T.b]'), [[1.0, 0.0], [1.0, 1.0]], [2])
+        """
+        import formulaic
+
+        lhs, rhs = _split(formula)
+        if not rhs:
+            raise InputError(f"formula {formula!r} has no right-hand side terms.")
+        label = where or "data"
+        if not isinstance(data, pd.DataFrame):
+            what = f"{where} is a" if where else "data must be a pandas DataFrame, got"
+            tail = ", not a pandas DataFrame." if where else "."
+            raise InputError(f"{what} {type(data).__name__}{tail}")
+        if missing not in ("drop", "raise"):
+            raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+        declared = {k: tuple(v) for k, v in (levels or {}).items()}
+        unknown = [v for v in declared if v not in data.columns]
+        if unknown:
+            raise InputError(
+                f"levels were declared for {unknown}, which {label} does not have as columns."
+                f" Columns: {[str(c) for c in data.columns]}"
+            )
+        variables = _required(formula, data)
+        w = _weights_series(data, weights, where)
+        work = cast_levels(data, declared, label)
+        na = _na_mask(work, variables, w)
+        _refuse_missing(work, na, variables, w, missing, where)
+        sub = work.loc[~na] if na.any() else work
+        target = f"{lhs} ~ {rhs}" if lhs else rhs
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
+                mm = formulaic.model_matrix(target, sub, na_action="raise")
+        except Exception as exc:  # formulaic raises plain errors for unknown variables
+            raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+        spec = mm.model_spec
+        rhs_mm = mm.rhs if lhs else mm
+        rhs_spec = spec.rhs if lhs else spec
+        response: str | None = None
+        response_vars: tuple[str, ...] = ()
+        if lhs:
+            if mm.lhs.shape[1] != 1:
+                raise InputError(
+                    f"the response of {formula!r} expands to {mm.lhs.shape[1]} columns"
+                    f" {list(mm.lhs.columns)}: it must be one numeric variable (recode a"
+                    " categorical outcome first)."
+                )
+            response = str(mm.lhs.columns[0])
+            response_vars = tuple(
+                sorted(_data_vars(spec.lhs.variables) & set(map(str, sub.columns)))
+            )
+            _check_response(sub, lhs, response_vars, where)
+        for factor, state in rhs_spec.factor_contrasts.items():
+            if len(state.levels) == 0:
+                raise InputError(
+                    f"factor {str(factor)!r} has no levels in {label}: declare them, e.g."
+                    " levels={'name': [...]} (an empty sample cannot reveal them)."
+                )
+        names = [str(c) for c in rhs_mm.columns]
+        index = _index_from_spec(names, rhs_spec)
+        encoder = cls(
+            formula=formula,
+            response=response,
+            index=index,
+            intercept=index.terms.get("1", (None,))[0],
+            variables=tuple(variables),
+            levels=declared,
+            _response_variables=response_vars,
+            _spec=spec,
+        )
+        rows = encoder._finish(
+            rhs_mm, mm.lhs if lhs else None, sub, w, data.index[na], len(data), where, keep_frame
+        )
+        return encoder, rows
+
+    @classmethod
+    def from_data(
+        cls,
+        formula: str,
+        data: pd.DataFrame,
+        *,
+        levels: Mapping[str, Sequence[Any]] | None = None,
+        weights: object = None,
+        where: str | None = None,
+    ) -> FormulaEncoder:
+        """The encoding of ``formula`` learned on ``data`` (with ``levels`` applied to it).
+
+        ``data`` may be an empty frame (a Dask DataFrame's metadata) when every categorical
+        variable has declared levels.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> empty = pd.DataFrame({"y": [], "g": [], "x": []})
+        >>> FormulaEncoder.from_data("y ~ g + x", empty, levels={"g": ["a", "b"]}).index.names
+        ('Intercept', 'g[T.b]', 'x')
+        """
+        return cls.learn(formula, data, levels=levels, weights=weights, where=where)[0]
+
+    @classmethod
+    def from_levels(cls, formula: str, levels: Mapping[str, Sequence[Any]]) -> FormulaEncoder:
+        """The encoding of ``formula`` from declared levels alone (other variables numeric).
+
+        Examples
+        --------
+        >>> FormulaEncoder.from_levels("~ g * x", {"g": ["lo", "hi"]}).index.names
+        ('Intercept', 'g[T.hi]', 'x', 'g[T.hi]:x')
+        """
+        import formulaic
+
+        try:
+            required = sorted(
+                str(v) for v in formulaic.Formula(_split(formula)[1] or "1").required_variables
+            )
+            if _split(formula)[0]:
+                required += [
+                    str(v) for v in formulaic.Formula(_split(formula)[0]).required_variables
+                ]
+        except Exception as exc:
+            raise InputError(f"could not parse the formula {formula!r}: {exc}") from None
+        cols = {v: pd.Series([], dtype=np.float64) for v in required}
+        for v, lv in levels.items():
+            cols[v] = pd.Series(pd.Categorical([], categories=list(lv)))
+        return cls.from_data(
+            formula, pd.DataFrame(cols), levels=levels, where="the declared levels"
+        )
+
+    @staticmethod
+    def categorical_variables(
+        formula: str, sample: pd.DataFrame, levels: Mapping[str, Sequence[Any]] | None = None
+    ) -> list[str]:
+        """Data columns of ``sample`` that feed a categorical factor of the formula.
+
+        Text, categorical and bool columns, and columns wrapped in ``C()``; ``sample`` may be
+        empty (it is only read for dtypes).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> meta = pd.DataFrame({"y": [1.0], "g": ["a"], "k": [1], "x": [0.5]})
+        >>> FormulaEncoder.categorical_variables("y ~ g + C(k) + x", meta)
+        ['g', 'k']
+        """
+        import formulaic
+
+        lhs, _ = _split(formula)
+        variables = _required(formula, sample)
+        answer = set(_required(lhs, sample)) if lhs else set()
+        found = {
+            v
+            for v in variables
+            if v not in answer
+            and (
+                isinstance(sample[v].dtype, pd.CategoricalDtype)
+                or pd.api.types.is_string_dtype(sample[v].dtype)
+                or pd.api.types.is_object_dtype(sample[v].dtype)
+                or pd.api.types.is_bool_dtype(sample[v].dtype)
+            )
+        }
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                spec = formulaic.model_matrix(
+                    _split(formula)[1], cast_levels(sample, levels or {}, "metadata")
+                ).model_spec
+            for factor in spec.factor_contrasts:
+                found |= {
+                    str(v) for v in spec.factor_variables.get(factor, ()) if v in sample.columns
+                }
+        except Exception as exc:  # noqa: BLE001 - reported with the formula below
+            raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+        return sorted(found)
+
+    @staticmethod
+    def columns_read(formula: str, frame: pd.DataFrame) -> list[str]:
+        """Columns of ``frame`` that ``formula`` reads (both sides), sorted.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> frame = pd.DataFrame(columns=["x", "g", "y", "z"])
+        >>> FormulaEncoder.columns_read("y ~ C(g) + np.log(x)", frame)
+        ['g', 'x', 'y']
+        """
+        return _required(formula, frame)
+
+    @staticmethod
+    def complete_rows(formula: str, frame: pd.DataFrame, weights: object = None) -> int:
+        """Rows of ``frame`` without a missing value in the formula's variables (or weights).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> FormulaEncoder.complete_rows("y ~ x", pd.DataFrame({"y": [1.0, None], "x": [1.0, 2]}))
+        1
+        """
+        cols = _required(formula, frame)
+        if isinstance(weights, str) and weights in frame.columns:
+            cols.append(weights)
+        if not cols:
+            return len(frame)
+        return int((~frame[cols].isna().to_numpy().any(axis=1)).sum())
+
+    @staticmethod
+    def check_response(formula: str, sample: pd.DataFrame, where: str | None = None) -> None:
+        """Refuse a formula whose response reads a non-numeric column of ``sample``.
+
+        :meth:`learn` and :meth:`encode` make this check themselves; call it to refuse early,
+        before a costly pass (``sample`` may be empty: only dtypes are read).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> FormulaEncoder.check_response("s ~ x", pd.DataFrame({"s": ["a"], "x": [1.0]}))
+        Traceback (most recent call last):
+        ...
+        lincomb.errors.InputError: response 's' is not numeric: a response must be numeric, ...
+        """
+        lhs, _ = _split(formula)
+        if lhs:
+            _check_response(sample, lhs, _required(lhs, sample), where)
+
+    # -- facts about the encoding --------------------------------------------------------------
+    @property
+    def rhs_spec(self) -> Any:
+        """formulaic's model spec of the right-hand side (for introspection only)."""
+        return self._spec.rhs if self.response is not None else self._spec
+
+    @property
+    def stateful(self) -> tuple[str, ...]:
+        """Stateful transforms of the formula (``center(x)``, ``poly(x)``...), whose state
+        (a mean, knots) came from the sample the encoding was learned on."""
+        specs = [self.rhs_spec] + ([self._spec.lhs] if self.response is not None else [])
+        return tuple(sorted({str(k) for s in specs for k in s.transform_state}))
+
+    def check_stateless(self) -> None:
+        """Refuse stateful transforms (for fits whose sample is one chunk of the data).
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, 1, 2]})
+        >>> FormulaEncoder.from_data("y ~ center(x)", df).check_stateless()
+        Traceback (most recent call last):
+        ...
+        lincomb.errors.InputError: the formula uses stateful transform(s) ['center(x)']: ...
+        """
+        if self.stateful:
+            raise InputError(
+                f"the formula uses stateful transform(s) {list(self.stateful)}: their state (a"
+                " mean, a scale, knots, polynomial coefficients) would come from one chunk, so"
+                " the fit would not be the fit of all rows. Compute the transformed column"
+                " before chunking, or write the transform with fixed numbers (e.g."
+                " 'I(x - 12.5)')."
+            )
+
+    def codings(self) -> dict[str, tuple[tuple[Any, ...], str]]:
+        """``{factor expression: (levels, contrast coding)}`` for each categorical factor.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"]})
+        >>> FormulaEncoder.from_data("y ~ g", df).codings()["g"][0]
+        ('a', 'b', 'c')
+        """
+        return {
+            str(factor): (tuple(state.levels), repr(state.contrasts))
+            for factor, state in self.rhs_spec.factor_contrasts.items()
+        }
+
+    def categoricals(self) -> dict[str, list[tuple[str, tuple[Any, ...]]]]:
+        """``{data column: [(factor expression, levels), ...]}`` for categorical factors.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"]})
+        >>> FormulaEncoder.from_data("y ~ C(g)", df).categoricals()
+        {'g': [('C(g)', ('a', 'b', 'c'))]}
+        """
+        spec = self.rhs_spec
+        out: dict[str, list[tuple[str, tuple[Any, ...]]]] = {}
+        for fac, variables in spec.factor_variables.items():
+            state = spec.encoder_state.get(str(fac))
+            if state is None or getattr(state[0], "value", state[0]) != "categorical":
+                continue
+            dv = _data_vars(variables)
+            if len(dv) != 1:
+                continue
+            info = state[1] if isinstance(state[1], Mapping) else {}
+            cats = info.get("categories")
+            if cats is None and "contrasts" in info:
+                cats = info["contrasts"].levels
+            if cats is None:
+                continue
+            out.setdefault(next(iter(dv)), []).append((str(fac), tuple(cats)))
+        return out
+
+    def term_variables(self) -> dict[str, frozenset[str]]:
+        """``{term label: data columns it reads}`` in formula order.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"], "x": [1.0, 0, 2]})
+        >>> tv = FormulaEncoder.from_data("y ~ g:x", df).term_variables()
+        >>> {t: sorted(v) for t, v in tv.items()}
+        {'1': [], 'g:x': ['g', 'x']}
+        """
+        spec = self.rhs_spec
+        return {str(t): frozenset(_data_vars(spec.term_variables[t])) for t in spec.terms}
+
+    # -- encoding ------------------------------------------------------------------------------
+    def encode(
+        self,
+        frame: pd.DataFrame,
+        *,
+        weights: object = None,
+        missing: str = "drop",
+        where: str | None = None,
+        keep_frame: bool = False,
+    ) -> EncodedRows:
+        """Arrays of the rows of ``frame`` (a whole frame, a chunk, a Dask partition).
+
+        Rows with a missing value in the formula's variables (or the weights) are dropped and
+        listed (``missing="raise"``: refused); a factor level the encoding lacks raises
+        :class:`~lincomb.errors.UnseenLevelError`; ``where`` names the frame in errors.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"],
+        ...                    "x": [0.5, None, 2, 3]})
+        >>> rows = FormulaEncoder.from_data("y ~ g + x", df).encode(df, where="chunk 1")
+        >>> rows.x.shape, list(rows.dropped)
+        ((3, 3), [1])
+        """
+        import formulaic
+
+        if not isinstance(frame, pd.DataFrame):
+            raise InputError(
+                f"{where or 'data'} is a {type(frame).__name__}, not a pandas DataFrame."
+            )
+        need = list(self.variables) + ([weights] if isinstance(weights, str) else [])
+        absent = [v for v in need if v not in frame.columns]
+        if absent:
+            raise InputError(
+                f"{where or 'data'} lacks column(s) {absent} that the formula (or weights) uses."
+                f" It has: {[str(c) for c in frame.columns]}"
+            )
+        w = _weights_series(frame, weights, where)
+        work = cast_levels(frame, self.levels, where or "data")
+        na = _na_mask(work, self.variables, w)
+        _refuse_missing(work, na, self.variables, w, missing, where)
+        sub = work.loc[~na] if na.any() else work
+        dropped = frame.index[na]
+        if self.response is not None:
+            _check_response(sub, _split(self.formula)[0], self._response_variables, where)
+        if len(sub) == 0:
+            p = self.index.p
+            y = None if self.response is None else np.zeros(0)
+            wz = None if w is None else np.zeros(0)
+            return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
+            try:
+                mm = self._spec.get_model_matrix(sub, na_action="raise")
+            except Exception as exc:  # formulaic raises plain errors
+                raise InputError(f"{_prefix(where)}could not encode the rows: {exc}") from None
+        for wrn in caught:
+            if issubclass(wrn.category, formulaic.errors.DataMismatchWarning):
+                raise UnseenLevelError(
+                    f"{where or 'the data'} holds a factor level the encoding lacks"
+                    f" ({wrn.message}). Those rows would silently be coded like the reference"
+                    " level. Declare every level up front, e.g. levels={'column': [...]}, or"
+                    " drop those rows."
+                )
+        two = self.response is not None
+        return self._finish(
+            mm.rhs if two else mm,
+            mm.lhs if two else None,
+            sub,
+            w,
+            dropped,
+            len(frame),
+            where,
+            keep_frame,
+        )
+
+    def _finish(
+        self,
+        rhs: Any,
+        lhs: Any,
+        sub: pd.DataFrame,
+        w: pd.Series | None,
+        dropped: pd.Index,
+        rows_read: int,
+        where: str | None,
+        keep_frame: bool,
+    ) -> EncodedRows:
+        """Validate encoded matrices into arrays (the one place rows are checked)."""
+        x = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
+        if x.shape[1] != self.index.p:  # pragma: no cover - the spec fixes the columns
+            raise InputError(
+                f"{_prefix(where)}encoded to {x.shape[1]} columns instead of {self.index.p}."
+            )
+        rows = sub.index
+        _check_finite(x, f"{_prefix(where)}design", self.index.names, rows)
+        y = None
+        if lhs is not None:
+            y = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+            _check_finite(y, f"{_prefix(where)}response {self.response!r}", None, rows)
+        wa = None
+        if w is not None:
+            wa = (
+                w.loc[rows].to_numpy(dtype=np.float64, copy=True)
+                if len(w) != len(rows)
+                else (w.to_numpy(dtype=np.float64, copy=True))
+            )
+            _validate_weights(wa, rows)
+        return EncodedRows(x, y, wa, rows, dropped, rows_read, sub if keep_frame else None)
+
+    def encode_new(self, data: pd.DataFrame) -> pd.DataFrame:
+        """Design matrix of new data (right-hand side), refusing levels the encoding lacks.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "a"]})
+        >>> enc = FormulaEncoder.from_data("y ~ g", df)
+        >>> enc.encode_new(pd.DataFrame({"g": ["b"]})).to_numpy().tolist()
+        [[1.0, 1.0]]
+        >>> enc.encode_new(pd.DataFrame({"g": ["z"]}))
+        Traceback (most recent call last):
+        ...
+        lincomb.errors.UnseenLevelError: new data hold a factor level the fit never saw ...
+        """
+        import formulaic
+
+        if not isinstance(data, pd.DataFrame):
+            raise InputError(f"new data must be a pandas DataFrame, got {type(data).__name__}.")
+        spec = self.rhs_spec
+        used = [v for v in sorted(str(v) for v in spec.variables) if v in data.columns]
+        na = data[used].isna()
+        if na.to_numpy().any():
+            counts = {c: int(na[c].sum()) for c in used if na[c].any()}
+            raise MissingValueError(
+                f"new data have missing values (per column: {counts}); drop or impute those rows"
+                " before encoding."
+            )
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
+            try:
+                x = spec.get_model_matrix(data, na_action="raise")
+            except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
+                raise InputError(f"could not encode the new data: {exc}") from None
+        out: pd.DataFrame = x
+        for w in caught:
+            if issubclass(w.category, formulaic.errors.DataMismatchWarning):
+                raise UnseenLevelError(
+                    f"new data hold a factor level the fit never saw ({w.message}). Such rows"
+                    " would silently be coded like the reference level; remove them or refit"
+                    " with the level present."
+                )
+        return out
+
+    def encode_grid(
+        self, frame: pd.DataFrame, terms: Sequence[str] | None = None, where: str = ""
+    ) -> tuple[NDArray[np.float64], tuple[str, ...]]:
+        """Model rows of a grid of level combinations (``frame``), for the given terms.
+
+        Returns the rows (one per row of ``frame``) and their column names; ``terms`` (labels
+        as in :meth:`term_variables`) limits the columns to those terms, default all.  A level
+        the encoding lacks raises :class:`~lincomb.errors.UnseenLevelError`.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"], "x": [1.0, 0, 2]})
+        >>> enc = FormulaEncoder.from_data("y ~ g + x", df)
+        >>> rows, names = enc.encode_grid(pd.DataFrame({"g": ["a", "b", "c"]}), ["g"])
+        >>> names, rows.tolist()
+        (('g[T.b]', 'g[T.c]'), [[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
+        """
+        import formulaic
+
+        spec = self.rhs_spec
+        if terms is not None:
+            wanted = set(terms)
+            spec = spec.subset([t for t in spec.terms if str(t) in wanted])
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                mm = spec.get_model_matrix(frame, na_action="raise")
+            except Exception as exc:  # noqa: BLE001 - formulaic raises plain errors
+                raise InputError(f"could not evaluate the model {where}: {exc}") from None
+        for w in caught:
+            if issubclass(w.category, formulaic.errors.DataMismatchWarning):
+                raise UnseenLevelError(f"could not evaluate the model {where}: {w.message}")
+        x = np.asarray(mm.to_numpy(dtype=np.float64))
+        return x, tuple(str(c) for c in spec.column_names)
+
+
+# -- helpers -----------------------------------------------------------------------------------
+
+
+def _required(formula: str, frame: pd.DataFrame) -> list[str]:
+    """Columns of ``frame`` that ``formula`` reads."""
+    import formulaic
+
+    lhs, rhs = _split(formula)
+    target = f"{lhs} ~ {rhs}" if lhs else (rhs or "1")
+    try:
+        required = formulaic.Formula(target).required_variables
+    except Exception as exc:
+        raise InputError(f"could not parse the formula {formula!r}: {exc}") from None
+    return sorted(str(v) for v in required if v in frame.columns)
+
+
+def _na_mask(
+    frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
+) -> NDArray[np.bool_]:
+    cols = [c for c in variables if c in frame.columns]
+    na = np.zeros(len(frame), dtype=bool)
+    if cols:
+        na |= frame[cols].isna().to_numpy().any(axis=1)
+    if w is not None:
+        na |= w.isna().to_numpy()
+    return na
+
+
+def _refuse_missing(
+    frame: pd.DataFrame,
+    na: NDArray[np.bool_],
+    variables: Sequence[str],
+    w: pd.Series | None,
+    missing: str,
+    where: str | None,
+) -> None:
+    n_na = int(na.sum())
+    if not n_na or missing != "raise":
+        return
+    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
+    if w is not None and w.isna().any():
+        counts["<weights>"] = int(w.isna().sum())
+    raise MissingValueError(
+        f"{_prefix(where)}{n_na} rows have missing values (per column: {counts}); drop or impute"
+        " them, or fit with missing='drop'."
+    )
+
+
+def _check_response(
+    frame: pd.DataFrame, response: str, variables: Sequence[str], where: str | None
+) -> None:
+    """Refuse a response read from a non-numeric column (a one-level text column expands to a
+    single indicator column, which would otherwise be fitted under a made-up name)."""
+    bad = [v for v in variables if v in frame.columns and not _numeric(frame[v].dtype)]
+    if bad:
+        raise InputError(
+            f"{_prefix(where)}response {response!r} is not numeric: a response must be numeric,"
+            f" but {bad} hold {frame[bad[0]].dtype} values; convert them to numbers first."
+        )
+
+
+def refuse_non_numeric_responses(frame: pd.DataFrame, columns: Sequence[str]) -> None:
+    """Refuse response columns of ``frame`` whose dtype is not numeric (as every fit does).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> refuse_non_numeric_responses(pd.DataFrame({"a": [1.0], "b": ["x"]}), ["a", "b"])
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: response 'b' is not numeric: a response must be numeric, ...
+    """
+    for c in columns:
+        if not _numeric(frame[c].dtype):
+            _check_response(frame, str(c), [c], None)
+
+
+def _numeric(dtype: Any) -> bool:
+    return bool(pd.api.types.is_numeric_dtype(dtype)) and not isinstance(dtype, pd.CategoricalDtype)
