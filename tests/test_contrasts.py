@@ -19,7 +19,8 @@ from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
 import lincomb as lc
-from lincomb._builder.contrasts import PARTITION_COLUMNS, ModelResolver, orthogonal_polynomials
+from lincomb._builder.contrasts import ModelResolver, orthogonal_polynomials
+from lincomb._results.contrast_reports import PARTITION_COLUMNS
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,

@@ -194,7 +194,18 @@ class PowerPlan:
 
     def _lambda1(self, delta: NDArray[np.float64]) -> float:
         """Noncentrality of one replicate with σ = 1 (a triangular solve; see module notes)."""
-        return linalg.wald_from_root(delta, self._root, self._independent).quad
+        # scaled by a power of two (exact, so every number is that of the unscaled solve) so a
+        # huge effect overflows only in the final product, to inf: power 1
+        top = float(np.max(np.abs(delta))) if delta.size else 0.0
+        if top == 0.0:
+            return 0.0
+        if not np.isfinite(top):
+            return float("inf")
+        exponent = int(np.frexp(top)[1])
+        unit = np.ldexp(delta, -exponent)
+        quad = linalg.wald_from_root(unit, self._root, self._independent).quad
+        with np.errstate(over="ignore"):
+            return float(np.ldexp(np.float64(quad), 2 * exponent))
 
     def _df_den(self, replicates: int) -> int:
         d = self.design
