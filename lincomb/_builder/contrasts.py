@@ -191,7 +191,7 @@ def _report(name: str) -> Callable[..., object]:
 # ---------------------------------------------------------------------------------------------
 # orthogonal polynomials
 # ---------------------------------------------------------------------------------------------
-def orthogonal_polynomials(values: Sequence[float], degree: int | None = None) -> Array:
+def orthogonal_polynomials(values: Sequence[float] | Array, degree: int | None = None) -> Array:
     """Orthonormal polynomial contrasts on levels placed at ``values``.
 
     Parameters
@@ -609,13 +609,13 @@ def _build(recipe: _Recipe, fac: _Factor) -> tuple[Array, list[str]]:
         elif isinstance(values, Mapping):
             pos = np.full(k, np.nan)
             for key, val in values.items():
-                j = _level_index(key, fac.levels)
-                if j is None:
+                at = _level_index(key, fac.levels)
+                if at is None:
                     raise UnknownCoefficientError(
                         f"trend value given for {key!r}, which is not a level of {name!r};"
                         f" levels: {list(labs)}."
                     )
-                pos[j] = float(val)
+                pos[at] = float(val)
             if np.isnan(pos).any():
                 lacking = [labs[j] for j in np.flatnonzero(np.isnan(pos))]
                 raise ContrastWeightsError(f"trend values are missing for levels {lacking}.")
@@ -736,7 +736,7 @@ class LevelContrasts(_Item):
             return NotImplemented
         return replace(self, target=float(other))  # type: ignore[arg-type]
 
-    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+    def __ne__(self, other: object) -> bool:
         raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:

@@ -96,7 +96,10 @@ def orthogonality(
     n = _given_sizes(sizes, fac) if sizes is not None else _fit_sizes(fit, fac)
     sized = None if n is None else _cosines((w / n) @ w.T)
     classical = fit.wald(replace(contrasts, target=0.0), covariance="classical")
-    corr = _cosines(classical.estimate_covariance)
+    cov = classical.estimate_covariance
+    if cov is None:  # pragma: no cover - a classical test always has the rows' covariance
+        raise NotOrthogonalError("the test of these contrasts gave no covariance of the rows.")
+    corr = _cosines(cov)
     frame = _label_index(labels)
     return OrthogonalityReport(
         labels=tuple(labels),
@@ -256,7 +259,7 @@ def _label_index(labels: Sequence[str]) -> pd.Index:
 def _cosines(g: Array) -> Array:
     d = np.sqrt(np.clip(np.diag(g), 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = g / np.outer(d, d)
+        out: Array = g / np.outer(d, d)
     return out
 
 
