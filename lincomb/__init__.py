@@ -31,7 +31,9 @@ from lincomb._fit.distributed import fit_dask, fit_dask_arrays
 from lincomb._fit.linear import LinearFit, fit, fit_arrays
 from lincomb._fit.many import ManyFit, ManyWaldTest, fit_many, fit_many_arrays
 from lincomb._fit.pooled import combine, without_rows
-from lincomb._plan.power import PlannedDesign, PowerPlan, planned_design, power_plan
+from lincomb._plan.design import PlannedDesign, planned_design
+from lincomb._plan.plan import PowerPlan, power_plan
+from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
 from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb._settings import blas_threads, set_blas_threads

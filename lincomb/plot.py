@@ -35,14 +35,19 @@ if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
+    from lincomb._plan.results import PowerCurve
     from lincomb._results.wald import WaldTest
 
-__all__ = ["intervals", "INTERVAL_ARTISTS"]
+__all__ = ["intervals", "power_curve", "INTERVAL_ARTISTS", "POWER_CURVE_ARTISTS"]
 
 #: Artist ``gid`` values set by :func:`intervals`, so a picture can be inspected or restyled:
 #: the marginal interval bars, the simultaneous interval bars, the estimates and the
 #: hypothesized values ``d``.
 INTERVAL_ARTISTS = ("marginal", "simultaneous", "estimate", "target")
+
+#: Artist ``gid`` values set by :func:`power_curve`: the curve, the level ``alpha`` (the power
+#: at no effect) and the target power (when the curve records one).
+POWER_CURVE_ARTISTS = ("power", "alpha", "target")
 
 # our own palette: marginal intervals in slate blue, simultaneous in burnt orange, targets in
 # near-black; redundant rows are drawn in grey.
@@ -74,8 +79,16 @@ def _new_figure(figsize: tuple[float, float]) -> Figure:
     end of a cell nor keeps it alive.
     """
     plt = _pyplot()
-    fig = plt.figure(figsize=figsize, layout="constrained")
+    fig: Figure = plt.figure(figsize=figsize, layout="constrained")
     plt.close(fig)
+    return fig
+
+
+def _root_figure(ax: Axes) -> Figure:
+    """The figure an axes belongs to (the whole figure when the axes sit in a subfigure)."""
+    fig = ax.get_figure(root=True)
+    if fig is None:  # pragma: no cover - an axes is always made on a figure
+        raise ValueError("these axes belong to no figure; make them with fig.add_subplot().")
     return fig
 
 
@@ -221,7 +234,7 @@ def intervals(
         fig = _new_figure((7.5, 1.6 + 0.5 * m))
         ax = fig.add_subplot()
     else:
-        fig = ax.figure
+        fig = _root_figure(ax)
     y = np.arange(m, dtype=float)
     redundant = np.array([i in result.redundant for i in range(m)])
     colors = np.where(redundant, _MUTED, _MARGINAL)
@@ -306,4 +319,77 @@ def intervals(
         fig.legend(loc="outside lower center", ncols=4 if sim is not None else 3, **legend)
     else:
         ax.legend(loc="best", **legend)
+    return fig
+
+
+def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
+    """Power of a planned F test against the number of observations.
+
+    The power at each replicate count of the curve is drawn against the observations it makes,
+    with the level ``alpha`` (the power at no effect) as a dotted line and the curve's target
+    power, if it records one, as a dashed line.  The title is the restriction system.
+
+    Parameters
+    ----------
+    curve : PowerCurve
+        From :meth:`~lincomb.PowerPlan.curve`.
+    ax : matplotlib Axes, optional
+        Draw here instead of in a new figure; the axes' figure is returned.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Raises
+    ------
+    OptionalDependencyError
+        matplotlib is not installed.
+
+    Notes
+    -----
+    The artists carry ``gid`` values from :data:`POWER_CURVE_ARTISTS`: ``"power"`` (the curve,
+    x = ``curve.n_obs``, y = ``curve.power``), ``"alpha"`` and ``"target"``.
+
+    Examples
+    --------
+    >>> import numpy as np, pandas as pd, lincomb as lc
+    >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
+    >>> cv = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).curve(effect=1.0, target=0.8)
+    >>> ax = lc.plot.power_curve(cv).axes[0]
+    >>> line = next(a for a in ax.lines if a.get_gid() == "power")
+    >>> bool(np.allclose(line.get_ydata(), cv.power))
+    True
+    """
+    _pyplot()
+    if ax is None:
+        fig = _new_figure((6.0, 4.0))
+        ax = fig.add_subplot()
+    else:
+        fig = _root_figure(ax)
+    ax.plot(
+        curve.n_obs,
+        curve.power,
+        marker="o",
+        markersize=3,
+        color=_MARGINAL,
+        gid="power",
+        label="power",
+    )
+    ax.axhline(
+        curve.alpha, color=_MUTED, linestyle=":", gid="alpha", label=f"alpha = {curve.alpha:g}"
+    )
+    if curve.target_power is not None:
+        ax.axhline(
+            curve.target_power,
+            color=_SIMULTANEOUS,
+            linestyle="--",
+            gid="target",
+            label=f"target {curve.target_power:g}",
+        )
+    ax.set_ylim(0.0, 1.02)
+    ax.set_xlabel("observations (n)")
+    ax.set_ylabel("power")
+    title = " & ".join(curve.labels)
+    ax.set_title(title if len(title) <= 60 else title[:57] + "...", fontsize="medium")
+    ax.legend(loc="lower right", fontsize="small")
     return fig

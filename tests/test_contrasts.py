@@ -19,7 +19,8 @@ from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
 import lincomb as lc
-from lincomb._builder.contrasts import PARTITION_COLUMNS, ModelResolver, orthogonal_polynomials
+from lincomb._builder.contrasts import ModelResolver, orthogonal_polynomials
+from lincomb._results.contrast_reports import PARTITION_COLUMNS
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
@@ -632,3 +633,91 @@ def test_no_warnings_from_encoding(plant) -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         f.wald(lc.levels("group").pairwise())
+
+
+# ---------------------------------------------------------------------------------------------
+# the reports on fits without rows
+# ---------------------------------------------------------------------------------------------
+def _rowless_routes(formula: str, data: pd.DataFrame, weights: str | None = None) -> dict:
+    import dask.dataframe as dd
+
+    cut = [0, len(data) // 3, 2 * len(data) // 3, len(data)]
+    parts = [data.iloc[a:b] for a, b in zip(cut[:-1], cut[1:], strict=True)]
+    kw = {} if weights is None else {"weights": weights}
+    frame = data.copy()
+    for col in frame.columns:
+        if frame[col].dtype == object or pd.api.types.is_string_dtype(frame[col]):
+            frame[col] = frame[col].astype("category")
+    return {
+        "without_rows": lc.without_rows(lc.fit(formula, data, **kw)),
+        "chunks": lc.fit_chunks(formula, parts, **kw),
+        "combine": lc.combine([lc.fit(formula, p, **kw) for p in parts]),
+        "dask": lc.fit_dask(formula, dd.from_pandas(frame, npartitions=3), **kw),
+    }
+
+
+def _assert_same_report(rep, ref) -> None:
+    assert rep.labels == ref.labels
+    assert (rep.equal_n, rep.sized, rep.in_fit, rep.complete) == (
+        ref.equal_n,
+        ref.sized,
+        ref.in_fit,
+        ref.complete,
+    )
+    pd.testing.assert_frame_equal(rep.weights, ref.weights)
+    pd.testing.assert_frame_equal(rep.cosine_equal_n, ref.cosine_equal_n)
+    pd.testing.assert_frame_equal(rep.cosine_sized, ref.cosine_sized, rtol=1e-10, atol=1e-12)
+    pd.testing.assert_frame_equal(rep.correlation_fit, ref.correlation_fit, rtol=1e-9, atol=1e-12)
+    pd.testing.assert_series_equal(rep.sizes, ref.sizes, rtol=1e-10)
+
+
+@pytest.mark.parametrize("route", ["without_rows", "chunks", "combine", "dask"])
+def test_reports_on_rowless_fits_equal_the_in_memory_ones(insects, route) -> None:
+    # unbalanced: InsectSprays without some rows (sizes 12, 9, 12, 7, 12, 10), shuffled so each
+    # chunk holds every spray; the in-memory numbers are pinned to outside references above
+    drop = list(range(12, 15)) + list(range(36, 41)) + [60, 61]
+    data = insects.drop(index=drop).sample(frac=1.0, random_state=3).reset_index(drop=True)
+    data = data[["count", "spray"]]
+    formula = "count ~ spray"
+    f = lc.fit(formula, data)
+    fits = _rowless_routes(formula, data)
+    for contrasts in (
+        lc.levels("spray").helmert(),
+        lc.levels("spray").successive(),
+        lc.levels("spray").weights([1, 1, -1, -1, 0, 0], [1, -1, 0, 0, 0, 0]),
+    ):
+        ref = contrasts.orthogonality(f)
+        assert ref.sizes.tolist() == [12.0, 9.0, 12.0, 7.0, 12.0, 10.0]
+        _assert_same_report(contrasts.orthogonality(fits[route]), ref)
+    # a full set orthogonal for these group sizes (Helmert-type weights scaled by the sizes)
+    n = np.array([12.0, 9.0, 12.0, 7.0, 12.0, 10.0])
+    rows = []
+    for j in range(1, 6):
+        w = np.zeros(6)
+        w[:j] = n[:j] / n[:j].sum()
+        w[j] = -1.0
+        rows.append(w.tolist())
+    full = lc.levels("spray").weights(*rows)
+    ref_part = full.partition(f)
+    part = full.partition(fits[route])
+    assert part.labels == ref_part.labels
+    np.testing.assert_allclose(part.ss, ref_part.ss, rtol=1e-9)
+    np.testing.assert_allclose(part.p_value, ref_part.p_value, rtol=1e-8)
+    assert part.term_ss == pytest.approx(ref_part.term_ss, rel=1e-10)
+    assert part.term_df == ref_part.term_df
+
+
+@pytest.mark.parametrize("route", ["without_rows", "chunks", "combine", "dask"])
+def test_reports_on_rowless_weighted_fits_with_two_factors(tooth, route) -> None:
+    # ToothGrowth: dose as a factor beside supp, with invented precision weights; the sizes of
+    # a weighted fit are sums of weights per level
+    data = tooth[["len", "supp", "dose"]].copy()
+    data["dose"] = data["dose"].map({0.5: "low", 1.0: "mid", 2.0: "high"})
+    data["w"] = np.linspace(0.5, 2.0, len(data))
+    data = data.sample(frac=1.0, random_state=5).reset_index(drop=True)
+    formula = "len ~ C(dose, levels=['low', 'mid', 'high']) + supp"
+    fac = "C(dose, levels=['low', 'mid', 'high'])"
+    f = lc.fit(formula, data, weights="w")
+    fits = _rowless_routes(formula, data, weights="w")
+    contrasts = lc.levels(fac).trend(2, values=[0.5, 1.0, 2.0])
+    _assert_same_report(contrasts.orthogonality(fits[route]), contrasts.orthogonality(f))

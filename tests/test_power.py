@@ -761,3 +761,128 @@ def test_noncentrality_invariant_to_column_units(sc, factor):
     a = plan.noncentrality(effect=d + h, replicates=r)
     b = plan2.noncentrality(effect=d + h, replicates=r)
     assert b == pytest.approx(a, rel=1e-8)
+
+
+# ---------------------------------------------------------------------------------------------
+# contrasts on level means in a plan
+# ---------------------------------------------------------------------------------------------
+LEVEL_RECIPES = {
+    "pairwise": lambda m: m.pairwise(),
+    "versus": lambda m: m.versus("g2"),
+    "successive": lambda m: m.successive(),
+    "helmert": lambda m: m.helmert(),
+    "helmert_following": lambda m: m.helmert(following=True),
+    "trend": lambda m: m.trend(2, values=[0.0, 1.0, 3.0]),
+    "equal": lambda m: m.equal(),
+}
+
+
+@pytest.mark.parametrize("recipe", sorted(LEVEL_RECIPES))
+def test_every_full_set_of_level_contrasts_has_the_anova_power(recipe):
+    # every recipe above spans all contrasts among 3 level means, so its F test is the one-way
+    # ANOVA F test: λ = n·Σ(μ_a − μ̄)²/σ² (closed form, common practice), and statsmodels'
+    # FTestAnovaPower (effect size f = sd(μ)/σ with divisor k) is the numerical reference.
+    k, n, sigma = 3, 12, 2.0
+    mu = np.array([0.0, 0.8, 1.9])
+    plan = lc.power_plan(one_way(k), LEVEL_RECIPES[recipe](lc.levels("C(g)")), sigma=sigma)
+    beta = {"C(g)[T.g1]": mu[1] - mu[0], "C(g)[T.g2]": mu[2] - mu[0]}
+    res = plan.power(beta=beta, replicates=n)
+    assert res.df_num == k - 1
+    assert res.noncentrality == pytest.approx(n * np.sum((mu - mu.mean()) ** 2) / sigma**2)
+    from statsmodels.stats.power import FTestAnovaPower
+
+    f = np.sqrt(np.mean((mu - mu.mean()) ** 2)) / sigma
+    ref = FTestAnovaPower().power(effect_size=f, nobs=k * n, alpha=ALPHA, k_groups=k)
+    assert res.power == pytest.approx(ref, abs=1e-9)
+
+
+def test_level_contrasts_in_a_plan_equal_the_rows_written_by_hand():
+    # C(g) with treatment coding: μ_a = Intercept + C(g)[T.a] (μ_g0 = Intercept), so each
+    # recipe's rows can be written with coef(); the two plans must agree to rounding.
+    b1, b2 = lc.coef("C(g)[T.g1]"), lc.coef("C(g)[T.g2]")
+    by_hand = {
+        "successive": (b1 == 0) & (b2 - b1 == 0),
+        "versus": (-b2 == 0) & (b1 - b2 == 0),
+    }
+    design = one_way(3)
+    beta = {"Intercept": 1.0, "C(g)[T.g1]": 0.4, "C(g)[T.g2]": -0.7}
+    for name, rows in by_hand.items():
+        ours = lc.power_plan(design, LEVEL_RECIPES[name](lc.levels("C(g)")), sigma=1.5)
+        hand = lc.power_plan(design, rows, sigma=1.5)
+        np.testing.assert_allclose(ours.matrix.to_numpy(), hand.matrix.to_numpy(), atol=1e-14)
+        a, b = ours.power(beta=beta, replicates=7), hand.power(beta=beta, replicates=7)
+        assert a.noncentrality == pytest.approx(b.noncentrality, rel=1e-12)
+        assert a.power == pytest.approx(b.power, rel=1e-12)
+
+
+def test_one_weighted_contrast_matches_the_noncentral_t():
+    # a single contrast Σ w_a μ_a: two-sided t test with k·n − k df and noncentrality
+    # δ = Σ w_a μ_a / (σ·sqrt(Σ w_a² / n)) (closed form); power from scipy's noncentral t,
+    # a different distribution function from the noncentral F the plan uses.
+    k, n, sigma = 4, 9, 1.3
+    w = np.array([1.0, 1.0, -1.0, -1.0]) / 2
+    mu = np.array([0.0, 0.5, -0.4, 0.3])
+    pattern = pd.DataFrame({"g": [f"g{i}" for i in range(k)]})
+    design = lc.planned_design("C(g)", pattern)
+    plan = lc.power_plan(design, lc.levels("C(g)").weights(w.tolist()), sigma=sigma)
+    res = plan.power(effect=float(w @ mu), replicates=n)
+    df = k * n - k
+    delta = float(w @ mu) / (sigma * np.sqrt(np.sum(w**2) / n))
+    tc = stats.t.isf(ALPHA / 2, df)
+    ref = stats.nct.sf(tc, df, delta) + stats.nct.cdf(-tc, df, delta)
+    assert res.noncentrality == pytest.approx(delta**2, rel=1e-12)
+    assert res.power == pytest.approx(ref, abs=1e-9)
+
+
+def test_level_contrasts_at_a_covariate_value_in_a_plan():
+    # with an interaction the level difference at x = x0 is C(g)[T.b] + x0·C(g)[T.b]:x
+    # (treatment coding), written by hand with coef()
+    pattern = pd.DataFrame({"g": ["a", "b"] * 3, "x": [0.0, 0.0, 1.0, 1.0, 2.0, 2.0]})
+    design = lc.planned_design("C(g) * x", pattern)
+    ours = lc.power_plan(design, lc.levels("C(g)").pairwise().at(x=1.5), sigma=1.0)
+    hand = lc.power_plan(
+        design, lc.coef("C(g)[T.b]") + 1.5 * lc.coef("C(g)[T.b]:x") == 0, sigma=1.0
+    )
+    a, b = ours.power(effect=0.8, replicates=5), hand.power(effect=0.8, replicates=5)
+    assert a.noncentrality == pytest.approx(b.noncentrality, rel=1e-12)
+
+
+def test_level_contrasts_on_an_array_design_name_the_fix():
+    design = lc.planned_design(np.eye(3), names=["a", "b", "c"])
+    with pytest.raises(LincombError, match="made from a formula"):
+        lc.power_plan(design, lc.levels("g").pairwise(), sigma=1.0)
+
+
+# ---------------------------------------------------------------------------------------------
+# huge effects: power saturates at 1
+# ---------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("effect", [1e10, 1e12, 1e100, 1e200, 1e300])
+def test_huge_effect_has_power_one_and_needs_the_smallest_design(effect):
+    # closed form: with X ~ χ²(q, λ) and Y ~ χ²(df2), P(F ≤ c) ≤ Φ(−(1 − 1/√2)√λ) +
+    # P(Y ≥ λ·df2/(2qc)) → 0 as λ → ∞, so power → 1 (scipy's ncf returns NaN for λ ≳ 1e20,
+    # and λ itself overflows to inf for the largest effects).
+    import warnings
+
+    plan = lc.power_plan(one_way(3), lc.term("C(g)") == 0, sigma=1.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        res = plan.power(effect=effect, replicates=2)
+        need = plan.replicates_for(0.99, effect=effect)
+        curve = plan.curve(effect=effect, replicates=[2, 3])
+    assert res.power == 1.0
+    assert res.noncentrality > 1e19
+    assert need.replicates == plan.design.min_replicates()
+    assert need.power == 1.0
+    assert curve.power.tolist() == [1.0, 1.0]
+
+
+def test_power_is_monotone_across_the_saturation_switch():
+    # powers on a grid of λ through the range where scipy's ncf fails stay in [alpha, 1],
+    # never decrease, and are 1 past it (the limit, closed form above)
+    from lincomb._core import noncentral
+
+    lam = np.logspace(0, 40, 81)
+    p = noncentral.power(lam, 3, 5.0, ALPHA)
+    assert np.all(np.isfinite(p))
+    assert np.all(np.diff(p) >= -1e-15)
+    assert np.all(p[lam >= 1e20] == 1.0)

@@ -42,35 +42,32 @@ from __future__ import annotations
 
 import itertools
 import re
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._builder.restriction import RestrictionSystem, _fmt_num, _is_number, _Item, as_system
-from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
     LincombError,
-    NotOrthogonalError,
     UnknownCoefficientError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
+    from lincomb._results.contrast_reports import OrthogonalityReport, SumOfSquaresPartition
 
 __all__ = [
     "ZERO_SUM_TOL",
-    "ORTHOGONAL_TOL",
     "levels",
     "LevelMeans",
     "LevelContrasts",
-    "OrthogonalityReport",
-    "SumOfSquaresPartition",
+    "register_report",
     "ModelResolver",
     "orthogonal_polynomials",
 ]
@@ -79,9 +76,6 @@ Array = NDArray[np.float64]
 
 #: Weights count as summing to zero when ``|Σ w| <= ZERO_SUM_TOL · Σ |w|``.
 ZERO_SUM_TOL: float = 1e-10
-#: Two contrasts count as orthogonal when the cosine of their angle (in the metric of the check)
-#: is at most this in absolute value.
-ORTHOGONAL_TOL: float = 1e-8
 
 _DEGREE_NAMES = {1: "linear", 2: "quadratic", 3: "cubic", 4: "quartic", 5: "quintic"}
 
@@ -163,9 +157,42 @@ class ModelResolver:
 
 
 # ---------------------------------------------------------------------------------------------
+# reports that need a fit
+# ---------------------------------------------------------------------------------------------
+#: The contrast reports (orthogonality, partition) compute on a fit, so they live beside the
+#: results (:mod:`lincomb._results.contrast_reports`) and register themselves here when
+#: ``lincomb`` is imported; this builder module imports nothing that computes on a fit.
+_REPORTS: dict[str, Callable[..., object]] = {}
+
+
+def register_report(name: str, func: Callable[..., object]) -> None:
+    """Register the function behind :meth:`LevelContrasts.orthogonality` or ``.partition``.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> from lincomb._results import contrast_reports
+    >>> register_report("partition", contrast_reports.partition)  # what importing lincomb does
+    """
+    if name not in ("orthogonality", "partition"):
+        raise ValueError(f"unknown contrast report {name!r}; 'orthogonality' or 'partition'.")
+    _REPORTS[name] = func
+
+
+def _report(name: str) -> Callable[..., object]:
+    func = _REPORTS.get(name)
+    if func is None:  # pragma: no cover - importing lincomb registers both
+        raise ContrastError(
+            f"the contrast report {name!r} is not available: import lincomb (which loads"
+            " lincomb._results.contrast_reports) before asking for it."
+        )
+    return func
+
+
+# ---------------------------------------------------------------------------------------------
 # orthogonal polynomials
 # ---------------------------------------------------------------------------------------------
-def orthogonal_polynomials(values: Sequence[float], degree: int | None = None) -> Array:
+def orthogonal_polynomials(values: Sequence[float] | Array, degree: int | None = None) -> Array:
     """Orthonormal polynomial contrasts on levels placed at ``values``.
 
     Parameters
@@ -548,13 +575,13 @@ def _build(recipe: _Recipe, fac: _Factor) -> tuple[Array, list[str]]:
         elif isinstance(values, Mapping):
             pos = np.full(k, np.nan)
             for key, val in values.items():
-                j = _level_index(key, fac.levels)
-                if j is None:
+                at = _level_index(key, fac.levels)
+                if at is None:
                     raise UnknownCoefficientError(
                         f"trend value given for {key!r}, which is not a level of {name!r};"
                         f" levels: {list(labs)}."
                     )
-                pos[j] = float(val)
+                pos[at] = float(val)
             if np.isnan(pos).any():
                 lacking = [labs[j] for j in np.flatnonzero(np.isnan(pos))]
                 raise ContrastWeightsError(f"trend values are missing for levels {lacking}.")
@@ -675,7 +702,7 @@ class LevelContrasts(_Item):
             return NotImplemented
         return replace(self, target=float(other))  # type: ignore[arg-type]
 
-    def __ne__(self, other: object) -> bool:  # type: ignore[override]
+    def __ne__(self, other: object) -> bool:
         raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
@@ -788,33 +815,7 @@ class LevelContrasts(_Item):
         >>> rep.equal_n, rep.complete
         (True, True)
         """
-        fac, w, labels = self._weights(ModelResolver.of(fit))
-        zero_sum = np.abs(w.sum(axis=1)) <= ZERO_SUM_TOL * np.abs(w).sum(axis=1)
-        k = len(fac.levels)
-        complete = bool(
-            zero_sum.all() and w.shape[0] == k - 1 and np.linalg.matrix_rank(w) == k - 1
-        )
-        cos_eq = _cosines(w @ w.T)
-        n = _given_sizes(sizes, fac) if sizes is not None else _fit_sizes(fit, fac)
-        sized = None if n is None else _cosines((w / n) @ w.T)
-        classical = fit.wald(replace(self, target=0.0), covariance="classical")
-        corr = _cosines(classical.estimate_covariance)
-        frame = _label_index(labels)
-        return OrthogonalityReport(
-            labels=tuple(labels),
-            weights=pd.DataFrame(w, index=frame, columns=list(fac.labels)),
-            cosine_equal_n=pd.DataFrame(cos_eq, index=frame, columns=labels),
-            cosine_sized=None
-            if sized is None
-            else pd.DataFrame(sized, index=frame, columns=labels),
-            correlation_fit=pd.DataFrame(corr, index=frame, columns=labels),
-            equal_n=_offdiag_ok(cos_eq),
-            sized=None if sized is None else _offdiag_ok(sized),
-            in_fit=_offdiag_ok(corr),
-            complete=complete,
-            sizes=None if n is None else pd.Series(n, index=list(fac.labels), name="size"),
-            tol=ORTHOGONAL_TOL,
-        )
+        return cast("OrthogonalityReport", _report("orthogonality")(self, fit, sizes))
 
     def partition(self, fit: LinearFit) -> SumOfSquaresPartition:
         """Split the sum of squares of "all means equal" into one component per contrast.
@@ -838,95 +839,7 @@ class LevelContrasts(_Item):
         >>> bool(np.isclose(part.ss.sum(), part.term_ss))
         True
         """
-        rep = self.orthogonality(fit)
-        if self.target != 0:
-            raise NotOrthogonalError(
-                f"a partition of sums of squares needs target 0, not {self.target:g}."
-            )
-        if not rep.complete:
-            k = rep.weights.shape[1]
-            raise NotOrthogonalError(
-                f"{rep.weights.shape[0]} rows do not form a full set of {k - 1} contrasts among"
-                f" the {k} levels of {self.factor!r}; use .helmert(), .trend() or weights of"
-                f" rank {k - 1} that sum to zero."
-            )
-        if not rep.in_fit:
-            corr = rep.correlation_fit.to_numpy().copy()
-            np.fill_diagonal(corr, 0.0)
-            i, j = np.unravel_index(int(np.argmax(np.abs(corr))), corr.shape)
-            raise NotOrthogonalError(
-                f"the estimates of {rep.labels[i]!r} and {rep.labels[j]!r} are correlated"
-                f" ({corr[i, j]:.3g}) under this fit's group sizes, so their sums of squares do"
-                " not add up. Use weights orthogonal for these sizes, or report the joint test."
-            )
-        res = fit.wald(self, covariance="classical")
-        joint = fit.wald(replace(self, recipe=_Recipe("equal")), covariance="classical")
-        sigma2 = fit.sigma**2
-        ss = sigma2 * res.t**2
-        return SumOfSquaresPartition(
-            labels=res.labels,
-            estimate=res.estimate.copy(),
-            ss=ss,
-            statistic=res.t**2,
-            p_value=res.row_p_value,
-            term_ss=float(joint.statistic * joint.df_num * sigma2),
-            term_df=joint.df_num,
-            df_resid=float(res.df_den),
-            sigma2=float(sigma2),
-        )
-
-
-def _given_sizes(sizes: Mapping[Any, float] | Sequence[float], fac: _Factor) -> Array:
-    k = len(fac.levels)
-    if isinstance(sizes, Mapping):
-        n = np.full(k, np.nan)
-        for key, val in sizes.items():
-            j = _level_index(key, fac.levels)
-            if j is None:
-                raise UnknownCoefficientError(
-                    f"sizes names {key!r}, not a level of {fac.name!r}; levels: {list(fac.labels)}."
-                )
-            n[j] = float(val)
-    else:
-        n = np.array(sizes, dtype=np.float64).reshape(-1)
-    if n.size != k or not np.all(np.isfinite(n)) or np.any(n <= 0):
-        raise ContrastWeightsError(
-            f"sizes must give a positive size for each of the {k} levels {list(fac.labels)};"
-            f" got {n.tolist()}."
-        )
-    return n
-
-
-def _fit_sizes(fit: LinearFit, fac: _Factor) -> Array | None:
-    """Rows (or sums of weights) at each level in the fit's data; None if rows were not kept."""
-    design = fit._design
-    source = getattr(design, "source", None)
-    if source is None or fac.variable not in getattr(source, "columns", ()):
-        return None
-    col = source[fac.variable].to_numpy()
-    w = design.weights if design.weights is not None else np.ones(col.shape[0])
-    n = np.zeros(len(fac.levels))
-    for value in pd.unique(col):
-        j = _level_index(value, fac.levels)
-        if j is not None:
-            n[j] += float(w[col == value].sum())
-    return n if np.all(n > 0) else None
-
-
-def _label_index(labels: Sequence[str]) -> pd.Index:
-    return pd.Index(list(labels), name="contrast")
-
-
-def _cosines(g: Array) -> Array:
-    d = np.sqrt(np.clip(np.diag(g), 0, None))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out = g / np.outer(d, d)
-    return out
-
-
-def _offdiag_ok(cos: Array) -> bool:
-    off = cos - np.diag(np.diag(cos))
-    return bool(np.all(np.abs(off) <= ORTHOGONAL_TOL))
+        return cast("SumOfSquaresPartition", _report("partition")(self, fit))
 
 
 class LevelMeans:
@@ -1176,167 +1089,3 @@ def levels(factor: str, order: Sequence[Any] | None = None) -> LevelMeans:
     ('C(nitrogen) trend: linear', 'C(nitrogen) trend: quadratic')
     """
     return LevelMeans(factor, order)
-
-
-# ---------------------------------------------------------------------------------------------
-# results
-# ---------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class OrthogonalityReport:
-    """Whether a set of contrasts is orthogonal, under three metrics, and whether it is full.
-
-    Attributes
-    ----------
-    labels : tuple of str
-    weights : pandas.DataFrame
-        Weights on the level means (rows: contrasts, columns: levels).
-    cosine_equal_n : pandas.DataFrame
-        Cosines ``Σ w v / (‖w‖‖v‖)`` (orthogonality with equal group sizes).
-    cosine_sized : pandas.DataFrame or None
-        Cosines in the metric ``Σ w v / n`` for the group sizes ``sizes``.
-    correlation_fit : pandas.DataFrame
-        Correlations of the estimates under the fit.
-    equal_n, in_fit : bool
-        All off-diagonal entries within :data:`ORTHOGONAL_TOL` of zero.
-    sized : bool or None
-    complete : bool
-        ``k - 1`` zero-sum rows of rank ``k - 1``: a full set of contrasts.
-    sizes : pandas.Series or None
-        Group sizes used for ``sized`` (given, or counted in the fit's data).
-    tol : float
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> rep = lc.levels("line").successive().orthogonality(f)
-    >>> rep.equal_n, rep.complete
-    (False, True)
-    """
-
-    labels: tuple[str, ...]
-    weights: pd.DataFrame
-    cosine_equal_n: pd.DataFrame
-    cosine_sized: pd.DataFrame | None
-    correlation_fit: pd.DataFrame
-    equal_n: bool
-    sized: bool | None
-    in_fit: bool
-    complete: bool
-    sizes: pd.Series | None = None
-    tol: float = ORTHOGONAL_TOL
-
-    def _text(self) -> str:
-        sized = "not checked" if self.sized is None else str(self.sized)
-        return (
-            f"Orthogonality of {len(self.labels)} contrasts (tolerance {self.tol:g}): equal sizes"
-            f" {self.equal_n}; group sizes {sized}; under the fit {self.in_fit};"
-            f" full set {self.complete}"
-        )
-
-    def __repr__(self) -> str:
-        return self._text()
-
-    def _repr_html_(self) -> str:
-        import html
-
-        return f"<p class='lincomb-orthogonality'>{html.escape(self._text())}</p>"
-
-
-#: Columns of :meth:`SumOfSquaresPartition.to_frame`.
-PARTITION_COLUMNS = ("contrast", "estimate", "ss", "df", "share", "f", "p_value")
-
-
-@dataclass(frozen=True)
-class SumOfSquaresPartition:
-    """Single-df sums of squares of an orthogonal full set of contrasts.
-
-    Attributes
-    ----------
-    labels : tuple of str
-    estimate : (k-1,) ndarray
-    ss : (k-1,) ndarray
-        ``σ² t_i²``, the sum of squares of each contrast.
-    statistic : (k-1,) ndarray
-        ``F = t²`` with 1 and ``df_resid`` degrees of freedom.
-    p_value : (k-1,) ndarray
-    term_ss : float
-        Sum of squares of "all level means equal" (equals ``ss.sum()`` up to rounding).
-    term_df : int
-    df_resid : float
-    sigma2 : float
-        Residual mean square of the fit.
-
-    Examples
-    --------
-    >>> import numpy as np, lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> part = lc.levels("line").helmert().partition(f)
-    >>> part.term_df, bool(np.isclose(part.ss.sum(), part.term_ss))
-    (3, True)
-    """
-
-    labels: tuple[str, ...]
-    estimate: Array
-    ss: Array
-    statistic: Array
-    p_value: Array
-    term_ss: float
-    term_df: int
-    df_resid: float
-    sigma2: float
-
-    def to_frame(self) -> pd.DataFrame:
-        """One row per contrast.
-
-        Columns: ``contrast``, ``estimate``, ``ss`` (single-df sum of squares), ``df`` (1),
-        ``share`` (``ss / term_ss``), ``f`` (``ss / σ²``), ``p_value``.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> frame = lc.levels("line").helmert().partition(f).to_frame()
-        >>> float(frame["share"].sum().round(10))
-        1.0
-        """
-        return pd.DataFrame(
-            {
-                "contrast": list(self.labels),
-                "estimate": self.estimate,
-                "ss": self.ss,
-                "df": 1,
-                "share": self.ss / self.term_ss,
-                "f": self.statistic,
-                "p_value": self.p_value,
-            }
-        )
-
-    def _parts(self) -> tuple[str, list[list[str]]]:
-        head = (
-            f"Partition of the sum of squares of 'all means equal' ({self.term_ss:.6g} on"
-            f" {self.term_df} df; components add to {float(self.ss.sum()):.6g});"
-            f" residual mean square {self.sigma2:.6g} on {self.df_resid:g} df"
-        )
-        rows = [
-            [lab, _num(e), _num(s), f"{s / self.term_ss:.3f}", _num(f), _p(p)]
-            for lab, e, s, f, p in zip(
-                self.labels, self.estimate, self.ss, self.statistic, self.p_value, strict=True
-            )
-        ]
-        return head, rows
-
-    _HEADER = ("contrast", "estimate", "SS", "share", "F", "p")
-
-    def __repr__(self) -> str:
-        head, rows = self._parts()
-        return f"{head}\n{_table_text(list(self._HEADER), rows)}"
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, rows = self._parts()
-        return (
-            f"<div class='lincomb-partition'><p><b>{html.escape(head)}</b></p>"
-            f"{_table_html(list(self._HEADER), rows)}</div>"
-        )

@@ -1,0 +1,555 @@
+"""Result objects of a power plan: power, replicates needed, detectable effects, power curves.
+
+Frozen dataclasses with tidy ``to_frame`` exports and text and HTML reprs; drawing is
+:func:`lincomb.plot.power_curve`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from lincomb._results.format import _num, _table_html, _table_text
+
+if TYPE_CHECKING:  # pragma: no cover
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
+__all__ = [
+    "PowerResult",
+    "SampleSize",
+    "DetectableEffect",
+    "PowerCurve",
+    "POWER_COLUMNS",
+    "CURVE_COLUMNS",
+]
+
+#: Columns of :meth:`PowerResult.to_frame` (one row per planned study).
+POWER_COLUMNS = (
+    "restrictions",
+    "rank",
+    "replicates",
+    "n_obs",
+    "df_num",
+    "df_den",
+    "sigma",
+    "alpha",
+    "noncentrality",
+    "critical_value",
+    "power",
+)
+#: Columns of :meth:`PowerCurve.to_frame` (one row per replicate count).
+CURVE_COLUMNS = (
+    "replicates",
+    "n_obs",
+    "df_num",
+    "df_den",
+    "noncentrality",
+    "critical_value",
+    "power",
+)
+
+
+def _effect_rows(
+    labels: Sequence[str],
+    target: NDArray[np.float64],
+    alternative: NDArray[np.float64],
+    shift: NDArray[np.float64],
+    redundant: Mapping[int, Any],
+) -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "restriction": list(labels),
+            "target": target,
+            "alternative": alternative,
+            "shift": shift,
+            "role": ["redundant" if i in redundant else "independent" for i in range(len(labels))],
+        }
+    )
+
+
+def _study_line(res: Any) -> str:
+    """The study line of a result with ``replicates, n_obs, df_num, df_den, noncentrality,
+    alpha, sigma`` (a :class:`PowerResult` or :class:`DetectableEffect`)."""
+    return (
+        f"n = {res.n_obs} ({res.replicates} replicate(s)); F({res.df_num}, {res.df_den}) at"
+        f" alpha = {res.alpha:g}, sigma = {res.sigma:.6g}; noncentrality = {res.noncentrality:.6g}"
+    )
+
+
+_ROW_HEADER = ["restriction", "d", "alternative Cβ", "shift"]
+
+
+def _rows_table(frame: pd.DataFrame) -> list[list[str]]:
+    out = []
+    for lab, role, t, a, s in zip(
+        frame["restriction"].astype(str),
+        frame["role"].astype(str),
+        frame["target"].to_numpy(dtype=np.float64),
+        frame["alternative"].to_numpy(dtype=np.float64),
+        frame["shift"].to_numpy(dtype=np.float64),
+        strict=True,
+    ):
+        mark = " (redundant)" if role == "redundant" else ""
+        out.append([lab + mark, _num(float(t)), _num(float(a)), _num(float(s))])
+    return out
+
+
+@dataclass(frozen=True)
+class PowerResult:
+    """Power of the F test of ``C·β = d`` under one alternative and study size.
+
+    Attributes
+    ----------
+    labels : tuple of str
+    target : (m,) ndarray
+        Hypothesized ``d``.
+    alternative : (m,) ndarray
+        ``Cβ`` under the alternative.
+    shift : (m,) ndarray
+        ``Cβ − d``.
+    df_num, df_den : int
+        Degrees of freedom of the F statistic.
+    noncentrality : float
+        ``λ`` (see :mod:`lincomb._plan.plan`).
+    critical_value : float
+        The ``1 − alpha`` quantile of the central ``F(df_num, df_den)``.
+    power : float
+        ``P(F > critical_value)`` under the alternative.
+    alpha, sigma : float
+    replicates, n_obs : int
+        Replicates of the pattern and the observations they make.
+    redundant : dict
+
+    Examples
+    --------
+    >>> import pandas as pd, lincomb as lc
+    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    >>> r = plan.power(effect=1.0, replicates=10)
+    >>> r.n_obs, r.df_den, round(r.power, 4)
+    (20, 18, 0.5620)
+    """
+
+    labels: tuple[str, ...]
+    target: NDArray[np.float64]
+    alternative: NDArray[np.float64]
+    shift: NDArray[np.float64]
+    df_num: int
+    df_den: int
+    noncentrality: float
+    critical_value: float
+    power: float
+    alpha: float
+    sigma: float
+    replicates: int
+    n_obs: int
+    redundant: dict[int, dict[int, float]] = field(default_factory=dict)
+
+    @property
+    def noncentrality_per_obs(self) -> float:
+        """``λ / n``: the effect size ``f²`` of the convention ``λ = f²·N``."""
+        return self.noncentrality / self.n_obs
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row: the columns of :data:`POWER_COLUMNS`.
+
+        ``restrictions`` (the system as algebra), ``rank`` and ``df_num`` (rank of ``C``),
+        ``replicates``, ``n_obs``, ``df_den``, ``sigma``, ``alpha``, ``noncentrality``,
+        ``critical_value`` (of the central F) and ``power``.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> plan.power(effect=1.0, replicates=10).to_frame()[["n_obs", "noncentrality"]]
+           n_obs  noncentrality
+        0     20            5.0
+        """
+        return pd.DataFrame(
+            [
+                {
+                    "restrictions": " & ".join(self.labels),
+                    "rank": self.df_num,
+                    "replicates": self.replicates,
+                    "n_obs": self.n_obs,
+                    "df_num": self.df_num,
+                    "df_den": self.df_den,
+                    "sigma": self.sigma,
+                    "alpha": self.alpha,
+                    "noncentrality": self.noncentrality,
+                    "critical_value": self.critical_value,
+                    "power": self.power,
+                }
+            ],
+            columns=list(POWER_COLUMNS),
+        )
+
+    def effect_frame(self) -> pd.DataFrame:
+        """One row per restriction row: ``restriction, target, alternative, shift, role``.
+
+        ``target`` is ``d``, ``alternative`` is ``Cβ`` under the alternative, ``shift`` their
+        difference; ``role`` is ``"independent"`` or ``"redundant"``.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> plan.power(effect=1.0, replicates=10).effect_frame().values.tolist()
+        [['g[T.b] = 0', 0.0, 1.0, 1.0, 'independent']]
+        """
+        return _effect_rows(self.labels, self.target, self.alternative, self.shift, self.redundant)
+
+    def _head(self) -> str:
+        return (
+            f"Power {self.power:.4f} of the F test of {len(self.labels)} restriction row(s),"
+            f" rank {self.df_num}\n" + _study_line(self)
+        )
+
+    def __repr__(self) -> str:
+        return f"{self._head()}\n{_table_text(_ROW_HEADER, _rows_table(self.effect_frame()))}"
+
+    def _repr_html_(self) -> str:
+        import html
+
+        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        table = _table_html(_ROW_HEADER, _rows_table(self.effect_frame()))
+        return f"<div class='lincomb-power'><p><b>{head}</b></p>{table}</div>"
+
+
+@dataclass(frozen=True)
+class SampleSize:
+    """The fewest replicates of the planned pattern whose test reaches a target power.
+
+    Attributes
+    ----------
+    target_power : float
+    replicates : int
+        Smallest replicate count with power ``>= target_power``.
+    n_obs : int
+        Observations at that count.
+    power : float
+        Power reached there.
+    previous_power : float
+        Power with one replicate fewer (NaN if that leaves no residual degrees of freedom).
+    result : PowerResult
+        The full power calculation at ``replicates``.
+
+    Examples
+    --------
+    >>> import pandas as pd, lincomb as lc
+    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    >>> need = plan.replicates_for(0.8, effect=1.0)
+    >>> need.replicates, bool(need.power >= 0.8 > need.previous_power)
+    (17, True)
+    """
+
+    target_power: float
+    replicates: int
+    n_obs: int
+    power: float
+    previous_power: float
+    result: PowerResult = field(repr=False)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row: ``target_power, replicates, n_obs, df_num, df_den, noncentrality, power,
+        previous_power, alpha, sigma``.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> plan.replicates_for(0.8, effect=1.0).to_frame()[["replicates", "n_obs"]]
+           replicates  n_obs
+        0          17     34
+        """
+        r = self.result
+        return pd.DataFrame(
+            [
+                {
+                    "target_power": self.target_power,
+                    "replicates": self.replicates,
+                    "n_obs": self.n_obs,
+                    "df_num": r.df_num,
+                    "df_den": r.df_den,
+                    "noncentrality": r.noncentrality,
+                    "power": self.power,
+                    "previous_power": self.previous_power,
+                    "alpha": r.alpha,
+                    "sigma": r.sigma,
+                }
+            ]
+        )
+
+    def _head(self) -> str:
+        prev = (
+            f"; {self.replicates - 1} give {self.previous_power:.4f}"
+            if np.isfinite(self.previous_power)
+            else ""
+        )
+        return (
+            f"{self.replicates} replicate(s) (n = {self.n_obs}) reach power {self.power:.4f}"
+            f" >= {self.target_power:g}{prev}\n" + _study_line(self.result)
+        )
+
+    def __repr__(self) -> str:
+        return self._head()
+
+    def _repr_html_(self) -> str:
+        import html
+
+        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        return f"<div class='lincomb-power'><p><b>{head}</b></p></div>"
+
+
+@dataclass(frozen=True)
+class DetectableEffect:
+    """The smallest multiple of a direction detected with a target power.
+
+    Attributes
+    ----------
+    labels : tuple of str
+    target_power : float
+    scale : float
+        ``s``: the alternative is ``Cβ = d + s·direction``.
+    direction : (m,) ndarray
+        ``h`` in units of ``Cβ``.
+    target : (m,) ndarray
+        ``d``.
+    shift : (m,) ndarray
+        ``s·h``.
+    alternative : (m,) ndarray
+        ``d + s·h``.
+    df_num, df_den : int
+    noncentrality : float
+        ``λ`` at which the power equals the target.
+    power : float
+        Power at the detectable effect (the target, to the solver's tolerance).
+    alpha, sigma : float
+    replicates, n_obs : int
+    beta_shift : pandas.Series or None
+        ``s·b`` by coefficient, when the direction was given in coefficients.
+
+    Examples
+    --------
+    >>> import pandas as pd, lincomb as lc
+    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    >>> round(plan.detectable_effect(0.8, replicates=10).scale, 4)
+    1.3249
+    """
+
+    labels: tuple[str, ...]
+    target_power: float
+    scale: float
+    direction: NDArray[np.float64]
+    target: NDArray[np.float64]
+    shift: NDArray[np.float64]
+    alternative: NDArray[np.float64]
+    df_num: int
+    df_den: int
+    noncentrality: float
+    power: float
+    alpha: float
+    sigma: float
+    replicates: int
+    n_obs: int
+    beta_shift: pd.Series | None = field(default=None, repr=False)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per restriction row: ``restriction, target, direction, shift, alternative``.
+
+        ``target`` is ``d``, ``direction`` is ``h``, ``shift`` is ``scale·h`` and
+        ``alternative`` is ``d + scale·h``: the value of ``Cβ`` the study detects.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> plan.detectable_effect(0.8, replicates=10).to_frame().round(4).values.tolist()
+        [['g[T.b] = 0', 0.0, 1.0, 1.3249, 1.3249]]
+        """
+        return pd.DataFrame(
+            {
+                "restriction": list(self.labels),
+                "target": self.target,
+                "direction": self.direction,
+                "shift": self.shift,
+                "alternative": self.alternative,
+            }
+        )
+
+    def _head(self) -> str:
+        return (
+            f"Detectable with power {self.target_power:g}: scale {self.scale:.6g} along the"
+            f" direction {np.round(self.direction, 6).tolist()}\n" + _study_line(self)
+        )
+
+    def __repr__(self) -> str:
+        rows = [
+            [lab, _num(t), _num(a), _num(s)]
+            for lab, t, a, s in zip(
+                self.labels, self.target, self.alternative, self.shift, strict=True
+            )
+        ]
+        return f"{self._head()}\n{_table_text(_ROW_HEADER, rows)}"
+
+    def _repr_html_(self) -> str:
+        import html
+
+        rows = [
+            [lab, _num(t), _num(a), _num(s)]
+            for lab, t, a, s in zip(
+                self.labels, self.target, self.alternative, self.shift, strict=True
+            )
+        ]
+        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        return (
+            f"<div class='lincomb-power'><p><b>{head}</b></p>{_table_html(_ROW_HEADER, rows)}</div>"
+        )
+
+
+@dataclass(frozen=True)
+class PowerCurve:
+    """Power of the F test against the number of replicates of the planned pattern.
+
+    Attributes
+    ----------
+    labels : tuple of str
+    shift : (m,) ndarray
+        ``Cβ − d`` under the alternative.
+    alpha, sigma : float
+    df_num : int
+    replicates, n_obs, df_den : (k,) ndarray of int
+    noncentrality, critical_value, power : (k,) ndarray
+    target_power : float or None
+        A target power recorded for display.
+
+    Examples
+    --------
+    >>> import pandas as pd, lincomb as lc
+    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    >>> cv = plan.curve(effect=1.0, replicates=[5, 10, 20], target=0.8)
+    >>> cv.n_obs.tolist(), bool((cv.power[1:] > cv.power[:-1]).all())
+    ([10, 20, 40], True)
+    """
+
+    labels: tuple[str, ...]
+    shift: NDArray[np.float64]
+    alpha: float
+    sigma: float
+    df_num: int
+    replicates: NDArray[np.int64]
+    n_obs: NDArray[np.int64]
+    df_den: NDArray[np.int64]
+    noncentrality: NDArray[np.float64]
+    critical_value: NDArray[np.float64]
+    power: NDArray[np.float64]
+    target_power: float | None = None
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per replicate count: the columns of :data:`CURVE_COLUMNS`.
+
+        ``replicates``, ``n_obs`` (observations), ``df_num``, ``df_den``, ``noncentrality``
+        (``λ``), ``critical_value`` (of the central F at ``alpha``) and ``power``.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> plan.curve(effect=1.0, replicates=[2, 5]).to_frame()[["n_obs", "df_den"]]
+           n_obs  df_den
+        0      4       2
+        1     10       8
+        """
+        return pd.DataFrame(
+            {
+                "replicates": self.replicates,
+                "n_obs": self.n_obs,
+                "df_num": self.df_num,
+                "df_den": self.df_den,
+                "noncentrality": self.noncentrality,
+                "critical_value": self.critical_value,
+                "power": self.power,
+            },
+            columns=list(CURVE_COLUMNS),
+        )
+
+    def plot(self, ax: Axes | None = None) -> Figure:
+        """Draw power against the number of observations (needs matplotlib).
+
+        Parameters
+        ----------
+        ax : matplotlib.axes.Axes, optional
+            Axes to draw into; by default a new figure (not tracked by pyplot) is made.
+
+        Returns
+        -------
+        matplotlib.figure.Figure
+
+        Raises
+        ------
+        OptionalDependencyError
+            matplotlib is not installed.
+
+        Notes
+        -----
+        Artists carry a ``gid`` for inspection: ``"power"`` (the curve), ``"alpha"`` (the
+        level, which is the power at no effect) and ``"target"`` (when a target was given).
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
+        >>> cv = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).curve(effect=1.0)
+        >>> fig = cv.plot()
+        >>> fig.axes[0].get_xlabel()
+        'observations (n)'
+        """
+        from lincomb.plot import power_curve
+
+        return power_curve(self, ax=ax)
+
+    def _head(self) -> str:
+        return (
+            f"Power curve of the F test of {len(self.labels)} restriction row(s), rank"
+            f" {self.df_num}; alpha = {self.alpha:g}, sigma = {self.sigma:.6g}"
+        )
+
+    def _rows(self) -> list[list[str]]:
+        return [
+            [str(r), str(n), str(d), _num(lam), f"{p:.4f}"]
+            for r, n, d, lam, p in zip(
+                self.replicates,
+                self.n_obs,
+                self.df_den,
+                self.noncentrality,
+                self.power,
+                strict=True,
+            )
+        ]
+
+    def __repr__(self) -> str:
+        header = ["replicates", "n", "df_den", "noncentrality", "power"]
+        return f"{self._head()}\n{_table_text(header, self._rows())}"
+
+    def _repr_html_(self) -> str:
+        import html
+
+        header = ["replicates", "n", "df_den", "noncentrality", "power"]
+        return (
+            f"<div class='lincomb-power'><p><b>{html.escape(self._head())}</b></p>"
+            f"{_table_html(header, self._rows())}</div>"
+        )
