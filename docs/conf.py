@@ -254,16 +254,18 @@ def _lincomb_object(target: str) -> tuple[str, str] | None:
         if len(hits) == 1:
             return ("public", hits[0])
     for modname in _PRIVATE_MODULES:
-        mod = importlib.import_module(modname)
-        if modname.split(".")[-1] == parts[-1] and len(parts) <= 2:
+        short = modname.split(".")[-1].lstrip("_")
+        if modname == ".".join(parts) or (len(parts) <= 3 and short == parts[-1].lstrip("_")):
             return ("private", modname)
-        obj: object = mod
-        for part in parts[-2:] if len(parts) >= 2 and hasattr(mod, parts[-2]) else parts[-1:]:
-            obj = getattr(obj, part, None)
-            if obj is None:
-                break
-        if obj is not None and obj is not mod:
-            return ("private", f"{modname}.{'.'.join(parts[-2:])}")
+    for modname in _PRIVATE_MODULES:
+        obj = getattr(importlib.import_module(modname), parts[0 if len(parts) == 1 else -2], None)
+        if obj is None or (len(parts) == 1 and inspect.ismodule(obj)):
+            continue
+        if len(parts) == 1:
+            return ("private", f"{modname}.{parts[0]}")
+        fields = getattr(obj, "__dataclass_fields__", {})
+        if hasattr(obj, parts[-1]) or parts[-1] in fields:
+            return ("private", f"{modname}.{parts[-2]}.{parts[-1]}")
     return None
 
 
@@ -284,7 +286,11 @@ _PUBLIC_NAMES: list[str] = []
 def collect_public_names(app, env) -> None:  # noqa: ANN001
     """The documented lincomb objects (known once every page has been read)."""
     _PUBLIC_NAMES[:] = [
-        name for name in env.get_domain("py").objects if name.startswith("lincomb.")
+        name
+        for name, entry in env.get_domain("py").objects.items()
+        if name.startswith("lincomb.")
+        and not entry.aliased  # the private home of a re-exported class
+        and not any(part.startswith("_") for part in name.split("."))
     ]
 
 
