@@ -226,8 +226,15 @@ def check_every_public_name_documented(app, exception) -> None:  # noqa: ANN001
     remote = []
     for page in out.rglob("*.html"):
         text = page.read_text(encoding="utf-8")
-        for marker in ('src="http', "src='http", 'href="http://fonts', 'href="https://fonts',
-                       "mathjax", "cdn.jsdelivr", "unpkg.com"):
+        for marker in (
+            'src="http',
+            "src='http",
+            'href="http://fonts',
+            'href="https://fonts',
+            "mathjax",
+            "cdn.jsdelivr",
+            "unpkg.com",
+        ):
             if marker in text:
                 remote.append(f"{page.relative_to(out)} ({marker})")
     if remote:
@@ -311,16 +318,14 @@ def resolve_lincomb_reference(app, env, node, contnode):  # noqa: ANN001, ANN201
         return contnode
     domain = env.get_domain("py")
     for role in ("obj", "meth", "attr", "func", "class", "mod", "data", "exc"):
-        ref = domain.resolve_xref(
-            env, node["refdoc"], app.builder, role, name, node, contnode
-        )
+        ref = domain.resolve_xref(env, node["refdoc"], app.builder, role, name, node, contnode)
         if ref is not None:
             return ref
     return None
 
 
 def drop_private_bases(app, name, obj, options, bases) -> None:  # noqa: ANN001
-    """"Bases:" lines name only public classes (a private base has no page)."""
+    """The "Bases:" line names only public classes (a private base has no page)."""
     bases[:] = [b for b in bases if not b.__name__.startswith("_")]
 
 
