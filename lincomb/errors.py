@@ -413,7 +413,7 @@ class NotOrthogonalError(ContrastError):
 
 
 class IntegrationAccuracyWarning(LincombWarning, RuntimeWarning):
-    """A numerical integration (the max-|t| distribution) stopped before reaching the requested
+    """A numerical integration (the ``max-|t|`` distribution) stopped before reaching the requested
     tolerance; the reported standard error says how far it got.
 
     Examples

@@ -686,8 +686,8 @@ class ManyFit:
         -----
         The restriction is resolved, checked and mapped once per group of responses sharing
         rows; ``V = R⁻ᵀ C_keptᵀ`` is shared by the group, so each response costs a product
-        with its coefficients and one triangular solve (:func:`lincomb.linalg.
-        wald_quadratic_forms`), vectorized over responses.
+        with its coefficients and one triangular solve
+        (:func:`lincomb.linalg.wald_quadratic_forms`), vectorized over responses.
 
         Examples
         --------

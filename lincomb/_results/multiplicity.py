@@ -278,7 +278,7 @@ class MultipleInference:
     dropped : tuple of str
         Rows removed from the family (``redundant="drop"``).
     integration : IntegrationReport or None
-        For the max-|t| method.
+        For the ``max-|t|`` method.
 
     Examples
     --------
