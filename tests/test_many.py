@@ -407,7 +407,7 @@ def test_vectorized_equals_single_fits(
 def test_factor_design_and_projection_identities(
     n: int, p: int, seed: int, weighted: bool, intercept: bool, fortran: bool
 ) -> None:
-    from lincomb import _core as linalg
+    from lincomb import _core as core
 
     rng = np.random.default_rng(seed)
     x = rng.normal(size=(n, p)) + 5
@@ -419,21 +419,21 @@ def test_factor_design_and_projection_identities(
     w = rng.uniform(0.2, 3, size=n) if weighted else None
     icol = 0 if intercept else None
     ys0, x0 = ys.copy(), x.copy()
-    f = linalg.factor_design(x, w, icol)
+    f = core.factor_design(x, w, icol)
     # the kept Q has orthonormal columns (QᵀQ = I)
     q = f._q
     np.testing.assert_allclose(q.T @ q, np.eye(q.shape[1]), atol=1e-12)
     block = f.project(ys)
-    sol = linalg.solve(f.moments)
-    theta, rss, _ = linalg.solve_responses(f.moments, sol, block)
+    sol = core.solve(f.moments)
+    theta, rss, _ = core.solve_responses(f.moments, sol, block)
     for j in range(3):
-        ref = linalg.moments_from_arrays(x, ys[:, j], w, icol)
+        ref = core.moments_from_arrays(x, ys[:, j], w, icol)
         got = f.response_moments(block, j)
         # same triangular factor up to row signs: RᵀR agree
         np.testing.assert_allclose(got.r.T @ got.r, ref.r.T @ ref.r, rtol=1e-9, atol=1e-9)
         np.testing.assert_allclose(got.center, ref.center, rtol=1e-12, atol=1e-12)
         np.testing.assert_allclose(got.raw_norm, ref.raw_norm, rtol=1e-12)
-        one = linalg.solve(ref)
+        one = core.solve(ref)
         np.testing.assert_allclose(theta[:, j], one.theta, rtol=1e-8, atol=1e-8)
         np.testing.assert_allclose(rss[j], one.rss, rtol=1e-8)
     # the inputs are not modified

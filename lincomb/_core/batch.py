@@ -99,14 +99,14 @@ class BatchCore:
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb import _core as linalg
+    >>> from lincomb import _core as core
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> sol = linalg.solve(linalg.moments_from_arrays(x, rng.normal(size=30), intercept=0))
+    >>> sol = core.solve(core.moments_from_arrays(x, rng.normal(size=30), intercept=0))
     >>> c = np.zeros((2, 1, 3))
     >>> c[0, 0, 1] = c[1, 0, 2] = 1.0
-    >>> core = wald_systems(sol, c, np.zeros((2, 1)), sol.root)
-    >>> core.estimate.shape, core.rank.tolist()
+    >>> out = wald_systems(sol, c, np.zeros((2, 1)), sol.root)
+    >>> out.estimate.shape, out.rank.tolist()
     ((2, 1), [1, 1])
     """
 
@@ -272,19 +272,19 @@ def wald_systems(
     Examples
     --------
     >>> import numpy as np
-    >>> from lincomb import _core as linalg
+    >>> from lincomb import _core as core
     >>> rng = np.random.default_rng(0)
     >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 3))])
     >>> y = x @ [1.0, 0.5, 0.0, -0.2] + rng.normal(size=30)
-    >>> sol = linalg.solve(linalg.moments_from_arrays(x, y, intercept=0))
+    >>> sol = core.solve(core.moments_from_arrays(x, y, intercept=0))
     >>> sigma = float(np.sqrt(sol.rss / sol.df_resid))
     >>> c = np.zeros((3, 2, 4))
     >>> c[:, 0, 1] = 1.0; c[:, 1, 2] = 1.0        # b1 = b2 = 0 ...
     >>> c[2, 1] = c[2, 0]                          # ... but system 2 repeats its first row
-    >>> core = wald_systems(sol, c, np.zeros((3, 2)), sigma=sigma)
-    >>> core.rank.tolist(), list(core.dependencies), core.exact.tolist()
+    >>> out = wald_systems(sol, c, np.zeros((3, 2)), sigma=sigma)
+    >>> out.rank.tolist(), list(out.dependencies), out.exact.tolist()
     ([2, 2, 1], [2], [2])
-    >>> bool(np.isclose(core.quad[0], core.quad[1]))
+    >>> bool(np.isclose(out.quad[0], out.quad[1]))
     True
     """
     k, m, p = c.shape

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb.errors import SingularCovarianceError
 
 __all__ = [
@@ -80,7 +80,7 @@ class CovarianceEstimate:
     lag: int | None = None
     scale: float | tuple[float, ...] = 1.0
     clipped: int = 0
-    _sol: linalg.Solution | None = field(default=None, repr=False)
+    _sol: core.Solution | None = field(default=None, repr=False)
     _sigma: float | None = field(default=None, repr=False)
     _factor: Array | None = field(default=None, repr=False)
     _direct: Array | None = field(default=None, repr=False)
@@ -126,7 +126,7 @@ def check_rank(
         return
     vk = root[:, independent]
     se = np.linalg.norm(vk, axis=0)
-    chol = linalg.triangular_factor(vk)
+    chol = core.triangular_factor(vk)
     diag = np.abs(np.diag(chol))
     bad = np.flatnonzero(diag <= COV_RANK_TOL * np.maximum(se, np.finfo(float).tiny))
     if not bad.size:

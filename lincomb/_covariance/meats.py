@@ -41,7 +41,7 @@ import scipy.linalg as sla
 from numpy.typing import NDArray
 from scipy import sparse
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
 from lincomb._covariance.few_clusters import warn_few_clusters
 from lincomb.errors import CovarianceInputError
@@ -151,7 +151,7 @@ class _Meat:
     row_blocks = True
 
     def __init__(self, fit: Any) -> None:
-        self.sol: linalg.Solution = fit._sol
+        self.sol: core.Solution = fit._sol
         self.n_obs: int = int(fit.n_obs)
         self.k: int = int(self.sol.rank)
         self.df_resid = float(fit.df_resid)
@@ -277,7 +277,7 @@ class ClusterMeat(_Meat):
 
     def _meat(self, groups: Groups) -> tuple[Array, float]:
         n, k, g = self.n_obs, self.k, len(groups)
-        sq = linalg.upper_solve(self.rs, groups.sums.T, trans=True) if k else np.zeros((0, g))
+        sq = core.upper_solve(self.rs, groups.sums.T, trans=True) if k else np.zeros((0, g))
         adj = g / (g - 1) * (n - 1) / (n - k) if self.small_sample else 1.0
         return sq @ sq.T, adj
 

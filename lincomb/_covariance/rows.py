@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb.errors import CovarianceInputError, RowsUnavailableError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -55,7 +55,7 @@ class RowMap:
     all_kept: bool  # every column kept, in order: centre without a gather
 
     @classmethod
-    def of(cls, sol: linalg.Solution) -> RowMap:
+    def of(cls, sol: core.Solution) -> RowMap:
         """The map of a fit's solution."""
         kept = sol.kept
         scale = sol.scale[kept]

@@ -43,7 +43,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
@@ -214,7 +214,7 @@ def fit_chunks(
     weights: str | None = None,
     levels: Mapping[str, Sequence[Any]] | None = None,
     missing: str = "drop",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
 ) -> LinearFit:
     """Fit a formula to data read chunk by chunk, in one pass and bounded memory.
@@ -275,7 +275,7 @@ def fit_chunks(
     threads = worker_threads()
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
-    merger = linalg.MomentMerger()
+    merger = core.MomentMerger()
     recipe: FrameRows | None = None
     for k, frame in enumerate(it):
         where = f"chunk {k}"
@@ -303,7 +303,7 @@ def fit_chunks(
                 enc = recipe.encode(frame, where)
             if enc.x.shape[0]:
                 merger.add(
-                    linalg.moments_from_arrays(
+                    core.moments_from_arrays(
                         enc.x, enc.response, enc.weights, recipe.encoder.intercept
                     )
                 )
@@ -366,7 +366,7 @@ def fit_array_chunks(
     *,
     names: Sequence[str] | None = None,
     intercept: int | None | str = "auto",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
 ) -> LinearFit:
     """Fit ``y`` on ``X`` read as array chunks ``(X, y)`` or ``(X, y, weights)``, in one pass.
@@ -404,7 +404,7 @@ def fit_array_chunks(
     threads = worker_threads()
     it = _iterate(chunks, "chunks")
     p = _Pass(progress)
-    merger = linalg.MomentMerger()
+    merger = core.MomentMerger()
     encoder: ArrayEncoder | None = None
     weighted: bool | None = None
     for k, chunk in enumerate(it):
@@ -441,7 +441,7 @@ def fit_array_chunks(
             enc = encoder.encode(chunk, where)
             if enc.x.shape[0]:
                 merger.add(
-                    linalg.moments_from_arrays(enc.x, enc.response, enc.weights, encoder.intercept)
+                    core.moments_from_arrays(enc.x, enc.response, enc.weights, encoder.intercept)
                 )
         p.record(enc.rows_read, enc.x.shape[0], None)
     moments = merger.result()

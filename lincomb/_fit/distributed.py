@@ -45,7 +45,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._fit.chunked import FrameRows, _check_options
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.pooled import fit_from_moments
@@ -107,7 +107,7 @@ class _Limited:
 class _Part:
     """A partition's (or a merged group's) contribution."""
 
-    moments: linalg.Moments | None
+    moments: core.Moments | None
     dropped: tuple[pd.Index, ...]
     rows: int
     ones: np.ndarray | None = None  # arrays: which columns were all ones
@@ -115,7 +115,7 @@ class _Part:
 
 def _merge_parts(*parts: _Part) -> _Part:
     live = [p.moments for p in parts if p.moments is not None]
-    merged = linalg.merge_tree(live) if live else None
+    merged = core.merge_tree(live) if live else None
     ones = None
     if parts and parts[0].ones is not None:
         ones = np.logical_and.reduce([p.ones for p in parts if p.ones is not None])
@@ -155,9 +155,7 @@ def _frame_part(frame: pd.DataFrame, recipe: FrameRows, k: int, threads: _Spec) 
         enc = recipe.encode(frame, where)
         m = None
         if enc.x.shape[0]:
-            m = linalg.moments_from_arrays(
-                enc.x, enc.response, enc.weights, recipe.encoder.intercept
-            )
+            m = core.moments_from_arrays(enc.x, enc.response, enc.weights, recipe.encoder.intercept)
     return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
 
 
@@ -198,7 +196,7 @@ def fit_dask(
     weights: str | None = None,
     levels: Mapping[str, Sequence[Any]] | None = None,
     missing: str = "drop",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     split_every: int = DEFAULT_SPLIT_EVERY,
     scheduler: Any = None,
 ) -> LinearFit:
@@ -319,7 +317,7 @@ def _array_moments(
     if j is not None and not ones[j]:
         return _Part(None, (), d.x.shape[0], ones)  # the intercept guess fails: redo (see below)
     with _Limited(threads):
-        m = linalg.moments_from_arrays(d.x, d.y, d.weights, j) if d.x.shape[0] else None
+        m = core.moments_from_arrays(d.x, d.y, d.weights, j) if d.x.shape[0] else None
     return _Part(m, (), d.x.shape[0], ones)
 
 
@@ -373,7 +371,7 @@ def fit_dask_arrays(
     *,
     names: Sequence[str] | None = None,
     weights: Any = None,
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     split_every: int = DEFAULT_SPLIT_EVERY,
     scheduler: Any = None,
 ) -> LinearFit:

@@ -22,7 +22,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._builder.contrasts import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._covariance import estimators as covmod
@@ -95,23 +95,23 @@ class LinearFit:
     weighted: bool
     response: str
     formula: str | None
-    rank_tol: float = field(default=linalg.RANK_TOL, repr=False)
+    rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _moments: linalg.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _sol: linalg.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _moments: core.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _sol: core.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _vcov: covmod.CovarianceEstimate | None = field(repr=False, compare=False, default=None)
 
     # -- construction -------------------------------------------------------------------
     @classmethod
     def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
-        moments = linalg.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
+        moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
         return cls._from_moments(design, moments, rank_tol)
 
     @classmethod
-    def _from_moments(cls, design: Design, moments: linalg.Moments, rank_tol: float) -> LinearFit:
+    def _from_moments(cls, design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
         if not (0 < rank_tol < 1):
             raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
-        sol = linalg.solve(moments, rank_tol)
+        sol = core.solve(moments, rank_tol)
         names = design.index.names
         if sol.n <= sol.rank:
             raise DegenerateFitError(
@@ -333,7 +333,7 @@ class LinearFit:
             if name in self.aliased:
                 out.append("aliased")
             else:
-                out.append("estimable" if resid[j] <= linalg.ROW_TOL else "not estimable")
+                out.append("estimable" if resid[j] <= core.ROW_TOL else "not estimable")
         return out
 
     # -- restrictions -------------------------------------------------------------------
@@ -357,7 +357,7 @@ class LinearFit:
     def _prepare(
         self, restrictions: object
     ) -> tuple[
-        NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], linalg.RowAnalysis
+        NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], core.RowAnalysis
     ]:
         c, d, labels = self.resolve(restrictions)
         cu, analysis = check_rows(self._sol, c, d, labels, self.names)
@@ -425,18 +425,16 @@ class LinearFit:
         root = vcov.root(cu[:, sol.kept])
         est = cu[:, sol.kept] @ sol.theta
         covmod.check_rank(root, analysis.independent, labels, vcov)
-        core = linalg.wald_from_root(est - d, root, analysis.independent)
-        dist, stat, df_den, p_value = covmod.reference_result(
-            core.quad, core.rank, vcov.df_den, ref
-        )
+        wc = core.wald_from_root(est - d, root, analysis.independent)
+        dist, stat, df_den, p_value = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
             target=d.copy(),
-            std_error=core.std_error,
-            t=core.statistic_rows,
+            std_error=wc.std_error,
+            t=wc.statistic_rows,
             statistic=stat,
-            df_num=core.rank,
+            df_num=wc.rank,
             df_den=df_den,
             p_value=p_value,
             distribution=dist,
@@ -555,7 +553,7 @@ class LinearFit:
         k = analysis.independent
         root_k = sol.root(cu[k][:, sol.kept])
         delta_k = cu[k][:, sol.kept] @ sol.theta - d[k]
-        step, w = linalg.restricted_step(sol, root_k, delta_k)
+        step, w = core.restricted_step(sol, root_k, delta_k)
         beta = sol.from_working(sol.theta + step)
         beta[sol.aliased] = np.nan
         rss_r = sol.rss + float(np.sum((sol.r @ step) ** 2))
@@ -608,13 +606,13 @@ class LinearFit:
 
 
 def check_rows(
-    sol: linalg.Solution,
+    sol: core.Solution,
     c: NDArray[np.float64],
     d: NDArray[np.float64],
     labels: Sequence[str],
     names: Sequence[str],
     where: str = "this rank-deficient design",
-) -> tuple[NDArray[np.float64], linalg.RowAnalysis]:
+) -> tuple[NDArray[np.float64], core.RowAnalysis]:
     """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
 
     Shared by every path that tests or imposes restrictions (fits, planned designs), so the
@@ -645,7 +643,7 @@ def check_rows(
     ([0], {1: {0: 2.0}})
     """
     cu = sol.to_working(c)
-    analysis = linalg.analyze_rows(cu, d, linalg.ROW_TOL)
+    analysis = core.analyze_rows(cu, d, core.ROW_TOL)
     if analysis.inconsistent:
         lines = []
         for row, dval, implied in analysis.inconsistent:
@@ -661,11 +659,11 @@ def check_rows(
             + ". Remove one of the conflicting rows or correct its value."
         )
     resid = sol.estimability_residual(cu)
-    bad = np.flatnonzero(resid > linalg.ROW_TOL)
+    bad = np.flatnonzero(resid > core.ROW_TOL)
     if bad.size:
         msgs = []
         for i in bad:
-            touched = [names[j] for j in sol.aliased_touched(cu[i], linalg.ROW_TOL)]
+            touched = [names[j] for j in sol.aliased_touched(cu[i], core.ROW_TOL)]
             msgs.append(f"row {int(i)} ({labels[i]}) involves aliased coefficients {touched}")
         aliased = [names[j] for j in sorted(sol.aliased)]
         raise NotEstimableError(
@@ -688,7 +686,7 @@ def fit(
     *,
     weights: str | ArrayLike | None = None,
     missing: str = "drop",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
 ) -> LinearFit:
     """Fit a linear model by (weighted) least squares from a formula.
 
@@ -737,7 +735,7 @@ def fit_arrays(
     *,
     names: Sequence[str] | None = None,
     weights: ArrayLike | None = None,
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
 ) -> LinearFit:
     """Fit a linear model by (weighted) least squares from arrays.
 

@@ -53,7 +53,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
@@ -231,16 +231,16 @@ class _Group:
     y_norm: NDArray[np.float64]
 
     @property
-    def sol(self) -> linalg.Solution | None:
+    def sol(self) -> core.Solution | None:
         return None if self.fit is None else self.fit._sol
 
 
 def _design_fit(
     design: Design, rows: NDArray[np.intp] | None, rank_tol: float
-) -> tuple[linalg.DesignFactor, LinearFit | None]:
+) -> tuple[core.DesignFactor, LinearFit | None]:
     x = design.x if rows is None else design.x[rows]
     w = design.weights if rows is None or design.weights is None else design.weights[rows]
-    factor = linalg.factor_design(x, w, design.intercept)
+    factor = core.factor_design(x, w, design.intercept)
     try:
         lf = LinearFit._from_moments(design, factor.moments, rank_tol)
     except DegenerateFitError:
@@ -249,23 +249,23 @@ def _design_fit(
 
 
 def _solve_group(
-    factor: linalg.DesignFactor,
+    factor: core.DesignFactor,
     lf: LinearFit | None,
-    blocks: list[linalg.ResponseBlock],
+    blocks: list[core.ResponseBlock],
     columns: NDArray[np.intp],
     rows: NDArray[np.intp] | None,
 ) -> _Group:
     q = factor.moments.others.size
-    block = linalg.ResponseBlock.concat(blocks, q)
+    block = core.ResponseBlock.concat(blocks, q)
     r = columns.size
     if lf is None:
         nan = np.full(r, np.nan)
         return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
-    theta, rss, y_norm = linalg.solve_responses(factor.moments, lf._sol, block)
+    theta, rss, y_norm = core.solve_responses(factor.moments, lf._sol, block)
     return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
 
 
-def _coefficients(sol: linalg.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
     beta = sol.from_working(theta)
     beta[sol.aliased] = np.nan
     return beta
@@ -595,7 +595,7 @@ class ManyFit:
     n_dropped: int
     weighted: bool
     formula: str | None
-    rank_tol: float = field(default=linalg.RANK_TOL, repr=False)
+    rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _groups: tuple[_Group, ...] = field(repr=False, compare=False, default=())
     _source: _Responses = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
@@ -744,7 +744,7 @@ class ManyFit:
             root = sol.root(ck)
             est = ck @ g.theta  # (m, r_g)
             delta = est - d[:, None]
-            quad, se0 = linalg.wald_quadratic_forms(delta, root, analysis.independent)
+            quad, se0 = core.wald_quadratic_forms(delta, root, analysis.independent)
             dfg = g.n - sol.rank
             with np.errstate(divide="ignore", invalid="ignore"):
                 sigma = np.sqrt(g.rss / dfg)
@@ -913,11 +913,11 @@ def _build(
     factor, lf = _design_fit(design, None, rank_tol)
     if lf is None:
         raise DegenerateFitError(
-            f"{n} rows for a design of rank {linalg.solve(factor.moments, rank_tol).rank} leave"
+            f"{n} rows for a design of rank {core.solve(factor.moments, rank_tol).rank} leave"
             " no residual degrees of freedom for any response. Add rows or drop terms."
         )
     width = _block_width(r, n)
-    main_blocks: list[linalg.ResponseBlock] = []
+    main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
     patterns: dict[bytes, list[int]] = {}
     masks: dict[bytes, NDArray[np.bool_]] = {}
@@ -973,13 +973,13 @@ def _build(
 
 
 def _projected(
-    factor: linalg.DesignFactor,
+    factor: core.DesignFactor,
     source: _Responses,
     positions: NDArray[np.intp] | None,
     r: int,
     width: int,
     workers: int,
-) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], linalg.ResponseBlock]]:
+) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], core.ResponseBlock]]:
     """Blocks of responses with their projections, in order.
 
     Blocks are read in this thread (pandas is not asked to serve several threads) and projected
@@ -1101,7 +1101,7 @@ def fit_many(
     *,
     weights: str | ArrayLike | None = None,
     missing: str = "drop",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     response_names: Sequence[str] | None = None,
     workers: int | None = None,
 ) -> ManyFit:
@@ -1209,7 +1209,7 @@ def fit_many_arrays(
     response_names: Sequence[str] | None = None,
     weights: ArrayLike | None = None,
     missing: str = "drop",
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
     workers: int | None = None,
 ) -> ManyFit:
     """Fit many responses (columns of an (n, r) array or DataFrame) on one design ``X``.

@@ -34,7 +34,7 @@ from collections.abc import Iterable
 
 import pandas as pd
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import Design
 from lincomb._model.encoder import FormulaEncoder
@@ -49,7 +49,7 @@ _DEFAULT_HINT = (
 )
 
 
-def fit_from_moments(design: Design, moments: linalg.Moments, rank_tol: float) -> LinearFit:
+def fit_from_moments(design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
     """The :class:`~lincomb.fit.LinearFit` of ``moments`` named by ``design``.
 
     The fit is the same object an in-memory fit is; only its rows may be missing.
@@ -203,7 +203,7 @@ def combine(fits: Iterable[LinearFit], *, rank_tol: float | None = None) -> Line
     first = fits[0]
     for k, f in enumerate(fits[1:], start=1):
         _check_same(first, f, k)
-    moments = linalg.merge_tree([f._moments for f in fits])
+    moments = core.merge_tree([f._moments for f in fits])
     d0 = first._design
     dropped_parts = [(k, lab) for k, f in enumerate(fits) for lab in f._design.dropped]
     dropped = (

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._builder.contrasts import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._fit.linear import LinearFit
@@ -74,8 +74,8 @@ class PlannedDesign:
     weighted: bool
     formula: str | None
     _index: CoefficientIndex = field(repr=False, compare=False)
-    _sol: linalg.Solution = field(repr=False, compare=False)
-    rank_tol: float = field(default=linalg.RANK_TOL, repr=False)
+    _sol: core.Solution = field(repr=False, compare=False)
+    rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _encoder: Any = field(default=None, repr=False, compare=False)
 
     @property
@@ -159,7 +159,7 @@ def planned_design(
     *,
     weights: str | ArrayLike | None = None,
     names: Sequence[str] | None = None,
-    rank_tol: float = linalg.RANK_TOL,
+    rank_tol: float = core.RANK_TOL,
 ) -> PlannedDesign:
     """Factor one replicate of a planned covariate pattern for power calculations.
 
@@ -249,8 +249,8 @@ def planned_design(
     if design.x.shape[0] == 0:
         raise InputError("the planned pattern has no rows; give one row per observation.")
     zero = np.zeros(design.x.shape[0])
-    moments = linalg.moments_from_arrays(design.x, zero, design.weights, design.intercept)
-    sol = linalg.solve(moments, rank_tol)
+    moments = core.moments_from_arrays(design.x, zero, design.weights, design.intercept)
+    sol = core.solve(moments, rank_tol)
     idx = design.index
     return PlannedDesign(
         names=idx.names,

@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb import _core as linalg
+from lincomb import _core as core
 from lincomb._core import noncentral
 from lincomb._fit.linear import LinearFit, check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
@@ -104,7 +104,7 @@ class PowerPlan:
     # -- the alternative ------------------------------------------------------------------
     def _consistent(self, values: NDArray[np.float64], what: str) -> None:
         """Values on dependent rows must follow the rows' dependency, as ``Cβ`` does."""
-        check = linalg.analyze_rows(self._cu, values, linalg.ROW_TOL)
+        check = core.analyze_rows(self._cu, values, core.ROW_TOL)
         if check.inconsistent:
             row, val, implied = check.inconsistent[0]
             dep = check.dependencies[row]
@@ -204,7 +204,7 @@ class PowerPlan:
             return float("inf")
         exponent = int(np.frexp(top)[1])
         unit = np.ldexp(delta, -exponent)
-        quad = linalg.wald_from_root(unit, self._root, self._independent).quad
+        quad = core.wald_from_root(unit, self._root, self._independent).quad
         with np.errstate(over="ignore"):
             return float(np.ldexp(np.float64(quad), 2 * exponent))
 
