@@ -246,7 +246,7 @@ def _lincomb_object(target: str) -> tuple[str, str] | None:
 
     Docstrings written inside the package refer to siblings by short or module-relative names
     (``covariance_pass``, ``lincomb.multiplicity.adjust_pvalues``) and to internal constants
-    and modules (``FEW_CLUSTERS``, ``lincomb.linalg``).  Returns ``("public", name)`` when the
+    and modules (``FEW_CLUSTERS``, ``lincomb._core``).  Returns ``("public", name)`` when the
     target is a documented public name (matched by its last dotted parts), ``("private", name)``
     when it names a real object of a private module, and None when nothing by that name exists
     (then Sphinx's warning stands: the reference is broken).
@@ -260,6 +260,17 @@ def _lincomb_object(target: str) -> tuple[str, str] | None:
         hits = [name for name in public if name == tail or name.endswith("." + tail)]
         if len(hits) == 1:
             return ("public", hits[0])
+    if parts[0] == "lincomb":  # a full dotted path: import the longest module prefix
+        for k in range(len(parts), 1, -1):
+            modname = ".".join(parts[:k])
+            if modname not in _PRIVATE_MODULES and modname != "lincomb":
+                continue
+            obj: object = importlib.import_module(modname)
+            for attr in parts[k:]:
+                fields = getattr(obj, "__dataclass_fields__", {})
+                obj = getattr(obj, attr, None) if attr not in fields else fields[attr]
+            if obj is not None and k < len(parts):
+                return ("private", ".".join(parts))
     for modname in _PRIVATE_MODULES:
         short = modname.split(".")[-1].lstrip("_")
         if modname == ".".join(parts) or (len(parts) <= 3 and short == parts[-1].lstrip("_")):

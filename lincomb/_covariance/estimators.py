@@ -27,7 +27,7 @@ t) reference; a test can use the large-sample chi-squared (and normal) reference
 Numerics
 --------
 The fit keeps the triangular factor ``R`` of its kept working columns (``X̃_wᵀ X̃_w = RᵀR``, see
-:mod:`lincomb.linalg`).  A sandwich visits the rows once, in blocks (see
+:mod:`lincomb._core`).  A sandwich visits the rows once, in blocks (see
 :mod:`~lincomb._covariance.meats`): a triangular solve per block gives ``Zᵀ = R⁻ᵀ X̃_wᵀ`` for
 its rows (``Z = X̃_w R⁻¹`` has orthonormal columns).  Then
 
@@ -45,7 +45,7 @@ its rows (``Z = X̃_w R⁻¹`` has orthonormal columns).  Then
   parametrization of the regressors (clipping the coefficients' covariance itself would).
 
 With ``V = R⁻ᵀ C_uᵀ`` (the classical root of a restriction system in working coordinates, see
-:meth:`lincomb.linalg.Solution.root`) the covariance of ``Cβ̂`` is ``Vᵀ M V = (FV)ᵀ(FV)``, so a
+:meth:`lincomb._core.Solution.root`) the covariance of ``Cβ̂`` is ``Vᵀ M V = (FV)ᵀ(FV)``, so a
 test uses the root ``F V`` and costs nothing that grows with ``n``.  The inverse of ``XᵀX`` is
 never formed.
 

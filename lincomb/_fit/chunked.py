@@ -2,9 +2,9 @@
 
 :func:`fit_chunks` reads DataFrame chunks (pandas' chunked CSV reader, parquet row groups, a
 generator) and :func:`fit_array_chunks` reads ``(X, y)`` or ``(X, y, w)`` array chunks.  Each
-chunk is reduced to :class:`lincomb.linalg.Moments` (the triangular factor of its centred
+chunk is reduced to :class:`lincomb._core.Moments` (the triangular factor of its centred
 ``sqrt(w)·[X y]``, never ``XᵀX``) and merged into the running total by a QR of the stacked
-factors (:func:`lincomb.linalg.merge_moments`), in a balanced binary tree of ``log2(chunks)``
+factors (:func:`lincomb._core.merge_moments`), in a balanced binary tree of ``log2(chunks)``
 levels.  Memory holds one chunk and a few ``(p+1)×(p+1)`` factors, whatever the number of rows.
 
 The result is the same :class:`~lincomb.fit.LinearFit` an in-memory fit gives (equal to
@@ -237,7 +237,7 @@ def fit_chunks(
         Rows with missing values in the formula's variables or the weights are dropped and
         counted across chunks, or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb.linalg`).
+        Relative rank tolerance (see :mod:`lincomb._core`).
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
 

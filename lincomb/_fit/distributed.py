@@ -3,9 +3,9 @@
 Needs the optional extra ``lincomb[dask]`` (dask with its DataFrame support, and threadpoolctl).
 
 :func:`fit_dask` fits a formula to a Dask DataFrame and :func:`fit_dask_arrays` fits Dask arrays
-``X``, ``y``.  Every partition (block of rows) is reduced to :class:`lincomb.linalg.Moments` by
+``X``, ``y``.  Every partition (block of rows) is reduced to :class:`lincomb._core.Moments` by
 a task on the workers; the moments are merged by a tree reduction of small QRs
-(:func:`lincomb.linalg.merge_moments`, ``split_every`` at a time).  Only the triangular factors
+(:func:`lincomb._core.merge_moments`, ``split_every`` at a time).  Only the triangular factors
 travel: ``dask.array.linalg.tsqr`` would form every block's ``Q`` as well, which a test needs
 nowhere.  The result is the same :class:`~lincomb.fit.LinearFit` as an in-memory fit of the
 computed data (equal to rounding).

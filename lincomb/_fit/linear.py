@@ -8,7 +8,7 @@ observations.
 
 The fit joins the two halves of the library: it resolves a restriction built by
 :mod:`lincomb.restriction` through its coefficient index (:mod:`lincomb.design`), maps it to
-working coordinates and hands plain arrays to :mod:`lincomb.linalg`.
+working coordinates and hands plain arrays to :mod:`lincomb._core`.
 """
 
 from __future__ import annotations
@@ -55,7 +55,7 @@ class LinearFit:
         Estimates; ``NaN`` for aliased (not estimable) columns.  With aliased columns, the
         others are those of the fit without the aliased columns.
     aliased : tuple of str
-        Columns found linearly dependent on earlier ones (see :mod:`lincomb.linalg`).
+        Columns found linearly dependent on earlier ones (see :mod:`lincomb._core`).
     rank : int
         Numerical rank of the design.
     n_obs : int
@@ -623,7 +623,7 @@ def check_rows(
     cu : (m, p) ndarray
         ``C`` in working coordinates.
     analysis : RowAnalysis
-        Independent and redundant rows (see :func:`lincomb.linalg.analyze_rows`).
+        Independent and redundant rows (see :func:`lincomb._core.analyze_rows`).
 
     Raises
     ------
@@ -704,7 +704,7 @@ def fit(
         Rows with missing values in the formula's variables are dropped and counted
         (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb.linalg`).
+        Relative rank tolerance (see :mod:`lincomb._core`).
 
     Returns
     -------

@@ -2,7 +2,7 @@
 
 Screening studies fit one design to thousands of outcomes (assays, sensors, products).
 :func:`fit_many` (formula) and :func:`fit_many_arrays` (arrays) factor the design once (QR with
-its thin ``Q`` kept, :func:`lincomb.linalg.factor_design`) and project every response onto it
+its thin ``Q`` kept, :func:`lincomb._core.factor_design`) and project every response onto it
 by matrix products, in blocks of columns so that the work memory is a small fraction of the
 response matrix (:data:`BLOCK_BYTES` per block).  A restriction system is then tested on every
 response with one triangular solve (:meth:`ManyFit.wald`); :meth:`ManyFit.screen` runs several
@@ -687,7 +687,7 @@ class ManyFit:
         The restriction is resolved, checked and mapped once per group of responses sharing
         rows; ``V = R⁻ᵀ C_keptᵀ`` is shared by the group, so each response costs a product
         with its coefficients and one triangular solve
-        (:func:`lincomb.linalg.wald_quadratic_forms`), vectorized over responses.
+        (:func:`lincomb._core.wald_quadratic_forms`), vectorized over responses.
 
         Examples
         --------

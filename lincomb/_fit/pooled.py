@@ -1,8 +1,8 @@
 """Fits kept as summaries: combining fits across sites, and fits without their rows.
 
-A :class:`~lincomb.fit.LinearFit` is its sufficient statistics (:class:`lincomb.linalg.Moments`):
+A :class:`~lincomb.fit.LinearFit` is its sufficient statistics (:class:`lincomb._core.Moments`):
 row counts, weighted column means and the triangular factor of the centred ``sqrt(w)·[X y]``.
-Moments of disjoint row sets merge exactly (:func:`lincomb.linalg.merge_moments`: a QR of the
+Moments of disjoint row sets merge exactly (:func:`lincomb._core.merge_moments`: a QR of the
 stacked factors plus one between-block mean-correction row, never normal equations).  So fits of
 the same formula on separate data (sites, months, shards) combine into the fit of the pooled
 rows without any row being shared:

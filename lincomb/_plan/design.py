@@ -1,9 +1,9 @@
 """The planned design: one replicate of a covariate pattern, factored for power calculations.
 
 A planned pattern is encoded like a fit's design (a formula through formulaic, or arrays) and
-factored by the core with a zero response (:func:`lincomb.linalg.moments_from_arrays`,
-:func:`lincomb.linalg.solve`), so rank, aliasing and working coordinates follow the same rules
-(:data:`lincomb.linalg.RANK_TOL`).  A design built from a formula keeps its formula encoder, so
+factored by the core with a zero response (:func:`lincomb._core.moments_from_arrays`,
+:func:`lincomb._core.solve`), so rank, aliasing and working coordinates follow the same rules
+(:data:`lincomb._core.RANK_TOL`).  A design built from a formula keeps its formula encoder, so
 restrictions on level means (:func:`lincomb.levels`) resolve on it as on a fit.
 """
 
@@ -50,7 +50,7 @@ class PlannedDesign:
     rank : int
         Numerical rank of the design (the same for any number of replicates).
     aliased : tuple of str
-        Columns linearly dependent on earlier ones (see :mod:`lincomb.linalg`).
+        Columns linearly dependent on earlier ones (see :mod:`lincomb._core`).
     weighted : bool
         Whether planned precision weights were given.
     formula : str or None
@@ -180,7 +180,7 @@ def planned_design(
     names : sequence of str, optional
         Column names for an array design.
     rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb.linalg`).
+        Relative rank tolerance (see :mod:`lincomb._core`).
 
     Returns
     -------

@@ -12,10 +12,10 @@ where ``XᵀX`` is that of one replicate (``r`` replicates multiply it by ``r``)
 
 A system is resolved through the design's coefficient index (and its formula encoder, for
 restrictions on level means), mapped to working coordinates and checked by
-:func:`lincomb.linalg.analyze_rows` (redundant rows count once; contradictory rows raise
+:func:`lincomb._core.analyze_rows` (redundant rows count once; contradictory rows raise
 :class:`~lincomb.errors.InconsistentRestrictionError`) and for estimability
 (:class:`~lincomb.errors.NotEstimableError`).  The quadratic form is the squared norm of a
-triangular solve (:func:`lincomb.linalg.wald_from_root` on ``R⁻ᵀ Cᵀ``); ``XᵀX`` is never formed
+triangular solve (:func:`lincomb._core.wald_from_root` on ``R⁻ᵀ Cᵀ``); ``XᵀX`` is never formed
 nor inverted.  The power and the searches are in :mod:`lincomb._core.noncentral`.
 """
 
