@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -35,6 +35,10 @@ from lincomb.errors import (
     InconsistentRestrictionError,
     NotEstimableError,
 )
+
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._results.expected import ExpectedValues
+    from lincomb._results.row_diagnostics import RowDiagnostics
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
@@ -603,6 +607,68 @@ class LinearFit:
 
     def _repr_html_(self) -> str:
         return fit_html(self)
+
+    # -- questions around a test (each capability lives in its own module) ---------------
+    def expected(
+        self,
+        new: pd.DataFrame | None = None,
+        *,
+        weights: ArrayLike | str | None = None,
+        covariance: object = None,
+        reference: str = "F",
+    ) -> ExpectedValues:
+        """Expected (mean) response at the fit's rows or at new data, with intervals.
+
+        Parameters
+        ----------
+        new : pandas.DataFrame, optional
+            New data, encoded with the fit's formula encoder (:meth:`encode`; unseen levels
+            raise).  Default: the rows the fit used.
+        weights : array_like, float or str, optional
+            Weight of one new observation per row of ``new`` (a column name or values), for the
+            interval of a new observation under a weighted fit; default 1 for an unweighted
+            fit (for a weighted fit without it those columns are NaN).
+        covariance : str or estimator, optional
+            Covariance of the mean's standard error (see :meth:`wald`); default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+            t with the estimator's denominator df, or the standard normal.
+
+        Returns
+        -------
+        ExpectedValues
+            ``row_frame(level)`` gives the mean's interval and a new observation's interval;
+            rows not estimable under a rank-deficient fit are flagged, not predicted.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> ev = f.expected(pd.DataFrame({"line": ["L2"], "temperature_c": [22.0]}), covariance="HC3")
+        >>> ev.covariance, ev.row_frame().loc[0, "estimable"]
+        ('HC3', np.True_)
+        """
+        from lincomb._results.expected import expected_values
+
+        return expected_values(
+            self, new, weights=weights, covariance=covariance, reference=reference
+        )
+
+    def row_diagnostics(self) -> RowDiagnostics:
+        """Fitted values, residuals (raw, standardized, studentized) and leverages per row.
+
+        Computed from the R factor (leverages are squared row norms of ``X̃ R⁻¹``), never from
+        an ``n × n`` matrix; see :mod:`lincomb._results.row_diagnostics`.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> bool(np.isclose(f.row_diagnostics().leverage.sum(), f.rank))
+        True
+        """
+        from lincomb._results.row_diagnostics import row_diagnostics
+
+        return row_diagnostics(self)
 
 
 def check_rows(
