@@ -35,6 +35,7 @@ from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.plan import PowerPlan, power_plan
 from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
 from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
+from lincomb._results.nested import compare_nested
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb._settings import blas_threads, set_blas_threads
 
@@ -76,6 +77,7 @@ __all__ = [
     "RestrictedFit",
     "MultipleInference",
     "adjust_pvalues",
+    "compare_nested",
     # planning
     "planned_design",
     "power_plan",

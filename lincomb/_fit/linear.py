@@ -38,7 +38,9 @@ from lincomb.errors import (
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.expected import ExpectedValues
+    from lincomb._results.overview import FitOverview
     from lincomb._results.row_diagnostics import RowDiagnostics
+    from lincomb._results.term_tests import TermTests
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
@@ -669,6 +671,60 @@ class LinearFit:
         from lincomb._results.row_diagnostics import row_diagnostics
 
         return row_diagnostics(self)
+
+    def term_tests(
+        self,
+        adjusted_for: str = "preceding",
+        *,
+        covariance: object = None,
+        reference: str = "F",
+    ) -> TermTests:
+        """Joint test of every term's columns, one row per term of the formula.
+
+        Parameters
+        ----------
+        adjusted_for : {'preceding', 'non-containing', 'all-others'}, default 'preceding'
+            What each term is adjusted for: the terms before it in formula order
+            (sequential), every term that does not contain it (marginality), or every other
+            term (see :mod:`lincomb._results.term_tests`).
+        covariance : str or estimator, optional
+            As in :meth:`wald`; default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+            As in :meth:`wald`.
+
+        Returns
+        -------
+        TermTests
+            ``df_test`` counts each term's kept (non-aliased) columns.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
+        >>> last = f.term_tests("all-others").stat[1]
+        >>> bool(np.isclose(last, f.wald(lc.term("shift") == 0).statistic))
+        True
+        """
+        from lincomb._results.term_tests import term_tests
+
+        return term_tests(self, adjusted_for, covariance=covariance, reference=reference)
+
+    def overview(self, *, reference: str = "F") -> FitOverview:
+        """R², adjusted R², the overall test, sigma, log-likelihood, AIC and BIC.
+
+        The overall test (every non-intercept coefficient zero) uses the fit's covariance
+        estimator (:meth:`with_covariance`) and reports the denominator df its tests use.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        >>> f.with_covariance(lc.clustered(by="site")).overview().df_error
+        39.0
+        """
+        from lincomb._results.overview import overview
+
+        return overview(self, reference=reference)
 
 
 def check_rows(
