@@ -13,7 +13,7 @@ working coordinates and hands plain arrays to :mod:`lincomb.linalg`.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
@@ -38,6 +38,7 @@ from lincomb.errors import (
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.expected import ExpectedValues
+    from lincomb._results.level_table import LevelMeanTable
     from lincomb._results.overview import FitOverview
     from lincomb._results.row_diagnostics import RowDiagnostics
     from lincomb._results.term_tests import TermTests
@@ -725,6 +726,60 @@ class LinearFit:
         from lincomb._results.overview import overview
 
         return overview(self, reference=reference)
+
+    def level_means(
+        self,
+        factors: str | Sequence[str],
+        *,
+        holding: Mapping[str, Any] | None = None,
+        covariates: str = "mean",
+        weighting: str = "equal",
+        covariance: object = None,
+        reference: str = "F",
+    ) -> LevelMeanTable:
+        """Mean response at each level (or level combination) of factors, with intervals.
+
+        Parameters
+        ----------
+        factors : str or sequence of str
+            Factors as written in the formula (``"C(dose)"``) or their variables.
+        holding : mapping, optional
+            ``{variable: value}``: other variables fixed at a level or a number.
+        covariates : {'mean', 'rows'}, default 'mean'
+            Numeric covariates not held sit at their mean over the fit's rows, or the means
+            are averaged over the fit's rows (every other variable at each row's own value).
+        weighting : {'equal', 'observed'}, default 'equal'
+            Other factors averaged with equal weights over their level combinations, or with
+            the combinations' frequencies among the fit's rows.
+        covariance : str or estimator, optional
+            As in :meth:`wald`; default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+
+        Returns
+        -------
+        LevelMeanTable
+            Intervals, no test; ``.differences(...)`` and ``.trend(...)`` give Wald tests
+            (see :mod:`lincomb._results.level_table`).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("yield_t_ha ~ C(nitrogen) * variety + rainfall_mm", lc.datasets.field_trial())
+        >>> tab = f.level_means(["C(nitrogen)", "variety"], holding={"rainfall_mm": 300})
+        >>> len(tab.labels), tab.setting
+        (12, 'rainfall_mm=300')
+        """
+        from lincomb._results.level_table import level_mean_table
+
+        return level_mean_table(
+            self,
+            factors,
+            holding=holding,
+            covariates=covariates,
+            weighting=weighting,
+            covariance=covariance,
+            reference=reference,
+        )
 
 
 def check_rows(
