@@ -55,9 +55,7 @@ def run(rounds: int) -> dict[str, Any]:
         np.max(np.abs(ours["new_upper"].to_numpy() / theirs["obs_ci_upper"].to_numpy() - 1))
     )
     res["ratio"] = _common.ratio(res, "lincomb_expected", "statsmodels_summary_frame")
-    res["paired_ratio"] = _common.paired_ratio(
-        res, "lincomb_expected", "statsmodels_summary_frame"
-    )
+    res["paired_ratio"] = _common.paired_ratio(res, "lincomb_expected", "statsmodels_summary_frame")
     res.pop("times")
     return res
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.outliers_influence import OLSInfluence
@@ -31,9 +30,7 @@ def test_expected_matches_statsmodels_prediction(mtcars: pd.DataFrame, weighted:
     formula = "mpg ~ wt + hp + C(cyl)"
     w = _wls_weights(mtcars) if weighted else None
     f = lc.fit(formula, mtcars, weights=w)
-    ref = (
-        smf.wls(formula, mtcars, weights=w).fit() if weighted else smf.ols(formula, mtcars).fit()
-    )
+    ref = smf.wls(formula, mtcars, weights=w).fit() if weighted else smf.ols(formula, mtcars).fit()
     new = pd.DataFrame({"wt": [2.5, 3.2, 4.0], "hp": [110.0, 150.0, 230.0], "cyl": [4, 6, 8]})
     new_w = np.array([1.0, 2.0, 0.5])
     ev = f.expected(new, weights=new_w if weighted else None)
@@ -107,8 +104,12 @@ def test_row_diagnostics_match_statsmodels_influence(mtcars: pd.DataFrame, weigh
         ref = smf.ols(formula, mtcars).fit()
         infl = OLSInfluence(ref)
         np.testing.assert_allclose(d.leverage, infl.hat_matrix_diag, rtol=1e-9)
-        np.testing.assert_allclose(d.studentized_internal, infl.resid_studentized_internal, rtol=1e-9)
-        np.testing.assert_allclose(d.studentized_external, infl.resid_studentized_external, rtol=1e-9)
+        np.testing.assert_allclose(
+            d.studentized_internal, infl.resid_studentized_internal, rtol=1e-9
+        )
+        np.testing.assert_allclose(
+            d.studentized_external, infl.resid_studentized_external, rtol=1e-9
+        )
         np.testing.assert_allclose(d.residual, ref.resid, rtol=1e-9, atol=1e-12)
         np.testing.assert_allclose(d.standardized, ref.resid / np.sqrt(ref.scale), rtol=1e-9)
 
@@ -258,9 +259,7 @@ def test_overview_matches_statsmodels(mtcars: pd.DataFrame, weighted: bool) -> N
     formula = "mpg ~ wt + hp + C(cyl)"
     w = _wls_weights(mtcars) if weighted else None
     ov = lc.fit(formula, mtcars, weights=w).overview()
-    ref = (
-        smf.wls(formula, mtcars, weights=w).fit() if weighted else smf.ols(formula, mtcars).fit()
-    )
+    ref = smf.wls(formula, mtcars, weights=w).fit() if weighted else smf.ols(formula, mtcars).fit()
     # statsmodels: rsquared, rsquared_adj, fvalue, f_pvalue, llf, aic, bic
     assert ov.r_squared == pytest.approx(ref.rsquared, rel=1e-10)
     assert ov.r_squared_adjusted == pytest.approx(ref.rsquared_adj, rel=1e-10)

@@ -646,7 +646,8 @@ class LinearFit:
         --------
         >>> import pandas as pd, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-        >>> ev = f.expected(pd.DataFrame({"line": ["L2"], "temperature_c": [22.0]}), covariance="HC3")
+        >>> new = pd.DataFrame({"line": ["L2"], "temperature_c": [22.0]})
+        >>> ev = f.expected(new, covariance="HC3")
         >>> ev.covariance, ev.row_frame().loc[0, "estimable"]
         ('HC3', np.True_)
         """
@@ -764,7 +765,8 @@ class LinearFit:
         Examples
         --------
         >>> import lincomb as lc
-        >>> f = lc.fit("yield_t_ha ~ C(nitrogen) * variety + rainfall_mm", lc.datasets.field_trial())
+        >>> data = lc.datasets.field_trial()
+        >>> f = lc.fit("yield_t_ha ~ C(nitrogen) * variety + rainfall_mm", data)
         >>> tab = f.level_means(["C(nitrogen)", "variety"], holding={"rainfall_mm": 300})
         >>> len(tab.labels), tab.setting
         (12, 'rainfall_mm=300')

@@ -158,19 +158,15 @@ class ExpectedValues:
             + ")"
         )
         header = ["row", "estimate", "s.e.", "95% low", "95% high", "new low", "new high"]
+        cols = ["estimate", "se", "lower", "upper", "new_lower", "new_upper"]
+        vals = fr[cols].to_numpy(dtype=np.float64)[:limit]
         rows = [
-            [
-                str(r.row),
-                _num(r.estimate) if r.estimable else "not estimable",
-                _num(r.se),
-                _num(r.lower),
-                _num(r.upper),
-                _num(r.new_lower),
-                _num(r.new_upper),
-            ]
-            for r in fr.head(limit).itertuples()
+            [str(lab), _num(v[0]) if ok else "not estimable", *(_num(x) for x in v[1:])]
+            for lab, v, ok in zip(self.rows[:limit], vals, self.estimable[:limit], strict=True)
         ]
-        tail = f"... {len(fr) - limit} more rows (row_frame() has them all)" if len(fr) > limit else ""
+        tail = (
+            f"... {len(fr) - limit} more rows (row_frame() has them all)" if len(fr) > limit else ""
+        )
         return head, header, rows, tail
 
     def __repr__(self) -> str:
@@ -253,9 +249,7 @@ def expected_values(
         labels = design.row_index
         w = design.weights
         if weights is not None:
-            raise InputError(
-                "weights= is for new data; the fit's own rows use the fit's weights."
-            )
+            raise InputError("weights= is for new data; the fit's own rows use the fit's weights.")
         w_new: Array | None = np.ones(x.shape[0]) if w is None else w
     else:
         if not isinstance(new, pd.DataFrame):

@@ -114,7 +114,7 @@ class LevelMeanTable:
     reference: str
     covariance: str
     setting: str
-    _rows: Array = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
+    _rows: Array | None = field(repr=False, compare=False, default=None)
     _fit: Any = field(repr=False, compare=False, default=None)
     _vcov: Any = field(repr=False, compare=False, default=None)
 
@@ -142,9 +142,7 @@ class LevelMeanTable:
             raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
         dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
         q = float(dist.ppf(0.5 + level / 2))
-        out = pd.DataFrame(
-            {f: [c[i] for c in self.cells] for i, f in enumerate(self.factors)}
-        )
+        out = pd.DataFrame({f: [c[i] for c in self.cells] for i, f in enumerate(self.factors)})
         out["label"] = list(self.labels)
         out["estimate"] = self.estimate
         out["se"] = self.se
@@ -158,6 +156,7 @@ class LevelMeanTable:
 
     # -- comparisons -------------------------------------------------------------------
     def _test(self, w: Array, labels: list[str]) -> WaldTest:
+        assert self._rows is not None
         c = w @ self._rows
         return self._fit.wald(  # type: ignore[no-any-return]
             from_matrix(c, labels=labels), covariance=self._vcov, reference=self.reference
@@ -226,9 +225,7 @@ class LevelMeanTable:
             f"{key!r} is not a row of this table; rows: {list(self.labels)}."
         )
 
-    def trend(
-        self, values: Sequence[float] | None = None, degree: int | None = None
-    ) -> WaldTest:
+    def trend(self, values: Sequence[float] | None = None, degree: int | None = None) -> WaldTest:
         """A linear slope across ordered numeric levels, beside the orthogonal-polynomial parts.
 
         Parameters
@@ -252,8 +249,8 @@ class LevelMeanTable:
         >>> import lincomb as lc
         >>> f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", lc.datasets.field_trial())
         >>> tr = f.level_means("C(nitrogen)").trend(degree=2)
-        >>> tr.labels
-        ('slope per unit of C(nitrogen)', 'C(nitrogen) trend: linear', 'C(nitrogen) trend: quadratic')
+        >>> tr.labels[0], tr.labels[2]
+        ('slope per unit of C(nitrogen)', 'C(nitrogen) trend: quadratic')
         """
         if len(self.factors) != 1:
             raise ContrastError(
@@ -295,11 +292,10 @@ class LevelMeanTable:
         if self.setting:
             head += f"\nother variables: {self.setting}"
         header = ["level", "mean", "s.e.", "95% low", "95% high"]
+        vals = fr[["estimate", "se", "lower", "upper"]].to_numpy(dtype=np.float64)
         rows = [
-            [r.label, _num(r.estimate), _num(r.se), _num(r.lower), _num(r.upper)]
-            if r.estimable
-            else [r.label, "not estimable", "", "", ""]
-            for r in fr.itertuples()
+            [lab, *(_num(x) for x in v)] if ok else [lab, "not estimable", "", "", ""]
+            for lab, v, ok in zip(self.labels, vals, self.estimable, strict=True)
         ]
         return head, header, rows
 
@@ -318,6 +314,7 @@ class LevelMeanTable:
 def _encode(fit: LinearFit, frame: pd.DataFrame) -> Array:
     """Full model rows (fit column order) of ``frame`` through the fit's encoder."""
     encoder = fit._design.encoder
+    assert encoder is not None  # checked by the caller
     try:
         grid, names = encoder.encode_grid(frame, None, "for the level means")
     except LincombError as exc:
@@ -395,9 +392,10 @@ def level_mean_table(
     k = len(cells)
     setting_parts = [f"{v}={readable(x)}" for v, x in held.items()]
     if covariates == "rows" or weighting == "observed" or others_num:
-        source = fit._design.source  # raises for a fit without rows
-        if source is None:
+        frame_or_none = fit._design.source  # raises for a fit without rows
+        if frame_or_none is None:
             raise ContrastError("this fit keeps no data frame to average over.")
+        source: pd.DataFrame = frame_or_none
     if covariates == "rows":
         base = source[sorted(model_vars)].copy()
         for v, x in held.items():
@@ -425,15 +423,15 @@ def level_mean_table(
                 counts = source.groupby(others_cat, observed=True).size()
                 combos = [c if isinstance(c, tuple) else (c,) for c in counts.index]
                 omega = counts.to_numpy(dtype=np.float64) / counts.sum()
-            setting_parts.append(
-                f"averaged over {', '.join(others_cat)} ({weighting} weights)"
-            )
+            setting_parts.append(f"averaged over {', '.join(others_cat)} ({weighting} weights)")
         else:
             combos, omega = [()], np.ones(1)
         g = len(combos)
         frame = pd.DataFrame(
-            {t: pd.Series([cell[j] for cell in cells for _ in range(g)], dtype=object)
-             for j, t in enumerate(targets)}
+            {
+                t: pd.Series([cell[j] for cell in cells for _ in range(g)], dtype=object)
+                for j, t in enumerate(targets)
+            }
         )
         for j, v in enumerate(others_cat):
             frame[v] = pd.Series([c[j] for _ in range(k) for c in combos], dtype=object)

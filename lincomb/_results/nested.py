@@ -154,11 +154,15 @@ def _check_same_rows(a: LinearFit, b: LinearFit, i: int) -> None:
         why = f"fit {i - 1} used {a.n_obs} rows and fit {i} used {b.n_obs}"
     elif not da.row_index.equals(db.row_index):
         why = f"fits {i - 1} and {i} used rows with other labels"
-    elif not np.array_equal(da.y, db.y):
+    elif not np.array_equal(np.asarray(da.y), np.asarray(db.y)):
         why = f"fits {i - 1} and {i} have other responses ({a.response!r}, {b.response!r})"
     else:
         wa, wb = da.weights, db.weights
-        if (wa is None) != (wb is None) or (wa is not None and not np.array_equal(wa, wb)):
+        if wa is None or wb is None:
+            differ = (wa is None) != (wb is None)
+        else:
+            differ = not np.array_equal(wa, wb)
+        if differ:
             why = f"fits {i - 1} and {i} have other weights"
     if why:
         raise NotNestedError(

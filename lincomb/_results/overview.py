@@ -129,7 +129,8 @@ class FitOverview:
         import html
 
         head, rows = self._rows()
-        return f"<div><p><b>{html.escape(head)}</b></p>{_table_html(['quantity', 'value'], rows)}</div>"
+        table = _table_html(["quantity", "value"], rows)
+        return f"<div><p><b>{html.escape(head)}</b></p>{table}</div>"
 
 
 def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:

@@ -98,7 +98,9 @@ class RowDiagnostics:
         >>> list(f.row_diagnostics().row_frame().columns)[:4]
         ['row', 'response', 'fitted', 'residual']
         """
-        return pd.DataFrame({c: getattr(self, c if c != "row" else "rows") for c in DIAGNOSTIC_COLUMNS})
+        return pd.DataFrame(
+            {c: getattr(self, c if c != "row" else "rows") for c in DIAGNOSTIC_COLUMNS}
+        )
 
     def _table(self) -> tuple[str, list[str], list[list[str]]]:
         n = len(self.rows)
