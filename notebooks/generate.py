@@ -236,7 +236,7 @@ The classical covariance assumes so. The residual spread per line says otherwise
 about twice as noisy as the others.
 """),
     code("""
-rows = f.row_diagnostics().row_frame().set_index("row")   # fitted values, residuals, leverages
+rows = f.row_diagnostics().row_frame().set_index("row")  # fitted values, residuals, leverages
 rows["residual"].groupby(data.loc[rows.index, "line"], observed=True).std().round(2)
 """),
     md("""
@@ -383,7 +383,7 @@ Every test so far would treat the 1040 rows as independent. Residuals of consecu
 the same site are strongly correlated:
 """),
     code("""
-resid = within.row_diagnostics().residual   # the rows in data order (none were dropped)
+resid = within.row_diagnostics().residual  # the rows in data order (none were dropped)
 same_site = data["site"].to_numpy()[1:] == data["site"].to_numpy()[:-1]
 lag1 = np.corrcoef(resid[1:][same_site], resid[:-1][same_site])[0, 1]
 print(f"correlation of residuals in consecutive weeks at a site: {lag1:.2f}")
