@@ -265,8 +265,14 @@ means.differences().adjust("holm").to_frame().round(4)
     code("""
 import pandas as pd
 
-at = pd.DataFrame({"line": ["L1", "L2"], "shift": ["early", "early"],
-                   "temp_dev": [0.0, 2.0], "nozzle_dev": [0.0, 0.0]})
+at = pd.DataFrame(
+    {
+        "line": ["L1", "L2"],
+        "shift": ["early", "early"],
+        "temp_dev": [0.0, 2.0],
+        "nozzle_dev": [0.0, 0.0],
+    }
+)
 f.expected(at).row_frame(level=0.95).round(3)
 """),
     code("""
