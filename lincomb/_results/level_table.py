@@ -101,7 +101,7 @@ class LevelMeanTable:
     >>> f = lc.fit("fill_g ~ line + shift + temperature_c", lc.datasets.fill_lines())
     >>> tab = f.level_means("line")
     >>> tab.labels[:2], tab.setting
-    (('line=L1', 'line=L2'), 'temperature_c=22.45 (mean); averaged over shift (equal weights)')
+    (('line=L1', 'line=L2'), 'temperature_c=21.02 (mean); averaged over shift (equal weights)')
     """
 
     factors: tuple[str, ...]

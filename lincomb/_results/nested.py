@@ -72,8 +72,8 @@ class NestedComparison:
     >>> data = lc.datasets.fill_lines()
     >>> cmp = lc.compare_nested(lc.fit("fill_g ~ line", data),
     ...                         lc.fit("fill_g ~ line + shift", data))
-    >>> cmp.test_frame()["df_test"].tolist()[1]
-    1.0
+    >>> cmp.test_frame()["df_test"].tolist()[1]  # shift has three levels
+    2.0
     """
 
     models: tuple[str, ...]

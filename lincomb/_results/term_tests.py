@@ -90,7 +90,7 @@ class TermTests:
     >>> tab.terms
     ('line', 'shift', 'temperature_c', 'line:shift')
     >>> tab.test_frame()["df_test"].tolist()
-    [3, 1, 1, 3]
+    [3, 2, 1, 6]
     """
 
     terms: tuple[str, ...]
