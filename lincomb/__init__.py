@@ -34,7 +34,13 @@ from lincomb._fit.pooled import combine, without_rows
 from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.plan import PowerPlan, power_plan
 from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
+from lincomb._results.expected import ExpectedValues
+from lincomb._results.level_table import LevelMeanTable
 from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
+from lincomb._results.nested import NestedComparison, compare_nested
+from lincomb._results.overview import FitOverview
+from lincomb._results.row_diagnostics import RowDiagnostics
+from lincomb._results.term_tests import TermTests
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb._settings import blas_threads, set_blas_threads
 
@@ -75,7 +81,14 @@ __all__ = [
     "ManyWaldTest",
     "RestrictedFit",
     "MultipleInference",
+    "ExpectedValues",
+    "RowDiagnostics",
+    "LevelMeanTable",
+    "TermTests",
+    "FitOverview",
+    "NestedComparison",
     "adjust_pvalues",
+    "compare_nested",
     # planning
     "planned_design",
     "power_plan",

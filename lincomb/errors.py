@@ -23,6 +23,7 @@ __all__ = [
     "NotEstimableError",
     "DegenerateFitError",
     "IncompatibleFitError",
+    "NotNestedError",
     "OptionalDependencyError",
     "ParameterError",
     "UnreachablePowerError",
@@ -240,6 +241,20 @@ class IncompatibleFitError(LincombError, ValueError):
     Traceback (most recent call last):
     ...
     lincomb.errors.IncompatibleFitError: fit 1 has other coefficients than fit 0 ...
+    """
+
+
+class NotNestedError(IncompatibleFitError):
+    """Fits compared as nested are not: other rows, or a column space not inside the next one.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> data = lc.datasets.fill_lines()
+    >>> lc.compare_nested(lc.fit("fill_g ~ line", data), lc.fit("fill_g ~ shift", data))
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.NotNestedError: fit 0 is not nested in fit 1: ...
     """
 
 

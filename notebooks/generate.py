@@ -236,9 +236,47 @@ The classical covariance assumes so. The residual spread per line says otherwise
 about twice as noisy as the others.
 """),
     code("""
-fitted = f.encode(data).to_numpy() @ f.coefficients.to_numpy()
-resid = data["fill_g"] - fitted
-resid.groupby(data["line"], observed=True).std().round(2)
+rows = f.row_diagnostics().row_frame().set_index("row")  # fitted values, residuals, leverages
+rows["residual"].groupby(data.loc[rows.index, "line"], observed=True).std().round(2)
+"""),
+    md("""
+## The fit at a glance, term by term, and level by level
+
+`overview()` gives R², the overall F, sigma, log-likelihood, AIC and BIC; `term_tests`
+tests every term's columns jointly (here each adjusted for the terms that do not contain it);
+`level_means` gives the mean fill of each line with the shift averaged over and the covariates
+at their means, and its differences take the usual multiplicity adjustments.  `expected`
+gives the mean fill and an interval for a single new pack at chosen conditions, and
+`compare_nested` asks whether the shift and the covariates add anything to the lines alone.
+"""),
+    code("""
+f.overview()
+"""),
+    code("""
+f.term_tests("non-containing")
+"""),
+    code("""
+means = f.level_means("line")
+means
+"""),
+    code("""
+means.differences().adjust("holm").to_frame().round(4)
+"""),
+    code("""
+import pandas as pd
+
+at = pd.DataFrame(
+    {
+        "line": ["L1", "L2"],
+        "shift": ["early", "early"],
+        "temp_dev": [0.0, 2.0],
+        "nozzle_dev": [0.0, 0.0],
+    }
+)
+f.expected(at).row_frame(level=0.95).round(3)
+"""),
+    code("""
+lc.compare_nested(lc.fit("fill_g ~ 0 + line", data), f)
 """),
     md("""
 With unequal variances the pooled standard error is too small for the noisy line and too large
@@ -351,8 +389,7 @@ Every test so far would treat the 1040 rows as independent. Residuals of consecu
 the same site are strongly correlated:
 """),
     code("""
-fitted = within.encode(data).to_numpy() @ within.coefficients.to_numpy()
-resid = (data["wait_min"] - fitted).to_numpy()
+resid = within.row_diagnostics().residual  # the rows in data order (none were dropped)
 same_site = data["site"].to_numpy()[1:] == data["site"].to_numpy()[:-1]
 lag1 = np.corrcoef(resid[1:][same_site], resid[:-1][same_site])[0, 1]
 print(f"correlation of residuals in consecutive weeks at a site: {lag1:.2f}")

@@ -13,9 +13,9 @@ working coordinates and hands plain arrays to :mod:`lincomb._core`.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -35,6 +35,13 @@ from lincomb.errors import (
     InconsistentRestrictionError,
     NotEstimableError,
 )
+
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._results.expected import ExpectedValues
+    from lincomb._results.level_table import LevelMeanTable
+    from lincomb._results.overview import FitOverview
+    from lincomb._results.row_diagnostics import RowDiagnostics
+    from lincomb._results.term_tests import TermTests
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
@@ -603,6 +610,178 @@ class LinearFit:
 
     def _repr_html_(self) -> str:
         return fit_html(self)
+
+    # -- questions around a test (each capability lives in its own module) ---------------
+    def expected(
+        self,
+        new: pd.DataFrame | None = None,
+        *,
+        weights: ArrayLike | str | None = None,
+        covariance: object = None,
+        reference: str = "F",
+    ) -> ExpectedValues:
+        """Expected (mean) response at the fit's rows or at new data, with intervals.
+
+        Parameters
+        ----------
+        new : pandas.DataFrame, optional
+            New data, encoded with the fit's formula encoder (:meth:`encode`; unseen levels
+            raise).  Default: the rows the fit used.
+        weights : array_like, float or str, optional
+            Weight of one new observation per row of ``new`` (a column name or values), for the
+            interval of a new observation under a weighted fit; default 1 for an unweighted
+            fit (for a weighted fit without it those columns are NaN).
+        covariance : str or estimator, optional
+            Covariance of the mean's standard error (see :meth:`wald`); default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+            t with the estimator's denominator df, or the standard normal.
+
+        Returns
+        -------
+        ExpectedValues
+            ``row_frame(level)`` gives the mean's interval and a new observation's interval;
+            rows not estimable under a rank-deficient fit are flagged, not predicted.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> new = pd.DataFrame({"line": ["L2"], "temperature_c": [22.0]})
+        >>> ev = f.expected(new, covariance="HC3")
+        >>> ev.covariance, ev.row_frame().loc[0, "estimable"]
+        ('HC3', np.True_)
+        """
+        from lincomb._results.expected import expected_values
+
+        return expected_values(
+            self, new, weights=weights, covariance=covariance, reference=reference
+        )
+
+    def row_diagnostics(self) -> RowDiagnostics:
+        """Fitted values, residuals (raw, standardized, studentized) and leverages per row.
+
+        Computed from the R factor (leverages are squared row norms of ``X̃ R⁻¹``), never from
+        an ``n × n`` matrix; see :mod:`lincomb._results.row_diagnostics`.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> bool(np.isclose(f.row_diagnostics().leverage.sum(), f.rank))
+        True
+        """
+        from lincomb._results.row_diagnostics import row_diagnostics
+
+        return row_diagnostics(self)
+
+    def term_tests(
+        self,
+        adjusted_for: str = "preceding",
+        *,
+        covariance: object = None,
+        reference: str = "F",
+    ) -> TermTests:
+        """Joint test of every term's columns, one row per term of the formula.
+
+        Parameters
+        ----------
+        adjusted_for : {'preceding', 'non-containing', 'all-others'}, default 'preceding'
+            What each term is adjusted for: the terms before it in formula order
+            (sequential), every term that does not contain it (marginality), or every other
+            term (see :mod:`lincomb._results.term_tests`).
+        covariance : str or estimator, optional
+            As in :meth:`wald`; default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+            As in :meth:`wald`.
+
+        Returns
+        -------
+        TermTests
+            ``df_test`` counts each term's kept (non-aliased) columns.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
+        >>> last = f.term_tests("all-others").stat[1]
+        >>> bool(np.isclose(last, f.wald(lc.term("shift") == 0).statistic))
+        True
+        """
+        from lincomb._results.term_tests import term_tests
+
+        return term_tests(self, adjusted_for, covariance=covariance, reference=reference)
+
+    def overview(self, *, reference: str = "F") -> FitOverview:
+        """R², adjusted R², the overall test, sigma, log-likelihood, AIC and BIC.
+
+        The overall test (every non-intercept coefficient zero) uses the fit's covariance
+        estimator (:meth:`with_covariance`) and reports the denominator df its tests use.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        >>> f.with_covariance(lc.clustered(by="site")).overview().df_error
+        39.0
+        """
+        from lincomb._results.overview import overview
+
+        return overview(self, reference=reference)
+
+    def level_means(
+        self,
+        factors: str | Sequence[str],
+        *,
+        holding: Mapping[str, Any] | None = None,
+        covariates: str = "mean",
+        weighting: str = "equal",
+        covariance: object = None,
+        reference: str = "F",
+    ) -> LevelMeanTable:
+        """Mean response at each level (or level combination) of factors, with intervals.
+
+        Parameters
+        ----------
+        factors : str or sequence of str
+            Factors as written in the formula (``"C(dose)"``) or their variables.
+        holding : mapping, optional
+            ``{variable: value}``: other variables fixed at a level or a number.
+        covariates : {'mean', 'rows'}, default 'mean'
+            Numeric covariates not held sit at their mean over the fit's rows, or the means
+            are averaged over the fit's rows (every other variable at each row's own value).
+        weighting : {'equal', 'observed'}, default 'equal'
+            Other factors averaged with equal weights over their level combinations, or with
+            the combinations' frequencies among the fit's rows.
+        covariance : str or estimator, optional
+            As in :meth:`wald`; default the fit's own.
+        reference : {'F', 'chi2'}, default 'F'
+
+        Returns
+        -------
+        LevelMeanTable
+            Intervals, no test; ``.differences(...)`` and ``.trend(...)`` give Wald tests
+            (see :mod:`lincomb._results.level_table`).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> data = lc.datasets.field_trial()
+        >>> f = lc.fit("yield_t_ha ~ C(nitrogen) * variety + rainfall_mm", data)
+        >>> tab = f.level_means(["C(nitrogen)", "variety"], holding={"rainfall_mm": 300})
+        >>> len(tab.labels), tab.setting
+        (12, 'rainfall_mm=300')
+        """
+        from lincomb._results.level_table import level_mean_table
+
+        return level_mean_table(
+            self,
+            factors,
+            holding=holding,
+            covariates=covariates,
+            weighting=weighting,
+            covariance=covariance,
+            reference=reference,
+        )
 
 
 def check_rows(

@@ -73,7 +73,14 @@ def _fit_head(f: LinearFit) -> str:
     what = f.formula or f"{f.response} on {len(f.names)} columns"
     extra = f", {f.n_dropped} dropped for missing values" if f.n_dropped else ""
     cov = f.covariance_estimator
-    cov_txt = "" if cov == "classical" else f"\nstandard errors: {cov} covariance"
+    cov_txt = ""
+    if cov != "classical":
+        # the tests' reference df can differ from the residual df (G - 1 for clusters)
+        df_tests = f._covariance_estimate(None).df_den
+        cov_txt = (
+            f"\nstandard errors: {cov} covariance; its t and F tests use {df_tests:g}"
+            " denominator df"
+        )
     return (
         f"LinearFit ({kind}): {what}\n"
         f"n = {f.n_obs}{extra}; rank = {f.rank} of {len(f.names)}; residual df = "
