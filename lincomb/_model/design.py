@@ -560,10 +560,21 @@ def design_from_formula(
     data : pandas.DataFrame
         Not modified.
     weights : str, array_like or None
-        Name of a column of ``data`` or an array aligned with its rows.
+        Name of a column of ``data``, a pandas Series (matched to the rows by index; a missing
+        label raises), or an array in row order.
     missing : {'drop', 'raise'}
         Drop rows with missing values in the formula's variables (or the weights) and count them
         on the fit, or raise :class:`~lincomb.errors.MissingValueError`.
+
+    Notes
+    -----
+    Odd input is refused with :class:`~lincomb.errors.InputError` naming the column and the
+    fix: no rows, or a missing value in every row; duplicate column names; a column named
+    ``Intercept``; date-time, time-delta, period or complex columns; object columns mixing
+    value types.  Nullable and pyarrow-backed text columns are factors like any text column;
+    integer column names are written in backticks (`` `5` ``).  Categories of a categorical
+    column that no row used holds (left over from subsetting) keep their (aliased) columns and
+    are listed in ``encoder.unused_levels``; a test that touches them names them and the fix.
 
     Examples
     --------
@@ -578,7 +589,13 @@ def design_from_formula(
     from lincomb._model.encoder import FormulaEncoder
 
     encoder, rows = FormulaEncoder.learn(
-        formula, data, weights=weights, missing=missing, keep_frame=True
+        formula,
+        data,
+        weights=weights,
+        missing=missing,
+        keep_frame=True,
+        note_unused=True,
+        require_rows=True,
     )
     source = rows.frame.copy(deep=False) if rows.frame is not None else None
     return Design(
