@@ -120,8 +120,13 @@ def row_values(fit: LinearFit, source: Any, what: str) -> tuple[NDArray[Any], st
             return source.reindex(rows).to_numpy(), name
         missing = rows[~rows.isin(source.index)]
         raise CovarianceInputError(
-            f"{what}: the Series {name!r} cannot be aligned with the {n} rows the fit used"
-            + (f" (no entry for row {missing[0]!r})" if len(missing) else " (repeated labels)")
+            f"{what}: the Series {name!r} cannot be aligned by index with the {n} rows the fit"
+            " used"
+            + (
+                f" (its index lacks {len(missing)} of their labels, e.g. {missing[:5].tolist()})"
+                if len(missing)
+                else " (repeated labels)"
+            )
             + "; give a Series indexed like the data, or an array with one value per row used."
         )
     arr = np.asarray(source)

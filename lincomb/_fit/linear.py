@@ -34,6 +34,7 @@ from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
     NotEstimableError,
+    ParameterError,
 )
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
@@ -110,7 +111,7 @@ class LinearFit:
     @classmethod
     def _from_moments(cls, design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
         if not (0 < rank_tol < 1):
-            raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
+            raise ParameterError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
         sol = core.solve(moments, rank_tol)
         names = design.index.names
         if sol.n <= sol.rank:
@@ -679,7 +680,7 @@ def check_rows(
 
 def _check_level(level: float) -> None:
     if not (0 < level < 1):
-        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
 
 
 def fit(

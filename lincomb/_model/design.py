@@ -464,11 +464,30 @@ def design_from_arrays(
     (('one', 'x'), 0)
     """
     if isinstance(x, pd.DataFrame):
+        from lincomb._model.encoder import align_series
+
         if names is None:
             names = [str(c) for c in x.columns]
         rows = x.index
+        text = [str(k) for k, t in x.dtypes.items() if not pd.api.types.is_numeric_dtype(t)]
+        if text:
+            raise InputError(
+                f"X must be numeric, but column(s) {text[:5]} are not; encode categories first"
+                " (or use a formula)."
+            )
+        if isinstance(y, pd.Series):  # a Series beside a DataFrame is matched by index
+            y = align_series(y, rows, "y")
+        if isinstance(weights, pd.Series):
+            weights = align_series(weights, rows, "weights")
     else:
         rows = None
+    for what, v in (("X", x), ("y", y), ("weights", weights)):
+        if v is not None and not isinstance(v, pd.DataFrame):
+            raw = np.asarray(v)
+            if raw.dtype.kind in "USO" and any(isinstance(e, str | bytes) for e in raw.flat):
+                raise InputError(f"{what} must be numeric, but it holds text.")
+            if raw.dtype.kind == "c":
+                raise InputError(f"{what} holds complex numbers; give real values.")
     try:
         xa = np.array(x, dtype=np.float64, copy=True)
     except (TypeError, ValueError) as exc:
@@ -502,7 +521,10 @@ def design_from_arrays(
         _check_finite(ya, "y", None, rows)
     wa = None
     if weights is not None:
-        wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
+        try:
+            wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
+        except (TypeError, ValueError):
+            raise InputError("weights must be numeric (positive numbers).") from None
         if wa.shape[0] != n:
             raise InputError(f"weights has {wa.shape[0]} entries for {n} rows.")
         _validate_weights(wa, rows)
