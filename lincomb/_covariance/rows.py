@@ -161,7 +161,7 @@ def _missing_at(fit: LinearFit, values: NDArray[Any]) -> NDArray[np.intp]:
 def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
     bad = _missing_at(fit, values)
     if bad.size:
-        row = fit._design.row_index[int(bad[0])]
+        row = _show(fit._design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"cluster labels {name!r} are missing at row {row!r} ({bad.size} missing in all);"
             " give every row used a cluster (for example its own label) or drop those rows"
@@ -180,7 +180,7 @@ def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDAr
 def time_order(fit: LinearFit, values: NDArray[Any], name: str) -> NDArray[np.intp]:
     bad = _missing_at(fit, values)
     if bad.size:
-        row = fit._design.row_index[int(bad[0])]
+        row = _show(fit._design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"time order {name!r} is missing at row {row!r} ({bad.size} missing in all); every"
             " row used needs a time value."

@@ -395,6 +395,11 @@ class Design:
         )
 
 
+def _plain_label(label: Any) -> Any:
+    """A row label as a plain Python value (``104``, not ``np.int64(104)``) for messages."""
+    return label.item() if isinstance(label, np.generic) else label
+
+
 def _check_finite(
     a: NDArray[np.float64], what: str, names: Sequence[str] | None, rows: pd.Index | None
 ) -> None:
@@ -407,14 +412,14 @@ def _check_finite(
         return
     if a.ndim == 1:
         i = int(np.flatnonzero(bad)[0])
-        lab = rows[i] if rows is not None else i
+        lab = _plain_label(rows[i]) if rows is not None else i
         raise InputError(
             f"{what} holds {float(a[i])!r} at row {lab!r} ({int(bad.sum())} non-finite values in"
             " all); remove or replace them before fitting."
         )
     i, j = (int(v) for v in np.argwhere(bad)[0])
     col = names[j] if names is not None else j
-    lab = rows[i] if rows is not None else i
+    lab = _plain_label(rows[i]) if rows is not None else i
     raise InputError(
         f"{what} column {col!r} holds {float(a[i, j])!r} at row {lab!r} ({int(bad[:, j].sum())}"
         " non-finite values in that column); remove or replace them before fitting."
@@ -426,7 +431,7 @@ def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
     bad = np.flatnonzero(w <= 0)
     if bad.size:
         i = int(bad[0])
-        lab = rows[i] if rows is not None else i
+        lab = _plain_label(rows[i]) if rows is not None else i
         raise InputError(
             f"weights must be positive: row {lab!r} has weight {float(w[i])!r} ({bad.size} rows"
             " with weight <= 0). Drop those rows, or give them a small positive weight on purpose."

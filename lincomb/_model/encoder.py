@@ -635,6 +635,7 @@ class FormulaEncoder:
 
         lhs, _ = _split(formula)
         variables = _required(formula, sample)
+        sample = _screen(sample, variables, "the data")
         answer = set(_required(lhs, sample)) if lhs else set()
         found = {
             v
