@@ -503,7 +503,7 @@ CASES: list[Case] = [
         "fit_arrays: complex y",
         d(),
         lambda data: lc.fit_arrays(xz(data, "x"), data["y"].to_numpy() + 0j),
-        Err(E.InputError, "y holds complex"),
+        Err(E.InputError, "the response holds complex"),
     ),
     Case(
         "fit_arrays: no rows",

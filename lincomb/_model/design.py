@@ -486,7 +486,7 @@ def design_from_arrays(
             weights = align_series(weights, rows, "weights")
     else:
         rows = None
-    for what, v in (("X", x), ("y", y), ("weights", weights)):
+    for what, v in (("X", x), ("the response", y), ("weights", weights)):
         if v is not None and not isinstance(v, pd.DataFrame):
             raw = np.asarray(v)
             if raw.dtype.kind in "USO" and any(isinstance(e, str | bytes) for e in raw.flat):
