@@ -465,7 +465,14 @@ class _TermRows(_Item):
         return f"{self.name} = {_fmt_num(self.value)}"
 
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
-        for j in index.term_columns(self.name):
+        cols = index.term_columns(self.name)
+        if not cols:
+            raise EmptyRestrictionError(
+                f"term {self.name!r} has no columns in this fit, so it has nothing to test: a"
+                " factor with a single level in the data (or a term the formula absorbed into"
+                " others) adds no coefficient. Leave it out of the restriction (and the formula)."
+            )
+        for j in cols:
             row = np.zeros(len(index.names))
             row[j] = 1.0
             yield row, self.value, f"{index.names[j]} = {_fmt_num(self.value)}"
@@ -603,11 +610,21 @@ def from_matrix(
     <RestrictionSystem: [2 explicit rows]>
     """
     if isinstance(c, pd.DataFrame):
+        text = [str(k) for k, t in c.dtypes.items() if not pd.api.types.is_numeric_dtype(t)]
+        if text:
+            raise RestrictionShapeError(
+                f"C must be numeric, but its column(s) {text[:5]} hold"
+                f" {c[c.columns[[str(k) in text for k in c.columns]][0]].dtype} values;"
+                " convert them with pd.to_numeric first."
+            )
         cm: Any = c.astype(np.float64)
         arr = cm.to_numpy()
         if labels is None and not isinstance(c.index, pd.RangeIndex):
             labels = [str(i) for i in c.index]
     else:
+        raw = np.asarray(c)
+        if raw.dtype.kind in "USO" and any(isinstance(v, str | bytes) for v in raw.flat):
+            raise RestrictionShapeError("C must be numeric, but it holds text.")
         try:
             arr = np.array(c, dtype=np.float64, copy=True)
         except (TypeError, ValueError):

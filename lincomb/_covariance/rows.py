@@ -120,8 +120,13 @@ def row_values(fit: LinearFit, source: Any, what: str) -> tuple[NDArray[Any], st
             return source.reindex(rows).to_numpy(), name
         missing = rows[~rows.isin(source.index)]
         raise CovarianceInputError(
-            f"{what}: the Series {name!r} cannot be aligned with the {n} rows the fit used"
-            + (f" (no entry for row {missing[0]!r})" if len(missing) else " (repeated labels)")
+            f"{what}: the Series {name!r} cannot be aligned by index with the {n} rows the fit"
+            " used"
+            + (
+                f" (its index lacks {len(missing)} of their labels, e.g. {missing[:5].tolist()})"
+                if len(missing)
+                else " (repeated labels)"
+            )
             + "; give a Series indexed like the data, or an array with one value per row used."
         )
     arr = np.asarray(source)
@@ -156,7 +161,7 @@ def _missing_at(fit: LinearFit, values: NDArray[Any]) -> NDArray[np.intp]:
 def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
     bad = _missing_at(fit, values)
     if bad.size:
-        row = fit._design.row_index[int(bad[0])]
+        row = _show(fit._design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"cluster labels {name!r} are missing at row {row!r} ({bad.size} missing in all);"
             " give every row used a cluster (for example its own label) or drop those rows"
@@ -175,7 +180,7 @@ def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDAr
 def time_order(fit: LinearFit, values: NDArray[Any], name: str) -> NDArray[np.intp]:
     bad = _missing_at(fit, values)
     if bad.size:
-        row = fit._design.row_index[int(bad[0])]
+        row = _show(fit._design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"time order {name!r} is missing at row {row!r} ({bad.size} missing in all); every"
             " row used needs a time value."

@@ -17,6 +17,7 @@ from scipy import special
 from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance import estimators as covmod
+from lincomb._model.encoder import unused_level_hint
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
     EmptyRestrictionError,
@@ -164,7 +165,9 @@ def _raise_invalid(
             + "; ".join(parts)
             + _more(len(core.not_estimable))
             + f". Aliased columns: {list(fit.aliased)}. Restate the row as a contrast that the"
-            " data identify, or remove the aliasing from the design." + fix
+            " data identify, or remove the aliasing from the design."
+            + fix
+            + unused_level_hint(fit._design.encoder)
         )
     if core.singular:
         parts = []

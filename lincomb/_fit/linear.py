@@ -27,13 +27,14 @@ from lincomb._builder.contrasts import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._covariance import estimators as covmod
 from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
-from lincomb._model.encoder import require_response
+from lincomb._model.encoder import require_response, unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,
     NotEstimableError,
+    ParameterError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -117,7 +118,7 @@ class LinearFit:
     @classmethod
     def _from_moments(cls, design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
         if not (0 < rank_tol < 1):
-            raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
+            raise ParameterError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
         sol = core.solve(moments, rank_tol)
         names = design.index.names
         if sol.n <= sol.rank:
@@ -367,7 +368,8 @@ class LinearFit:
         NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], core.RowAnalysis
     ]:
         c, d, labels = self.resolve(restrictions)
-        cu, analysis = check_rows(self._sol, c, d, labels, self.names)
+        hint = unused_level_hint(self._design.encoder)
+        cu, analysis = check_rows(self._sol, c, d, labels, self.names, hint=hint)
         return c, d, labels, cu, analysis
 
     def wald(
@@ -791,6 +793,7 @@ def check_rows(
     labels: Sequence[str],
     names: Sequence[str],
     where: str = "this rank-deficient design",
+    hint: str = "",
 ) -> tuple[NDArray[np.float64], core.RowAnalysis]:
     """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
 
@@ -849,14 +852,14 @@ def check_rows(
             f"restriction not estimable under {where}: "
             + "; ".join(msgs)
             + f". Aliased columns: {aliased}. Restate the row as a contrast that the data"
-            " identify, or change the design so those columns are not aliased."
+            " identify, or change the design so those columns are not aliased." + hint
         )
     return cu, analysis
 
 
 def _check_level(level: float) -> None:
     if not (0 < level < 1):
-        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
 
 
 def fit(

@@ -131,6 +131,27 @@ _OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
 # -- response sources --------------------------------------------------------------------------
 
 
+class _FrameColumns:
+    """Picklable reader of a frame's columns by position (``cols`` maps response -> column)."""
+
+    def __init__(self, frame: pd.DataFrame, cols: NDArray[np.intp] | None = None) -> None:
+        self.frame = frame
+        self.cols = cols
+
+    def __call__(self, c: Any) -> Any:
+        return self.frame.iloc[:, c if self.cols is None else self.cols[c]]
+
+
+class _ArrayColumns:
+    """Picklable reader of a 2-D array's columns."""
+
+    def __init__(self, arr: NDArray[Any]) -> None:
+        self.arr = arr
+
+    def __call__(self, c: Any) -> Any:
+        return self.arr[:, c]
+
+
 class _Responses:
     """Columns of responses read in blocks, without copying the whole matrix."""
 
@@ -189,7 +210,7 @@ def _array_source(
         )
         if len(names) != y.shape[1]:
             raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")
-        return _Responses(names, lambda c: y.iloc[:, c], n)
+        return _Responses(names, _FrameColumns(y), n)
     if isinstance(y, pd.Series):
         name = str(y.name) if y.name is not None else "y"
         return _array_source(y.to_frame(name), n, response_names, index)
@@ -212,7 +233,7 @@ def _array_source(
         names = _unique_names(response_names, "response names")
         if len(names) != r:
             raise InputError(f"{len(names)} response names for {r} responses.")
-    return _Responses(names, lambda c: arr[:, c], n)
+    return _Responses(names, _ArrayColumns(arr), n)
 
 
 # -- groups of responses sharing rows ----------------------------------------------------------
@@ -241,6 +262,8 @@ def _design_fit(
     x = design.x if rows is None else design.x[rows]
     w = design.weights if rows is None or design.weights is None else design.weights[rows]
     factor = core.factor_design(x, w, design.intercept)
+    if x.shape[0] == 0:  # a response missing in every row: flagged like too few rows
+        return factor, None
     try:
         lf = LinearFit._from_moments(design, factor.moments, rank_tol)
     except DegenerateFitError:
@@ -1190,7 +1213,7 @@ def fit_many(
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
     if as_names:
         cols = data.columns.get_indexer(list(names))
-        src = _Responses(names, lambda c: data.iloc[:, cols[c]], len(data))
+        src = _Responses(names, _FrameColumns(data, cols), len(data))
         frame = data.drop(columns=list(names))
     else:
         src = _array_source(responses, len(data), response_names, data.index)

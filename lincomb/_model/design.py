@@ -395,6 +395,11 @@ class Design:
         )
 
 
+def _plain_label(label: Any) -> Any:
+    """A row label as a plain Python value (``104``, not ``np.int64(104)``) for messages."""
+    return label.item() if isinstance(label, np.generic) else label
+
+
 def _check_finite(
     a: NDArray[np.float64], what: str, names: Sequence[str] | None, rows: pd.Index | None
 ) -> None:
@@ -407,14 +412,14 @@ def _check_finite(
         return
     if a.ndim == 1:
         i = int(np.flatnonzero(bad)[0])
-        lab = rows[i] if rows is not None else i
+        lab = _plain_label(rows[i]) if rows is not None else i
         raise InputError(
             f"{what} holds {float(a[i])!r} at row {lab!r} ({int(bad.sum())} non-finite values in"
             " all); remove or replace them before fitting."
         )
     i, j = (int(v) for v in np.argwhere(bad)[0])
     col = names[j] if names is not None else j
-    lab = rows[i] if rows is not None else i
+    lab = _plain_label(rows[i]) if rows is not None else i
     raise InputError(
         f"{what} column {col!r} holds {float(a[i, j])!r} at row {lab!r} ({int(bad[:, j].sum())}"
         " non-finite values in that column); remove or replace them before fitting."
@@ -426,7 +431,7 @@ def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
     bad = np.flatnonzero(w <= 0)
     if bad.size:
         i = int(bad[0])
-        lab = rows[i] if rows is not None else i
+        lab = _plain_label(rows[i]) if rows is not None else i
         raise InputError(
             f"weights must be positive: row {lab!r} has weight {float(w[i])!r} ({bad.size} rows"
             " with weight <= 0). Drop those rows, or give them a small positive weight on purpose."
@@ -464,11 +469,30 @@ def design_from_arrays(
     (('one', 'x'), 0)
     """
     if isinstance(x, pd.DataFrame):
+        from lincomb._model.encoder import align_series
+
         if names is None:
             names = [str(c) for c in x.columns]
         rows = x.index
+        text = [str(k) for k, t in x.dtypes.items() if not pd.api.types.is_numeric_dtype(t)]
+        if text:
+            raise InputError(
+                f"X must be numeric, but column(s) {text[:5]} are not; encode categories first"
+                " (or use a formula)."
+            )
+        if isinstance(y, pd.Series):  # a Series beside a DataFrame is matched by index
+            y = align_series(y, rows, "y")
+        if isinstance(weights, pd.Series):
+            weights = align_series(weights, rows, "weights")
     else:
         rows = None
+    for what, v in (("X", x), ("the response", y), ("weights", weights)):
+        if v is not None and not isinstance(v, pd.DataFrame):
+            raw = np.asarray(v)
+            if raw.dtype.kind in "USO" and any(isinstance(e, str | bytes) for e in raw.flat):
+                raise InputError(f"{what} must be numeric, but it holds text.")
+            if raw.dtype.kind == "c":
+                raise InputError(f"{what} holds complex numbers; give real values.")
     try:
         xa = np.array(x, dtype=np.float64, copy=True)
     except (TypeError, ValueError) as exc:
@@ -502,7 +526,10 @@ def design_from_arrays(
         _check_finite(ya, "y", None, rows)
     wa = None
     if weights is not None:
-        wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
+        try:
+            wa = np.array(weights, dtype=np.float64, copy=True).reshape(-1)
+        except (TypeError, ValueError):
+            raise InputError("weights must be numeric (positive numbers).") from None
         if wa.shape[0] != n:
             raise InputError(f"weights has {wa.shape[0]} entries for {n} rows.")
         _validate_weights(wa, rows)
@@ -560,10 +587,21 @@ def design_from_formula(
     data : pandas.DataFrame
         Not modified.
     weights : str, array_like or None
-        Name of a column of ``data`` or an array aligned with its rows.
+        Name of a column of ``data``, a pandas Series (matched to the rows by index; a missing
+        label raises), or an array in row order.
     missing : {'drop', 'raise'}
         Drop rows with missing values in the formula's variables (or the weights) and count them
         on the fit, or raise :class:`~lincomb.errors.MissingValueError`.
+
+    Notes
+    -----
+    Odd input is refused with :class:`~lincomb.errors.InputError` naming the column and the
+    fix: no rows, or a missing value in every row; duplicate column names; a column named
+    ``Intercept``; date-time, time-delta, period or complex columns; object columns mixing
+    value types.  Nullable and pyarrow-backed text columns are factors like any text column;
+    integer column names are written in backticks (`` `5` ``).  Categories of a categorical
+    column that no row used holds (left over from subsetting) keep their (aliased) columns and
+    are listed in ``encoder.unused_levels``; a test that touches them names them and the fix.
 
     Examples
     --------
@@ -578,7 +616,13 @@ def design_from_formula(
     from lincomb._model.encoder import FormulaEncoder
 
     encoder, rows = FormulaEncoder.learn(
-        formula, data, weights=weights, missing=missing, keep_frame=True
+        formula,
+        data,
+        weights=weights,
+        missing=missing,
+        keep_frame=True,
+        note_unused=True,
+        require_rows=True,
     )
     source = rows.frame.copy(deep=False) if rows.frame is not None else None
     return Design(

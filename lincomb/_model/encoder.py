@@ -15,6 +15,7 @@ which builds on it); other layers see formulaic's model spec only through this c
 from __future__ import annotations
 
 import difflib
+import re
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -38,6 +39,9 @@ __all__ = [
     "require_response",
     "cast_levels",
     "refuse_non_numeric_responses",
+    "align_series",
+    "unused_level_hint",
+    "plain",
 ]
 
 
@@ -103,12 +107,183 @@ def cast_levels(
     return out
 
 
+_ANSI = re.compile(r"\x1b\[[0-9;]*[A-Za-z]")
+
+
+def plain(exc: object) -> str:
+    """Text of a message passed through from formulaic, without terminal colour codes.
+
+    Examples
+    --------
+    >>> plain("bad \x1b[1;31mterm\x1b[0m")
+    'bad term'
+    """
+    return _ANSI.sub("", str(exc))
+
+
+def _name_hint(formula: str, frame: pd.DataFrame) -> str:
+    """How to write awkward column names in a formula (added to parse and lookup errors)."""
+    names = [str(c) for c in frame.columns]
+    hints = []
+    tick = [c for c in names if "`" in c]
+    if tick:
+        hints.append(
+            f" Column name(s) {tick[:3]} hold a backtick, which a formula cannot quote: rename"
+            " them (e.g. data.rename(columns=lambda c: c.replace('`', '_')))."
+        )
+    odd = [c for c in names if "`" not in c and not c.isidentifier()]
+    if odd:
+        hints.append(
+            f" A column whose name is not a plain identifier (here e.g. {odd[:3]}) is written in"
+            f" backticks: `{odd[0]}`."
+        )
+    return "".join(hints)
+
+
+def _string_names(frame: pd.DataFrame, where: str | None) -> pd.DataFrame:
+    """``frame`` with non-text column names (integers, ...) turned into text, so that a formula
+    can refer to column ``5`` as `` `5` ``; refuses names that would then collide."""
+    cols = frame.columns
+    if all(isinstance(c, str) for c in cols):
+        return frame
+    text = [str(c) for c in cols]
+    seen: dict[str, int] = {}
+    for c in text:
+        seen[c] = seen.get(c, 0) + 1
+    clash = [c for c, k in seen.items() if k > 1]
+    if clash:
+        raise InputError(
+            f"{where or 'data'} has columns whose names read alike as text: {clash[:5]} (e.g. the"
+            " integer 5 and the string '5'); rename them so every column has a distinct name."
+        )
+    out = frame.copy(deep=False)
+    out.columns = pd.Index(text, dtype=object)
+    return out
+
+
+def _kind(value: object) -> str:
+    if isinstance(value, bool | np.bool_):
+        return "bool"
+    if isinstance(value, int | np.integer):
+        return "int"
+    if isinstance(value, float | np.floating):
+        return "float"
+    if isinstance(value, str | np.str_):
+        return "str"
+    return type(value).__name__
+
+
+def _screen(
+    frame: pd.DataFrame, variables: Sequence[str], where: str | None, extra: Sequence[str] = ()
+) -> pd.DataFrame:
+    """Refuse columns the formula reads that would be encoded wrongly; normalise text dtypes.
+
+    Refused, naming the column: duplicated column names; date-time, time-delta and period
+    columns (their storage unit would silently become the unit of the coefficient); complex
+    numbers; object columns mixing value types (``True`` would merge with ``1``, and ``1`` and
+    ``'1'`` would make two levels that print alike).  Nullable ``string`` columns (Python or
+    pyarrow storage, ``ArrowDtype`` strings) become pandas' default text dtype, which the
+    formula library encodes as a factor.  ``frame`` is not modified.
+    """
+    label = where or "data"
+    used = [v for v in variables if v in frame.columns] + [e for e in extra if e in frame.columns]
+    dup = frame.columns[frame.columns.duplicated()]
+    twice = sorted({str(c) for c in dup if c in used})
+    if twice:
+        raise InputError(
+            f"{label} has duplicate column names: {twice} appear(s) more than once, so the"
+            " formula cannot tell which to use. Rename or drop the copies (e.g."
+            " data.loc[:, ~data.columns.duplicated()])."
+        )
+    out = frame
+    for v in used:
+        col = frame[v]
+        dt = col.dtype
+        kind = getattr(dt, "kind", "O")
+        if kind in "mM" or isinstance(dt, pd.PeriodDtype | pd.DatetimeTZDtype):
+            what = "time differences" if kind == "m" else "dates/times"
+            how = (
+                f"data[{v!r}] / pd.Timedelta(1, 'h') for hours"
+                if kind == "m"
+                else f"(data[{v!r}] - pd.Timestamp('2020-01-01')) / pd.Timedelta(1, 'D') for days"
+                " since a date you choose"
+            )
+            raise InputError(
+                f"{label}: column {v!r} holds {what} ({dt}), which have no unit a regression"
+                f" coefficient could carry (their storage unit would silently become it). Convert"
+                f" it to a number in a unit you choose, e.g. {how}, or to a factor with"
+                f" data[{v!r}].astype(str)."
+            )
+        if kind == "c":
+            raise InputError(
+                f"{label}: column {v!r} holds complex numbers ({dt}); a linear model here needs"
+                " real values: split it into real and imaginary parts (np.real, np.imag)."
+            )
+        if (
+            isinstance(dt, pd.StringDtype)
+            and dt.na_value is not np.nan
+            or (isinstance(dt, pd.ArrowDtype) and pd.api.types.is_string_dtype(dt))
+        ):
+            if out is frame:
+                out = frame.copy(deep=False)
+            out[v] = col.astype(object).where(col.notna(), np.nan).astype("str")
+            continue
+        if kind == "O":
+            inferred = pd.api.types.infer_dtype(col, skipna=True)
+            if inferred.startswith("mixed"):
+                kinds = sorted({_kind(x) for x in pd.unique(col.dropna().to_numpy())})
+                if len(kinds) > 1:
+                    raise InputError(
+                        f"{label}: column {v!r} mixes value types {kinds}, so levels could merge"
+                        " (True with 1) or split while printing alike (1 and '1'). Give it one"
+                        f" type: data[{v!r}].astype(str) for a factor, or"
+                        f" pd.to_numeric(data[{v!r}]) for a number."
+                    )
+    return out
+
+
 def _prefix(where: str | None) -> str:
     return f"{where}: " if where else ""
 
 
+def align_series(series: pd.Series, index: pd.Index, what: str) -> pd.Series:
+    """``series`` aligned to ``index`` by label; a typed error names ``what`` and missing labels.
+
+    A Series given beside a DataFrame is matched to its rows by index, never by position.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> align_series(pd.Series([1.0, 2.0], index=[20, 10]), pd.Index([10, 20]), "w").tolist()
+    [2.0, 1.0]
+    >>> align_series(pd.Series([1.0, 2.0]), pd.Index([10, 20]), "weights")
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: weights is a pandas Series whose index lacks 2 of the data's ...
+    """
+    if series.index.equals(index):
+        return series
+    if not series.index.is_unique:
+        dup = series.index[series.index.duplicated()].unique()[:5].tolist()
+        raise InputError(
+            f"{what} is a pandas Series with repeated index labels {dup}, so it cannot be aligned"
+            " with the data's rows by label; give one value per row label (or an array in row"
+            " order)."
+        )
+    missing = index[~index.isin(series.index)]
+    if len(missing):
+        raise InputError(
+            f"{what} is a pandas Series whose index lacks {len(missing)} of the data's row labels"
+            f" (e.g. {missing[:5].tolist()}); a Series is matched to the rows by index, not by"
+            f" position. Reindex it like the data ({what}.set_axis(data.index) if it is in row"
+            " order), or pass an array (.to_numpy()) to match by position."
+        )
+    return series.reindex(index)
+
+
 def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> pd.Series | None:
-    """Weights as a float Series aligned with ``frame`` (a column name or an aligned array)."""
+    """Weights as a float Series aligned with ``frame``: a column name, a Series (aligned by
+    index) or an array (by position)."""
     if weights is None:
         return None
     if isinstance(weights, str):
@@ -118,6 +293,13 @@ def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> 
                 f"weights column {weights!r} is not in {where or 'data'}. Close: {close}"
             )
         series = frame[weights]
+        if isinstance(series, pd.DataFrame):
+            raise InputError(
+                f"{where or 'data'} has duplicate column names: weights column {weights!r}"
+                " appears more than once; rename or drop the copies."
+            )
+    elif isinstance(weights, pd.Series):
+        series = align_series(weights, frame.index, "weights")
     else:
         wv = np.asarray(weights)
         if wv.ndim != 1 or wv.shape[0] != len(frame):
@@ -125,10 +307,16 @@ def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> 
                 f"weights has {wv.shape[0] if wv.ndim else 1} entries for {len(frame)} rows."
             )
         series = pd.Series(wv, index=frame.index)
-    try:
-        return series.astype(np.float64)
-    except (TypeError, ValueError):
-        raise InputError(f"{_prefix(where)}weights must be numeric.") from None
+    dt = series.dtype
+    if pd.api.types.is_bool_dtype(dt) or not pd.api.types.is_numeric_dtype(dt):
+        sample = series.dropna()
+        shown = repr(sample.iloc[0]) if len(sample) else "none"
+        raise InputError(
+            f"{_prefix(where)}weights must be numeric (positive numbers), but they hold"
+            f" {dt} values (e.g. {shown}); convert them with pd.to_numeric first."
+        )
+    values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    return pd.Series(values, index=series.index, name=series.name)
 
 
 @dataclass(frozen=True)
@@ -211,6 +399,9 @@ class FormulaEncoder:
         Data columns the formula reads (both sides).
     levels : dict
         Declared ``{column: levels}``, applied to every frame before encoding.
+    unused_levels : dict
+        ``{column: levels}`` of categories of a categorical column that no row used holds
+        (noted by :meth:`learn` for in-memory fits; their columns are aliased); else empty.
 
     Examples
     --------
@@ -231,6 +422,7 @@ class FormulaEncoder:
     intercept: int | None
     variables: tuple[str, ...]
     levels: dict[str, tuple[Any, ...]] = field(default_factory=dict)
+    unused_levels: dict[str, tuple[Any, ...]] = field(default_factory=dict)
     _response_variables: tuple[str, ...] = field(default=(), repr=False, compare=False)
     _spec: Any = field(default=None, repr=False, compare=False)
 
@@ -246,11 +438,20 @@ class FormulaEncoder:
         missing: str = "drop",
         where: str | None = None,
         keep_frame: bool = False,
+        note_unused: bool = False,
+        require_rows: bool = False,
     ) -> tuple[FormulaEncoder, EncodedRows]:
         """Fix the encoding on ``data`` and encode its rows, in one formulaic pass.
 
         Rows with a missing value in a variable of the formula (or in the weights) do not
         inform the encoding; they are dropped and listed, or raise with ``missing="raise"``.
+        With ``require_rows``, no row left to fit raises (an empty frame:
+        :class:`~lincomb.errors.InputError`; every row missing a value:
+        :class:`~lincomb.errors.MissingValueError`).
+        With ``note_unused`` (used when ``data`` are all the data, as in :func:`lincomb.fit`),
+        categories of a categorical column that no row used holds (left over from subsetting)
+        are recorded in :attr:`unused_levels`: their columns stay (so fits of parts of the data
+        code alike and combine) but are aliased, and a test touching them names them.
 
         Examples
         --------
@@ -272,6 +473,7 @@ class FormulaEncoder:
             raise InputError(f"{what} {type(data).__name__}{tail}")
         if missing not in ("drop", "raise"):
             raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+        data = _string_names(data, where)
         declared = {k: tuple(v) for k, v in (levels or {}).items()}
         unknown = [v for v in declared if v not in data.columns]
         if unknown:
@@ -280,18 +482,40 @@ class FormulaEncoder:
                 f" Columns: {[str(c) for c in data.columns]}"
             )
         variables = _required(formula, data)
+        if "Intercept" in variables:
+            raise InputError(
+                f"{label} has a column named 'Intercept' that {formula!r} uses: that is the name"
+                " of the intercept's coefficient, so the two would be confused. Rename the column"
+                " (e.g. data.rename(columns={'Intercept': 'intercept_col'}))."
+            )
         w = _weights_series(data, weights, where)
-        work = cast_levels(data, declared, label)
+        work = _screen(data, variables, where, [weights] if isinstance(weights, str) else [])
+        work = cast_levels(work, declared, label)
         na = _na_mask(work, variables, w)
         _refuse_missing(work, na, variables, w, missing, where)
         sub = work.loc[~na] if na.any() else work
+        if require_rows and len(sub) == 0:
+            if len(data) == 0:
+                raise InputError(f"{label} has no rows: there is nothing to fit.")
+            counts = {c: int(work[c].isna().sum()) for c in variables if work[c].isna().any()}
+            if w is not None and w.isna().any():
+                counts["<weights>"] = int(w.isna().sum())
+            raise MissingValueError(
+                f"every one of the {len(data)} rows of {label} has a missing value in a variable"
+                f" of {formula!r} (missing per column: {counts}), so no row is left to fit."
+                " Impute them, or leave the emptiest variables out of the formula."
+            )
+        unused = _unused_levels(sub, variables, declared) if note_unused else {}
         target = f"{lhs} ~ {rhs}" if lhs else rhs
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("error", formulaic.errors.DataMismatchWarning)
                 mm = formulaic.model_matrix(target, sub, na_action="raise")
         except Exception as exc:  # formulaic raises plain errors for unknown variables
-            raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+            raise InputError(
+                f"could not build the design for {formula!r}: {plain(exc)}"
+                + _name_hint(formula, data)
+            ) from None
         spec = mm.model_spec
         rhs_mm = mm.rhs if lhs else mm
         rhs_spec = spec.rhs if lhs else spec
@@ -316,6 +540,12 @@ class FormulaEncoder:
                     " levels={'name': [...]} (an empty sample cannot reveal them)."
                 )
         names = [str(c) for c in rhs_mm.columns]
+        twice = sorted({c for c in names if names.count(c) > 1})
+        if twice:
+            raise InputError(
+                f"the design of {formula!r} has repeated column names {twice}: a data column"
+                " is named like a coded column of another term. Rename that data column."
+            )
         index = _index_from_spec(names, rhs_spec)
         encoder = cls(
             formula=formula,
@@ -324,6 +554,7 @@ class FormulaEncoder:
             intercept=index.terms.get("1", (None,))[0],
             variables=tuple(variables),
             levels=declared,
+            unused_levels=unused,
             _response_variables=response_vars,
             _spec=spec,
         )
@@ -376,7 +607,7 @@ class FormulaEncoder:
                     str(v) for v in formulaic.Formula(_split(formula)[0]).required_variables
                 ]
         except Exception as exc:
-            raise InputError(f"could not parse the formula {formula!r}: {exc}") from None
+            raise InputError(f"could not parse the formula {formula!r}: {plain(exc)}") from None
         cols = {v: pd.Series([], dtype=np.float64) for v in required}
         for v, lv in levels.items():
             cols[v] = pd.Series(pd.Categorical([], categories=list(lv)))
@@ -404,6 +635,7 @@ class FormulaEncoder:
 
         lhs, _ = _split(formula)
         variables = _required(formula, sample)
+        sample = _screen(sample, variables, "the data")
         answer = set(_required(lhs, sample)) if lhs else set()
         found = {
             v
@@ -427,7 +659,7 @@ class FormulaEncoder:
                     str(v) for v in spec.factor_variables.get(factor, ()) if v in sample.columns
                 }
         except Exception as exc:  # noqa: BLE001 - reported with the formula below
-            raise InputError(f"could not build the design for {formula!r}: {exc}") from None
+            raise InputError(f"could not build the design for {formula!r}: {plain(exc)}") from None
         return sorted(found)
 
     @staticmethod
@@ -608,8 +840,10 @@ class FormulaEncoder:
                 f"{where or 'data'} lacks column(s) {absent} that the formula (or weights) uses."
                 f" It has: {[str(c) for c in frame.columns]}"
             )
+        frame = _string_names(frame, where)
         w = _weights_series(frame, weights, where)
-        work = cast_levels(frame, self.levels, where or "data")
+        work = _screen(frame, self.variables, where, [weights] if isinstance(weights, str) else [])
+        work = cast_levels(work, self.levels, where or "data")
         na = _na_mask(work, self.variables, w)
         _refuse_missing(work, na, self.variables, w, missing, where)
         sub = work.loc[~na] if na.any() else work
@@ -626,14 +860,16 @@ class FormulaEncoder:
             try:
                 mm = self._spec.get_model_matrix(sub, na_action="raise")
             except Exception as exc:  # formulaic raises plain errors
-                raise InputError(f"{_prefix(where)}could not encode the rows: {exc}") from None
+                raise InputError(
+                    f"{_prefix(where)}could not encode the rows: {plain(exc)}"
+                ) from None
         for wrn in caught:
             if issubclass(wrn.category, formulaic.errors.DataMismatchWarning):
                 raise UnseenLevelError(
                     f"{where or 'the data'} holds a factor level the encoding lacks"
-                    f" ({wrn.message}). Those rows would silently be coded like the reference"
-                    " level. Declare every level up front, e.g. levels={'column': [...]}, or"
-                    " drop those rows."
+                    f" {self._unseen_text(sub, wrn.message)} Declare every"
+                    " level up front (levels={'column': [...]}) so that each chunk is encoded"
+                    " alike, or drop those rows."
                 )
         two = self.response is not None
         return self._finish(
@@ -680,6 +916,28 @@ class FormulaEncoder:
             _validate_weights(wa, rows)
         return EncodedRows(x, y, wa, rows, dropped, rows_read, sub if keep_frame else None)
 
+    def _unseen_text(self, frame: pd.DataFrame, fallback: object) -> str:
+        """ "column 'g': ['z']. ..." naming the unseen levels (read from the data, not from
+        formulaic's text, which promises outcomes that do not happen here)."""
+        found = []
+        for column, facs in self.categoricals().items():
+            if column not in frame.columns:
+                continue
+            known: set[Any] = set()
+            for _, lv in facs:
+                known |= set(lv)
+            present = pd.unique(frame[column].dropna().to_numpy())
+            new = [v for v in present if v not in known]
+            if new:
+                found.append(f"column {column!r}: {[_show(v) for v in new[:5]]}")
+        if not found:
+            text = plain(fallback).split(":", 1)[-1].split(". They are", 1)[0].strip()
+            found.append(text)
+        return (
+            f"({'; '.join(found)}). The fit has no coefficient for such a level, so those rows"
+            " cannot be encoded."
+        )
+
     def encode_new(self, data: pd.DataFrame) -> pd.DataFrame:
         """Design matrix of new data (right-hand side), refusing levels the encoding lacks.
 
@@ -699,8 +957,10 @@ class FormulaEncoder:
 
         if not isinstance(data, pd.DataFrame):
             raise InputError(f"new data must be a pandas DataFrame, got {type(data).__name__}.")
+        data = _string_names(data, "new data")
         spec = self.rhs_spec
         used = [v for v in sorted(str(v) for v in spec.variables) if v in data.columns]
+        data = _screen(data, used, "new data")
         na = data[used].isna()
         if na.to_numpy().any():
             counts = {c: int(na[c].sum()) for c in used if na[c].any()}
@@ -713,14 +973,14 @@ class FormulaEncoder:
             try:
                 x = spec.get_model_matrix(data, na_action="raise")
             except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
-                raise InputError(f"could not encode the new data: {exc}") from None
+                raise InputError(f"could not encode the new data: {plain(exc)}") from None
         out: pd.DataFrame = x
         for w in caught:
             if issubclass(w.category, formulaic.errors.DataMismatchWarning):
                 raise UnseenLevelError(
-                    f"new data hold a factor level the fit never saw ({w.message}). Such rows"
-                    " would silently be coded like the reference level; remove them or refit"
-                    " with the level present."
+                    f"new data hold a factor level the fit never saw"
+                    f" {self._unseen_text(data, w.message)} Remove those rows, or refit"
+                    " on data that contain those levels."
                 )
         return out
 
@@ -753,10 +1013,13 @@ class FormulaEncoder:
             try:
                 mm = spec.get_model_matrix(frame, na_action="raise")
             except Exception as exc:  # noqa: BLE001 - formulaic raises plain errors
-                raise InputError(f"could not evaluate the model {where}: {exc}") from None
+                raise InputError(f"could not evaluate the model {where}: {plain(exc)}") from None
         for w in caught:
             if issubclass(w.category, formulaic.errors.DataMismatchWarning):
-                raise UnseenLevelError(f"could not evaluate the model {where}: {w.message}")
+                raise UnseenLevelError(
+                    f"could not evaluate the model {where}: a level the fit never saw"
+                    f" {self._unseen_text(frame, w.message)}"
+                )
         x = np.asarray(mm.to_numpy(dtype=np.float64))
         return x, tuple(str(c) for c in spec.column_names)
 
@@ -773,7 +1036,9 @@ def _required(formula: str, frame: pd.DataFrame) -> list[str]:
     try:
         required = formulaic.Formula(target).required_variables
     except Exception as exc:
-        raise InputError(f"could not parse the formula {formula!r}: {exc}") from None
+        raise InputError(
+            f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(formula, frame)
+        ) from None
     return sorted(str(v) for v in required if v in frame.columns)
 
 
@@ -840,3 +1105,50 @@ def refuse_non_numeric_responses(frame: pd.DataFrame, columns: Sequence[str]) ->
 
 def _numeric(dtype: Any) -> bool:
     return bool(pd.api.types.is_numeric_dtype(dtype)) and not isinstance(dtype, pd.CategoricalDtype)
+
+
+def _show(value: Any) -> Any:
+    return value.item() if isinstance(value, np.generic) else value
+
+
+def _unused_levels(
+    frame: pd.DataFrame, variables: Sequence[str], declared: Mapping[str, Any]
+) -> dict[str, tuple[Any, ...]]:
+    """Categories no row holds, per categorical column (declared levels are not reported)."""
+    unused: dict[str, tuple[Any, ...]] = {}
+    for v in variables:
+        if v in declared or v not in frame.columns:
+            continue
+        col = frame[v]
+        if not isinstance(col.dtype, pd.CategoricalDtype):
+            continue
+        held = np.zeros(len(col.cat.categories), dtype=bool)
+        codes = col.cat.codes.to_numpy()
+        held[codes[codes >= 0]] = True
+        if not held.all():
+            unused[v] = tuple(_show(c) for c in col.cat.categories[~held])
+    return unused
+
+
+def unused_level_hint(encoder: FormulaEncoder | None) -> str:
+    """A sentence naming categories no row held and the fix (``""`` when there are none).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": pd.Categorical(["a", "b", "a"], ["a", "b", "c"])})
+    >>> enc, _ = FormulaEncoder.learn("y ~ g", df, note_unused=True)
+    >>> enc.unused_levels
+    {'g': ('c',)}
+    >>> unused_level_hint(enc)[:60]
+    " Categorical column 'g' keeps level(s) ['c'] that no row use"
+    """
+    if encoder is None or not encoder.unused_levels:
+        return ""
+    parts = [
+        f" Categorical column {col!r} keeps level(s) {list(lv)} that no row used holds (left"
+        f" over from subsetting?), so their columns cannot be estimated: drop them with"
+        f" data[{col!r}] = data[{col!r}].cat.remove_unused_categories() and refit."
+        for col, lv in encoder.unused_levels.items()
+    ]
+    return "".join(parts)

@@ -19,6 +19,7 @@ from lincomb._results.format import (
     wald_text,
 )
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
+from lincomb.errors import ParameterError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.multiplicity import MultipleInference
@@ -143,7 +144,7 @@ class WaldTest:
         ['lower', 'upper']
         """
         if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+            raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
         q = self._row_dist().ppf(0.5 + level / 2)
         return pd.DataFrame(
             {
@@ -634,7 +635,7 @@ class WaldBatch:
         ([[0, 0], [1, 0]], [0.9, 0.9])
         """
         if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+            raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
         k, m = self.estimate.shape
         q = self._row_dist().ppf(0.5 + level / 2)
         role = np.full((k, m), "independent", dtype=object)
