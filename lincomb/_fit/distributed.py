@@ -242,6 +242,21 @@ def _frame_part(frame: pd.DataFrame, recipe: FrameRows, k: int, threads: _Spec) 
     return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
 
 
+def _part_values(
+    frame: pd.DataFrame, used: tuple[str, ...], todo: tuple[str, ...]
+) -> tuple[np.ndarray, ...]:
+    """The distinct values of each column in ``todo`` over the rows complete in ``used``."""
+    clean = frame[list(used)].dropna()
+    return tuple(np.asarray(pd.unique(clean[v]), dtype=object) for v in todo)
+
+
+def _merge_values(*parts: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+    return tuple(
+        np.asarray(pd.unique(np.concatenate(cols)), dtype=object)
+        for cols in zip(*parts, strict=True)
+    )
+
+
 def _levels_of(
     data: Any,
     formula: str,
@@ -264,16 +279,22 @@ def _levels_of(
             todo.append(v)
     if todo:
         used = FormulaEncoder.columns_read(formula, meta) + ([weights] if weights else [])
-        clean = data[used].dropna()
+        # A reduction of per-partition value sets, not drop_duplicates: with a distributed
+        # client as the default, Dask plans that as a P2P shuffle, which is heavy for a few
+        # levels and fails when the caller then picks a local scheduler.
+        parts = data.to_delayed()
+        leaves = [
+            dask.delayed(_part_values, pure=True)(part, tuple(used), tuple(todo)) for part in parts
+        ]
         found = _compute(
             dask,
-            [clean[v].drop_duplicates() for v in todo],
+            _tree(dask, leaves, _merge_values, DEFAULT_SPLIT_EVERY),
             scheduler,
-            {},
+            _places([(part, leaf) for part, leaf in zip(parts, leaves, strict=True)], "partition"),
             "the pass that finds the levels of " + ", ".join(map(repr, todo)),
         )
         for v, values in zip(todo, found, strict=True):
-            cats_sorted = pd.Series(np.asarray(values.to_numpy(), dtype=object)).astype("category")
+            cats_sorted = pd.Series(np.asarray(values, dtype=object)).astype("category")
             out[v] = list(cats_sorted.cat.categories)
     return out
 
