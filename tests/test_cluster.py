@@ -153,7 +153,37 @@ def test_many_partitions_find_levels_across_partitions(client: distributed.Clien
     _same(f, ref, lc.term("rank:discipline") == 0)
 
 
-# -- faults ------------------------------------------------------------------------------------
+# -- faults: errors raised in tasks ----------------------------------------------------------------
+
+
+class _ReadError(OSError):
+    pass
+
+
+def _raise_in(frame: pd.DataFrame, first: int) -> pd.DataFrame:
+    if len(frame) and frame.index[0] == first:
+        raise _ReadError(f"cannot read the rows from {first} on: checksum mismatch")
+    return frame
+
+
+def test_a_partition_error_reaches_the_user(client: distributed.Client, prestige: pd.DataFrame):
+    base = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    first = int(base.divisions[3])
+    data = base.map_partitions(_raise_in, first, meta=base._meta)
+    with pytest.raises(_ReadError, match=f"cannot read the rows from {first} on"):
+        lc.fit_dask(PRESTIGE, data, scheduler=client)
+
+
+def test_a_lincomb_error_in_a_task_names_its_partition(
+    client: distributed.Client, prestige: pd.DataFrame
+):
+    # An occupation type the declared levels leave out: raised inside a worker's task.
+    data = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
+    with pytest.raises(lc.errors.UnseenLevelError, match=r"partition \d.*'wc'"):
+        lc.fit_dask(PRESTIGE, data, levels={"type": ["bc", "prof"]}, scheduler=client)
+
+
+# -- faults: workers that die (last in the file: nothing waits for their restart) ------------------
 
 
 def _kill_once(frame: pd.DataFrame, marker: str) -> pd.DataFrame:
@@ -189,7 +219,6 @@ def test_a_worker_killed_mid_fit_is_recomputed(
     # distributed reschedules a task lost with its worker (allowed-failures, default 3)
     assert outcome == "recomputed"
     _same(f, ref, lc.term("type") == 0)
-    client.wait_for_workers(2, timeout=60)
 
 
 def test_a_worker_that_keeps_dying_is_a_typed_error(
@@ -211,31 +240,3 @@ def test_a_worker_that_keeps_dying_is_a_typed_error(
     assert isinstance(info.value, LincombError)
     assert type(info.value.__cause__).__name__ == "KilledWorker"  # the scheduler's own error
     assert "no fit was made" in str(info.value)
-    client.wait_for_workers(2, timeout=60)
-
-
-class _ReadError(OSError):
-    pass
-
-
-def _raise_in(frame: pd.DataFrame, first: int) -> pd.DataFrame:
-    if len(frame) and frame.index[0] == first:
-        raise _ReadError(f"cannot read the rows from {first} on: checksum mismatch")
-    return frame
-
-
-def test_a_partition_error_reaches_the_user(client: distributed.Client, prestige: pd.DataFrame):
-    base = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
-    first = int(base.divisions[3])
-    data = base.map_partitions(_raise_in, first, meta=base._meta)
-    with pytest.raises(_ReadError, match=f"cannot read the rows from {first} on"):
-        lc.fit_dask(PRESTIGE, data, scheduler=client)
-
-
-def test_a_lincomb_error_in_a_task_names_its_partition(
-    client: distributed.Client, prestige: pd.DataFrame
-):
-    # An occupation type the declared levels leave out: raised inside a worker's task.
-    data = dd.from_pandas(prestige.reset_index(drop=True), npartitions=5)
-    with pytest.raises(lc.errors.UnseenLevelError, match=r"partition \d.*'wc'"):
-        lc.fit_dask(PRESTIGE, data, levels={"type": ["bc", "prof"]}, scheduler=client)
