@@ -151,6 +151,42 @@ def test_many_partitions_find_levels_across_partitions(client: distributed.Clien
     ref = lc.fit(formula, sal)
     assert "rank[T.Prof]" in f.names and "rank[T.AssocProf]" not in f.names
     _same(f, ref, lc.term("rank:discipline") == 0)
+    # With the client as Dask's default, a local scheduler must still work: the levels pass once
+    # planned a P2P shuffle (drop_duplicates under a client), which fails off the cluster.
+    _same(lc.fit_dask(formula, data, scheduler="sync"), ref, lc.term("rank:discipline") == 0)
+
+
+def test_what_tasks_carry_pickles_without_cloudpickle(prestige: pd.DataFrame):
+    # Workers receive the fit's row recipe (the frozen FormulaEncoder inside) and the second
+    # pass's state (the fit, the meat, the row map) pickled.  Plain pickle, the stricter of the
+    # two serializers distributed tries, must round-trip them to objects that compute the same
+    # numbers on a partition (the cluster tests above exercise them through the scheduler).
+    import functools
+    import pickle
+
+    from lincomb._covariance.second_pass import RowPass
+    from lincomb._fit.distributed import _merge_rows
+
+    data = dd.from_pandas(prestige, npartitions=3)
+    f = lc.fit_dask(PRESTIGE, data, scheduler="sync")
+    recipe = f._design.second_pass
+    again = pickle.loads(pickle.dumps(recipe))
+    assert again == recipe
+    chunk = prestige.iloc[:40]
+    a, b = recipe.encode(chunk, "chunk", keep_frame=True), again.encode(chunk, "chunk", True)
+    np.testing.assert_array_equal(a.x, b.x)
+    np.testing.assert_array_equal(a.response, b.response)
+    for cov in ("HC3", lc.clustered(by="type")):
+        rp = RowPass(f, cov)
+        rp2 = pickle.loads(pickle.dumps(rp))
+        merge = pickle.loads(pickle.dumps(functools.partial(_merge_rows, rp)))
+        p1 = rp.block(a.x, a.response, a.weights, a.frame, "chunk")
+        p2 = rp2.block(b.x, b.response, b.weights, b.frame, "chunk")
+        assert p1.n == p2.n == a.x.shape[0] and p1.rss == p2.rss
+        m1, m2 = rp.merge(p1, p1), merge(p2, p2)
+        for u, v in zip(vars(m1).values(), vars(m2).values(), strict=True):
+            if isinstance(u, np.ndarray):
+                np.testing.assert_array_equal(u, v)
 
 
 # -- faults: errors raised in tasks ----------------------------------------------------------------

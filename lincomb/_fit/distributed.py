@@ -29,6 +29,16 @@ Each task limits BLAS to one thread (the package's worker setting, see
 :func:`lincomb._fit.chunked.worker_threads`) with threadpoolctl: Dask already runs one task per
 core, and nested BLAS threads oversubscribe the cores.
 
+Failures on a cluster
+---------------------
+A call returns the fit of every partition or raises: nothing computed before a failure is
+returned.  An error raised inside a task (by lincomb, naming the partition, or by the code that
+reads a partition) reaches the caller with its own type and message.  A failure of the
+cluster's own (a worker that died on every attempt, a cancelled task) becomes
+:class:`~lincomb.errors.ClusterTaskError`, naming the partition (or block) whose task was
+given up; a worker that dies once is replaced and its lost work recomputed by the scheduler.
+The levels pass reduces per-partition value sets (a shuffle is not needed for a few levels).
+
 Covariances that need the rows
 ------------------------------
 HC0-HC4 and cluster-robust covariances take the data again: :func:`covariance_pass` is a second
