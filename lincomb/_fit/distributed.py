@@ -217,6 +217,9 @@ def _place_of(graph: Any, task: Any, places: Mapping[Any, str]) -> str | None:
         return None
     if not found:
         return None
+    if len(found) > 1 and len(found) == len(set(places.values())):
+        word = next(iter(found)).split()[0]
+        return f"a task every {word} needs"
     return ", ".join(sorted(found, key=lambda s: (len(s), s)))
 
 
