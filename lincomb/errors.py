@@ -30,6 +30,7 @@ __all__ = [
     "CovarianceInputError",
     "SingularCovarianceError",
     "RowsUnavailableError",
+    "ClusterTaskError",
     "LincombWarning",
     "FewClustersWarning",
     "ContrastError",
@@ -346,6 +347,22 @@ class RowsUnavailableError(LincombError, ValueError):
     Traceback (most recent call last):
     ...
     lincomb.errors.RowsUnavailableError: this fit was built from a fit shared without its rows ...
+    """
+
+
+class ClusterTaskError(LincombError, RuntimeError):
+    """A task of a Dask fit failed on the cluster for a reason of the cluster's own (its worker
+    process died every time the scheduler tried it, or the scheduler cancelled it).
+
+    No fit is returned: the message names the partition or block whose task failed and carries
+    the scheduler's own message, which is also chained as ``__cause__``.  An error raised by the
+    user's code or by lincomb inside a task is not wrapped: it reaches the caller as raised.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> issubclass(lc.errors.ClusterTaskError, RuntimeError)
+    True
     """
 
 

@@ -29,6 +29,16 @@ Each task limits BLAS to one thread (the package's worker setting, see
 :func:`lincomb._fit.chunked.worker_threads`) with threadpoolctl: Dask already runs one task per
 core, and nested BLAS threads oversubscribe the cores.
 
+Failures on a cluster
+---------------------
+A call returns the fit of every partition or raises: nothing computed before a failure is
+returned.  An error raised inside a task (by lincomb, naming the partition, or by the code that
+reads a partition) reaches the caller with its own type and message.  A failure of the
+cluster's own (a worker that died on every attempt, a cancelled task) becomes
+:class:`~lincomb.errors.ClusterTaskError`, naming the partition (or block) whose task was
+given up; a worker that dies once is replaced and its lost work recomputed by the scheduler.
+The levels pass reduces per-partition value sets (a shuffle is not needed for a few levels).
+
 Covariances that need the rows
 ------------------------------
 HC0-HC4 and cluster-robust covariances take the data again: :func:`covariance_pass` is a second
@@ -37,6 +47,9 @@ distributed pass returning an estimate to give as ``covariance=`` to the fit's t
 
 from __future__ import annotations
 
+import asyncio
+import concurrent.futures
+import functools
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -52,7 +65,13 @@ from lincomb._fit.pooled import fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import FormulaEncoder, require_response
 from lincomb._settings import blas_limit, worker_threads
-from lincomb.errors import IncompatibleFitError, InputError, OptionalDependencyError
+from lincomb.errors import (
+    ClusterTaskError,
+    IncompatibleFitError,
+    InputError,
+    LincombError,
+    OptionalDependencyError,
+)
 
 __all__ = ["fit_dask", "fit_dask_arrays", "covariance_pass", "DEFAULT_SPLIT_EVERY"]
 
@@ -137,6 +156,83 @@ def _tree(dask: Any, leaves: list[Any], merge: Any, split_every: int) -> Any:
     return level[0]
 
 
+def _cluster_failure(exc: BaseException) -> bool:
+    """Whether ``exc`` is the scheduler's own failure (a lost worker, a cancelled task).
+
+    Errors raised by code inside a task (lincomb's, the user's, pandas'...) are not: the
+    scheduler re-raises them on the client with their own type, and so do we.
+    """
+    if isinstance(exc, LincombError):
+        return False
+    if isinstance(exc, (asyncio.CancelledError, concurrent.futures.CancelledError)):
+        return True
+    return type(exc).__module__.split(".")[0] == "distributed"
+
+
+def _compute(dask: Any, graph: Any, scheduler: Any, places: Mapping[Any, str], stage: str) -> Any:
+    """``dask.compute`` of one graph; a failure of the cluster's own becomes a lincomb error.
+
+    ``places`` maps task keys to what they read (``"partition 3"``); the key of a task the
+    scheduler gave up on is looked up there, else the error names ``stage``.  Nothing computed
+    before the failure is returned: the caller gets the whole result or an error.
+    """
+    try:
+        (out,) = dask.compute(graph, scheduler=scheduler)
+    except Exception as exc:
+        if not _cluster_failure(exc):
+            raise
+        place = _place_of(graph, getattr(exc, "task", None), places)
+        raise ClusterTaskError(
+            f"{place or stage}: the cluster failed to run its task ({type(exc).__name__}:"
+            f" {exc}), so no fit was made. A worker that dies on every attempt often runs out"
+            " of memory or crashes in the code that reads the data: see the workers' logs, then"
+            " fit again."
+        ) from exc
+    return out
+
+
+def _place_of(graph: Any, task: Any, places: Mapping[Any, str]) -> str | None:
+    """The partitions (blocks) whose results need ``task``: found by following its dependents.
+
+    Runs only after a failure, so walking the whole graph once costs nothing in a fit.
+    """
+    if task is None or not places:
+        return None
+    try:
+        from dask.core import get_deps
+
+        _, dependents = get_deps(dict(graph.__dask_graph__()))
+        found: set[str] = set()
+        todo, seen = [task], {task}
+        while todo:
+            key = todo.pop()
+            if key in places:
+                found.add(places[key])
+                continue
+            for nxt in dependents.get(key, ()):
+                if nxt not in seen:
+                    seen.add(nxt)
+                    todo.append(nxt)
+    except Exception:  # a graph we cannot read: name the stage instead
+        return None
+    if not found:
+        return None
+    if len(found) > 1 and len(found) == len(set(places.values())):
+        word = next(iter(found)).split()[0]
+        return f"a task every {word} needs"
+    return ", ".join(sorted(found, key=lambda s: (len(s), s)))
+
+
+def _places(tasks: Sequence[Sequence[Any]], word: str) -> dict[Any, str]:
+    """Task keys of the ``k``-th partition's (or block's) tasks mapped to ``'{word} k'``."""
+    out: dict[Any, str] = {}
+    for k, group in enumerate(tasks):
+        for t in group:
+            if t is not None:
+                out[t.key] = f"{word} {k}"
+    return out
+
+
 def _check_split(split_every: int) -> None:
     if (
         isinstance(split_every, bool)
@@ -157,6 +253,21 @@ def _frame_part(frame: pd.DataFrame, recipe: FrameRows, k: int, threads: _Spec) 
         if enc.x.shape[0]:
             m = core.moments_from_arrays(enc.x, enc.response, enc.weights, recipe.encoder.intercept)
     return _Part(m, (enc.dropped,) if len(enc.dropped) else (), enc.rows_read)
+
+
+def _part_values(
+    frame: pd.DataFrame, used: tuple[str, ...], todo: tuple[str, ...]
+) -> tuple[np.ndarray, ...]:
+    """The distinct values of each column in ``todo`` over the rows complete in ``used``."""
+    clean = frame[list(used)].dropna()
+    return tuple(np.asarray(pd.unique(clean[v]), dtype=object) for v in todo)
+
+
+def _merge_values(*parts: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+    return tuple(
+        np.asarray(pd.unique(np.concatenate(cols)), dtype=object)
+        for cols in zip(*parts, strict=True)
+    )
 
 
 def _levels_of(
@@ -181,10 +292,22 @@ def _levels_of(
             todo.append(v)
     if todo:
         used = FormulaEncoder.columns_read(formula, meta) + ([weights] if weights else [])
-        clean = data[used].dropna()
-        found = dask.compute(*[clean[v].drop_duplicates() for v in todo], scheduler=scheduler)
+        # A reduction of per-partition value sets, not drop_duplicates: with a distributed
+        # client as the default, Dask plans that as a P2P shuffle, which is heavy for a few
+        # levels and fails when the caller then picks a local scheduler.
+        parts = data.to_delayed()
+        leaves = [
+            dask.delayed(_part_values, pure=True)(part, tuple(used), tuple(todo)) for part in parts
+        ]
+        found = _compute(
+            dask,
+            _tree(dask, leaves, _merge_values, DEFAULT_SPLIT_EVERY),
+            scheduler,
+            _places([(part, leaf) for part, leaf in zip(parts, leaves, strict=True)], "partition"),
+            "the pass that finds the levels of " + ", ".join(map(repr, todo)),
+        )
         for v, values in zip(todo, found, strict=True):
-            cats_sorted = pd.Series(np.asarray(values.to_numpy(), dtype=object)).astype("category")
+            cats_sorted = pd.Series(np.asarray(values, dtype=object)).astype("category")
             out[v] = list(cats_sorted.cat.categories)
     return out
 
@@ -260,12 +383,16 @@ def fit_dask(
     encoder.check_stateless()
     recipe = FrameRows(encoder, weights, missing)
     rec_d = dask.delayed(recipe, pure=True)
+    parts = data.to_delayed()
     leaves = [
         dask.delayed(_frame_part, pure=True)(part, rec_d, k, (threads, os.getpid()))
-        for k, part in enumerate(data.to_delayed())
+        for k, part in enumerate(parts)
     ]
+    places = _places(list(zip(parts, leaves, strict=True)), "partition")
     with blas_limit(threads):
-        (total,) = dask.compute(_tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler)
+        total = _compute(
+            dask, _tree(dask, leaves, _merge_parts, split_every), scheduler, places, "the fit"
+        )
     if total.moments is None:
         raise InputError(
             f"no rows to fit: the {data.npartitions} partitions held {total.rows} rows, all with"
@@ -413,7 +540,16 @@ def fit_dask_arrays(
     names_t = tuple(str(s) for s in names)
     if len(names_t) != p or len(set(names_t)) != p:
         raise InputError(f"names must be {p} unique strings, got {list(names_t)}.")
-    (guess,) = dask.compute(dask.delayed(_first_ones)(xs[0]), scheduler=scheduler)
+    places = _places(
+        [
+            (xk, yk, None if ws is None else ws[k])
+            for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
+        ],
+        "block",
+    )
+    guess = _compute(
+        dask, dask.delayed(_first_ones)(xs[0]), scheduler, places, "the first block's look"
+    )
 
     def run(intercept: int | None) -> _Part:
         spec_d = dask.delayed(_ArraySpec(names_t, intercept), pure=True)
@@ -423,11 +559,11 @@ def fit_dask_arrays(
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
+        here = places | _places([[leaf] for leaf in leaves], "block")
         with blas_limit(threads):
-            (tot,) = dask.compute(
-                _tree(dask, leaves, _merge_parts, split_every), scheduler=scheduler
+            part: _Part = _compute(
+                dask, _tree(dask, leaves, _merge_parts, split_every), scheduler, here, "the fit"
             )
-        part: _Part = tot
         return part
 
     total = run(guess)
@@ -548,10 +684,12 @@ def covariance_pass(
         if not isinstance(data, dd.DataFrame):
             raise InputError("this fit came from a Dask DataFrame: pass that DataFrame again.")
         enc_d = dask.delayed(encoder, pure=True)
+        parts = data.to_delayed()
         leaves = [
             dask.delayed(_frame_rows, pure=True)(part, enc_d, rp_d, k, (threads, os.getpid()))
-            for k, part in enumerate(data.to_delayed())
+            for k, part in enumerate(parts)
         ]
+        places = _places(list(zip(parts, leaves, strict=True)), "partition")
     elif isinstance(encoder, _ArraySpec):
         if not isinstance(data, tuple) or len(data) not in (2, 3):
             raise InputError("this fit came from Dask arrays: pass (x, y) or (x, y, weights).")
@@ -564,15 +702,22 @@ def covariance_pass(
             )
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
+        places = _places(
+            [
+                (xk, yk, None if ws is None else ws[k], leaf)
+                for k, (xk, yk, leaf) in enumerate(zip(xs, ys, leaves, strict=True))
+            ],
+            "block",
+        )
     else:
         raise InputError(
             "covariance_pass needs a fit made by fit_dask or fit_dask_arrays; for an in-memory"
             " fit pass covariance= to its tests directly."
         )
 
-    def merge(*parts: Any) -> Any:
-        return _merge_rows(rp, *parts)
-
+    merge = functools.partial(_merge_rows, rp)  # pickles by reference, unlike a closure
     with blas_limit(threads):
-        (total,) = dask.compute(_tree(dask, leaves, merge, split_every), scheduler=scheduler)
+        total = _compute(
+            dask, _tree(dask, leaves, merge, split_every), scheduler, places, "the second pass"
+        )
     return rp.finish(total)
