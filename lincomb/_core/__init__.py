@@ -79,8 +79,8 @@ from lincomb._core.many import (
 from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
 from lincomb._core.moments import Moments, moments_from_arrays
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
-from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, Solution, solve
-from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
+from lincomb._core.triangular import pow2_scale, safe_norm, triangular_factor, upper_solve
 from lincomb._core.wald import WaldCore, restricted_step, wald_from_root
 
 __all__ = [
@@ -88,9 +88,12 @@ __all__ = [
     "RANK_TOL",
     "CONSTANT_TOL",
     "ROW_TOL",
+    "SUPPORT_FLOOR",
     # factorization primitives
     "triangular_factor",
     "upper_solve",
+    "safe_norm",
+    "pow2_scale",
     # moments and merging
     "Moments",
     "moments_from_arrays",

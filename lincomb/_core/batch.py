@@ -303,13 +303,11 @@ def wald_systems(
         t = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
 
     # screen: clearly independent rows and clearly estimable rows (margin 2x either way)
-    resid, norms = _row_residuals(cu)
+    cd = sol.decision_rows(c)  # redundancy in decision coordinates, as analyze_rows
+    resid, _ = _row_residuals(cd)
     clear = cast("NDArray[np.bool_]", (resid > 2 * tol).all(axis=1))
     if sol.null_basis.shape[1]:
-        proj = np.einsum("kmp,pa->kma", cu, sol.null_basis)
-        res = np.sqrt(_dot(proj, proj))
-        rel = np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
-        clear &= (rel <= tol / 2).all(axis=1)
+        clear &= (sol.estimability_residual(cu) <= tol / 2).all(axis=1)
     if m > r:  # more independent rows than the root has rows: singular or not estimable
         clear[:] = False
 
@@ -332,7 +330,7 @@ def wald_systems(
     bad_v: dict[int, tuple[int, int]] = {}
     exact = np.flatnonzero(~clear)
     for s in exact.tolist():
-        analysis = analyze_rows(cu[s], d[s], tol)
+        analysis = analyze_rows(cd[s], d[s], tol)
         independent = analysis.independent
         rank[s] = independent.size
         if analysis.dependencies:

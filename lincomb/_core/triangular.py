@@ -11,7 +11,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-__all__ = ["triangular_factor", "upper_solve"]
+__all__ = ["pow2_scale", "safe_norm", "triangular_factor", "upper_solve"]
 
 Array = NDArray[np.float64]
 
@@ -98,3 +98,45 @@ def triangular_factor(a: Array, *, overwrite_a: bool = False) -> Array:
     k = min(m, n)
     r[:k] = np.triu(qr[:k])
     return r
+
+
+def pow2_scale(a: Array, axis: int | tuple[int, ...] | None = None) -> Array:
+    """Powers of two ``f`` with ``max|a·f|`` in ``[0.5, 1)`` along ``axis`` (1 where all zero).
+
+    Multiplying by ``f`` is exact (no rounding), so data can be brought near unit size before
+    it is squared and scaled back exactly afterwards, as careful norm routines do.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> f = pow2_scale(np.array([[3e200, 1.0], [0.0, 0.0]]), axis=0)
+    >>> bool(0.5 <= 3e200 * f[0, 0] < 1), float(f[0, 1])
+    (True, 0.5)
+    """
+    amax = np.max(np.abs(a), axis=axis, keepdims=True) if np.size(a) else np.zeros((1,) * a.ndim)
+    amax = np.where(np.isfinite(amax) & (amax > 0), amax, 1.0)
+    _, e = np.frexp(amax)
+    f: Array = np.ldexp(1.0, -e)
+    return f
+
+
+def safe_norm(a: Array, axis: int | None = None) -> Array:
+    """Euclidean norm along ``axis`` without overflow or underflow of the squares.
+
+    Each slice is scaled by a power of two (:func:`pow2_scale`) before squaring and the norm
+    scaled back, so the result is representable whenever the norm is.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> float(safe_norm(np.array([3e200, 4e200]))), float(safe_norm(np.array([3e-200, 4e-200])))
+    (5e+200, 5e-200)
+    """
+    a = np.asarray(a, dtype=np.float64)
+    if axis is None:
+        a = a.reshape(-1)
+        axis = 0
+    f = pow2_scale(a, axis=axis)
+    b = a * f
+    out: Array = np.sqrt(np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1)))
+    return out / np.squeeze(f, axis=axis)

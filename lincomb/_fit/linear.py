@@ -644,7 +644,8 @@ def check_rows(
     ([0], {1: {0: 2.0}})
     """
     cu = sol.to_working(c)
-    analysis = linalg.analyze_rows(cu, d, linalg.ROW_TOL)
+    # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
+    analysis = linalg.analyze_rows(sol.decision_rows(c), d, linalg.ROW_TOL)
     if analysis.inconsistent:
         lines = []
         for row, dval, implied in analysis.inconsistent:
