@@ -147,16 +147,20 @@ class Solution:
         True
         """
         c = np.asarray(c, dtype=np.float64)
-        cd = c / self.scale
         j = self.intercept
         if j is None:
-            return cd
+            return c / self.scale
         c0 = c[..., :, j : j + 1]
         c00 = np.sum(c0 * c0, axis=-2, keepdims=True)
         safe = np.where(c00 > 0, c00, 1.0)
-        for _ in range(2):  # the second pass removes the rounding of the first coefficient
+        # project before scaling: on the given entries of C (often small integers) the first
+        # pass is exact up to the rounding of its coefficient, an error parallel to the
+        # intercept's column that the second pass removes
+        cd = c
+        for _ in range(2):
             coef = np.sum(c0 * cd, axis=-2, keepdims=True) / safe
             cd = cd - c0 * np.where(c00 > 0, coef, 0.0)
+        cd = cd / self.scale
         cd[..., j] = c[..., j] / np.sqrt(max(self.weight_sum, np.finfo(float).tiny))
         return cd
 
