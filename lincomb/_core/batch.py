@@ -57,7 +57,7 @@ from numpy.typing import NDArray
 
 from lincomb._core.rows import ROW_TOL, analyze_rows
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import triangular_factor
+from lincomb._core.triangular import safe_norm, triangular_factor
 from lincomb._core.wald import wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
@@ -145,7 +145,7 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
     system with a small residual is re-analysed exactly, so the assumption never decides.
     """
     k, m, p = cu.shape
-    norms = np.sqrt(_dot(cu, cu))
+    norms = safe_norm(cu, axis=-1)
     v = cu / np.where(norms > 0, norms, 1.0)[..., None]
     out = np.empty((k, m))
     out[:, 0] = norms[:, 0] > 0
@@ -154,7 +154,7 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
         x = v[:, i, :]
         for _ in range(2):  # classical Gram–Schmidt twice, as in analyze_rows
             x = x - np.einsum("kip,ki->kp", b, np.einsum("kip,kp->ki", b, x))
-        rn = np.sqrt(_dot(x, x))
+        rn = safe_norm(x, axis=-1)
         out[:, i] = np.where(norms[:, i] > 0, rn, 0.0)
         if i + 1 < m:
             v[:, i, :] = x / np.where(rn > 0, rn, 1.0)[:, None]
@@ -298,7 +298,7 @@ def wald_systems(
         root_t = np.asarray(root_of(flat))
         root = np.ascontiguousarray(root_t.T).reshape(k, m, root_t.shape[0])
     r = root.shape[2]
-    se = np.sqrt(_dot(root, root))
+    se = safe_norm(root, axis=-1)
     with np.errstate(divide="ignore", invalid="ignore"):
         t = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
 

@@ -15,7 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.merge import merge_tree
-from lincomb._core.triangular import triangular_factor
+from lincomb._core.triangular import safe_norm, triangular_factor
 from lincomb._settings import blas_limit, can_limit, worker_threads
 
 __all__ = ["Moments", "moments_from_arrays"]
@@ -158,7 +158,7 @@ def moments_from_arrays(
     center = m.center.copy()
     center[kept] += shift
     raw_norm = m.raw_norm.copy()
-    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", m.r, m.r) + m.weight_sum * center[kept] ** 2)
+    raw_norm[kept] = np.hypot(safe_norm(m.r, axis=0), np.sqrt(m.weight_sum) * np.abs(center[kept]))
     return Moments(
         n=m.n,
         weight_sum=m.weight_sum,
@@ -211,7 +211,7 @@ def _moments_block(
     # Σ w x² = Σ w (x - m)² + W m²
     raw_norm = np.zeros(p + 1)
     kept = np.append(cols, p)
-    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", r, r) + wsum * center[kept] ** 2)
+    raw_norm[kept] = np.hypot(safe_norm(r, axis=0), np.sqrt(wsum) * np.abs(center[kept]))
     if intercept is not None:
         raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept]))
     return Moments(

@@ -67,6 +67,11 @@ class Solution:
         One null vector per aliased column (its own entry is one), in working coordinates.
     y_norm : float
         Weighted norm of the centred response (for deciding that an RSS is zero).
+    weight_sum : float
+        Sum of the weights.
+    resid_norm : float
+        ``sqrt(rss)``, computed without squaring (``rss`` over- or underflows for data near
+        1e±155 and beyond; this does not).
 
     Examples
     --------
@@ -96,6 +101,7 @@ class Solution:
     null_vectors: Array
     y_norm: float
     weight_sum: float = field(default=0.0)
+    resid_norm: float = field(default=0.0)
 
     @property
     def df_resid(self) -> int:
@@ -270,7 +276,7 @@ class Solution:
         [2]
         """
         nv = self.null_vectors
-        proj = cu_row @ nv / (np.linalg.norm(nv, axis=0) * max(np.linalg.norm(cu_row), 1e-300))
+        proj = cu_row @ nv / (safe_norm(nv, axis=0) * max(float(safe_norm(cu_row)), 1e-300))
         return [int(self.aliased[i]) for i in np.flatnonzero(np.abs(proj) > tol)]
 
 
@@ -331,8 +337,8 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     rx = m.r[:q, :q]
     qty = m.r[:q, q]
     ryy = float(m.r[q, q])
-    y_norm = float(np.hypot(np.linalg.norm(qty), ryy))
-    col_norm = np.linalg.norm(rx, axis=0)
+    y_norm = float(np.hypot(safe_norm(qty), ryy))
+    col_norm = safe_norm(rx, axis=0)
     raw = m.raw_norm[others]
     # constant-to-working-precision columns are aliased with the intercept (package notes)
     live = col_norm > CONSTANT_TOL * np.maximum(raw, np.finfo(float).tiny)
@@ -348,7 +354,11 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         piv = np.zeros(0, dtype=np.intp)
         rank_o = 0
         z = np.zeros(0)
-    rss = ryy**2 + float(z[rank_o:] @ z[rank_o:])
+    # the residual norm, not its square, is kept: the RSS of data near 1e±200 is not
+    # representable, but sigma, the coefficients and their standard errors are
+    resid_norm = float(np.hypot(ryy, safe_norm(z[rank_o:])))
+    with np.errstate(over="ignore", under="ignore"):
+        rss = float(np.float64(resid_norm) ** 2)
     r11 = r2[:rank_o, :rank_o]
     r12 = r2[:rank_o, rank_o:]
     z1 = z[:rank_o]
@@ -396,6 +406,7 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         r=rfull,
         theta=theta,
         rss=float(rss),
+        resid_norm=resid_norm,
         scale=scale,
         center=center,
         intercept=m.intercept,

@@ -12,7 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb._core.triangular import safe_norm, triangular_factor, upper_solve
 
 __all__ = ["WaldCore", "restricted_step", "wald_from_root"]
 
@@ -75,7 +75,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     >>> w.quad, w.std_error.tolist()
     (1.0, [2.0])
     """
-    se = np.linalg.norm(root, axis=0)
+    se = safe_norm(root, axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
         stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
     vk = root[:, independent]

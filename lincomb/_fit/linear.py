@@ -119,7 +119,7 @@ class LinearFit:
                 " terms."
             )
         beta = sol.coefficients()
-        sigma = float(np.sqrt(sol.rss / sol.df_resid))
+        sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
         return cls(
             names=names,
             coefficients=pd.Series(beta, index=list(names), name="estimate"),
@@ -157,7 +157,7 @@ class LinearFit:
         return self._design.dropped
 
     def _check_variance(self) -> None:
-        if self._sol.rss <= (ZERO_RSS_TOL * self._sol.y_norm) ** 2:
+        if self._sol.resid_norm <= ZERO_RSS_TOL * self._sol.y_norm:
             raise DegenerateFitError(
                 f"the residual sum of squares is zero to working precision ({self._sol.rss:.3g}):"
                 " the model reproduces the response exactly, so there is no error variance and no"
@@ -253,11 +253,15 @@ class LinearFit:
         >>> se.shape, se.index[0]
         ((4, 2), 'Intercept')
         """
-        return pd.Series(
-            np.sqrt(np.diag(self.covariance(covariance).to_numpy())),
-            index=list(self.names),
-            name="std_error",
-        )
+        # column norms of the covariance root (not the square root of its diagonal): the
+        # variance of a coefficient of data near 1e±200 is not representable, its s.e. is
+        vcov = self._covariance_estimate(covariance)
+        sol = self._sol
+        est = np.setdiff1d(np.arange(sol.p), sol.aliased)
+        root = vcov.root(sol.to_working(np.eye(sol.p)[est])[:, sol.kept])
+        se = np.full(sol.p, np.nan)
+        se[est] = linalg.safe_norm(root, axis=0)
+        return pd.Series(se, index=list(self.names), name="std_error")
 
     def coef_frame(
         self, level: float = 0.95, *, covariance: object = None, reference: str = "F"
@@ -442,7 +446,7 @@ class LinearFit:
             covariance=vcov.label,
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
-            estimate_covariance=root.T @ root,
+            estimate_covariance=_gram(root),
         )
 
     def wald_batch(
@@ -557,13 +561,16 @@ class LinearFit:
         step, w = linalg.restricted_step(sol, root_k, delta_k)
         beta = sol.from_working(sol.theta + step)
         beta[sol.aliased] = np.nan
-        rss_r = sol.rss + float(np.sum((sol.r @ step) ** 2))
+        # norms, not squares, until the end (see _core): data near 1e±200 stay representable
+        resid_r = float(np.hypot(sol.resid_norm, linalg.safe_norm(sol.r @ step)))
         q = int(k.size)
         df_r = sol.df_resid + q
-        sigma_r2 = rss_r / df_r
+        sigma_r = resid_r / float(np.sqrt(df_r))
+        with np.errstate(over="ignore", under="ignore"):
+            rss_r = float(np.float64(resid_r) ** 2)
         # covariance: map W (working, kept) back to β through A = T⁻¹ S⁻¹ on kept columns
         aw = sol.from_working(w)
-        cov = sigma_r2 * (aw @ aw.T)
+        cov = _gram((sigma_r * aw).T)
         # a row naming one coefficient fixes it: write the exact value, not one off by rounding
         for i in k:
             nz = np.flatnonzero(c[i])
@@ -581,7 +588,7 @@ class LinearFit:
             rss_unrestricted=sol.rss,
             rank=q,
             df_resid=df_r,
-            sigma=float(np.sqrt(sigma_r2)),
+            sigma=sigma_r,
             redundant=analysis.dependencies,
             _cov=pd.DataFrame(cov, index=names, columns=names),
         )
@@ -675,6 +682,13 @@ def check_rows(
             " identify, or change the design so those columns are not aliased."
         )
     return cu, analysis
+
+
+def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
+    """``rootᵀ root``; entries past the float64 range become inf or 0 without a warning."""
+    with np.errstate(over="ignore", under="ignore"):
+        out: NDArray[np.float64] = root.T @ root
+    return out
 
 
 def _check_level(level: float) -> None:
