@@ -11,7 +11,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-__all__ = ["pow2_scale", "safe_norm", "triangular_factor", "upper_solve"]
+__all__ = ["pow2_scale", "row_pivoted_factor", "safe_norm", "triangular_factor", "upper_solve"]
 
 Array = NDArray[np.float64]
 
@@ -140,3 +140,46 @@ def safe_norm(a: Array, axis: int | None = None) -> Array:
     b = a * f
     out: Array = np.sqrt(np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1)))
     return out / np.squeeze(f, axis=axis)
+
+
+def row_pivoted_factor(a: Array) -> Array:
+    """``R`` of ``a = Q R`` by Householder QR with row pivoting (Powell and Reid).
+
+    Before column ``k`` is reduced, the remaining row with the largest entry in that column is
+    swapped into position ``k``.  Plain Householder QR (:func:`triangular_factor`) can lose the
+    rows of a weighted problem whose weights are many orders of magnitude below the others:
+    a heavy row that becomes the pivot of a column carried by light rows brings its own large
+    entries into that row of ``R``, where they must cancel to far below their rounding.  With
+    row pivoting the pivot of such a column is a light row.  ``a`` is not modified.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = np.array([[1.0, 0, 2], [1, 0, 3], [0, 1e-30, 4e-30], [0, 1e-30, 5e-30]])
+    >>> r = row_pivoted_factor(a)
+    >>> float(r[1, 2] / r[1, 1])  # the light rows' own regression of y on column 1: 4.5
+    4.5
+    """
+    a = np.array(a, dtype=np.float64, copy=True)
+    m, n = a.shape
+    r = np.zeros((n, n))
+    for k in range(min(m, n)):
+        col = a[k:, k]
+        i = k + int(np.argmax(np.abs(col)))
+        if i != k:
+            a[[k, i]] = a[[i, k]]
+        x = a[k:, k]
+        f = float(pow2_scale(x)[0])
+        xs = x * f
+        nx = float(np.sqrt(xs @ xs))
+        if nx == 0.0:
+            r[k, k:] = a[k, k:]
+            continue
+        alpha = -nx if xs[0] >= 0 else nx
+        v = xs.copy()
+        v[0] -= alpha
+        coef = (v @ (a[k:, k:] * f)) * (2.0 / float(v @ v))
+        a[k:, k:] -= np.outer(v, coef) / f
+        a[k + 1 :, k] = 0.0
+        r[k, k:] = a[k, k:]
+    return r
