@@ -78,6 +78,7 @@ from lincomb._core.many import (
 )
 from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
 from lincomb._core.moments import Moments, moments_from_arrays
+from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
 from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
 from lincomb._core.triangular import pow2_scale, safe_norm, triangular_factor, upper_solve
@@ -89,6 +90,8 @@ __all__ = [
     "CONSTANT_TOL",
     "ROW_TOL",
     "SUPPORT_FLOOR",
+    "REFINE_COND",
+    "REFINE_STEPS",
     # factorization primitives
     "triangular_factor",
     "upper_solve",
@@ -103,6 +106,8 @@ __all__ = [
     # rank decision and solution
     "Solution",
     "solve",
+    "condition_estimate",
+    "refine",
     # restriction rows and Wald tests
     "RowAnalysis",
     "analyze_rows",

@@ -104,10 +104,12 @@ class LinearFit:
     @classmethod
     def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
         moments = linalg.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
-        return cls._from_moments(design, moments, rank_tol)
+        return cls._from_moments(design, moments, rank_tol, rows=True)
 
     @classmethod
-    def _from_moments(cls, design: Design, moments: linalg.Moments, rank_tol: float) -> LinearFit:
+    def _from_moments(
+        cls, design: Design, moments: linalg.Moments, rank_tol: float, rows: bool = False
+    ) -> LinearFit:
         if not (0 < rank_tol < 1):
             raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
         sol = linalg.solve(moments, rank_tol)
@@ -119,6 +121,9 @@ class LinearFit:
                 " terms."
             )
         beta = sol.coefficients()
+        if rows and linalg.condition_estimate(sol) > linalg.REFINE_COND:
+            # rows in memory: refine an ill-conditioned solution (see lincomb._core.refine)
+            sol, beta = linalg.refine(sol, design.x, design.y, design.weights)
         sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
         return cls(
             names=names,
