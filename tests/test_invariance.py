@@ -95,9 +95,17 @@ def _exact_f(xm: np.ndarray, y: np.ndarray, c: np.ndarray, d: np.ndarray) -> flo
     resid = [yv - sum(r[j] * beta[j] for j in range(p)) for r, yv in zip(xf, yf, strict=True)]
     s2 = sum(e * e for e in resid) / (len(xf) - p)
     cf = _frac(c)
-    delta = [sum(row[j] * beta[j] for j in range(p)) - Fraction(float(dv)) for row, dv in zip(cf, d)]
-    v = [[sum(cf[a][i] * inv[i][j] * cf[b][j] for i in range(p) for j in range(p)) for b in range(len(cf))]
-         for a in range(len(cf))]
+    delta = [
+        sum(row[j] * beta[j] for j in range(p)) - Fraction(float(dv))
+        for row, dv in zip(cf, d, strict=True)
+    ]
+    v = [
+        [
+            sum(cf[a][i] * inv[i][j] * cf[b][j] for i in range(p) for j in range(p))
+            for b in range(len(cf))
+        ]
+        for a in range(len(cf))
+    ]
     w = _solve(v, [[dv] for dv in delta])
     quad = sum(delta[i] * w[i][0] for i in range(len(cf)))
     return float(quad / len(cf) / s2)

@@ -105,9 +105,9 @@ def refine(
     """Refine the coefficients of ``sol`` against the rows ``x``, ``y`` (weights ``w``).
 
     Returns the solution with refined working coefficients and the refined ``β`` (aliased
-    entries NaN).  Each step: ``r = y - Xβ`` in twice the working precision, ``g = Xᵀ W r``, the working
-    correction ``δθ = R⁻¹ R⁻ᵀ (Aᵀ g)_kept`` and ``β ← β + A δθ``; it stops when the correction
-    no longer shrinks ``β`` by more than a unit roundoff.
+    entries NaN).  Each step: ``r = y - Xβ`` in twice the working precision, ``g = Xᵀ W r``,
+    the working correction ``δθ = R⁻¹ R⁻ᵀ (Aᵀ g)_kept`` and ``β ← β + A δθ``; it stops when
+    the correction is below a few unit roundoffs of ``β`` or stops shrinking.
 
     Examples
     --------

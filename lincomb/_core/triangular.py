@@ -138,7 +138,9 @@ def safe_norm(a: Array, axis: int | None = None) -> Array:
         axis = 0
     f = pow2_scale(a, axis=axis)
     b = a * f
-    out: Array = np.sqrt(np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1)))
+    out: Array = np.sqrt(
+        np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1))
+    )
     return out / np.squeeze(f, axis=axis)
 
 
