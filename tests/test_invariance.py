@@ -256,3 +256,20 @@ def test_empty_reference_cell_intercept_not_estimable_beside_large_mean():
     with pytest.raises(NotEstimableError, match="row 0"):
         f.wald(lc.coef("a") == 0)
     assert f.coef_frame()["status"].tolist()[:2] == ["not estimable", "estimable"]
+
+
+def test_batch_takes_the_same_decisions_as_wald_beside_a_large_mean():
+    rng = np.random.default_rng(1)
+    n = 60
+    g = np.repeat([0, 1, 2], 20)
+    x = 1e10 + 0.01 * rng.normal(size=n)
+    xm = np.column_stack([np.ones(n), x, g == 1, g == 2]).astype(float)
+    y = 1 + 50 * (x - 1e10) + 2 * (g == 1) + rng.normal(size=n)
+    f = lc.fit_arrays(xm, y, names=["a", "x", "b", "c"])
+    c = np.array([[[1.0, 0, 0, 0], [1, 0, 1, 0]], [[1.0, 0, 0, 0], [2, 0, 0, 0]]])
+    d = np.array([[5.0, 7.0], [5.0, 10.0]])
+    b = f.wald_batch(c, d)
+    # exact algebra: system 0 has rank 2; system 1 repeats its first row (rank 1, consistent)
+    assert b.to_frame()["rank"].tolist() == [2, 1]
+    single = f.wald(from_matrix(c[0], d[0]))
+    np.testing.assert_allclose(b.p_value[0], single.p_value, rtol=1e-8)

@@ -86,6 +86,15 @@ rounding noise of size ``eps`` on a dependent column from deciding.  A kept colu
 coefficient in a null vector is at most ``rank_tol`` (unit-norm working columns) is left out of
 the support.
 
+The F of a system in which two or more independent rows involve the intercept is computed
+on an equivalent system rotated so that only its first row does
+(:func:`~lincomb._core.wald.intercept_rotation`, a Householder reflection of the rows; the
+others' intercept entries are set to exact zeros): the other rows' working coordinates then
+carry no ``-m_j/s_j`` terms, and F does not lose ``eps·(m_j·sqrt(W)/s_j)²`` to cancellation.
+The vectorized batch path sends such systems to the exact path when some column has
+``|m_j|·sqrt(W)/s_j`` above ``OFFSET_ROTATE`` (1e3, in :mod:`~lincomb._core.batch`); below
+that the cancellation costs at most about 1e-10.
+
 Scale
 -----
 Every norm in the core (column scales, raw norms, residual norm, standard errors, row norms)
@@ -133,7 +142,7 @@ from lincomb._core.triangular import (
     triangular_factor,
     upper_solve,
 )
-from lincomb._core.wald import WaldCore, restricted_step, wald_from_root
+from lincomb._core.wald import WaldCore, intercept_rotation, restricted_step, wald_from_root
 
 __all__ = [
     # tolerances
@@ -165,6 +174,7 @@ __all__ = [
     "analyze_rows",
     "WaldCore",
     "wald_from_root",
+    "intercept_rotation",
     "restricted_step",
     # many responses on one design
     "ResponseBlock",

@@ -58,7 +58,7 @@ from numpy.typing import NDArray
 from lincomb._core.rows import ROW_TOL, analyze_rows
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import safe_norm, triangular_factor
-from lincomb._core.wald import wald_from_root
+from lincomb._core.wald import intercept_rotation, wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
 
@@ -120,6 +120,11 @@ class BatchCore:
     not_estimable: dict[int, NDArray[np.intp]]
     singular: dict[int, tuple[int, int]]
     exact: NDArray[np.intp]
+
+
+#: Largest ``|m_j|·sqrt(W)/s_j`` for which the vectorized path keeps systems with two or more
+#: intercept rows (see :mod:`lincomb._core`).
+OFFSET_ROTATE: float = 1e3
 
 
 def _to_working(sol: Solution, c: Array) -> Array:
@@ -310,6 +315,13 @@ def wald_systems(
         clear &= (sol.estimability_residual(cu) <= tol / 2).all(axis=1)
     if m > r:  # more independent rows than the root has rows: singular or not estimable
         clear[:] = False
+    if sol.intercept is not None:
+        # a column whose mean is large against its spread makes intercept rows cancel in
+        # working coordinates (relative error about eps·offset²): such systems with two or
+        # more intercept rows take the exact path, which rotates them free of the intercept
+        offset = float(np.max(np.abs(sol.center) * np.sqrt(sol.weight_sum) / sol.scale))
+        if offset > OFFSET_ROTATE:
+            clear &= np.count_nonzero(c[:, :, sol.intercept], axis=1) < 2
 
     quad = np.full(k, np.nan)
     rank = np.full(k, m, dtype=np.intp)
@@ -352,7 +364,15 @@ def wald_systems(
             if small.size:
                 bad_v[s] = (int(independent[small[0]]), int(independent.size - small.size))
                 continue
-        quad[s] = wald_from_root(delta[s], root[s].T, independent).quad
+        rotated = intercept_rotation(c[s][independent], d[s][independent], sol.intercept)
+        if rotated is None:
+            quad[s] = wald_from_root(delta[s], root[s].T, independent).quad
+            continue
+        # the same F from rows free of the intercept (see lincomb._core.wald.intercept_rotation)
+        cr = _to_working(sol, rotated[0])[:, sol.kept]
+        root_r = root_rows(sol.r, cr, sigma).T if root_of is None else np.asarray(root_of(cr))
+        delta_r = cr @ sol.theta - rotated[1]
+        quad[s] = wald_from_root(delta_r, root_r, np.arange(independent.size)).quad
     return BatchCore(
         estimate=estimate,
         std_error=se,

@@ -434,6 +434,14 @@ class LinearFit:
         est = cu[:, sol.kept] @ sol.theta
         covmod.check_rank(root, analysis.independent, labels, vcov)
         core = linalg.wald_from_root(est - d, root, analysis.independent)
+        k = analysis.independent
+        rotated = linalg.intercept_rotation(c[k], d[k], sol.intercept)
+        if rotated is not None:  # same F, rows free of the intercept (see lincomb._core)
+            cr = sol.to_working(rotated[0])[:, sol.kept]
+            rot = linalg.wald_from_root(
+                cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size)
+            )
+            core = replace(core, quad=rot.quad)
         dist, stat, df_den, p_value = covmod.reference_result(
             core.quad, core.rank, vcov.df_den, ref
         )
