@@ -829,16 +829,9 @@ CASES: list[Case] = [
 ]
 
 
-# Known wrong today (core numerics, owned by the core engineer): a column scaled beyond about
-# 1e154 or below 1e-154 is declared aliased, because squared column norms overflow or underflow;
-# the rank decision must not depend on scale.  Strict xfail: it fails loudly once fixed.
-XFAIL_CORE = [
-    pytest.param(scale, marks=pytest.mark.xfail(strict=True, reason="core: scale-dependent rank"))
-    for scale in (1e300, 1e-300)
-]
-
-
-@pytest.mark.parametrize("scale", XFAIL_CORE)
+# A column scaled beyond about 1e154 or below 1e-154 was once declared aliased, because squared
+# column norms overflowed or underflowed: the rank decision must not depend on scale.
+@pytest.mark.parametrize("scale", [1e300, 1e-300])
 def test_extreme_column_scale_is_not_aliased(scale: float) -> None:
     df = frame()
     f = lc.fit("y ~ x", df.assign(x=df["x"] * scale))
@@ -847,7 +840,6 @@ def test_extreme_column_scale_is_not_aliased(scale: float) -> None:
     assert same(f.coefficients.iloc[1] * scale, np.polyfit(df["x"], df["y"], 1)[0], 1e-7)
 
 
-@pytest.mark.xfail(strict=True, reason="core: squared response norm overflows (OverflowError)")
 def test_response_near_1e300_fits() -> None:
     df = frame()
     f = lc.fit("y ~ x", df.assign(y=df["y"] * 1e300))

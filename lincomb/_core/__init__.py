@@ -6,11 +6,13 @@ This layer knows nothing of names, formulas or pandas (numpy and scipy only; it 
 factorizations happen.  Other layers import its names from this package, never from its
 modules:
 
-* :mod:`~lincomb._core.triangular`: :func:`triangular_factor`, :func:`upper_solve`;
+* :mod:`~lincomb._core.triangular`: :func:`triangular_factor`, :func:`row_pivoted_factor`,
+  :func:`upper_solve`, :func:`safe_norm`, :func:`pow2_scale`;
 * :mod:`~lincomb._core.moments`: :class:`Moments`, :func:`moments_from_arrays`;
 * :mod:`~lincomb._core.merge`: :func:`merge_moments`, :func:`merge_tree`,
   :class:`MomentMerger` (the one balanced tree every route merges with);
 * :mod:`~lincomb._core.solve`: the rank decision, :class:`Solution`, :func:`solve`;
+* :mod:`~lincomb._core.refine`: :func:`condition_estimate`, :func:`refine` (rows in memory);
 * :mod:`~lincomb._core.rows`: :class:`RowAnalysis`, :func:`analyze_rows`;
 * :mod:`~lincomb._core.wald`: :class:`WaldCore`, :func:`wald_from_root`,
   :func:`restricted_step`;
@@ -61,11 +63,63 @@ tied to float64 itself rather than to ``rank_tol``, so a column near 1e12 that v
 
 Restrictions
 ------------
-Rows of ``C`` are checked in order: a row is *redundant* when its (row-normalized) distance to
-the span of the independent rows before it is at most ``row_tol`` (default :data:`ROW_TOL` =
-1e-9); redundant rows must carry the ``d`` implied by the rows they depend on (relative
-tolerance ``row_tol``) or the system is inconsistent.  A row is *estimable* when its component in
-the null space of the design is at most ``row_tol`` times its norm (both in working coordinates).
+Rows of ``C`` are checked in order, in *decision coordinates* (:meth:`Solution.decision_rows`):
+the intercept's column of ``C`` is projected out of every other column of ``C`` (over the rows
+of the system, in two passes, before any scaling), the other columns are divided by their
+scales ``s_j`` and the intercept's column by ``sqrt(W)``.  That is ``C`` times an invertible
+matrix, so rank, redundancy and the weights of a dependency are those of ``C``; it involves no
+column mean, so it is the same matrix whatever shift or scale a column of the design had
+(exactly when ``C``'s intercept entries are powers of two and the shifted inputs are exact in
+float64; otherwise up to a rounding of about ``eps·|shift|``), and an intercept row is not
+swamped by ``-m_j/s_j`` terms of a column with a large mean, as it is in working coordinates.
+A row is *redundant* when its (row-normalized) distance to the span of the independent rows
+before it is at most ``row_tol`` (default :data:`ROW_TOL` = 1e-9); redundant rows must carry
+the ``d`` implied by the rows they depend on (relative tolerance ``row_tol``) or the system is
+inconsistent.
+
+A row is *estimable* when its component in the null space of the design (working
+coordinates) is at most ``row_tol`` times its part on the *support* of the null space (the
+columns that take part in a dependency of the design), or :data:`SUPPORT_FLOOR` (1e-6) times
+its whole working norm if that is larger.  A column outside every dependency (a covariate near
+1e10, say) then cannot make a non-estimable intercept row look estimable; the floor keeps
+rounding noise of size ``eps`` on a dependent column from deciding.  A kept column whose
+coefficient in a null vector is at most ``rank_tol`` (unit-norm working columns) is left out of
+the support.
+
+The F of a system in which two or more independent rows involve the intercept is computed
+on an equivalent system rotated so that only its first row does
+(:func:`~lincomb._core.wald.intercept_rotation`, a Householder reflection of the rows; the
+others' intercept entries are set to exact zeros): the other rows' working coordinates then
+carry no ``-m_j/s_j`` terms, and F does not lose ``eps·(m_j·sqrt(W)/s_j)²`` to cancellation.
+The vectorized batch path sends such systems to the exact path when some column has
+``|m_j|·sqrt(W)/s_j`` above ``OFFSET_ROTATE`` (1e3, in :mod:`~lincomb._core.batch`); below
+that the cancellation costs at most about 1e-10.
+
+Scale
+-----
+Every norm in the core (column scales, raw norms, residual norm, standard errors, row norms)
+is taken after scaling by a power of two (:func:`safe_norm`, :func:`pow2_scale`), so it is
+representable whenever the result is: data near 1e±200 fit with coefficients, standard errors,
+``sigma`` and F that scale exactly with the data.  :class:`Solution` keeps ``resid_norm``
+(``sqrt(rss)``); ``rss`` itself is ``inf`` or ``0`` when it leaves the float64 range.
+
+Weights spread wider than ``WEIGHT_SPREAD_PIVOT`` (1e8, largest over smallest, in
+:mod:`~lincomb._core.moments`) are factored by Householder QR with row pivoting
+(:func:`row_pivoted_factor`, Powell and Reid), so a cell weighted 1e-60 relative to the others
+keeps its digits.  Only the one-block in-memory factor does this: merges of row blocks
+(blocked in-memory designs of 16,384 rows or more, chunked, Dask and combined fits) stack the
+blocks' factors with plain Householder QR.
+
+Refinement
+----------
+When the rows are in memory (:func:`lincomb.fit`, :func:`lincomb.fit_arrays`) and the 1-norm
+condition estimate of the working factor (:func:`condition_estimate`, LAPACK ``dtrcon``)
+exceeds :data:`REFINE_COND` (1e8), the coefficients are refined (:func:`refine`, at most
+:data:`REFINE_STEPS` = 4 steps): the residual ``y - Xβ`` and the gradient ``Xᵀ W r`` of the
+given float64 data are computed in twice the working precision (error-free transformations),
+and the correction is solved with the existing factor.  Routes without rows (chunks, Dask,
+combined summaries, planned designs) keep the plain Householder solution, accurate to about
+``eps·κ`` (``eps·κ²`` with a large residual) for a working condition number ``κ``.
 """
 
 from lincomb._core.batch import BatchCore, wald_systems
@@ -78,19 +132,32 @@ from lincomb._core.many import (
 )
 from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
 from lincomb._core.moments import Moments, moments_from_arrays
+from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
-from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, Solution, solve
-from lincomb._core.triangular import triangular_factor, upper_solve
-from lincomb._core.wald import WaldCore, restricted_step, wald_from_root
+from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
+from lincomb._core.triangular import (
+    pow2_scale,
+    row_pivoted_factor,
+    safe_norm,
+    triangular_factor,
+    upper_solve,
+)
+from lincomb._core.wald import WaldCore, intercept_rotation, restricted_step, wald_from_root
 
 __all__ = [
     # tolerances
     "RANK_TOL",
     "CONSTANT_TOL",
     "ROW_TOL",
+    "SUPPORT_FLOOR",
+    "REFINE_COND",
+    "REFINE_STEPS",
     # factorization primitives
     "triangular_factor",
     "upper_solve",
+    "safe_norm",
+    "pow2_scale",
+    "row_pivoted_factor",
     # moments and merging
     "Moments",
     "moments_from_arrays",
@@ -100,11 +167,14 @@ __all__ = [
     # rank decision and solution
     "Solution",
     "solve",
+    "condition_estimate",
+    "refine",
     # restriction rows and Wald tests
     "RowAnalysis",
     "analyze_rows",
     "WaldCore",
     "wald_from_root",
+    "intercept_rotation",
     "restricted_step",
     # many responses on one design
     "ResponseBlock",

@@ -57,8 +57,8 @@ from numpy.typing import NDArray
 
 from lincomb._core.rows import ROW_TOL, analyze_rows
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import triangular_factor
-from lincomb._core.wald import wald_from_root
+from lincomb._core.triangular import safe_norm, triangular_factor
+from lincomb._core.wald import intercept_rotation, wald_from_root
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
 
@@ -122,6 +122,11 @@ class BatchCore:
     exact: NDArray[np.intp]
 
 
+#: Largest ``|m_j|·sqrt(W)/s_j`` for which the vectorized path keeps systems with two or more
+#: intercept rows (see :mod:`lincomb._core`).
+OFFSET_ROTATE: float = 1e3
+
+
 def _to_working(sol: Solution, c: Array) -> Array:
     """:meth:`Solution.to_working` for a stack of systems, in two passes over ``c``."""
     if sol.intercept is None:
@@ -145,7 +150,7 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
     system with a small residual is re-analysed exactly, so the assumption never decides.
     """
     k, m, p = cu.shape
-    norms = np.sqrt(_dot(cu, cu))
+    norms = safe_norm(cu, axis=-1)
     v = cu / np.where(norms > 0, norms, 1.0)[..., None]
     out = np.empty((k, m))
     out[:, 0] = norms[:, 0] > 0
@@ -154,7 +159,7 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
         x = v[:, i, :]
         for _ in range(2):  # classical Gram–Schmidt twice, as in analyze_rows
             x = x - np.einsum("kip,ki->kp", b, np.einsum("kip,kp->ki", b, x))
-        rn = np.sqrt(_dot(x, x))
+        rn = safe_norm(x, axis=-1)
         out[:, i] = np.where(norms[:, i] > 0, rn, 0.0)
         if i + 1 < m:
             v[:, i, :] = x / np.where(rn > 0, rn, 1.0)[:, None]
@@ -298,20 +303,25 @@ def wald_systems(
         root_t = np.asarray(root_of(flat))
         root = np.ascontiguousarray(root_t.T).reshape(k, m, root_t.shape[0])
     r = root.shape[2]
-    se = np.sqrt(_dot(root, root))
+    se = safe_norm(root, axis=-1)
     with np.errstate(divide="ignore", invalid="ignore"):
         t = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
 
     # screen: clearly independent rows and clearly estimable rows (margin 2x either way)
-    resid, norms = _row_residuals(cu)
+    cd = sol.decision_rows(c)  # redundancy in decision coordinates, as analyze_rows
+    resid, _ = _row_residuals(cd)
     clear = cast("NDArray[np.bool_]", (resid > 2 * tol).all(axis=1))
     if sol.null_basis.shape[1]:
-        proj = np.einsum("kmp,pa->kma", cu, sol.null_basis)
-        res = np.sqrt(_dot(proj, proj))
-        rel = np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
-        clear &= (rel <= tol / 2).all(axis=1)
+        clear &= (sol.estimability_residual(cu) <= tol / 2).all(axis=1)
     if m > r:  # more independent rows than the root has rows: singular or not estimable
         clear[:] = False
+    if sol.intercept is not None:
+        # a column whose mean is large against its spread makes intercept rows cancel in
+        # working coordinates (relative error about eps·offset²): such systems with two or
+        # more intercept rows take the exact path, which rotates them free of the intercept
+        offset = float(np.max(np.abs(sol.center) * np.sqrt(sol.weight_sum) / sol.scale))
+        if offset > OFFSET_ROTATE:
+            clear &= np.count_nonzero(c[:, :, sol.intercept], axis=1) < 2
 
     quad = np.full(k, np.nan)
     rank = np.full(k, m, dtype=np.intp)
@@ -332,7 +342,7 @@ def wald_systems(
     bad_v: dict[int, tuple[int, int]] = {}
     exact = np.flatnonzero(~clear)
     for s in exact.tolist():
-        analysis = analyze_rows(cu[s], d[s], tol)
+        analysis = analyze_rows(cd[s], d[s], tol)
         independent = analysis.independent
         rank[s] = independent.size
         if analysis.dependencies:
@@ -354,7 +364,15 @@ def wald_systems(
             if small.size:
                 bad_v[s] = (int(independent[small[0]]), int(independent.size - small.size))
                 continue
-        quad[s] = wald_from_root(delta[s], root[s].T, independent).quad
+        rotated = intercept_rotation(c[s][independent], d[s][independent], sol.intercept)
+        if rotated is None:
+            quad[s] = wald_from_root(delta[s], root[s].T, independent).quad
+            continue
+        # the same F from rows free of the intercept (see lincomb._core.wald.intercept_rotation)
+        cr = _to_working(sol, rotated[0])[:, sol.kept]
+        root_r = root_rows(sol.r, cr, sigma).T if root_of is None else np.asarray(root_of(cr))
+        delta_r = cr @ sol.theta - rotated[1]
+        quad[s] = wald_from_root(delta_r, root_r, np.arange(independent.size)).quad
     return BatchCore(
         estimate=estimate,
         std_error=se,

@@ -51,7 +51,7 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
         diff = a.center[cols] - b.center[cols]
         blocks.append(np.sqrt(a.weight_sum * b.weight_sum / wsum) * diff[None, :])
         center = (a.weight_sum * a.center + b.weight_sum * b.center) / wsum
-    raw_norm = np.sqrt(a.raw_norm**2 + b.raw_norm**2)
+    raw_norm = np.hypot(a.raw_norm, b.raw_norm)
     return replace(
         a,
         n=a.n + b.n,

@@ -15,7 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.merge import merge_tree
-from lincomb._core.triangular import triangular_factor
+from lincomb._core.triangular import row_pivoted_factor, safe_norm, triangular_factor
 from lincomb._settings import blas_limit, can_limit, worker_threads
 
 __all__ = ["Moments", "moments_from_arrays"]
@@ -73,6 +73,9 @@ class Moments:
         return idx if self.intercept is None else np.delete(idx, self.intercept)
 
 
+#: Weights spread wider than this (largest / smallest) are factored with row pivoting (see
+#: :mod:`lincomb._core`).
+WEIGHT_SPREAD_PIVOT: float = 1e8
 #: Rows per block when a row-ordered design is copied into the column-ordered work array.
 _COPY_ROWS = 1024
 #: Rows per block when a tall design is factored block by block (see moments_from_arrays).
@@ -158,7 +161,7 @@ def moments_from_arrays(
     center = m.center.copy()
     center[kept] += shift
     raw_norm = m.raw_norm.copy()
-    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", m.r, m.r) + m.weight_sum * center[kept] ** 2)
+    raw_norm[kept] = np.hypot(safe_norm(m.r, axis=0), np.sqrt(m.weight_sum) * np.abs(center[kept]))
     return Moments(
         n=m.n,
         weight_sum=m.weight_sum,
@@ -205,13 +208,16 @@ def _moments_block(
         center[np.append(cols, p)] = m1 + m2
     if w is not None:
         a *= np.sqrt(w)[:, None]
-    r = triangular_factor(a, overwrite_a=True)
+    if w is not None and n and float(w.max()) > WEIGHT_SPREAD_PIVOT * float(w.min()):
+        r = row_pivoted_factor(a)  # light rows keep their digits (see row_pivoted_factor)
+    else:
+        r = triangular_factor(a, overwrite_a=True)
     # raw (uncentred) norms without another pass over the data: the column norms of R are
     # the centred norms, and the weighted centred columns sum to zero, so
     # Σ w x² = Σ w (x - m)² + W m²
     raw_norm = np.zeros(p + 1)
     kept = np.append(cols, p)
-    raw_norm[kept] = np.sqrt(np.einsum("ij,ij->j", r, r) + wsum * center[kept] ** 2)
+    raw_norm[kept] = np.hypot(safe_norm(r, axis=0), np.sqrt(wsum) * np.abs(center[kept]))
     if intercept is not None:
         raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept]))
     return Moments(

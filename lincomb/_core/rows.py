@@ -13,6 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from lincomb._core.triangular import safe_norm
+
 __all__ = ["ROW_TOL", "RowAnalysis", "analyze_rows"]
 
 Array = NDArray[np.float64]
@@ -73,7 +75,7 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     ([0, 1], {2: {0: 1.0, 1: 1.0}}, [])
     """
     m = cu.shape[0]
-    norms = np.linalg.norm(cu, axis=1)
+    norms = safe_norm(cu, axis=1)
     basis: list[Array] = []
     kept: list[int] = []
     deps: dict[int, dict[int, float]] = {}
@@ -85,7 +87,7 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
             qb = np.array(basis)
             resid = v - qb.T @ (qb @ v)
             resid = resid - qb.T @ (qb @ resid)
-        rn = float(np.linalg.norm(resid))
+        rn = float(safe_norm(resid))
         if norms[i] > 0 and rn > tol:
             basis.append(resid / rn)
             kept.append(i)

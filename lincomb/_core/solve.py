@@ -16,9 +16,9 @@ import scipy.linalg as sla
 from numpy.typing import NDArray
 
 from lincomb._core.moments import Moments
-from lincomb._core.triangular import upper_solve
+from lincomb._core.triangular import safe_norm, upper_solve
 
-__all__ = ["CONSTANT_TOL", "RANK_TOL", "Solution", "solve"]
+__all__ = ["CONSTANT_TOL", "RANK_TOL", "SUPPORT_FLOOR", "Solution", "solve", "safe_norm"]
 
 Array = NDArray[np.float64]
 
@@ -27,6 +27,10 @@ RANK_TOL: float = 1e-10
 #: A centred column norm at most this fraction of the raw norm means "constant" (see
 #: :mod:`lincomb._core`).
 CONSTANT_TOL: float = 64 * float(np.finfo(np.float64).eps)
+#: Estimability is judged relative to the part of a row on the columns of the design's
+#: dependencies, but never relative to less than this fraction of the whole working row (see
+#: :mod:`lincomb._core`).
+SUPPORT_FLOOR: float = 1e-6
 
 
 @dataclass(frozen=True)
@@ -63,6 +67,11 @@ class Solution:
         One null vector per aliased column (its own entry is one), in working coordinates.
     y_norm : float
         Weighted norm of the centred response (for deciding that an RSS is zero).
+    weight_sum : float
+        Sum of the weights.
+    resid_norm : float
+        ``sqrt(rss)``, computed without squaring (``rss`` over- or underflows for data near
+        1e±155 and beyond; this does not).
 
     Examples
     --------
@@ -92,6 +101,7 @@ class Solution:
     null_vectors: Array
     y_norm: float
     weight_sum: float = field(default=0.0)
+    resid_norm: float = field(default=0.0)
 
     @property
     def df_resid(self) -> int:
@@ -119,6 +129,46 @@ class Solution:
         if self.intercept is not None:
             cu -= c[..., [self.intercept]] * self.center
         return cu / self.scale
+
+    def decision_rows(self, c: Array) -> Array:
+        """Rows of a system ``C`` (..., m, p) in *decision* coordinates (see :mod:`lincomb._core`).
+
+        The intercept's column of ``C`` is projected out of every other column (over the rows of
+        the system, twice), the other columns are divided by the column scales ``s_j`` and the
+        intercept's own column by ``sqrt(W)``.  This is a right multiplication of ``C`` by an
+        invertible matrix, so the rank of ``C``, which rows are redundant and the weights of
+        their dependencies are those of ``C``; and it is the same matrix whichever shift or
+        scale a column of the design had, with no column mean in it, so an intercept row is not
+        swamped by ``-m_j/s_j`` terms when a column has a large mean.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import moments_from_arrays
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), 1e9 + rng.normal(size=20)])
+        >>> sol = solve(moments_from_arrays(x, rng.normal(size=20), intercept=0))
+        >>> cd = sol.decision_rows(np.array([[1.0, 0.0], [1.0, 1.0]]))
+        >>> bool(abs(np.linalg.det(cd / np.linalg.norm(cd, axis=1)[:, None])) > 0.5)
+        True
+        """
+        c = np.asarray(c, dtype=np.float64)
+        j = self.intercept
+        if j is None:
+            return c / self.scale
+        c0 = c[..., :, j : j + 1]
+        c00 = np.sum(c0 * c0, axis=-2, keepdims=True)
+        safe = np.where(c00 > 0, c00, 1.0)
+        # project before scaling: on the given entries of C (often small integers) the first
+        # pass is exact up to the rounding of its coefficient, an error parallel to the
+        # intercept's column that the second pass removes
+        cd = c
+        for _ in range(2):
+            coef = np.sum(c0 * cd, axis=-2, keepdims=True) / safe
+            cd = cd - c0 * np.where(c00 > 0, coef, 0.0)
+        cd = cd / self.scale
+        cd[..., j] = c[..., j] / np.sqrt(max(self.weight_sum, np.finfo(float).tiny))
+        return cd
 
     def coefficients(self) -> Array:
         """Basic solution ``β`` (aliased entries are NaN).
@@ -184,6 +234,12 @@ class Solution:
     def estimability_residual(self, cu: Array) -> Array:
         """Relative size of each row's component in the null space (0 = estimable).
 
+        ``cu`` is ``(..., p)`` in working coordinates.  The component is measured relative to
+        the row's part on the columns that take part in a dependency of the design (the rows of
+        ``null_basis`` that are not zero), but to no less than :data:`SUPPORT_FLOOR` of the
+        whole row: a column outside every dependency (a large-mean covariate, say) cannot make
+        a non-estimable intercept row look estimable.
+
         Examples
         --------
         >>> import numpy as np
@@ -195,11 +251,15 @@ class Solution:
         >>> (sol.estimability_residual(sol.to_working(c)) > ROW_TOL).tolist()
         [False, True]
         """
+        cu = np.asarray(cu, dtype=np.float64)
         if self.null_basis.shape[1] == 0:
-            return np.zeros(cu.shape[0])
-        norms = np.linalg.norm(cu, axis=1)
-        res = np.linalg.norm(cu @ self.null_basis, axis=1)
-        rel: Array = np.divide(res, norms, out=np.zeros_like(res), where=norms > 0)
+            return np.zeros(cu.shape[:-1])
+        support = np.flatnonzero(np.any(self.null_basis != 0, axis=1))
+        res = safe_norm(cu[..., support] @ self.null_basis[support], axis=-1)
+        den = np.maximum(
+            safe_norm(cu[..., support], axis=-1), SUPPORT_FLOOR * safe_norm(cu, axis=-1)
+        )
+        rel: Array = np.divide(res, den, out=np.zeros_like(res), where=den > 0)
         return rel
 
     def aliased_touched(self, cu_row: Array, tol: float) -> list[int]:
@@ -216,7 +276,7 @@ class Solution:
         [2]
         """
         nv = self.null_vectors
-        proj = cu_row @ nv / (np.linalg.norm(nv, axis=0) * max(np.linalg.norm(cu_row), 1e-300))
+        proj = cu_row @ nv / (safe_norm(nv, axis=0) * max(float(safe_norm(cu_row)), 1e-300))
         return [int(self.aliased[i]) for i in np.flatnonzero(np.abs(proj) > tol)]
 
 
@@ -277,8 +337,8 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     rx = m.r[:q, :q]
     qty = m.r[:q, q]
     ryy = float(m.r[q, q])
-    y_norm = float(np.hypot(np.linalg.norm(qty), ryy))
-    col_norm = np.linalg.norm(rx, axis=0)
+    y_norm = float(np.hypot(safe_norm(qty), ryy))
+    col_norm = safe_norm(rx, axis=0)
     raw = m.raw_norm[others]
     # constant-to-working-precision columns are aliased with the intercept (package notes)
     live = col_norm > CONSTANT_TOL * np.maximum(raw, np.finfo(float).tiny)
@@ -294,7 +354,11 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         piv = np.zeros(0, dtype=np.intp)
         rank_o = 0
         z = np.zeros(0)
-    rss = ryy**2 + float(z[rank_o:] @ z[rank_o:])
+    # the residual norm, not its square, is kept: the RSS of data near 1e±200 is not
+    # representable, but sigma, the coefficients and their standard errors are
+    resid_norm = float(np.hypot(ryy, safe_norm(z[rank_o:])))
+    with np.errstate(over="ignore", under="ignore"):
+        rss = float(np.float64(resid_norm) ** 2)
     r11 = r2[:rank_o, :rank_o]
     r12 = r2[:rank_o, rank_o:]
     z1 = z[:rank_o]
@@ -323,9 +387,14 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     null_vectors = np.zeros((p, n_alias))
     if n_alias:
         coef = -upper_solve(r11, r12) if rank_o else np.zeros((0, n_alias))
+        # a kept column whose share in a dependency is below the rank tolerance (unit-norm
+        # columns) takes no part in it: exact zeros keep it out of the estimability measure
+        coef[np.abs(coef) <= rank_tol] = 0.0
         null_vectors[kept_o, :] = coef
         null_vectors[alias_o, np.arange(n_alias)] = 1.0
-        null_basis = np.linalg.qr(null_vectors)[0]
+        support = np.flatnonzero(np.any(null_vectors != 0, axis=1))
+        null_basis = np.zeros((p, n_alias))
+        null_basis[support] = np.linalg.qr(null_vectors[support])[0]
     else:
         null_basis = null_vectors
     return Solution(
@@ -337,6 +406,7 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
         r=rfull,
         theta=theta,
         rss=float(rss),
+        resid_norm=resid_norm,
         scale=scale,
         center=center,
         intercept=m.intercept,

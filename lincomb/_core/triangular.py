@@ -11,7 +11,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-__all__ = ["triangular_factor", "upper_solve"]
+__all__ = ["pow2_scale", "row_pivoted_factor", "safe_norm", "triangular_factor", "upper_solve"]
 
 Array = NDArray[np.float64]
 
@@ -97,4 +97,91 @@ def triangular_factor(a: Array, *, overwrite_a: bool = False) -> Array:
     r = np.zeros((n, n))
     k = min(m, n)
     r[:k] = np.triu(qr[:k])
+    return r
+
+
+def pow2_scale(a: Array, axis: int | tuple[int, ...] | None = None) -> Array:
+    """Powers of two ``f`` with ``max|a·f|`` in ``[0.5, 1)`` along ``axis`` (1 where all zero).
+
+    Multiplying by ``f`` is exact (no rounding), so data can be brought near unit size before
+    it is squared and scaled back exactly afterwards, as careful norm routines do.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> f = pow2_scale(np.array([[3e200, 1.0], [0.0, 0.0]]), axis=0)
+    >>> bool(0.5 <= 3e200 * f[0, 0] < 1), float(f[0, 1])
+    (True, 0.5)
+    """
+    amax = np.max(np.abs(a), axis=axis, keepdims=True) if np.size(a) else np.zeros((1,) * a.ndim)
+    amax = np.where(np.isfinite(amax) & (amax > 0), amax, 1.0)
+    _, e = np.frexp(amax)
+    f: Array = np.ldexp(1.0, -e)
+    return f
+
+
+def safe_norm(a: Array, axis: int | None = None) -> Array:
+    """Euclidean norm along ``axis`` without overflow or underflow of the squares.
+
+    Each slice is scaled by a power of two (:func:`pow2_scale`) before squaring and the norm
+    scaled back, so the result is representable whenever the norm is.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> float(safe_norm(np.array([3e200, 4e200]))), float(safe_norm(np.array([3e-200, 4e-200])))
+    (5e+200, 5e-200)
+    """
+    a = np.asarray(a, dtype=np.float64)
+    if axis is None:
+        a = a.reshape(-1)
+        axis = 0
+    f = pow2_scale(a, axis=axis)
+    b = a * f
+    out: Array = np.sqrt(
+        np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1))
+    )
+    return out / np.squeeze(f, axis=axis)
+
+
+def row_pivoted_factor(a: Array) -> Array:
+    """``R`` of ``a = Q R`` by Householder QR with row pivoting (Powell and Reid).
+
+    Before column ``k`` is reduced, the remaining row with the largest entry in that column is
+    swapped into position ``k``.  Plain Householder QR (:func:`triangular_factor`) can lose the
+    rows of a weighted problem whose weights are many orders of magnitude below the others:
+    a heavy row that becomes the pivot of a column carried by light rows brings its own large
+    entries into that row of ``R``, where they must cancel to far below their rounding.  With
+    row pivoting the pivot of such a column is a light row.  ``a`` is not modified.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = np.array([[1.0, 0, 2], [1, 0, 3], [0, 1e-30, 4e-30], [0, 1e-30, 5e-30]])
+    >>> r = row_pivoted_factor(a)
+    >>> float(r[1, 2] / r[1, 1])  # the light rows' own regression of y on column 1: 4.5
+    4.5
+    """
+    a = np.array(a, dtype=np.float64, copy=True)
+    m, n = a.shape
+    r = np.zeros((n, n))
+    for k in range(min(m, n)):
+        col = a[k:, k]
+        i = k + int(np.argmax(np.abs(col)))
+        if i != k:
+            a[[k, i]] = a[[i, k]]
+        x = a[k:, k]
+        f = float(pow2_scale(x)[0])
+        xs = x * f
+        nx = float(np.sqrt(xs @ xs))
+        if nx == 0.0:
+            r[k, k:] = a[k, k:]
+            continue
+        alpha = -nx if xs[0] >= 0 else nx
+        v = xs.copy()
+        v[0] -= alpha
+        coef = (v @ (a[k:, k:] * f)) * (2.0 / float(v @ v))
+        a[k:, k:] -= np.outer(v, coef) / f
+        a[k + 1 :, k] = 0.0
+        r[k, k:] = a[k, k:]
     return r

@@ -12,9 +12,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb._core.triangular import safe_norm, triangular_factor, upper_solve
 
-__all__ = ["WaldCore", "restricted_step", "wald_from_root"]
+__all__ = ["WaldCore", "intercept_rotation", "restricted_step", "wald_from_root"]
 
 Array = NDArray[np.float64]
 
@@ -75,7 +75,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     >>> w.quad, w.std_error.tolist()
     (1.0, [2.0])
     """
-    se = np.linalg.norm(root, axis=0)
+    se = safe_norm(root, axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
         stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
     vk = root[:, independent]
@@ -132,3 +132,36 @@ def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array
     step = -upper_solve(sol.r, qv[:, :q] @ g)
     w = upper_solve(sol.r, qv[:, q:])
     return step, w
+
+
+def intercept_rotation(c: Array, d: Array, intercept: int | None) -> tuple[Array, Array] | None:
+    """An equivalent system in which at most one row involves the intercept, or None.
+
+    The F of ``Cβ = d`` does not change when ``(C, d)`` is replaced by ``(H C, H d)`` for an
+    invertible ``H``.  With a Householder reflection ``H`` that maps the intercept's column of
+    ``C`` to a multiple of the first unit vector, every row but the first is free of the
+    intercept (its entry is set to an exact zero), so its working coordinates carry no
+    ``-m_j/s_j`` terms: the test of an intercept row beside level rows, with a column of large
+    mean, no longer subtracts estimates of that size from one another.  None when at most one
+    row involves the intercept already.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c = np.array([[1.0, 0.0, 0.0], [1.0, 0.0, 1.0]])
+    >>> c2, d2 = intercept_rotation(c, np.array([5.0, 7.0]), 0)
+    >>> float(c2[1, 0]), bool(np.allclose(np.linalg.svd(c2)[1], np.linalg.svd(c)[1]))
+    (0.0, True)
+    """
+    if intercept is None or np.count_nonzero(c[:, intercept]) < 2:
+        return None
+    v = c[:, intercept].astype(np.float64)
+    nv = float(safe_norm(v))
+    alpha = -nv if v[0] >= 0 else nv
+    u = v.copy()
+    u[0] -= alpha
+    f = 2.0 / float(u @ u)
+    c2 = c - np.outer(u, f * (u @ c))
+    d2 = d - u * (f * float(u @ d))
+    c2[1:, intercept] = 0.0
+    return c2, d2

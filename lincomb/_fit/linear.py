@@ -113,10 +113,12 @@ class LinearFit:
     @classmethod
     def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
         moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
-        return cls._from_moments(design, moments, rank_tol)
+        return cls._from_moments(design, moments, rank_tol, rows=True)
 
     @classmethod
-    def _from_moments(cls, design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
+    def _from_moments(
+        cls, design: Design, moments: core.Moments, rank_tol: float, rows: bool = False
+    ) -> LinearFit:
         if not (0 < rank_tol < 1):
             raise ParameterError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
         sol = core.solve(moments, rank_tol)
@@ -128,7 +130,10 @@ class LinearFit:
                 " terms."
             )
         beta = sol.coefficients()
-        sigma = float(np.sqrt(sol.rss / sol.df_resid))
+        if rows and core.condition_estimate(sol) > core.REFINE_COND:
+            # rows in memory: refine an ill-conditioned solution (see lincomb._core.refine)
+            sol, beta = core.refine(sol, design.x, design.y, design.weights)
+        sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
         return cls(
             names=names,
             coefficients=pd.Series(beta, index=list(names), name="estimate"),
@@ -166,7 +171,7 @@ class LinearFit:
         return self._design.dropped
 
     def _check_variance(self) -> None:
-        if self._sol.rss <= (ZERO_RSS_TOL * self._sol.y_norm) ** 2:
+        if self._sol.resid_norm <= ZERO_RSS_TOL * self._sol.y_norm:
             raise DegenerateFitError(
                 f"the residual sum of squares is zero to working precision ({self._sol.rss:.3g}):"
                 " the model reproduces the response exactly, so there is no error variance and no"
@@ -262,11 +267,15 @@ class LinearFit:
         >>> se.shape, se.index[0]
         ((4, 2), 'Intercept')
         """
-        return pd.Series(
-            np.sqrt(np.diag(self.covariance(covariance).to_numpy())),
-            index=list(self.names),
-            name="std_error",
-        )
+        # column norms of the covariance root (not the square root of its diagonal): the
+        # variance of a coefficient of data near 1e±200 is not representable, its s.e. is
+        vcov = self._covariance_estimate(covariance)
+        sol = self._sol
+        est = np.setdiff1d(np.arange(sol.p), sol.aliased)
+        root = vcov.root(sol.to_working(np.eye(sol.p)[est])[:, sol.kept])
+        se = np.full(sol.p, np.nan)
+        se[est] = core.safe_norm(root, axis=0)
+        return pd.Series(se, index=list(self.names), name="std_error")
 
     def coef_frame(
         self, level: float = 0.95, *, covariance: object = None, reference: str = "F"
@@ -435,6 +444,12 @@ class LinearFit:
         est = cu[:, sol.kept] @ sol.theta
         covmod.check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
+        k = analysis.independent
+        rotated = core.intercept_rotation(c[k], d[k], sol.intercept)
+        if rotated is not None:  # same F, rows free of the intercept (see lincomb._core)
+            cr = sol.to_working(rotated[0])[:, sol.kept]
+            rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))
+            wc = replace(wc, quad=rot.quad)
         dist, stat, df_den, p_value = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
         return WaldTest(
             labels=tuple(labels),
@@ -450,7 +465,7 @@ class LinearFit:
             covariance=vcov.label,
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
-            estimate_covariance=root.T @ root,
+            estimate_covariance=_gram(root),
         )
 
     def wald_batch(
@@ -565,13 +580,16 @@ class LinearFit:
         step, w = core.restricted_step(sol, root_k, delta_k)
         beta = sol.from_working(sol.theta + step)
         beta[sol.aliased] = np.nan
-        rss_r = sol.rss + float(np.sum((sol.r @ step) ** 2))
+        # norms, not squares, until the end (see _core): data near 1e±200 stay representable
+        resid_r = float(np.hypot(sol.resid_norm, core.safe_norm(sol.r @ step)))
         q = int(k.size)
         df_r = sol.df_resid + q
-        sigma_r2 = rss_r / df_r
+        sigma_r = resid_r / float(np.sqrt(df_r))
+        with np.errstate(over="ignore", under="ignore"):
+            rss_r = float(np.float64(resid_r) ** 2)
         # covariance: map W (working, kept) back to β through A = T⁻¹ S⁻¹ on kept columns
         aw = sol.from_working(w)
-        cov = sigma_r2 * (aw @ aw.T)
+        cov = _gram((sigma_r * aw).T)
         # a row naming one coefficient fixes it: write the exact value, not one off by rounding
         for i in k:
             nz = np.flatnonzero(c[i])
@@ -589,7 +607,7 @@ class LinearFit:
             rss_unrestricted=sol.rss,
             rank=q,
             df_resid=df_r,
-            sigma=float(np.sqrt(sigma_r2)),
+            sigma=sigma_r,
             redundant=analysis.dependencies,
             _cov=pd.DataFrame(cov, index=names, columns=names),
         )
@@ -825,7 +843,8 @@ def check_rows(
     ([0], {1: {0: 2.0}})
     """
     cu = sol.to_working(c)
-    analysis = core.analyze_rows(cu, d, core.ROW_TOL)
+    # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
+    analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
     if analysis.inconsistent:
         lines = []
         for row, dval, implied in analysis.inconsistent:
@@ -855,6 +874,13 @@ def check_rows(
             " identify, or change the design so those columns are not aliased." + hint
         )
     return cu, analysis
+
+
+def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
+    """``rootᵀ root``; entries past the float64 range become inf or 0 without a warning."""
+    with np.errstate(over="ignore", under="ignore"):
+        out: NDArray[np.float64] = root.T @ root
+    return out
 
 
 def _check_level(level: float) -> None:

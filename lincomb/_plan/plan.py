@@ -635,7 +635,7 @@ def power_plan(
         alpha=a,
         redundant=analysis.dependencies,
         matrix=pd.DataFrame(c, index=labels, columns=list(design.names)),
-        _cu=cu,
+        _cu=sol.decision_rows(c),  # where consistency is decided (invariant to column scales)
         _root=root,
         _independent=analysis.independent,
     )
