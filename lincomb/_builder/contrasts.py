@@ -656,7 +656,7 @@ class LevelContrasts(_Item):
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
     >>> res = f.wald(lc.levels("line").successive())
-    >>> res.labels[0], res.df_num
+    >>> res.labels[0], res.df_test
     ('line[L2] - line[L1]', 3)
     """
 
@@ -923,7 +923,7 @@ class LevelMeans:
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> res = f.wald(lc.levels("line").pairwise())
-        >>> len(res.labels), res.df_num
+        >>> len(res.labels), res.df_test
         (6, 3)
         """
         return self._make(_Recipe("pairwise"))
@@ -1010,7 +1010,7 @@ class LevelMeans:
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> same = f.wald(lc.levels("line").equal())
-        >>> bool(np.isclose(same.statistic, f.wald(lc.term("line") == 0).statistic))
+        >>> bool(np.isclose(same.stat, f.wald(lc.term("line") == 0).stat))
         True
         """
         return self._make(_Recipe("equal"))

@@ -266,8 +266,8 @@ def fit_chunks(
     >>> g = lc.fit("yield_t_ha ~ C(nitrogen) + variety + rainfall_mm", trial)
     >>> (f.n_obs, f.n_dropped) == (g.n_obs, g.n_dropped)
     True
-    >>> bool(abs(f.wald(lc.term("variety") == 0).statistic
-    ...          - g.wald(lc.term("variety") == 0).statistic) < 1e-8)
+    >>> bool(abs(f.wald(lc.term("variety") == 0).stat
+    ...          - g.wald(lc.term("variety") == 0).stat) < 1e-8)
     True
     """
     require_response(formula)
@@ -517,7 +517,7 @@ def covariance_pass(
     >>> g = lc.fit("wait_min ~ staffing + protocol", sites)
     >>> a = f.wald(lc.coef("staffing") == 0, covariance=est)
     >>> b = g.wald(lc.coef("staffing") == 0, covariance=lc.clustered(by="site"))
-    >>> bool(abs(a.statistic - b.statistic) < 1e-8 * b.statistic), a.df_den
+    >>> bool(abs(a.stat - b.stat) < 1e-8 * b.stat), a.df_error
     (True, 39.0)
     """
     from lincomb._covariance.second_pass import RowPass

@@ -237,8 +237,8 @@ def fit_dask(
     >>> f = fit_dask("wait_min ~ staffing + protocol", dd.from_pandas(sites, npartitions=4),
     ...              scheduler="sync")
     >>> g = lc.fit("wait_min ~ staffing + protocol", sites)
-    >>> bool(abs(f.wald(lc.coef("staffing") == 0).statistic
-    ...          - g.wald(lc.coef("staffing") == 0).statistic) < 1e-8 * 170)
+    >>> bool(abs(f.wald(lc.coef("staffing") == 0).stat
+    ...          - g.wald(lc.coef("staffing") == 0).stat) < 1e-8 * 170)
     True
     """
     dask = _require_dask()
