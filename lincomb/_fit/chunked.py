@@ -24,7 +24,7 @@ Missing values
 --------------
 Rows with a missing value in a variable of the formula (or the weights) are dropped chunk by
 chunk and counted across chunks (``n_dropped``; their labels, as each chunk labels them, in
-``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError` with ``missing="raise"``.
+``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError` with ``missing="refuse"``.
 
 Covariances that need the rows
 ------------------------------
@@ -114,8 +114,8 @@ def _check_options(weights: object, missing: object) -> None:
             "weights must name a column of the chunks (an array cannot be aligned with"
             f" chunks); got {type(weights).__name__}."
         )
-    if missing not in ("drop", "raise"):
-        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    if missing not in ("skip", "refuse"):
+        raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
 
 
 @dataclass(frozen=True)
@@ -135,7 +135,7 @@ class FrameRows:
 
     encoder: FormulaEncoder
     weights: str | None = None
-    missing: str = "drop"
+    missing: str = "skip"
 
     def encode(self, frame: pd.DataFrame, where: str, keep_frame: bool = False) -> EncodedRows:
         return self.encoder.encode(
@@ -213,7 +213,7 @@ def fit_chunks(
     *,
     weights: str | None = None,
     levels: Mapping[str, Sequence[Any]] | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
 ) -> LinearFit:
@@ -233,7 +233,7 @@ def fit_chunks(
         first is the reference under the default coding).  Variables not listed take the levels
         of the first chunk with rows; a later chunk with another level raises
         :class:`~lincomb.errors.UnseenLevelError`.
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables or the weights are dropped and
         counted across chunks, or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
@@ -287,10 +287,10 @@ def fit_chunks(
                     )
                 if FormulaEncoder.complete_rows(formula, frame, weights) == 0:
                     # no row to learn the encoding from yet
-                    if missing == "raise" and len(frame):
+                    if missing == "refuse" and len(frame):
                         raise MissingValueError(
                             f"{where}: all {len(frame)} rows have missing values; drop or"
-                            " impute them, or fit with missing='drop'."
+                            " impute them, or fit with missing='skip'."
                         )
                     p.record(len(frame), 0, frame.index)
                     continue

@@ -195,7 +195,7 @@ def fit_dask(
     *,
     weights: str | None = None,
     levels: Mapping[str, Sequence[Any]] | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     split_every: int = DEFAULT_SPLIT_EVERY,
     scheduler: Any = None,
@@ -214,7 +214,7 @@ def fit_dask(
         ``{column: [levels...]}``: complete, ordered levels of categorical variables.  Others
         come from a known categorical dtype or are computed in one extra pass (see the module
         notes).
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables or the weights are dropped (and
         counted), or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10

@@ -688,7 +688,7 @@ def fit(
     data: pd.DataFrame,
     *,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
 ) -> LinearFit:
     """Fit a linear model by (weighted) least squares from a formula.
@@ -703,7 +703,7 @@ def fit(
         Not modified.
     weights : str or array_like, optional
         Positive weights (a column name or an array aligned with ``data``): WLS.
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables are dropped and counted
         (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10

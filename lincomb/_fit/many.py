@@ -17,12 +17,12 @@ Each response's numbers equal those of its own :func:`~lincomb.fit` to rounding,
 Missing values in the responses
 -------------------------------
 Handled exactly, per response: a response with missing values is fitted on the rows where it
-is observed, as its own ``lc.fit`` would with ``missing="drop"``; it never shrinks or shifts
+is observed, as its own ``lc.fit`` would with ``missing="skip"``; it never shrinks or shifts
 the design of the other responses.  Responses sharing a pattern of missing values share one
 factorization of the design rows they use.  Each response reports its own ``n_obs`` and
 ``df_error``; the rank of a subset of rows can be lower (aliased columns), a restriction can
 then be not estimable for that response: its test is NaN with status ``"not estimable"``.
-``missing="raise"`` refuses any missing response value instead.  Rows with missing values in
+``missing="refuse"`` refuses any missing response value instead.  Rows with missing values in
 the *design* variables (or weights) are dropped for every response and counted in
 ``n_dropped``, as in a single fit.
 
@@ -510,8 +510,8 @@ def _build(
     threads: int | None = 1,
     workers: int = 1,
 ) -> ManyFit:
-    if missing not in ("drop", "raise"):
-        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    if missing not in ("skip", "refuse"):
+        raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
     n = design.x.shape[0]
     r = source.count
     if r == 0:
@@ -540,11 +540,11 @@ def _build(
                     f"response {source.names[cols[overflow[0]]]!r} holds values too large to"
                     " square in float64; rescale it."
                 )
-            if missing == "raise":
+            if missing == "refuse":
                 raise MissingValueError(
                     f"response {source.names[cols[bad[0]]]!r} has {int(nan[:, 0].sum())} missing"
                     f" values ({bad.size} responses in this block have some); fit with"
-                    " missing='drop' to fit each response on its observed rows."
+                    " missing='skip' to fit each response on its observed rows."
                 )
             for t, j in enumerate(bad):
                 key = np.packbits(nan[:, t]).tobytes()
@@ -656,7 +656,7 @@ def fit_many(
     responses: Sequence[str] | pd.DataFrame | ArrayLike,
     *,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     response_names: Sequence[str] | None = None,
     workers: int | None = None,
@@ -674,10 +674,10 @@ def fit_many(
         per row of ``data``.
     weights : str or array_like, optional
         Positive weights (a column of ``data`` or an array aligned with it): WLS.
-    missing : {'drop', 'raise'}, default 'drop'
-        ``'drop'``: rows with missing design values are dropped for all responses; a response's
+    missing : {'skip', 'refuse'}, default 'skip'
+        ``'skip'``: rows with missing design values are dropped for all responses; a response's
         own missing values drop rows for that response only (exactly, see the module notes).
-        ``'raise'``: any missing value raises :class:`~lincomb.errors.MissingValueError`.
+        ``'refuse'``: any missing value raises :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
     response_names : sequence of str, optional
         Names for array responses (default ``y0, y1, ...``).
@@ -764,7 +764,7 @@ def fit_many_arrays(
     names: Sequence[str] | None = None,
     response_names: Sequence[str] | None = None,
     weights: ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     workers: int | None = None,
 ) -> ManyFit:
@@ -782,7 +782,7 @@ def fit_many_arrays(
     response_names : sequence of str, optional
         Default: a DataFrame's columns, else ``y0, y1, ...``.
     weights : (n,) array_like, optional
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Per-response exact handling of missing response values, or refuse them.
     rank_tol : float, default 1e-10
     workers : int, optional

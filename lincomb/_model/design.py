@@ -548,7 +548,7 @@ def design_from_formula(
     formula: str,
     data: pd.DataFrame,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
 ) -> Design:
     """Build a :class:`Design` from a Wilkinson formula via the formula encoder.
 
@@ -561,7 +561,7 @@ def design_from_formula(
         Not modified.
     weights : str, array_like or None
         Name of a column of ``data`` or an array aligned with its rows.
-    missing : {'drop', 'raise'}
+    missing : {'skip', 'refuse'}
         Drop rows with missing values in the formula's variables (or the weights) and count them
         on the fit, or raise :class:`~lincomb.errors.MissingValueError`.
 
