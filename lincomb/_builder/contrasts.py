@@ -23,8 +23,8 @@ error do not depend on the coding.
 
 * When the weights sum to zero (a *contrast*), terms that do not involve the factor's variable
   cancel exactly and are left out; only variables that interact with the factor need values.
-  Give them with :meth:`LevelMeans.holding` (``.holding(shift="late", temperature_c=22)``) or average the
-  means with equal weight over the levels of categorical ones with
+  Give them with :meth:`LevelMeans.holding` (``.holding(shift="late", temperature_c=22)``) or
+  average the means with equal weight over the levels of categorical ones with
   :meth:`LevelMeans.averaging`.  A variable the contrast depends on but that has neither raises
   :class:`~lincomb.errors.ContrastError` naming the term.
 * Weights that do not sum to zero (within :data:`ZERO_SUM_TOL` of their absolute sum) raise

@@ -175,7 +175,7 @@ def _batch_parts(b: WaldBatch, limit: int = 10) -> tuple[str, list[list[str]], s
     flags = ", ".join(f"{b.status.count(s)} {say}" for s, say in kinds.items() if s in b.status)
     head = (
         f"Wald tests of {k} system(s) of {m} restriction row(s) each  [{b.covariance} covariance]"
-        f"\n{b.reference} tests with error df {b.df_error:g}"
+        f"\n{b.reference} tests with denominator df {b.df_error:g}"
         + (f"; systems: {flags}" if flags else "")
     )
     rows = [
