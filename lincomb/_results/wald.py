@@ -113,7 +113,7 @@ class WaldTest(WaldResult):
         >>> f.wald(lc.term("line") == 0).row_p.shape
         (3,)
         """
-        return self._row_p(self.ratio, np.float64(self.df_error))
+        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
 
     @property
     def status(self) -> str:
@@ -527,7 +527,7 @@ class WaldBatch(WaldResult):
         >>> f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]])).row_p.shape
         (2, 1)
         """
-        return self._row_p(self.ratio, np.float64(self.df_error))
+        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
 
     def row_labels(self, system: int) -> tuple[str, ...]:
         """Labels of the rows of the system at position ``system`` (written as algebra).
