@@ -101,11 +101,11 @@ def run(repeats_scale: float = 1.0) -> dict[str, Any]:
     lc_hc3 = f.wald(r3, covariance="HC3")
     lc_cl = f.wald(r3, covariance=cluster)
     checks = {
-        "HC3_F_rel_diff": abs(lc_hc3.statistic / float(np.squeeze(sm_hc3.fvalue)) - 1),
-        "HC3_p_rel_diff": abs(lc_hc3.p_value / float(sm_hc3.pvalue) - 1),
-        "cluster_F_rel_diff": abs(lc_cl.statistic / float(np.squeeze(sm_cl.fvalue)) - 1),
-        "cluster_p_rel_diff": abs(lc_cl.p_value / float(sm_cl.pvalue) - 1),
-        "cluster_df_den": (lc_cl.df_den, float(sm_cl.df_denom)),
+        "HC3_F_rel_diff": abs(lc_hc3.stat / float(np.squeeze(sm_hc3.fvalue)) - 1),
+        "HC3_p_rel_diff": abs(lc_hc3.p / float(sm_hc3.pvalue) - 1),
+        "cluster_F_rel_diff": abs(lc_cl.stat / float(np.squeeze(sm_cl.fvalue)) - 1),
+        "cluster_p_rel_diff": abs(lc_cl.p / float(sm_cl.pvalue) - 1),
+        "cluster_df_den": (lc_cl.df_error, float(sm_cl.df_denom)),
     }
 
     # -- 1. tests on one fit -----------------------------------------------------------------
@@ -263,7 +263,7 @@ def report(res: dict[str, Any]) -> str:
         "",
         "checks vs statsmodels (use_t=True): "
         + ", ".join(f"{k} {v:.1e}" for k, v in c.items() if k != "cluster_df_den")
-        + f"; cluster df_den (lincomb, statsmodels) {c['cluster_df_den']}",
+        + f"; cluster df_error (lincomb, statsmodels) {c['cluster_df_den']}",
         "targets met: " + ", ".join(f"{k}: {v}" for k, v in res["targets"].items()),
     ]
     return "\n".join(lines)

@@ -14,7 +14,7 @@ Problem: n = 500 rows, p = 10 columns (an intercept and 9 standard normal column
 r = 10,000 responses (standard normal, seeded: an (n, r) float64 matrix of 40 MB), one 2-row
 system (``x1 - x2 = 0`` and ``x3 = 0``).
 
-* lincomb: ``lc.fit_many_arrays(X, Y)``, then ``.wald(system)``, then ``.to_frame()`` (the tidy
+* lincomb: ``lc.fit_many_arrays(X, Y)``, then ``.wald(system)``, then ``.test_frame()`` (the tidy
   frame with Benjamini–Hochberg adjusted p-values): the whole pipeline is timed, with its
   defaults (blocks of responses projected by one thread per CPU, at most 4, each on one BLAS
   thread).
@@ -78,7 +78,7 @@ def run(repeats: int, subset: int) -> dict[str, Any]:
     def lincomb_all() -> Any:
         mf = lc.fit_many_arrays(x, y, names=names)
         res = mf.wald(system)
-        return res, res.to_frame()
+        return res, res.test_frame()
 
     def sm_subset() -> list[Any]:
         return [sm.OLS(y[:, j], x).fit().f_test((c, d)) for j in range(subset)]
@@ -88,8 +88,8 @@ def run(repeats: int, subset: int) -> dict[str, Any]:
     ref = sm_subset()
     f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
     p_sm = np.array([float(t.pvalue) for t in ref])
-    f_rel = float(np.max(np.abs(res.statistic[:subset] / f_sm - 1)))
-    p_rel = float(np.max(np.abs(res.p_value[:subset] / p_sm - 1)))
+    f_rel = float(np.max(np.abs(res.stat[:subset] / f_sm - 1)))
+    p_rel = float(np.max(np.abs(res.p[:subset] / p_sm - 1)))
     assert f_rel < 1e-9, f_rel
 
     times: dict[str, list[float]] = {"lincomb": [], "statsmodels_subset": []}
@@ -146,7 +146,7 @@ def report(res: dict[str, Any]) -> str:
     lines = [
         f"many responses: n = {res['n']}, p = {res['p']}, r = {res['responses']},"
         f" one 2-row system; {res['repeats']} interleaved repeats (medians)",
-        f"  lincomb fit_many_arrays + wald + to_frame : {res['lincomb_s'] * 1e3:9.1f} ms",
+        f"  lincomb fit_many_arrays + wald + test_frame : {res['lincomb_s'] * 1e3:9.1f} ms",
         f"  statsmodels OLS + f_test loop (extrapolated from {res['statsmodels_subset']}"
         f" responses): {res['statsmodels_extrapolated_s']:8.2f} s"
         f" ({res['statsmodels_per_response_ms']:.3f} ms per response)",

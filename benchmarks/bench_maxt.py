@@ -47,7 +47,7 @@ def run(rounds: int) -> dict[str, Any]:
     w_bal = bal.wald(lc.levels("g").pairwise())
     w_unb = unb.wald(lc.levels("g").pairwise())
     w_gen = unb.wald(lc.levels("g").versus("g00"))
-    df = float(bal.df_resid)
+    df = float(bal.df_error)
     fns = {
         "studentized_range_ppf": lambda: st.studentized_range.ppf(0.95, K, df),
         "maxt_balanced_pairs": lambda: w_bal.simultaneous("max-t"),

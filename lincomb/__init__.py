@@ -8,7 +8,7 @@ in coefficient names with :func:`coef`, :func:`term`, ``==`` and ``&``, and test
 >>> f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", lc.datasets.field_trial())
 >>> n = lc.term("C(nitrogen)")
 >>> res = f.wald(n["80"] - n["40"] == n["160"] - n["80"])
->>> res.df_num
+>>> res.df_test
 1
 """
 
@@ -29,13 +29,14 @@ from lincomb._fit.chunked import fit_array_chunks, fit_chunks
 from lincomb._fit.distributed import covariance_pass as dask_covariance_pass
 from lincomb._fit.distributed import fit_dask, fit_dask_arrays
 from lincomb._fit.linear import LinearFit, fit, fit_arrays
-from lincomb._fit.many import ManyFit, ManyWaldTest, fit_many, fit_many_arrays
+from lincomb._fit.many import ManyFit, fit_many, fit_many_arrays
 from lincomb._fit.pooled import combine, without_rows
 from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.plan import PowerPlan, power_plan
 from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
 from lincomb._results.expected import ExpectedValues
 from lincomb._results.level_table import LevelMeanTable
+from lincomb._results.many import ManyWaldTest
 from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
 from lincomb._results.nested import NestedComparison, compare_nested
 from lincomb._results.overview import FitOverview

@@ -45,7 +45,7 @@ def main() -> None:
     print(r, "\n")
     with pd.option_context("display.width", 120, "display.max_columns", 20):
         print("Tidy rows of test 2:")
-        print(f.wald(n["80"] - n["40"] == n["160"] - n["80"]).to_frame().to_string(index=False))
+        print(f.wald(n["80"] - n["40"] == n["160"] - n["80"]).row_frame().to_string(index=False))
     print("\n5. Plots within a farm share soil and weather: the same dose test, clustered by farm")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

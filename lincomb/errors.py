@@ -73,7 +73,7 @@ class MissingValueError(InputError):
     Examples
     --------
     >>> import lincomb as lc
-    >>> lc.fit("yield_t_ha ~ rainfall_mm", lc.datasets.field_trial(), missing="raise")
+    >>> lc.fit("yield_t_ha ~ rainfall_mm", lc.datasets.field_trial(), missing="refuse")
     Traceback (most recent call last):
     ...
     lincomb.errors.MissingValueError: 4 rows have missing values ...

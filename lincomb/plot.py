@@ -307,12 +307,12 @@ def intervals(
     ax.tick_params(axis="y", length=0)
     if title is None:
         dist = (
-            f"F({result.df_num}, {result.df_den:g})"
-            if result.distribution == "F"
-            else f"chi2({result.df_num})"
+            f"F({result.df_test}, {result.df_error:g})"
+            if result.reference == "F"
+            else f"chi2({result.df_test})"
         )
-        p = _p(result.p_value)
-        title = f"Joint test: {dist} = {result.statistic:.4g}, p {'' if '<' in p else '= '}{p}"
+        p = _p(result.p)
+        title = f"Joint test: {dist} = {result.stat:.4g}, p {'' if '<' in p else '= '}{p}"
     ax.set_title(title, loc="left", fontsize="medium")
     legend = {"frameon": False, "fontsize": "small", "handlelength": 1.6}
     if own_figure:

@@ -88,7 +88,7 @@ planning values are compatible with the data at once; each row has its own t and
     code("""
 planning = (n["40"] == 1.0) & (n["80"] == 1.8) & (n["160"] == 2.4)
 plan = f.wald(planning)
-plan.to_frame().round(4)
+plan.row_frame().round(4)
 """),
     md("""
 In the chart each estimated gain is an open circle on its 95% marginal interval (thick bar);
@@ -109,7 +109,7 @@ earn less per kilogram than the 40 kg before them.
 """),
     code("""
 per_kg = f.wald((n["80"] - n["40"]) / 40 == (n["160"] - n["80"]) / 80)
-per_kg.to_frame().round(5)
+per_kg.row_frame().round(5)
 """),
     md("""
 A straight-line response through the zero dose says that the gains are proportional to the
@@ -125,7 +125,7 @@ lin.test_frame()
     code("""
 r = f.restrict(linear)
 print(r.coefficients.filter(like="nitrogen").round(4))
-print(f"F from RSS: {r.f_statistic():.6g};  Wald F: {lin.statistic:.6g}")
+print(f"F from RSS: {r.f_statistic():.6g};  Wald F: {lin.stat:.6g}")
 """),
     md("""
 ## 4. Do the varieties respond alike?
@@ -174,14 +174,14 @@ fragile, and lincomb warns about that.
 """),
     code("""
 plan_by_farm = f.wald(planning, covariance=lc.clustered(by="farm"))
-plan_by_farm.to_frame().round(4)[["restriction", "std_error", "t", "p_value", "df"]]
+plan_by_farm.row_frame().round(4)[["restriction", "se", "ratio", "p", "df_error"]]
 """),
     md("""
 **Several questions, several tests.** Each row p-value above is unadjusted. Adjusting the
 three planning rows for being tested together (Holm's method) raises them:
 """),
     code("""
-plan.adjust("holm").to_frame()[["contrast", "p_value", "p_adjusted"]].round(4)
+plan.adjust("holm").to_frame()[["contrast", "p", "p_adjusted"]].round(4)
 """),
     md("""
 * With the farm-robust covariance the answer to question 2 moves, and ten clusters are too
@@ -301,7 +301,7 @@ on_target
 """),
     code("""
 one_by_one = (line["L1"] == 500) & (line["L2"] == 500) & (line["L3"] == 500) & (line["L4"] == 500)
-print(f"{fr.wald(one_by_one).statistic:.10g}  {on_target.statistic:.10g}")
+print(f"{fr.wald(one_by_one).stat:.10g}  {on_target.stat:.10g}")
 """),
     md("""
 ## 2. Which lines are off target?
@@ -379,7 +379,7 @@ pooled = lc.fit("wait_min ~ protocol + staffing", data)
 within = lc.fit("wait_min ~ protocol + staffing + C(site)", data)
 keep = ["protocol[T.triage]", "staffing"]
 for name, fit in [("pooled", pooled), ("within sites", within)]:
-    table = fit.coef_frame().set_index("coefficient").loc[keep, ["estimate", "std_error"]]
+    table = fit.coef_frame().set_index("coefficient").loc[keep, ["estimate", "se"]]
     print(name, table.round(3), sep="\\n", end="\\n\\n")
 """),
     md("""
@@ -419,8 +419,8 @@ robust.wald(triage == 0)
     code("""
 promise = triage == -4
 for name, fit in [("classical", within), ("by site", robust)]:
-    row = fit.wald(promise).to_frame().iloc[0]
-    print(f"{name:>9}: estimate {row.estimate:.3f}, SE {row.std_error:.3f}, p {row.p_value:.4f}")
+    row = fit.wald(promise).row_frame().iloc[0]
+    print(f"{name:>9}: estimate {row.estimate:.3f}, SE {row.se:.3f}, p {row.p:.4f}")
 """),
     md("""
 ## 3. Triage against two extra staff
@@ -433,7 +433,7 @@ intervals beside the marginal ones.
     code("""
 staff = lc.coef("staffing")
 worth = robust.wald(promise & (triage == 2 * staff))
-worth.to_frame().round(4)
+worth.row_frame().round(4)
 """),
     code("""
 worth.plot(simultaneous="bonferroni")

@@ -157,7 +157,7 @@ def test_level_means_and_differences_match_statsmodels_t_test(tooth_growth: pd.D
     diff = tab.differences()
     tt2 = ref.t_test(np.array([rows[1] - rows[0], rows[2] - rows[0], rows[2] - rows[1]]))
     np.testing.assert_allclose(diff.estimate, tt2.effect, rtol=1e-10)
-    np.testing.assert_allclose(diff.row_p_value, tt2.pvalue.ravel(), rtol=1e-8)
+    np.testing.assert_allclose(diff.row_p, tt2.pvalue.ravel(), rtol=1e-8)
     # multiplicity: Holm on these p-values (statsmodels' multipletests as reference)
     from statsmodels.stats.multitest import multipletests
 
@@ -181,7 +181,7 @@ def test_trend_slope_is_least_squares_slope_of_the_means(tooth_growth: pd.DataFr
     # the polynomial rows equal lc.levels(...).trend(...) at the same setting (equal weights)
     ref = f.wald(lc.levels("C(dose)").averaging("supp").trend(values=v))
     np.testing.assert_allclose(tr.estimate[1:], ref.estimate, rtol=1e-10)
-    np.testing.assert_allclose(tr.std_error[1:], ref.std_error, rtol=1e-10)
+    np.testing.assert_allclose(tr.se[1:], ref.se, rtol=1e-10)
 
 
 def test_level_means_settings_and_labels() -> None:
@@ -249,7 +249,7 @@ def test_term_tests_tooth_growth_and_robust(tooth_growth: pd.DataFrame) -> None:
     # all-others under HC3 = the robust Wald test of the term's coefficients being zero
     hc = f.term_tests("all-others", covariance="HC3").test_frame().set_index("term")
     w = f.wald(lc.term("supp:C(dose)") == 0, covariance="HC3")
-    assert hc.loc["supp:C(dose)", "stat"] == pytest.approx(w.statistic, rel=1e-10)
+    assert hc.loc["supp:C(dose)", "stat"] == pytest.approx(w.stat, rel=1e-10)
     assert hc.loc["supp:C(dose)", "covariance"] == "HC3"
 
 

@@ -358,7 +358,7 @@ CASES: list[Case] = [
     Case(
         "missing='raise' with a missing value",
         d(col_x=lambda df: df["x"].where(df.index != 103)),
-        lambda data: lc.fit("y ~ x", data, missing="raise"),
+        lambda data: lc.fit("y ~ x", data, missing="refuse"),
         Err(E.MissingValueError, "'x': 1"),
     ),
     Case(
@@ -815,9 +815,9 @@ CASES: list[Case] = [
         Err(E.ParameterError, "level"),
     ),
     Case(
-        "WaldTest.to_frame: level 0",
+        "WaldTest.row_frame: level 0",
         fitted(),
-        lambda data, fit: fit.wald(lc.coef("x") == 0).to_frame(level=0.0),
+        lambda data, fit: fit.wald(lc.coef("x") == 0).row_frame(level=0.0),
         Err(E.ParameterError, "level"),
     ),
     Case(

@@ -77,15 +77,15 @@ def random_systems(k: int, m: int, p: int, seed: int) -> tuple[np.ndarray, np.nd
 def assert_matches_wald(fit, res, c, d, systems, **kw) -> None:
     for s in systems:
         w = fit.wald(lc.from_matrix(c[s], d[s]), **kw)
-        close(res.statistic[s], w.statistic)
-        close(res.p_value[s], w.p_value)
-        assert res.df_num[s] == w.df_num
-        assert res.df_den == w.df_den
-        assert res.distribution == w.distribution and res.covariance == w.covariance
+        close(res.stat[s], w.stat)
+        close(res.p[s], w.p)
+        assert res.df_test[s] == w.df_test
+        assert res.df_error == w.df_error
+        assert res.reference == w.reference and res.covariance == w.covariance
         close(res.estimate[s], w.estimate)
-        close(res.std_error[s], w.std_error)
-        close(res.t[s], w.t)
-        close(res.row_p_value[s], w.row_p_value)
+        close(res.se[s], w.se)
+        close(res.ratio[s], w.ratio)
+        close(res.row_p[s], w.row_p)
         assert res.redundant.get(s, {}).keys() == w.redundant.keys()
 
 
@@ -105,22 +105,22 @@ def test_matches_statsmodels_f_test(cars):
     res = fit.wald_batch(c, d)
     for s in range(12):
         ft = ref.f_test((c[s], d[s]))
-        close(res.statistic[s], float(np.squeeze(ft.fvalue)), RTOL_SM)
-        close(res.p_value[s], float(ft.pvalue), RTOL_SM)
-        assert res.df_num[s] == ft.df_num and res.df_den == ft.df_denom
+        close(res.stat[s], float(np.squeeze(ft.fvalue)), RTOL_SM)
+        close(res.p[s], float(ft.pvalue), RTOL_SM)
+        assert res.df_test[s] == ft.df_num and res.df_error == ft.df_denom
 
 
 def test_robust_covariance_and_chi2_reference_match_single_wald(cars):
     _, _, fit, ref = cars
     c, d = random_systems(15, 2, 8, seed=11)
     res = fit.wald_batch(c, d, covariance="HC3", reference="chi2")
-    assert res.covariance == "HC3" and res.distribution == "chi2" and res.df_den == np.inf
+    assert res.covariance == "HC3" and res.reference == "chi2" and res.df_error == np.inf
     assert_matches_wald(fit, res, c, d, range(15), covariance="HC3", reference="chi2")
     # statsmodels' HC3 Wald chi-squared (use_f=False) on the same arrays
     hc3 = sm.OLS(ref.model.endog, ref.model.exog).fit(cov_type="HC3")
     for s in range(3):
         wt = hc3.wald_test((c[s], d[s]), use_f=False, scalar=True)
-        close(res.statistic[s], wt.statistic, RTOL_SM)
+        close(res.stat[s], wt.statistic, RTOL_SM)
 
 
 def test_named_systems_resolve_like_wald(warpbreaks):
@@ -133,16 +133,16 @@ def test_named_systems_resolve_like_wald(warpbreaks):
     ]
     res = fit.wald_batch(systems, ids=["tension", "M=H, wool", "interaction"])
     assert res.systems == ("tension", "M=H, wool", "interaction")
-    frame = res.rows_frame()
+    frame = res.row_frame()
     for s, system in enumerate(systems):
         w = fit.wald(system)
-        close(res.statistic[s], w.statistic)
+        close(res.stat[s], w.stat)
         assert res.row_labels(s) == w.labels
         assert frame["restriction"][frame["system"] == res.systems[s]].tolist() == list(w.labels)
     # the same systems as an array give the same numbers
     c = np.stack([fit.resolve(x)[0] for x in systems])
     d = np.stack([fit.resolve(x)[1] for x in systems])
-    close(fit.wald_batch(c, d).statistic, res.statistic)
+    close(fit.wald_batch(c, d).stat, res.stat)
 
 
 # -- redundant, contradictory, non-estimable rows -------------------------------------------
@@ -157,14 +157,14 @@ def test_redundant_rows_use_the_rank_like_wald_and_statsmodels(cars):
         "redundant",
         "independent",
     )
-    assert res.df_num.tolist() == [3, 2, 3, 3, 2, 3]
+    assert res.df_test.tolist() == [3, 2, 3, 3, 2, 3]
     assert res.redundant[1] == {2: pytest.approx({0: 1.0, 1: 0.0}, abs=1e-12)}
     assert res.redundant[4] == {2: pytest.approx({0: 2.0, 1: -1.0}, abs=1e-12)}
     assert_matches_wald(fit, res, c, d, range(6))
     for s in (1, 4):  # statsmodels on the independent rows alone
         ft = ref.f_test((c[s, :2], d[s, :2]))
-        close(res.statistic[s], float(np.squeeze(ft.fvalue)), RTOL_SM)
-    assert res.rows_frame()["role"].tolist()[3:6] == ["independent", "independent", "redundant"]
+        close(res.stat[s], float(np.squeeze(ft.fvalue)), RTOL_SM)
+    assert res.row_frame()["role"].tolist()[3:6] == ["independent", "independent", "redundant"]
 
 
 def test_inconsistent_system_raises_or_is_marked(cars):
@@ -178,9 +178,9 @@ def test_inconsistent_system_raises_or_is_marked(cars):
         fit.wald(lc.from_matrix(c[3], d[3]))
     res = fit.wald_batch(c, d, on_invalid="nan")
     assert res.status[3] == "inconsistent"
-    assert np.isnan(res.statistic[3]) and np.isnan(res.p_value[3])
+    assert np.isnan(res.stat[3]) and np.isnan(res.p[3])
     assert_matches_wald(fit, res, c, d, [0, 1, 2, 4])
-    frame = res.to_frame()
+    frame = res.test_frame()
     assert frame["status"].tolist() == ["independent"] * 3 + ["inconsistent", "independent"]
 
 
@@ -208,9 +208,9 @@ def test_non_estimable_rows_raise_or_are_marked(aliased):
     res = fit.wald_batch(c, d, on_invalid="nan")
     assert res.status == ("independent", "not estimable", "independent")
     assert np.isnan(res.estimate[1, 0]) and np.isfinite(res.estimate[1, 1])
-    assert np.isnan(res.statistic[1])
+    assert np.isnan(res.stat[1])
     assert_matches_wald(fit, res, c, d, [0, 2])
-    assert res.rows_frame()["role"].tolist()[2] == "not estimable"
+    assert res.row_frame()["role"].tolist()[2] == "not estimable"
 
 
 @pytest.mark.filterwarnings("ignore::lincomb.errors.FewClustersWarning")  # 3 clusters on purpose
@@ -285,8 +285,8 @@ def test_row_scaling_row_order_and_system_order_do_not_matter(cars, scale, perm,
     c2 = (c * a)[:, list(perm)][list(order)]
     d2 = (d * a[:, 0])[:, list(perm)][list(order)]
     moved = fit.wald_batch(c2, d2)
-    close(moved.statistic, base.statistic[list(order)], 1e-9)
-    close(moved.p_value, base.p_value[list(order)], 1e-8)
+    close(moved.stat, base.stat[list(order)], 1e-9)
+    close(moved.p, base.p[list(order)], 1e-8)
 
 
 # -- inputs ---------------------------------------------------------------------------------
@@ -349,10 +349,10 @@ def test_frames_repr_and_frozen(cars):
     _, _, fit, _ = cars
     c, d = random_systems(14, 2, 8, seed=2)
     res = fit.wald_batch(c, d)
-    frame = res.to_frame()
+    frame = res.test_frame()
     assert tuple(frame.columns) == BATCH_COLUMNS and len(frame) == 14
     assert frame["rank"].tolist() == [2] * 14
-    rows = res.rows_frame(level=0.9)
+    rows = res.row_frame(level=0.9)
     assert tuple(rows.columns) == BATCH_ROW_COLUMNS and len(rows) == 28
     w = fit.wald(lc.from_matrix(c[13], d[13]))
     ci = w.intervals(0.9)
@@ -366,9 +366,9 @@ def test_frames_repr_and_frozen(cars):
     assert re.search(r"denominator df 24\b", text)
     assert res._repr_html_().startswith("<div class='lincomb-wald-batch'>")
     with pytest.raises(ValueError, match="level must be in"):
-        res.rows_frame(level=1.5)
+        res.row_frame(level=1.5)
     with pytest.raises(AttributeError):
-        res.statistic = None  # type: ignore[misc]
+        res.stat = None  # type: ignore[misc]
     assert isinstance(frame, pd.DataFrame)
 
 

@@ -76,7 +76,7 @@ def _same(a: lc.LinearFit, b: lc.LinearFit, system: object) -> None:
     assert a.names == b.names and a.n_obs == b.n_obs and a.n_dropped == b.n_dropped
     np.testing.assert_allclose(a.coefficients, b.coefficients, rtol=RTOL, atol=1e-13)
     np.testing.assert_allclose(a.rss, b.rss, rtol=RTOL)
-    np.testing.assert_allclose(a.wald(system).statistic, b.wald(system).statistic, rtol=RTOL)
+    np.testing.assert_allclose(a.wald(system).stat, b.wald(system).stat, rtol=RTOL)
 
 
 @pytest.fixture(scope="module")
@@ -102,8 +102,8 @@ def test_fit_and_hc_pass_equal_in_memory(client: distributed.Client, prestige: p
             f.wald(lc.term("type") == 0, covariance=est),
             ref.wald(lc.term("type") == 0, covariance=kind),
         )
-        np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
-        np.testing.assert_allclose(a.std_error, b.std_error, rtol=RTOL)
+        np.testing.assert_allclose(a.stat, b.stat, rtol=RTOL)
+        np.testing.assert_allclose(a.se, b.se, rtol=RTOL)
 
 
 def test_cluster_pass_equals_in_memory(client: distributed.Client, mtcars: pd.DataFrame):
@@ -115,8 +115,8 @@ def test_cluster_pass_equals_in_memory(client: distributed.Client, mtcars: pd.Da
     with pytest.warns(FewClustersWarning):
         b = lc.fit("mpg ~ wt + hp", mtcars).wald(lc.coef("wt") == 0, covariance=by)
     a = f.wald(lc.coef("wt") == 0, covariance=est)
-    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
-    assert a.df_den == b.df_den == 5.0  # clusters - 1 (common practice)
+    np.testing.assert_allclose(a.stat, b.stat, rtol=RTOL)
+    assert a.df_error == b.df_error == 5.0  # clusters - 1 (common practice)
 
 
 def test_arrays_fit_and_pass_equal_in_memory(client: distributed.Client, mtcars: pd.DataFrame):
@@ -131,8 +131,8 @@ def test_arrays_fit_and_pass_equal_in_memory(client: distributed.Client, mtcars:
         f, (da.from_array(x, chunks=(6, 3)), da.from_array(y, chunks=6)), "HC2", scheduler=client
     )
     np.testing.assert_allclose(
-        f.wald(lc.coef("x2") == 0, covariance=est).statistic,
-        ref.wald(lc.coef("x2") == 0, covariance="HC2").statistic,
+        f.wald(lc.coef("x2") == 0, covariance=est).stat,
+        ref.wald(lc.coef("x2") == 0, covariance="HC2").stat,
         rtol=RTOL,
     )
 

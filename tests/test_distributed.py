@@ -36,7 +36,7 @@ def _same(a: lc.LinearFit, b: lc.LinearFit, system: object) -> None:
     assert a.names == b.names and a.n_obs == b.n_obs and a.n_dropped == b.n_dropped
     np.testing.assert_allclose(a.coefficients, b.coefficients, rtol=RTOL, atol=1e-13)
     np.testing.assert_allclose(a.rss, b.rss, rtol=RTOL)
-    np.testing.assert_allclose(a.wald(system).statistic, b.wald(system).statistic, rtol=RTOL)
+    np.testing.assert_allclose(a.wald(system).stat, b.wald(system).stat, rtol=RTOL)
 
 
 @pytest.mark.parametrize("scheduler", ["sync", "threads"])
@@ -105,8 +105,8 @@ def test_second_pass_hc_equals_in_memory(kind: str) -> None:
     ref = lc.fit(formula, prestige)
     system = lc.term("type") == 0
     a, b = f.wald(system, covariance=est), ref.wald(system, covariance=kind)
-    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
-    np.testing.assert_allclose(a.std_error, b.std_error, rtol=RTOL)
+    np.testing.assert_allclose(a.stat, b.stat, rtol=RTOL)
+    np.testing.assert_allclose(a.se, b.se, rtol=RTOL)
 
 
 def test_second_pass_cluster_equals_in_memory(mtcars: pd.DataFrame) -> None:
@@ -119,8 +119,8 @@ def test_second_pass_cluster_equals_in_memory(mtcars: pd.DataFrame) -> None:
             lc.coef("wt") == 0, covariance=lc.clustered(by="carb")
         )
     a = f.wald(lc.coef("wt") == 0, covariance=est)
-    np.testing.assert_allclose(a.statistic, b.statistic, rtol=RTOL)
-    assert a.df_den == b.df_den == 5.0
+    np.testing.assert_allclose(a.stat, b.stat, rtol=RTOL)
+    assert a.df_error == b.df_error == 5.0
     with pytest.raises(RowsUnavailableError, match="distributed.covariance_pass"):
         f.wald(lc.coef("wt") == 0, covariance="HC1")
 
@@ -146,8 +146,8 @@ def test_dask_arrays_equal_fit_arrays(mtcars: pd.DataFrame) -> None:
     )
     ref = lc.fit_arrays(x, y, names=names, weights=w)
     np.testing.assert_allclose(
-        f.wald(lc.coef("hp") == 0, covariance=est).statistic,
-        ref.wald(lc.coef("hp") == 0, covariance="HC2").statistic,
+        f.wald(lc.coef("hp") == 0, covariance=est).stat,
+        ref.wald(lc.coef("hp") == 0, covariance="HC2").stat,
         rtol=RTOL,
     )
 

@@ -150,10 +150,10 @@ def _observed(xm: np.ndarray, y: np.ndarray, c: np.ndarray, d: np.ndarray) -> di
     return {
         "consistent": True,
         "estimable": True,
-        "rank": w.df_num,
+        "rank": w.df_test,
         "redundant": sorted(w.redundant),
-        "F": w.statistic,
-        "p": w.p_value,
+        "F": w.stat,
+        "p": w.p,
     }
 
 
@@ -235,11 +235,11 @@ def test_large_mean_column_keeps_intercept_rows_apart():
     f = lc.fit_arrays(xm, y, names=["a", "x", "b", "c"])
     # intercept and intercept + level: independent rows (exact rank 2), consistent
     w = f.wald((lc.coef("a") == 5) & (lc.coef("a") + lc.coef("b") == 7))
-    assert w.df_num == 2 and not w.redundant
+    assert w.df_test == 2 and not w.redundant
     # the same hypothesis with its rows combined: F is invariant to row operations
     w2 = f.wald((2 * lc.coef("a") + lc.coef("b") == 17) & (lc.coef("b") == 2))
-    assert w2.df_num == 2
-    np.testing.assert_allclose(w2.statistic, w.statistic, rtol=1e-4)
+    assert w2.df_test == 2
+    np.testing.assert_allclose(w2.stat, w.stat, rtol=1e-4)
 
 
 def test_empty_reference_cell_intercept_not_estimable_beside_large_mean():
@@ -270,6 +270,6 @@ def test_batch_takes_the_same_decisions_as_wald_beside_a_large_mean():
     d = np.array([[5.0, 7.0], [5.0, 10.0]])
     b = f.wald_batch(c, d)
     # exact algebra: system 0 has rank 2; system 1 repeats its first row (rank 1, consistent)
-    assert b.to_frame()["rank"].tolist() == [2, 1]
+    assert b.test_frame()["rank"].tolist() == [2, 1]
     single = f.wald(from_matrix(c[0], d[0]))
-    np.testing.assert_allclose(b.p_value[0], single.p_value, rtol=1e-8)
+    np.testing.assert_allclose(b.p[0], single.p, rtol=1e-8)

@@ -242,7 +242,7 @@ def test_pairwise_max_t_is_tukey_in_balanced_one_way(dataset, response, factor) 
     k = data[factor].nunique()
     # all pairwise differences in a balanced one-way layout: max|t| = range / sqrt(2), so the
     # critical value is the studentized range quantile over sqrt(2) (scipy.stats)
-    tukey = stats.studentized_range.ppf(0.95, k, f.df_resid) / np.sqrt(2)
+    tukey = stats.studentized_range.ppf(0.95, k, f.df_error) / np.sqrt(2)
     rep = sim.integration
     assert abs(sim.critical_value - tukey) <= 5 * rep.critical_std_error, (sim, tukey)
     # detected from the correlations as the studentized range (before: the Sobol rule)
@@ -266,8 +266,8 @@ def test_small_max_t_adjusted_p_values_keep_relative_accuracy() -> None:
     adj = res.adjust("max-t")
     # equal correlations: the deterministic 1-D quadrature (before: scipy, small tails by Sobol)
     assert adj.integration.routine == "equicorrelated quadrature"
-    for t, p in zip(res.t, adj.p_adjusted, strict=True):
-        ref = equicorrelated_tail(abs(t), 5, 0.5, f.df_resid)
+    for t, p in zip(res.ratio, adj.p_adjusted, strict=True):
+        ref = equicorrelated_tail(abs(t), 5, 0.5, f.df_error)
         if ref < 1e-3:  # tiny tails (down to 4e-10 here) to 1% relative
             assert abs(p / ref - 1) <= 0.01, (t, p, ref)
         else:  # the others within 5 standard errors of the integration
@@ -285,7 +285,7 @@ def test_many_to_one_max_t_matches_scipy_dunnett() -> None:
     ref = stats.dunnett(*samples, control=data.loc[data.spray == "A", "count"].to_numpy())
     assert adj.integration.routine == "equicorrelated quadrature"  # before: scipy's
     assert np.allclose(adj.p_adjusted, ref.pvalue, atol=5e-4)
-    assert np.allclose(adj.t, ref.statistic, rtol=1e-10)
+    assert np.allclose(adj.ratio, ref.statistic, rtol=1e-10)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -298,7 +298,7 @@ def plant_fit() -> lc.LinearFit:
 
 def test_single_step_critical_values(plant_fit) -> None:
     res = plant_fit.wald(lc.levels("group").pairwise())
-    df = plant_fit.df_resid
+    df = plant_fit.df_error
     m, q = 3, 2
     # textbook critical values (common practice, no source): t quantiles and sqrt(q F)
     expect = {
@@ -310,12 +310,12 @@ def test_single_step_critical_values(plant_fit) -> None:
     for method, crit in expect.items():
         sim = res.simultaneous(method, 0.95)
         assert np.isclose(sim.critical_value, crit, rtol=1e-10), method
-        assert np.allclose(sim.upper - sim.lower, 2 * crit * res.std_error)
+        assert np.allclose(sim.upper - sim.lower, 2 * crit * res.se)
         # each interval excludes 0 exactly when its single-step adjusted p is below 5%
         excl = (sim.lower > 0) | (sim.upper < 0)
         assert np.array_equal(excl, sim.p_adjusted < 0.05), method
     sch = res.adjust("scheffe").p_adjusted
-    assert np.allclose(sch, stats.f.sf(res.t**2 / q, q, df))
+    assert np.allclose(sch, stats.f.sf(res.ratio**2 / q, q, df))
     maxt = res.simultaneous("max-t").critical_value
     assert expect["none"] < maxt < expect["sidak"] < expect["bonferroni"] < expect["scheffe"]
 
@@ -325,11 +325,11 @@ def test_scheffe_covers_the_span_and_equals_the_f_test(plant_fit) -> None:
     sim = res.simultaneous("scheffe", 0.9)
     # the largest |t| over all combinations in the span of C is sqrt(q F): Scheffé's interval
     # for the best combination excludes 0 exactly when the F test rejects at 10%
-    assert np.isclose(sim.critical_value**2 / 2, stats.f.ppf(0.9, 2, plant_fit.df_resid))
-    assert res.p_value < 0.1
+    assert np.isclose(sim.critical_value**2 / 2, stats.f.ppf(0.9, 2, plant_fit.df_error))
+    assert res.p < 0.1
     best = plant_fit.wald(lc.levels("group").weights([-0.5, -0.5, 1.0]))
-    worst_case_t2 = res.statistic * res.df_num
-    assert best.t[0] ** 2 <= worst_case_t2 + 1e-9
+    worst_case_t2 = res.stat * res.df_test
+    assert best.ratio[0] ** 2 <= worst_case_t2 + 1e-9
 
 
 def test_redundant_rows_keep_or_drop(plant_fit) -> None:
@@ -351,9 +351,7 @@ def test_adjust_on_wald_uses_row_p_values(plant_fit) -> None:
     res = plant_fit.wald(lc.levels("group").pairwise())
     for method in SM_NAMES:
         adj = res.adjust(method)
-        assert np.allclose(
-            adj.p_adjusted, multipletests(res.row_p_value, method=SM_NAMES[method])[1]
-        )
+        assert np.allclose(adj.p_adjusted, multipletests(res.row_p, method=SM_NAMES[method])[1])
         assert adj.level is None and np.all(np.isnan(adj.lower))
     frame = res.adjust("benjamini-yekutieli").to_frame()
     assert tuple(frame.columns) == MULTIPLE_COLUMNS
@@ -376,13 +374,13 @@ def test_max_t_adjusted_p_against_monte_carlo() -> None:
     draws = 300_000
     mc = np.random.default_rng(7)
     z = mc.standard_normal((draws, 5)) @ np.linalg.cholesky(corr).T
-    mx = np.abs(z).max(axis=1) / np.sqrt(mc.chisquare(f.df_resid, draws) / f.df_resid)
-    for t, p in zip(res.t, adj.p_adjusted, strict=True):
+    mx = np.abs(z).max(axis=1) / np.sqrt(mc.chisquare(f.df_error, draws) / f.df_error)
+    for t, p in zip(res.ratio, adj.p_adjusted, strict=True):
         hit = np.mean(mx > abs(t))
         se = np.sqrt(max(hit * (1 - hit), 1e-6) / draws)  # binomial standard error
         assert abs(hit - p) < 4 * se + 1e-5, (t, p, hit)
-    assert np.all(adj.p_adjusted >= adj.p_value)
-    assert np.all(adj.p_adjusted <= np.minimum(1, 5 * adj.p_value))
+    assert np.all(adj.p_adjusted >= adj.p)
+    assert np.all(adj.p_adjusted <= np.minimum(1, 5 * adj.p))
 
 
 def test_results_are_reproducible_and_printable() -> None:
@@ -419,7 +417,7 @@ def test_robust_covariance_reference_is_respected() -> None:
     f = lc.fit("fill_g ~ line", data)
     res = f.wald(lc.levels("line").versus("L1"), covariance="HC3", reference="chi2")
     sim = res.simultaneous("bonferroni")
-    assert np.isinf(sim.df) and np.isclose(sim.critical_value, stats.norm.isf(0.05 / 6))
+    assert np.isinf(sim.df_error) and np.isclose(sim.critical_value, stats.norm.isf(0.05 / 6))
     mt = res.simultaneous("max-t")
     assert mt.integration.routine == "scipy.stats.multivariate_normal"
     assert "[normal]" in repr(mt)
@@ -453,7 +451,7 @@ def test_rows_frame_is_tidy_per_contrast(plant_fit) -> None:
     frame = sim.to_frame()
     assert isinstance(frame, pd.DataFrame) and len(frame) == 2
     assert frame["contrast"].tolist() == ["group[trt1] - group[ctrl]", "group[trt2] - group[ctrl]"]
-    assert np.allclose(frame["p_adjusted"], 1 - (1 - frame["p_value"]) ** 2)
+    assert np.allclose(frame["p_adjusted"], 1 - (1 - frame["p"]) ** 2)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -35,7 +35,7 @@ def test_combined_fit_equals_pooled_fit(warpbreaks: pd.DataFrame) -> None:
     np.testing.assert_allclose(pooled.coefficients, ref.coefficients, rtol=RTOL)
     np.testing.assert_allclose(pooled.covariance(), ref.covariance(), rtol=RTOL)
     system = lc.term("wool:tension") == 0
-    np.testing.assert_allclose(pooled.wald(system).statistic, ref.wald(system).statistic, rtol=RTOL)
+    np.testing.assert_allclose(pooled.wald(system).stat, ref.wald(system).stat, rtol=RTOL)
     np.testing.assert_allclose(
         pooled.restrict(system).coefficients, ref.restrict(system).coefficients, rtol=RTOL
     )

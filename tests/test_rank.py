@@ -54,7 +54,7 @@ def dup(mtcars):
 def test_duplicated_column_is_aliased(dup):
     f, ref = dup
     assert f.aliased == ("wt_copy",)
-    assert f.rank == 3 and f.df_resid == 32 - 3
+    assert f.rank == 3 and f.df_error == 32 - 3
     np.testing.assert_allclose(f.coefficients[["one", "wt", "hp"]], ref.params, rtol=REL)
     assert np.isnan(f.coefficients["wt_copy"])
     assert f.rss == pytest.approx(ref.ssr, rel=REL)
@@ -71,7 +71,7 @@ def test_duplicated_column_status(dup):
         "wt_copy": "aliased",
         "hp": "estimable",
     }
-    assert np.isnan(frame.loc["wt_copy", "std_error"])
+    assert np.isnan(frame.loc["wt_copy", "se"])
 
 
 def test_duplicated_column_estimable_and_not(dup):
@@ -84,8 +84,8 @@ def test_duplicated_column_estimable_and_not(dup):
     # wt + wt_copy is the coefficient of wt in the reduced fit: its F is that t squared
     w = f.wald(coef("wt") + coef("wt_copy") == 0)
     assert w.estimate[0] == pytest.approx(ref.params[1], rel=REL)
-    assert w.std_error[0] == pytest.approx(ref.bse[1], rel=REL)
-    assert w.statistic == pytest.approx(ref.tvalues[1] ** 2, rel=REL)
+    assert w.se[0] == pytest.approx(ref.bse[1], rel=REL)
+    assert w.stat == pytest.approx(ref.tvalues[1] ** 2, rel=REL)
     # in a system only the bad row is named
     with pytest.raises(NotEstimableError, match=r"row 1 \(wt_copy = 0\)") as err:
         f.wald((coef("hp") == 0) & (coef("wt_copy") == 0))
@@ -126,11 +126,11 @@ def test_dummy_set_contrasts(dummies):
     # [6] - [4] = μ6 - μ4 = b6: estimable, t² from the reference fit
     w = f.wald(t["6"] - t["4"] == 0)
     assert w.estimate[0] == pytest.approx(ref.params["C(cyl)[T.6]"], rel=REL)
-    assert w.statistic == pytest.approx(ref.tvalues["C(cyl)[T.6]"] ** 2, rel=REL)
+    assert w.stat == pytest.approx(ref.tvalues["C(cyl)[T.6]"] ** 2, rel=REL)
     # [8] - [4] = b8 involves the aliased column and is still estimable
     w = f.wald(t["8"] - t["4"] == 0)
     assert w.estimate[0] == pytest.approx(ref.params["C(cyl)[T.8]"], rel=REL)
-    assert w.std_error[0] == pytest.approx(ref.bse["C(cyl)[T.8]"], rel=REL)
+    assert w.se[0] == pytest.approx(ref.bse["C(cyl)[T.8]"], rel=REL)
     # a level alone is not estimable: the message names the row and the aliased coefficient
     with pytest.raises(
         NotEstimableError,
@@ -255,7 +255,7 @@ E = {n: np.eye(4)[i] for i, n in enumerate(["Intercept", "wt", "hp", "qsec"])}
 def test_numerator_df_is_rank_of_c(full, system, independent, expected_rank, deps):
     f, ref = full
     w = f.wald(system)
-    assert w.df_num == expected_rank
+    assert w.df_test == expected_rank
     assert set(w.redundant) == set(deps)
     for row, weights in deps.items():
         assert set(w.redundant[row]) == set(weights)
@@ -263,8 +263,8 @@ def test_numerator_df_is_rank_of_c(full, system, independent, expected_rank, dep
             assert w.redundant[row][k] == pytest.approx(v, rel=1e-12)
     # F over the independent rows only (statsmodels on that full-rank C)
     c, d, _ = f.resolve(system)
-    assert w.statistic == pytest.approx(ref_f(ref, c[independent], d[independent]), rel=REL)
-    roles = w.to_frame()["role"].tolist()
+    assert w.stat == pytest.approx(ref_f(ref, c[independent], d[independent]), rel=REL)
+    roles = w.row_frame()["role"].tolist()
     assert roles == ["redundant" if i in deps else "independent" for i in range(len(roles))]
     assert w.test_frame()["redundant_rows"].iloc[0] == len(deps)
     # the restricted fit counts the same q
@@ -276,9 +276,9 @@ def test_from_matrix_redundant_rows(full):
     c = np.array([E["wt"], E["hp"], E["wt"] + E["hp"], 2 * E["hp"]])
     d = np.array([0.0, 0.0, 0.0, 0.0])
     w = f.wald(from_matrix(c, d))
-    assert w.df_num == 2
+    assert w.df_test == 2
     assert sorted(w.redundant) == [2, 3]
-    assert w.statistic == pytest.approx(ref_f(ref, c[:2], d[:2]), rel=REL)
+    assert w.stat == pytest.approx(ref_f(ref, c[:2], d[:2]), rel=REL)
 
 
 # -- contradictory systems -------------------------------------------------------------------
@@ -313,7 +313,7 @@ def test_consistent_dependent_row_is_not_an_error(full):
     f, _ = full
     # 0.1 + 0.2 is not exactly 0.3 in binary; the relative tolerance accepts it
     w = f.wald((coef("wt") == 0.1) & (coef("hp") == 0.2) & (coef("wt") + coef("hp") == 0.3))
-    assert w.df_num == 2 and list(w.redundant) == [2]
+    assert w.df_test == 2 and list(w.redundant) == [2]
 
 
 # -- degenerate fits ---------------------------------------------------------------------------

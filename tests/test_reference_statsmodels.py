@@ -71,14 +71,14 @@ def assert_fit_matches(f: lc.LinearFit, res) -> None:
     close(f.covariance().loc[names, names], res.cov_params().loc[names, names], atol=0)
     close(f.rss, res.ssr)
     close(f.sigma, np.sqrt(res.scale))
-    assert f.df_resid == res.df_resid
+    assert f.df_error == res.df_resid
     assert f.n_obs == res.nobs
     for level in LEVELS:
         frame = f.coef_frame(level).set_index("coefficient").loc[names]
         ci = res.conf_int(alpha=1 - level).loc[names]
         close(frame["lower"], ci[0])
         close(frame["upper"], ci[1])
-        close(frame["p_value"], res.pvalues[names])
+        close(frame["p"], res.pvalues[names])
 
 
 def assert_wald_matches(w: lc.WaldTest, res, c: np.ndarray, d: Sequence[float]) -> None:
@@ -91,37 +91,37 @@ def assert_wald_matches(w: lc.WaldTest, res, c: np.ndarray, d: Sequence[float]) 
     tt = res.t_test((c, d))
     # statsmodels returns (1, 1) arrays for a single row; compare as flat vectors
     effect, sd, tvalue, pvalue = (np.ravel(v) for v in (tt.effect, tt.sd, tt.tvalue, tt.pvalue))
-    close(w.statistic, ft.fvalue)
-    close(w.p_value, ft.pvalue)
-    assert w.df_num == ft.df_num
-    assert w.df_den == ft.df_denom
+    close(w.stat, ft.fvalue)
+    close(w.p, ft.pvalue)
+    assert w.df_test == ft.df_num
+    assert w.df_error == ft.df_denom
     tf = w.test_frame().iloc[0]
-    close([tf["statistic"], tf["p_value"]], [ft.fvalue, ft.pvalue])
-    assert (tf["rank"], tf["df_num"], tf["df_den"]) == (ft.df_num, ft.df_num, ft.df_denom)
+    close([tf["stat"], tf["p"]], [ft.fvalue, ft.pvalue])
+    assert (tf["rank"], tf["df_test"], tf["df_error"]) == (ft.df_num, ft.df_num, ft.df_denom)
     assert tf["rows"] - tf["redundant_rows"] == ft.df_num
     close(w.estimate, effect, atol=1e-12 * np.max(np.abs(effect)))
     close(w.target, d)
-    close(w.std_error, sd)
-    close(w.t, tvalue, atol=1e-12 * np.max(np.abs(tvalue)))
-    close(w.row_p_value, pvalue)
+    close(w.se, sd)
+    close(w.ratio, tvalue, atol=1e-12 * np.max(np.abs(tvalue)))
+    close(w.row_p, pvalue)
     for level in LEVELS:
         ci = w.intervals(level)
         ref = tt.conf_int(alpha=1 - level)
         close(ci["lower"], ref[:, 0])
         close(ci["upper"], ref[:, 1])
-        frame = w.to_frame(level)
+        frame = w.row_frame(level)
         close(frame["lower"], ref[:, 0])
         close(frame["upper"], ref[:, 1])
         close(frame["estimate"], effect, atol=1e-12 * np.max(np.abs(effect)))
-        close(frame["std_error"], sd)
-        close(frame["p_value"], pvalue)
+        close(frame["se"], sd)
+        close(frame["p"], pvalue)
 
 
 def sm_restricted(res, c: np.ndarray, d: Sequence[float]):
     """Restricted LS by substitution: ``β = b0 + N γ`` with ``C b0 = d``, ``C N = 0``.
 
     Fits ``y - X b0`` on ``X N`` with statsmodels (same weights) and maps back.  Returns
-    ``(beta, cov, rss, df_resid)`` over statsmodels' columns.
+    ``(beta, cov, rss, df_error)`` over statsmodels' columns.
     """
     model = res.model
     x = np.asarray(model.exog)
@@ -144,7 +144,7 @@ def sm_restricted(res, c: np.ndarray, d: Sequence[float]):
     )
 
 
-def assert_restricted_matches(rf: lc.RestrictedFit, beta, cov, rss, df_resid) -> None:
+def assert_restricted_matches(rf: lc.RestrictedFit, beta, cov, rss, df_error) -> None:
     names = list(beta.index)
     scale = float(np.max(np.abs(beta)))
     close(rf.coefficients[names], beta, atol=1e-12 * scale)
@@ -158,16 +158,16 @@ def assert_restricted_matches(rf: lc.RestrictedFit, beta, cov, rss, df_resid) ->
     close(se[free], np.sqrt(var[free]))
     assert np.all(se[~free] <= 1e-6 * cscale**0.5)
     close(rf.rss, rss)
-    assert rf.df_resid == df_resid
+    assert rf.df_error == df_error
 
 
 def assert_f_identity(f: lc.LinearFit, w: lc.WaldTest, rf: lc.RestrictedFit, rss_r: float, res):
-    """F = ((SSR_r - SSR_u) / rank) / (SSR_u / df_resid), SSRs from statsmodels fits."""
-    f_ref = ((rss_r - res.ssr) / w.df_num) / (res.ssr / res.df_resid)
-    close(w.statistic, f_ref)
+    """F = ((SSR_r - SSR_u) / rank) / (SSR_u / df_error), SSRs from statsmodels fits."""
+    f_ref = ((rss_r - res.ssr) / w.df_test) / (res.ssr / res.df_resid)
+    close(w.stat, f_ref)
     close(rf.f_statistic(), f_ref)
     close(rf.rss_unrestricted, res.ssr)
-    assert rf.rank == w.df_num
+    assert rf.rank == w.df_test
 
 
 # -- warpbreaks: factors, interaction, R's level order -------------------------------------
@@ -232,7 +232,7 @@ def test_mtcars_nonzero_targets(mtcars):
         ],
     )
     assert_wald_matches(w, res, c, [-3, 0, 1.5])
-    assert w.df_num == 3
+    assert w.df_test == 3
 
     # a whole term set to a non-zero value: both cylinder effects equal -2
     w = f.wald(cyl == -2)
@@ -326,15 +326,15 @@ def test_plant_growth_no_intercept_redundant_rows(plant_growth, formula):
     with pytest.warns(ValueWarning, match="rank is 2"):  # statsmodels reports the rank it used
         res.f_test((c, [0.1, 0.2, 0.3]))
     assert_wald_matches(w, res, c, [0.1, 0.2, 0.3])
-    assert w.df_num == 2
+    assert w.df_test == 2
     assert set(w.redundant) == {2}
     close([w.redundant[2][0], w.redundant[2][1]], [1.0, 1.0])
 
     # equal means: the same F as the one-way ANOVA F of the model with an intercept
     w0 = f.wald((g["ctrl"] == g["trt1"]) & (g["trt1"] == g["trt2"]) & (g["ctrl"] == g["trt2"]))
     res_i = sm_fit("weight ~ group", plant_growth)
-    close(w0.statistic, res_i.fvalue)
-    close(w0.p_value, res_i.f_pvalue)
+    close(w0.stat, res_i.fvalue)
+    close(w0.p, res_i.f_pvalue)
 
 
 # -- InsectSprays: restricted LS as merged factor levels -----------------------------------
@@ -359,7 +359,7 @@ def test_insect_sprays_restriction_merges_levels(insect_sprays):
     res_m = sm_fit("count ~ spray2", merged)
     rf = f.restrict(system)
     close(rf.rss, res_m.ssr)
-    assert rf.df_resid == res_m.df_resid
+    assert rf.df_error == res_m.df_resid
     scale = float(np.max(np.abs(res_m.params)))
     close(rf.coefficients["Intercept"], res_m.params["Intercept"])
     for lev in "CDE":
@@ -405,7 +405,7 @@ def test_npk_rank_deficient(npk):
         res = sm_fit(formula, npk)
     assert f.rank == 12 == np.linalg.matrix_rank(res.model.exog)
     assert len(f.aliased) == 1
-    assert f.df_resid == res.df_resid == 12
+    assert f.df_error == res.df_resid == 12
     close(f.rss, res.ssr)
     close(f.sigma, np.sqrt(res.scale))
 
@@ -456,7 +456,7 @@ def test_chickwts_from_matrix(chickwts):
     d_arr = [*d, 2 * d[0]]
     w = f.wald(lc.from_matrix(c_arr, d_arr))
     assert_wald_matches(w, res, np.vstack([c_sm, 2 * c_sm[0]]), d_arr)
-    assert w.df_num == 3 and set(w.redundant) == {3}
+    assert w.df_test == 3 and set(w.redundant) == {3}
 
     rf = f.restrict(lc.from_matrix(c_arr, d_arr))
     beta, cov, rss_r, df_r = sm_restricted(res, c_sm, d)
@@ -482,7 +482,7 @@ def test_stackloss_restriction_by_substitution(stackloss):
     g = sub.params
     rf = f.restrict(restriction)
     close(rf.rss, sub.ssr)
-    assert rf.df_resid == sub.df_resid
+    assert rf.df_error == sub.df_resid
     close(rf.coefficients["Intercept"], g["Intercept"])
     close(rf.coefficients["air_flow"], g["I(air_flow - water_temp)"])
     close(rf.coefficients["water_temp"], 1 - g["I(air_flow - water_temp)"])

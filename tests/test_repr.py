@@ -91,7 +91,7 @@ def test_fit_text(cars_fit):
 def test_fit_html(cars_fit):
     f, ref = cars_fit
     page = parse(f._repr_html_())
-    assert page.header == ["coefficient", "estimate", "std. error", "t", "p"]
+    assert page.header == ["coefficient", "estimate", "s.e.", "t", "p"]
     assert [r[0] for r in page.rows] == ["Intercept", "wt", "hp"]
     for r in page.rows:
         name = r[0]
@@ -150,7 +150,7 @@ def test_wald_text_and_html(cars_fit):
     t_wt = (ref.params["wt"] + 3) / ref.bse["wt"]
     assert g6(t_wt) in text and "wt = -3" in text
     page = parse(w._repr_html_())
-    assert page.header == ["restriction", "estimate", "std.error", "t", "p", "95% interval"]
+    assert page.header == ["restriction", "estimate", "s.e.", "t", "p", "95% interval"]
     assert [r[0] for r in page.rows] == ["wt = -3", "hp = 0"]
     ci = ref.conf_int(0.05).loc["hp"]
     assert page.rows[1][1:4] == [g6(ref.params["hp"]), g6(ref.bse["hp"]), g6(ref.tvalues["hp"])]
@@ -195,7 +195,7 @@ def test_restricted_text_and_html(mtcars, cars_fit):
     full = smf.ols("mpg ~ wt + hp", mtcars).fit()
     assert f"(unrestricted {g6(full.ssr)})" in text
     page = parse(r._repr_html_())
-    assert page.header == ["coefficient", "estimate", "std. error"]
+    assert page.header == ["coefficient", "estimate", "s.e."]
     cells = {row[0]: row[1:] for row in page.rows}
     assert cells["wt"] == [g6(ref.params["wt"]), g6(ref.bse["wt"])]
     assert cells["Intercept"] == [g6(ref.params["Intercept"]), g6(ref.bse["Intercept"])]

@@ -29,7 +29,7 @@ def _data():
 
 def _summary(f):
     w = f.wald((lc.coef("x1") == 0) & (lc.coef("x2") == 0))
-    return f.coefficients.to_numpy(), f.std_errors().to_numpy(), f.sigma, w.statistic, w.p_value
+    return f.coefficients.to_numpy(), f.std_errors().to_numpy(), f.sigma, w.stat, w.p
 
 
 def test_unscaled_fit_matches_statsmodels():

@@ -23,8 +23,8 @@ error do not depend on the coding.
 
 * When the weights sum to zero (a *contrast*), terms that do not involve the factor's variable
   cancel exactly and are left out; only variables that interact with the factor need values.
-  Give them with :meth:`LevelMeans.at` (``.at(shift="late", temperature_c=22)``) or average the
-  means with equal weight over the levels of categorical ones with
+  Give them with :meth:`LevelMeans.holding` (``.holding(shift="late", temperature_c=22)``) or
+  average the means with equal weight over the levels of categorical ones with
   :meth:`LevelMeans.averaging`.  A variable the contrast depends on but that has neither raises
   :class:`~lincomb.errors.ContrastError` naming the term.
 * Weights that do not sum to zero (within :data:`ZERO_SUM_TOL` of their absolute sum) raise
@@ -364,12 +364,12 @@ def _level_rows(
             )
     both = sorted(set(pinned) & set(averaging))
     if both:
-        raise ContrastError(f"{both} are both fixed with .at() and averaged over; choose one.")
+        raise ContrastError(f"{both} are both fixed with .holding() and averaged over; choose one.")
     for key in averaging:
         if key not in cats:
             raise ContrastError(
                 f"cannot average over {key!r}: it is numeric in this model. Fix it with"
-                f" .at({key}=value) instead."
+                f" .holding({key}=value) instead."
             )
     terms = [t for t, tv in term_vars.items() if whole_model or var in tv]
     needs: dict[str, list[str]] = {}
@@ -383,7 +383,7 @@ def _level_rows(
         fix = ", ".join(f"{v}=..." for v in missing)
         raise ContrastError(
             f"the level means of {factor.name!r} under {what} depend on {why}."
-            f" Give values with .at({fix})"
+            f" Give values with .holding({fix})"
             + (
                 " or average over categorical ones with .averaging(...)."
                 if any(v in cats for v in missing)
@@ -623,24 +623,34 @@ def _build(recipe: _Recipe, fac: _Factor) -> tuple[Array, list[str]]:
 # ---------------------------------------------------------------------------------------------
 # the public lazy objects
 # ---------------------------------------------------------------------------------------------
-def _check_at(values: Mapping[str, Any]) -> tuple[tuple[str, Any], ...]:
+def _check_held(values: Mapping[str, Any]) -> tuple[tuple[str, Any], ...]:
     out = []
     for key, val in values.items():
         if not isinstance(key, str) or not key:
-            raise TypeError(f"at() takes variable names as keywords, got {key!r}.")
+            raise TypeError(f"holding() takes variable names as keywords, got {key!r}.")
         if isinstance(val, (list, tuple, set, np.ndarray, pd.Series)):
             raise ContrastError(
-                f"at({key}=...) takes one value, got {val!r}. To average over the levels of a"
+                f"holding({key}=...) takes one value, got {val!r}. To average over the levels of a"
                 f" factor use .averaging({key!r}); for several values build one contrast each."
             )
         out.append((key, val))
     return tuple(out)
 
 
-def _setting_text(at: tuple[tuple[str, Any], ...], averaging: tuple[str, ...]) -> str:
-    parts = [f"{k}={v}" for k, v in at]
-    parts += [f"mean over {v}" for v in averaging]
-    return f" at {', '.join(parts)}" if parts else ""
+def _readable(value: Any) -> str:
+    """A held value as written in a label: numbers to 6 significant digits (``55.4``)."""
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):.6g}"
+    return str(value)
+
+
+def _setting_text(held: tuple[tuple[str, Any], ...], averaging: tuple[str, ...]) -> str:
+    parts = []
+    if held:
+        parts.append("holding " + ", ".join(f"{k}={_readable(v)}" for k, v in held))
+    if averaging:
+        parts.append("averaged over " + ", ".join(averaging))
+    return " " + "; ".join(parts) if parts else ""
 
 
 @dataclass(frozen=True, eq=False)
@@ -656,32 +666,32 @@ class LevelContrasts(_Item):
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
     >>> res = f.wald(lc.levels("line").successive())
-    >>> res.labels[0], res.df_num
+    >>> res.labels[0], res.df_test
     ('line[L2] - line[L1]', 3)
     """
 
     factor: str
     recipe: _Recipe
     order: tuple[Any, ...] | None = None
-    at_values: tuple[tuple[str, Any], ...] = ()
+    held: tuple[tuple[str, Any], ...] = ()
     averaged: tuple[str, ...] = ()
     target: float = 0.0
 
     __hash__ = None  # type: ignore[assignment]
 
     # -- building ----------------------------------------------------------------------
-    def at(self, **values: Any) -> LevelContrasts:
+    def holding(self, **values: Any) -> LevelContrasts:
         """Fix other variables (a level of a factor or a number) where the means are taken.
 
         Examples
         --------
         >>> import lincomb as lc
-        >>> lc.levels("line").pairwise().at(temperature_c=22.5)
-        <LevelContrasts: pairwise differences of line means at temperature_c=22.5 = 0>
+        >>> lc.levels("line").pairwise().holding(temperature_c=22.5)
+        <LevelContrasts: pairwise differences of line means holding temperature_c=22.5 = 0>
         """
-        merged = dict(self.at_values)
-        merged.update(dict(_check_at(values)))
-        return replace(self, at_values=tuple(merged.items()))
+        merged = dict(self.held)
+        merged.update(dict(_check_held(values)))
+        return replace(self, held=tuple(merged.items()))
 
     def averaging(self, *variables: str) -> LevelContrasts:
         """Average the means with equal weight over all levels of these categorical factors.
@@ -690,7 +700,7 @@ class LevelContrasts(_Item):
         --------
         >>> import lincomb as lc
         >>> lc.levels("line").equal().averaging("shift")
-        <LevelContrasts: all line means equal at mean over shift = 0>
+        <LevelContrasts: all line means equal averaged over shift = 0>
         """
         for v in variables:
             if not isinstance(v, str) or not v:
@@ -724,12 +734,12 @@ class LevelContrasts(_Item):
         Examples
         --------
         >>> import lincomb as lc
-        >>> (lc.levels("line").pairwise().at(shift="late") == 0.5).text()
-        'pairwise differences of line means at shift=late = 0.5'
+        >>> (lc.levels("line").pairwise().holding(shift="late") == 0.5).text()
+        'pairwise differences of line means holding shift=late = 0.5'
         """
         tail = f" = {_fmt_num(self.target)}"
         base = self.recipe.describe(self.factor)
-        return f"{base}{_setting_text(self.at_values, self.averaged)}{tail}"
+        return f"{base}{_setting_text(self.held, self.averaged)}{tail}"
 
     def __repr__(self) -> str:
         return f"<LevelContrasts: {self.text()}>"
@@ -748,13 +758,13 @@ class LevelContrasts(_Item):
     def _weights(self, resolver: Any) -> tuple[_Factor, Array, list[str]]:
         fac = self._factor(resolver)
         w, labels = _build(self.recipe, fac)
-        suffix = _setting_text(self.at_values, self.averaged)
+        suffix = _setting_text(self.held, self.averaged)
         return fac, w, [lab + suffix for lab in labels]
 
     def _matrix(self, resolver: Any) -> tuple[_Factor, Array, Array, list[str]]:
         fac, w, labels = self._weights(resolver)
         sums = np.abs(w.sum(axis=1)) > ZERO_SUM_TOL * np.abs(w).sum(axis=1)
-        x = _level_rows(resolver, fac, self.at_values, self.averaged, bool(sums.any()))
+        x = _level_rows(resolver, fac, self.held, self.averaged, bool(sums.any()))
         return fac, w, w @ x, labels
 
     def rows(self, index: Any) -> Iterator[tuple[Array, float, str]]:
@@ -823,7 +833,7 @@ class LevelContrasts(_Item):
         Valid when the rows are a full set (``k - 1`` zero-sum rows) whose estimates are
         uncorrelated under the fit; then the single-df sums of squares ``σ² t_i²`` add up to
         the sum of squares of the hypothesis that all level means are equal (at the same
-        ``at``/``averaging`` setting), which in a one-way or balanced layout is the factor's
+        ``holding``/``averaging`` setting), which in a one-way or balanced layout is the factor's
         sum of squares in the analysis of variance.
 
         Raises
@@ -846,32 +856,32 @@ class LevelMeans:
     """The level means of one factor of a fit, to be compared by contrasts.
 
     Create with :func:`levels`.  Each method returns a :class:`LevelContrasts` (rows of weights
-    on the means, resolved by a fit when tested).  :meth:`at` and :meth:`averaging` set where
+    on the means, resolved by a fit when tested).  :meth:`holding` and :meth:`averaging` set where
     the means are taken when the factor interacts with other variables.
 
     Examples
     --------
     >>> import lincomb as lc
-    >>> dose = lc.levels("C(dose)").at(site="north")
+    >>> dose = lc.levels("C(dose)").holding(site="north")
     >>> dose.versus("0")
-    <LevelContrasts: C(dose) means versus 0 at site=north = 0>
+    <LevelContrasts: C(dose) means versus 0 holding site=north = 0>
     """
 
-    __slots__ = ("_factor", "_order", "_at", "_averaging")
+    __slots__ = ("_factor", "_order", "_held", "_averaging")
     __hash__ = None  # type: ignore[assignment]
 
     def __init__(
         self,
         factor: str,
         order: Sequence[Any] | None = None,
-        at: tuple[tuple[str, Any], ...] = (),
+        held: tuple[tuple[str, Any], ...] = (),
         averaging: tuple[str, ...] = (),
     ) -> None:
         if not isinstance(factor, str) or not factor:
             raise TypeError(f"levels() needs a factor name, got {factor!r}.")
         self._factor = factor
         self._order = None if order is None else tuple(order)
-        self._at = at
+        self._held = held
         self._averaging = averaging
 
     def _make(self, recipe: _Recipe) -> LevelContrasts:
@@ -879,11 +889,11 @@ class LevelMeans:
             factor=self._factor,
             recipe=recipe,
             order=self._order,
-            at_values=self._at,
+            held=self._held,
             averaged=self._averaging,
         )
 
-    def at(self, **values: Any) -> LevelMeans:
+    def holding(self, **values: Any) -> LevelMeans:
         """Fix other variables (a level or a number) at which the means are taken.
 
         Needed for each variable that interacts with the factor (or, for weights that do not
@@ -893,11 +903,11 @@ class LevelMeans:
         --------
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
-        >>> f.wald(lc.levels("line").at(shift="late").means()).labels[0]
-        'mean line[L1] at shift=late'
+        >>> f.wald(lc.levels("line").holding(shift="late").means()).labels[0]
+        'mean line[L1] holding shift=late'
         """
-        merged = dict(self._at)
-        merged.update(dict(_check_at(values)))
+        merged = dict(self._held)
+        merged.update(dict(_check_held(values)))
         return LevelMeans(self._factor, self._order, tuple(merged.items()), self._averaging)
 
     def averaging(self, *variables: str) -> LevelMeans:
@@ -907,13 +917,13 @@ class LevelMeans:
         --------
         >>> import lincomb as lc
         >>> lc.levels("line").averaging("shift")
-        <LevelMeans: line at mean over shift>
+        <LevelMeans: line averaged over shift>
         """
         for v in variables:
             if not isinstance(v, str) or not v:
                 raise TypeError(f"averaging() takes variable names, got {v!r}.")
         merged = tuple(dict.fromkeys(self._averaging + variables))
-        return LevelMeans(self._factor, self._order, self._at, merged)
+        return LevelMeans(self._factor, self._order, self._held, merged)
 
     def pairwise(self) -> LevelContrasts:
         """All ``k(k-1)/2`` differences ``μ_j - μ_i`` for ``i < j`` (rank ``k - 1``).
@@ -923,7 +933,7 @@ class LevelMeans:
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> res = f.wald(lc.levels("line").pairwise())
-        >>> len(res.labels), res.df_num
+        >>> len(res.labels), res.df_test
         (6, 3)
         """
         return self._make(_Recipe("pairwise"))
@@ -1010,7 +1020,7 @@ class LevelMeans:
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> same = f.wald(lc.levels("line").equal())
-        >>> bool(np.isclose(same.statistic, f.wald(lc.term("line") == 0).statistic))
+        >>> bool(np.isclose(same.stat, f.wald(lc.term("line") == 0).stat))
         True
         """
         return self._make(_Recipe("equal"))
@@ -1023,7 +1033,7 @@ class LevelMeans:
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> f.wald(lc.levels("line").averaging("shift").means() == 500).labels[0]
-        'mean line[L1] at mean over shift'
+        'mean line[L1] averaged over shift'
         """
         return self._make(_Recipe("means"))
 
@@ -1061,7 +1071,7 @@ class LevelMeans:
         return self._make(_Recipe("weights", (frozen, lab, bool(zero_sum))))
 
     def __repr__(self) -> str:
-        return f"<LevelMeans: {self._factor}{_setting_text(self._at, self._averaging)}>"
+        return f"<LevelMeans: {self._factor}{_setting_text(self._held, self._averaging)}>"
 
 
 def levels(factor: str, order: Sequence[Any] | None = None) -> LevelMeans:

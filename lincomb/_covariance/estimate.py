@@ -51,7 +51,7 @@ class CovarianceEstimate:
         ``'serial'`` or ``'given'``.
     label : str
         Description shown on results (``WaldTest.covariance``).
-    df_den : float
+    df_error : float
         Denominator degrees of freedom of the F reference (and of the rows' t).
     groups : tuple of int
         Number of clusters per clustering variable (empty for other estimators).
@@ -69,13 +69,13 @@ class CovarianceEstimate:
     >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
     >>> from lincomb._covariance.estimators import evaluate
     >>> est = evaluate(f, lc.clustered(by="site"))
-    >>> est.method, est.groups, est.df_den
+    >>> est.method, est.groups, est.df_error
     ('cluster', (40,), 39.0)
     """
 
     method: str
     label: str
-    df_den: float
+    df_error: float
     groups: tuple[int, ...] = ()
     lag: int | None = None
     scale: float | tuple[float, ...] = 1.0
@@ -110,7 +110,7 @@ class CovarianceEstimate:
         return self._factor @ base
 
     def __repr__(self) -> str:
-        return f"<CovarianceEstimate: {self.label}; reference df {self.df_den:g}>"
+        return f"<CovarianceEstimate: {self.label}; reference df {self.df_error:g}>"
 
 
 def check_rank(

@@ -44,7 +44,7 @@ def given_estimate(fit: LinearFit, matrix: Any, df: float | None) -> CovarianceE
     return CovarianceEstimate(
         method="given",
         label="given matrix",
-        df_den=float(fit.df_resid) if df is None else float(df),
+        df_error=float(fit.df_error) if df is None else float(df),
         _sol=sol,
         _factor=factor,
         _direct=bmap,

@@ -154,7 +154,7 @@ class _Meat:
         self.sol: core.Solution = fit._sol
         self.n_obs: int = int(fit.n_obs)
         self.k: int = int(self.sol.rank)
-        self.df_resid = float(fit.df_resid)
+        self.df_error = float(fit.df_error)
         self.rs: Array = self.sol.r * self.sol.scale[self.sol.kept]
 
     def merge(self, *parts: Partial) -> Partial:
@@ -197,7 +197,7 @@ class HeteroskedasticMeat(_Meat):
         return CovarianceEstimate(
             method=self.kind,
             label=self.kind,
-            df_den=self.df_resid,
+            df_error=self.df_error,
             scale=scale,
             _sol=self.sol,
             _factor=factor,
@@ -315,7 +315,7 @@ class ClusterMeat(_Meat):
         return CovarianceEstimate(
             method=method,
             label=label,
-            df_den=float(min(sizes) - 1) if self.df is None else float(self.df),
+            df_error=float(min(sizes) - 1) if self.df is None else float(self.df),
             groups=tuple(sizes),
             scale=scale,
             clipped=clipped,
@@ -388,7 +388,7 @@ class SerialMeat(_Meat):
         return CovarianceEstimate(
             method="serial",
             label=label,
-            df_den=self.df_resid if self.df is None else float(self.df),
+            df_error=self.df_error if self.df is None else float(self.df),
             lag=self.lag,
             scale=scale,
             clipped=clipped,

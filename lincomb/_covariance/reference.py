@@ -15,16 +15,16 @@ __all__ = ["check_reference", "reference_result"]
 
 
 def reference_result(
-    quad: float, q: int, df_den: float, reference: str
+    quad: float, q: int, df_error: float, reference: str
 ) -> tuple[str, float, float, float]:
-    """``(distribution, statistic, df_den, p_value)`` of a Wald form under the reference."""
+    """``(distribution, statistic, df_error, p_value)`` of a Wald form under the reference."""
     ref = check_reference(reference)
     if q == 0:
-        return ref, float("nan"), df_den if ref == "F" else float("inf"), float("nan")
+        return ref, float("nan"), df_error if ref == "F" else float("inf"), float("nan")
     if ref == "chi2":
         return "chi2", float(quad), float("inf"), float(stats.chi2.sf(quad, q))
     stat = quad / q
-    return "F", float(stat), float(df_den), float(stats.f.sf(stat, q, df_den))
+    return "F", float(stat), float(df_error), float(stats.f.sf(stat, q, df_error))
 
 
 def check_reference(reference: object) -> str:

@@ -93,7 +93,7 @@ class Classical(Estimator):
         return CovarianceEstimate(
             method="classical",
             label="classical",
-            df_den=float(fit.df_resid),
+            df_error=float(fit.df_error),
             _sol=fit._sol,
             _sigma=fit.sigma,
         )
@@ -240,7 +240,7 @@ def clustered(
     >>> import lincomb as lc
     >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
     >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.clustered(by="site"))
-    >>> res.covariance, res.df_den
+    >>> res.covariance, res.df_error
     ('cluster by site (40 groups)', 39.0)
     """
     if isinstance(by, str):
@@ -357,7 +357,7 @@ def given(matrix: ArrayLike | pd.DataFrame, *, df: float | None = None) -> Given
     >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
     >>> r = lc.coef("temperature_c") == 0
     >>> a = f.wald(r, covariance=lc.given(f.covariance()))
-    >>> bool(np.isclose(a.statistic, f.wald(r).statistic))
+    >>> bool(np.isclose(a.stat, f.wald(r).stat))
     True
     """
     _check_df(df)

@@ -251,28 +251,28 @@ def wald_batch(
     with np.errstate(divide="ignore", invalid="ignore"):
         if ref == "F":
             stat = np.where(q > 0, core.quad / np.maximum(q, 1), np.nan)
-            df_den = float(vcov.df_den)
-            p_value = special.fdtrc(q, df_den, stat)  # the function behind stats.f.sf
+            df_error = float(vcov.df_error)
+            p_value = special.fdtrc(q, df_error, stat)  # the function behind stats.f.sf
         else:
             stat = np.where(q > 0, core.quad, np.nan)
-            df_den = float("inf")
+            df_error = float("inf")
             p_value = special.chdtrc(q, stat)  # the function behind stats.chi2.sf
     res = WaldBatch(
         systems=systems,
         estimate=core.estimate,
         target=ds,
-        std_error=core.std_error,
-        t=core.statistic_rows,
-        statistic=stat,
-        df_num=q,
-        df_den=df_den,
-        p_value=p_value,
+        se=core.std_error,
+        ratio=core.statistic_rows,
+        stat=stat,
+        df_test=q,
+        df_error=df_error,
+        p=p_value,
         status=tuple(status),
         redundant=core.dependencies,
         names=tuple(fit.names),
         matrix=cs,
         labels=labels,
-        distribution=ref,
+        reference=ref,
         covariance=vcov.label,
         _index=fit.index,
     )

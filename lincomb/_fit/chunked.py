@@ -24,7 +24,7 @@ Missing values
 --------------
 Rows with a missing value in a variable of the formula (or the weights) are dropped chunk by
 chunk and counted across chunks (``n_dropped``; their labels, as each chunk labels them, in
-``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError` with ``missing="raise"``.
+``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError` with ``missing="refuse"``.
 
 Covariances that need the rows
 ------------------------------
@@ -114,8 +114,8 @@ def _check_options(weights: object, missing: object) -> None:
             "weights must name a column of the chunks (an array cannot be aligned with"
             f" chunks); got {type(weights).__name__}."
         )
-    if missing not in ("drop", "raise"):
-        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    if missing not in ("skip", "refuse"):
+        raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
 
 
 @dataclass(frozen=True)
@@ -135,7 +135,7 @@ class FrameRows:
 
     encoder: FormulaEncoder
     weights: str | None = None
-    missing: str = "drop"
+    missing: str = "skip"
 
     def encode(self, frame: pd.DataFrame, where: str, keep_frame: bool = False) -> EncodedRows:
         return self.encoder.encode(
@@ -213,7 +213,7 @@ def fit_chunks(
     *,
     weights: str | None = None,
     levels: Mapping[str, Sequence[Any]] | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     progress: Callable[[ChunkProgress], None] | None = None,
 ) -> LinearFit:
@@ -233,7 +233,7 @@ def fit_chunks(
         first is the reference under the default coding).  Variables not listed take the levels
         of the first chunk with rows; a later chunk with another level raises
         :class:`~lincomb.errors.UnseenLevelError`.
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables or the weights are dropped and
         counted across chunks, or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
@@ -266,8 +266,8 @@ def fit_chunks(
     >>> g = lc.fit("yield_t_ha ~ C(nitrogen) + variety + rainfall_mm", trial)
     >>> (f.n_obs, f.n_dropped) == (g.n_obs, g.n_dropped)
     True
-    >>> bool(abs(f.wald(lc.term("variety") == 0).statistic
-    ...          - g.wald(lc.term("variety") == 0).statistic) < 1e-8)
+    >>> bool(abs(f.wald(lc.term("variety") == 0).stat
+    ...          - g.wald(lc.term("variety") == 0).stat) < 1e-8)
     True
     """
     require_response(formula)
@@ -287,10 +287,10 @@ def fit_chunks(
                     )
                 if FormulaEncoder.complete_rows(formula, frame, weights) == 0:
                     # no row to learn the encoding from yet
-                    if missing == "raise" and len(frame):
+                    if missing == "refuse" and len(frame):
                         raise MissingValueError(
                             f"{where}: all {len(frame)} rows have missing values; drop or"
-                            " impute them, or fit with missing='drop'."
+                            " impute them, or fit with missing='skip'."
                         )
                     p.record(len(frame), 0, frame.index)
                     continue
@@ -517,7 +517,7 @@ def covariance_pass(
     >>> g = lc.fit("wait_min ~ staffing + protocol", sites)
     >>> a = f.wald(lc.coef("staffing") == 0, covariance=est)
     >>> b = g.wald(lc.coef("staffing") == 0, covariance=lc.clustered(by="site"))
-    >>> bool(abs(a.statistic - b.statistic) < 1e-8 * b.statistic), a.df_den
+    >>> bool(abs(a.stat - b.stat) < 1e-8 * b.stat), a.df_error
     (True, 39.0)
     """
     from lincomb._covariance.second_pass import RowPass

@@ -70,12 +70,12 @@ class LinearFit:
         Observations used.
     n_dropped : int
         Rows dropped for missing values.
-    df_resid : int
+    df_error : int
         ``n_obs - rank``.
     rss : float
         (Weighted) residual sum of squares.
     sigma : float
-        Residual standard deviation ``sqrt(rss / df_resid)``.
+        Residual standard deviation ``sqrt(rss / df_error)``.
     weighted : bool
     response : str
     formula : str or None
@@ -87,7 +87,7 @@ class LinearFit:
     >>> f.n_obs, f.n_dropped, f.rank
     (216, 4, 7)
     >>> res = f.wald(lc.term("C(nitrogen)")["40"] == lc.term("C(nitrogen)")["80"])
-    >>> bool(res.p_value < 0.05)
+    >>> bool(res.p < 0.05)
     True
     """
 
@@ -97,7 +97,7 @@ class LinearFit:
     rank: int
     n_obs: int
     n_dropped: int
-    df_resid: int
+    df_error: int
     rss: float
     sigma: float
     weighted: bool
@@ -141,7 +141,7 @@ class LinearFit:
             rank=sol.rank,
             n_obs=sol.n,
             n_dropped=len(design.dropped),
-            df_resid=sol.df_resid,
+            df_error=sol.df_resid,
             rss=sol.rss,
             sigma=sigma,
             weighted=design.weighted,
@@ -213,7 +213,7 @@ class LinearFit:
         >>> robust = f.with_covariance(lc.clustered(by="site"))
         >>> robust.covariance_estimator, f.covariance_estimator
         ('cluster by site (40 groups)', 'classical')
-        >>> robust.wald(lc.coef("staffing") == 0).df_den
+        >>> robust.wald(lc.coef("staffing") == 0).df_error
         39.0
         """
         return replace(self, _vcov=covmod.evaluate(self, covariance))
@@ -275,7 +275,7 @@ class LinearFit:
         root = vcov.root(sol.to_working(np.eye(sol.p)[est])[:, sol.kept])
         se = np.full(sol.p, np.nan)
         se[est] = core.safe_norm(root, axis=0)
-        return pd.Series(se, index=list(self.names), name="std_error")
+        return pd.Series(se, index=list(self.names), name="se")
 
     def coef_frame(
         self, level: float = 0.95, *, covariance: object = None, reference: str = "F"
@@ -292,26 +292,27 @@ class LinearFit:
             ``'F'``: t with the estimator's denominator degrees of freedom; ``'chi2'``: the
             standard normal (large-sample).
 
-        Columns: ``coefficient, term, estimate, std_error, t, p_value, lower, upper, level,
-        status, distribution, df, covariance`` where status is ``"estimable"``, ``"aliased"``
+        Columns: ``coefficient, term, estimate, se, ratio, p, lower, upper, level, status,
+        reference, df_error, covariance`` where status is ``"estimable"``, ``"aliased"``
         (its column depends on earlier ones; no estimate) or ``"not estimable"`` (estimated only
         with the aliased columns fixed at zero: its value depends on that choice and it cannot
-        be tested alone); ``distribution`` is ``"t"`` or ``"normal"``, ``df`` its degrees of
-        freedom (``inf`` for normal) and ``covariance`` the estimator's label.
+        be tested alone); ``ratio`` is ``estimate / se``, a t ratio with ``df_error`` degrees
+        of freedom under ``reference="F"`` and a z ratio under ``"chi2"`` (``df_error`` is
+        then ``inf``); ``covariance`` is the estimator's label.
 
         Examples
         --------
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
         >>> list(f.coef_frame().columns)[:4]
-        ['coefficient', 'term', 'estimate', 'std_error']
-        >>> f.coef_frame(covariance="HC3", reference="chi2")["distribution"].iloc[0]
-        'normal'
+        ['coefficient', 'term', 'estimate', 'se']
+        >>> f.coef_frame(covariance="HC3", reference="chi2")["reference"].iloc[0]
+        'chi2'
         """
         _check_level(level)
         ref = covmod.check_reference(reference)
         vcov = self._covariance_estimate(covariance)
-        dfree = vcov.df_den if ref == "F" else np.inf
+        dfree = vcov.df_error if ref == "F" else np.inf
         dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
         se = self.std_errors(vcov).to_numpy()
@@ -327,15 +328,15 @@ class LinearFit:
                 "coefficient": list(self.names),
                 "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
                 "estimate": est,
-                "std_error": se,
-                "t": t,
-                "p_value": p,
+                "se": se,
+                "ratio": t,
+                "p": p,
                 "lower": est - q * se,
                 "upper": est + q * se,
                 "level": level,
                 "status": self._status(),
-                "distribution": "t" if ref == "F" else "normal",
-                "df": dfree,
+                "reference": ref,
+                "df_error": dfree,
                 "covariance": vcov.label,
             }
         )
@@ -400,7 +401,7 @@ class LinearFit:
             ``'F'``: statistic / rank against F with the estimator's denominator degrees of
             freedom (``n − rank``; ``G − 1`` for clusters), rows against t with the same df.
             ``'chi2'``: the Wald form against chi-squared with rank degrees of freedom, rows
-            against the standard normal (``df_den`` is then ``inf``).
+            against the standard normal (``df_error`` is then ``inf``).
 
         Returns
         -------
@@ -430,10 +431,10 @@ class LinearFit:
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> res = f.wald(lc.term("line") == 0)
-        >>> res.df_num, res.df_den
+        >>> res.df_test, res.df_error
         (3, 294.0)
         >>> hc = f.wald(lc.term("line") == 0, covariance="HC3", reference="chi2")
-        >>> hc.distribution, hc.df_den, hc.covariance
+        >>> hc.reference, hc.df_error, hc.covariance
         ('chi2', inf, 'HC3')
         """
         vcov = self._covariance_estimate(covariance)
@@ -450,18 +451,20 @@ class LinearFit:
             cr = sol.to_working(rotated[0])[:, sol.kept]
             rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))
             wc = replace(wc, quad=rot.quad)
-        dist, stat, df_den, p_value = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
+        dist, stat, df_error, p_value = covmod.reference_result(
+            wc.quad, wc.rank, vcov.df_error, ref
+        )
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
             target=d.copy(),
-            std_error=wc.std_error,
-            t=wc.statistic_rows,
-            statistic=stat,
-            df_num=wc.rank,
-            df_den=df_den,
-            p_value=p_value,
-            distribution=dist,
+            se=wc.std_error,
+            ratio=wc.statistic_rows,
+            stat=stat,
+            df_test=wc.rank,
+            df_error=df_error,
+            p=p_value,
+            reference=dist,
             covariance=vcov.label,
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
@@ -533,11 +536,11 @@ class LinearFit:
         >>> systems = [(lc.coef(a) == lc.coef(b)) & (lc.coef("temperature_c") == 0)
         ...            for a, b in pairs]
         >>> b = f.wald_batch(systems, ids=["L2 vs L3", "L3 vs L4"])
-        >>> b.to_frame()[["system", "rank", "df_den"]]
-             system  rank  df_den
+        >>> b.test_frame()[["system", "rank", "df_error"]]
+             system  rank  df_error
         0  L2 vs L3     2   295.0
         1  L3 vs L4     2   295.0
-        >>> bool(np.isclose(b.p_value[1], f.wald(systems[1]).p_value, rtol=1e-10))
+        >>> bool(np.isclose(b.p[1], f.wald(systems[1]).p, rtol=1e-10))
         True
         """
         from lincomb._fit.batch import wald_batch
@@ -568,7 +571,7 @@ class LinearFit:
         >>> float(r.coefficients["line[T.L2]"])
         0.0
         >>> w = f.wald(lc.coef("line[T.L2]") == 0)
-        >>> bool(np.isclose((r.rss - f.rss) / f.rss * f.df_resid, w.statistic))
+        >>> bool(np.isclose((r.rss - f.rss) / f.rss * f.df_error, w.stat))
         True
         """
         self._check_variance()
@@ -606,7 +609,7 @@ class LinearFit:
             rss=rss_r,
             rss_unrestricted=sol.rss,
             rank=q,
-            df_resid=df_r,
+            df_error=df_r,
             sigma=sigma_r,
             redundant=analysis.dependencies,
             _cov=pd.DataFrame(cov, index=names, columns=names),
@@ -724,7 +727,7 @@ class LinearFit:
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
         >>> last = f.term_tests("all-others").stat[1]
-        >>> bool(np.isclose(last, f.wald(lc.term("shift") == 0).statistic))
+        >>> bool(np.isclose(last, f.wald(lc.term("shift") == 0).stat))
         True
         """
         from lincomb._results.term_tests import term_tests
@@ -893,7 +896,7 @@ def fit(
     data: pd.DataFrame,
     *,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
 ) -> LinearFit:
     """Fit a linear model by (weighted) least squares from a formula.
@@ -908,7 +911,7 @@ def fit(
         Not modified.
     weights : str or array_like, optional
         Positive weights (a column name or an array aligned with ``data``): WLS.
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables are dropped and counted
         (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
@@ -929,7 +932,7 @@ def fit(
     --------
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line + shift + temperature_c", lc.datasets.fill_lines())
-    >>> f.df_resid
+    >>> f.df_error
     293
     """
     require_response(formula)

@@ -17,12 +17,12 @@ Each response's numbers equal those of its own :func:`~lincomb.fit` to rounding,
 Missing values in the responses
 -------------------------------
 Handled exactly, per response: a response with missing values is fitted on the rows where it
-is observed, as its own ``lc.fit`` would with ``missing="drop"``; it never shrinks or shifts
+is observed, as its own ``lc.fit`` would with ``missing="skip"``; it never shrinks or shifts
 the design of the other responses.  Responses sharing a pattern of missing values share one
 factorization of the design rows they use.  Each response reports its own ``n_obs`` and
-``df_resid``; the rank of a subset of rows can be lower (aliased columns), a restriction can
+``df_error``; the rank of a subset of rows can be lower (aliased columns), a restriction can
 then be not estimable for that response: its test is NaN with status ``"not estimable"``.
-``missing="raise"`` refuses any missing response value instead.  Rows with missing values in
+``missing="refuse"`` refuses any missing response value instead.  Rows with missing values in
 the *design* variables (or weights) are dropped for every response and counted in
 ``n_dropped``, as in a single fit.
 
@@ -42,9 +42,7 @@ from __future__ import annotations
 import difflib
 import html
 import os
-from collections import deque
-from collections.abc import Callable, Iterator, Mapping, Sequence
-from concurrent.futures import Future, ThreadPoolExecutor
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -56,10 +54,23 @@ from scipy import stats
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
+from lincomb._fit.responses import (
+    _array_source,
+    _check_no_inf,
+    _FrameColumns,
+    _projected,
+    _Responses,
+    _unique_names,
+)
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
 from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
-from lincomb._results.format import _num, _p, _table_html, _table_text
-from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
+from lincomb._results.many import (
+    SCREEN_COLUMNS,
+    SCREEN_ROW_COLUMNS,
+    STATUSES,
+    ManyWaldTest,
+)
+from lincomb._results.many import fdr_adjust as _fdr
 from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import (
     DegenerateFitError,
@@ -86,155 +97,7 @@ MIN_BLOCK_COLUMNS: int = 16
 #: Most threads projecting blocks by default (the work is bound by memory bandwidth).
 MAX_WORKERS: int = 4
 
-#: Columns of :meth:`ManyWaldTest.to_frame` (one row per response).
-SCREEN_COLUMNS = (
-    "response",
-    "restrictions",
-    "rows",
-    "rank",
-    "statistic",
-    "distribution",
-    "df_num",
-    "df_den",
-    "p_value",
-    "p_adjusted",
-    "adjustment",
-    "covariance",
-    "redundant_rows",
-    "n_obs",
-    "status",
-)
-#: Columns of :meth:`ManyWaldTest.row_frame` (one row per response × restriction row).
-SCREEN_ROW_COLUMNS = (
-    "response",
-    "restriction",
-    "estimate",
-    "target",
-    "std_error",
-    "t",
-    "p_value",
-    "p_adjusted",
-    "adjustment",
-    "lower",
-    "upper",
-    "level",
-    "role",
-    "n_obs",
-    "status",
-)
-
-
-#: Status of a response (and of its test), in code order.
-STATUSES = ("ok", "too few rows", "exact fit", "not estimable")
 _OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
-
-# -- response sources --------------------------------------------------------------------------
-
-
-class _FrameColumns:
-    """Picklable reader of a frame's columns by position (``cols`` maps response -> column)."""
-
-    def __init__(self, frame: pd.DataFrame, cols: NDArray[np.intp] | None = None) -> None:
-        self.frame = frame
-        self.cols = cols
-
-    def __call__(self, c: Any) -> Any:
-        return self.frame.iloc[:, c if self.cols is None else self.cols[c]]
-
-
-class _ArrayColumns:
-    """Picklable reader of a 2-D array's columns."""
-
-    def __init__(self, arr: NDArray[Any]) -> None:
-        self.arr = arr
-
-    def __call__(self, c: Any) -> Any:
-        return self.arr[:, c]
-
-
-class _Responses:
-    """Columns of responses read in blocks, without copying the whole matrix."""
-
-    def __init__(self, names: tuple[str, ...], get: Callable[[Any], Any], n: int) -> None:
-        self.names = names
-        self._get = get
-        self.n = n
-
-    @property
-    def count(self) -> int:
-        return len(self.names)
-
-    def block(self, cols: slice | NDArray[np.intp]) -> NDArray[np.float64]:
-        raw = self._get(cols)
-        try:
-            if isinstance(raw, pd.DataFrame):
-                return raw.to_numpy(dtype=np.float64, na_value=np.nan)
-            return np.asarray(raw, dtype=np.float64)
-        except (TypeError, ValueError):
-            names = np.asarray(self.names, dtype=object)[cols]
-            for j, nm in enumerate(names):
-                try:
-                    frame_col = raw.iloc[:, j] if isinstance(raw, pd.DataFrame) else raw[:, j]
-                    np.asarray(frame_col, dtype=np.float64)
-                except (TypeError, ValueError):
-                    raise InputError(
-                        f"response {nm!r} is not numeric; recode it or leave it out."
-                    ) from None
-            raise  # pragma: no cover
-
-    def column(self, j: int) -> NDArray[np.float64]:
-        return self.block(np.array([j]))[:, 0]
-
-
-def _unique_names(names: Sequence[Any], what: str) -> tuple[str, ...]:
-    out = tuple(map(str, names))
-    if len(set(out)) != len(out):
-        dup = sorted({s for s in out if out.count(s) > 1})[:5]
-        raise InputError(f"{what} must be unique; repeated: {dup}.")
-    return out
-
-
-def _array_source(
-    y: Any, n: int, response_names: Sequence[str] | None, index: pd.Index | None
-) -> _Responses:
-    if isinstance(y, pd.DataFrame):
-        if len(y) != n:
-            raise InputError(f"the responses have {len(y)} rows but the design has {n}.")
-        if index is not None and not y.index.equals(index):
-            raise InputError(
-                "the responses' index differs from the data's; align them (e.g."
-                " responses.reindex(data.index)) or pass the responses as column names of data."
-            )
-        names = _unique_names(
-            y.columns if response_names is None else response_names, "response names"
-        )
-        if len(names) != y.shape[1]:
-            raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")
-        return _Responses(names, _FrameColumns(y), n)
-    if isinstance(y, pd.Series):
-        name = str(y.name) if y.name is not None else "y"
-        return _array_source(y.to_frame(name), n, response_names, index)
-    arr = np.asarray(y)
-    if arr.ndim == 1:
-        arr = arr[:, None]
-    if arr.ndim != 2:
-        raise InputError(f"responses must be 2-dimensional (n, r), got shape {arr.shape}.")
-    if arr.shape[0] != n:
-        raise InputError(
-            f"the responses have {arr.shape[0]} rows but the design has {n}; responses are"
-            " columns, one row per observation."
-        )
-    if arr.dtype.kind not in "fiub":
-        raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
-    r = arr.shape[1]
-    if response_names is None:
-        names = tuple(np.char.add("y", np.arange(r).astype(str)).tolist())
-    else:
-        names = _unique_names(response_names, "response names")
-        if len(names) != r:
-            raise InputError(f"{len(names)} response names for {r} responses.")
-    return _Responses(names, _ArrayColumns(arr), n)
-
 
 # -- groups of responses sharing rows ----------------------------------------------------------
 
@@ -294,278 +157,6 @@ def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.
     return beta
 
 
-# -- results -----------------------------------------------------------------------------------
-
-
-def _fdr(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.float64], str]:
-    """Adjust the finite p-values (NaN stay NaN); ``None`` means no adjustment."""
-    if method is None or (isinstance(method, str) and method.strip().lower() == "none"):
-        return p.copy(), "none"
-    out = np.full(p.shape, np.nan)
-    ok = np.isfinite(p)
-    adj = adjust_pvalues(p[ok], method)
-    out[ok] = adj
-    # canonical name via a one-element call (the function validates and names the method)
-    from lincomb._results.multiplicity import _canonical
-
-    return out, _canonical(method, P_METHODS, "p-value")
-
-
-def _repeat(value: str, r: int) -> pd.Categorical:
-    """A column holding one label ``r`` times (categorical: cheap for many rows)."""
-    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=[value])
-
-
-@dataclass(frozen=True)
-class ManyWaldTest:
-    """One restriction system ``C·β = d`` tested on every response of a :class:`ManyFit`.
-
-    Attributes
-    ----------
-    responses : tuple of str
-    labels : tuple of str
-        The system's rows as algebra.
-    estimate : (r, m) ndarray
-        ``Cβ̂`` per response (rows) and restriction row (columns).
-    target : (m,) ndarray
-        ``d``.
-    std_error : (r, m) ndarray
-    t : (r, m) ndarray
-        ``(Cβ̂ - d) / std_error``.
-    statistic : (r,) ndarray
-        F statistic per response (NaN unless the status is ``"ok"``).
-    df_num : int
-        Rank of ``C`` (redundant rows do not count).
-    df_den : (r,) ndarray
-        Residual degrees of freedom per response.
-    p_value : (r,) ndarray
-    status : (r,) ndarray of str
-        Per response: ``"ok"``, ``"too few rows"``, ``"exact fit"`` or ``"not estimable"``.
-    n_obs : (r,) ndarray of int
-    redundant : dict
-        ``{row: {independent row: weight}}`` for redundant rows of the system.
-    distribution : str
-        ``"F"``.
-    covariance : str
-        ``"classical"``.
-
-    Examples
-    --------
-    >>> import numpy as np, lincomb as lc
-    >>> rng = np.random.default_rng(3)
-    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
-    >>> ys = rng.normal(size=(40, 5)); ys[:, 0] += 2 * x[:, 1]
-    >>> res = lc.fit_many_arrays(x, ys, names=["one", "a", "b"]).wald(lc.coef("a") == 0)
-    >>> int(np.argmin(res.p_value)), res.to_frame().shape
-    (0, (5, 15))
-    """
-
-    responses: tuple[str, ...]
-    labels: tuple[str, ...]
-    estimate: NDArray[np.float64]
-    target: NDArray[np.float64]
-    std_error: NDArray[np.float64]
-    t: NDArray[np.float64]
-    statistic: NDArray[np.float64]
-    df_num: int
-    df_den: NDArray[np.float64]
-    p_value: NDArray[np.float64]
-    status: NDArray[np.str_]
-    n_obs: NDArray[np.int64]
-    redundant: dict[int, dict[int, float]] = field(default_factory=dict)
-    distribution: str = "F"
-    covariance: str = "classical"
-
-    def row_p_values(self) -> NDArray[np.float64]:
-        """Two-sided t p-value of each row, per response: (r, m).
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
-        >>> res.row_p_values().shape
-        (6, 3)
-        """
-        return 2 * stats.t.sf(np.abs(self.t), self.df_den[:, None])
-
-    def adjusted(self, method: str | None = "benjamini-hochberg") -> NDArray[np.float64]:
-        """The F p-values adjusted across responses (NaN where there is no test).
-
-        Parameters
-        ----------
-        method : str or None
-            ``"benjamini-hochberg"`` (``"bh"``), ``"benjamini-yekutieli"`` (``"by"``), or any
-            method of :func:`lincomb.multiplicity.adjust_pvalues`; ``None`` for none.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
-        >>> adj = res.adjusted("benjamini-hochberg")
-        >>> markers[int(adj.argmin())], bool((adj >= res.p_value).all())
-        ('g0004', True)
-        """
-        return _fdr(self.p_value, method)[0]
-
-    def intervals(self, level: float = 0.95) -> pd.DataFrame:
-        """Marginal intervals for each row's ``Cβ`` per response (tidy).
-
-        Columns: ``response, restriction, lower, upper, level``.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
-        >>> res.intervals(0.9).shape
-        (18, 5)
-        """
-        _check_level(level)
-        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
-        r, m = self.estimate.shape
-        return pd.DataFrame(
-            {
-                "response": np.repeat(np.asarray(self.responses, dtype=object), m),
-                "restriction": np.tile(np.asarray(self.labels, dtype=object), r),
-                "lower": (self.estimate - q * self.std_error).ravel(),
-                "upper": (self.estimate + q * self.std_error).ravel(),
-                "level": level,
-            }
-        )
-
-    def to_frame(self, fdr: str | None = "benjamini-hochberg") -> pd.DataFrame:
-        """One row per response; columns :data:`SCREEN_COLUMNS`.
-
-        ``p_adjusted`` adjusts ``p_value`` across the responses with ``fdr`` (named in
-        ``adjustment``); responses without a test (status other than ``"ok"``) are left out of
-        the family and get NaN.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
-        >>> screen = res.to_frame(fdr="holm")
-        >>> screen.shape, screen["adjustment"].iloc[0]
-        ((6, 15), 'holm')
-        """
-        adj, name = _fdr(self.p_value, fdr)
-        r = len(self.responses)
-        return pd.DataFrame(
-            {
-                "response": list(self.responses),
-                "restrictions": _repeat(" & ".join(self.labels), r),
-                "rows": len(self.labels),
-                "rank": self.df_num,
-                "statistic": self.statistic,
-                "distribution": _repeat(self.distribution, r),
-                "df_num": self.df_num,
-                "df_den": self.df_den,
-                "p_value": self.p_value,
-                "p_adjusted": adj,
-                "adjustment": _repeat(name, r),
-                "covariance": _repeat(self.covariance, r),
-                "redundant_rows": len(self.redundant),
-                "n_obs": self.n_obs,
-                "status": pd.Categorical(self.status, categories=STATUSES),
-            },
-            index=pd.RangeIndex(r),
-        )
-
-    def row_frame(
-        self, level: float = 0.95, fdr: str | None = "benjamini-hochberg"
-    ) -> pd.DataFrame:
-        """One row per response × restriction row; columns :data:`SCREEN_ROW_COLUMNS`.
-
-        Each row's t p-values are adjusted across the responses (one family per restriction
-        row).
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
-        >>> rows = res.row_frame(level=0.9)
-        >>> rows.shape, rows["restriction"].iloc[0]
-        ((18, 15), 'treatment[T.low] = 0')
-        """
-        _check_level(level)
-        r, m = self.estimate.shape
-        pr = self.row_p_values()
-        adj = np.empty_like(pr)
-        name = "none"
-        for i in range(m):
-            adj[:, i], name = _fdr(pr[:, i], fdr)
-        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
-        role = np.array(
-            ["redundant" if i in self.redundant else "independent" for i in range(m)],
-            dtype=object,
-        )
-        return pd.DataFrame(
-            {
-                "response": np.repeat(np.asarray(self.responses, dtype=object), m),
-                "restriction": np.tile(np.asarray(self.labels, dtype=object), r),
-                "estimate": self.estimate.ravel(),
-                "target": np.tile(self.target, r),
-                "std_error": self.std_error.ravel(),
-                "t": self.t.ravel(),
-                "p_value": pr.ravel(),
-                "p_adjusted": adj.ravel(),
-                "adjustment": _repeat(name, r * m),
-                "lower": (self.estimate - q * self.std_error).ravel(),
-                "upper": (self.estimate + q * self.std_error).ravel(),
-                "level": level,
-                "role": np.tile(role, r),
-                "n_obs": np.repeat(self.n_obs, m),
-                "status": pd.Categorical(np.repeat(self.status, m), categories=STATUSES),
-            }
-        )
-
-    def _summary_rows(self, top: int = 10) -> tuple[str, list[str], list[list[str]]]:
-        adj = self.adjusted("benjamini-hochberg")
-        ok = np.isfinite(self.p_value)
-        head = (
-            f"ManyWaldTest (F, classical): {' & '.join(self.labels)}\n"
-            f"{len(self.responses)} responses, {int(ok.sum())} tested; df_num = {self.df_num};"
-            f" p < 0.05: {int(np.sum(self.p_value[ok] < 0.05))};"
-            f" BH-adjusted p < 0.05: {int(np.sum(adj[ok] < 0.05))}"
-        )
-        order = np.argsort(np.where(ok, self.p_value, np.inf), kind="stable")[:top]
-        rows = [
-            [
-                self.responses[i],
-                _num(self.statistic[i]),
-                _num(self.df_den[i]),
-                _p(self.p_value[i]),
-                _p(adj[i]),
-                self.status[i],
-            ]
-            for i in order
-        ]
-        return head, ["response", "F", "df_den", "p", "p (BH)", "status"], rows
-
-    def __repr__(self) -> str:
-        head, cols, rows = self._summary_rows()
-        return f"{head}\nsmallest p-values:\n{_table_text(cols, rows)}"
-
-    def _repr_html_(self) -> str:
-        head, cols, rows = self._summary_rows()
-        body = "<br>".join(html.escape(s) for s in head.split("\n"))
-        return f"<div class='lincomb'><p>{body}</p>{_table_html(cols, rows)}</div>"
-
-
 @dataclass(frozen=True)
 class ManyFit:
     """Least-squares fits of many responses on one design, kept as sufficient statistics.
@@ -580,7 +171,7 @@ class ManyFit:
         Estimates, one column per response (index: coefficient names; NaN where aliased).
     n_obs : pandas.Series
         Rows used per response.
-    df_resid : pandas.Series
+    df_error : pandas.Series
     rss : pandas.Series
     sigma : pandas.Series
     rank : pandas.Series
@@ -609,7 +200,7 @@ class ManyFit:
     responses: tuple[str, ...]
     coefficients: pd.DataFrame
     n_obs: pd.Series
-    df_resid: pd.Series
+    df_error: pd.Series
     rss: pd.Series
     sigma: pd.Series
     rank: pd.Series
@@ -719,7 +310,7 @@ class ManyFit:
         >>> mf = lc.fit_many("~ treatment + batch", panel, responses=["g0001", "g0002"])
         >>> res = mf.wald(lc.term("treatment") == 0)
         >>> ref = lc.fit("g0002 ~ treatment + batch", panel).wald(lc.term("treatment") == 0)
-        >>> bool(abs(res.statistic[1] - ref.statistic) < 1e-9 * ref.statistic)
+        >>> bool(abs(res.stat[1] - ref.stat) < 1e-9 * ref.stat)
         True
         """
         with blas_limit(self._blas):
@@ -730,12 +321,12 @@ class ManyFit:
         labels: list[str] | None = None
         target = None
         redundant: dict[int, dict[int, float]] = {}
-        df_num = 0
+        df_test = 0
         est_all: NDArray[np.float64] | None = None
         se_all = t_all = None
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
-        df_den = self.df_resid.to_numpy(dtype=np.float64).copy()
+        df_error = self.df_error.to_numpy(dtype=np.float64).copy()
         status = self.status.cat.codes.to_numpy().astype(np.int8)
         main = self._groups[0]
         for gi, g in enumerate(self._groups):
@@ -756,7 +347,7 @@ class ManyFit:
             if labels is None or gi == 0:
                 labels, target = lab, d
                 redundant = analysis.dependencies
-                df_num = int(analysis.independent.size)
+                df_test = int(analysis.independent.size)
             if est_all is None:
                 m = len(lab)
                 est_all = np.full((r, m), np.nan)
@@ -796,12 +387,12 @@ class ManyFit:
             labels=tuple(labels),
             estimate=est_all,
             target=np.asarray(target, dtype=np.float64).copy(),
-            std_error=se_all,
-            t=t_all,
-            statistic=stat,
-            df_num=df_num,
-            df_den=df_den,
-            p_value=pval,
+            se=se_all,
+            ratio=t_all,
+            stat=stat,
+            df_test=df_test,
+            df_error=df_error,
+            p=pval,
             status=np.asarray(STATUSES)[status],
             n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
             redundant=redundant,
@@ -862,12 +453,12 @@ class ManyFit:
         frames = []
         for name, restr in items:
             res = self.wald(restr)
-            fr = res.row_frame(level, fdr) if rows else res.to_frame(fdr)
+            fr = res.row_frame(level, fdr) if rows else res.test_frame(fdr)
             fr.insert(1, "test", name)
             frames.append(fr)
         out = pd.concat(frames, ignore_index=True)
         if family == "all":
-            adj, label = _fdr(out["p_value"].to_numpy(dtype=np.float64), fdr)
+            adj, label = _fdr(out["p"].to_numpy(dtype=np.float64), fdr)
             out["p_adjusted"] = adj
             out["adjustment"] = label
         return out
@@ -908,11 +499,6 @@ def _first_fit(groups: Sequence[_Group]) -> LinearFit:
     )
 
 
-def _check_level(level: float) -> None:
-    if not (0 < level < 1):
-        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
-
-
 # -- construction ------------------------------------------------------------------------------
 
 
@@ -927,8 +513,8 @@ def _build(
     threads: int | None = 1,
     workers: int = 1,
 ) -> ManyFit:
-    if missing not in ("drop", "raise"):
-        raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+    if missing not in ("skip", "refuse"):
+        raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
     n = design.x.shape[0]
     r = source.count
     if r == 0:
@@ -957,11 +543,11 @@ def _build(
                     f"response {source.names[cols[overflow[0]]]!r} holds values too large to"
                     " square in float64; rescale it."
                 )
-            if missing == "raise":
+            if missing == "refuse":
                 raise MissingValueError(
                     f"response {source.names[cols[bad[0]]]!r} has {int(nan[:, 0].sum())} missing"
                     f" values ({bad.size} responses in this block have some); fit with"
-                    " missing='drop' to fit each response on its observed rows."
+                    " missing='skip' to fit each response on its observed rows."
                 )
             for t, j in enumerate(bad):
                 key = np.packbits(nan[:, t]).tobytes()
@@ -995,43 +581,6 @@ def _build(
     return replace(fit, _blas=threads)
 
 
-def _projected(
-    factor: core.DesignFactor,
-    source: _Responses,
-    positions: NDArray[np.intp] | None,
-    r: int,
-    width: int,
-    workers: int,
-) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], core.ResponseBlock]]:
-    """Blocks of responses with their projections, in order.
-
-    Blocks are read in this thread (pandas is not asked to serve several threads) and projected
-    by ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
-    """
-
-    def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
-        cols = np.arange(j0, min(r, j0 + width))
-        yb = source.block(slice(j0, j0 + cols.size))
-        return cols, (yb if positions is None else yb[positions])
-
-    if workers <= 1:
-        for j0 in range(0, r, width):
-            cols, yb = read(j0)
-            yield j0, cols, yb, factor.project(yb)
-        return
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[Any]]] = deque()
-        for j0 in range(0, r, width):
-            cols, yb = read(j0)
-            pending.append((j0, cols, yb, pool.submit(factor.project, yb)))
-            if len(pending) > workers:
-                k0, kc, ky, fut = pending.popleft()
-                yield k0, kc, ky, fut.result()
-        while pending:
-            k0, kc, ky, fut = pending.popleft()
-            yield k0, kc, ky, fut.result()
-
-
 def _workers(workers: object) -> int:
     if workers is None:
         return max(1, min(MAX_WORKERS, os.cpu_count() or 1))
@@ -1042,19 +591,6 @@ def _workers(workers: object) -> int:
 
 def _block_width(r: int, n: int) -> int:
     return max(1, min(r, max(MIN_BLOCK_COLUMNS, BLOCK_BYTES // (8 * max(n, 1)))))
-
-
-def _check_no_inf(
-    yb: NDArray[np.float64], names: tuple[str, ...], cols: NDArray[np.intp], design: Design
-) -> None:
-    bad = np.isinf(yb)
-    if bad.any():
-        i, j = (int(v) for v in np.argwhere(bad)[0])
-        raise InputError(
-            f"response {names[cols[j]]!r} holds {float(yb[i, j])!r} at row"
-            f" {design.row_index[i]!r};"
-            " remove or replace infinite values (missing values are fine: NaN)."
-        )
 
 
 def _assemble(
@@ -1097,7 +633,7 @@ def _assemble(
         responses=source.names,
         coefficients=pd.DataFrame(coef, index=list(names), columns=idx),
         n_obs=pd.Series(n_obs, index=idx, name="n_obs"),
-        df_resid=pd.Series(df, index=idx, name="df_resid"),
+        df_error=pd.Series(df, index=idx, name="df_error"),
         rss=pd.Series(rss, index=idx, name="rss"),
         sigma=pd.Series(sigma, index=idx, name="sigma"),
         rank=pd.Series(rank, index=idx, name="rank"),
@@ -1123,7 +659,7 @@ def fit_many(
     responses: Sequence[str] | pd.DataFrame | ArrayLike,
     *,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     response_names: Sequence[str] | None = None,
     workers: int | None = None,
@@ -1141,10 +677,10 @@ def fit_many(
         per row of ``data``.
     weights : str or array_like, optional
         Positive weights (a column of ``data`` or an array aligned with it): WLS.
-    missing : {'drop', 'raise'}, default 'drop'
-        ``'drop'``: rows with missing design values are dropped for all responses; a response's
+    missing : {'skip', 'refuse'}, default 'skip'
+        ``'skip'``: rows with missing design values are dropped for all responses; a response's
         own missing values drop rows for that response only (exactly, see the module notes).
-        ``'raise'``: any missing value raises :class:`~lincomb.errors.MissingValueError`.
+        ``'refuse'``: any missing value raises :class:`~lincomb.errors.MissingValueError`.
     rank_tol : float, default 1e-10
     response_names : sequence of str, optional
         Names for array responses (default ``y0, y1, ...``).
@@ -1231,7 +767,7 @@ def fit_many_arrays(
     names: Sequence[str] | None = None,
     response_names: Sequence[str] | None = None,
     weights: ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
     rank_tol: float = core.RANK_TOL,
     workers: int | None = None,
 ) -> ManyFit:
@@ -1249,7 +785,7 @@ def fit_many_arrays(
     response_names : sequence of str, optional
         Default: a DataFrame's columns, else ``y0, y1, ...``.
     weights : (n,) array_like, optional
-    missing : {'drop', 'raise'}, default 'drop'
+    missing : {'skip', 'refuse'}, default 'skip'
         Per-response exact handling of missing response values, or refuse them.
     rank_tol : float, default 1e-10
     workers : int, optional

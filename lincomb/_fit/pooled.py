@@ -13,8 +13,8 @@ rows without any row being shared:
 >>> pooled = lc.combine([lc.fit("fill_g ~ line + temperature_c", one),
 ...                      lc.fit("fill_g ~ line + temperature_c", two)])
 >>> whole = lc.fit("fill_g ~ line + temperature_c", data)
->>> bool(abs(pooled.wald(lc.term("line") == 0).statistic
-...          - whole.wald(lc.term("line") == 0).statistic) < 1e-8)
+>>> bool(abs(pooled.wald(lc.term("line") == 0).stat
+...          - whole.wald(lc.term("line") == 0).stat) < 1e-8)
 True
 
 What works without the rows
@@ -77,7 +77,7 @@ def without_rows(fit: LinearFit) -> LinearFit:
     >>> import pickle, lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
     >>> shared = pickle.loads(pickle.dumps(without_rows(f)))
-    >>> shared.wald(lc.term("line") == 0).statistic == f.wald(lc.term("line") == 0).statistic
+    >>> shared.wald(lc.term("line") == 0).stat == f.wald(lc.term("line") == 0).stat
     True
     """
     if not isinstance(fit, LinearFit):

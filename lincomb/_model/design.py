@@ -575,7 +575,7 @@ def design_from_formula(
     formula: str,
     data: pd.DataFrame,
     weights: str | ArrayLike | None = None,
-    missing: str = "drop",
+    missing: str = "skip",
 ) -> Design:
     """Build a :class:`Design` from a Wilkinson formula via the formula encoder.
 
@@ -589,7 +589,7 @@ def design_from_formula(
     weights : str, array_like or None
         Name of a column of ``data``, a pandas Series (matched to the rows by index; a missing
         label raises), or an array in row order.
-    missing : {'drop', 'raise'}
+    missing : {'skip', 'refuse'}
         Drop rows with missing values in the formula's variables (or the weights) and count them
         on the fit, or raise :class:`~lincomb.errors.MissingValueError`.
 

@@ -435,7 +435,7 @@ class FormulaEncoder:
         *,
         levels: Mapping[str, Sequence[Any]] | None = None,
         weights: object = None,
-        missing: str = "drop",
+        missing: str = "skip",
         where: str | None = None,
         keep_frame: bool = False,
         note_unused: bool = False,
@@ -444,7 +444,7 @@ class FormulaEncoder:
         """Fix the encoding on ``data`` and encode its rows, in one formulaic pass.
 
         Rows with a missing value in a variable of the formula (or in the weights) do not
-        inform the encoding; they are dropped and listed, or raise with ``missing="raise"``.
+        inform the encoding; they are dropped and listed, or raise with ``missing="refuse"``.
         With ``require_rows``, no row left to fit raises (an empty frame:
         :class:`~lincomb.errors.InputError`; every row missing a value:
         :class:`~lincomb.errors.MissingValueError`).
@@ -471,8 +471,8 @@ class FormulaEncoder:
             what = f"{where} is a" if where else "data must be a pandas DataFrame, got"
             tail = ", not a pandas DataFrame." if where else "."
             raise InputError(f"{what} {type(data).__name__}{tail}")
-        if missing not in ("drop", "raise"):
-            raise InputError(f"missing must be 'drop' or 'raise', got {missing!r}.")
+        if missing not in ("skip", "refuse"):
+            raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
         data = _string_names(data, where)
         declared = {k: tuple(v) for k, v in (levels or {}).items()}
         unknown = [v for v in declared if v not in data.columns]
@@ -808,14 +808,14 @@ class FormulaEncoder:
         frame: pd.DataFrame,
         *,
         weights: object = None,
-        missing: str = "drop",
+        missing: str = "skip",
         where: str | None = None,
         keep_frame: bool = False,
     ) -> EncodedRows:
         """Arrays of the rows of ``frame`` (a whole frame, a chunk, a Dask partition).
 
         Rows with a missing value in the formula's variables (or the weights) are dropped and
-        listed (``missing="raise"``: refused); a factor level the encoding lacks raises
+        listed (``missing="refuse"``: refused); a factor level the encoding lacks raises
         :class:`~lincomb.errors.UnseenLevelError`; ``where`` names the frame in errors.
 
         Examples
@@ -1063,14 +1063,14 @@ def _refuse_missing(
     where: str | None,
 ) -> None:
     n_na = int(na.sum())
-    if not n_na or missing != "raise":
+    if not n_na or missing != "refuse":
         return
     counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
     if w is not None and w.isna().any():
         counts["<weights>"] = int(w.isna().sum())
     raise MissingValueError(
         f"{_prefix(where)}{n_na} rows have missing values (per column: {counts}); drop or impute"
-        " them, or fit with missing='drop'."
+        " them, or fit with missing='skip'."
     )
 
 

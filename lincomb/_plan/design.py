@@ -94,13 +94,13 @@ class PlannedDesign:
         """
         return self.rank // self.n_obs + 1
 
-    def df_resid(self, replicates: int = 1) -> int:
+    def df_error(self, replicates: int = 1) -> int:
         """Residual degrees of freedom ``replicates·n_obs − rank`` (may be ≤ 0).
 
         Examples
         --------
         >>> import pandas as pd, lincomb as lc
-        >>> lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]})).df_resid(4)
+        >>> lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]})).df_error(4)
         9
         """
         return check_replicates(replicates) * self.n_obs - self.rank

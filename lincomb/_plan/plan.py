@@ -68,7 +68,7 @@ class PowerPlan:
         Each restriction row written in coefficient names.
     target : (m,) ndarray
         The hypothesized ``d``.
-    df_num : int
+    df_test : int
         Rank of ``C`` (redundant rows do not count).
     sigma : float
         Residual standard deviation assumed.
@@ -92,7 +92,7 @@ class PowerPlan:
     design: PlannedDesign
     labels: tuple[str, ...]
     target: NDArray[np.float64]
-    df_num: int
+    df_test: int
     sigma: float
     alpha: float
     matrix: pd.DataFrame = field(repr=False)
@@ -268,7 +268,7 @@ class PowerPlan:
         >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
         >>> res = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).power(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 1.0}, replicates=8)
-        >>> res.df_num, res.df_den, round(res.noncentrality, 4), round(res.power, 4)
+        >>> res.df_test, res.df_error, round(res.noncentrality, 4), round(res.power, 4)
         (2, 21, 5.3333, 0.471)
         """
         r = check_replicates(replicates)
@@ -280,11 +280,11 @@ class PowerPlan:
             target=self.target.copy(),
             alternative=self.target + delta,
             shift=delta,
-            df_num=self.df_num,
-            df_den=df2,
+            df_test=self.df_test,
+            df_error=df2,
             noncentrality=float(lam),
-            critical_value=float(noncentral.critical_value(self.df_num, df2, self.alpha)),
-            power=float(noncentral.power(lam, self.df_num, df2, self.alpha)),
+            critical_value=float(noncentral.critical_value(self.df_test, df2, self.alpha)),
+            power=float(noncentral.power(lam, self.df_test, df2, self.alpha)),
             alpha=self.alpha,
             sigma=self.sigma,
             replicates=r,
@@ -344,7 +344,7 @@ class PowerPlan:
         r = noncentral.search_replicates(
             lambda k: float(
                 noncentral.power(
-                    k * lam1, self.df_num, k * self.design.n_obs - self.design.rank, self.alpha
+                    k * lam1, self.df_test, k * self.design.n_obs - self.design.rank, self.alpha
                 )
             ),
             target,
@@ -436,7 +436,7 @@ class PowerPlan:
                 f"the direction {h.tolist()} does not move Cβ (it is zero on every restriction"
                 " row): give a direction with a nonzero value on some row."
             )
-        lam_star = noncentral.lambda_for(target, self.df_num, df2, self.alpha)
+        lam_star = noncentral.lambda_for(target, self.df_test, df2, self.alpha)
         s = float(self.sigma * np.sqrt(lam_star / (r * lam1)))
         delta = s * h
         beta_shift = None
@@ -450,11 +450,11 @@ class PowerPlan:
             target=self.target.copy(),
             shift=delta,
             alternative=self.target + delta,
-            df_num=self.df_num,
-            df_den=df2,
+            df_test=self.df_test,
+            df_error=df2,
             noncentrality=lam_star,
             power=float(
-                noncentral.power(r * lam1 * s**2 / self.sigma**2, self.df_num, df2, self.alpha)
+                noncentral.power(r * lam1 * s**2 / self.sigma**2, self.df_test, df2, self.alpha)
             ),
             alpha=self.alpha,
             sigma=self.sigma,
@@ -493,7 +493,7 @@ class PowerPlan:
         >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
         >>> cv = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).curve(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 0.0}, replicates=[2, 5, 10])
-        >>> cv.to_frame()[["replicates", "n_obs", "df_den"]].values.tolist()
+        >>> cv.to_frame()[["replicates", "n_obs", "df_error"]].values.tolist()
         [[2, 6, 3], [5, 15, 12], [10, 30, 27]]
         """
         if target is not None:
@@ -519,15 +519,15 @@ class PowerPlan:
             shift=delta,
             alpha=self.alpha,
             sigma=self.sigma,
-            df_num=self.df_num,
+            df_test=self.df_test,
             replicates=reps,
             n_obs=reps * d.n_obs,
-            df_den=df2,
+            df_error=df2,
             noncentrality=lam.astype(np.float64),
             critical_value=noncentral.critical_value(
-                self.df_num, df2.astype(np.float64), self.alpha
+                self.df_test, df2.astype(np.float64), self.alpha
             ),
-            power=noncentral.power(lam, self.df_num, df2.astype(np.float64), self.alpha),
+            power=noncentral.power(lam, self.df_test, df2.astype(np.float64), self.alpha),
             target_power=target,
         )
 
@@ -538,7 +538,7 @@ class PowerPlan:
         if lam1 > 0:
             hi = noncentral.search_replicates(
                 lambda k: float(
-                    noncentral.power(k * lam1, self.df_num, k * d.n_obs - d.rank, self.alpha)
+                    noncentral.power(k * lam1, self.df_test, k * d.n_obs - d.rank, self.alpha)
                 ),
                 0.99,
                 lo,
@@ -553,7 +553,7 @@ class PowerPlan:
     def _head(self) -> str:
         red = f"; {len(self.redundant)} redundant row(s)" if self.redundant else ""
         return (
-            f"PowerPlan: F test of {len(self.labels)} restriction row(s), rank {self.df_num}{red};"
+            f"PowerPlan: F test of {len(self.labels)} restriction row(s), rank {self.df_test}{red};"
             f" sigma = {self.sigma:.6g}, alpha = {self.alpha:g}\n{self.design._head()}"
         )
 
@@ -609,7 +609,7 @@ def power_plan(
     >>> s = lc.coef("site[T.north]")
     >>> plan = lc.power_plan(d, (s == 0) & (lc.coef("site[T.south]") == 0) & (s - lc.coef(
     ...     "site[T.south]") == 0), sigma=2.0)
-    >>> plan.df_num, list(plan.redundant)
+    >>> plan.df_test, list(plan.redundant)
     (2, [2])
     """
     sig = check_sigma(sigma)
@@ -630,7 +630,7 @@ def power_plan(
         design=design,
         labels=tuple(labels),
         target=d.copy(),
-        df_num=int(analysis.independent.size),
+        df_test=int(analysis.independent.size),
         sigma=sig,
         alpha=a,
         redundant=analysis.dependencies,

@@ -35,8 +35,8 @@ POWER_COLUMNS = (
     "rank",
     "replicates",
     "n_obs",
-    "df_num",
-    "df_den",
+    "df_test",
+    "df_error",
     "sigma",
     "alpha",
     "noncentrality",
@@ -47,8 +47,8 @@ POWER_COLUMNS = (
 CURVE_COLUMNS = (
     "replicates",
     "n_obs",
-    "df_num",
-    "df_den",
+    "df_test",
+    "df_error",
     "noncentrality",
     "critical_value",
     "power",
@@ -74,10 +74,10 @@ def _effect_rows(
 
 
 def _study_line(res: Any) -> str:
-    """The study line of a result with ``replicates, n_obs, df_num, df_den, noncentrality,
+    """The study line of a result with ``replicates, n_obs, df_test, df_error, noncentrality,
     alpha, sigma`` (a :class:`PowerResult` or :class:`DetectableEffect`)."""
     return (
-        f"n = {res.n_obs} ({res.replicates} replicate(s)); F({res.df_num}, {res.df_den}) at"
+        f"n = {res.n_obs} ({res.replicates} replicate(s)); F({res.df_test}, {res.df_error}) at"
         f" alpha = {res.alpha:g}, sigma = {res.sigma:.6g}; noncentrality = {res.noncentrality:.6g}"
     )
 
@@ -113,12 +113,12 @@ class PowerResult:
         ``Cβ`` under the alternative.
     shift : (m,) ndarray
         ``Cβ − d``.
-    df_num, df_den : int
+    df_test, df_error : int
         Degrees of freedom of the F statistic.
     noncentrality : float
         ``λ`` (see :mod:`lincomb._plan.plan`).
     critical_value : float
-        The ``1 − alpha`` quantile of the central ``F(df_num, df_den)``.
+        The ``1 − alpha`` quantile of the central ``F(df_test, df_error)``.
     power : float
         ``P(F > critical_value)`` under the alternative.
     alpha, sigma : float
@@ -132,7 +132,7 @@ class PowerResult:
     >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
     ...     lc.coef("g[T.b]") == 0, sigma=1.0)
     >>> r = plan.power(effect=1.0, replicates=10)
-    >>> r.n_obs, r.df_den, round(r.power, 4)
+    >>> r.n_obs, r.df_error, round(r.power, 4)
     (20, 18, 0.5620)
     """
 
@@ -140,8 +140,8 @@ class PowerResult:
     target: NDArray[np.float64]
     alternative: NDArray[np.float64]
     shift: NDArray[np.float64]
-    df_num: int
-    df_den: int
+    df_test: int
+    df_error: int
     noncentrality: float
     critical_value: float
     power: float
@@ -159,8 +159,8 @@ class PowerResult:
     def to_frame(self) -> pd.DataFrame:
         """One row: the columns of :data:`POWER_COLUMNS`.
 
-        ``restrictions`` (the system as algebra), ``rank`` and ``df_num`` (rank of ``C``),
-        ``replicates``, ``n_obs``, ``df_den``, ``sigma``, ``alpha``, ``noncentrality``,
+        ``restrictions`` (the system as algebra), ``rank`` and ``df_test`` (rank of ``C``),
+        ``replicates``, ``n_obs``, ``df_error``, ``sigma``, ``alpha``, ``noncentrality``,
         ``critical_value`` (of the central F) and ``power``.
 
         Examples
@@ -176,11 +176,11 @@ class PowerResult:
             [
                 {
                     "restrictions": " & ".join(self.labels),
-                    "rank": self.df_num,
+                    "rank": self.df_test,
                     "replicates": self.replicates,
                     "n_obs": self.n_obs,
-                    "df_num": self.df_num,
-                    "df_den": self.df_den,
+                    "df_test": self.df_test,
+                    "df_error": self.df_error,
                     "sigma": self.sigma,
                     "alpha": self.alpha,
                     "noncentrality": self.noncentrality,
@@ -210,7 +210,7 @@ class PowerResult:
     def _head(self) -> str:
         return (
             f"Power {self.power:.4f} of the F test of {len(self.labels)} restriction row(s),"
-            f" rank {self.df_num}\n" + _study_line(self)
+            f" rank {self.df_test}\n" + _study_line(self)
         )
 
     def __repr__(self) -> str:
@@ -260,7 +260,7 @@ class SampleSize:
     result: PowerResult = field(repr=False)
 
     def to_frame(self) -> pd.DataFrame:
-        """One row: ``target_power, replicates, n_obs, df_num, df_den, noncentrality, power,
+        """One row: ``target_power, replicates, n_obs, df_test, df_error, noncentrality, power,
         previous_power, alpha, sigma``.
 
         Examples
@@ -279,8 +279,8 @@ class SampleSize:
                     "target_power": self.target_power,
                     "replicates": self.replicates,
                     "n_obs": self.n_obs,
-                    "df_num": r.df_num,
-                    "df_den": r.df_den,
+                    "df_test": r.df_test,
+                    "df_error": r.df_error,
                     "noncentrality": r.noncentrality,
                     "power": self.power,
                     "previous_power": self.previous_power,
@@ -329,7 +329,7 @@ class DetectableEffect:
         ``s·h``.
     alternative : (m,) ndarray
         ``d + s·h``.
-    df_num, df_den : int
+    df_test, df_error : int
     noncentrality : float
         ``λ`` at which the power equals the target.
     power : float
@@ -355,8 +355,8 @@ class DetectableEffect:
     target: NDArray[np.float64]
     shift: NDArray[np.float64]
     alternative: NDArray[np.float64]
-    df_num: int
-    df_den: int
+    df_test: int
+    df_error: int
     noncentrality: float
     power: float
     alpha: float
@@ -429,8 +429,8 @@ class PowerCurve:
     shift : (m,) ndarray
         ``Cβ − d`` under the alternative.
     alpha, sigma : float
-    df_num : int
-    replicates, n_obs, df_den : (k,) ndarray of int
+    df_test : int
+    replicates, n_obs, df_error : (k,) ndarray of int
     noncentrality, critical_value, power : (k,) ndarray
     target_power : float or None
         A target power recorded for display.
@@ -449,10 +449,10 @@ class PowerCurve:
     shift: NDArray[np.float64]
     alpha: float
     sigma: float
-    df_num: int
+    df_test: int
     replicates: NDArray[np.int64]
     n_obs: NDArray[np.int64]
-    df_den: NDArray[np.int64]
+    df_error: NDArray[np.int64]
     noncentrality: NDArray[np.float64]
     critical_value: NDArray[np.float64]
     power: NDArray[np.float64]
@@ -461,7 +461,7 @@ class PowerCurve:
     def to_frame(self) -> pd.DataFrame:
         """One row per replicate count: the columns of :data:`CURVE_COLUMNS`.
 
-        ``replicates``, ``n_obs`` (observations), ``df_num``, ``df_den``, ``noncentrality``
+        ``replicates``, ``n_obs`` (observations), ``df_test``, ``df_error``, ``noncentrality``
         (``λ``), ``critical_value`` (of the central F at ``alpha``) and ``power``.
 
         Examples
@@ -469,8 +469,8 @@ class PowerCurve:
         >>> import pandas as pd, lincomb as lc
         >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
         ...     lc.coef("g[T.b]") == 0, sigma=1.0)
-        >>> plan.curve(effect=1.0, replicates=[2, 5]).to_frame()[["n_obs", "df_den"]]
-           n_obs  df_den
+        >>> plan.curve(effect=1.0, replicates=[2, 5]).to_frame()[["n_obs", "df_error"]]
+           n_obs  df_error
         0      4       2
         1     10       8
         """
@@ -478,8 +478,8 @@ class PowerCurve:
             {
                 "replicates": self.replicates,
                 "n_obs": self.n_obs,
-                "df_num": self.df_num,
-                "df_den": self.df_den,
+                "df_test": self.df_test,
+                "df_error": self.df_error,
                 "noncentrality": self.noncentrality,
                 "critical_value": self.critical_value,
                 "power": self.power,
@@ -525,7 +525,7 @@ class PowerCurve:
     def _head(self) -> str:
         return (
             f"Power curve of the F test of {len(self.labels)} restriction row(s), rank"
-            f" {self.df_num}; alpha = {self.alpha:g}, sigma = {self.sigma:.6g}"
+            f" {self.df_test}; alpha = {self.alpha:g}, sigma = {self.sigma:.6g}"
         )
 
     def _rows(self) -> list[list[str]]:
@@ -534,7 +534,7 @@ class PowerCurve:
             for r, n, d, lam, p in zip(
                 self.replicates,
                 self.n_obs,
-                self.df_den,
+                self.df_error,
                 self.noncentrality,
                 self.power,
                 strict=True,
@@ -542,13 +542,13 @@ class PowerCurve:
         ]
 
     def __repr__(self) -> str:
-        header = ["replicates", "n", "df_den", "noncentrality", "power"]
+        header = ["replicates", "n", "df_error", "noncentrality", "power"]
         return f"{self._head()}\n{_table_text(header, self._rows())}"
 
     def _repr_html_(self) -> str:
         import html
 
-        header = ["replicates", "n", "df_den", "noncentrality", "power"]
+        header = ["replicates", "n", "df_error", "noncentrality", "power"]
         return (
             f"<div class='lincomb-power'><p><b>{html.escape(self._head())}</b></p>"
             f"{_table_html(header, self._rows())}</div>"

@@ -151,16 +151,16 @@ def partition(contrasts: LevelContrasts, fit: LinearFit) -> SumOfSquaresPartitio
     res = fit.wald(contrasts, covariance="classical")
     joint = fit.wald(replace(contrasts, recipe=_Recipe("equal")), covariance="classical")
     sigma2 = fit.sigma**2
-    ss = sigma2 * res.t**2
+    ss = sigma2 * res.ratio**2
     return SumOfSquaresPartition(
         labels=res.labels,
         estimate=res.estimate.copy(),
         ss=ss,
-        statistic=res.t**2,
-        p_value=res.row_p_value,
-        term_ss=float(joint.statistic * joint.df_num * sigma2),
-        term_df=joint.df_num,
-        df_resid=float(res.df_den),
+        stat=res.ratio**2,
+        p=res.row_p,
+        term_ss=float(joint.stat * joint.df_test * sigma2),
+        term_df=joint.df_test,
+        df_error=float(res.df_error),
         sigma2=float(sigma2),
     )
 
@@ -327,7 +327,7 @@ class OrthogonalityReport:
 
 
 #: Columns of :meth:`SumOfSquaresPartition.to_frame`.
-PARTITION_COLUMNS = ("contrast", "estimate", "ss", "df", "share", "f", "p_value")
+PARTITION_COLUMNS = ("contrast", "estimate", "ss", "df", "share", "f", "p")
 
 
 @dataclass(frozen=True)
@@ -340,13 +340,13 @@ class SumOfSquaresPartition:
     estimate : (k-1,) ndarray
     ss : (k-1,) ndarray
         ``σ² t_i²``, the sum of squares of each contrast.
-    statistic : (k-1,) ndarray
-        ``F = t²`` with 1 and ``df_resid`` degrees of freedom.
-    p_value : (k-1,) ndarray
+    stat : (k-1,) ndarray
+        ``F = t²`` with 1 and ``df_error`` degrees of freedom.
+    p : (k-1,) ndarray
     term_ss : float
         Sum of squares of "all level means equal" (equals ``ss.sum()`` up to rounding).
     term_df : int
-    df_resid : float
+    df_error : float
     sigma2 : float
         Residual mean square of the fit.
 
@@ -362,18 +362,18 @@ class SumOfSquaresPartition:
     labels: tuple[str, ...]
     estimate: Array
     ss: Array
-    statistic: Array
-    p_value: Array
+    stat: Array
+    p: Array
     term_ss: float
     term_df: int
-    df_resid: float
+    df_error: float
     sigma2: float
 
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast.
 
         Columns: ``contrast``, ``estimate``, ``ss`` (single-df sum of squares), ``df`` (1),
-        ``share`` (``ss / term_ss``), ``f`` (``ss / σ²``), ``p_value``.
+        ``share`` (``ss / term_ss``), ``f`` (``ss / σ²``), ``p``.
 
         Examples
         --------
@@ -390,8 +390,8 @@ class SumOfSquaresPartition:
                 "ss": self.ss,
                 "df": 1,
                 "share": self.ss / self.term_ss,
-                "f": self.statistic,
-                "p_value": self.p_value,
+                "f": self.stat,
+                "p": self.p,
             }
         )
 
@@ -399,12 +399,12 @@ class SumOfSquaresPartition:
         head = (
             f"Partition of the sum of squares of 'all means equal' ({self.term_ss:.6g} on"
             f" {self.term_df} df; components add to {float(self.ss.sum()):.6g});"
-            f" residual mean square {self.sigma2:.6g} on {self.df_resid:g} df"
+            f" residual mean square {self.sigma2:.6g} on {self.df_error:g} df"
         )
         rows = [
             [lab, _num(e), _num(s), f"{s / self.term_ss:.3f}", _num(f), _p(p)]
             for lab, e, s, f, p in zip(
-                self.labels, self.estimate, self.ss, self.statistic, self.p_value, strict=True
+                self.labels, self.estimate, self.ss, self.stat, self.p, strict=True
             )
         ]
         return head, rows

@@ -268,7 +268,7 @@ def expected_values(
         se=se,
         se_new=se_new,
         estimable=ok,
-        df_error=float(vcov.df_den) if ref == "F" else float("inf"),
+        df_error=float(vcov.df_error) if ref == "F" else float("inf"),
         reference=ref,
         covariance=vcov.label,
         sigma=fit.sigma,

@@ -64,7 +64,7 @@ def _fit_rows(f: LinearFit) -> list[list[str]]:
         else:
             # identified only with the aliased columns fixed at 0: say so beside the numbers
             name = r.coefficient + (" (not estimable)" if r.status == "not estimable" else "")
-            rows.append([name, _num(r.estimate), _num(r.std_error), _num(r.t), _p(r.p_value)])
+            rows.append([name, _num(r.estimate), _num(r.se), _num(r.ratio), _p(r.p)])
     return rows
 
 
@@ -76,7 +76,7 @@ def _fit_head(f: LinearFit) -> str:
     cov_txt = ""
     if cov != "classical":
         # the tests' reference df can differ from the residual df (G - 1 for clusters)
-        df_tests = f._covariance_estimate(None).df_den
+        df_tests = f._covariance_estimate(None).df_error
         cov_txt = (
             f"\nstandard errors: {cov} covariance; its t and F tests use {df_tests:g}"
             " denominator df"
@@ -84,20 +84,20 @@ def _fit_head(f: LinearFit) -> str:
     return (
         f"LinearFit ({kind}): {what}\n"
         f"n = {f.n_obs}{extra}; rank = {f.rank} of {len(f.names)}; residual df = "
-        f"{f.df_resid}; sigma = {f.sigma:.6g}{cov_txt}"
+        f"{f.df_error}; sigma = {f.sigma:.6g}{cov_txt}"
     )
 
 
 def fit_text(f: LinearFit) -> str:
     head = _fit_head(f)
-    table = _table_text(["coefficient", "estimate", "std.error", "t", "p"], _fit_rows(f))
+    table = _table_text(["coefficient", "estimate", "s.e.", "t", "p"], _fit_rows(f))
     tail = f"\naliased (not estimable): {', '.join(f.aliased)}" if f.aliased else ""
     return f"{head}\n{table}{tail}"
 
 
 def fit_html(f: LinearFit) -> str:
     head = "<br>".join(html.escape(s) for s in _fit_head(f).split("\n"))
-    table = _table_html(["coefficient", "estimate", "std. error", "t", "p"], _fit_rows(f))
+    table = _table_html(["coefficient", "estimate", "s.e.", "t", "p"], _fit_rows(f))
     tail = (
         f"<p>aliased (not estimable): {html.escape(', '.join(f.aliased))}</p>" if f.aliased else ""
     )
@@ -105,11 +105,11 @@ def fit_html(f: LinearFit) -> str:
 
 
 def _wald_head(w: WaldTest) -> str:
-    dist = f"F({w.df_num}, {w.df_den:g})" if w.distribution == "F" else f"chi2({w.df_num})"
+    dist = f"F({w.df_test}, {w.df_error:g})" if w.reference == "F" else f"chi2({w.df_test})"
     red = f"; {len(w.redundant)} redundant row(s) ignored" if w.redundant else ""
     return (
-        f"Wald test of {len(w.labels)} restriction row(s), rank {w.df_num}{red}\n"
-        f"{dist} = {w.statistic:.6g}, {_p_clause(w.p_value)}  [{w.covariance} covariance]"
+        f"Wald test of {len(w.labels)} restriction row(s), rank {w.df_test}{red}\n"
+        f"{dist} = {w.stat:.6g}, {_p_clause(w.p)}  [{w.covariance} covariance]"
     )
 
 
@@ -122,25 +122,28 @@ def _wald_rows(w: WaldTest) -> list[list[str]]:
             [
                 lab + mark,
                 _num(w.estimate[i]),
-                _num(w.std_error[i]),
-                _num(w.t[i]),
-                _p(w.row_p_value[i]),
+                _num(w.se[i]),
+                _num(w.ratio[i]),
+                _p(w.row_p[i]),
                 f"[{_num(ci['lower'].iloc[i])}, {_num(ci['upper'].iloc[i])}]",
             ]
         )
     return rows
 
 
-_WALD_HEADER = ["restriction", "estimate", "std.error", "t", "p", "95% interval"]
+def _wald_header(w: WaldTest) -> list[str]:
+    # the row ratio is a t under the F reference and a z under chi2
+    ratio = "t" if w.reference == "F" else "z"
+    return ["restriction", "estimate", "s.e.", ratio, "p", "95% interval"]
 
 
 def wald_text(w: WaldTest) -> str:
-    return f"{_wald_head(w)}\n{_table_text(_WALD_HEADER, _wald_rows(w))}"
+    return f"{_wald_head(w)}\n{_table_text(_wald_header(w), _wald_rows(w))}"
 
 
 def wald_html(w: WaldTest) -> str:
     head = "<br>".join(html.escape(s) for s in _wald_head(w).split("\n"))
-    table = _table_html(_WALD_HEADER, _wald_rows(w))
+    table = _table_html(_wald_header(w), _wald_rows(w))
     return f"<div class='lincomb-wald'><p><b>{head}</b></p>{table}</div>"
 
 
@@ -148,7 +151,7 @@ def _restricted_parts(r: RestrictedFit) -> tuple[str, list[list[str]]]:
     head = (
         f"Restricted least squares under {r.rank} independent restriction(s): "
         f"{' & '.join(r.labels)}\nRSS = {r.rss:.6g} (unrestricted {r.rss_unrestricted:.6g});"
-        f" residual df = {r.df_resid}; sigma = {r.sigma:.6g}"
+        f" residual df = {r.df_error}; sigma = {r.sigma:.6g}"
     )
     se = r.std_errors()
     rows = [[n, _num(v), _num(se[n])] for n, v in r.coefficients.items()]
@@ -157,7 +160,7 @@ def _restricted_parts(r: RestrictedFit) -> tuple[str, list[list[str]]]:
 
 def restricted_text(r: RestrictedFit) -> str:
     head, rows = _restricted_parts(r)
-    return f"{head}\n{_table_text(['coefficient', 'estimate', 'std.error'], rows)}"
+    return f"{head}\n{_table_text(['coefficient', 'estimate', 's.e.'], rows)}"
 
 
 def restricted_html(r: RestrictedFit) -> str:
@@ -165,7 +168,7 @@ def restricted_html(r: RestrictedFit) -> str:
     h = "<br>".join(html.escape(s) for s in head.split("\n"))
     return (
         f"<div class='lincomb-restricted'><p><b>{h}</b></p>"
-        f"{_table_html(['coefficient', 'estimate', 'std. error'], rows)}</div>"
+        f"{_table_html(['coefficient', 'estimate', 's.e.'], rows)}</div>"
     )
 
 
@@ -179,29 +182,30 @@ def _batch_parts(b: WaldBatch, limit: int = 10) -> tuple[str, list[list[str]], s
     flags = ", ".join(f"{b.status.count(s)} {say}" for s, say in kinds.items() if s in b.status)
     head = (
         f"Wald tests of {k} system(s) of {m} restriction row(s) each  [{b.covariance} covariance]"
-        f"\n{b.distribution} tests with denominator df {b.df_den:g}"
+        f"\n{b.reference} tests with denominator df {b.df_error:g}"
         + (f"; systems: {flags}" if flags else "")
     )
     rows = [
         [
             str(b.systems[s]),
-            str(int(b.df_num[s])),
-            _num(float(b.statistic[s])),
-            _p(float(b.p_value[s])),
+            str(int(b.df_test[s])),
+            _num(float(b.stat[s])),
+            _p(float(b.p[s])),
             b.status[s],
         ]
         for s in range(min(k, limit))
     ]
-    tail = f"... {k - limit} more system(s); see to_frame()" if k > limit else ""
+    tail = f"... {k - limit} more system(s); see test_frame()" if k > limit else ""
     return head, rows, tail
 
 
-_BATCH_HEADER = ["system", "rank", "F", "p", "status"]
+def _batch_header(b: WaldBatch) -> list[str]:
+    return ["system", "rank", "F" if b.reference == "F" else "chi2", "p", "status"]
 
 
 def batch_text(b: WaldBatch) -> str:
     head, rows, tail = _batch_parts(b)
-    out = f"{head}\n{_table_text(_BATCH_HEADER, rows)}"
+    out = f"{head}\n{_table_text(_batch_header(b), rows)}"
     return f"{out}\n{tail}" if tail else out
 
 
@@ -211,5 +215,5 @@ def batch_html(b: WaldBatch) -> str:
     more = f"<p>{html.escape(tail)}</p>" if tail else ""
     return (
         f"<div class='lincomb-wald-batch'><p><b>{h}</b></p>"
-        f"{_table_html(_BATCH_HEADER, rows)}{more}</div>"
+        f"{_table_html(_batch_header(b), rows)}{more}</div>"
     )

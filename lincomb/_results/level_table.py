@@ -191,7 +191,7 @@ class LevelMeanTable:
         >>> diffs.labels[0]
         'line=L2 - line=L1'
         >>> holm = diffs.adjust("holm")
-        >>> bool((holm.p_adjusted >= holm.p_value).all())
+        >>> bool((holm.p_adjusted >= holm.p).all())
         True
         """
         k = len(self.labels)
@@ -451,7 +451,7 @@ def level_mean_table(
         estimate=est,
         se=se,
         estimable=ok,
-        df_error=float(vcov.df_den) if ref == "F" else float("inf"),
+        df_error=float(vcov.df_error) if ref == "F" else float("inf"),
         reference=ref,
         covariance=vcov.label,
         setting="; ".join(setting_parts),

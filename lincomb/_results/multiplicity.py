@@ -7,7 +7,7 @@ Two kinds of correction for testing many rows at once:
   Benjamini–Hochberg and Benjamini–Yekutieli (false discovery rate); on a Wald test also Scheffé
   and the single-step max-|t| method.
 * **Simultaneous confidence intervals** (:meth:`WaldTest.simultaneous
-  <lincomb.results.WaldTest.simultaneous>`): ``estimate ± c · std_error`` with one critical
+  <lincomb.results.WaldTest.simultaneous>`): ``estimate ± c · se`` with one critical
   value ``c`` for the whole family: Bonferroni, Šidák, Scheffé (valid for every combination in
   the span of ``C``; ``c² = q F_{q,ν}(level)`` with ``q`` the rank of ``C``), and max-|t|, the
   ``level`` quantile of ``max_i |T_i|`` under the joint multivariate t distribution of the row
@@ -235,9 +235,9 @@ MULTIPLE_COLUMNS = (
     "contrast",
     "estimate",
     "target",
-    "std_error",
-    "t",
-    "p_value",
+    "se",
+    "ratio",
+    "p",
     "p_adjusted",
     "lower",
     "upper",
@@ -259,16 +259,16 @@ class MultipleInference:
     ----------
     labels : tuple of str
         Rows in the family.
-    estimate, target, std_error, t, p_value : (m,) ndarray
-        As on the Wald test (``p_value`` raw, two-sided).
+    estimate, target, se, ratio, p : (m,) ndarray
+        As on the Wald test (``p`` raw, two-sided).
     p_adjusted : (m,) ndarray
     method : str
-    df : float
-        Degrees of freedom of the row statistics (``inf``: normal).
+    df_error : float
+        Degrees of freedom of the row ratios (``inf``: normal, the ratios are z).
     level : float or None
         Simultaneous coverage of the intervals (None for p-value adjustments).
     critical_value : float or None
-        The ``c`` of ``estimate ± c · std_error``.
+        The ``c`` of ``estimate ± c · se``.
     lower, upper : (m,) ndarray
         Simultaneous intervals (NaN when ``level`` is None).
     rank : int
@@ -287,19 +287,19 @@ class MultipleInference:
     >>> bonf = f.wald(lc.term("line") == 0).simultaneous("bonferroni", 0.95)
     >>> bonf.method, bonf.family_size, bool(bonf.critical_value > 1.96)
     ('bonferroni', 3, True)
-    >>> bool((bonf.p_adjusted >= bonf.p_value).all())
+    >>> bool((bonf.p_adjusted >= bonf.p).all())
     True
     """
 
     labels: tuple[str, ...]
     estimate: Array
     target: Array
-    std_error: Array
-    t: Array
-    p_value: Array
+    se: Array
+    ratio: Array
+    p: Array
     p_adjusted: Array
     method: str
-    df: float
+    df_error: float
     level: float | None
     critical_value: float | None
     lower: Array
@@ -317,8 +317,8 @@ class MultipleInference:
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast in the family.
 
-        Columns: ``contrast`` (the row's label), ``estimate``, ``target``, ``std_error``,
-        ``t``, ``p_value`` (raw, two-sided), ``p_adjusted``, ``lower``/``upper`` (simultaneous
+        Columns: ``contrast`` (the row's label), ``estimate``, ``target``, ``se``,
+        ``ratio``, ``p`` (raw, two-sided), ``p_adjusted``, ``lower``/``upper`` (simultaneous
         interval; NaN for a p-value adjustment), ``level`` (NaN likewise), ``critical_value``
         (NaN likewise), ``method``.
 
@@ -336,9 +336,9 @@ class MultipleInference:
                 "contrast": list(self.labels),
                 "estimate": self.estimate,
                 "target": self.target,
-                "std_error": self.std_error,
-                "t": self.t,
-                "p_value": self.p_value,
+                "se": self.se,
+                "ratio": self.ratio,
+                "p": self.p,
                 "p_adjusted": self.p_adjusted,
                 "lower": self.lower,
                 "upper": self.upper,
@@ -357,7 +357,7 @@ class MultipleInference:
                 f"Simultaneous {100 * self.level:g}% intervals by {self.method} over {m} row(s)"
                 f" of rank {self.rank}; critical value {self.critical_value:.6g}"
             )
-        dist = "normal" if not np.isfinite(self.df) else f"t({self.df:g})"
+        dist = "normal" if not np.isfinite(self.df_error) else f"t({self.df_error:g})"
         lines = [f"{first} [{dist}]"]
         if self.redundant:
             lines.append(
@@ -374,7 +374,8 @@ class MultipleInference:
         return lines
 
     def _rows(self) -> tuple[list[str], list[list[str]]]:
-        header = ["contrast", "estimate", "std.error", "t", "p", "p adj."]
+        ratio = "t" if np.isfinite(self.df_error) else "z"
+        header = ["contrast", "estimate", "s.e.", ratio, "p", "adjusted p"]
         if self.level is not None:
             header.append(f"{100 * self.level:g}% simultaneous")
         rows = []
@@ -382,9 +383,9 @@ class MultipleInference:
             r = [
                 lab,
                 _num(self.estimate[i]),
-                _num(self.std_error[i]),
-                _num(self.t[i]),
-                _p(self.p_value[i]),
+                _num(self.se[i]),
+                _num(self.ratio[i]),
+                _p(self.p[i]),
                 _p(self.p_adjusted[i]),
             ]
             if self.level is not None:
@@ -415,14 +416,14 @@ def _family(wald: WaldTest, redundant: str) -> dict[str, Any]:
         "labels": tuple(wald.labels[i] for i in keep),
         "redundant": tuple(wald.labels[i] for i in keep if i in deps),
         "dropped": tuple(wald.labels[i] for i in range(m_all) if i not in keep),
-        "rank": int(wald.df_num),
-        "df": float(wald.df_den),
+        "rank": int(wald.df_test),
+        "df": float(wald.df_error),
     }
-    se = np.asarray(wald.std_error, dtype=np.float64)[keep]
+    se = np.asarray(wald.se, dtype=np.float64)[keep]
     if np.any(~np.isfinite(se)) or np.any(se <= 0):
         i = keep[int(np.flatnonzero(~(se > 0))[0])]
         raise InputError(
-            f"row {i} ({wald.labels[i]}) has standard error {wald.std_error[i]!r}; adjusted"
+            f"row {i} ({wald.labels[i]}) has standard error {wald.se[i]!r}; adjusted"
             " inference needs a positive standard error for every row."
         )
     return fam
@@ -454,22 +455,22 @@ def _assemble(
 ) -> MultipleInference:
     k = fam["keep"]
     est = np.asarray(wald.estimate, dtype=np.float64)[k]
-    se = np.asarray(wald.std_error, dtype=np.float64)[k]
+    se = np.asarray(wald.se, dtype=np.float64)[k]
     if crit is None:
         lower = upper = np.full(k.size, np.nan)
     else:
         lower, upper = est - crit * se, est + crit * se
-    t = np.asarray(wald.t, dtype=np.float64)[k]
+    t = np.asarray(wald.ratio, dtype=np.float64)[k]
     return MultipleInference(
         labels=fam["labels"],
         estimate=est.copy(),
         target=np.asarray(wald.target, dtype=np.float64)[k].copy(),
-        std_error=se.copy(),
-        t=t.copy(),
-        p_value=2 * _row_dist(fam["df"]).sf(np.abs(t)),
+        se=se.copy(),
+        ratio=t.copy(),
+        p=2 * _row_dist(fam["df"]).sf(np.abs(t)),
         p_adjusted=p_adj,
         method=method,
-        df=fam["df"],
+        df_error=fam["df"],
         level=level,
         critical_value=crit,
         lower=lower,
@@ -504,7 +505,7 @@ def adjust_wald(
     key = _canonical(method, WALD_P_METHODS, "p-value")
     fam = _family(wald, redundant)
     k = fam["keep"]
-    t = np.asarray(wald.t, dtype=np.float64)[k]
+    t = np.asarray(wald.ratio, dtype=np.float64)[k]
     p = 2 * _row_dist(fam["df"]).sf(np.abs(t))
     integration = None
     if key in P_METHODS:
@@ -546,7 +547,7 @@ def simultaneous_wald(
     m = k.size
     df = fam["df"]
     dist = _row_dist(df)
-    t = np.asarray(wald.t, dtype=np.float64)[k]
+    t = np.asarray(wald.ratio, dtype=np.float64)[k]
     p = 2 * dist.sf(np.abs(t))
     integration = None
     if key == "none":

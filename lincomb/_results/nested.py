@@ -216,7 +216,7 @@ def compare_nested(*fits: LinearFit) -> NestedComparison:
     >>> small, big = lc.fit("fill_g ~ line", data), lc.fit("fill_g ~ line + shift", data)
     >>> res = lc.compare_nested(small, big)
     >>> import numpy as np
-    >>> bool(np.isclose(res.stat[1], big.wald(lc.term("shift") == 0).statistic))
+    >>> bool(np.isclose(res.stat[1], big.wald(lc.term("shift") == 0).stat))
     True
     """
     from lincomb._fit.linear import LinearFit
@@ -232,9 +232,9 @@ def compare_nested(*fits: LinearFit) -> NestedComparison:
         _check_same_rows(fits[i - 1], fits[i], i)
         _check_nested(fits[i - 1], fits[i], i, max(fits[i].rank_tol, fits[i - 1].rank_tol))
     rss = np.array([f.rss for f in fits])
-    dfe = np.array([f.df_resid for f in fits], dtype=np.intp)
+    dfe = np.array([f.df_error for f in fits], dtype=np.intp)
     last = fits[-1]
-    scale = last.rss / last.df_resid
+    scale = last.rss / last.df_error
     k = len(fits)
     df_test = np.full(k, np.nan)
     ss = np.full(k, np.nan)
@@ -245,7 +245,7 @@ def compare_nested(*fits: LinearFit) -> NestedComparison:
         ss[i] = rss[i - 1] - rss[i]
         if df_test[i] > 0 and scale > 0:
             stat[i] = ss[i] / df_test[i] / scale
-            p[i] = stats.f.sf(stat[i], df_test[i], last.df_resid)
+            p[i] = stats.f.sf(stat[i], df_test[i], last.df_error)
     models = tuple(f.formula or f"fit {i}" for i, f in enumerate(fits))
     return NestedComparison(
         models=models, df_error=dfe, rss=rss, df_test=df_test, ss=ss, stat=stat, p=p

@@ -41,7 +41,7 @@ class FitOverview:
 
     Attributes
     ----------
-    n_obs, rank, df_resid : int
+    n_obs, rank, fit_df_error : int
     r_squared, r_squared_adjusted, sigma, rss : float
     stat : float
         Statistic of the overall test (F, or chi-squared with ``reference='chi2'``).
@@ -66,7 +66,7 @@ class FitOverview:
 
     n_obs: int
     rank: int
-    df_resid: int
+    fit_df_error: int
     r_squared: float
     r_squared_adjusted: float
     sigma: float
@@ -87,7 +87,7 @@ class FitOverview:
         Returns
         -------
         pandas.DataFrame
-            Columns ``n_obs, rank, df_resid, r_squared, r_squared_adjusted, sigma, rss, stat,
+            Columns ``n_obs, rank, fit_df_error, r_squared, r_squared_adjusted, sigma, rss, stat,
             df_test, df_error, p, loglik, aic, bic, covariance, reference``.
 
         Examples
@@ -111,7 +111,7 @@ class FitOverview:
             ["R²", _num(self.r_squared)],
             ["adjusted R²", _num(self.r_squared_adjusted)],
             ["sigma", _num(self.sigma)],
-            ["residual df", str(self.df_resid)],
+            ["residual df", str(self.fit_df_error)],
             [f"all non-intercept coefficients zero: {name} on {dfs}", _num(self.stat)],
             ["  p", _p(self.p)],
             ["covariance of tests", self.covariance],
@@ -158,10 +158,10 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
         root = vcov.root(ck)
         covmod.check_rank(root, np.arange(tested.size), ["overall"] * tested.size, vcov)
         wc = core.wald_from_root(est, root, np.arange(tested.size))
-        _d, stat, df_err, p = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
+        _d, stat, df_err, p = covmod.reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     else:
         stat, p = float("nan"), float("nan")
-        df_err = float(vcov.df_den) if ref == "F" else float("inf")
+        df_err = float(vcov.df_error) if ref == "F" else float("inf")
     log_w = 0.0
     if fit.weighted:
         try:
@@ -174,7 +174,7 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
     return FitOverview(
         n_obs=n,
         rank=k,
-        df_resid=sol.df_resid,
+        fit_df_error=sol.df_resid,
         r_squared=float(r2),
         r_squared_adjusted=float(r2_adj),
         sigma=fit.sigma,

@@ -77,7 +77,7 @@ class TermTests:
         Denominator degrees of freedom (``inf`` for chi-squared).
     rss : float
         Residual sum of squares of the fit.
-    df_resid : int
+    fit_df_error : int
         Residual degrees of freedom of the fit.
     reference : {'F', 'chi2'}
     covariance : str
@@ -101,7 +101,7 @@ class TermTests:
     p: Array
     df_error: float
     rss: float
-    df_resid: int
+    fit_df_error: int
     reference: str
     covariance: str
 
@@ -147,7 +147,7 @@ class TermTests:
                 self.terms, self.df_test, self.ss, self.stat, self.p, strict=True
             )
         ]
-        tail = f"residual: df {self.df_resid}, sum of squares {_num(self.rss)}"
+        tail = f"residual: df {self.fit_df_error}, sum of squares {_num(self.rss)}"
         return head, header, rows, tail
 
     def __repr__(self) -> str:
@@ -229,7 +229,7 @@ def term_tests(
     ss = np.full(n_t, np.nan)
     stat = np.full(n_t, np.nan)
     pval = np.full(n_t, np.nan)
-    df_den = float(vcov.df_den) if ref == "F" else float("inf")
+    df_den = float(vcov.df_error) if ref == "F" else float("inf")
     for i, t in enumerate(labels):
         mine = [pos[c] for c in index.terms[t] if c in pos]
         if adjusted_for == "preceding":
@@ -255,7 +255,7 @@ def term_tests(
         except SingularCovarianceError:
             continue  # the estimator cannot test this many directions: no statistic
         wc = core.wald_from_root(est, root, independent)
-        _dist, stat[i], _df, pval[i] = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
+        _dist, stat[i], _df, pval[i] = covmod.reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     return TermTests(
         terms=tuple(labels),
         adjusted_for=adjusted_for,
@@ -265,7 +265,7 @@ def term_tests(
         p=pval,
         df_error=df_den,
         rss=fit.rss,
-        df_resid=fit.df_resid,
+        fit_df_error=fit.df_error,
         reference=ref,
         covariance=vcov.label,
     )

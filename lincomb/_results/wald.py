@@ -8,7 +8,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy import stats
 
 from lincomb._results.format import (
     batch_html,
@@ -18,8 +17,10 @@ from lincomb._results.format import (
     wald_html,
     wald_text,
 )
+from lincomb._results.frames import ROW_COLUMNS as _ROW_COLUMNS
+from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
+from lincomb._results.frames import WaldResult, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
-from lincomb.errors import ParameterError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.multiplicity import MultipleInference
@@ -34,39 +35,14 @@ __all__ = [
     "BATCH_ROW_COLUMNS",
 ]
 
-#: Columns of :meth:`WaldTest.to_frame` (one row per restriction row).
-ROW_COLUMNS = (
-    "restriction",
-    "estimate",
-    "target",
-    "std_error",
-    "t",
-    "p_value",
-    "lower",
-    "upper",
-    "level",
-    "role",
-    "distribution",
-    "df",
-    "covariance",
-)
+#: Columns of :meth:`WaldTest.row_frame` (one row per restriction row).
+ROW_COLUMNS = _ROW_COLUMNS
 #: Columns of :meth:`WaldTest.test_frame` (one row per test).
-TEST_COLUMNS = (
-    "restrictions",
-    "rows",
-    "rank",
-    "statistic",
-    "distribution",
-    "df_num",
-    "df_den",
-    "p_value",
-    "covariance",
-    "redundant_rows",
-)
+TEST_COLUMNS = _TEST_COLUMNS
 
 
 @dataclass(frozen=True)
-class WaldTest:
+class WaldTest(WaldResult):
     """Wald test of a restriction system ``C·β = d``.
 
     Attributes
@@ -77,18 +53,20 @@ class WaldTest:
         ``Cβ̂`` per row.
     target : (m,) ndarray
         Hypothesized ``d``.
-    std_error : (m,) ndarray
+    se : (m,) ndarray
         Standard error of each ``Cβ̂`` row.
-    t : (m,) ndarray
-        ``(Cβ̂ - d) / std_error`` per row.
-    statistic : float
-        The system's F statistic (``distribution == "F"``) or chi-squared statistic.
-    df_num : int
+    ratio : (m,) ndarray
+        ``(Cβ̂ - d) / se`` per row: a t ratio under the F reference, a z ratio under chi2.
+    stat : float
+        The system's F statistic (``reference == "F"``) or Wald chi-square statistic.
+    df_test : int
         Rank of ``C`` (redundant rows do not count).
-    df_den : float
-        Denominator degrees of freedom (``inf`` for a chi-squared reference).
-    p_value : float
-    distribution : {'F', 'chi2'}
+    df_error : float
+        Error degrees of freedom, the denominator df of F (``inf`` for a chi2 reference).
+    p : float
+        p-value of the whole test.
+    reference : {'F', 'chi2'}
+        Reference distribution of ``stat``.
     covariance : str
         Covariance estimator the test used.
     redundant : dict
@@ -103,34 +81,71 @@ class WaldTest:
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
     >>> res = f.wald((lc.coef("line[T.L2]") == 0) & (lc.coef("line[T.L3]") == 2))
-    >>> res.to_frame().shape
-    (2, 13)
-    >>> bool(abs(res.t[0]) ** 2 - f.wald(lc.coef("line[T.L2]") == 0).statistic < 1e-9)
+    >>> res.row_frame().shape, res.test_frame().shape
+    ((2, 15), (1, 11))
+    >>> bool(abs(res.ratio[0]) ** 2 - f.wald(lc.coef("line[T.L2]") == 0).stat < 1e-9)
     True
     """
 
     labels: tuple[str, ...]
     estimate: NDArray[np.float64]
     target: NDArray[np.float64]
-    std_error: NDArray[np.float64]
-    t: NDArray[np.float64]
-    statistic: float
-    df_num: int
-    df_den: float
-    p_value: float
-    distribution: str
+    se: NDArray[np.float64]
+    ratio: NDArray[np.float64]
+    stat: float
+    df_test: int
+    df_error: float
+    p: float
+    reference: str
     covariance: str
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     matrix: pd.DataFrame | None = field(default=None, repr=False)
     estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
 
     @property
-    def row_p_value(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row (t with ``df_den``, normal if ``df_den`` is inf)."""
-        return 2 * self._row_dist().sf(np.abs(self.t))
+    def row_p(self) -> NDArray[np.float64]:
+        """Two-sided p-value of each row (t with ``df_error``, normal if ``df_error`` is inf).
 
-    def _row_dist(self):  # type: ignore[no-untyped-def]
-        return stats.norm() if not np.isfinite(self.df_den) else stats.t(self.df_den)
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald(lc.term("line") == 0).row_p.shape
+        (3,)
+        """
+        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
+
+    @property
+    def status(self) -> str:
+        """``"independent"`` (all rows independent) or ``"redundant"`` (some depend on others).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald(lc.levels("line").pairwise()).status
+        'redundant'
+        """
+        return "redundant" if self.redundant else "independent"
+
+    def _groups(self) -> _Groups:
+        m = len(self.labels)
+        return _Groups(
+            key=None,
+            keys=[None],
+            labels=[tuple(self.labels)],
+            estimate=np.asarray(self.estimate, dtype=np.float64).reshape(1, m),
+            target=np.asarray(self.target, dtype=np.float64).reshape(1, m),
+            se=np.asarray(self.se, dtype=np.float64).reshape(1, m),
+            ratio=np.asarray(self.ratio, dtype=np.float64).reshape(1, m),
+            stat=np.array([self.stat], dtype=np.float64),
+            df_test=np.array([self.df_test]),
+            df_error=np.array([self.df_error], dtype=np.float64),
+            p=np.array([self.p], dtype=np.float64),
+            role=roles(m, self.redundant).reshape(1, m),
+            status=[self.status],
+            redundant_rows=np.array([len(self.redundant)]),
+        )
 
     def intervals(self, level: float = 0.95) -> pd.DataFrame:
         """Marginal confidence intervals for each row's ``Cβ`` at ``level``.
@@ -143,88 +158,49 @@ class WaldTest:
         >>> list(ci.columns)
         ['lower', 'upper']
         """
-        if not (0 < level < 1):
-            raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
-        q = self._row_dist().ppf(0.5 + level / 2)
+        rows = self.row_frame(level)
         return pd.DataFrame(
-            {
-                "lower": self.estimate - q * self.std_error,
-                "upper": self.estimate + q * self.std_error,
-            },
+            {"lower": rows["lower"].to_numpy(), "upper": rows["upper"].to_numpy()},
             index=pd.Index(self.labels, name="restriction"),
         )
 
-    def to_frame(self, level: float = 0.95) -> pd.DataFrame:
-        """One row per restriction row.
+    def row_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """One row per restriction row; columns :data:`ROW_COLUMNS`.
 
-        Columns: ``restriction`` (the row as algebra), ``estimate`` (``Cβ̂``), ``target``
-        (``d``), ``std_error``, ``t``, ``p_value`` (two-sided, per row), ``lower``/``upper``
-        (marginal interval at ``level``), ``level``, ``role`` (``"independent"`` or
-        ``"redundant"``), ``distribution`` of the row statistics (``"t"``, or ``"normal"``
-        under a chi-squared reference), its ``df`` (``inf`` for normal) and the
-        ``covariance`` estimator.
+        ``row`` (position in the system), ``restriction`` (the row as algebra), ``estimate``
+        (``Cβ̂``), ``target`` (``d``), ``se``, ``ratio`` (``(estimate - target) / se``),
+        ``p`` (two-sided, per row: t with ``df_error``, normal when it is inf), ``lower`` /
+        ``upper`` (marginal interval at ``level``), ``level``, ``role`` (``"independent"``
+        or ``"redundant"``), ``status`` (of the test), ``reference`` (``"F"`` or
+        ``"chi2"``), ``df_error`` and the ``covariance`` estimator.
 
         Examples
         --------
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> rows = f.wald((lc.coef("Intercept") == 500) & (lc.term("line")["L3"] == 1)).to_frame()
+        >>> res = f.wald((lc.coef("Intercept") == 500) & (lc.term("line")["L3"] == 1))
+        >>> rows = res.row_frame()
         >>> rows[["restriction", "target", "role"]].values.tolist()
         [['Intercept = 500', 500.0, 'independent'], ['line[L3] = 1', 1.0, 'independent']]
         """
-        ci = self.intervals(level)
-        role = [
-            "redundant" if i in self.redundant else "independent" for i in range(len(self.labels))
-        ]
-        return pd.DataFrame(
-            {
-                "restriction": list(self.labels),
-                "estimate": self.estimate,
-                "target": self.target,
-                "std_error": self.std_error,
-                "t": self.t,
-                "p_value": self.row_p_value,
-                "lower": ci["lower"].to_numpy(),
-                "upper": ci["upper"].to_numpy(),
-                "level": level,
-                "role": role,
-                "distribution": "t" if np.isfinite(self.df_den) else "normal",
-                "df": self.df_den,
-                "covariance": self.covariance,
-            }
-        )
+        return self._row_frame(level)
 
     def test_frame(self) -> pd.DataFrame:
-        """One row for the whole test.
+        """One row for the whole test; columns :data:`TEST_COLUMNS`.
 
-        Columns: ``restrictions`` (the system as algebra), ``rows``, ``rank``, ``statistic``,
-        ``distribution``, ``df_num``, ``df_den``, ``p_value``, ``covariance``,
-        ``redundant_rows``.
+        ``restrictions`` (the system as algebra), ``rows``, ``rank``, ``stat``,
+        ``reference``, ``df_test``, ``df_error``, ``p``, ``covariance``, ``redundant_rows``,
+        ``status``.
 
         Examples
         --------
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> one = f.wald(lc.levels("line").pairwise()).test_frame()
-        >>> one[["rows", "rank", "df_num", "redundant_rows"]].values.tolist()
+        >>> one[["rows", "rank", "df_test", "redundant_rows"]].values.tolist()
         [[6, 3, 3, 3]]
         """
-        return pd.DataFrame(
-            [
-                {
-                    "restrictions": " & ".join(self.labels),
-                    "rows": len(self.labels),
-                    "rank": self.df_num,
-                    "statistic": self.statistic,
-                    "distribution": self.distribution,
-                    "df_num": self.df_num,
-                    "df_den": self.df_den,
-                    "p_value": self.p_value,
-                    "covariance": self.covariance,
-                    "redundant_rows": len(self.redundant),
-                }
-            ]
-        )
+        return self._test_frame()
 
     def plot(self, level: float = 0.95, **kwargs: Any) -> Any:
         """Interval chart of the rows, hypothesized values marked (needs ``lincomb[plot]``).
@@ -277,7 +253,7 @@ class WaldTest:
         >>> import lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> adj = f.wald(lc.levels("line").pairwise()).adjust("holm")
-        >>> adj.family_size, adj.rank, bool((adj.p_adjusted >= adj.p_value).all())
+        >>> adj.family_size, adj.rank, bool((adj.p_adjusted >= adj.p).all())
         (6, 3, True)
         """
         from lincomb._results.multiplicity import adjust_wald
@@ -327,7 +303,7 @@ class WaldTest:
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> res = f.wald(lc.levels("line").versus("L1"))
         >>> sim = res.simultaneous("bonferroni", 0.95)
-        >>> bool(abs(sim.critical_value - stats.t.isf(0.05 / 6, res.df_den)) < 1e-12)
+        >>> bool(abs(sim.critical_value - stats.t.isf(0.05 / 6, res.df_error)) < 1e-12)
         True
         >>> sim.to_frame().shape
         (3, 12)
@@ -359,10 +335,10 @@ class RestrictedFit:
     rss_unrestricted : float
     rank : int
         Number of independent restrictions ``q``.
-    df_resid : int
+    df_error : int
         ``n - rank(X) + q``.
     sigma : float
-        ``sqrt(rss / df_resid)``.
+        ``sqrt(rss / df_error)``.
     redundant : dict
 
     Examples
@@ -372,7 +348,7 @@ class RestrictedFit:
     >>> r = f.restrict(lc.coef("line[T.L2]") == lc.coef("line[T.L4]"))
     >>> bool(abs(r.coefficients["line[T.L2]"] - r.coefficients["line[T.L4]"]) < 1e-12)
     True
-    >>> r.rank, r.df_resid - f.df_resid
+    >>> r.rank, r.df_error - f.df_error
     (1, 1)
     """
 
@@ -381,7 +357,7 @@ class RestrictedFit:
     rss: float
     rss_unrestricted: float
     rank: int
-    df_resid: int
+    df_error: int
     sigma: float
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     _cov: pd.DataFrame = field(default=None, repr=False)  # type: ignore[assignment]
@@ -411,7 +387,7 @@ class RestrictedFit:
         0.0
         """
         v = np.clip(np.diag(self._cov.to_numpy()), 0, None)
-        return pd.Series(np.sqrt(v), index=self._cov.index, name="std_error")
+        return pd.Series(np.sqrt(v), index=self._cov.index, name="se")
 
     def f_statistic(self) -> float:
         """``((RSS_r - RSS) / q) / (RSS / (n - rank))``: equals the Wald F (classical).
@@ -421,10 +397,10 @@ class RestrictedFit:
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
         >>> r = lc.term("line") == 0
-        >>> bool(np.isclose(f.restrict(r).f_statistic(), f.wald(r).statistic, rtol=1e-10))
+        >>> bool(np.isclose(f.restrict(r).f_statistic(), f.wald(r).stat, rtol=1e-10))
         True
         """
-        df_u = self.df_resid - self.rank
+        df_u = self.df_error - self.rank
         return ((self.rss - self.rss_unrestricted) / self.rank) / (self.rss_unrestricted / df_u)
 
     def to_frame(self) -> pd.DataFrame:
@@ -441,7 +417,7 @@ class RestrictedFit:
             {
                 "coefficient": list(self.coefficients.index),
                 "estimate": self.coefficients.to_numpy(),
-                "std_error": self.std_errors().to_numpy(),
+                "se": self.std_errors().to_numpy(),
             }
         )
 
@@ -452,36 +428,14 @@ class RestrictedFit:
         return restricted_html(self)
 
 
-#: Columns of :meth:`WaldBatch.to_frame` (one row per system).
-BATCH_COLUMNS = (
-    "system",
-    "rows",
-    "rank",
-    "statistic",
-    "df_num",
-    "df_den",
-    "p_value",
-    "status",
-)
-#: Columns of :meth:`WaldBatch.rows_frame` (one row per system and restriction row).
-BATCH_ROW_COLUMNS = (
-    "system",
-    "row",
-    "restriction",
-    "estimate",
-    "target",
-    "std_error",
-    "t",
-    "p_value",
-    "lower",
-    "upper",
-    "level",
-    "role",
-)
+#: Columns of :meth:`WaldBatch.test_frame` (one row per system).
+BATCH_COLUMNS = ("system", *_TEST_COLUMNS)
+#: Columns of :meth:`WaldBatch.row_frame` (one row per system and restriction row).
+BATCH_ROW_COLUMNS = ("system", *_ROW_COLUMNS)
 
 
 @dataclass(frozen=True)
-class WaldBatch:
+class WaldBatch(WaldResult):
     """Wald tests of many restriction systems ``C_s·β = d_s`` on one fit, one F per system.
 
     Made by :meth:`LinearFit.wald_batch <lincomb.fit.LinearFit.wald_batch>`.  Per-system
@@ -495,22 +449,23 @@ class WaldBatch:
         ``C_s β̂`` per row (NaN for rows that are not estimable).
     target : (k, m) ndarray
         Hypothesized ``d_s``.
-    std_error : (k, m) ndarray
+    se : (k, m) ndarray
         Standard error of each row's estimate.
-    t : (k, m) ndarray
-        ``(C_s β̂ - d_s) / std_error`` per row.
-    statistic : (k,) ndarray
-        Each system's F (or chi-squared) statistic; NaN for a system without a test.
-    df_num : (k,) ndarray of int
+    ratio : (k, m) ndarray
+        ``(C_s β̂ - d_s) / se`` per row (t under the F reference, z under chi2).
+    stat : (k,) ndarray
+        Each system's F (or chi-square) statistic; NaN for a system without a test.
+    df_test : (k,) ndarray of int
         Rank of each ``C_s`` (redundant rows do not count).
-    df_den : float
-        Denominator degrees of freedom (``inf`` for a chi-squared reference).
-    p_value : (k,) ndarray
+    df_error : float
+        Error degrees of freedom, the denominator df of F (``inf`` for a chi2 reference).
+    p : (k,) ndarray
+        p-value of each system's test.
     status : tuple of str
         Per system: ``"independent"`` (all rows independent), ``"redundant"`` (some rows
         depend on others and agree with them; tested on the rank), or, with
         ``on_invalid="nan"``, ``"inconsistent"``, ``"not estimable"`` or ``"singular
-        covariance"`` (no test: statistic and p-value are NaN).
+        covariance"`` (no test: ``stat`` and ``p`` are NaN).
     redundant : dict
         ``{system position: {row: {independent row: weight}}}`` for systems with redundant rows.
     names : tuple of str
@@ -520,7 +475,7 @@ class WaldBatch:
     labels : tuple of tuple of str, or None
         Row labels when the systems were given as restrictions; otherwise they are written
         from ``matrix`` when a frame asks for them.
-    distribution : {'F', 'chi2'}
+    reference : {'F', 'chi2'}
         Reference distribution of the statistics.
     covariance : str
         Covariance estimator the tests used.
@@ -533,28 +488,28 @@ class WaldBatch:
     >>> c[0, 0, 1] = c[0, 1, 2] = 1.0                  # L2 = L3 = 0 (vs L1)
     >>> c[1, 0, 2], c[1, 0, 3], c[1, 1, 4] = 1.0, -1.0, 1.0  # L3 = L4, temperature = 0
     >>> b = f.wald_batch(c)
-    >>> b.to_frame().shape, b.rows_frame().shape
-    ((2, 8), (4, 12))
+    >>> b.test_frame().shape, b.row_frame().shape
+    ((2, 12), (4, 16))
     >>> single = f.wald(lc.from_matrix(c[1]))
-    >>> bool(np.isclose(b.statistic[1], single.statistic, rtol=1e-12))
+    >>> bool(np.isclose(b.stat[1], single.stat, rtol=1e-12))
     True
     """
 
     systems: tuple[Any, ...]
     estimate: NDArray[np.float64]
     target: NDArray[np.float64]
-    std_error: NDArray[np.float64]
-    t: NDArray[np.float64]
-    statistic: NDArray[np.float64]
-    df_num: NDArray[np.intp]
-    df_den: float
-    p_value: NDArray[np.float64]
+    se: NDArray[np.float64]
+    ratio: NDArray[np.float64]
+    stat: NDArray[np.float64]
+    df_test: NDArray[np.intp]
+    df_error: float
+    p: NDArray[np.float64]
     status: tuple[str, ...]
     redundant: dict[int, dict[int, dict[int, float]]] = field(default_factory=dict)
     names: tuple[str, ...] = ()
     matrix: NDArray[np.float64] | None = field(default=None, repr=False)
     labels: tuple[tuple[str, ...], ...] | None = field(default=None, repr=False)
-    distribution: str = "F"
+    reference: str = "F"
     covariance: str = "classical"
     _index: Any = field(default=None, repr=False, compare=False)
 
@@ -562,12 +517,17 @@ class WaldBatch:
         return len(self.systems)
 
     @property
-    def row_p_value(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row, ``(k, m)`` (t with ``df_den``; normal if inf)."""
-        return 2 * self._row_dist().sf(np.abs(self.t))
+    def row_p(self) -> NDArray[np.float64]:
+        """Two-sided p-value of each row, ``(k, m)`` (t with ``df_error``; normal if inf).
 
-    def _row_dist(self):  # type: ignore[no-untyped-def]
-        return stats.norm() if not np.isfinite(self.df_den) else stats.t(self.df_den)
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]])).row_p.shape
+        (2, 1)
+        """
+        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
 
     def row_labels(self, system: int) -> tuple[str, ...]:
         """Labels of the rows of the system at position ``system`` (written as algebra).
@@ -589,76 +549,66 @@ class WaldBatch:
         c = self.matrix[system]
         return tuple(from_matrix(c, self.target[system]).resolve(self._index)[2])
 
-    def to_frame(self) -> pd.DataFrame:
-        """One row per system.
+    def _groups(self) -> _Groups:
+        k, m = self.estimate.shape
+        role = np.full((k, m), "independent", dtype=object)
+        for s, deps in self.redundant.items():
+            role[s, list(deps)] = "redundant"
+        role[np.isnan(self.estimate)] = "not estimable"
+        return _Groups(
+            key="system",
+            keys=list(self.systems),
+            labels=[self.row_labels(s) for s in range(k)],
+            estimate=self.estimate,
+            target=self.target,
+            se=self.se,
+            ratio=self.ratio,
+            stat=self.stat,
+            df_test=self.df_test,
+            df_error=np.array([self.df_error], dtype=np.float64),
+            p=self.p,
+            role=role,
+            status=list(self.status),
+            redundant_rows=np.array([len(self.redundant.get(s, {})) for s in range(k)]),
+        )
 
-        Columns: ``system`` (identifier), ``rows`` (``m``), ``rank``, ``statistic`` (F),
-        ``df_num`` (= rank), ``df_den``, ``p_value``, ``status`` (see the class notes).
+    def test_frame(self) -> pd.DataFrame:
+        """One row per system; columns :data:`BATCH_COLUMNS`.
+
+        ``system`` (identifier), then as :meth:`WaldTest.test_frame`: ``restrictions``,
+        ``rows`` (``m``), ``rank``, ``stat``, ``reference``, ``df_test`` (= rank),
+        ``df_error``, ``p``, ``covariance``, ``redundant_rows``, ``status`` (see the class
+        notes).
 
         Examples
         --------
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]), ids=["L2-L3", "L4"])
-        >>> b.to_frame()[["system", "rank", "status"]].values.tolist()
+        >>> b.test_frame()[["system", "rank", "status"]].values.tolist()
         [['L2-L3', 1, 'independent'], ['L4', 1, 'independent']]
         """
-        k, m = self.estimate.shape
-        return pd.DataFrame(
-            {
-                "system": list(self.systems),
-                "rows": np.full(k, m),
-                "rank": self.df_num,
-                "statistic": self.statistic,
-                "df_num": self.df_num,
-                "df_den": self.df_den,
-                "p_value": self.p_value,
-                "status": list(self.status),
-            }
-        )
+        return self._test_frame()
 
-    def rows_frame(self, level: float = 0.95) -> pd.DataFrame:
-        """One row per system and restriction row (``k·m`` rows).
+    def row_frame(self, level: float = 0.95) -> pd.DataFrame:
+        """One row per system and restriction row (``k·m`` rows); columns :data:`BATCH_ROW_COLUMNS`.
 
-        Columns: ``system``, ``row`` (position in the system), ``restriction`` (the row as
-        algebra), ``estimate``, ``target``, ``std_error``, ``t``, ``p_value`` (two-sided, per
+        ``system``, then as :meth:`WaldTest.row_frame`: ``row`` (position in the system),
+        ``restriction``, ``estimate``, ``target``, ``se``, ``ratio``, ``p`` (two-sided, per
         row), ``lower``/``upper`` (marginal interval at ``level``), ``level``, ``role``
-        (``"independent"``, ``"redundant"`` or ``"not estimable"``).
+        (``"independent"``, ``"redundant"`` or ``"not estimable"``), ``status`` (of the
+        system), ``reference``, ``df_error``, ``covariance``.
 
         Examples
         --------
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> b = f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]]))
-        >>> rows = b.rows_frame(level=0.9)
+        >>> rows = b.row_frame(level=0.9)
         >>> rows[["system", "row"]].values.tolist(), rows["level"].tolist()
         ([[0, 0], [1, 0]], [0.9, 0.9])
         """
-        if not (0 < level < 1):
-            raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
-        k, m = self.estimate.shape
-        q = self._row_dist().ppf(0.5 + level / 2)
-        role = np.full((k, m), "independent", dtype=object)
-        for s, deps in self.redundant.items():
-            role[s, list(deps)] = "redundant"
-        role[np.isnan(self.estimate)] = "not estimable"
-        labels = [lab for s in range(k) for lab in self.row_labels(s)]
-        return pd.DataFrame(
-            {
-                "system": [sid for sid in self.systems for _ in range(m)],
-                "row": np.tile(np.arange(m), k),
-                "restriction": labels,
-                "estimate": self.estimate.ravel(),
-                "target": self.target.ravel(),
-                "std_error": self.std_error.ravel(),
-                "t": self.t.ravel(),
-                "p_value": self.row_p_value.ravel(),
-                "lower": (self.estimate - q * self.std_error).ravel(),
-                "upper": (self.estimate + q * self.std_error).ravel(),
-                "level": level,
-                "role": role.ravel(),
-            }
-        )
+        return self._row_frame(level)
 
     def __repr__(self) -> str:
         return batch_text(self)

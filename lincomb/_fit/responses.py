@@ -1,0 +1,171 @@
+"""Responses of a many-response fit: read in blocks, checked, and projected on worker threads."""
+
+from __future__ import annotations
+
+from collections import deque
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from lincomb import _core as core
+from lincomb._model.design import Design
+from lincomb.errors import InputError
+
+
+class _FrameColumns:
+    """Picklable reader of a frame's columns by position (``cols`` maps response -> column)."""
+
+    def __init__(self, frame: pd.DataFrame, cols: NDArray[np.intp] | None = None) -> None:
+        self.frame = frame
+        self.cols = cols
+
+    def __call__(self, c: Any) -> Any:
+        return self.frame.iloc[:, c if self.cols is None else self.cols[c]]
+
+
+class _ArrayColumns:
+    """Picklable reader of a 2-D array's columns."""
+
+    def __init__(self, arr: NDArray[Any]) -> None:
+        self.arr = arr
+
+    def __call__(self, c: Any) -> Any:
+        return self.arr[:, c]
+
+
+class _Responses:
+    """Columns of responses read in blocks, without copying the whole matrix."""
+
+    def __init__(self, names: tuple[str, ...], get: Callable[[Any], Any], n: int) -> None:
+        self.names = names
+        self._get = get
+        self.n = n
+
+    @property
+    def count(self) -> int:
+        return len(self.names)
+
+    def block(self, cols: slice | NDArray[np.intp]) -> NDArray[np.float64]:
+        raw = self._get(cols)
+        try:
+            if isinstance(raw, pd.DataFrame):
+                return raw.to_numpy(dtype=np.float64, na_value=np.nan)
+            return np.asarray(raw, dtype=np.float64)
+        except (TypeError, ValueError):
+            names = np.asarray(self.names, dtype=object)[cols]
+            for j, nm in enumerate(names):
+                try:
+                    frame_col = raw.iloc[:, j] if isinstance(raw, pd.DataFrame) else raw[:, j]
+                    np.asarray(frame_col, dtype=np.float64)
+                except (TypeError, ValueError):
+                    raise InputError(
+                        f"response {nm!r} is not numeric; recode it or leave it out."
+                    ) from None
+            raise  # pragma: no cover
+
+    def column(self, j: int) -> NDArray[np.float64]:
+        return self.block(np.array([j]))[:, 0]
+
+
+def _unique_names(names: Sequence[Any], what: str) -> tuple[str, ...]:
+    out = tuple(map(str, names))
+    if len(set(out)) != len(out):
+        dup = sorted({s for s in out if out.count(s) > 1})[:5]
+        raise InputError(f"{what} must be unique; repeated: {dup}.")
+    return out
+
+
+def _array_source(
+    y: Any, n: int, response_names: Sequence[str] | None, index: pd.Index | None
+) -> _Responses:
+    if isinstance(y, pd.DataFrame):
+        if len(y) != n:
+            raise InputError(f"the responses have {len(y)} rows but the design has {n}.")
+        if index is not None and not y.index.equals(index):
+            raise InputError(
+                "the responses' index differs from the data's; align them (e.g."
+                " responses.reindex(data.index)) or pass the responses as column names of data."
+            )
+        names = _unique_names(
+            y.columns if response_names is None else response_names, "response names"
+        )
+        if len(names) != y.shape[1]:
+            raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")
+        return _Responses(names, _FrameColumns(y), n)
+    if isinstance(y, pd.Series):
+        name = str(y.name) if y.name is not None else "y"
+        return _array_source(y.to_frame(name), n, response_names, index)
+    arr = np.asarray(y)
+    if arr.ndim == 1:
+        arr = arr[:, None]
+    if arr.ndim != 2:
+        raise InputError(f"responses must be 2-dimensional (n, r), got shape {arr.shape}.")
+    if arr.shape[0] != n:
+        raise InputError(
+            f"the responses have {arr.shape[0]} rows but the design has {n}; responses are"
+            " columns, one row per observation."
+        )
+    if arr.dtype.kind not in "fiub":
+        raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
+    r = arr.shape[1]
+    if response_names is None:
+        names = tuple(np.char.add("y", np.arange(r).astype(str)).tolist())
+    else:
+        names = _unique_names(response_names, "response names")
+        if len(names) != r:
+            raise InputError(f"{len(names)} response names for {r} responses.")
+    return _Responses(names, _ArrayColumns(arr), n)
+
+
+def _projected(
+    factor: core.DesignFactor,
+    source: _Responses,
+    positions: NDArray[np.intp] | None,
+    r: int,
+    width: int,
+    workers: int,
+) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], core.ResponseBlock]]:
+    """Blocks of responses with their projections, in order.
+
+    Blocks are read in this thread (pandas is not asked to serve several threads) and projected
+    by ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
+    """
+
+    def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+        cols = np.arange(j0, min(r, j0 + width))
+        yb = source.block(slice(j0, j0 + cols.size))
+        return cols, (yb if positions is None else yb[positions])
+
+    if workers <= 1:
+        for j0 in range(0, r, width):
+            cols, yb = read(j0)
+            yield j0, cols, yb, factor.project(yb)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[Any]]] = deque()
+        for j0 in range(0, r, width):
+            cols, yb = read(j0)
+            pending.append((j0, cols, yb, pool.submit(factor.project, yb)))
+            if len(pending) > workers:
+                k0, kc, ky, fut = pending.popleft()
+                yield k0, kc, ky, fut.result()
+        while pending:
+            k0, kc, ky, fut = pending.popleft()
+            yield k0, kc, ky, fut.result()
+
+
+def _check_no_inf(
+    yb: NDArray[np.float64], names: tuple[str, ...], cols: NDArray[np.intp], design: Design
+) -> None:
+    bad = np.isinf(yb)
+    if bad.any():
+        i, j = (int(v) for v in np.argwhere(bad)[0])
+        raise InputError(
+            f"response {names[cols[j]]!r} holds {float(yb[i, j])!r} at row"
+            f" {design.row_index[i]!r};"
+            " remove or replace infinite values (missing values are fine: NaN)."
+        )

@@ -1,0 +1,195 @@
+"""One vocabulary for every Wald result: shared attributes, row p-values and tidy frames.
+
+:class:`~lincomb.WaldTest` (one system on one fit), :class:`~lincomb.WaldBatch` (many systems
+on one fit) and :class:`~lincomb.ManyWaldTest` (one system on many responses) are all *groups*
+of tests: one group for a single test, one per system, one per response.  Each class says what
+its groups are (:meth:`WaldResult._groups`); the row p-values, the per-row frame and the
+per-test frame are written here once, so the three cannot drift apart.
+
+Columns of ``row_frame(level=0.95)`` (one row per restriction row; a batch adds a leading
+``system`` column, a many-response test a leading ``response`` column): :data:`ROW_COLUMNS`.
+Columns of ``test_frame()`` (one row per test; the same leading columns): :data:`TEST_COLUMNS`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from scipy import stats
+
+from lincomb.errors import ParameterError
+
+__all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
+
+#: Columns of ``row_frame(level)``: one row per restriction row.
+ROW_COLUMNS = (
+    "row",
+    "restriction",
+    "estimate",
+    "target",
+    "se",
+    "ratio",
+    "p",
+    "lower",
+    "upper",
+    "level",
+    "role",
+    "status",
+    "reference",
+    "df_error",
+    "covariance",
+)
+#: Columns of ``test_frame()``: one row per test.
+TEST_COLUMNS = (
+    "restrictions",
+    "rows",
+    "rank",
+    "stat",
+    "reference",
+    "df_test",
+    "df_error",
+    "p",
+    "covariance",
+    "redundant_rows",
+    "status",
+)
+#: Attributes and methods every Wald result has.
+RESULT_ATTRIBUTES = (
+    "labels",
+    "estimate",
+    "target",
+    "se",
+    "ratio",
+    "stat",
+    "df_test",
+    "df_error",
+    "p",
+    "reference",
+    "covariance",
+    "redundant",
+    "status",
+    "row_p",
+    "row_frame",
+    "test_frame",
+)
+
+Array = NDArray[np.float64]
+
+
+def check_level(level: float) -> None:
+    if not (0 < level < 1):
+        raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+
+
+def _row_tail(ratio: Array, df_error: Array) -> Array:
+    """Two-sided p of each ratio: t with ``df_error``, normal where ``df_error`` is inf."""
+    finite = np.isfinite(df_error)
+    with np.errstate(invalid="ignore"):
+        t_tail = stats.t.sf(np.abs(ratio), np.where(finite, df_error, 1.0))
+    out: Array = 2 * np.where(finite, t_tail, stats.norm.sf(np.abs(ratio)))
+    return out
+
+
+def _row_quantile(level: float, df_error: Array) -> Array:
+    finite = np.isfinite(df_error)
+    with np.errstate(invalid="ignore"):
+        q = stats.t.ppf(0.5 + level / 2, np.where(finite, df_error, 1.0))
+    out: Array = np.where(finite, q, stats.norm.ppf(0.5 + level / 2))
+    return out
+
+
+@dataclass(frozen=True)
+class _Groups:
+    """A result seen as ``g`` tests of ``m`` rows each (arrays ``(g, m)`` or ``(g,)``)."""
+
+    key: str | None  # name of the leading column ("system", "response") or None
+    keys: list[Any]
+    labels: list[tuple[str, ...]]
+    estimate: Array
+    target: Array
+    se: Array
+    ratio: Array
+    stat: Array
+    df_test: NDArray[Any]
+    df_error: Array
+    p: Array
+    role: NDArray[Any]  # (g, m) of str
+    status: list[str]
+    redundant_rows: NDArray[Any]  # (g,) of int
+
+
+class WaldResult:
+    """Shared behaviour of the Wald result classes (a mixin over their frozen dataclasses)."""
+
+    reference: str
+    covariance: str
+
+    def _groups(self) -> _Groups:  # pragma: no cover - each class says what its groups are
+        raise NotImplementedError
+
+    def _row_p(self, ratio: Array, df_error: Array) -> Array:
+        return _row_tail(ratio, df_error)
+
+    def _row_frame(self, level: float) -> pd.DataFrame:
+        check_level(level)
+        g = self._groups()
+        k, m = g.estimate.shape
+        df = np.broadcast_to(np.asarray(g.df_error, dtype=np.float64).reshape(-1, 1), (k, m))
+        q = _row_quantile(level, df)
+        cols: dict[str, Any] = {}
+        if g.key is not None:
+            cols[g.key] = [key for key in g.keys for _ in range(m)]
+        cols.update(
+            {
+                "row": np.tile(np.arange(m), k),
+                "restriction": [lab for labs in g.labels for lab in labs],
+                "estimate": g.estimate.ravel(),
+                "target": g.target.ravel(),
+                "se": g.se.ravel(),
+                "ratio": g.ratio.ravel(),
+                "p": self._row_p(g.ratio, df).ravel(),
+                "lower": (g.estimate - q * g.se).ravel(),
+                "upper": (g.estimate + q * g.se).ravel(),
+                "level": level,
+                "role": g.role.ravel(),
+                "status": [s for s in g.status for _ in range(m)],
+                "reference": self.reference,
+                "df_error": df.ravel(),
+                "covariance": self.covariance,
+            }
+        )
+        return pd.DataFrame(cols)
+
+    def _test_frame(self) -> pd.DataFrame:
+        g = self._groups()
+        k, m = g.estimate.shape
+        cols: dict[str, Any] = {}
+        if g.key is not None:
+            cols[g.key] = list(g.keys)
+        cols.update(
+            {
+                "restrictions": [" & ".join(labs) for labs in g.labels],
+                "rows": np.full(k, m),
+                "rank": g.df_test,
+                "stat": g.stat,
+                "reference": self.reference,
+                "df_test": g.df_test,
+                "df_error": np.broadcast_to(np.asarray(g.df_error, dtype=np.float64), (k,)),
+                "p": g.p,
+                "covariance": self.covariance,
+                "redundant_rows": g.redundant_rows,
+                "status": list(g.status),
+            }
+        )
+        return pd.DataFrame(cols, index=pd.RangeIndex(k))
+
+
+def roles(m: int, redundant: dict[int, Any]) -> NDArray[Any]:
+    """``"redundant"`` or ``"independent"`` for each of ``m`` rows."""
+    return np.array(
+        ["redundant" if i in redundant else "independent" for i in range(m)], dtype=object
+    )
