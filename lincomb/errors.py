@@ -256,11 +256,13 @@ class OptionalDependencyError(LincombError, ImportError):
     """
 
 
-class ParameterError(LincombError, ValueError):
+class ParameterError(InputError):
     """A numeric setting is outside its valid range.
 
-    For example a residual standard deviation ``sigma <= 0``, a significance level outside
-    ``(0, 1)``, a target power outside ``(alpha, 1)`` or a replicate count below one.
+    For example a residual standard deviation ``sigma <= 0``, a significance or confidence
+    level outside ``(0, 1)``, a tolerance outside its range (``rank_tol``, ``tol``), a target
+    power outside ``(alpha, 1)`` or a replicate count below one.  A kind of
+    :class:`InputError`.
 
     Examples
     --------

@@ -165,10 +165,11 @@ class Expr:
     # -- arithmetic ---------------------------------------------------------------------
     def _combine(self, other: object, sign: float) -> Expr | NotImplementedType:
         if isinstance(other, Expr):
+            rhs: Expr = other
             terms = dict(self._terms)
-            for k, v in other._terms.items():
+            for k, v in rhs._terms.items():
                 terms[k] = terms.get(k, 0.0) + sign * v
-            return Expr(terms, self._const + sign * other._const)
+            return Expr(terms, self._const + sign * rhs._const)
         if _is_number(other):
             if not np.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
@@ -283,7 +284,16 @@ class Expr:
     def __repr__(self) -> str:
         return f"<Expr: {self.text()}>"
 
-    def _row(self, index: Resolver) -> NDArray[np.float64]:
+    def row(self, index: Resolver) -> NDArray[np.float64]:
+        """The expression's weights on a fit's coefficients (its constant left out).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> (2 * lc.coef("line[T.L2]") - lc.coef("line[T.L4]") + 1).row(index).tolist()
+        [0.0, 2.0, 0.0, -1.0]
+        """
         row = np.zeros(len(index.names))
         for ref, w in self._terms.items():
             row[ref.resolve(index)] += w
@@ -447,7 +457,7 @@ class Restriction(_Item):
         >>> [(c.tolist(), d, label) for c, d, label in (lc.coef("line[T.L2]") == 1).rows(index)]
         [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
         """
-        row = self.expr._row(index)
+        row = self.expr.row(index)
         if not row.any():
             raise EmptyRestrictionError(
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"

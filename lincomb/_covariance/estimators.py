@@ -161,7 +161,7 @@ def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
     (<CovarianceEstimate: HC3; reference df 295>, True)
     """
     if isinstance(covariance, CovarianceEstimate):
-        if covariance._sol is not fit._sol:
+        if covariance.solution is not fit.solution:
             raise IncompatibleFitError(
                 f"this {covariance.label!r} covariance estimate belongs to another fit; pass the"
                 " estimator (e.g. 'HC3' or lc.clustered(...)) so it is computed on this fit."

@@ -151,7 +151,7 @@ class _Meat:
     row_blocks = True
 
     def __init__(self, fit: Any) -> None:
-        self.sol: core.Solution = fit._sol
+        self.sol: core.Solution = fit.solution
         self.n_obs: int = int(fit.n_obs)
         self.k: int = int(self.sol.rank)
         self.df_resid = float(fit.df_resid)

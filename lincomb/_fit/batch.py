@@ -148,7 +148,7 @@ def _raise_invalid(
             + fix
         )
     if core.not_estimable:
-        sol = fit._sol
+        sol = fit.solution
         cu = sol.to_working(res.matrix)
         parts = []
         for s, rows in list(core.not_estimable.items())[:_SHOWN]:
@@ -207,7 +207,7 @@ def wald_batch(
             f"on_invalid must be 'raise' (stop at an invalid system) or 'nan' (mark it and test"
             f" the others), got {on_invalid!r}."
         )
-    vcov = fit._covariance_estimate(covariance)
+    vcov = fit.evaluate_covariance(covariance)
     ref = covmod.check_reference(reference)
     labels = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
@@ -229,10 +229,10 @@ def wald_batch(
         raise InputError(f"{len(systems)} ids given for {k} systems; give one id per system.")
 
     if vcov.method == "classical":  # the core's own BLAS-free root, σ R⁻ᵀ Cᵀ
-        core = wald_systems(fit._sol, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
+        core = wald_systems(fit.solution, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
     else:
         core = wald_systems(
-            fit._sol, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
+            fit.solution, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
         )
     status = ["independent"] * k
     for s in core.exact.tolist():  # only these can be anything else

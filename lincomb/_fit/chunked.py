@@ -44,8 +44,7 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
-from lincomb._fit.linear import LinearFit
-from lincomb._fit.pooled import fit_from_moments
+from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import EncodedRows, FormulaEncoder, require_response
 from lincomb._settings import blas_limit, worker_threads
@@ -523,7 +522,7 @@ def covariance_pass(
     from lincomb._covariance.second_pass import RowPass
 
     rp = RowPass(fit, covariance)
-    encoder = fit._design.second_pass
+    encoder = fit.design.second_pass
     if not isinstance(encoder, (FrameRows, ArrayEncoder)):
         raise InputError(
             "covariance_pass needs a fit made by fit_chunks or fit_array_chunks; for an"

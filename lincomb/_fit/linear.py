@@ -23,10 +23,17 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from lincomb import _core as core
-from lincomb._builder.contrasts import ModelResolver
+from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
+from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance import estimators as covmod
-from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
+from lincomb._model.design import (
+    CoefficientIndex,
+    Design,
+    design_from_arrays,
+    design_from_formula,
+    encode_new,
+)
 from lincomb._model.encoder import require_response
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
@@ -101,48 +108,64 @@ class LinearFit:
     _sol: core.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _vcov: covmod.CovarianceEstimate | None = field(repr=False, compare=False, default=None)
 
-    # -- construction -------------------------------------------------------------------
-    @classmethod
-    def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
-        moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
-        return cls._from_moments(design, moments, rank_tol)
+    # -- the fit's internals, read-only, for the other layers ------------------------------
+    @property
+    def design(self) -> Design:
+        """The validated design the fit was made from (names, encoder, rows when kept).
 
-    @classmethod
-    def _from_moments(cls, design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
-        if not (0 < rank_tol < 1):
-            raise ValueError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
-        sol = core.solve(moments, rank_tol)
-        names = design.index.names
-        if sol.n <= sol.rank:
-            raise DegenerateFitError(
-                f"{sol.n} observations for {sol.rank} estimable coefficients leave no residual"
-                " degrees of freedom, so no error variance and no test. Add observations or drop"
-                " terms."
-            )
-        beta = sol.coefficients()
-        sigma = float(np.sqrt(sol.rss / sol.df_resid))
-        return cls(
-            names=names,
-            coefficients=pd.Series(beta, index=list(names), name="estimate"),
-            aliased=tuple(names[j] for j in sorted(sol.aliased)),
-            rank=sol.rank,
-            n_obs=sol.n,
-            n_dropped=len(design.dropped),
-            df_resid=sol.df_resid,
-            rss=sol.rss,
-            sigma=sigma,
-            weighted=design.weighted,
-            response=design.response or "",
-            formula=design.formula,
-            rank_tol=rank_tol,
-            _design=design,
-            _moments=moments,
-            _sol=sol,
-        )
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.design.index.names == f.names, f.design.has_rows
+        (True, True)
+        """
+        return self._design
+
+    @property
+    def moments(self) -> core.Moments:
+        """The fit's moments: the R factor of ``sqrt(w)·[X y]`` and the column shifts.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.moments.n == f.n_obs
+        True
+        """
+        return self._moments
+
+    @property
+    def solution(self) -> core.Solution:
+        """The rank decision and the kept-column triangle in working coordinates.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.solution.rank == f.rank, f.solution.df_resid == f.df_resid
+        (True, True)
+        """
+        return self._sol
+
+    @property
+    def covariance_estimate(self) -> covmod.CovarianceEstimate | None:
+        """The covariance estimate set with :meth:`with_covariance` (``None``: classical).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.covariance_estimate is None
+        True
+        >>> f.with_covariance("HC3").covariance_estimate.label
+        'HC3'
+        """
+        return self._vcov
 
     # -- basic quantities ---------------------------------------------------------------
     @property
-    def index(self) -> Any:
+    def index(self) -> CoefficientIndex:
         """The coefficient index (names, terms, levels) used to resolve restrictions."""
         return self._design.index
 
@@ -157,7 +180,27 @@ class LinearFit:
         """Labels of the rows dropped for missing values."""
         return self._design.dropped
 
-    def _check_variance(self) -> None:
+    def check_variance(self) -> None:
+        """Raise if the residual sum of squares is zero to working precision.
+
+        Every test needs an error variance; a fit that reproduces its response exactly has
+        none.
+
+        Raises
+        ------
+        DegenerateFitError
+            ``rss <= (ZERO_RSS_TOL · ‖y − ȳ‖)²``.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> x = np.c_[np.ones(4), [0.0, 1, 2, 3]]
+        >>> lc.fit_arrays(x, [1.0, 3.1, 4.9, 7.0]).check_variance()
+        >>> lc.fit_arrays(x, [1.0, 3.0, 5.0, 7.0]).check_variance()
+        Traceback (most recent call last):
+        ...
+        lincomb.errors.DegenerateFitError: the residual sum of squares is zero ...
+        """
         if self._sol.rss <= (ZERO_RSS_TOL * self._sol.y_norm) ** 2:
             raise DegenerateFitError(
                 f"the residual sum of squares is zero to working precision ({self._sol.rss:.3g}):"
@@ -170,7 +213,21 @@ class LinearFit:
         """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
         return "classical" if self._vcov is None else self._vcov.label
 
-    def _covariance_estimate(self, covariance: object) -> covmod.CovarianceEstimate:
+    def evaluate_covariance(self, covariance: object = None) -> covmod.CovarianceEstimate:
+        """The covariance estimate a test with ``covariance=`` uses on this fit.
+
+        Parameters
+        ----------
+        covariance : str or estimator, optional
+            As in :meth:`wald`; ``None`` gives the fit's own (see :meth:`with_covariance`).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.evaluate_covariance().label, f.evaluate_covariance("HC1").label
+        ('classical', 'HC1')
+        """
         if covariance is None and self._vcov is not None:
             return self._vcov
         return covmod.evaluate(self, covariance)
@@ -232,7 +289,7 @@ class LinearFit:
         >>> bool(np.allclose(hc3, hc3.T))
         True
         """
-        vcov = self._covariance_estimate(covariance)
+        vcov = self.evaluate_covariance(covariance)
         sol = self._sol
         p = sol.p
         est = np.setdiff1d(np.arange(p), sol.aliased)
@@ -291,9 +348,9 @@ class LinearFit:
         >>> f.coef_frame(covariance="HC3", reference="chi2")["distribution"].iloc[0]
         'normal'
         """
-        _check_level(level)
+        check_level(level)
         ref = covmod.check_reference(reference)
-        vcov = self._covariance_estimate(covariance)
+        vcov = self.evaluate_covariance(covariance)
         dfree = vcov.df_den if ref == "F" else np.inf
         dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
@@ -354,11 +411,36 @@ class LinearFit:
         # the resolver also carries the formula encoder, for contrasts on level means
         return system.resolve(ModelResolver.of(self))
 
-    def _prepare(
+    def prepare(
         self, restrictions: object
     ) -> tuple[
         NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], core.RowAnalysis
     ]:
+        """Resolve restrictions and check them against the design's rank.
+
+        Returns
+        -------
+        c, d, labels
+            As :meth:`resolve` gives them.
+        cu : (m, p) ndarray
+            ``C`` in working coordinates.
+        analysis : RowAnalysis
+            Independent and redundant rows.
+
+        Raises
+        ------
+        InconsistentRestrictionError, NotEstimableError
+            As in :meth:`wald`.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> two = (lc.coef("line[T.L2]") == 0) & (2 * lc.coef("line[T.L2]") == 0)
+        >>> c, d, labels, cu, analysis = f.prepare(two)
+        >>> analysis.independent.tolist(), list(analysis.dependencies)
+        ([0], [1])
+        """
         c, d, labels = self.resolve(restrictions)
         cu, analysis = check_rows(self._sol, c, d, labels, self.names)
         return c, d, labels, cu, analysis
@@ -418,9 +500,9 @@ class LinearFit:
         >>> hc.distribution, hc.df_den, hc.covariance
         ('chi2', inf, 'HC3')
         """
-        vcov = self._covariance_estimate(covariance)
+        vcov = self.evaluate_covariance(covariance)
         ref = covmod.check_reference(reference)
-        c, d, labels, cu, analysis = self._prepare(restrictions)
+        c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
         root = vcov.root(cu[:, sol.kept])
         est = cu[:, sol.kept] @ sol.theta
@@ -547,8 +629,8 @@ class LinearFit:
         >>> bool(np.isclose((r.rss - f.rss) / f.rss * f.df_resid, w.statistic))
         True
         """
-        self._check_variance()
-        c, d, labels, cu, analysis = self._prepare(restrictions)
+        self.check_variance()
+        c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
         k = analysis.independent
         root_k = sol.root(cu[k][:, sol.kept])
@@ -605,6 +687,69 @@ class LinearFit:
         return fit_html(self)
 
 
+def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
+    """Factor a design's rows and fit (the in-memory route of every entry point).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> fit_from_design(f.design, f.rank_tol).rss == f.rss
+    True
+    """
+    moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
+    return fit_from_moments(design, moments, rank_tol)
+
+
+def fit_from_moments(design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
+    """The fit of a design whose moments are already accumulated (chunks, partitions, sites).
+
+    Raises
+    ------
+    ParameterError
+        ``rank_tol`` is not in (0, 1).
+    DegenerateFitError
+        No residual degrees of freedom.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> again = fit_from_moments(f.design, f.moments, f.rank_tol)
+    >>> bool((again.coefficients == f.coefficients).all())
+    True
+    """
+    check_tolerance("rank_tol", rank_tol)
+    sol = core.solve(moments, rank_tol)
+    names = design.index.names
+    if sol.n <= sol.rank:
+        raise DegenerateFitError(
+            f"{sol.n} observations for {sol.rank} estimable coefficients leave no residual"
+            " degrees of freedom, so no error variance and no test. Add observations or drop"
+            " terms."
+        )
+    beta = sol.coefficients()
+    sigma = float(np.sqrt(sol.rss / sol.df_resid))
+    return LinearFit(
+        names=names,
+        coefficients=pd.Series(beta, index=list(names), name="estimate"),
+        aliased=tuple(names[j] for j in sorted(sol.aliased)),
+        rank=sol.rank,
+        n_obs=sol.n,
+        n_dropped=len(design.dropped),
+        df_resid=sol.df_resid,
+        rss=sol.rss,
+        sigma=sigma,
+        weighted=design.weighted,
+        response=design.response or "",
+        formula=design.formula,
+        rank_tol=rank_tol,
+        _design=design,
+        _moments=moments,
+        _sol=sol,
+    )
+
+
 def check_rows(
     sol: core.Solution,
     c: NDArray[np.float64],
@@ -638,7 +783,7 @@ def check_rows(
     >>> import numpy as np, lincomb as lc
     >>> f = lc.fit_arrays(np.c_[np.ones(5), [0.0, 1, 2, 3, 5]], [1.0, 2, 2, 4, 5])
     >>> c = np.array([[0.0, 1.0], [0.0, 2.0]])
-    >>> cu, a = check_rows(f._sol, c, np.array([1.0, 2.0]), ["x1 = 1", "2*x1 = 2"], f.names)
+    >>> cu, a = check_rows(f.solution, c, np.array([1.0, 2.0]), ["x1 = 1", "2*x1 = 2"], f.names)
     >>> a.independent.tolist(), a.dependencies
     ([0], {1: {0: 2.0}})
     """
@@ -673,11 +818,6 @@ def check_rows(
             " identify, or change the design so those columns are not aliased."
         )
     return cu, analysis
-
-
-def _check_level(level: float) -> None:
-    if not (0 < level < 1):
-        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
 
 
 def fit(
@@ -726,7 +866,7 @@ def fit(
     """
     require_response(formula)
     design = design_from_formula(formula, data, weights=weights, missing=missing)
-    return LinearFit._from_design(design, rank_tol)
+    return fit_from_design(design, rank_tol)
 
 
 def fit_arrays(
@@ -763,4 +903,4 @@ def fit_arrays(
     1.98
     """
     design = design_from_arrays(x, y, names=names, weights=weights)
-    return LinearFit._from_design(design, rank_tol)
+    return fit_from_design(design, rank_tol)

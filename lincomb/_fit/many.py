@@ -55,7 +55,8 @@ from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
-from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
+from lincomb._core.checks import check_level
+from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design, fit_from_moments
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
 from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
 from lincomb._results.format import _num, _p, _table_html, _table_text
@@ -232,7 +233,7 @@ class _Group:
 
     @property
     def sol(self) -> core.Solution | None:
-        return None if self.fit is None else self.fit._sol
+        return None if self.fit is None else self.fit.solution
 
 
 def _design_fit(
@@ -242,7 +243,7 @@ def _design_fit(
     w = design.weights if rows is None or design.weights is None else design.weights[rows]
     factor = core.factor_design(x, w, design.intercept)
     try:
-        lf = LinearFit._from_moments(design, factor.moments, rank_tol)
+        lf = fit_from_moments(design, factor.moments, rank_tol)
     except DegenerateFitError:
         lf = None
     return factor, lf
@@ -261,7 +262,7 @@ def _solve_group(
     if lf is None:
         nan = np.full(r, np.nan)
         return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
-    theta, rss, y_norm = core.solve_responses(factor.moments, lf._sol, block)
+    theta, rss, y_norm = core.solve_responses(factor.moments, lf.solution, block)
     return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
 
 
@@ -405,7 +406,7 @@ class ManyWaldTest:
         >>> res.intervals(0.9).shape
         (18, 5)
         """
-        _check_level(level)
+        check_level(level)
         q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
         r, m = self.estimate.shape
         return pd.DataFrame(
@@ -478,7 +479,7 @@ class ManyWaldTest:
         >>> rows.shape, rows["restriction"].iloc[0]
         ((18, 15), 'treatment[T.low] = 0')
         """
-        _check_level(level)
+        check_level(level)
         r, m = self.estimate.shape
         pr = self.row_p_values()
         adj = np.empty_like(pr)
@@ -647,7 +648,7 @@ class ManyFit:
         w = None if d.weights is None else d.weights[rows]
         if d.encoder is None:
             names = list(self.names)
-            return LinearFit._from_design(
+            return fit_from_design(
                 design_from_arrays(d.x[rows], y, names=names, weights=w, response=name),
                 self.rank_tol,
             )
@@ -662,7 +663,7 @@ class ManyFit:
             dropped=d.dropped.append(d.row_index[~obs]),
             formula=f"{name} ~ {self.formula}",
         )
-        return LinearFit._from_design(design, self.rank_tol)
+        return fit_from_design(design, self.rank_tol)
 
     # -- tests ---------------------------------------------------------------------------------
     def wald(self, restrictions: object) -> ManyWaldTest:
@@ -719,7 +720,7 @@ class ManyFit:
             if g.fit is None:
                 continue
             try:
-                c, d, lab, cu, analysis = g.fit._prepare(system)
+                c, d, lab, cu, analysis = g.fit.prepare(system)
             except NotEstimableError:
                 if gi == 0:
                     raise
@@ -739,7 +740,7 @@ class ManyFit:
                 est_all = np.full((r, m), np.nan)
                 se_all = np.full((r, m), np.nan)
                 t_all = np.full((r, m), np.nan)
-            sol = g.fit._sol
+            sol = g.fit.solution
             ck = cu[:, sol.kept]
             root = sol.root(ck)
             est = ck @ g.theta  # (m, r_g)
@@ -883,11 +884,6 @@ def _first_fit(groups: Sequence[_Group]) -> LinearFit:
     raise DegenerateFitError(  # pragma: no cover - the design fit is checked at construction
         "no group of responses has enough rows for a fit."
     )
-
-
-def _check_level(level: float) -> None:
-    if not (0 < level < 1):
-        raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
 
 
 # -- construction ------------------------------------------------------------------------------
@@ -1058,7 +1054,7 @@ def _assemble(
             status[cols] = _FEW
             rank[cols] = min(g.n, p)
             continue
-        sol = g.fit._sol
+        sol = g.fit.solution
         rank[cols] = sol.rank
         coef[:, cols] = _coefficients(sol, g.theta)
         rss[cols] = g.rss

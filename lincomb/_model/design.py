@@ -311,7 +311,7 @@ class Design:
     >>> d = design_from_formula("fill_g ~ line", lc.datasets.fill_lines())
     >>> d.x.shape, d.response, d.intercept, d.weighted, d.has_rows
     ((300, 4), 'fill_g', 0, False, True)
-    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines()))._design
+    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines())).design
     >>> shared.has_rows, shared.index.names[1]
     (False, 'line[T.L2]')
     >>> shared.x

@@ -554,7 +554,7 @@ class PowerPlan:
         red = f"; {len(self.redundant)} redundant row(s)" if self.redundant else ""
         return (
             f"PowerPlan: F test of {len(self.labels)} restriction row(s), rank {self.df_num}{red};"
-            f" sigma = {self.sigma:.6g}, alpha = {self.alpha:g}\n{self.design._head()}"
+            f" sigma = {self.sigma:.6g}, alpha = {self.alpha:g}\n{self.design!r}"
         )
 
     def __repr__(self) -> str:
@@ -622,7 +622,7 @@ def power_plan(
             f" {type(design).__name__}."
         )
     c, d, labels = design.resolve(restrictions)
-    sol = design._sol
+    sol = design.solution
     cu, analysis = check_rows(sol, c, d, labels, design.names, where="the planned design")
     # one replicate, σ = 1: Cov(Cβ̂) = rootᵀ root with root = R⁻ᵀ C_keptᵀ (C-ordered for BLAS)
     root = np.ascontiguousarray(sol.root(np.asfortranarray(cu[:, sol.kept])))

@@ -10,6 +10,7 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import stats
 
+from lincomb._core.checks import check_level
 from lincomb._results.format import (
     batch_html,
     batch_text,
@@ -142,8 +143,7 @@ class WaldTest:
         >>> list(ci.columns)
         ['lower', 'upper']
         """
-        if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        check_level(level)
         q = self._row_dist().ppf(0.5 + level / 2)
         return pd.DataFrame(
             {
@@ -633,8 +633,7 @@ class WaldBatch:
         >>> rows[["system", "row"]].values.tolist(), rows["level"].tolist()
         ([[0, 0], [1, 0]], [0.9, 0.9])
         """
-        if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        check_level(level)
         k, m = self.estimate.shape
         q = self._row_dist().ppf(0.5 + level / 2)
         role = np.full((k, m), "independent", dtype=object)
