@@ -170,7 +170,11 @@ class HeteroskedasticMeat(_Meat):
         self.kind = kind
 
     def block(
-        self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
+        self,
+        xc: Array,
+        resid: Array,
+        w: Array | None,
+        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
     ) -> Partial:
         """The block's ``Σ ω_i z_i z_iᵀ`` (HC1's factor is applied at the end)."""
         xc, resid = _weighted(xc, resid, w)
@@ -341,7 +345,11 @@ class SerialMeat(_Meat):
         return 1.0 - ell / (self.lag + 1.0)
 
     def block(
-        self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
+        self,
+        xc: Array,
+        resid: Array,
+        w: Array | None,
+        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
     ) -> Partial:
         """``Γ₀ + Σ_ℓ w_ℓ (Γ_ℓ + Γ_ℓᵀ)`` over the pairs of rows inside the block."""
         xc, resid = _weighted(xc, resid, w)

@@ -149,12 +149,12 @@ def _show(value: Any) -> Any:
     return value.item() if isinstance(value, np.generic) else value
 
 
-def _missing_at(fit: LinearFit, values: NDArray[Any]) -> NDArray[np.intp]:
+def _missing_at(values: NDArray[Any]) -> NDArray[np.intp]:
     return np.flatnonzero(pd.isna(values))
 
 
 def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
-    bad = _missing_at(fit, values)
+    bad = _missing_at(values)
     if bad.size:
         row = fit.design.row_index[int(bad[0])]
         raise CovarianceInputError(
@@ -173,7 +173,7 @@ def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDAr
 
 
 def time_order(fit: LinearFit, values: NDArray[Any], name: str) -> NDArray[np.intp]:
-    bad = _missing_at(fit, values)
+    bad = _missing_at(values)
     if bad.size:
         row = fit.design.row_index[int(bad[0])]
         raise CovarianceInputError(

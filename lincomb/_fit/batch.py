@@ -16,7 +16,8 @@ from scipy import special
 
 from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.estimate import COV_RANK_TOL, CovarianceEstimate
+from lincomb._covariance.reference import check_reference
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
     EmptyRestrictionError,
@@ -125,7 +126,7 @@ def _more(n: int) -> str:
 
 
 def _raise_invalid(
-    fit: LinearFit, core: BatchCore, res: WaldBatch, estimate: covmod.CovarianceEstimate
+    fit: LinearFit, core: BatchCore, res: WaldBatch, estimate: CovarianceEstimate
 ) -> None:
     """Raise the single-system test's typed error, naming the system(s) and row(s)."""
     fix = " Or pass on_invalid='nan' to get the other systems' tests with these marked."
@@ -208,7 +209,7 @@ def wald_batch(
             f" the others), got {on_invalid!r}."
         )
     vcov = fit.evaluate_covariance(covariance)
-    ref = covmod.check_reference(reference)
+    ref = check_reference(reference)
     labels = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
         items = list(c)  # type: ignore[arg-type]
@@ -231,9 +232,7 @@ def wald_batch(
     if vcov.method == "classical":  # the core's own BLAS-free root, σ R⁻ᵀ Cᵀ
         core = wald_systems(fit.solution, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
     else:
-        core = wald_systems(
-            fit.solution, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
-        )
+        core = wald_systems(fit.solution, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=COV_RANK_TOL)
     status = ["independent"] * k
     for s in core.exact.tolist():  # only these can be anything else
         if s in core.inconsistent:

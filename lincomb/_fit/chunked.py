@@ -98,10 +98,6 @@ class ChunkProgress:
     rows_dropped: int
     seconds: float
 
-    @property
-    def rows_per_second(self) -> float:
-        return self.rows_read / self.seconds if self.seconds > 0 else float("nan")
-
 
 # -- encoding fixed once ---------------------------------------------------------------------
 
@@ -332,7 +328,12 @@ class ArrayEncoder:
         self.names = names
         self.intercept = intercept
 
-    def encode(self, chunk: Any, where: str, keep_frame: bool = False) -> EncodedRows:
+    def encode(
+        self,
+        chunk: Any,
+        where: str,
+        keep_frame: bool = False,  # noqa: ARG002 - the frame encoders' call; arrays have no frame
+    ) -> EncodedRows:
         if not isinstance(chunk, tuple) or len(chunk) not in (2, 3):
             raise InputError(
                 f"{where} must be a tuple (X, y) or (X, y, weights), got {type(chunk).__name__}."

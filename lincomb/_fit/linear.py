@@ -26,7 +26,9 @@ from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level, check_tolerance
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.estimate import CovarianceEstimate, check_rank
+from lincomb._covariance.estimators import evaluate
+from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._model.design import (
     CoefficientIndex,
     Design,
@@ -106,7 +108,7 @@ class LinearFit:
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _moments: core.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _sol: core.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _vcov: covmod.CovarianceEstimate | None = field(repr=False, compare=False, default=None)
+    _vcov: CovarianceEstimate | None = field(repr=False, compare=False, default=None)
 
     # -- the fit's internals, read-only, for the other layers ------------------------------
     @property
@@ -149,7 +151,7 @@ class LinearFit:
         return self._sol
 
     @property
-    def covariance_estimate(self) -> covmod.CovarianceEstimate | None:
+    def covariance_estimate(self) -> CovarianceEstimate | None:
         """The covariance estimate set with :meth:`with_covariance` (``None``: classical).
 
         Examples
@@ -213,7 +215,7 @@ class LinearFit:
         """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
         return "classical" if self._vcov is None else self._vcov.label
 
-    def evaluate_covariance(self, covariance: object = None) -> covmod.CovarianceEstimate:
+    def evaluate_covariance(self, covariance: object = None) -> CovarianceEstimate:
         """The covariance estimate a test with ``covariance=`` uses on this fit.
 
         Parameters
@@ -230,7 +232,7 @@ class LinearFit:
         """
         if covariance is None and self._vcov is not None:
             return self._vcov
-        return covmod.evaluate(self, covariance)
+        return evaluate(self, covariance)
 
     def with_covariance(self, covariance: object) -> LinearFit:
         """This fit with another default covariance estimator, evaluated once for every test.
@@ -260,7 +262,7 @@ class LinearFit:
         >>> robust.wald(lc.coef("staffing") == 0).df_den
         39.0
         """
-        return replace(self, _vcov=covmod.evaluate(self, covariance))
+        return replace(self, _vcov=evaluate(self, covariance))
 
     def covariance(self, covariance: object = None) -> pd.DataFrame:
         """Covariance matrix of the coefficients (NaN rows/columns for aliased ones).
@@ -349,7 +351,7 @@ class LinearFit:
         'normal'
         """
         check_level(level)
-        ref = covmod.check_reference(reference)
+        ref = check_reference(reference)
         vcov = self.evaluate_covariance(covariance)
         dfree = vcov.df_den if ref == "F" else np.inf
         dist = stats.t(dfree) if ref == "F" else stats.norm()
@@ -501,14 +503,14 @@ class LinearFit:
         ('chi2', inf, 'HC3')
         """
         vcov = self.evaluate_covariance(covariance)
-        ref = covmod.check_reference(reference)
+        ref = check_reference(reference)
         c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
         root = vcov.root(cu[:, sol.kept])
         est = cu[:, sol.kept] @ sol.theta
-        covmod.check_rank(root, analysis.independent, labels, vcov)
+        check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
-        dist, stat, df_den, p_value = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
+        dist, stat, df_den, p_value = reference_result(wc.quad, wc.rank, vcov.df_den, ref)
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
