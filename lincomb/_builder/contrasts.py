@@ -55,6 +55,8 @@ from lincomb._builder.restriction import RestrictionSystem, _fmt_num, _is_number
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
+    InternalError,
+    RestrictionSyntaxError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -92,7 +94,7 @@ def register_report(name: str, func: Callable[..., object]) -> None:
     >>> register_report("partition", contrast_reports.partition)  # what importing lincomb does
     """
     if name not in ("orthogonality", "partition"):
-        raise ValueError(f"unknown contrast report {name!r}; 'orthogonality' or 'partition'.")
+        raise InternalError(f"unknown contrast report {name!r}; 'orthogonality' or 'partition'.")
     _REPORTS[name] = func
 
 
@@ -113,7 +115,7 @@ def _check_at(values: Mapping[str, Any]) -> tuple[tuple[str, Any], ...]:
     out = []
     for key, val in values.items():
         if not isinstance(key, str) or not key:
-            raise TypeError(f"at() takes variable names as keywords, got {key!r}.")
+            raise RestrictionSyntaxError(f"at() takes variable names as keywords, got {key!r}.")
         if isinstance(val, (list, tuple, set, np.ndarray, pd.Series)):
             raise ContrastError(
                 f"at({key}=...) takes one value, got {val!r}. To average over the levels of a"
@@ -180,7 +182,7 @@ class LevelContrasts(_Item):
         """
         for v in variables:
             if not isinstance(v, str) or not v:
-                raise TypeError(f"averaging() takes variable names, got {v!r}.")
+                raise RestrictionSyntaxError(f"averaging() takes variable names, got {v!r}.")
         return replace(self, averaged=tuple(dict.fromkeys(self.averaged + variables)))
 
     def __eq__(self, other: object) -> LevelContrasts:  # type: ignore[override]
@@ -189,10 +191,10 @@ class LevelContrasts(_Item):
         return replace(self, target=float(other))  # type: ignore[arg-type]
 
     def __ne__(self, other: object) -> bool:
-        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
-        raise TypeError(
+        raise RestrictionSyntaxError(
             "level contrasts have no truth value: combine them with '&' and test them with a"
             " fit, e.g. fit.wald(lc.levels('g').pairwise())."
         )
@@ -370,7 +372,7 @@ class LevelMeans:
         averaging: tuple[str, ...] = (),
     ) -> None:
         if not isinstance(factor, str) or not factor:
-            raise TypeError(f"levels() needs a factor name, got {factor!r}.")
+            raise RestrictionSyntaxError(f"levels() needs a factor name, got {factor!r}.")
         self._factor = factor
         self._order = None if order is None else tuple(order)
         self._at = at
@@ -413,7 +415,7 @@ class LevelMeans:
         """
         for v in variables:
             if not isinstance(v, str) or not v:
-                raise TypeError(f"averaging() takes variable names, got {v!r}.")
+                raise RestrictionSyntaxError(f"averaging() takes variable names, got {v!r}.")
         merged = tuple(dict.fromkeys(self._averaging + variables))
         return LevelMeans(self._factor, self._order, self._at, merged)
 

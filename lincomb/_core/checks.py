@@ -14,7 +14,7 @@ from lincomb.errors import ParameterError
 __all__ = ["check_level", "check_tolerance"]
 
 
-def check_level(level: float, what: str = "level") -> float:
+def check_level(level: float, what: str = "level", example: str = "0.95 for 95%") -> float:
     """Return ``level`` as a float if it lies in (0, 1), else raise.
 
     Raises
@@ -36,7 +36,7 @@ def check_level(level: float, what: str = "level") -> float:
     except (TypeError, ValueError):
         value = math.nan
     if not (0 < value < 1):
-        raise ParameterError(f"{what} must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        raise ParameterError(f"{what} must be in (0, 1), got {level!r}; e.g. {example}.")
     return value
 
 

@@ -44,7 +44,7 @@ from scipy import sparse
 from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
 from lincomb._covariance.few_clusters import warn_few_clusters
-from lincomb.errors import CovarianceInputError
+from lincomb.errors import CovarianceInputError, SingularFactorError
 
 __all__ = [
     "LEVERAGE_TOL",
@@ -135,7 +135,7 @@ def _working(rs: Array, xc: Array) -> Array:
     if rs.shape[0] == 0:
         return np.zeros((0, xc.shape[0]))
     if np.any(np.diagonal(rs) == 0):  # pragma: no cover - kept columns have a nonzero pivot
-        raise np.linalg.LinAlgError("singular factor: a zero on the diagonal")
+        raise SingularFactorError("singular factor: a zero on the diagonal")
     xf = np.asfortranarray(xc)
     return np.asarray(sla.blas.dtrsm(1.0, rs, xf, side=1, overwrite_b=1)).T
 

@@ -830,6 +830,7 @@ class ManyFit:
         """
         if family not in ("test", "all"):
             raise InputError(f"family must be 'test' or 'all', got {family!r}.")
+        check_level(level)
         if isinstance(tests, Mapping):
             items = [(str(k), v) for k, v in tests.items()]
         else:

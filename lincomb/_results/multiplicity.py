@@ -160,7 +160,7 @@ def adjust_pvalues(p: ArrayLike, method: str = "holm", *, rate: float = 0.05) ->
     [0.03, 0.04, 0.04]
     """
     key = _canonical(method, P_METHODS, "p-value")
-    check_level(rate, "rate")
+    check_level(rate, "rate", "0.05")
     try:
         pv = np.array(p, dtype=np.float64, copy=True)
     except (TypeError, ValueError):
