@@ -186,9 +186,9 @@ class LevelContrasts(_Item):
         return replace(self, averaged=tuple(dict.fromkeys(self.averaged + variables)))
 
     def __eq__(self, other: object) -> LevelContrasts:  # type: ignore[override]
-        if not _is_number(other) or not np.isfinite(float(other)):  # type: ignore[arg-type]
+        if not _is_number(other) or not np.isfinite(float(other)):
             return NotImplemented
-        return replace(self, target=float(other))  # type: ignore[arg-type]
+        return replace(self, target=float(other))
 
     def __ne__(self, other: object) -> bool:
         raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")

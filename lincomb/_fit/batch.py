@@ -47,7 +47,9 @@ def _is_restriction(obj: object) -> bool:
 def _from_restrictions(
     fit: LinearFit, items: Sequence[object]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], tuple[tuple[str, ...], ...]]:
-    cs, ds, labels = [], [], []
+    cs: list[NDArray[np.float64]] = []
+    ds: list[NDArray[np.float64]] = []
+    labels: list[tuple[str, ...]] = []
     for i, obj in enumerate(items):
         try:
             c, d, lab = fit.resolve(obj)
@@ -150,6 +152,7 @@ def _raise_invalid(
         )
     if core.not_estimable:
         sol = fit.solution
+        assert res.matrix is not None  # a batch always keeps its stacked matrix
         cu = sol.to_working(res.matrix)
         parts = []
         for s, rows in list(core.not_estimable.items())[:_SHOWN]:
@@ -262,7 +265,7 @@ def wald_batch(
         statistic=stat,
         df_num=q,
         df_den=df_den,
-        p_value=p_value,
+        p_value=np.asarray(p_value, dtype=np.float64),
         status=tuple(status),
         redundant=core.dependencies,
         names=tuple(fit.names),

@@ -186,7 +186,7 @@ def _array_source(
                 " responses.reindex(data.index)) or pass the responses as column names of data."
             )
         names = _unique_names(
-            y.columns if response_names is None else response_names, "response names"
+            list(y.columns) if response_names is None else response_names, "response names"
         )
         if len(names) != y.shape[1]:
             raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")
@@ -289,9 +289,9 @@ def _fdr(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.float64
     return out, _canonical(method, P_METHODS, "p-value")
 
 
-def _repeat(value: str, r: int) -> pd.Categorical:
+def _repeat(value: str, r: int) -> pd.Categorical[str]:
     """A column holding one label ``r`` times (categorical: cheap for many rows)."""
-    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=[value])
+    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=pd.Index([value]))
 
 
 @dataclass(frozen=True)
@@ -367,7 +367,7 @@ class ManyWaldTest:
         >>> res.row_p_values().shape
         (6, 3)
         """
-        return 2 * stats.t.sf(np.abs(self.t), self.df_den[:, None])
+        return np.asarray(2 * stats.t.sf(np.abs(self.t), self.df_den[:, None]), dtype=np.float64)
 
     def adjusted(self, method: str | None = "benjamini-hochberg") -> NDArray[np.float64]:
         """The F p-values adjusted across responses (NaN where there is no test).
@@ -407,7 +407,7 @@ class ManyWaldTest:
         (18, 5)
         """
         check_level(level)
-        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
+        q = np.asarray(stats.t.ppf(0.5 + level / 2, self.df_den))[:, None]
         r, m = self.estimate.shape
         return pd.DataFrame(
             {
@@ -486,7 +486,7 @@ class ManyWaldTest:
         name = "none"
         for i in range(m):
             adj[:, i], name = _fdr(pr[:, i], fdr)
-        q = stats.t.ppf(0.5 + level / 2, self.df_den)[:, None]
+        q = np.asarray(stats.t.ppf(0.5 + level / 2, self.df_den))[:, None]
         role = np.array(
             ["redundant" if i in self.redundant else "independent" for i in range(m)],
             dtype=object,
@@ -1076,7 +1076,9 @@ def _assemble(
         sigma=pd.Series(sigma, index=idx, name="sigma"),
         rank=pd.Series(rank, index=idx, name="rank"),
         status=pd.Series(
-            pd.Categorical.from_codes(status, categories=STATUSES), index=idx, name="status"
+            pd.Categorical.from_codes(status, categories=pd.Index(STATUSES)),
+            index=idx,
+            name="status",
         ),
         aliased=lf.aliased,
         n_dropped=len(design.dropped),
@@ -1186,7 +1188,7 @@ def fit_many(
         if (positions < 0).any() or not data.index.is_unique:
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
     if as_names:
-        cols = data.columns.get_indexer(list(names))
+        cols = data.columns.get_indexer(pd.Index(list(names)))
         src = _Responses(names, lambda c: data.iloc[:, cols[c]], len(data))
         frame = data.drop(columns=list(names))
     else:

@@ -56,15 +56,23 @@ def _fit_rows(f: LinearFit) -> list[list[str]]:
     try:
         frame = f.coef_frame()
     except Exception:  # noqa: BLE001 - a degenerate fit still prints its estimates
-        return [[n, _num(v), "", "", ""] for n, v in f.coefficients.items()]
+        return [[n, _num(v), "", "", ""] for n, v in zip(f.names, f.coefficients, strict=True)]
     rows = []
-    for r in frame.itertuples():
-        if r.status == "aliased":
-            rows.append([r.coefficient, "aliased", "", "", ""])
+    for r in frame.to_dict("records"):
+        if r["status"] == "aliased":
+            rows.append([str(r["coefficient"]), "aliased", "", "", ""])
         else:
             # identified only with the aliased columns fixed at 0: say so beside the numbers
-            name = r.coefficient + (" (not estimable)" if r.status == "not estimable" else "")
-            rows.append([name, _num(r.estimate), _num(r.std_error), _num(r.t), _p(r.p_value)])
+            note = " (not estimable)" if r["status"] == "not estimable" else ""
+            rows.append(
+                [
+                    str(r["coefficient"]) + note,
+                    _num(float(r["estimate"])),
+                    _num(float(r["std_error"])),
+                    _num(float(r["t"])),
+                    _p(float(r["p_value"])),
+                ]
+            )
     return rows
 
 
@@ -144,7 +152,11 @@ def _restricted_parts(r: RestrictedFit) -> tuple[str, list[list[str]]]:
         f" residual df = {r.df_resid}; sigma = {r.sigma:.6g}"
     )
     se = r.std_errors()
-    rows = [[n, _num(v), _num(se[n])] for n, v in r.coefficients.items()]
+    names = [str(n) for n in r.coefficients.index]
+    rows = [
+        [n, _num(float(v)), _num(float(s))]
+        for n, v, s in zip(names, r.coefficients, se.loc[names], strict=True)
+    ]
     return head, rows
 
 
