@@ -51,7 +51,14 @@ from numpy.typing import NDArray
 from lincomb._builder.level_rows import Factor, find_factor, level_rows
 from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe, build_weights
 from lincomb._builder.resolver import ModelResolver
-from lincomb._builder.restriction import RestrictionSystem, _fmt_num, _is_number, _Item, as_system
+from lincomb._builder.restriction import (
+    Resolver,
+    RestrictionSystem,
+    _fmt_num,
+    _is_number,
+    _Item,
+    as_system,
+)
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
@@ -229,7 +236,7 @@ class LevelContrasts(_Item):
         x = level_rows(resolver, fac, self.at_values, self.averaged, bool(sums.any()))
         return fac, w, w @ x, labels
 
-    def rows(self, index: Any) -> Iterator[tuple[Array, float, str]]:
+    def rows(self, index: Resolver) -> Iterator[tuple[Array, float, str]]:
         """Yield ``(row of C, d, label)`` per contrast, resolved through a fit's resolver.
 
         Examples
@@ -432,7 +439,7 @@ class LevelMeans:
         """
         return self._make(Recipe("pairwise"))
 
-    def versus(self, reference: Any) -> LevelContrasts:
+    def versus(self, reference: object) -> LevelContrasts:
         """Each other level's mean minus the mean of ``reference``.
 
         Examples

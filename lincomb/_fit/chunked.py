@@ -44,6 +44,7 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
+from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import EncodedRows, FormulaEncoder, require_response
@@ -471,7 +472,7 @@ def covariance_pass(
     covariance: object,
     *,
     progress: Callable[[ChunkProgress], None] | None = None,
-) -> Any:
+) -> CovarianceEstimate:
     """Evaluate a row-based covariance estimator on a chunked fit with a second pass.
 
     Parameters

@@ -46,6 +46,7 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
+from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._fit.chunked import FrameRows, _check_options
 from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
@@ -509,7 +510,7 @@ def covariance_pass(
     *,
     split_every: int = DEFAULT_SPLIT_EVERY,
     scheduler: Any = None,
-) -> Any:
+) -> CovarianceEstimate:
     """Evaluate a row-based covariance estimator on a Dask fit with a second distributed pass.
 
     Parameters

@@ -168,7 +168,7 @@ class PlannedDesign:
 
 
 def planned_design(
-    source: Any,
+    source: PlannedDesign | LinearFit | str | ArrayLike | pd.DataFrame,
     data: pd.DataFrame | None = None,
     *,
     weights: str | ArrayLike | None = None,

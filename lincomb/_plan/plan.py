@@ -23,7 +23,6 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -571,7 +570,7 @@ class PowerPlan:
 
 
 def power_plan(
-    design: Any, restrictions: object, *, sigma: float, alpha: float = 0.05
+    design: PlannedDesign | LinearFit, restrictions: object, *, sigma: float, alpha: float = 0.05
 ) -> PowerPlan:
     """Set up power calculations for the Wald F test of a restriction system.
 
