@@ -190,8 +190,12 @@ def intervals(
     ------
     OptionalDependencyError
         matplotlib is not installed.
-    ValueError
-        ``level`` is not in (0, 1), or ``simultaneous`` does not match the test's rows.
+    ParameterError
+        ``level`` is not in (0, 1).
+    InputError
+        ``simultaneous`` does not match the test's rows.
+    ArgumentTypeError
+        ``simultaneous`` is none of the accepted kinds.
     TypeError
         ``simultaneous`` is of another kind.
 

@@ -138,7 +138,41 @@ def _fmt_num(v: float) -> str:
     return f"{v:.12g}"
 
 
-class Expr:
+class _EqualitiesOnly:
+    """``==`` builds restrictions; ``!=``, orderings and truth values raise and say what to write.
+
+    Shared by :class:`Expr` and :class:`TermRef`.
+    """
+
+    __slots__ = ()
+
+    def __ne__(self, other: object) -> bool:
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
+
+    def __bool__(self) -> bool:
+        raise RestrictionSyntaxError(_BOOL_MSG)
+
+    def __lt__(self, other: object) -> bool:
+        raise _no_order("<")
+
+    def __le__(self, other: object) -> bool:
+        raise _no_order("<=")
+
+    def __gt__(self, other: object) -> bool:
+        raise _no_order(">")
+
+    def __ge__(self, other: object) -> bool:
+        raise _no_order(">=")
+
+
+def _no_order(op: str) -> RestrictionSyntaxError:
+    return RestrictionSyntaxError(
+        f"'{op}' builds nothing: restrictions are equalities written with '==' "
+        "(a one-sided question is read from a row's estimate and interval)."
+    )
+
+
+class Expr(_EqualitiesOnly):
     """A linear expression ``Σ wᵢ·βᵢ + k`` in named coefficients.
 
     Build one with :func:`coef` or by indexing a :func:`term`; combine with ``+``, ``-``,
@@ -231,30 +265,6 @@ class Expr:
             return NotImplemented
         return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
 
-    def __ne__(self, other: object) -> bool:
-        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
-
-    def __bool__(self) -> bool:
-        raise RestrictionSyntaxError(_BOOL_MSG)
-
-    def _no_order(self, op: str) -> RestrictionSyntaxError:
-        return RestrictionSyntaxError(
-            f"'{op}' builds nothing: restrictions are equalities written with '==' "
-            "(a one-sided question is read from a row's estimate and interval)."
-        )
-
-    def __lt__(self, other: object) -> bool:
-        raise self._no_order("<")
-
-    def __le__(self, other: object) -> bool:
-        raise self._no_order("<=")
-
-    def __gt__(self, other: object) -> bool:
-        raise self._no_order(">")
-
-    def __ge__(self, other: object) -> bool:
-        raise self._no_order(">=")
-
     # -- presentation -------------------------------------------------------------------
     def text(self) -> str:
         """The expression as algebra in coefficient names.
@@ -321,7 +331,7 @@ def coef(name: str) -> Expr:
 
 
 @dataclass(frozen=True, eq=False)
-class TermRef:
+class TermRef(_EqualitiesOnly):
     """All the columns of one model term (a factor, an interaction or a numeric variable).
 
     Index it by level to get one coefficient; compare it with a number to restrict every one of
@@ -349,30 +359,6 @@ class TermRef:
         if not _is_number(other):
             return NotImplemented
         return RestrictionSystem((_TermRows(self.name, float(other)),))
-
-    def __ne__(self, other: object) -> bool:
-        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
-
-    def __bool__(self) -> bool:
-        raise RestrictionSyntaxError(_BOOL_MSG)
-
-    def _no_order(self, op: str) -> RestrictionSyntaxError:
-        return RestrictionSyntaxError(
-            f"'{op}' builds nothing: restrictions are equalities written with '==' "
-            "(a one-sided question is read from a row's estimate and interval)."
-        )
-
-    def __lt__(self, other: object) -> bool:
-        raise self._no_order("<")
-
-    def __le__(self, other: object) -> bool:
-        raise self._no_order("<=")
-
-    def __gt__(self, other: object) -> bool:
-        raise self._no_order(">")
-
-    def __ge__(self, other: object) -> bool:
-        raise self._no_order(">=")
 
     def __repr__(self) -> str:
         return f"<TermRef: {self.name}>"

@@ -30,7 +30,8 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._core import noncentral
-from lincomb._fit.linear import LinearFit, check_rows
+from lincomb._fit.linear import LinearFit
+from lincomb._fit.restriction_rows import check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
 from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.results import DetectableEffect, PowerCurve, PowerResult, SampleSize
