@@ -23,7 +23,7 @@ from lincomb.errors import (
     UnknownCoefficientError,
 )
 
-__all__ = ["Factor", "find_factor", "level_index", "level_rows"]
+__all__ = ["Factor", "find_factor", "level_index", "level_rows", "require_level"]
 
 Array = NDArray[np.float64]
 
@@ -213,3 +213,19 @@ def level_rows(
             ) from None
         out[:, col] = x[:, j]
     return out
+
+
+def require_level(key: object, fac: Factor, what: str) -> int:
+    """Position of level ``key`` of ``fac``; an unknown level raises, naming ``what`` gave it.
+
+    Raises
+    ------
+    UnknownCoefficientError
+        ``key`` is not one of the factor's levels (the levels are listed).
+    """
+    j = level_index(key, fac.levels)
+    if j is None:
+        raise UnknownCoefficientError(
+            f"{what}: {key!r} is not a level of {fac.name!r}; levels: {list(fac.labels)}."
+        )
+    return j

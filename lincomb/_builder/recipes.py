@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb._builder.level_rows import Factor, level_index
+from lincomb._builder.level_rows import Factor, level_index, require_level
 from lincomb._builder.polynomials import orthogonal_polynomials
 from lincomb._builder.restriction import _fmt_num, _is_number
 from lincomb.errors import (
@@ -90,12 +90,7 @@ def _weights_row(row: Any, fac: Factor, i: int) -> Array:
     if isinstance(row, Mapping):
         w = np.zeros(k)
         for key, val in row.items():
-            j = level_index(key, fac.levels)
-            if j is None:
-                raise UnknownCoefficientError(
-                    f"weight row {i}: {key!r} is not a level of {fac.name!r}; levels: "
-                    f"{list(fac.labels)}."
-                )
+            j = require_level(key, fac, f"weight row {i}")
             if not _is_number(val):
                 raise ContrastWeightsError(
                     f"weight row {i}: weight {val!r} for {key!r} is not a number."
@@ -169,13 +164,7 @@ def build_weights(recipe: Recipe, fac: Factor) -> tuple[Array, list[str]]:
         elif isinstance(values, Mapping):
             pos = np.full(k, np.nan)
             for key, val in values.items():
-                at = level_index(key, fac.levels)
-                if at is None:
-                    raise UnknownCoefficientError(
-                        f"trend value given for {key!r}, which is not a level of {name!r};"
-                        f" levels: {list(labs)}."
-                    )
-                pos[at] = float(val)
+                pos[require_level(key, fac, "trend values")] = float(val)
             if np.isnan(pos).any():
                 lacking = [labs[j] for j in np.flatnonzero(np.isnan(pos))]
                 raise ContrastWeightsError(f"trend values are missing for levels {lacking}.")

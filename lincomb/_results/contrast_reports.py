@@ -30,7 +30,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._builder.contrasts import LevelContrasts, level_weights, register_report
-from lincomb._builder.level_rows import Factor, level_index
+from lincomb._builder.level_rows import Factor, level_index, require_level
 from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe
 from lincomb._builder.resolver import ModelResolver
 from lincomb._results.format import _num, _p, _table_html, _table_text
@@ -38,7 +38,6 @@ from lincomb.errors import (
     ContrastWeightsError,
     NotOrthogonalError,
     RowsUnavailableError,
-    UnknownCoefficientError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -165,12 +164,7 @@ def _given_sizes(sizes: Mapping[Any, float] | Sequence[float], fac: Factor) -> A
     if isinstance(sizes, Mapping):
         n = np.full(k, np.nan)
         for key, val in sizes.items():
-            j = level_index(key, fac.levels)
-            if j is None:
-                raise UnknownCoefficientError(
-                    f"sizes names {key!r}, not a level of {fac.name!r}; levels: {list(fac.labels)}."
-                )
-            n[j] = float(val)
+            n[require_level(key, fac, "sizes")] = float(val)
     else:
         n = np.array(sizes, dtype=np.float64).reshape(-1)
     if n.size != k or not np.all(np.isfinite(n)) or np.any(n <= 0):
