@@ -23,7 +23,7 @@ from lincomb._builder.restriction import (
     from_matrix,
     term,
 )
-from lincomb._covariance.estimators import clustered, given, serial
+from lincomb._covariance.specs import clustered, given, serial
 from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
 from lincomb._fit.chunked import fit_array_chunks, fit_chunks
 from lincomb._fit.distributed import covariance_pass as dask_covariance_pass

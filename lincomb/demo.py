@@ -50,8 +50,8 @@ def main() -> None:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         print(f.wald(n == 0, covariance=clustered(by="farm")))
-    for w in caught:
-        print(f"note: {w.message}")
+    for note in caught:
+        print(f"note: {note.message}")
     print(
         "\nThese are invented data. A small p-value is not proof of an effect, and with only 10"
         " farms the cluster-robust test rests on few clusters."

@@ -8,6 +8,8 @@ working.  Messages name the offending term, row or value and say how to fix it.
 
 from __future__ import annotations
 
+import numpy as np
+
 __all__ = [
     "LincombError",
     "InputError",
@@ -37,6 +39,9 @@ __all__ = [
     "ContrastWeightsError",
     "NotOrthogonalError",
     "IntegrationAccuracyWarning",
+    "ArgumentTypeError",
+    "InternalError",
+    "SingularFactorError",
 ]
 
 
@@ -272,11 +277,13 @@ class OptionalDependencyError(LincombError, ImportError):
     """
 
 
-class ParameterError(LincombError, ValueError):
+class ParameterError(InputError):
     """A numeric setting is outside its valid range.
 
-    For example a residual standard deviation ``sigma <= 0``, a significance level outside
-    ``(0, 1)``, a target power outside ``(alpha, 1)`` or a replicate count below one.
+    For example a residual standard deviation ``sigma <= 0``, a significance or confidence
+    level outside ``(0, 1)``, a tolerance outside its range (``rank_tol``, ``tol``), a target
+    power outside ``(alpha, 1)`` or a replicate count below one.  A kind of
+    :class:`InputError`.
 
     Examples
     --------
@@ -453,4 +460,50 @@ class IntegrationAccuracyWarning(LincombWarning, RuntimeWarning):
     >>> import lincomb as lc
     >>> issubclass(lc.errors.IntegrationAccuracyWarning, RuntimeWarning)
     True
+    """
+
+
+class ArgumentTypeError(LincombError, TypeError):
+    """An argument is of a type the function does not take (the message lists what it takes).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> lc.plot.intervals(f.wald(lc.term("line") == 0), simultaneous=3)
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.ArgumentTypeError: simultaneous must be a method name such as 'max-t', ...
+    """
+
+
+class InternalError(LincombError, RuntimeError):
+    """An internal consistency check failed: a bug in lincomb, not in the input.
+
+    Raised where a state the code guarantees does not hold (a LAPACK argument error, a shipped
+    dataset that disagrees with its declared levels).  Please report it with the call that
+    raised it.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> issubclass(lc.errors.InternalError, RuntimeError)
+    True
+    """
+
+
+class SingularFactorError(LincombError, np.linalg.LinAlgError):
+    """A triangular factor has a zero on its diagonal, so no solve with it exists.
+
+    The factors lincomb keeps have nonzero pivots on their kept columns; the error guards the
+    low-level triangular solve against being handed anything else.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import upper_solve
+    >>> upper_solve(np.array([[1.0, 2.0], [0.0, 0.0]]), np.ones(2))
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.SingularFactorError: singular matrix: zero at diagonal 1
     """

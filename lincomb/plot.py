@@ -29,7 +29,7 @@ from numpy.typing import NDArray
 
 from lincomb._results.format import _p
 from lincomb._results.multiplicity import MultipleInference
-from lincomb.errors import OptionalDependencyError
+from lincomb.errors import ArgumentTypeError, InputError, OptionalDependencyError
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -88,7 +88,7 @@ def _root_figure(ax: Axes) -> Figure:
     """The figure an axes belongs to (the whole figure when the axes sit in a subfigure)."""
     fig = ax.get_figure(root=True)
     if fig is None:  # pragma: no cover - an axes is always made on a figure
-        raise ValueError("these axes belong to no figure; make them with fig.add_subplot().")
+        raise InputError("these axes belong to no figure; make them with fig.add_subplot().")
     return fig
 
 
@@ -99,7 +99,7 @@ def _short(label: str) -> str:
 def _family_bounds(fam: Any, labels: Sequence[str]) -> tuple[NDArray[np.float64], ...]:
     """Place a family's intervals on the rows of the test they came from (by label, in order)."""
     if fam.level is None:
-        raise ValueError(
+        raise InputError(
             f"the {fam.method!r} result holds adjusted p-values but no intervals; make"
             " simultaneous intervals with result.simultaneous(method, level) instead."
         )
@@ -109,7 +109,7 @@ def _family_bounds(fam: Any, labels: Sequence[str]) -> tuple[NDArray[np.float64]
     for k, label in enumerate(fam.labels):
         rows = [i for i in range(m) if labels[i] == label and i not in used]
         if not rows:
-            raise ValueError(
+            raise InputError(
                 f"simultaneous interval {k} ({label!r}) is not a row of this test; draw a"
                 " family made from the same test."
             )
@@ -132,14 +132,14 @@ def _simultaneous(
         return lo, hi, label or f"{spec.level:.0%} simultaneous ({spec.method})"
     if isinstance(spec, pd.DataFrame) and {"lower", "upper"} <= set(spec.columns):
         if len(spec) != m:
-            raise ValueError(
+            raise InputError(
                 f"simultaneous has {len(spec)} rows but the test has {m} restriction rows"
                 f" ({list(result.labels)}); give one interval per row, in the test's order."
             )
         lo = spec["lower"].to_numpy(dtype=np.float64)
         hi = spec["upper"].to_numpy(dtype=np.float64)
         return lo, hi, label or "simultaneous"
-    raise TypeError(
+    raise ArgumentTypeError(
         "simultaneous must be a method name such as 'max-t', 'bonferroni' or 'scheffe', a"
         " result of WaldTest.simultaneous(), or a DataFrame with columns 'lower' and 'upper'"
         f" (one row per restriction row); got {type(spec).__name__}."
@@ -190,8 +190,12 @@ def intervals(
     ------
     OptionalDependencyError
         matplotlib is not installed.
-    ValueError
-        ``level`` is not in (0, 1), or ``simultaneous`` does not match the test's rows.
+    ParameterError
+        ``level`` is not in (0, 1).
+    InputError
+        ``simultaneous`` does not match the test's rows.
+    ArgumentTypeError
+        ``simultaneous`` is none of the accepted kinds.
     TypeError
         ``simultaneous`` is of another kind.
 

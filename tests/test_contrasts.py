@@ -19,7 +19,8 @@ from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
 import lincomb as lc
-from lincomb._builder.contrasts import ModelResolver, orthogonal_polynomials
+from lincomb._builder.polynomials import orthogonal_polynomials
+from lincomb._builder.resolver import ModelResolver
 from lincomb._results.contrast_reports import PARTITION_COLUMNS
 from lincomb.errors import (
     ContrastError,

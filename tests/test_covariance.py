@@ -44,7 +44,8 @@ from hypothesis import strategies as st
 from scipy import stats
 
 import lincomb as lc
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.in_memory import automatic_lag
+from lincomb._covariance.specs import Given
 from lincomb._results.wald import ROW_COLUMNS
 from lincomb.errors import (
     CovarianceInputError,
@@ -391,7 +392,7 @@ def test_hac_time_column_orders_rows(cars):
 
 def test_automatic_lag_rule():
     # Newey and West (1994) rule of thumb floor(4 (n/100)^(2/9)); values computed by hand
-    assert [covmod.automatic_lag(n) for n in (16, 98, 100, 1000, 100_000)] == [2, 3, 4, 6, 18]
+    assert [automatic_lag(n) for n in (16, 98, 100, 1000, 100_000)] == [2, 3, 4, 6, 18]
     lake = load_r("LakeHuron")
     f = lc.fit("value ~ time", lake)
     res = f.wald(lc.coef("time") == 0, covariance=lc.serial())
@@ -449,7 +450,7 @@ def test_rank_deficient_design_under_every_estimator(cars, spec):
     full = lc.fit("mpg ~ wt + hp", cars)
     dup = lc.fit("mpg ~ wt + hp + I(2 * wt)", cars)
     assert dup.aliased == ("I(2 * wt)",)
-    if isinstance(spec, covmod.Given):
+    if isinstance(spec, Given):
         spec_full = lc.given(full.covariance("HC2"))
         v = dup.covariance("HC2")  # NaN in the aliased row and column, which are ignored
         spec_dup = lc.given(v)

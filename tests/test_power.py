@@ -32,7 +32,7 @@ from threadpoolctl import threadpool_limits
 import lincomb as lc
 from lincomb._builder.restriction import as_system
 from lincomb._model.design import design_from_formula
-from lincomb._plan.power import CURVE_COLUMNS, POWER_COLUMNS
+from lincomb._plan.results import CURVE_COLUMNS, POWER_COLUMNS
 from lincomb.errors import (
     DegenerateFitError,
     InconsistentRestrictionError,

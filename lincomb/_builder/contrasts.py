@@ -40,8 +40,6 @@ jointly zero (a coding-dependent statement once the term interacts with others) 
 
 from __future__ import annotations
 
-import itertools
-import re
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any, cast
@@ -50,12 +48,22 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._builder.restriction import RestrictionSystem, _fmt_num, _is_number, _Item, as_system
+from lincomb._builder.level_rows import Factor, find_factor, level_rows
+from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe, build_weights
+from lincomb._builder.resolver import ModelResolver
+from lincomb._builder.restriction import (
+    Resolver,
+    RestrictionSystem,
+    _fmt_num,
+    _is_number,
+    _Item,
+    as_system,
+)
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
-    LincombError,
-    UnknownCoefficientError,
+    InternalError,
+    RestrictionSyntaxError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -67,93 +75,11 @@ __all__ = [
     "levels",
     "LevelMeans",
     "LevelContrasts",
+    "level_weights",
     "register_report",
-    "ModelResolver",
-    "orthogonal_polynomials",
 ]
 
 Array = NDArray[np.float64]
-
-#: Weights count as summing to zero when ``|Σ w| <= ZERO_SUM_TOL · Σ |w|``.
-ZERO_SUM_TOL: float = 1e-10
-
-_DEGREE_NAMES = {1: "linear", 2: "quadratic", 3: "cubic", 4: "quartic", 5: "quintic"}
-
-
-# ---------------------------------------------------------------------------------------------
-# the resolver a fit hands to restriction items
-# ---------------------------------------------------------------------------------------------
-class ModelResolver:
-    """A fit's coefficient index plus its formula encoder, as seen by restriction items.
-
-    It has the methods of :class:`lincomb.restriction.Resolver` (delegated to the index) and an
-    ``encoder`` attribute (the fit's :class:`~lincomb._model.encoder.FormulaEncoder`, ``None``
-    for fits made from arrays) that :class:`LevelContrasts` uses to evaluate the model at chosen
-    levels.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> r = ModelResolver.of(f)
-    >>> r.column("line[T.L3]"), r.encoder is not None
-    (2, True)
-    """
-
-    def __init__(self, index: Any, encoder: Any = None) -> None:
-        self.index = index
-        self.names: tuple[str, ...] = tuple(index.names)
-        self.encoder = encoder
-
-    @classmethod
-    def of(cls, fit: LinearFit) -> ModelResolver:
-        """The resolver of a fit (works for fits made from arrays too).
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
-        >>> ModelResolver.of(f).names[:2]
-        ('Intercept', 'line[T.L2]')
-        """
-        design = fit._design
-        return cls(design.index, design.encoder)
-
-    def column(self, name: str) -> int:
-        """Position of the coefficient called ``name``.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
-        >>> ModelResolver.of(f).column("shift[T.night]")
-        5
-        """
-        return int(self.index.column(name))
-
-    def term_columns(self, term: str) -> tuple[int, ...]:
-        """Positions of every coefficient of a model term.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
-        >>> ModelResolver.of(f).term_columns("line")
-        (1, 2, 3)
-        """
-        return tuple(self.index.term_columns(term))
-
-    def level_column(self, term: str, key: tuple[str, ...]) -> int:
-        """Position of the coefficient of ``term`` at the level(s) ``key``.
-
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + shift", lc.datasets.fill_lines())
-        >>> ModelResolver.of(f).level_column("line", ("L3",))
-        2
-        """
-        return int(self.index.level_column(term, key))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -175,7 +101,7 @@ def register_report(name: str, func: Callable[..., object]) -> None:
     >>> register_report("partition", contrast_reports.partition)  # what importing lincomb does
     """
     if name not in ("orthogonality", "partition"):
-        raise ValueError(f"unknown contrast report {name!r}; 'orthogonality' or 'partition'.")
+        raise InternalError(f"unknown contrast report {name!r}; 'orthogonality' or 'partition'.")
     _REPORTS[name] = func
 
 
@@ -190,444 +116,15 @@ def _report(name: str) -> Callable[..., object]:
 
 
 # ---------------------------------------------------------------------------------------------
-# orthogonal polynomials
-# ---------------------------------------------------------------------------------------------
-def orthogonal_polynomials(values: Sequence[float] | Array, degree: int | None = None) -> Array:
-    """Orthonormal polynomial contrasts on levels placed at ``values``.
-
-    Parameters
-    ----------
-    values : sequence of float
-        Position of each level (``k`` distinct finite numbers), e.g. doses ``[0, 10, 30, 100]``.
-    degree : int, optional
-        Highest degree, ``1 <= degree <= k - 1`` (default ``k - 1``).
-
-    Returns
-    -------
-    q : (degree, k) ndarray
-        Row ``j`` holds the weights of the degree ``j + 1`` component: rows are orthonormal,
-        each sums to zero, and row ``j`` is a polynomial of degree ``j + 1`` in ``values`` with a
-        positive leading coefficient (so the linear row increases with ``values``).
-
-    Notes
-    -----
-    Householder QR of the Vandermonde matrix of the standardized values; the columns of ``Q``
-    after the first are the components.  Equal weight is given to each level (the classical
-    orthogonal polynomials of a balanced layout).
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> q = orthogonal_polynomials([1, 2, 3])
-    >>> np.round(q / np.abs(q).max(axis=1, keepdims=True), 12).tolist()
-    [[-1.0, 0.0, 1.0], [0.5, -1.0, 0.5]]
-    """
-    x = np.array(values, dtype=np.float64, copy=True).reshape(-1)
-    k = x.size
-    if k < 2:
-        raise ContrastWeightsError(f"a trend needs at least 2 level values, got {k}.")
-    if not np.all(np.isfinite(x)):
-        raise ContrastWeightsError(f"trend values must be finite, got {x.tolist()}.")
-    if np.unique(x).size != k:
-        raise ContrastWeightsError(
-            f"trend values must be distinct, got {x.tolist()}: two levels at the same position"
-            " cannot be told apart by a polynomial."
-        )
-    if degree is None:
-        degree = k - 1
-    if isinstance(degree, bool) or not isinstance(degree, (int, np.integer)):
-        raise ContrastWeightsError(f"degree must be an integer, got {degree!r}.")
-    if not 1 <= degree <= k - 1:
-        raise ContrastWeightsError(
-            f"degree {degree} is impossible with {k} levels: use 1 to {k - 1}."
-        )
-    z = (x - x.mean()) / x.std()
-    vander = np.vander(z, degree + 1, increasing=True)
-    q, r = np.linalg.qr(vander)
-    q = q * np.sign(np.diag(r))
-    return np.ascontiguousarray(q[:, 1:].T)
-
-
-# ---------------------------------------------------------------------------------------------
-# finding the factor and evaluating the model at its levels
-# ---------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class _Factor:
-    name: str
-    variable: str
-    levels: tuple[Any, ...]
-    labels: tuple[str, ...]
-
-
-def _model_vars(encoder: Any) -> set[str]:
-    out: set[str] = set()
-    for variables in encoder.term_variables().values():
-        out |= variables
-    return out
-
-
-def _squash(s: str) -> str:
-    return re.sub(r"\s+", "", s)
-
-
-def _level_index(value: Any, cats: Sequence[Any]) -> int | None:
-    for i, c in enumerate(cats):
-        try:
-            if value == c and not isinstance(value == c, np.ndarray):
-                return i
-        except Exception:  # noqa: BLE001 - incomparable types simply do not match
-            pass
-    sv = str(value)
-    for i, c in enumerate(cats):
-        if str(c) == sv:
-            return i
-    if isinstance(value, str):
-        try:
-            fv = float(value)
-        except ValueError:
-            return None
-        for i, c in enumerate(cats):
-            if _is_number(c) and float(c) == fv:
-                return i
-    return None
-
-
-def _find_factor(encoder: Any, name: str, order: Sequence[Any] | None) -> _Factor:
-    cats = encoder.categoricals()
-    wanted = _squash(name)
-    hit: tuple[str, tuple[Any, ...]] | None = None
-    for var, facs in cats.items():
-        for expr, levs in facs:
-            if _squash(expr) == wanted:
-                hit = (var, levs)
-    if hit is None and name in cats:
-        hit = (name, cats[name][0][1])
-    if hit is None:
-        idents = set(re.findall(r"[A-Za-z_][A-Za-z0-9_.]*", name))
-        found = sorted(idents & set(cats))
-        if len(found) == 1:
-            hit = (found[0], cats[found[0]][0][1])
-    if hit is None:
-        known = sorted({expr for facs in cats.values() for expr, _ in facs})
-        if name in _model_vars(encoder):
-            raise ContrastError(
-                f"{name!r} enters this model as a numeric variable, so it has no level means."
-                f" Write C({name}) in the formula to treat it as a factor. Factors: {known}"
-            )
-        raise UnknownCoefficientError(
-            f"no categorical factor {name!r} in this fit. Factors: {known}"
-            " (name one by its formula expression or its variable)."
-        )
-    var, levs = hit
-    if order is not None:
-        idx = []
-        for v in order:
-            i = _level_index(v, levs)
-            if i is None:
-                raise UnknownCoefficientError(
-                    f"level {v!r} in order= is not a level of {name!r}; levels: "
-                    f"{[str(x) for x in levs]}."
-                )
-            idx.append(i)
-        if sorted(idx) != list(range(len(levs))):
-            raise ContrastError(
-                f"order= must list every level of {name!r} once; got {[str(v) for v in order]}"
-                f" for levels {[str(x) for x in levs]}."
-            )
-        levs = tuple(levs[i] for i in idx)
-    return _Factor(name=name, variable=var, levels=levs, labels=tuple(str(v) for v in levs))
-
-
-def _level_rows(
-    resolver: Any,
-    factor: _Factor,
-    at: tuple[tuple[str, Any], ...],
-    averaging: tuple[str, ...],
-    whole_model: bool,
-) -> Array:
-    """``(k, p)``: the model row of each level mean (only the factor's terms unless whole)."""
-    encoder = resolver.encoder
-    var = factor.variable
-    cats = encoder.categoricals()
-    term_vars = encoder.term_variables()
-    model_vars = _model_vars(encoder)
-    pinned = dict(at)
-    for key in list(pinned) + list(averaging):
-        if key not in model_vars:
-            raise ContrastError(
-                f"{key!r} is not a variable of this model; its variables: {sorted(model_vars)}."
-            )
-        if key == var:
-            raise ContrastError(
-                f"{key!r} is the variable whose level means are compared; it cannot also be"
-                " fixed or averaged over."
-            )
-    both = sorted(set(pinned) & set(averaging))
-    if both:
-        raise ContrastError(f"{both} are both fixed with .holding() and averaged over; choose one.")
-    for key in averaging:
-        if key not in cats:
-            raise ContrastError(
-                f"cannot average over {key!r}: it is numeric in this model. Fix it with"
-                f" .holding({key}=value) instead."
-            )
-    terms = [t for t, tv in term_vars.items() if whole_model or var in tv]
-    needs: dict[str, list[str]] = {}
-    for t in terms:
-        for v in term_vars[t] - {var}:
-            needs.setdefault(v, []).append(t)
-    missing = sorted(v for v in needs if v not in pinned and v not in averaging)
-    if missing:
-        why = "; ".join(f"{v!r} (through {', '.join(needs[v])})" for v in missing)
-        what = "weights that do not sum to zero" if whole_model else "this contrast"
-        fix = ", ".join(f"{v}=..." for v in missing)
-        raise ContrastError(
-            f"the level means of {factor.name!r} under {what} depend on {why}."
-            f" Give values with .holding({fix})"
-            + (
-                " or average over categorical ones with .averaging(...)."
-                if any(v in cats for v in missing)
-                else "."
-            )
-        )
-    columns: dict[str, Any] = {}
-    for v in needs:
-        if v in pinned and v in cats:
-            levs = cats[v][0][1]
-            i = _level_index(pinned[v], levs)
-            if i is None:
-                raise UnknownCoefficientError(
-                    f"{v}={pinned[v]!r} is not a level of {v!r}; levels: {[str(x) for x in levs]}."
-                )
-            columns[v] = levs[i]
-        elif v in pinned:
-            val = pinned[v]
-            if not _is_number(val) or not np.isfinite(float(val)):
-                raise ContrastError(
-                    f"{v} is numeric in this model; give a finite number, not {val!r}."
-                )
-            columns[v] = float(val)
-    avg = [v for v in averaging if v in needs]
-    combos = list(itertools.product(*(cats[v][0][1] for v in avg))) or [()]
-    k = len(factor.levels)
-    g = len(combos)
-    frame = pd.DataFrame({var: [lev for lev in factor.levels for _ in range(g)]})
-    for v, val in columns.items():
-        frame[v] = [val] * (k * g)
-    for j, v in enumerate(avg):
-        frame[v] = [c[j] for _ in range(k) for c in combos]
-    where = f"at the levels of {factor.name!r}"
-    try:
-        grid, columns_of = encoder.encode_grid(frame, None if whole_model else terms, where)
-    except LincombError as exc:
-        raise ContrastError(str(exc)) from None
-    x = grid.reshape(k, g, -1).mean(axis=1)
-    out = np.zeros((k, len(resolver.names)))
-    for j, name in enumerate(columns_of):
-        try:
-            col = resolver.names.index(str(name))
-        except ValueError:
-            raise ContrastError(
-                f"the model's column {name!r} is not among the fit's coefficients; was the fit"
-                " built from this formula?"
-            ) from None
-        out[:, col] = x[:, j]
-    return out
-
-
-# ---------------------------------------------------------------------------------------------
-# recipes: weights on the levels
-# ---------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class _Recipe:
-    kind: str
-    args: tuple[Any, ...] = ()
-
-    def describe(self, name: str) -> str:
-        k = self.kind
-        if k == "pairwise":
-            return f"pairwise differences of {name} means"
-        if k == "versus":
-            return f"{name} means versus {self.args[0]}"
-        if k == "successive":
-            return f"successive differences of {name} means"
-        if k == "helmert":
-            side = "following" if self.args[0] else "preceding"
-            return f"each {name} mean versus the mean of the {side} ones"
-        if k == "trend":
-            degree, values = self.args
-            deg = "all degrees" if degree is None else f"up to degree {degree}"
-            vals = "" if values is None else f" (values {_values_text(values)})"
-            return f"{name} trend {deg}{vals}"
-        if k == "equal":
-            return f"all {name} means equal"
-        if k == "means":
-            return f"{name} means"
-        rows = self.args[0]
-        return f"{len(rows)} weighted combination(s) of {name} means"
-
-
-def _values_text(values: Any) -> str:
-    if isinstance(values, Mapping):
-        return ", ".join(f"{k}: {_fmt_num(float(v))}" for k, v in values.items())
-    return ", ".join(_fmt_num(float(v)) for v in values)
-
-
-def _ref(name: str, label: str) -> str:
-    return f"{name}[{label}]"
-
-
-def _combo_text(name: str, labels: Sequence[str], w: Array) -> str:
-    parts: list[str] = []
-    for lab, v in zip(labels, w, strict=True):
-        if v == 0:
-            continue
-        mag = abs(v)
-        body = _ref(name, lab) if mag == 1 else f"{_fmt_num(mag)}*{_ref(name, lab)}"
-        if not parts:
-            parts.append(body if v > 0 else f"-{body}")
-        else:
-            parts.append(f"{'+' if v > 0 else '-'} {body}")
-    return " ".join(parts)
-
-
-def _weights_row(row: Any, fac: _Factor, i: int) -> Array:
-    k = len(fac.levels)
-    if isinstance(row, Mapping):
-        w = np.zeros(k)
-        for key, val in row.items():
-            j = _level_index(key, fac.levels)
-            if j is None:
-                raise UnknownCoefficientError(
-                    f"weight row {i}: {key!r} is not a level of {fac.name!r}; levels: "
-                    f"{list(fac.labels)}."
-                )
-            if not _is_number(val):
-                raise ContrastWeightsError(
-                    f"weight row {i}: weight {val!r} for {key!r} is not a number."
-                )
-            w[j] += float(val)
-    else:
-        try:
-            w = np.array(row, dtype=np.float64, copy=True).reshape(-1)
-        except (TypeError, ValueError):
-            raise ContrastWeightsError(f"weight row {i} is not numeric: {row!r}.") from None
-        if w.size != k:
-            raise ContrastWeightsError(
-                f"weight row {i} has {w.size} entries but {fac.name!r} has {k} levels"
-                f" {list(fac.labels)}; give one weight per level or a mapping level -> weight."
-            )
-    if not np.all(np.isfinite(w)):
-        raise ContrastWeightsError(f"weight row {i} holds a non-finite weight: {w.tolist()}.")
-    if not w.any():
-        raise ContrastWeightsError(f"weight row {i} is all zeros; drop it.")
-    return w
-
-
-def _build(recipe: _Recipe, fac: _Factor) -> tuple[Array, list[str]]:
-    """Weights on the levels (m, k) and a label per row."""
-    k = len(fac.levels)
-    name, labs = fac.name, fac.labels
-    if k < 2:
-        raise ContrastError(f"{name!r} has a single level in this fit; nothing to compare.")
-    eye = np.eye(k)
-    kind = recipe.kind
-    rows: list[Array] = []
-    labels: list[str] = []
-    if kind == "pairwise":
-        for i, j in itertools.combinations(range(k), 2):
-            rows.append(eye[j] - eye[i])
-            labels.append(f"{_ref(name, labs[j])} - {_ref(name, labs[i])}")
-    elif kind in ("versus", "equal"):
-        r = 0
-        if kind == "versus":
-            found = _level_index(recipe.args[0], fac.levels)
-            if found is None:
-                raise UnknownCoefficientError(
-                    f"reference {recipe.args[0]!r} is not a level of {name!r}; levels:"
-                    f" {list(labs)}."
-                )
-            r = found
-        for i in range(k):
-            if i != r:
-                rows.append(eye[i] - eye[r])
-                labels.append(f"{_ref(name, labs[i])} - {_ref(name, labs[r])}")
-    elif kind == "successive":
-        for i in range(1, k):
-            rows.append(eye[i] - eye[i - 1])
-            labels.append(f"{_ref(name, labs[i])} - {_ref(name, labs[i - 1])}")
-    elif kind == "helmert":
-        following = recipe.args[0]
-        idx = range(k - 1) if following else range(1, k)
-        for i in idx:
-            others = list(range(i + 1, k)) if following else list(range(i))
-            w = eye[i] - eye[others].mean(axis=0)
-            rows.append(w)
-            if len(others) == 1:
-                labels.append(f"{_ref(name, labs[i])} - {_ref(name, labs[others[0]])}")
-            else:
-                inner = ", ".join(_ref(name, labs[o]) for o in others)
-                labels.append(f"{_ref(name, labs[i])} - mean({inner})")
-    elif kind == "trend":
-        degree, values = recipe.args
-        if values is None:
-            pos = np.arange(1.0, k + 1.0)
-        elif isinstance(values, Mapping):
-            pos = np.full(k, np.nan)
-            for key, val in values.items():
-                at = _level_index(key, fac.levels)
-                if at is None:
-                    raise UnknownCoefficientError(
-                        f"trend value given for {key!r}, which is not a level of {name!r};"
-                        f" levels: {list(labs)}."
-                    )
-                pos[at] = float(val)
-            if np.isnan(pos).any():
-                lacking = [labs[j] for j in np.flatnonzero(np.isnan(pos))]
-                raise ContrastWeightsError(f"trend values are missing for levels {lacking}.")
-        else:
-            pos = np.array(values, dtype=np.float64).reshape(-1)
-            if pos.size != k:
-                raise ContrastWeightsError(
-                    f"{pos.size} trend values for the {k} levels {list(labs)} of {name!r};"
-                    " give one value per level (in that order) or a mapping level -> value."
-                )
-        q = orthogonal_polynomials(pos, degree)
-        for d in range(q.shape[0]):
-            rows.append(q[d])
-            labels.append(f"{name} trend: {_DEGREE_NAMES.get(d + 1, f'degree {d + 1}')}")
-    elif kind == "means":
-        for i in range(k):
-            rows.append(eye[i])
-            labels.append(f"mean {_ref(name, labs[i])}")
-    elif kind == "weights":
-        given, given_labels, zero_sum = recipe.args
-        for i, row in enumerate(given):
-            w = _weights_row(row, fac, i)
-            total, size = float(w.sum()), float(np.abs(w).sum())
-            if zero_sum and abs(total) > ZERO_SUM_TOL * size:
-                raise ContrastWeightsError(
-                    f"weight row {i} ({_combo_text(name, labs, w)}) sums to {total:.6g}, not 0,"
-                    " so it compares no means: it also moves with the overall level. Fix the"
-                    " weights, or pass zero_sum=False to estimate a weighted mean on purpose."
-                )
-            rows.append(w)
-            labels.append(
-                str(given_labels[i]) if given_labels is not None else _combo_text(name, labs, w)
-            )
-    else:  # pragma: no cover - guarded by the constructors
-        raise ContrastError(f"unknown contrast kind {kind!r}")
-    return np.array(rows), labels
-
-
-# ---------------------------------------------------------------------------------------------
 # the public lazy objects
 # ---------------------------------------------------------------------------------------------
 def _check_held(values: Mapping[str, Any]) -> tuple[tuple[str, Any], ...]:
     out = []
     for key, val in values.items():
         if not isinstance(key, str) or not key:
-            raise TypeError(f"holding() takes variable names as keywords, got {key!r}.")
+            raise RestrictionSyntaxError(
+                f"holding() takes variable names as keywords, got {key!r}."
+            )
         if isinstance(val, (list, tuple, set, np.ndarray, pd.Series)):
             raise ContrastError(
                 f"holding({key}=...) takes one value, got {val!r}. To average over the levels of a"
@@ -671,7 +168,7 @@ class LevelContrasts(_Item):
     """
 
     factor: str
-    recipe: _Recipe
+    recipe: Recipe
     order: tuple[Any, ...] | None = None
     held: tuple[tuple[str, Any], ...] = ()
     averaged: tuple[str, ...] = ()
@@ -704,19 +201,19 @@ class LevelContrasts(_Item):
         """
         for v in variables:
             if not isinstance(v, str) or not v:
-                raise TypeError(f"averaging() takes variable names, got {v!r}.")
+                raise RestrictionSyntaxError(f"averaging() takes variable names, got {v!r}.")
         return replace(self, averaged=tuple(dict.fromkeys(self.averaged + variables)))
 
     def __eq__(self, other: object) -> LevelContrasts:  # type: ignore[override]
-        if not _is_number(other) or not np.isfinite(float(other)):  # type: ignore[arg-type]
+        if not _is_number(other) or not np.isfinite(float(other)):
             return NotImplemented
-        return replace(self, target=float(other))  # type: ignore[arg-type]
+        return replace(self, target=float(other))
 
     def __ne__(self, other: object) -> bool:
-        raise TypeError("'!=' builds nothing: a restriction is written with '=='.")
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
 
     def __bool__(self) -> bool:
-        raise TypeError(
+        raise RestrictionSyntaxError(
             "level contrasts have no truth value: combine them with '&' and test them with a"
             " fit, e.g. fit.wald(lc.levels('g').pairwise())."
         )
@@ -745,29 +242,13 @@ class LevelContrasts(_Item):
         return f"<LevelContrasts: {self.text()}>"
 
     # -- resolution ----------------------------------------------------------------------
-    def _factor(self, resolver: Any) -> _Factor:
-        encoder = getattr(resolver, "encoder", None)
-        if encoder is None:
-            raise ContrastError(
-                f"contrasts on the level means of {self.factor!r} need a fit made from a formula"
-                " (lc.fit); this fit has no factor information. Write the rows with lc.coef()"
-                " instead."
-            )
-        return _find_factor(encoder, self.factor, self.order)
-
-    def _weights(self, resolver: Any) -> tuple[_Factor, Array, list[str]]:
-        fac = self._factor(resolver)
-        w, labels = _build(self.recipe, fac)
-        suffix = _setting_text(self.held, self.averaged)
-        return fac, w, [lab + suffix for lab in labels]
-
-    def _matrix(self, resolver: Any) -> tuple[_Factor, Array, Array, list[str]]:
-        fac, w, labels = self._weights(resolver)
+    def _matrix(self, resolver: Any) -> tuple[Factor, Array, Array, list[str]]:
+        fac, w, labels = level_weights(self, resolver)
         sums = np.abs(w.sum(axis=1)) > ZERO_SUM_TOL * np.abs(w).sum(axis=1)
-        x = _level_rows(resolver, fac, self.held, self.averaged, bool(sums.any()))
+        x = level_rows(resolver, fac, self.held, self.averaged, bool(sums.any()))
         return fac, w, w @ x, labels
 
-    def rows(self, index: Any) -> Iterator[tuple[Array, float, str]]:
+    def rows(self, index: Resolver) -> Iterator[tuple[Array, float, str]]:
         """Yield ``(row of C, d, label)`` per contrast, resolved through a fit's resolver.
 
         Examples
@@ -792,7 +273,7 @@ class LevelContrasts(_Item):
         >>> lc.levels("line").helmert().weight_matrix(f).round(3).iloc[2].tolist()
         [-0.333, -0.333, -0.333, 1.0]
         """
-        fac, w, labels = self._weights(ModelResolver.of(fit))
+        fac, w, labels = level_weights(self, ModelResolver.of(fit))
         return pd.DataFrame(w, index=pd.Index(labels, name="contrast"), columns=list(fac.labels))
 
     def orthogonality(
@@ -852,6 +333,38 @@ class LevelContrasts(_Item):
         return cast("SumOfSquaresPartition", _report("partition")(self, fit))
 
 
+def level_weights(contrasts: LevelContrasts, resolver: Any) -> tuple[Factor, Array, list[str]]:
+    """The factor, the weights on its level means and the row labels of ``contrasts``.
+
+    ``resolver`` is a fit's :class:`~lincomb._builder.resolver.ModelResolver`; its formula
+    encoder finds the factor and its levels.
+
+    Raises
+    ------
+    ContrastError
+        The fit was made from arrays (no encoder), or the factor is not in its formula.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> fac, w, labels = level_weights(lc.levels("line").versus("L1"), ModelResolver.of(f))
+    >>> fac.labels, w[0].tolist(), labels[0]
+    (('L1', 'L2', 'L3', 'L4'), [-1.0, 1.0, 0.0, 0.0], 'line[L2] - line[L1]')
+    """
+    encoder = getattr(resolver, "encoder", None)
+    if encoder is None:
+        raise ContrastError(
+            f"contrasts on the level means of {contrasts.factor!r} need a fit made from a"
+            " formula (lc.fit); this fit has no factor information. Write the rows with"
+            " lc.coef() instead."
+        )
+    fac = find_factor(encoder, contrasts.factor, contrasts.order)
+    w, labels = build_weights(contrasts.recipe, fac)
+    suffix = _setting_text(contrasts.held, contrasts.averaged)
+    return fac, w, [lab + suffix for lab in labels]
+
+
 class LevelMeans:
     """The level means of one factor of a fit, to be compared by contrasts.
 
@@ -878,13 +391,13 @@ class LevelMeans:
         averaging: tuple[str, ...] = (),
     ) -> None:
         if not isinstance(factor, str) or not factor:
-            raise TypeError(f"levels() needs a factor name, got {factor!r}.")
+            raise RestrictionSyntaxError(f"levels() needs a factor name, got {factor!r}.")
         self._factor = factor
         self._order = None if order is None else tuple(order)
         self._held = held
         self._averaging = averaging
 
-    def _make(self, recipe: _Recipe) -> LevelContrasts:
+    def _make(self, recipe: Recipe) -> LevelContrasts:
         return LevelContrasts(
             factor=self._factor,
             recipe=recipe,
@@ -921,7 +434,7 @@ class LevelMeans:
         """
         for v in variables:
             if not isinstance(v, str) or not v:
-                raise TypeError(f"averaging() takes variable names, got {v!r}.")
+                raise RestrictionSyntaxError(f"averaging() takes variable names, got {v!r}.")
         merged = tuple(dict.fromkeys(self._averaging + variables))
         return LevelMeans(self._factor, self._order, self._held, merged)
 
@@ -936,9 +449,9 @@ class LevelMeans:
         >>> len(res.labels), res.df_test
         (6, 3)
         """
-        return self._make(_Recipe("pairwise"))
+        return self._make(Recipe("pairwise"))
 
-    def versus(self, reference: Any) -> LevelContrasts:
+    def versus(self, reference: object) -> LevelContrasts:
         """Each other level's mean minus the mean of ``reference``.
 
         Examples
@@ -948,7 +461,7 @@ class LevelMeans:
         >>> f.wald(lc.levels("line").versus("L2")).labels
         ('line[L1] - line[L2]', 'line[L3] - line[L2]', 'line[L4] - line[L2]')
         """
-        return self._make(_Recipe("versus", (reference,)))
+        return self._make(Recipe("versus", (reference,)))
 
     def successive(self) -> LevelContrasts:
         """Differences of neighbouring levels ``μ_{i+1} - μ_i`` in level order.
@@ -960,7 +473,7 @@ class LevelMeans:
         >>> f.wald(lc.levels("line").successive()).labels
         ('line[L2] - line[L1]', 'line[L3] - line[L2]', 'line[L4] - line[L3]')
         """
-        return self._make(_Recipe("successive"))
+        return self._make(Recipe("successive"))
 
     def helmert(self, following: bool = False) -> LevelContrasts:
         """Each level against the mean of the preceding levels (or of the following ones).
@@ -974,7 +487,7 @@ class LevelMeans:
         >>> f.wald(lc.levels("line").helmert()).labels[1]
         'line[L3] - mean(line[L1], line[L2])'
         """
-        return self._make(_Recipe("helmert", (bool(following),)))
+        return self._make(Recipe("helmert", (bool(following),)))
 
     def trend(
         self,
@@ -1010,7 +523,7 @@ class LevelMeans:
             vals = tuple(float(v) for v in values)
         elif isinstance(values, Mapping):
             vals = dict(values)
-        return self._make(_Recipe("trend", (degree, vals)))
+        return self._make(Recipe("trend", (degree, vals)))
 
     def equal(self) -> LevelContrasts:
         """All level means equal: ``k - 1`` rows ``μ_i - μ_1`` (a joint test of the factor).
@@ -1023,7 +536,7 @@ class LevelMeans:
         >>> bool(np.isclose(same.stat, f.wald(lc.term("line") == 0).stat))
         True
         """
-        return self._make(_Recipe("equal"))
+        return self._make(Recipe("equal"))
 
     def means(self) -> LevelContrasts:
         """The level means themselves (weights do not sum to zero: fix every other variable).
@@ -1035,7 +548,7 @@ class LevelMeans:
         >>> f.wald(lc.levels("line").averaging("shift").means() == 500).labels[0]
         'mean line[L1] averaged over shift'
         """
-        return self._make(_Recipe("means"))
+        return self._make(Recipe("means"))
 
     def weights(
         self,
@@ -1068,7 +581,7 @@ class LevelMeans:
             raise ContrastWeightsError(f"{len(labels)} labels for {len(rows)} weight rows.")
         frozen = tuple(dict(r) if isinstance(r, Mapping) else tuple(r) for r in rows)
         lab = None if labels is None else tuple(str(s) for s in labels)
-        return self._make(_Recipe("weights", (frozen, lab, bool(zero_sum))))
+        return self._make(Recipe("weights", (frozen, lab, bool(zero_sum))))
 
     def __repr__(self) -> str:
         return f"<LevelMeans: {self._factor}{_setting_text(self._held, self._averaging)}>"

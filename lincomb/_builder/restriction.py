@@ -138,7 +138,41 @@ def _fmt_num(v: float) -> str:
     return f"{v:.12g}"
 
 
-class Expr:
+class _EqualitiesOnly:
+    """``==`` builds restrictions; ``!=``, orderings and truth values raise and say what to write.
+
+    Shared by :class:`Expr` and :class:`TermRef`.
+    """
+
+    __slots__ = ()
+
+    def __ne__(self, other: object) -> bool:
+        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
+
+    def __bool__(self) -> bool:
+        raise RestrictionSyntaxError(_BOOL_MSG)
+
+    def __lt__(self, other: object) -> bool:
+        raise _no_order("<")
+
+    def __le__(self, other: object) -> bool:
+        raise _no_order("<=")
+
+    def __gt__(self, other: object) -> bool:
+        raise _no_order(">")
+
+    def __ge__(self, other: object) -> bool:
+        raise _no_order(">=")
+
+
+def _no_order(op: str) -> RestrictionSyntaxError:
+    return RestrictionSyntaxError(
+        f"'{op}' builds nothing: restrictions are equalities written with '==' "
+        "(a one-sided question is read from a row's estimate and interval)."
+    )
+
+
+class Expr(_EqualitiesOnly):
     """A linear expression ``Σ wᵢ·βᵢ + k`` in named coefficients.
 
     Build one with :func:`coef` or by indexing a :func:`term`; combine with ``+``, ``-``,
@@ -165,10 +199,11 @@ class Expr:
     # -- arithmetic ---------------------------------------------------------------------
     def _combine(self, other: object, sign: float) -> Expr | NotImplementedType:
         if isinstance(other, Expr):
+            rhs: Expr = other
             terms = dict(self._terms)
-            for k, v in other._terms.items():
+            for k, v in rhs._terms.items():
                 terms[k] = terms.get(k, 0.0) + sign * v
-            return Expr(terms, self._const + sign * other._const)
+            return Expr(terms, self._const + sign * rhs._const)
         if _is_number(other):
             if not np.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
@@ -230,30 +265,6 @@ class Expr:
             return NotImplemented
         return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
 
-    def __ne__(self, other: object) -> bool:
-        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
-
-    def __bool__(self) -> bool:
-        raise RestrictionSyntaxError(_BOOL_MSG)
-
-    def _no_order(self, op: str) -> RestrictionSyntaxError:
-        return RestrictionSyntaxError(
-            f"'{op}' builds nothing: restrictions are equalities written with '==' "
-            "(a one-sided question is read from a row's estimate and interval)."
-        )
-
-    def __lt__(self, other: object) -> bool:
-        raise self._no_order("<")
-
-    def __le__(self, other: object) -> bool:
-        raise self._no_order("<=")
-
-    def __gt__(self, other: object) -> bool:
-        raise self._no_order(">")
-
-    def __ge__(self, other: object) -> bool:
-        raise self._no_order(">=")
-
     # -- presentation -------------------------------------------------------------------
     def text(self) -> str:
         """The expression as algebra in coefficient names.
@@ -283,7 +294,16 @@ class Expr:
     def __repr__(self) -> str:
         return f"<Expr: {self.text()}>"
 
-    def _row(self, index: Resolver) -> NDArray[np.float64]:
+    def row(self, index: Resolver) -> NDArray[np.float64]:
+        """The expression's weights on a fit's coefficients (its constant left out).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> (2 * lc.coef("line[T.L2]") - lc.coef("line[T.L4]") + 1).row(index).tolist()
+        [0.0, 2.0, 0.0, -1.0]
+        """
         row = np.zeros(len(index.names))
         for ref, w in self._terms.items():
             row[ref.resolve(index)] += w
@@ -311,7 +331,7 @@ def coef(name: str) -> Expr:
 
 
 @dataclass(frozen=True, eq=False)
-class TermRef:
+class TermRef(_EqualitiesOnly):
     """All the columns of one model term (a factor, an interaction or a numeric variable).
 
     Index it by level to get one coefficient; compare it with a number to restrict every one of
@@ -339,30 +359,6 @@ class TermRef:
         if not _is_number(other):
             return NotImplemented
         return RestrictionSystem((_TermRows(self.name, float(other)),))
-
-    def __ne__(self, other: object) -> bool:
-        raise RestrictionSyntaxError("'!=' builds nothing: a restriction is written with '=='.")
-
-    def __bool__(self) -> bool:
-        raise RestrictionSyntaxError(_BOOL_MSG)
-
-    def _no_order(self, op: str) -> RestrictionSyntaxError:
-        return RestrictionSyntaxError(
-            f"'{op}' builds nothing: restrictions are equalities written with '==' "
-            "(a one-sided question is read from a row's estimate and interval)."
-        )
-
-    def __lt__(self, other: object) -> bool:
-        raise self._no_order("<")
-
-    def __le__(self, other: object) -> bool:
-        raise self._no_order("<=")
-
-    def __gt__(self, other: object) -> bool:
-        raise self._no_order(">")
-
-    def __ge__(self, other: object) -> bool:
-        raise self._no_order(">=")
 
     def __repr__(self) -> str:
         return f"<TermRef: {self.name}>"
@@ -447,7 +443,7 @@ class Restriction(_Item):
         >>> [(c.tolist(), d, label) for c, d, label in (lc.coef("line[T.L2]") == 1).rows(index)]
         [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
         """
-        row = self.expr._row(index)
+        row = self.expr.row(index)
         if not row.any():
             raise EmptyRestrictionError(
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"

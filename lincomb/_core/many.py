@@ -16,6 +16,7 @@ from numpy.typing import NDArray
 from lincomb._core.moments import Moments, _weighted_mean
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb.errors import InternalError
 
 __all__ = [
     "DesignFactor",
@@ -312,12 +313,12 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     if q and n:
         qr, tau, _work, info = sla.lapack.dgeqrf(a, overwrite_a=1)
         if info != 0:  # pragma: no cover - LAPACK argument error
-            raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
+            raise InternalError(f"LAPACK dgeqrf failed with info={info}")
         k = min(n, q)
         r[:k, :q] = np.triu(qr[:k])
         thin, _work, info = sla.lapack.dorgqr(qr[:, :k], tau[:k], overwrite_a=0)
         if info != 0:  # pragma: no cover - LAPACK argument error
-            raise RuntimeError(f"LAPACK dorgqr failed with info={info}")
+            raise InternalError(f"LAPACK dorgqr failed with info={info}")
     else:
         thin = np.zeros((n, 0))
     moments = Moments(

@@ -43,6 +43,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, special, stats
 
+from lincomb._core.checks import check_level, check_tolerance
 from lincomb.errors import InputError, IntegrationAccuracyWarning
 
 __all__ = [
@@ -427,8 +428,7 @@ _CHUNK: int = 2**15
 
 
 def _check_tol(tol: float, max_points: int) -> None:
-    if not (0 < float(tol) < 0.5):
-        raise InputError(f"tol must be in (0, 0.5), got {tol!r}.")
+    check_tolerance("tol", tol, 0.5)
     if int(max_points) < 1000:
         raise InputError(f"max_points must be at least 1000, got {max_points!r}.")
 
@@ -646,8 +646,7 @@ def max_abs_t_quantile(
     >>> round(c, 3), rep.routine                         # Šidák is exact for independent rows
     (2.388, 'equicorrelated quadrature')
     """
-    if not (0 < level < 1):
-        raise InputError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+    check_level(level)
     r = _check_corr(corr)
     d = _check_df(df)
     _check_tol(tol, max_points)

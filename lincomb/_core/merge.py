@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from lincomb._core.triangular import triangular_factor
+from lincomb.errors import IncompatibleFitError, InputError
 
 if TYPE_CHECKING:
     from lincomb._core.moments import Moments
@@ -42,7 +43,9 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
     True
     """
     if a.intercept != b.intercept or a.center.shape != b.center.shape:
-        raise ValueError("moments describe different designs (intercept or column count differ)")
+        raise IncompatibleFitError(
+            "moments describe different designs (intercept or column count differ)"
+        )
     wsum = a.weight_sum + b.weight_sum
     blocks = [a.r, b.r]
     center = a.center
@@ -167,5 +170,5 @@ def merge_tree(parts: Iterable[Moments]) -> Moments:
         merger.add(m)
     out = merger.result()
     if out is None:
-        raise ValueError("no moments to merge")
+        raise InputError("no moments to merge")
     return out

@@ -11,6 +11,8 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
+from lincomb.errors import InternalError, SingularFactorError
+
 __all__ = ["pow2_scale", "row_pivoted_factor", "safe_norm", "triangular_factor", "upper_solve"]
 
 Array = NDArray[np.float64]
@@ -28,7 +30,7 @@ def upper_solve(r: Array, b: Array, *, trans: bool = False) -> Array:
 
     Raises
     ------
-    numpy.linalg.LinAlgError
+    SingularFactorError
         A zero on the diagonal of ``R``.
 
     Notes
@@ -49,7 +51,7 @@ def upper_solve(r: Array, b: Array, *, trans: bool = False) -> Array:
     """
     if np.any(np.diagonal(r) == 0):
         i = int(np.flatnonzero(np.diagonal(r) == 0)[0])
-        raise np.linalg.LinAlgError(f"singular matrix: zero at diagonal {i}")
+        raise SingularFactorError(f"singular matrix: zero at diagonal {i}")
     vec = b.ndim == 1
     b2 = b[:, None] if vec else b
     if b2.size == 0:
@@ -93,7 +95,7 @@ def triangular_factor(a: Array, *, overwrite_a: bool = False) -> Array:
         return np.zeros((n, n))
     qr, _tau, _work, info = sla.lapack.dgeqrf(a, overwrite_a=1)
     if info != 0:  # pragma: no cover - LAPACK argument error
-        raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
+        raise InternalError(f"LAPACK dgeqrf failed with info={info}")
     r = np.zeros((n, n))
     k = min(m, n)
     r[:k] = np.triu(qr[:k])

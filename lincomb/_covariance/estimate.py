@@ -85,6 +85,20 @@ class CovarianceEstimate:
     _factor: Array | None = field(default=None, repr=False)
     _direct: Array | None = field(default=None, repr=False)
 
+    @property
+    def solution(self) -> core.Solution | None:
+        """The solution of the fit this estimate was evaluated on (it applies to no other).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> from lincomb._covariance.estimators import evaluate
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> evaluate(f, "HC3").solution is f.solution
+        True
+        """
+        return self._sol
+
     def root(self, cu_kept: Array) -> Array:
         """A matrix ``W`` with ``Cov(Cβ̂) = WᵀW`` for rows ``cu_kept`` (working, kept columns).
 
@@ -92,7 +106,7 @@ class CovarianceEstimate:
         --------
         >>> import numpy as np, lincomb as lc
         >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-        >>> sol = f._sol
+        >>> sol = f.solution
         >>> cu = sol.to_working(np.eye(5))[:, sol.kept]
         >>> from lincomb._covariance.estimators import evaluate
         >>> w = evaluate(f, "HC3").root(cu)

@@ -65,7 +65,8 @@ Tolerances
 
 Layout
 ------
-This module is the layer's entry point: :func:`evaluate`, and the names other layers use.
+This module is the layer's entry point, :func:`evaluate`; the names above live in the modules
+below, and other layers import them from there.
 
 * :mod:`~lincomb._covariance.specs`: what the user writes (strings, :func:`clustered`,
   :func:`serial`, :func:`given`) and :func:`as_estimator`;
@@ -91,62 +92,14 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from lincomb._covariance.estimate import (
-    COV_RANK_TOL,
-    EIGEN_TOL,
-    MEAT_RANK_TOL,
-    CovarianceEstimate,
-    check_rank,
-)
-from lincomb._covariance.few_clusters import FEW_CLUSTERS
-from lincomb._covariance.given import PSD_TOL, SYMMETRY_TOL
-from lincomb._covariance.in_memory import automatic_lag
-from lincomb._covariance.meats import LEVERAGE_TOL
-from lincomb._covariance.reference import check_reference, reference_result
-from lincomb._covariance.specs import (
-    HC_KINDS,
-    Classical,
-    Clustered,
-    Estimator,
-    Given,
-    Heteroskedastic,
-    Serial,
-    as_estimator,
-    clustered,
-    given,
-    serial,
-)
+from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.specs import as_estimator
 from lincomb.errors import IncompatibleFitError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = [
-    "HC_KINDS",
-    "FEW_CLUSTERS",
-    "LEVERAGE_TOL",
-    "EIGEN_TOL",
-    "MEAT_RANK_TOL",
-    "SYMMETRY_TOL",
-    "PSD_TOL",
-    "COV_RANK_TOL",
-    "Estimator",
-    "Classical",
-    "Heteroskedastic",
-    "Clustered",
-    "Serial",
-    "Given",
-    "CovarianceEstimate",
-    "clustered",
-    "serial",
-    "given",
-    "as_estimator",
-    "evaluate",
-    "automatic_lag",
-    "check_rank",
-    "check_reference",
-    "reference_result",
-]
+__all__ = ["evaluate"]
 
 
 def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
@@ -161,7 +114,7 @@ def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
     (<CovarianceEstimate: HC3; reference df 295>, True)
     """
     if isinstance(covariance, CovarianceEstimate):
-        if covariance._sol is not fit._sol:
+        if covariance.solution is not fit.solution:
             raise IncompatibleFitError(
                 f"this {covariance.label!r} covariance estimate belongs to another fit; pass the"
                 " estimator (e.g. 'HC3' or lc.clustered(...)) so it is computed on this fit."

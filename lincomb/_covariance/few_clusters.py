@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
+import inspect
 import os
-import sys
 import warnings
 from collections.abc import Sequence
 
@@ -42,9 +42,10 @@ def _user_stacklevel() -> int:
     """Stack level of the first frame outside this package (for warnings that point at the
     caller's line whichever public method led here)."""
     here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))  # the lincomb package
-    frame = sys._getframe(1)
+    current = inspect.currentframe()
+    frame = current.f_back if current is not None else None  # the caller's frame: level 1
     level = 1
     while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(here):
-        frame = frame.f_back  # type: ignore[assignment]
+        frame = frame.f_back
         level += 1
     return level

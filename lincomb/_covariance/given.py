@@ -31,7 +31,7 @@ PSD_TOL: float = 1e-8
 
 def given_estimate(fit: LinearFit, matrix: Any, df: float | None) -> CovarianceEstimate:
     """The estimate of a supplied matrix on ``fit``."""
-    sol = fit._sol
+    sol = fit.solution
     v = _given_block(fit, matrix)
     factor, _ = psd_factor(v)
     # the basic solution's kept coefficients map to working coordinates by θ = B β_kept
@@ -55,7 +55,7 @@ def _given_block(fit: LinearFit, matrix: Any) -> Array:
     """The supplied matrix on the kept coefficients (working order), validated."""
     names = list(fit.names)
     p = len(names)
-    sol = fit._sol
+    sol = fit.solution
     if isinstance(matrix, pd.DataFrame):
         idx = [str(i) for i in matrix.index]
         cols = [str(c) for c in matrix.columns]

@@ -54,7 +54,7 @@ def _over_rows(
     finish, on one BLAS thread when the fit is large (threads woken for small products cost
     more than the products on busy cores)."""
     x, y, w = fit_rows(fit)
-    rmap = RowMap.of(fit._sol)
+    rmap = RowMap.of(fit.solution)
     n = x.shape[0]
     step = max(_MIN_ROWS, BLOCK_ELEMENTS // max(rmap.kept.size, 1))
     on_main = threading.current_thread() is threading.main_thread()

@@ -44,7 +44,7 @@ from scipy import sparse
 from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
 from lincomb._covariance.few_clusters import warn_few_clusters
-from lincomb.errors import CovarianceInputError
+from lincomb.errors import CovarianceInputError, SingularFactorError
 
 __all__ = [
     "LEVERAGE_TOL",
@@ -135,7 +135,7 @@ def _working(rs: Array, xc: Array) -> Array:
     if rs.shape[0] == 0:
         return np.zeros((0, xc.shape[0]))
     if np.any(np.diagonal(rs) == 0):  # pragma: no cover - kept columns have a nonzero pivot
-        raise np.linalg.LinAlgError("singular factor: a zero on the diagonal")
+        raise SingularFactorError("singular factor: a zero on the diagonal")
     xf = np.asfortranarray(xc)
     return np.asarray(sla.blas.dtrsm(1.0, rs, xf, side=1, overwrite_b=1)).T
 
@@ -151,7 +151,7 @@ class _Meat:
     row_blocks = True
 
     def __init__(self, fit: Any) -> None:
-        self.sol: core.Solution = fit._sol
+        self.sol: core.Solution = fit.solution
         self.n_obs: int = int(fit.n_obs)
         self.k: int = int(self.sol.rank)
         self.df_error = float(fit.df_error)
@@ -170,7 +170,11 @@ class HeteroskedasticMeat(_Meat):
         self.kind = kind
 
     def block(
-        self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
+        self,
+        xc: Array,
+        resid: Array,
+        w: Array | None,
+        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
     ) -> Partial:
         """The block's ``Σ ω_i z_i z_iᵀ`` (HC1's factor is applied at the end)."""
         xc, resid = _weighted(xc, resid, w)
@@ -341,7 +345,11 @@ class SerialMeat(_Meat):
         return 1.0 - ell / (self.lag + 1.0)
 
     def block(
-        self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
+        self,
+        xc: Array,
+        resid: Array,
+        w: Array | None,
+        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
     ) -> Partial:
         """``Γ₀ + Σ_ℓ w_ℓ (Γ_ℓ + Γ_ℓᵀ)`` over the pairs of rows inside the block."""
         xc, resid = _weighted(xc, resid, w)

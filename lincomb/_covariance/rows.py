@@ -41,7 +41,7 @@ class RowMap:
     >>> x = np.column_stack([np.ones(5), np.arange(5.0)])
     >>> y = np.array([1.0, 3, 2, 5, 4])
     >>> f = lc.fit_arrays(x, y)
-    >>> xc, e = RowMap.of(f._sol).rows(x, y)
+    >>> xc, e = RowMap.of(f.solution).rows(x, y)
     >>> bool(np.allclose(e, y - x @ f.coefficients.to_numpy()))
     True
     >>> bool(np.allclose(xc[:, 1], np.arange(5.0) - 2))
@@ -76,9 +76,9 @@ class RowMap:
 
 def fit_rows(fit: LinearFit) -> tuple[Array, Array, Array | None]:
     """The design rows, responses and weights (or None) of an in-memory fit."""
-    design = fit._design
+    design = fit.design
     x = getattr(design, "x", None)
-    if x is None or x.shape[0] != fit._sol.n:
+    if x is None or x.shape[0] != fit.solution.n:
         raise RowsUnavailableError(
             "this robust covariance needs the rows of the fit (residuals and design rows), but"
             " this fit holds only summary statistics. Fit the data in memory (lc.fit or"
@@ -89,7 +89,7 @@ def fit_rows(fit: LinearFit) -> tuple[Array, Array, Array | None]:
 
 def row_values(fit: LinearFit, source: Any, what: str) -> tuple[NDArray[Any], str]:
     """Values of a per-row variable for the rows the fit used, and a name for it."""
-    design = fit._design
+    design = fit.design
     n = fit.n_obs
     rows = design.row_index
     dropped = fit.n_dropped
@@ -154,14 +154,14 @@ def _show(value: Any) -> Any:
     return value.item() if isinstance(value, np.generic) else value
 
 
-def _missing_at(fit: LinearFit, values: NDArray[Any]) -> NDArray[np.intp]:
+def _missing_at(values: NDArray[Any]) -> NDArray[np.intp]:
     return np.flatnonzero(pd.isna(values))
 
 
 def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
-    bad = _missing_at(fit, values)
+    bad = _missing_at(values)
     if bad.size:
-        row = _show(fit._design.row_index[int(bad[0])])
+        row = _show(fit.design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"cluster labels {name!r} are missing at row {row!r} ({bad.size} missing in all);"
             " give every row used a cluster (for example its own label) or drop those rows"
@@ -178,9 +178,9 @@ def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDAr
 
 
 def time_order(fit: LinearFit, values: NDArray[Any], name: str) -> NDArray[np.intp]:
-    bad = _missing_at(fit, values)
+    bad = _missing_at(values)
     if bad.size:
-        row = _show(fit._design.row_index[int(bad[0])])
+        row = _show(fit.design.row_index[int(bad[0])])
         raise CovarianceInputError(
             f"time order {name!r} is missing at row {row!r} ({bad.size} missing in all); every"
             " row used needs a time value."

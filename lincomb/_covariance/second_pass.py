@@ -65,10 +65,10 @@ class RowPass:
         else:
             assert isinstance(est, Heteroskedastic)
             meat = HeteroskedasticMeat(fit, est.kind)
-        fit._check_variance()
+        fit.check_variance()
         self.fit = fit
         self.meat = meat
-        self.rows = RowMap.of(fit._sol)
+        self.rows = RowMap.of(fit.solution)
 
     def block(
         self, x: Array, y: Array, w: Array | None, frame: pd.DataFrame | None, where: str

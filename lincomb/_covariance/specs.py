@@ -89,12 +89,12 @@ class Classical(Estimator):
     """
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
-        fit._check_variance()
+        fit.check_variance()
         return CovarianceEstimate(
             method="classical",
             label="classical",
             df_error=float(fit.df_error),
-            _sol=fit._sol,
+            _sol=fit.solution,
             _sigma=fit.sigma,
         )
 
@@ -124,7 +124,7 @@ class Heteroskedastic(Estimator):
             )
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
-        fit._check_variance()
+        fit.check_variance()
         return in_memory.heteroskedastic(fit, self.kind)
 
 
@@ -145,7 +145,7 @@ class Clustered(Estimator):
     df: float | None = None
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
-        fit._check_variance()
+        fit.check_variance()
         return in_memory.clustered(fit, self.by, self.small_sample, self.df)
 
 
@@ -168,7 +168,7 @@ class Serial(Estimator):
     df: float | None = None
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
-        fit._check_variance()
+        fit.check_variance()
         return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df)
 
 

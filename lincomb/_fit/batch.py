@@ -16,7 +16,8 @@ from scipy import special
 
 from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.estimate import COV_RANK_TOL, CovarianceEstimate
+from lincomb._covariance.reference import check_reference
 from lincomb._model.encoder import unused_level_hint
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
@@ -47,7 +48,9 @@ def _is_restriction(obj: object) -> bool:
 def _from_restrictions(
     fit: LinearFit, items: Sequence[object]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], tuple[tuple[str, ...], ...]]:
-    cs, ds, labels = [], [], []
+    cs: list[NDArray[np.float64]] = []
+    ds: list[NDArray[np.float64]] = []
+    labels: list[tuple[str, ...]] = []
     for i, obj in enumerate(items):
         try:
             c, d, lab = fit.resolve(obj)
@@ -126,7 +129,7 @@ def _more(n: int) -> str:
 
 
 def _raise_invalid(
-    fit: LinearFit, core: BatchCore, res: WaldBatch, estimate: covmod.CovarianceEstimate
+    fit: LinearFit, core: BatchCore, res: WaldBatch, estimate: CovarianceEstimate
 ) -> None:
     """Raise the single-system test's typed error, naming the system(s) and row(s)."""
     fix = " Or pass on_invalid='nan' to get the other systems' tests with these marked."
@@ -149,7 +152,8 @@ def _raise_invalid(
             + fix
         )
     if core.not_estimable:
-        sol = fit._sol
+        sol = fit.solution
+        assert res.matrix is not None  # a batch always keeps its stacked matrix
         cu = sol.to_working(res.matrix)
         parts = []
         for s, rows in list(core.not_estimable.items())[:_SHOWN]:
@@ -167,7 +171,7 @@ def _raise_invalid(
             + f". Aliased columns: {list(fit.aliased)}. Restate the row as a contrast that the"
             " data identify, or remove the aliasing from the design."
             + fix
-            + unused_level_hint(fit._design.encoder)
+            + unused_level_hint(fit.design.encoder)
         )
     if core.singular:
         parts = []
@@ -210,8 +214,8 @@ def wald_batch(
             f"on_invalid must be 'raise' (stop at an invalid system) or 'nan' (mark it and test"
             f" the others), got {on_invalid!r}."
         )
-    vcov = fit._covariance_estimate(covariance)
-    ref = covmod.check_reference(reference)
+    vcov = fit.evaluate_covariance(covariance)
+    ref = check_reference(reference)
     labels = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
         items = list(c)  # type: ignore[arg-type]
@@ -232,11 +236,9 @@ def wald_batch(
         raise InputError(f"{len(systems)} ids given for {k} systems; give one id per system.")
 
     if vcov.method == "classical":  # the core's own BLAS-free root, σ R⁻ᵀ Cᵀ
-        core = wald_systems(fit._sol, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
+        core = wald_systems(fit.solution, cs, ds, sigma=fit.sigma, tol=ROW_TOL)
     else:
-        core = wald_systems(
-            fit._sol, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=covmod.COV_RANK_TOL
-        )
+        core = wald_systems(fit.solution, cs, ds, vcov.root, tol=ROW_TOL, cov_rank_tol=COV_RANK_TOL)
     status = ["independent"] * k
     for s in core.exact.tolist():  # only these can be anything else
         if s in core.inconsistent:
@@ -266,7 +268,7 @@ def wald_batch(
         stat=stat,
         df_test=q,
         df_error=df_error,
-        p=p_value,
+        p=np.asarray(p_value, dtype=np.float64),
         status=tuple(status),
         redundant=core.dependencies,
         names=tuple(fit.names),

@@ -44,8 +44,8 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
-from lincomb._fit.linear import LinearFit
-from lincomb._fit.pooled import fit_from_moments
+from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import EncodedRows, FormulaEncoder, require_response
 from lincomb._settings import blas_limit, worker_threads
@@ -98,10 +98,6 @@ class ChunkProgress:
     rows_used: int
     rows_dropped: int
     seconds: float
-
-    @property
-    def rows_per_second(self) -> float:
-        return self.rows_read / self.seconds if self.seconds > 0 else float("nan")
 
 
 # -- encoding fixed once ---------------------------------------------------------------------
@@ -333,7 +329,12 @@ class ArrayEncoder:
         self.names = names
         self.intercept = intercept
 
-    def encode(self, chunk: Any, where: str, keep_frame: bool = False) -> EncodedRows:
+    def encode(
+        self,
+        chunk: Any,
+        where: str,
+        keep_frame: bool = False,  # noqa: ARG002 - the frame encoders' call; arrays have no frame
+    ) -> EncodedRows:
         if not isinstance(chunk, tuple) or len(chunk) not in (2, 3):
             raise InputError(
                 f"{where} must be a tuple (X, y) or (X, y, weights), got {type(chunk).__name__}."
@@ -471,7 +472,7 @@ def covariance_pass(
     covariance: object,
     *,
     progress: Callable[[ChunkProgress], None] | None = None,
-) -> Any:
+) -> CovarianceEstimate:
     """Evaluate a row-based covariance estimator on a chunked fit with a second pass.
 
     Parameters
@@ -523,7 +524,7 @@ def covariance_pass(
     from lincomb._covariance.second_pass import RowPass
 
     rp = RowPass(fit, covariance)
-    encoder = fit._design.second_pass
+    encoder = fit.design.second_pass
     if not isinstance(encoder, (FrameRows, ArrayEncoder)):
         raise InputError(
             "covariance_pass needs a fit made by fit_chunks or fit_array_chunks; for an"

@@ -59,9 +59,9 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
+from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._fit.chunked import FrameRows, _check_options
-from lincomb._fit.linear import LinearFit
-from lincomb._fit.pooled import fit_from_moments
+from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import FormulaEncoder, require_response
 from lincomb._settings import blas_limit, worker_threads
@@ -278,7 +278,9 @@ def _levels_of(
     dask: Any,
     scheduler: Any,
 ) -> dict[str, list[Any]]:
-    meta = data._meta
+    from dask.dataframe.utils import make_meta
+
+    meta = make_meta(data)
     cats = FormulaEncoder.categorical_variables(formula, meta, declared)
     out = {k: list(v) for k, v in declared.items()}
     todo = []
@@ -375,10 +377,13 @@ def fit_dask(
         raise InputError("data is a pandas DataFrame: use lc.fit for data in memory.")
     if not isinstance(data, dd.DataFrame):
         raise InputError(f"data must be a Dask DataFrame, got {type(data).__name__}.")
-    FormulaEncoder.check_response(formula, data._meta)  # before the pass that finds levels
+    from dask.dataframe.utils import make_meta
+
+    meta = make_meta(data)  # the empty frame of the right columns and dtypes
+    FormulaEncoder.check_response(formula, meta)  # before the pass that finds levels
     all_levels = _levels_of(data, formula, weights, dict(levels or {}), dask, scheduler)
     encoder = FormulaEncoder.from_data(
-        formula, data._meta, levels=all_levels, weights=weights, where="the data's metadata"
+        formula, meta, levels=all_levels, weights=weights, where="the data's metadata"
     )
     encoder.check_stateless()
     recipe = FrameRows(encoder, weights, missing)
@@ -641,7 +646,7 @@ def covariance_pass(
     *,
     split_every: int = DEFAULT_SPLIT_EVERY,
     scheduler: Any = None,
-) -> Any:
+) -> CovarianceEstimate:
     """Evaluate a row-based covariance estimator on a Dask fit with a second distributed pass.
 
     Parameters
@@ -675,7 +680,7 @@ def covariance_pass(
 
     _check_split(split_every)
     threads = worker_threads()
-    encoder = fit._design.second_pass
+    encoder = fit.design.second_pass
     rp = RowPass(fit, covariance)
     rp_d = dask.delayed(rp, pure=True)
     if isinstance(encoder, FrameRows):

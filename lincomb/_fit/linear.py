@@ -23,18 +23,25 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from lincomb import _core as core
-from lincomb._builder.contrasts import ModelResolver
+from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
-from lincomb._covariance import estimators as covmod
-from lincomb._model.design import Design, design_from_arrays, design_from_formula, encode_new
+from lincomb._core.checks import check_level, check_tolerance
+from lincomb._covariance.estimate import CovarianceEstimate, check_rank
+from lincomb._covariance.estimators import evaluate
+from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._fit.restriction_rows import check_rows
+from lincomb._model.design import (
+    CoefficientIndex,
+    Design,
+    design_from_arrays,
+    design_from_formula,
+    encode_new,
+)
 from lincomb._model.encoder import require_response, unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb.errors import (
     DegenerateFitError,
-    InconsistentRestrictionError,
-    NotEstimableError,
-    ParameterError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -107,55 +114,66 @@ class LinearFit:
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _moments: core.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _sol: core.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _vcov: covmod.CovarianceEstimate | None = field(repr=False, compare=False, default=None)
+    _vcov: CovarianceEstimate | None = field(repr=False, compare=False, default=None)
 
-    # -- construction -------------------------------------------------------------------
-    @classmethod
-    def _from_design(cls, design: Design, rank_tol: float) -> LinearFit:
-        moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
-        return cls._from_moments(design, moments, rank_tol, rows=True)
+    # -- the fit's internals, read-only, for the other layers ------------------------------
+    @property
+    def design(self) -> Design:
+        """The validated design the fit was made from (names, encoder, rows when kept).
 
-    @classmethod
-    def _from_moments(
-        cls, design: Design, moments: core.Moments, rank_tol: float, rows: bool = False
-    ) -> LinearFit:
-        if not (0 < rank_tol < 1):
-            raise ParameterError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
-        sol = core.solve(moments, rank_tol)
-        names = design.index.names
-        if sol.n <= sol.rank:
-            raise DegenerateFitError(
-                f"{sol.n} observations for {sol.rank} estimable coefficients leave no residual"
-                " degrees of freedom, so no error variance and no test. Add observations or drop"
-                " terms."
-            )
-        beta = sol.coefficients()
-        if rows and core.condition_estimate(sol) > core.REFINE_COND:
-            # rows in memory: refine an ill-conditioned solution (see lincomb._core.refine)
-            sol, beta = core.refine(sol, design.x, design.y, design.weights)
-        sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
-        return cls(
-            names=names,
-            coefficients=pd.Series(beta, index=list(names), name="estimate"),
-            aliased=tuple(names[j] for j in sorted(sol.aliased)),
-            rank=sol.rank,
-            n_obs=sol.n,
-            n_dropped=len(design.dropped),
-            df_error=sol.df_resid,
-            rss=sol.rss,
-            sigma=sigma,
-            weighted=design.weighted,
-            response=design.response or "",
-            formula=design.formula,
-            rank_tol=rank_tol,
-            _design=design,
-            _moments=moments,
-            _sol=sol,
-        )
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.design.index.names == f.names, f.design.has_rows
+        (True, True)
+        """
+        return self._design
+
+    @property
+    def moments(self) -> core.Moments:
+        """The fit's moments: the R factor of ``sqrt(w)·[X y]`` and the column shifts.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.moments.n == f.n_obs
+        True
+        """
+        return self._moments
+
+    @property
+    def solution(self) -> core.Solution:
+        """The rank decision and the kept-column triangle in working coordinates.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.solution.rank == f.rank, f.solution.df_resid == f.df_error
+        (True, True)
+        """
+        return self._sol
+
+    @property
+    def covariance_estimate(self) -> CovarianceEstimate | None:
+        """The covariance estimate set with :meth:`with_covariance` (``None``: classical).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.covariance_estimate is None
+        True
+        >>> f.with_covariance("HC3").covariance_estimate.label
+        'HC3'
+        """
+        return self._vcov
 
     # -- basic quantities ---------------------------------------------------------------
     @property
-    def index(self) -> Any:
+    def index(self) -> CoefficientIndex:
         """The coefficient index (names, terms, levels) used to resolve restrictions."""
         return self._design.index
 
@@ -170,7 +188,27 @@ class LinearFit:
         """Labels of the rows dropped for missing values."""
         return self._design.dropped
 
-    def _check_variance(self) -> None:
+    def check_variance(self) -> None:
+        """Raise if the residual sum of squares is zero to working precision.
+
+        Every test needs an error variance; a fit that reproduces its response exactly has
+        none.
+
+        Raises
+        ------
+        DegenerateFitError
+            ``rss <= (ZERO_RSS_TOL · ‖y − ȳ‖)²``.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> x = np.c_[np.ones(4), [0.0, 1, 2, 3]]
+        >>> lc.fit_arrays(x, [1.0, 3.1, 4.9, 7.0]).check_variance()
+        >>> lc.fit_arrays(x, [1.0, 3.0, 5.0, 7.0]).check_variance()
+        Traceback (most recent call last):
+        ...
+        lincomb.errors.DegenerateFitError: the residual sum of squares is zero ...
+        """
         if self._sol.resid_norm <= ZERO_RSS_TOL * self._sol.y_norm:
             raise DegenerateFitError(
                 f"the residual sum of squares is zero to working precision ({self._sol.rss:.3g}):"
@@ -183,10 +221,24 @@ class LinearFit:
         """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
         return "classical" if self._vcov is None else self._vcov.label
 
-    def _covariance_estimate(self, covariance: object) -> covmod.CovarianceEstimate:
+    def evaluate_covariance(self, covariance: object = None) -> CovarianceEstimate:
+        """The covariance estimate a test with ``covariance=`` uses on this fit.
+
+        Parameters
+        ----------
+        covariance : str or estimator, optional
+            As in :meth:`wald`; ``None`` gives the fit's own (see :meth:`with_covariance`).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.evaluate_covariance().label, f.evaluate_covariance("HC1").label
+        ('classical', 'HC1')
+        """
         if covariance is None and self._vcov is not None:
             return self._vcov
-        return covmod.evaluate(self, covariance)
+        return evaluate(self, covariance)
 
     def with_covariance(self, covariance: object) -> LinearFit:
         """This fit with another default covariance estimator, evaluated once for every test.
@@ -216,7 +268,7 @@ class LinearFit:
         >>> robust.wald(lc.coef("staffing") == 0).df_error
         39.0
         """
-        return replace(self, _vcov=covmod.evaluate(self, covariance))
+        return replace(self, _vcov=evaluate(self, covariance))
 
     def covariance(self, covariance: object = None) -> pd.DataFrame:
         """Covariance matrix of the coefficients (NaN rows/columns for aliased ones).
@@ -245,7 +297,7 @@ class LinearFit:
         >>> bool(np.allclose(hc3, hc3.T))
         True
         """
-        vcov = self._covariance_estimate(covariance)
+        vcov = self.evaluate_covariance(covariance)
         sol = self._sol
         p = sol.p
         est = np.setdiff1d(np.arange(p), sol.aliased)
@@ -269,7 +321,7 @@ class LinearFit:
         """
         # column norms of the covariance root (not the square root of its diagonal): the
         # variance of a coefficient of data near 1e±200 is not representable, its s.e. is
-        vcov = self._covariance_estimate(covariance)
+        vcov = self.evaluate_covariance(covariance)
         sol = self._sol
         est = np.setdiff1d(np.arange(sol.p), sol.aliased)
         root = vcov.root(sol.to_working(np.eye(sol.p)[est])[:, sol.kept])
@@ -309,9 +361,9 @@ class LinearFit:
         >>> f.coef_frame(covariance="HC3", reference="chi2")["reference"].iloc[0]
         'chi2'
         """
-        _check_level(level)
-        ref = covmod.check_reference(reference)
-        vcov = self._covariance_estimate(covariance)
+        check_level(level)
+        ref = check_reference(reference)
+        vcov = self.evaluate_covariance(covariance)
         dfree = vcov.df_error if ref == "F" else np.inf
         dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
@@ -372,11 +424,36 @@ class LinearFit:
         # the resolver also carries the formula encoder, for contrasts on level means
         return system.resolve(ModelResolver.of(self))
 
-    def _prepare(
+    def prepare(
         self, restrictions: object
     ) -> tuple[
         NDArray[np.float64], NDArray[np.float64], list[str], NDArray[np.float64], core.RowAnalysis
     ]:
+        """Resolve restrictions and check them against the design's rank.
+
+        Returns
+        -------
+        c, d, labels
+            As :meth:`resolve` gives them.
+        cu : (m, p) ndarray
+            ``C`` in working coordinates.
+        analysis : RowAnalysis
+            Independent and redundant rows.
+
+        Raises
+        ------
+        InconsistentRestrictionError, NotEstimableError
+            As in :meth:`wald`.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> two = (lc.coef("line[T.L2]") == 0) & (2 * lc.coef("line[T.L2]") == 0)
+        >>> c, d, labels, cu, analysis = f.prepare(two)
+        >>> analysis.independent.tolist(), list(analysis.dependencies)
+        ([0], [1])
+        """
         c, d, labels = self.resolve(restrictions)
         hint = unused_level_hint(self._design.encoder)
         cu, analysis = check_rows(self._sol, c, d, labels, self.names, hint=hint)
@@ -437,13 +514,13 @@ class LinearFit:
         >>> hc.reference, hc.df_error, hc.covariance
         ('chi2', inf, 'HC3')
         """
-        vcov = self._covariance_estimate(covariance)
-        ref = covmod.check_reference(reference)
-        c, d, labels, cu, analysis = self._prepare(restrictions)
+        vcov = self.evaluate_covariance(covariance)
+        ref = check_reference(reference)
+        c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
         root = vcov.root(cu[:, sol.kept])
         est = cu[:, sol.kept] @ sol.theta
-        covmod.check_rank(root, analysis.independent, labels, vcov)
+        check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
         k = analysis.independent
         rotated = core.intercept_rotation(c[k], d[k], sol.intercept)
@@ -451,9 +528,7 @@ class LinearFit:
             cr = sol.to_working(rotated[0])[:, sol.kept]
             rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))
             wc = replace(wc, quad=rot.quad)
-        dist, stat, df_error, p_value = covmod.reference_result(
-            wc.quad, wc.rank, vcov.df_error, ref
-        )
+        dist, stat, df_error, p_value = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
@@ -574,8 +649,8 @@ class LinearFit:
         >>> bool(np.isclose((r.rss - f.rss) / f.rss * f.df_error, w.stat))
         True
         """
-        self._check_variance()
-        c, d, labels, cu, analysis = self._prepare(restrictions)
+        self.check_variance()
+        c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
         k = analysis.independent
         root_k = sol.root(cu[k][:, sol.kept])
@@ -807,78 +882,6 @@ class LinearFit:
         )
 
 
-def check_rows(
-    sol: core.Solution,
-    c: NDArray[np.float64],
-    d: NDArray[np.float64],
-    labels: Sequence[str],
-    names: Sequence[str],
-    where: str = "this rank-deficient design",
-    hint: str = "",
-) -> tuple[NDArray[np.float64], core.RowAnalysis]:
-    """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
-
-    Shared by every path that tests or imposes restrictions (fits, planned designs), so the
-    rules and the wording of their errors are the same everywhere.
-
-    Returns
-    -------
-    cu : (m, p) ndarray
-        ``C`` in working coordinates.
-    analysis : RowAnalysis
-        Independent and redundant rows (see :func:`lincomb._core.analyze_rows`).
-
-    Raises
-    ------
-    InconsistentRestrictionError
-        A redundant row's ``d`` contradicts the rows it depends on (the rows are named).
-    NotEstimableError
-        A row has a component in the design's null space (the row and the aliased columns it
-        touches are named).
-
-    Examples
-    --------
-    >>> import numpy as np, lincomb as lc
-    >>> f = lc.fit_arrays(np.c_[np.ones(5), [0.0, 1, 2, 3, 5]], [1.0, 2, 2, 4, 5])
-    >>> c = np.array([[0.0, 1.0], [0.0, 2.0]])
-    >>> cu, a = check_rows(f._sol, c, np.array([1.0, 2.0]), ["x1 = 1", "2*x1 = 2"], f.names)
-    >>> a.independent.tolist(), a.dependencies
-    ([0], {1: {0: 2.0}})
-    """
-    cu = sol.to_working(c)
-    # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
-    analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
-    if analysis.inconsistent:
-        lines = []
-        for row, dval, implied in analysis.inconsistent:
-            dep = analysis.dependencies[row]
-            combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
-            lines.append(
-                f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
-                f" but its d is {dval:.6g}"
-            )
-        raise InconsistentRestrictionError(
-            "the restrictions contradict each other: "
-            + "; ".join(lines)
-            + ". Remove one of the conflicting rows or correct its value."
-        )
-    resid = sol.estimability_residual(cu)
-    bad = np.flatnonzero(resid > core.ROW_TOL)
-    if bad.size:
-        msgs = []
-        for i in bad:
-            touched = [names[j] for j in sol.aliased_touched(cu[i], core.ROW_TOL)]
-            msgs.append(f"row {int(i)} ({labels[i]}) involves aliased coefficients {touched}")
-        aliased = [names[j] for j in sorted(sol.aliased)]
-        raise NotEstimableError(
-            f"restriction not estimable under {where}: "
-            + "; ".join(msgs)
-            + f". Aliased columns: {aliased}. Restate the row as a contrast that the data"
-            " identify, or change the design so those columns are not aliased." + hint
-        )
-    return cu, analysis
-
-
 def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
     """``rootᵀ root``; entries past the float64 range become inf or 0 without a warning."""
     with np.errstate(over="ignore", under="ignore"):
@@ -886,9 +889,75 @@ def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
     return out
 
 
-def _check_level(level: float) -> None:
-    if not (0 < level < 1):
-        raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
+    """Factor a design's rows and fit (the in-memory route of every entry point).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> fit_from_design(f.design, f.rank_tol).rss == f.rss
+    True
+    """
+    moments = core.moments_from_arrays(design.x, design.y, design.weights, design.intercept)
+    return fit_from_moments(design, moments, rank_tol, rows=True)
+
+
+def fit_from_moments(
+    design: Design, moments: core.Moments, rank_tol: float, rows: bool = False
+) -> LinearFit:
+    """The fit of a design whose moments are already accumulated (chunks, partitions, sites).
+
+    With ``rows`` (the design's rows are in memory), an ill-conditioned solution is refined
+    against the rows (see :mod:`lincomb._core`); rowless routes get the plain solution.
+
+    Raises
+    ------
+    ParameterError
+        ``rank_tol`` is not in (0, 1).
+    DegenerateFitError
+        No residual degrees of freedom.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> again = fit_from_moments(f.design, f.moments, f.rank_tol)
+    >>> bool((again.coefficients == f.coefficients).all())
+    True
+    """
+    check_tolerance("rank_tol", rank_tol)
+    sol = core.solve(moments, rank_tol)
+    names = design.index.names
+    if sol.n <= sol.rank:
+        raise DegenerateFitError(
+            f"{sol.n} observations for {sol.rank} estimable coefficients leave no residual"
+            " degrees of freedom, so no error variance and no test. Add observations or drop"
+            " terms."
+        )
+    beta = sol.coefficients()
+    if rows and core.condition_estimate(sol) > core.REFINE_COND:
+        # rows in memory: refine an ill-conditioned solution (see lincomb._core.refine)
+        sol, beta = core.refine(sol, design.x, design.y, design.weights)
+    sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
+    return LinearFit(
+        names=names,
+        coefficients=pd.Series(beta, index=list(names), name="estimate"),
+        aliased=tuple(names[j] for j in sorted(sol.aliased)),
+        rank=sol.rank,
+        n_obs=sol.n,
+        n_dropped=len(design.dropped),
+        df_error=sol.df_resid,
+        rss=sol.rss,
+        sigma=sigma,
+        weighted=design.weighted,
+        response=design.response or "",
+        formula=design.formula,
+        rank_tol=rank_tol,
+        _design=design,
+        _moments=moments,
+        _sol=sol,
+    )
 
 
 def fit(
@@ -937,7 +1006,7 @@ def fit(
     """
     require_response(formula)
     design = design_from_formula(formula, data, weights=weights, missing=missing)
-    return LinearFit._from_design(design, rank_tol)
+    return fit_from_design(design, rank_tol)
 
 
 def fit_arrays(
@@ -974,4 +1043,4 @@ def fit_arrays(
     1.98
     """
     design = design_from_arrays(x, y, names=names, weights=weights)
-    return LinearFit._from_design(design, rank_tol)
+    return fit_from_design(design, rank_tol)

@@ -53,7 +53,8 @@ from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
-from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit
+from lincomb._core.checks import check_level
+from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design, fit_from_moments
 from lincomb._fit.responses import (
     _array_source,
     _check_no_inf,
@@ -116,7 +117,7 @@ class _Group:
 
     @property
     def sol(self) -> core.Solution | None:
-        return None if self.fit is None else self.fit._sol
+        return None if self.fit is None else self.fit.solution
 
 
 def _design_fit(
@@ -128,7 +129,7 @@ def _design_fit(
     if x.shape[0] == 0:  # a response missing in every row: flagged like too few rows
         return factor, None
     try:
-        lf = LinearFit._from_moments(design, factor.moments, rank_tol)
+        lf = fit_from_moments(design, factor.moments, rank_tol)
     except DegenerateFitError:
         lf = None
     return factor, lf
@@ -147,7 +148,7 @@ def _solve_group(
     if lf is None:
         nan = np.full(r, np.nan)
         return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
-    theta, rss, y_norm = core.solve_responses(factor.moments, lf._sol, block)
+    theta, rss, y_norm = core.solve_responses(factor.moments, lf.solution, block)
     return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
 
 
@@ -261,7 +262,7 @@ class ManyFit:
         w = None if d.weights is None else d.weights[rows]
         if d.encoder is None:
             names = list(self.names)
-            return LinearFit._from_design(
+            return fit_from_design(
                 design_from_arrays(d.x[rows], y, names=names, weights=w, response=name),
                 self.rank_tol,
             )
@@ -276,7 +277,7 @@ class ManyFit:
             dropped=d.dropped.append(d.row_index[~obs]),
             formula=f"{name} ~ {self.formula}",
         )
-        return LinearFit._from_design(design, self.rank_tol)
+        return fit_from_design(design, self.rank_tol)
 
     # -- tests ---------------------------------------------------------------------------------
     def wald(self, restrictions: object) -> ManyWaldTest:
@@ -333,7 +334,7 @@ class ManyFit:
             if g.fit is None:
                 continue
             try:
-                c, d, lab, cu, analysis = g.fit._prepare(system)
+                c, d, lab, cu, analysis = g.fit.prepare(system)
             except NotEstimableError:
                 if gi == 0:
                     raise
@@ -353,7 +354,7 @@ class ManyFit:
                 est_all = np.full((r, m), np.nan)
                 se_all = np.full((r, m), np.nan)
                 t_all = np.full((r, m), np.nan)
-            sol = g.fit._sol
+            sol = g.fit.solution
             ck = cu[:, sol.kept]
             root = sol.root(ck)
             est = ck @ g.theta  # (m, r_g)
@@ -443,6 +444,7 @@ class ManyFit:
         """
         if family not in ("test", "all"):
             raise InputError(f"family must be 'test' or 'all', got {family!r}.")
+        check_level(level)
         if isinstance(tests, Mapping):
             items = [(str(k), v) for k, v in tests.items()]
         else:
@@ -617,7 +619,7 @@ def _assemble(
             status[cols] = _FEW
             rank[cols] = min(g.n, p)
             continue
-        sol = g.fit._sol
+        sol = g.fit.solution
         rank[cols] = sol.rank
         coef[:, cols] = _coefficients(sol, g.theta)
         rss[cols] = g.rss
@@ -638,7 +640,9 @@ def _assemble(
         sigma=pd.Series(sigma, index=idx, name="sigma"),
         rank=pd.Series(rank, index=idx, name="rank"),
         status=pd.Series(
-            pd.Categorical.from_codes(status, categories=STATUSES), index=idx, name="status"
+            pd.Categorical.from_codes(status, categories=pd.Index(STATUSES)),
+            index=idx,
+            name="status",
         ),
         aliased=lf.aliased,
         n_dropped=len(design.dropped),
@@ -748,7 +752,7 @@ def fit_many(
         if (positions < 0).any() or not data.index.is_unique:
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
     if as_names:
-        cols = data.columns.get_indexer(list(names))
+        cols = data.columns.get_indexer(pd.Index(list(names)))
         src = _Responses(names, _FrameColumns(data, cols), len(data))
         frame = data.drop(columns=list(names))
     else:

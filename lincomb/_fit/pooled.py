@@ -35,34 +35,18 @@ from collections.abc import Iterable
 import pandas as pd
 
 from lincomb import _core as core
-from lincomb._fit.linear import LinearFit
+from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import Design
 from lincomb._model.encoder import FormulaEncoder
 from lincomb.errors import IncompatibleFitError, InputError
 
-__all__ = ["combine", "without_rows", "fit_from_moments"]
+__all__ = ["combine", "without_rows"]
 
 
 _DEFAULT_HINT = (
     "Fit the pooled rows in memory (lc.fit), or for chunked and Dask fits compute it with a"
     " second pass: lincomb.chunked.covariance_pass or lincomb.distributed.covariance_pass."
 )
-
-
-def fit_from_moments(design: Design, moments: core.Moments, rank_tol: float) -> LinearFit:
-    """The :class:`~lincomb.fit.LinearFit` of ``moments`` named by ``design``.
-
-    The fit is the same object an in-memory fit is; only its rows may be missing.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> again = fit_from_moments(f._design, f._moments, f.rank_tol)
-    >>> again.rss == f.rss, again.names == f.names
-    (True, True)
-    """
-    return LinearFit._from_moments(design, moments, rank_tol)
 
 
 def without_rows(fit: LinearFit) -> LinearFit:
@@ -82,7 +66,7 @@ def without_rows(fit: LinearFit) -> LinearFit:
     """
     if not isinstance(fit, LinearFit):
         raise InputError(f"without_rows needs a LinearFit, got {type(fit).__name__}.")
-    d = fit._design
+    d = fit.design
     positions = pd.RangeIndex(len(d.dropped))
     if d.has_rows:
         summary = d.without_rows(
@@ -92,7 +76,7 @@ def without_rows(fit: LinearFit) -> LinearFit:
         )
     else:
         summary = d.without_rows(d.origin, d.hint, dropped=positions)
-    return fit_from_moments(summary, fit._moments, fit.rank_tol)
+    return fit_from_moments(summary, fit.moments, fit.rank_tol)
 
 
 def _encoding(encoder: FormulaEncoder | None) -> dict[str, tuple[tuple[object, ...], str]] | None:
@@ -102,7 +86,7 @@ def _encoding(encoder: FormulaEncoder | None) -> dict[str, tuple[tuple[object, .
 
 def _check_same(first: LinearFit, other: LinearFit, k: int) -> None:
     """Raise IncompatibleFitError unless ``other`` (fit number ``k``) matches ``first``."""
-    a, b = first._design, other._design
+    a, b = first.design, other.design
     if first.names != other.names:
         mine, theirs = list(first.names), list(other.names)
         diff = [s for s in mine if s not in theirs] + [s for s in theirs if s not in mine]
@@ -148,8 +132,8 @@ def _check_same(first: LinearFit, other: LinearFit, k: int) -> None:
                     f" 0 ({ea.get(name)}). Declare the same levels, in the same order, and the"
                     " same contrasts at every site."
                 )
-    if first._moments.p != other._moments.p:  # pragma: no cover - names already differ
-        raise IncompatibleFitError(f"fit {k} has {other._moments.p} columns, fit 0 has another.")
+    if first.moments.p != other.moments.p:  # pragma: no cover - names already differ
+        raise IncompatibleFitError(f"fit {k} has {other.moments.p} columns, fit 0 has another.")
 
 
 def combine(fits: Iterable[LinearFit], *, rank_tol: float | None = None) -> LinearFit:
@@ -203,9 +187,9 @@ def combine(fits: Iterable[LinearFit], *, rank_tol: float | None = None) -> Line
     first = fits[0]
     for k, f in enumerate(fits[1:], start=1):
         _check_same(first, f, k)
-    moments = core.merge_tree([f._moments for f in fits])
-    d0 = first._design
-    dropped_parts = [(k, lab) for k, f in enumerate(fits) for lab in f._design.dropped]
+    moments = core.merge_tree([f.moments for f in fits])
+    d0 = first.design
+    dropped_parts = [(k, lab) for k, f in enumerate(fits) for lab in f.design.dropped]
     dropped = (
         pd.MultiIndex.from_tuples(dropped_parts, names=["fit", "row"])
         if dropped_parts

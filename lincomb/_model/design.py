@@ -12,7 +12,7 @@ Its :class:`CoefficientIndex` answers the builder's questions ("which column is
 from __future__ import annotations
 
 import difflib
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
@@ -311,7 +311,7 @@ class Design:
     >>> d = design_from_formula("fill_g ~ line", lc.datasets.fill_lines())
     >>> d.x.shape, d.response, d.intercept, d.weighted, d.has_rows
     ((300, 4), 'fill_g', 0, False, True)
-    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines()))._design
+    >>> shared = lc.without_rows(lc.fit("fill_g ~ line", lc.datasets.fill_lines())).design
     >>> shared.has_rows, shared.index.names[1]
     (False, 'line[T.L2]')
     >>> shared.x
@@ -438,7 +438,7 @@ def _validate_weights(w: NDArray[np.float64], rows: pd.Index | None) -> None:
         )
 
 
-def _find_intercept(x: NDArray[np.float64], names: Sequence[str]) -> int | None:
+def _find_intercept(x: NDArray[np.float64]) -> int | None:
     if x.shape[0] == 0:
         return None
     for j in np.flatnonzero(x[0] == 1.0).tolist():  # scan only columns that start with 1
@@ -542,7 +542,7 @@ def design_from_arrays(
     row_index = rows if rows is not None else pd.RangeIndex(n)
     return Design(
         index=index,
-        intercept=_find_intercept(xa, names),
+        intercept=_find_intercept(xa),
         response=response if ya is not None else None,
         dropped=row_index[:0],
         weighted=wa is not None,
@@ -642,7 +642,3 @@ def encode_new(design: Design, data: pd.DataFrame) -> pd.DataFrame:
     if design.encoder is None:
         raise InputError("this fit was made from arrays; it has no formula to encode new data.")
     return design.encoder.encode_new(data)
-
-
-def normalize_mapping(obj: Mapping[str, float] | None) -> dict[str, float]:
-    return dict(obj or {})

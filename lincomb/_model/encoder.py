@@ -121,7 +121,7 @@ def plain(exc: object) -> str:
     return _ANSI.sub("", str(exc))
 
 
-def _name_hint(formula: str, frame: pd.DataFrame) -> str:
+def _name_hint(frame: pd.DataFrame) -> str:
     """How to write awkward column names in a formula (added to parse and lookup errors)."""
     names = [str(c) for c in frame.columns]
     hints = []
@@ -513,8 +513,7 @@ class FormulaEncoder:
                 mm = formulaic.model_matrix(target, sub, na_action="raise")
         except Exception as exc:  # formulaic raises plain errors for unknown variables
             raise InputError(
-                f"could not build the design for {formula!r}: {plain(exc)}"
-                + _name_hint(formula, data)
+                f"could not build the design for {formula!r}: {plain(exc)}" + _name_hint(data)
             ) from None
         spec = mm.model_spec
         rhs_mm = mm.rhs if lhs else mm
@@ -1037,7 +1036,7 @@ def _required(formula: str, frame: pd.DataFrame) -> list[str]:
         required = formulaic.Formula(target).required_variables
     except Exception as exc:
         raise InputError(
-            f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(formula, frame)
+            f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(frame)
         ) from None
     return sorted(str(v) for v in required if v in frame.columns)
 

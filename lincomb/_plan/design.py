@@ -17,12 +17,13 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
 from lincomb import _core as core
-from lincomb._builder.contrasts import ModelResolver
+from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
+from lincomb._core.checks import check_tolerance
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
 from lincomb._plan.checks import check_replicates
-from lincomb.errors import InputError, MissingValueError, ParameterError
+from lincomb.errors import InputError, MissingValueError
 
 if TYPE_CHECKING:  # pragma: no cover
     from collections.abc import Sequence
@@ -82,6 +83,19 @@ class PlannedDesign:
     def index(self) -> CoefficientIndex:
         """The coefficient index (names, terms, levels) that resolves restrictions."""
         return self._index
+
+    @property
+    def solution(self) -> core.Solution:
+        """The rank decision and triangular factor of one replicate of the pattern.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        >>> d.solution.rank == d.rank
+        True
+        """
+        return self._sol
 
     def min_replicates(self) -> int:
         """Smallest number of replicates that leaves at least one residual degree of freedom.
@@ -154,7 +168,7 @@ class PlannedDesign:
 
 
 def planned_design(
-    source: Any,
+    source: PlannedDesign | LinearFit | str | ArrayLike | pd.DataFrame,
     data: pd.DataFrame | None = None,
     *,
     weights: str | ArrayLike | None = None,
@@ -209,15 +223,14 @@ def planned_design(
                 "a PlannedDesign is already built: pass it without data, weights or names."
             )
         return source
-    if not (0 < rank_tol < 1):
-        raise ParameterError(f"rank_tol must be in (0, 1), got {rank_tol!r}.")
+    check_tolerance("rank_tol", rank_tol)
     formula: str | None
     if isinstance(source, LinearFit):
         if data is not None or weights is not None or names is not None:
             raise InputError(
                 "a fit's design is used as it is: pass the fit without data, weights or names."
             )
-        design = source._design
+        design = source.design
         formula = source.formula.split("~", 1)[1].strip() if source.formula else None
         rank_tol = source.rank_tol
     elif isinstance(source, str):

@@ -23,7 +23,6 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -31,7 +30,8 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._core import noncentral
-from lincomb._fit.linear import LinearFit, check_rows
+from lincomb._fit.linear import LinearFit
+from lincomb._fit.restriction_rows import check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
 from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.results import DetectableEffect, PowerCurve, PowerResult, SampleSize
@@ -554,7 +554,7 @@ class PowerPlan:
         red = f"; {len(self.redundant)} redundant row(s)" if self.redundant else ""
         return (
             f"PowerPlan: F test of {len(self.labels)} restriction row(s), rank {self.df_test}{red};"
-            f" sigma = {self.sigma:.6g}, alpha = {self.alpha:g}\n{self.design._head()}"
+            f" sigma = {self.sigma:.6g}, alpha = {self.alpha:g}\n{self.design!r}"
         )
 
     def __repr__(self) -> str:
@@ -571,7 +571,7 @@ class PowerPlan:
 
 
 def power_plan(
-    design: Any, restrictions: object, *, sigma: float, alpha: float = 0.05
+    design: PlannedDesign | LinearFit, restrictions: object, *, sigma: float, alpha: float = 0.05
 ) -> PowerPlan:
     """Set up power calculations for the Wald F test of a restriction system.
 
@@ -622,7 +622,7 @@ def power_plan(
             f" {type(design).__name__}."
         )
     c, d, labels = design.resolve(restrictions)
-    sol = design._sol
+    sol = design.solution
     cu, analysis = check_rows(sol, c, d, labels, design.names, where="the planned design")
     # one replicate, σ = 1: Cov(Cβ̂) = rootᵀ root with root = R⁻ᵀ C_keptᵀ (C-ordered for BLAS)
     root = np.ascontiguousarray(sol.root(np.asfortranarray(cu[:, sol.kept])))

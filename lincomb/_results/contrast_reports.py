@@ -29,21 +29,15 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._builder.contrasts import (
-    ZERO_SUM_TOL,
-    LevelContrasts,
-    ModelResolver,
-    _Factor,
-    _level_index,
-    _Recipe,
-    register_report,
-)
+from lincomb._builder.contrasts import LevelContrasts, level_weights, register_report
+from lincomb._builder.level_rows import Factor, level_index, require_level
+from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe
+from lincomb._builder.resolver import ModelResolver
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import (
     ContrastWeightsError,
     NotOrthogonalError,
     RowsUnavailableError,
-    UnknownCoefficientError,
 )
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -86,7 +80,7 @@ def orthogonality(
     >>> rep.equal_n, rep.complete, rep.sizes is not None
     (True, True, True)
     """
-    fac, w, labels = contrasts._weights(ModelResolver.of(fit))
+    fac, w, labels = level_weights(contrasts, ModelResolver.of(fit))
     zero_sum = np.abs(w.sum(axis=1)) <= ZERO_SUM_TOL * np.abs(w).sum(axis=1)
     k = len(fac.levels)
     complete = bool(zero_sum.all() and w.shape[0] == k - 1 and np.linalg.matrix_rank(w) == k - 1)
@@ -149,7 +143,7 @@ def partition(contrasts: LevelContrasts, fit: LinearFit) -> SumOfSquaresPartitio
             " not add up. Use weights orthogonal for these sizes, or report the joint test."
         )
     res = fit.wald(contrasts, covariance="classical")
-    joint = fit.wald(replace(contrasts, recipe=_Recipe("equal")), covariance="classical")
+    joint = fit.wald(replace(contrasts, recipe=Recipe("equal")), covariance="classical")
     sigma2 = fit.sigma**2
     ss = sigma2 * res.ratio**2
     return SumOfSquaresPartition(
@@ -165,17 +159,12 @@ def partition(contrasts: LevelContrasts, fit: LinearFit) -> SumOfSquaresPartitio
     )
 
 
-def _given_sizes(sizes: Mapping[Any, float] | Sequence[float], fac: _Factor) -> Array:
+def _given_sizes(sizes: Mapping[Any, float] | Sequence[float], fac: Factor) -> Array:
     k = len(fac.levels)
     if isinstance(sizes, Mapping):
         n = np.full(k, np.nan)
         for key, val in sizes.items():
-            j = _level_index(key, fac.levels)
-            if j is None:
-                raise UnknownCoefficientError(
-                    f"sizes names {key!r}, not a level of {fac.name!r}; levels: {list(fac.labels)}."
-                )
-            n[j] = float(val)
+            n[require_level(key, fac, "sizes")] = float(val)
     else:
         n = np.array(sizes, dtype=np.float64).reshape(-1)
     if n.size != k or not np.all(np.isfinite(n)) or np.any(n <= 0):
@@ -186,13 +175,13 @@ def _given_sizes(sizes: Mapping[Any, float] | Sequence[float], fac: _Factor) -> 
     return n
 
 
-def _fit_sizes(fit: LinearFit, fac: _Factor) -> Array | None:
+def _fit_sizes(fit: LinearFit, fac: Factor) -> Array | None:
     """Rows (or sums of weights) at each level in the fit's data; None if unknown.
 
     Counted in the rows when the fit kept them, else recovered from the column means
     (:func:`_moment_sizes`).
     """
-    design = fit._design
+    design = fit.design
     try:
         source = getattr(design, "source", None)
     except RowsUnavailableError:
@@ -203,13 +192,13 @@ def _fit_sizes(fit: LinearFit, fac: _Factor) -> Array | None:
     w = design.weights if design.weights is not None else np.ones(col.shape[0])
     n = np.zeros(len(fac.levels))
     for value in pd.unique(col):
-        j = _level_index(value, fac.levels)
+        j = level_index(value, fac.levels)
         if j is not None:
             n[j] += float(w[col == value].sum())
     return n if np.all(n > 0) else None
 
 
-def _moment_sizes(fit: LinearFit, fac: _Factor) -> Array | None:
+def _moment_sizes(fit: LinearFit, fac: Factor) -> Array | None:
     """Group sizes of a fit without rows, from its weighted column means.
 
     With an intercept, the fit keeps the weighted mean ``m`` of each column and the weight sum
@@ -220,7 +209,7 @@ def _moment_sizes(fit: LinearFit, fac: _Factor) -> Array | None:
     within :data:`SIZE_ROUND_TOL`.  None when the fit has no intercept, the factor has no
     main-effect term of ``k − 1`` columns, or a size comes out not positive.
     """
-    moments = fit._moments
+    moments = fit.moments
     resolver = ModelResolver.of(fit)
     encoder = resolver.encoder
     if moments is None or moments.intercept is None or encoder is None:

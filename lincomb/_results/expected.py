@@ -23,7 +23,9 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from lincomb import _core as core
-from lincomb._covariance import estimators as covmod
+from lincomb._core.checks import check_level
+from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.reference import check_reference
 from lincomb._results.format import _num, _table_html, _table_text
 from lincomb.errors import InputError
 
@@ -102,8 +104,7 @@ class ExpectedValues:
     sigma: float
 
     def _quantile(self, level: float) -> float:
-        if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        check_level(level)
         dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
         return float(dist.ppf(0.5 + level / 2))
 
@@ -182,7 +183,7 @@ class ExpectedValues:
 
 
 def row_moments(
-    fit: LinearFit, x: Array, vcov: covmod.CovarianceEstimate
+    fit: LinearFit, x: Array, vcov: CovarianceEstimate
 ) -> tuple[Array, Array, NDArray[np.bool_]]:
     """``(x·β̂, its standard errors, estimable)`` for design rows ``x`` (m, p), vectorized.
 
@@ -190,7 +191,7 @@ def row_moments(
     estimability residual, the estimate and the covariance root (one triangular solve with the
     ``m`` rows as right-hand sides) are those of a Wald test row.  Rows not estimable get NaN.
     """
-    sol = fit._sol
+    sol = fit.solution
     cu = sol.to_working(x)
     ok = sol.estimability_residual(cu) <= core.ROW_TOL
     ck = np.ascontiguousarray(cu[:, sol.kept])
@@ -241,10 +242,10 @@ def expected_values(
     >>> expected_values(f).rows.size
     300
     """
-    ref = covmod.check_reference(reference)
-    vcov = fit._covariance_estimate(covariance)
+    ref = check_reference(reference)
+    vcov = fit.evaluate_covariance(covariance)
     if new is None:
-        design = fit._design
+        design = fit.design
         x = design.x
         labels = design.row_index
         w = design.weights

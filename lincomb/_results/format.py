@@ -56,15 +56,23 @@ def _fit_rows(f: LinearFit) -> list[list[str]]:
     try:
         frame = f.coef_frame()
     except Exception:  # noqa: BLE001 - a degenerate fit still prints its estimates
-        return [[n, _num(v), "", "", ""] for n, v in f.coefficients.items()]
+        return [[n, _num(v), "", "", ""] for n, v in zip(f.names, f.coefficients, strict=True)]
     rows = []
-    for r in frame.itertuples():
-        if r.status == "aliased":
-            rows.append([r.coefficient, "aliased", "", "", ""])
+    for r in frame.to_dict("records"):
+        if r["status"] == "aliased":
+            rows.append([str(r["coefficient"]), "aliased", "", "", ""])
         else:
             # identified only with the aliased columns fixed at 0: say so beside the numbers
-            name = r.coefficient + (" (not estimable)" if r.status == "not estimable" else "")
-            rows.append([name, _num(r.estimate), _num(r.se), _num(r.ratio), _p(r.p)])
+            note = " (not estimable)" if r["status"] == "not estimable" else ""
+            rows.append(
+                [
+                    str(r["coefficient"]) + note,
+                    _num(float(r["estimate"])),
+                    _num(float(r["se"])),
+                    _num(float(r["ratio"])),
+                    _p(float(r["p"])),
+                ]
+            )
     return rows
 
 
@@ -76,7 +84,7 @@ def _fit_head(f: LinearFit) -> str:
     cov_txt = ""
     if cov != "classical":
         # the tests' reference df can differ from the residual df (G - 1 for clusters)
-        df_tests = f._covariance_estimate(None).df_error
+        df_tests = f.evaluate_covariance(None).df_error
         cov_txt = (
             f"\nstandard errors: {cov} covariance; its t and F tests use {df_tests:g}"
             " denominator df"
@@ -154,7 +162,11 @@ def _restricted_parts(r: RestrictedFit) -> tuple[str, list[list[str]]]:
         f" residual df = {r.df_error}; sigma = {r.sigma:.6g}"
     )
     se = r.std_errors()
-    rows = [[n, _num(v), _num(se[n])] for n, v in r.coefficients.items()]
+    names = [str(n) for n in r.coefficients.index]
+    rows = [
+        [n, _num(float(v)), _num(float(s))]
+        for n, v, s in zip(names, r.coefficients, se.loc[names], strict=True)
+    ]
     return head, rows
 
 

@@ -21,7 +21,7 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import stats
 
-from lincomb.errors import ParameterError
+from lincomb._core.checks import check_level
 
 __all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
 
@@ -78,11 +78,6 @@ RESULT_ATTRIBUTES = (
 )
 
 Array = NDArray[np.float64]
-
-
-def check_level(level: float) -> None:
-    if not (0 < level < 1):
-        raise ParameterError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
 
 
 def _row_tail(ratio: Array, df_error: Array) -> Array:

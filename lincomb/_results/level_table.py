@@ -34,15 +34,12 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import stats
 
-from lincomb._builder.contrasts import (
-    _DEGREE_NAMES,
-    _find_factor,
-    _level_index,
-    _model_vars,
-    orthogonal_polynomials,
-)
+from lincomb._builder.level_rows import find_factor, level_index, model_variables
+from lincomb._builder.polynomials import orthogonal_polynomials
+from lincomb._builder.recipes import DEGREE_NAMES
 from lincomb._builder.restriction import _is_number, from_matrix
-from lincomb._covariance import estimators as covmod
+from lincomb._core.checks import check_level
+from lincomb._covariance.reference import check_reference
 from lincomb._results.expected import row_moments
 from lincomb._results.format import _num, _table_html, _table_text
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
@@ -138,8 +135,7 @@ class LevelMeanTable:
         >>> f.level_means("line").row_frame()[["line", "label"]].iloc[0].tolist()
         ['L1', 'line=L1']
         """
-        if not (0 < level < 1):
-            raise ValueError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+        check_level(level)
         dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
         q = float(dist.ppf(0.5 + level / 2))
         out = pd.DataFrame({f: [c[i] for c in self.cells] for i, f in enumerate(self.factors)})
@@ -162,7 +158,7 @@ class LevelMeanTable:
             from_matrix(c, labels=labels), covariance=self._vcov, reference=self.reference
         )
 
-    def differences(self, versus: Any = None) -> WaldTest:
+    def differences(self, versus: object = None) -> WaldTest:
         """Differences between the means: all pairs, or each against a reference.
 
         Parameters
@@ -218,7 +214,7 @@ class LevelMeanTable:
         want = key if isinstance(key, tuple) else (key,)
         for i, cell in enumerate(self.cells):
             if len(want) == len(cell) and all(
-                _level_index(v, (c,)) == 0 for v, c in zip(want, cell, strict=True)
+                level_index(v, (c,)) == 0 for v, c in zip(want, cell, strict=True)
             ):
                 return i
         raise UnknownCoefficientError(
@@ -279,7 +275,7 @@ class LevelMeanTable:
         poly = orthogonal_polynomials(v, degree)
         rows = np.vstack([slope, poly])
         labels = [f"slope per unit of {name}"] + [
-            f"{name} trend: {_DEGREE_NAMES.get(d + 1, f'degree {d + 1}')}"
+            f"{name} trend: {DEGREE_NAMES.get(d + 1, f'degree {d + 1}')}"
             for d in range(poly.shape[0])
         ]
         return self._test(rows, labels)
@@ -313,7 +309,7 @@ class LevelMeanTable:
 
 def _encode(fit: LinearFit, frame: pd.DataFrame) -> Array:
     """Full model rows (fit column order) of ``frame`` through the fit's encoder."""
-    encoder = fit._design.encoder
+    encoder = fit.design.encoder
     assert encoder is not None  # checked by the caller
     try:
         grid, names = encoder.encode_grid(frame, None, "for the level means")
@@ -344,7 +340,7 @@ def level_mean_table(
     >>> level_mean_table(f, "line").estimate.shape
     (4,)
     """
-    encoder = fit._design.encoder
+    encoder = fit.design.encoder
     if encoder is None:
         raise ContrastError(
             "level means need a fit made from a formula (lc.fit); this fit has no factors."
@@ -353,17 +349,17 @@ def level_mean_table(
         raise ContrastError(f"covariates must be 'mean' or 'rows', got {covariates!r}.")
     if weighting not in ("equal", "observed"):
         raise ContrastError(f"weighting must be 'equal' or 'observed', got {weighting!r}.")
-    ref = covmod.check_reference(reference)
-    vcov = fit._covariance_estimate(covariance)
+    ref = check_reference(reference)
+    vcov = fit.evaluate_covariance(covariance)
     names = [factors] if isinstance(factors, str) else list(factors)
     if not names:
         raise ContrastError("name at least one factor.")
-    facs = [_find_factor(encoder, n, None) for n in names]
+    facs = [find_factor(encoder, n, None) for n in names]
     targets = [f.variable for f in facs]
     if len(set(targets)) != len(targets):
         raise ContrastError(f"a factor is named twice: {names}.")
     cats = encoder.categoricals()
-    model_vars = _model_vars(encoder)
+    model_vars = model_variables(encoder)
     held: dict[str, Any] = {}
     for key, val in dict(holding or {}).items():
         if key not in model_vars:
@@ -374,7 +370,7 @@ def level_mean_table(
             raise ContrastError(f"{key!r} is a factor of the table; it cannot also be held.")
         if key in cats:
             levs = cats[key][0][1]
-            i = _level_index(val, levs)
+            i = level_index(val, levs)
             if i is None:
                 raise UnknownCoefficientError(
                     f"{key}={val!r} is not a level of {key!r}; levels: {[str(x) for x in levs]}."
@@ -392,7 +388,7 @@ def level_mean_table(
     k = len(cells)
     setting_parts = [f"{v}={readable(x)}" for v, x in held.items()]
     if covariates == "rows" or weighting == "observed" or others_num:
-        frame_or_none = fit._design.source  # raises for a fit without rows
+        frame_or_none = fit.design.source  # raises for a fit without rows
         if frame_or_none is None:
             raise ContrastError("this fit keeps no data frame to average over.")
         source: pd.DataFrame = frame_or_none

@@ -46,9 +46,9 @@ def fdr_adjust(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.f
     return out, _canonical(method, P_METHODS, "p-value")
 
 
-def _repeat(value: str, r: int) -> pd.Categorical:
+def _repeat(value: str, r: int) -> pd.Categorical[str]:
     """A column holding one label ``r`` times (categorical: cheap for many rows)."""
-    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=[value])
+    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=pd.Index([value]))
 
 
 @dataclass(frozen=True)

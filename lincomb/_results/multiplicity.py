@@ -30,6 +30,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
+from lincomb._core.checks import check_level
 from lincomb._core.maxt import (
     DEFAULT_MAX_POINTS,
     DEFAULT_SEED,
@@ -159,8 +160,7 @@ def adjust_pvalues(p: ArrayLike, method: str = "holm", *, rate: float = 0.05) ->
     [0.03, 0.04, 0.04]
     """
     key = _canonical(method, P_METHODS, "p-value")
-    if not (0 < float(rate) < 1):
-        raise InputError(f"rate must be in (0, 1), got {rate!r}; e.g. 0.05.")
+    check_level(rate, "rate", "0.05")
     try:
         pv = np.array(p, dtype=np.float64, copy=True)
     except (TypeError, ValueError):
@@ -540,8 +540,7 @@ def simultaneous_wald(
     """Simultaneous intervals for the rows of a Wald test (see :meth:`WaldTest.simultaneous
     <lincomb.results.WaldTest.simultaneous>`)."""
     key = _canonical(method, INTERVAL_METHODS, "interval")
-    if not (0 < level < 1):
-        raise InputError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+    check_level(level)
     fam = _family(wald, redundant)
     k = fam["keep"]
     m = k.size

@@ -148,7 +148,7 @@ class NestedComparison:
 
 
 def _check_same_rows(a: LinearFit, b: LinearFit, i: int) -> None:
-    da, db = a._design, b._design
+    da, db = a.design, b.design
     why = ""
     if a.n_obs != b.n_obs:
         why = f"fit {i - 1} used {a.n_obs} rows and fit {i} used {b.n_obs}"
@@ -172,11 +172,11 @@ def _check_same_rows(a: LinearFit, b: LinearFit, i: int) -> None:
 
 
 def _check_nested(a: LinearFit, b: LinearFit, i: int, tol: float) -> None:
-    xa, xb = a._design.x, b._design.x
+    xa, xb = a.design.x, b.design.x
     x = np.hstack([xb, xa])
     # the larger fit's intercept (if any) leads; the smaller fit's columns come last, so each
     # of them is aliased exactly when it lies in the span of the larger fit's columns
-    m = core.moments_from_arrays(x, b._design.y, b._design.weights, b._design.intercept)
+    m = core.moments_from_arrays(x, b.design.y, b.design.weights, b.design.intercept)
     sol = core.solve(m, tol)
     outside = sorted(int(j) - xb.shape[1] for j in sol.kept if j >= xb.shape[1])
     if outside:

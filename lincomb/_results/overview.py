@@ -23,7 +23,8 @@ import numpy as np
 import pandas as pd
 
 from lincomb import _core as core
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.estimate import check_rank
+from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import RowsUnavailableError
 
@@ -142,9 +143,9 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
     >>> overview(lc.fit("fill_g ~ line", lc.datasets.fill_lines())).df_test
     3
     """
-    ref = covmod.check_reference(reference)
-    sol = fit._sol
-    vcov = fit._covariance_estimate(None)
+    ref = check_reference(reference)
+    sol = fit.solution
+    vcov = fit.evaluate_covariance(None)
     n = sol.n
     tss = sol.y_norm**2
     r2 = 1.0 - sol.rss / tss if tss > 0 else float("nan")
@@ -152,20 +153,20 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
     r2_adj = 1.0 - (1.0 - r2) * (n - c) / sol.df_resid
     tested = np.arange(c, sol.rank)
     if tested.size:
-        fit._check_variance()
+        fit.check_variance()
         ck = np.eye(sol.rank)[tested]
         est = ck @ sol.theta
         root = vcov.root(ck)
-        covmod.check_rank(root, np.arange(tested.size), ["overall"] * tested.size, vcov)
+        check_rank(root, np.arange(tested.size), ["overall"] * tested.size, vcov)
         wc = core.wald_from_root(est, root, np.arange(tested.size))
-        _d, stat, df_err, p = covmod.reference_result(wc.quad, wc.rank, vcov.df_error, ref)
+        _d, stat, df_err, p = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     else:
         stat, p = float("nan"), float("nan")
         df_err = float(vcov.df_error) if ref == "F" else float("inf")
     log_w = 0.0
     if fit.weighted:
         try:
-            w = fit._design.weights
+            w = fit.design.weights
             log_w = float(np.sum(np.log(w))) if w is not None else float("nan")
         except RowsUnavailableError:
             log_w = float("nan")

@@ -24,7 +24,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
-from lincomb._covariance.estimators import LEVERAGE_TOL
+from lincomb._covariance.meats import LEVERAGE_TOL
 from lincomb._covariance.rows import RowMap, fit_rows
 from lincomb._results.format import _num, _table_html, _table_text
 
@@ -145,7 +145,7 @@ def row_diagnostics(fit: LinearFit) -> RowDiagnostics:
     (300,)
     """
     x, y, w = fit_rows(fit)
-    sol = fit._sol
+    sol = fit.solution
     rmap = RowMap.of(sol)
     xc, e = rmap.rows(x, y)
     sw = np.ones(x.shape[0]) if w is None else np.sqrt(w)
@@ -166,7 +166,7 @@ def row_diagnostics(fit: LinearFit) -> RowDiagnostics:
     else:
         external = np.full_like(ew, np.nan)
     return RowDiagnostics(
-        rows=pd.Index(fit._design.row_index),
+        rows=pd.Index(fit.design.row_index),
         response=np.array(y, dtype=np.float64, copy=True),
         fitted=y - e,
         residual=e,

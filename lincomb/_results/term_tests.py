@@ -32,7 +32,8 @@ import scipy.linalg as sla
 from numpy.typing import NDArray
 
 from lincomb import _core as core
-from lincomb._covariance import estimators as covmod
+from lincomb._covariance.estimate import check_rank
+from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import InputError, SingularCovarianceError
 
@@ -180,7 +181,7 @@ def term_rows(sol: core.Solution, first: list[int], term: list[int]) -> Array:
     >>> import numpy as np, lincomb as lc
     >>> f = lc.fit_arrays(np.c_[np.ones(6), [0.0, 1, 2, 3, 4, 6], [1.0, 0, 2, 1, 0, 1]],
     ...                   [1.0, 2, 4, 3, 5, 7])
-    >>> rows = term_rows(f._sol, [0, 1], [2])
+    >>> rows = term_rows(f.solution, [0, 1], [2])
     >>> rows.shape
     (1, 3)
     """
@@ -214,10 +215,10 @@ def term_tests(
             f"adjusted_for must be one of {list(SCHEMES)} (sequential, marginality, every"
             f" other term); got {adjusted_for!r}."
         )
-    ref = covmod.check_reference(reference)
-    fit._check_variance()
-    vcov = fit._covariance_estimate(covariance)
-    sol = fit._sol
+    ref = check_reference(reference)
+    fit.check_variance()
+    vcov = fit.evaluate_covariance(covariance)
+    sol = fit.solution
     index = fit.index
     pos = {int(c): i for i, c in enumerate(sol.kept)}
     labels = [t for t in index.terms if t != "1"]
@@ -251,11 +252,11 @@ def term_tests(
         root = vcov.root(c)
         independent = np.arange(len(mine))
         try:
-            covmod.check_rank(root, independent, [t] * len(mine), vcov)
+            check_rank(root, independent, [t] * len(mine), vcov)
         except SingularCovarianceError:
             continue  # the estimator cannot test this many directions: no statistic
         wc = core.wald_from_root(est, root, independent)
-        _dist, stat[i], _df, pval[i] = covmod.reference_result(wc.quad, wc.rank, vcov.df_error, ref)
+        _dist, stat[i], _df, pval[i] = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     return TermTests(
         terms=tuple(labels),
         adjusted_for=adjusted_for,

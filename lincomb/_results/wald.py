@@ -23,6 +23,9 @@ from lincomb._results.frames import WaldResult, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 
 if TYPE_CHECKING:  # pragma: no cover
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
     from lincomb._results.multiplicity import MultipleInference
 
 __all__ = [
@@ -202,10 +205,18 @@ class WaldTest(WaldResult):
         """
         return self._test_frame()
 
-    def plot(self, level: float = 0.95, **kwargs: Any) -> Any:
+    def plot(
+        self,
+        level: float = 0.95,
+        *,
+        simultaneous: str | MultipleInference | pd.DataFrame | None = None,
+        simultaneous_label: str | None = None,
+        ax: Axes | None = None,
+        title: str | None = None,
+    ) -> Figure:
         """Interval chart of the rows, hypothesized values marked (needs ``lincomb[plot]``).
 
-        Delegates to :func:`lincomb.plot.intervals`; keyword arguments are passed on.
+        Delegates to :func:`lincomb.plot.intervals`, whose arguments these are.
 
         Examples
         --------
@@ -217,7 +228,14 @@ class WaldTest(WaldResult):
         """
         from lincomb.plot import intervals
 
-        return intervals(self, level, **kwargs)
+        return intervals(
+            self,
+            level,
+            simultaneous=simultaneous,
+            simultaneous_label=simultaneous_label,
+            ax=ax,
+            title=title,
+        )
 
     def adjust(
         self,

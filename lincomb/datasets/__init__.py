@@ -27,7 +27,7 @@ from typing import Final
 
 import pandas as pd
 
-from lincomb.errors import UnknownDatasetError
+from lincomb.errors import InternalError, UnknownDatasetError
 
 __all__ = [
     "UnknownDatasetError",
@@ -55,7 +55,7 @@ def _categorical(
     # A value outside the declared levels would silently become NaN; the shipped file is fixed,
     # so this only fires if a CSV and this module disagree.
     if cat.isna().sum() != values.isna().sum():
-        raise RuntimeError(f"column {values.name!r} holds values outside {list(levels)}")
+        raise InternalError(f"column {values.name!r} holds values outside {list(levels)}")
     return cat
 
 

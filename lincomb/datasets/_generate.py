@@ -24,6 +24,8 @@ from typing import Final
 import numpy as np
 import pandas as pd
 
+from lincomb.errors import InternalError
+
 __all__ = [
     "ASSAY_AFFECTED",
     "ASSAY_DOSE_FRACTION",
@@ -226,7 +228,7 @@ def _service_sites(rng: np.random.Generator) -> pd.DataFrame:
     )
     wait = np.round(mu + err.ravel(), 1)
     if np.any(wait <= 0):  # the truth above must not need clipping
-        raise RuntimeError("simulated a non-positive wait; change the service_sites truths")
+        raise InternalError("simulated a non-positive wait; change the service_sites truths")
     return pd.DataFrame(
         {
             "wait_min": wait,

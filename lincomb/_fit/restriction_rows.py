@@ -1,0 +1,89 @@
+"""Checking a restriction system against a design's rank: contradictions and estimability.
+
+Shared by every path that tests or imposes restrictions (fits, batches, planned designs), so the
+rules and the wording of their errors are the same everywhere.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from numpy.typing import NDArray
+
+from lincomb import _core as core
+from lincomb.errors import InconsistentRestrictionError, NotEstimableError
+
+__all__ = ["check_rows"]
+
+
+def check_rows(
+    sol: core.Solution,
+    c: NDArray[np.float64],
+    d: NDArray[np.float64],
+    labels: Sequence[str],
+    names: Sequence[str],
+    where: str = "this rank-deficient design",
+    hint: str = "",
+) -> tuple[NDArray[np.float64], core.RowAnalysis]:
+    """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
+
+    Shared by every path that tests or imposes restrictions (fits, planned designs), so the
+    rules and the wording of their errors are the same everywhere.
+
+    Returns
+    -------
+    cu : (m, p) ndarray
+        ``C`` in working coordinates.
+    analysis : RowAnalysis
+        Independent and redundant rows (see :func:`lincomb._core.analyze_rows`).
+
+    Raises
+    ------
+    InconsistentRestrictionError
+        A redundant row's ``d`` contradicts the rows it depends on (the rows are named).
+    NotEstimableError
+        A row has a component in the design's null space (the row and the aliased columns it
+        touches are named).
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> f = lc.fit_arrays(np.c_[np.ones(5), [0.0, 1, 2, 3, 5]], [1.0, 2, 2, 4, 5])
+    >>> c = np.array([[0.0, 1.0], [0.0, 2.0]])
+    >>> cu, a = check_rows(f.solution, c, np.array([1.0, 2.0]), ["x1 = 1", "2*x1 = 2"], f.names)
+    >>> a.independent.tolist(), a.dependencies
+    ([0], {1: {0: 2.0}})
+    """
+    cu = sol.to_working(c)
+    # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
+    analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
+    if analysis.inconsistent:
+        lines = []
+        for row, dval, implied in analysis.inconsistent:
+            dep = analysis.dependencies[row]
+            combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
+            lines.append(
+                f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
+                f" but its d is {dval:.6g}"
+            )
+        raise InconsistentRestrictionError(
+            "the restrictions contradict each other: "
+            + "; ".join(lines)
+            + ". Remove one of the conflicting rows or correct its value."
+        )
+    resid = sol.estimability_residual(cu)
+    bad = np.flatnonzero(resid > core.ROW_TOL)
+    if bad.size:
+        msgs = []
+        for i in bad:
+            touched = [names[int(j)] for j in sol.aliased_touched(cu[i], core.ROW_TOL)]
+            msgs.append(f"row {int(i)} ({labels[int(i)]}) involves aliased coefficients {touched}")
+        aliased = [names[int(j)] for j in sorted(sol.aliased)]
+        raise NotEstimableError(
+            f"restriction not estimable under {where}: "
+            + "; ".join(msgs)
+            + f". Aliased columns: {aliased}. Restate the row as a contrast that the data"
+            " identify, or change the design so those columns are not aliased." + hint
+        )
+    return cu, analysis
