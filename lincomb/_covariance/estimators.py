@@ -89,7 +89,10 @@ Rev. Econ. Stud. 61:631-653 (the automatic lag ``floor(4 (n/100)^(2/9))``).
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import NDArray
 
 from lincomb._covariance.estimate import (
     COV_RANK_TOL,
@@ -102,7 +105,7 @@ from lincomb._covariance.few_clusters import FEW_CLUSTERS
 from lincomb._covariance.given import PSD_TOL, SYMMETRY_TOL
 from lincomb._covariance.in_memory import automatic_lag
 from lincomb._covariance.meats import LEVERAGE_TOL
-from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._covariance.reference import check_reference, reference_result, test_reference
 from lincomb._covariance.specs import (
     HC_KINDS,
     Classical,
@@ -142,11 +145,32 @@ __all__ = [
     "given",
     "as_estimator",
     "evaluate",
+    "coefficient_df",
     "automatic_lag",
     "check_rank",
     "check_reference",
     "reference_result",
+    "test_reference",
 ]
+
+
+def coefficient_df(sol: Any, estimate: CovarianceEstimate) -> NDArray[np.float64]:
+    """Small-sample df of each coefficient under an estimate with per-test df (NaN where the
+    coefficient is aliased).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> est = evaluate(f, lc.clustered(by="site", adjust="bias-reduced"))
+    >>> coefficient_df(f._sol, est).shape
+    (3,)
+    """
+    cu = sol.to_working(np.eye(sol.p))[:, sol.kept]
+    rows, _ = estimate.test_df(cu, np.zeros(0, dtype=np.intp))
+    out = np.asarray(rows, dtype=np.float64).copy()
+    out[sol.aliased] = np.nan
+    return out
 
 
 def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:

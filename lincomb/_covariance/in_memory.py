@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
+from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
 from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
@@ -26,7 +27,14 @@ from lincomb.errors import CovarianceInputError
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["BLOCK_ELEMENTS", "heteroskedastic", "clustered", "serial", "automatic_lag"]
+__all__ = [
+    "BLOCK_ELEMENTS",
+    "heteroskedastic",
+    "clustered",
+    "adjusted_clustered",
+    "serial",
+    "automatic_lag",
+]
 
 #: Numbers (rows × kept columns) in one block of rows: 512 KiB, well inside a core's L2 cache.
 BLOCK_ELEMENTS: int = 1 << 16
@@ -51,7 +59,18 @@ def _over_rows(
     order: NDArray[np.intp] | None = None,
 ) -> CovarianceEstimate:
     """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given), merge and
-    finish, on one BLAS thread when the fit is large (threads woken for small products cost
+    finish."""
+    return meat.finish(_over_rows_partial(meat, fit, labels, order))  # type: ignore[no-any-return]
+
+
+def _over_rows_partial(
+    meat: Any,
+    fit: LinearFit,
+    labels: tuple[NDArray[Any], ...] = (),
+    order: NDArray[np.intp] | None = None,
+) -> Any:
+    """The merged partial of ``meat.block`` over blocks of the fit's rows (in ``order`` if
+    given), on one BLAS thread when the fit is large (threads woken for small products cost
     more than the products on busy cores)."""
     x, y, w = fit_rows(fit)
     rmap = RowMap.of(fit._sol)
@@ -70,7 +89,7 @@ def _over_rows(
             xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
             weights = None if w is None else w[rows]
             parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
-        return meat.finish(meat.merge(*parts))  # type: ignore[no-any-return]
+        return meat.merge(*parts)
 
 
 def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
@@ -80,7 +99,11 @@ def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
 
 
 def clustered(
-    fit: LinearFit, by: tuple[Any, ...], small_sample: bool, df: float | None
+    fit: LinearFit,
+    by: tuple[Any, ...],
+    small_sample: bool,
+    df: float | None,
+    two_way_factor: str = "per-term",
 ) -> CovarianceEstimate:
     """One- or two-way cluster-robust covariance on an in-memory fit."""
     codes = []
@@ -90,8 +113,16 @@ def clustered(
         c, _ = cluster_codes(fit, values, name)
         codes.append(c)
         names.append(name)
-    meat = ClusterMeat(fit, tuple(names), small_sample, df)
+    meat = ClusterMeat(fit, tuple(names), small_sample, df, two_way_factor)
     return _over_rows(meat, fit, tuple(codes))
+
+
+def adjusted_clustered(fit: LinearFit, by: Any, adjust: str, df: float | None) -> CovarianceEstimate:
+    """The bias-reduced or jackknife cluster-robust covariance on an in-memory fit."""
+    values, name = row_values(fit, by, "cluster labels")
+    codes, _ = cluster_codes(fit, values, name)
+    meat = AdjustedClusterMeat(fit, name, adjust, df)
+    return _over_rows(meat, fit, (codes,))
 
 
 def serial(

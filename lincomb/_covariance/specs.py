@@ -21,6 +21,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from lincomb._covariance import in_memory
+from lincomb._covariance.bias_reduced import ADJUSTMENTS
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.given import given_estimate
 from lincomb.errors import CovarianceInputError
@@ -143,10 +144,16 @@ class Clustered(Estimator):
     by: tuple[Any, ...]
     small_sample: bool = True
     df: float | None = None
+    adjust: str = "none"
+    two_way_factor: str = "per-term"
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit._check_variance()
-        return in_memory.clustered(fit, self.by, self.small_sample, self.df)
+        if self.adjust != "none":
+            return in_memory.adjusted_clustered(fit, self.by[0], self.adjust, self.df)
+        return in_memory.clustered(
+            fit, self.by, self.small_sample, self.df, self.two_way_factor
+        )
 
 
 @dataclass(frozen=True, eq=False)
@@ -200,6 +207,8 @@ def clustered(
     *,
     small_sample: bool = True,
     df: float | None = None,
+    adjust: str = "none",
+    two_way_factor: str = "per-term",
 ) -> Clustered:
     """Cluster-robust covariance: errors may correlate within a cluster, not across clusters.
 
@@ -216,7 +225,22 @@ def clustered(
         ``K`` the rank of the design).
     df : float, optional
         Denominator degrees of freedom of the F (and t) reference.  Default ``G − 1``; with two
-        clustering variables ``min(G₁, G₂) − 1``.
+        clustering variables ``min(G₁, G₂) − 1``; with an ``adjust`` other than ``"none"``,
+        small-sample df computed for each test (see below).
+    adjust : {'none', 'bias-reduced', 'jackknife'}, default 'none'
+        Adjust each cluster's residuals for the leverage of its rows before summing the scores
+        (one-way clustering only; ``small_sample`` is then not used).  ``"bias-reduced"``
+        multiplies them by ``(I − H_gg)^{-1/2}`` (the block of ``I − H`` for cluster ``g``),
+        which makes the meat unbiased under independent, homoskedastic errors;
+        ``"jackknife"`` by ``(I − H_gg)^{-1}`` with the factor ``(G − 1)/G``, which equals the
+        delete-one-cluster jackknife.  Each row of a test then gets Satterthwaite-type df, and
+        a system the Hotelling-T² approximation ``(η − q + 1)/(η q)·Q ~ F(q, η − q + 1)``
+        with ``η`` estimated (see :mod:`lincomb._covariance.bias_reduced`).  These are the
+        estimators to use with few clusters; they never draw the few-clusters warning.
+    two_way_factor : {'per-term', 'smaller'}, default 'per-term'
+        Small-sample factors of a two-way clustering: ``"per-term"`` gives each of the three
+        terms its own ``G/(G−1)·(N−1)/(N−K)``; ``"smaller"`` applies the one factor of the
+        clustering with fewer clusters to all three.
 
     Returns
     -------
@@ -268,7 +292,26 @@ def clustered(
             " for two-way clustering."
         )
     _check_df(df)
-    return Clustered(by=parts, small_sample=bool(small_sample), df=df)
+    if adjust not in ADJUSTMENTS:
+        raise CovarianceInputError(
+            f"unknown residual adjustment {adjust!r}; use one of {list(ADJUSTMENTS)}."
+        )
+    if adjust != "none" and len(parts) != 1:
+        raise CovarianceInputError(
+            f"adjust={adjust!r} is for one clustering variable; got {len(parts)}. Use"
+            " adjust='none' for two-way clustering."
+        )
+    if two_way_factor not in ("per-term", "smaller"):
+        raise CovarianceInputError(
+            f"two_way_factor must be 'per-term' or 'smaller', got {two_way_factor!r}."
+        )
+    return Clustered(
+        by=parts,
+        small_sample=bool(small_sample),
+        df=df,
+        adjust=adjust,
+        two_way_factor=two_way_factor,
+    )
 
 
 def serial(

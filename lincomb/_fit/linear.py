@@ -294,7 +294,9 @@ class LinearFit:
         _check_level(level)
         ref = covmod.check_reference(reference)
         vcov = self._covariance_estimate(covariance)
-        dfree = vcov.df_den if ref == "F" else np.inf
+        dfree: Any = vcov.df_den if ref == "F" else np.inf
+        if ref == "F" and vcov.per_test_df:  # each coefficient's own small-sample df
+            dfree = covmod.coefficient_df(self._sol, vcov)
         dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
         se = self.std_errors(vcov).to_numpy()
@@ -426,7 +428,9 @@ class LinearFit:
         est = cu[:, sol.kept] @ sol.theta
         covmod.check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
-        dist, stat, df_den, p_value = covmod.reference_result(wc.quad, wc.rank, vcov.df_den, ref)
+        dist, stat, df_den, p_value, row_df = covmod.test_reference(
+            vcov, wc.quad, wc.rank, cu[:, sol.kept], analysis.independent, ref
+        )
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
@@ -442,6 +446,7 @@ class LinearFit:
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
             estimate_covariance=root.T @ root,
+            row_df=row_df,
         )
 
     def wald_batch(

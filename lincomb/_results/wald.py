@@ -122,13 +122,17 @@ class WaldTest:
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     matrix: pd.DataFrame | None = field(default=None, repr=False)
     estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
+    row_df: NDArray[np.float64] | None = field(default=None, repr=False)
 
     @property
     def row_p_value(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row (t with ``df_den``, normal if ``df_den`` is inf)."""
+        """Two-sided p-value of each row (t with ``df_den``, or the row's own df in
+        ``row_df`` when the covariance estimator gives one per row; normal if inf)."""
         return 2 * self._row_dist().sf(np.abs(self.t))
 
     def _row_dist(self):  # type: ignore[no-untyped-def]
+        if self.row_df is not None:
+            return stats.t(self.row_df)
         return stats.norm() if not np.isfinite(self.df_den) else stats.t(self.df_den)
 
     def intervals(self, level: float = 0.95) -> pd.DataFrame:
@@ -188,7 +192,7 @@ class WaldTest:
                 "level": level,
                 "role": role,
                 "distribution": "t" if np.isfinite(self.df_den) else "normal",
-                "df": self.df_den,
+                "df": self.df_den if self.row_df is None else self.row_df,
                 "covariance": self.covariance,
             }
         )
