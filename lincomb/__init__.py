@@ -24,6 +24,7 @@ from lincomb._builder.restriction import (
     term,
 )
 from lincomb._covariance.estimators import clustered, given, serial
+from lincomb._covariance.wild import WildBootstrapTest, wild_bootstrap
 from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
 from lincomb._fit.chunked import fit_array_chunks, fit_chunks
 from lincomb._fit.distributed import covariance_pass as dask_covariance_pass
@@ -68,6 +69,8 @@ __all__ = [
     # covariance estimators
     "clustered",
     "serial",
+    "wild_bootstrap",
+    "WildBootstrapTest",
     "given",
     # results
     "WaldTest",
