@@ -23,7 +23,7 @@ from lincomb._builder.restriction import (
     from_matrix,
     term,
 )
-from lincomb._covariance.estimators import clustered, given, serial
+from lincomb._covariance.estimators import clustered, common_shocks, given, serial
 from lincomb._covariance.wild import WildBootstrapTest, wild_bootstrap
 from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
 from lincomb._fit.chunked import fit_array_chunks, fit_chunks
@@ -69,6 +69,7 @@ __all__ = [
     # covariance estimators
     "clustered",
     "serial",
+    "common_shocks",
     "wild_bootstrap",
     "WildBootstrapTest",
     "given",

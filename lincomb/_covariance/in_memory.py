@@ -15,14 +15,16 @@ import threading
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
+from lincomb._covariance.panel import TimeSumMeat, UnitSerialMeat
 from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
 from lincomb._settings import blas_limit, can_limit
-from lincomb.errors import CovarianceInputError
+from lincomb.errors import CovarianceInputError, TiedTimesError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -33,6 +35,7 @@ __all__ = [
     "clustered",
     "adjusted_clustered",
     "serial",
+    "common_shocks",
     "automatic_lag",
 ]
 
@@ -126,9 +129,16 @@ def adjusted_clustered(fit: LinearFit, by: Any, adjust: str, df: float | None) -
 
 
 def serial(
-    fit: LinearFit, lag: int | None, order: Any, small_sample: bool, df: float | None
+    fit: LinearFit,
+    lag: int | None,
+    order: Any,
+    small_sample: bool,
+    df: float | None,
+    units: Any = None,
 ) -> CovarianceEstimate:
-    """Newey–West covariance on an in-memory fit, rows taken in time order."""
+    """Newey–West covariance on an in-memory fit, rows taken in time order (within units)."""
+    if units is not None:
+        return _serial_within(fit, lag, order, small_sample, df, units)
     n = fit.n_obs
     lag = automatic_lag(n) if lag is None else lag
     if lag >= n:
@@ -145,3 +155,61 @@ def serial(
         perm = time_order(fit, values, order_name)
     meat = SerialMeat(fit, lag, order_name, small_sample, df)
     return _over_rows(meat, fit, order=perm)
+
+
+def _serial_within(
+    fit: LinearFit, lag: int | None, order: Any, small_sample: bool, df: float | None, units: Any
+) -> CovarianceEstimate:
+    """Newey–West within units: rows sorted by unit, then time; lags stay inside a unit."""
+    fit_rows(fit)
+    if order is None:
+        raise CovarianceInputError(
+            "serial(..., units=...) needs the time order of each unit's rows: pass order= (a"
+            " column name, a Series or one value per row)."
+        )
+    uvalues, uname = row_values(fit, units, "units")
+    ucodes, g = cluster_codes(fit, uvalues, uname)
+    tvalues, tname = row_values(fit, order, "time order")
+    bad = np.flatnonzero(pd.isna(tvalues))
+    if bad.size:
+        raise CovarianceInputError(
+            f"time order {tname!r} is missing at row {fit._design.row_index[int(bad[0])]!r}"
+            f" ({bad.size} missing in all); every row used needs a time value."
+        )
+    tcodes = pd.factorize(tvalues, sort=True)[0]
+    perm = np.lexsort((tcodes, ucodes)).astype(np.intp)
+    us, ts = ucodes[perm], tcodes[perm]
+    ties = np.flatnonzero((us[1:] == us[:-1]) & (ts[1:] == ts[:-1]))
+    if ties.size:
+        i = perm[ties[0]]
+        raise TiedTimesError(
+            f"time order {tname!r} repeats the value {tvalues[i]!r} within unit"
+            f" {uvalues[i]!r} of {uname!r} ({ties.size} ties): lags within a unit need one row"
+            " per unit and time point. Aggregate those rows, or use lc.common_shocks(time=...)"
+            " or lc.clustered(by=...) instead."
+        )
+    longest = int(np.bincount(ucodes).max())
+    lag = automatic_lag(longest) if lag is None else lag
+    if lag >= longest:
+        raise CovarianceInputError(
+            f"lag {lag} is not smaller than the longest unit's {longest} rows; the automatic"
+            f" rule gives {automatic_lag(longest)}."
+        )
+    meat = UnitSerialMeat(fit, lag, (tname, uname), small_sample, df, g)
+    return _over_rows(meat, fit, (ucodes,), order=perm)
+
+
+def common_shocks(
+    fit: LinearFit, time: Any, lag: int | None, small_sample: bool, df: float | None
+) -> CovarianceEstimate:
+    """Newey–West on scores summed per time point, on an in-memory fit."""
+    fit_rows(fit)
+    values, name = row_values(fit, time, "time")
+    bad = np.flatnonzero(pd.isna(values))
+    if bad.size:
+        raise CovarianceInputError(
+            f"time {name!r} is missing at row {fit._design.row_index[int(bad[0])]!r}"
+            f" ({bad.size} missing in all); every row used needs a time value."
+        )
+    meat = TimeSumMeat(fit, lag, name, small_sample, df)
+    return _over_rows(meat, fit, (values,))

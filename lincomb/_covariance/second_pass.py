@@ -18,10 +18,12 @@ from numpy.typing import NDArray
 from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, Partial
+from lincomb._covariance.panel import TimeSumMeat
 from lincomb._covariance.rows import RowMap
 from lincomb._covariance.specs import (
     Classical,
     Clustered,
+    CommonShocks,
     Given,
     Heteroskedastic,
     Serial,
@@ -54,8 +56,15 @@ class RowPass:
                 " partitions: lagged products would cross block boundaries in an order the pass"
                 " cannot guarantee. Fit the series in memory instead."
             )
-        meat: HeteroskedasticMeat | ClusterMeat | AdjustedClusterMeat
-        if isinstance(est, Clustered):
+        meat: HeteroskedasticMeat | ClusterMeat | AdjustedClusterMeat | TimeSumMeat
+        if isinstance(est, CommonShocks):
+            if not isinstance(est.time, str):
+                raise CovarianceInputError(
+                    "the time of a pass over chunks must be a column name of the chunks; got"
+                    f" {type(est.time).__name__}."
+                )
+            meat = TimeSumMeat(fit, est.lag, est.time, est.small_sample, est.df)
+        elif isinstance(est, Clustered):
             bad = [b for b in est.by if not isinstance(b, str)]
             if bad:
                 raise CovarianceInputError(
@@ -82,7 +91,7 @@ class RowPass:
         labels: tuple[NDArray[Any], ...] = ()
         if isinstance(self.meat, ClusterMeat):
             labels = _labels(self.meat.names, frame, where)
-        elif isinstance(self.meat, AdjustedClusterMeat):
+        elif isinstance(self.meat, (AdjustedClusterMeat, TimeSumMeat)):
             labels = _labels((self.meat.name,), frame, where)
         xc, resid = self.rows.rows(x, y, fortran=self.meat.fortran)
         return self.meat.block(xc, resid, w, labels)

@@ -37,7 +37,9 @@ __all__ = [
     "Clustered",
     "Serial",
     "Given",
+    "CommonShocks",
     "clustered",
+    "common_shocks",
     "serial",
     "given",
     "as_estimator",
@@ -173,10 +175,35 @@ class Serial(Estimator):
     order: Any = None
     small_sample: bool = False
     df: float | None = None
+    units: Any = None
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit._check_variance()
-        return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df)
+        return in_memory.serial(
+            fit, self.lag, self.order, self.small_sample, self.df, self.units
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class CommonShocks(Estimator):
+    """Newey–West on scores summed per time point; build it with :func:`common_shocks`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing", lc.datasets.service_sites())
+    >>> lc.common_shocks(time="week", lag=2).evaluate(f)
+    <CovarianceEstimate: common shocks by week (26 time points; Bartlett, lag 2); reference df 25>
+    """
+
+    time: Any
+    lag: int | None = None
+    small_sample: bool = False
+    df: float | None = None
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit._check_variance()
+        return in_memory.common_shocks(fit, self.time, self.lag, self.small_sample, self.df)
 
 
 @dataclass(frozen=True, eq=False)
@@ -320,6 +347,7 @@ def serial(
     order: str | ArrayLike | pd.Series | None = None,
     small_sample: bool = False,
     df: float | None = None,
+    units: str | ArrayLike | pd.Series | None = None,
 ) -> Serial:
     """Heteroskedasticity-and-autocorrelation consistent covariance (Newey–West).
 
@@ -337,6 +365,12 @@ def serial(
         Multiply the meat by ``n/(n−k)``.
     df : float, optional
         Denominator degrees of freedom of the F (and t) reference; default ``n − rank``.
+    units : str, array_like or pandas.Series, optional
+        Units of a panel (a column name, a Series or one label per row): lags are then taken
+        only inside each unit (rows of a unit in ``order``, which is required), errors of
+        different units are independent, and ``lag`` defaults to the rule of thumb for the
+        longest unit.  Two rows of one unit at the same time raise
+        :class:`~lincomb.errors.TiedTimesError`.  See also :func:`common_shocks`.
 
     Returns
     -------
@@ -359,16 +393,70 @@ def serial(
     >>> res.covariance
     'serial (Bartlett, lag 2, week)'
     """
-    if lag is not None:
-        if isinstance(lag, bool) or not isinstance(lag, (int, np.integer)):
-            raise CovarianceInputError(
-                f"lag must be a whole number of rows, got {lag!r}; e.g. serial(lag=4)."
-            )
-        if lag < 0:
-            raise CovarianceInputError(f"lag must be 0 or more, got {lag}.")
-        lag = int(lag)
+    lag = _check_lag(lag)
     _check_df(df)
-    return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df)
+    return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df, units=units)
+
+
+def common_shocks(
+    time: str | ArrayLike | pd.Series,
+    *,
+    lag: int | None = None,
+    small_sample: bool = False,
+    df: float | None = None,
+) -> CommonShocks:
+    """Covariance robust to common shocks across units and serial dependence (panels).
+
+    The scores of all rows at one time point are summed, and the Newey–West meat (Bartlett
+    weights) of that series in time order is the meat (the construction of Driscoll and
+    Kraay, 1998).
+
+    Parameters
+    ----------
+    time : str, array_like or pandas.Series
+        Time point of each row (a column name, a Series aligned with the data, or one value
+        per row used); rows sharing a value are summed.  Values must sort.
+    lag : int, optional
+        Highest lag, in time points present in the data.  Default: the rule of thumb
+        ``floor(4 (T/100)^(2/9))`` for ``T`` time points.
+    small_sample : bool, default False
+        Multiply the meat by ``n/(n−k)``.
+    df : float, optional
+        Denominator df of the F (and t) reference; default ``T − 1``.
+
+    Returns
+    -------
+    CommonShocks
+
+    Notes
+    -----
+    ``M = Σ_t S_t S_tᵀ + Σ_{ℓ≤L} (1 − ℓ/(L+1)) (Γ_ℓ + Γ_ℓᵀ)`` with ``S_t = Σ_{i: time t} g_i``
+    and ``Γ_ℓ = Σ_t S_t S_{t−ℓ}ᵀ``.  It needs many time points; the units may be few.  Per
+    time point sums merge over blocks of rows, so chunked and Dask second passes give it.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.common_shocks(time="week"))
+    >>> res.covariance, res.df_den
+    ('common shocks by week (26 time points; Bartlett, lag 2)', 25.0)
+    """
+    lag = _check_lag(lag)
+    _check_df(df)
+    return CommonShocks(time=time, lag=lag, small_sample=bool(small_sample), df=df)
+
+
+def _check_lag(lag: Any) -> int | None:
+    if lag is None:
+        return None
+    if isinstance(lag, bool) or not isinstance(lag, (int, np.integer)):
+        raise CovarianceInputError(
+            f"lag must be a whole number of rows, got {lag!r}; e.g. serial(lag=4)."
+        )
+    if lag < 0:
+        raise CovarianceInputError(f"lag must be 0 or more, got {lag}.")
+    return int(lag)
 
 
 def given(matrix: ArrayLike | pd.DataFrame, *, df: float | None = None) -> Given:
