@@ -35,7 +35,11 @@ from lincomb._fit.pooled import combine, without_rows
 from lincomb._plan.design import PlannedDesign, planned_design
 from lincomb._plan.plan import PowerPlan, power_plan
 from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
-from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
+from lincomb._results.multiplicity import (
+    MultipleInference,
+    adjust_pvalues,
+    pairs_unequal_variances,
+)
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb._settings import blas_threads, set_blas_threads
 
@@ -79,6 +83,7 @@ __all__ = [
     "ManyWaldTest",
     "RestrictedFit",
     "MultipleInference",
+    "pairs_unequal_variances",
     "adjust_pvalues",
     # planning
     "planned_design",
