@@ -50,8 +50,8 @@ def main() -> None:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         print(f.wald(n == 0, covariance=clustered(by="farm")))
-    for w in caught:
-        print(f"note: {w.message}")
+    for warned in caught:
+        print(f"note: {warned.message}")
     print("\n6. Tests to trust with 10 farms: leverage-adjusted residuals with small-sample df,")
     print("   and a wild cluster bootstrap with the null imposed (all 2^10 sign vectors)")
     print(f.wald(n == 0, covariance=clustered(by="farm", adjust="bias-reduced")), "\n")

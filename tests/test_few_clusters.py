@@ -40,9 +40,7 @@ def _data(seed: int, groups: int = 8, weights: bool = False) -> pd.DataFrame:
     sizes = rng.integers(3, 9, groups)
     g = np.repeat(np.arange(groups), sizes)
     n = g.size
-    df = pd.DataFrame(
-        {"x1": rng.normal(size=n) + 0.3 * g, "x2": rng.normal(size=n), "g": g}
-    )
+    df = pd.DataFrame({"x1": rng.normal(size=n) + 0.3 * g, "x2": rng.normal(size=n), "g": g})
     df["w"] = rng.uniform(0.5, 2.0, n) if weights else 1.0
     df["y"] = 1 + df.x1 - 0.5 * df.x2 + rng.normal(size=n) + rng.normal(size=groups)[g]
     return df

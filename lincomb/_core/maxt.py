@@ -921,7 +921,7 @@ def studentized_range_tail(t: ArrayLike, k: int, df: ArrayLike) -> Array:
     two_sided = np.where(np.isfinite(df), 2 * stats.t.sf(t, dfq), 2 * stats.norm.sf(t))
     bonf = np.minimum(1.0, pairs * two_sided)
     out = np.where(tail < RANGE_SF_FLOOR, bonf, tail)
-    return np.clip(out, two_sided, bonf)  # type: ignore[no-any-return]
+    return np.clip(out, two_sided, bonf)
 
 
 def studentized_range_critical(level: float, k: int, df: ArrayLike) -> Array:

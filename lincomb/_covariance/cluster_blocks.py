@@ -86,7 +86,7 @@ def adjustment(hat: Array, power: float) -> Array:
     lam, vec = np.linalg.eigh(np.eye(k) - (hat + np.swapaxes(hat, 1, 2)) / 2)
     ok = lam > LEVERAGE_TOL
     f = np.where(ok, np.power(np.where(ok, lam, 1.0), -power), 0.0)
-    return np.einsum("gij,gj,gkj->gik", vec, f, vec)
+    return np.asarray(np.einsum("gij,gj,gkj->gik", vec, f, vec), dtype=np.float64)
 
 
 class ClusterBlockMeat(_Meat):

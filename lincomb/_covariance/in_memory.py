@@ -120,7 +120,9 @@ def clustered(
     return _over_rows(meat, fit, tuple(codes))
 
 
-def adjusted_clustered(fit: LinearFit, by: Any, adjust: str, df: float | None) -> CovarianceEstimate:
+def adjusted_clustered(
+    fit: LinearFit, by: Any, adjust: str, df: float | None
+) -> CovarianceEstimate:
     """The bias-reduced or jackknife cluster-robust covariance on an in-memory fit."""
     values, name = row_values(fit, by, "cluster labels")
     codes, _ = cluster_codes(fit, values, name)

@@ -22,6 +22,7 @@ passes give it too.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -29,14 +30,22 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
-from lincomb._covariance.meats import Groups, Partial, _codes, _group_sum, _Meat, _weighted, _working
+from lincomb._covariance.meats import (
+    Groups,
+    Partial,
+    _codes,
+    _group_sum,
+    _Meat,
+    _weighted,
+    _working,
+)
 
 __all__ = ["UnitSerialMeat", "TimeSumMeat", "bartlett_meat"]
 
 Array = NDArray[np.float64]
 
 
-def bartlett_meat(s: Array, lag: int, same: NDArray[np.bool_] | None = None) -> Array:
+def bartlett_meat(s: Array, lag: int, same: Sequence[NDArray[np.bool_]] | None = None) -> Array:
     """``Σ_t s_t s_tᵀ + Σ_{ℓ≤lag} (1 − ℓ/(lag+1)) (Γ_ℓ + Γ_ℓᵀ)`` for scores ``s`` (T, k) in
     time order; with ``same`` (a function of the lag giving which pairs count) only pairs
     of rows of one unit count.
@@ -56,7 +65,7 @@ def bartlett_meat(s: Array, lag: int, same: NDArray[np.bool_] | None = None) -> 
             a, b = a[keep], b[keep]
         gam = a.T @ b
         meat += (1.0 - ell / (lag + 1.0)) * (gam + gam.T)
-    return meat  # type: ignore[no-any-return]
+    return meat
 
 
 class UnitSerialMeat(_Meat):

@@ -13,9 +13,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import stats
 
-from lincomb.errors import SingularCovarianceError
-
-from lincomb.errors import InputError
+from lincomb.errors import InputError, SingularCovarianceError
 
 __all__ = ["check_reference", "reference_result", "test_reference"]
 

@@ -153,9 +153,7 @@ class Clustered(Estimator):
         fit._check_variance()
         if self.adjust != "none":
             return in_memory.adjusted_clustered(fit, self.by[0], self.adjust, self.df)
-        return in_memory.clustered(
-            fit, self.by, self.small_sample, self.df, self.two_way_factor
-        )
+        return in_memory.clustered(fit, self.by, self.small_sample, self.df, self.two_way_factor)
 
 
 @dataclass(frozen=True, eq=False)
@@ -179,9 +177,7 @@ class Serial(Estimator):
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit._check_variance()
-        return in_memory.serial(
-            fit, self.lag, self.order, self.small_sample, self.df, self.units
-        )
+        return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df, self.units)
 
 
 @dataclass(frozen=True, eq=False)

@@ -669,7 +669,7 @@ def check_rows(
         msgs = []
         for i in bad:
             touched = [names[j] for j in sol.aliased_touched(cu[i], core.ROW_TOL)]
-            msgs.append(f"row {int(i)} ({labels[i]}) involves aliased coefficients {touched}")
+            msgs.append(f"row {int(i)} ({labels[int(i)]}) involves aliased coefficients {touched}")
         aliased = [names[j] for j in sorted(sol.aliased)]
         raise NotEstimableError(
             f"restriction not estimable under {where}: "

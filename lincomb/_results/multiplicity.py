@@ -529,7 +529,7 @@ def _pairwise_means(fam: dict[str, Any]) -> int:
             " Use it on fit.wald(lc.levels(...).pairwise()) with redundant='keep', or use"
             " method='max-t' (exact for any family)."
         )
-    return q + 1
+    return int(q) + 1
 
 
 def _scheffe_p(t: Array, q: int, df: float) -> Array:
@@ -682,7 +682,9 @@ def pairs_unequal_variances(
         raise InputError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
     for col in (response, by):
         if col not in data.columns:
-            raise InputError(f"no column {col!r} in the data; columns: {list(map(str, data.columns))}")
+            raise InputError(
+                f"no column {col!r} in the data; columns: {list(map(str, data.columns))}"
+            )
     frame = data[[response, by]]
     if frame.isna().any().any():
         raise InputError(
@@ -717,12 +719,14 @@ def pairs_unequal_variances(
     t = est / se
     crit = studentized_range_critical(level, k, df)
     return MultipleInference(
-        labels=tuple(f"{by}[{names[b]}] - {by}[{names[a]}]" for a, b in zip(a_idx, b_idx)),
+        labels=tuple(
+            f"{by}[{names[b]}] - {by}[{names[a]}]" for a, b in zip(a_idx, b_idx, strict=True)
+        ),
         estimate=est,
         target=np.zeros(est.size),
         std_error=se,
         t=t,
-        p_value=2 * stats.t.sf(np.abs(t), df),
+        p_value=np.asarray(2 * stats.t.sf(np.abs(t), df), dtype=np.float64),
         p_adjusted=studentized_range_tail(t, k, df),
         method="separate-variances",
         df=float("nan"),

@@ -128,7 +128,7 @@ class WaldTest:
     def row_p_value(self) -> NDArray[np.float64]:
         """Two-sided p-value of each row (t with ``df_den``, or the row's own df in
         ``row_df`` when the covariance estimator gives one per row; normal if inf)."""
-        return 2 * self._row_dist().sf(np.abs(self.t))
+        return np.asarray(2 * self._row_dist().sf(np.abs(self.t)), dtype=np.float64)
 
     def _row_dist(self):  # type: ignore[no-untyped-def]
         if self.row_df is not None:
@@ -567,7 +567,7 @@ class WaldBatch:
     @property
     def row_p_value(self) -> NDArray[np.float64]:
         """Two-sided p-value of each row, ``(k, m)`` (t with ``df_den``; normal if inf)."""
-        return 2 * self._row_dist().sf(np.abs(self.t))
+        return np.asarray(2 * self._row_dist().sf(np.abs(self.t)), dtype=np.float64)
 
     def _row_dist(self):  # type: ignore[no-untyped-def]
         return stats.norm() if not np.isfinite(self.df_den) else stats.t(self.df_den)
