@@ -232,3 +232,33 @@ def test_user_df_overrides_the_small_sample_df():
     f = lc.fit("y ~ x1 + x2", df)
     res = f.wald(lc.coef("x1") == 0, covariance=lc.clustered(by="g", adjust="bias-reduced", df=5))
     assert res.df_den == 5 and res.row_df is None
+
+
+def test_batch_and_multiplicity_routes_do_not_use_a_wrong_df():
+    df = _data(8)
+    f = lc.fit("y ~ x1 + x2", df)
+    spec = lc.clustered(by="g", adjust="bias-reduced")
+    with pytest.raises(CovarianceInputError, match="its own small-sample df"):
+        f.wald_batch([lc.coef("x1") == 0, lc.coef("x2") == 0], covariance=spec)
+    chi = f.wald_batch([lc.coef("x1") == 0], covariance=spec, reference="chi2")
+    one = f.wald(lc.coef("x1") == 0, covariance=spec, reference="chi2")
+    assert chi.statistic[0] == pytest.approx(one.statistic, rel=1e-10)
+
+
+def test_multiplicity_uses_row_df():
+    df = _data(9)
+    f = lc.fit("y ~ x1 + x2", df)
+    res = f.wald(
+        (lc.coef("x1") == 0) & (lc.coef("x2") == 0),
+        covariance=lc.clustered(by="g", adjust="bias-reduced"),
+    )
+    holm = res.adjust("holm")
+    np.testing.assert_allclose(holm.p_value, res.row_p_value, rtol=1e-12)
+    # Holm by hand on the rows' own p-values (common practice)
+    p = np.sort(res.row_p_value)
+    expected = np.maximum.accumulate(np.minimum(1, p * np.array([2, 1])))
+    np.testing.assert_allclose(np.sort(holm.p_adjusted), expected, rtol=1e-12)
+    bonf = res.simultaneous("bonferroni", 0.95)
+    assert bonf.critical_value == pytest.approx(
+        stats.t.isf(0.05 / 4, np.min(res.row_df)), rel=1e-12
+    )

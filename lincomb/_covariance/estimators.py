@@ -13,9 +13,17 @@ it once with :meth:`~lincomb.fit.LinearFit.with_covariance`):
     ``ẽ_i²/(1−h_i)²`` (HC3) and ``ẽ_i²/(1−h_i)^δ_i`` with ``δ_i = min(4, n h_i / k)`` (HC4),
     where ``k`` is the rank of the design and ``h_i`` the leverage of row ``i``.
 :func:`clustered`
-    Cluster-robust, one-way or two-way.
+    Cluster-robust, one-way or two-way; with ``adjust="bias-reduced"`` or ``"jackknife"`` the
+    residuals are adjusted for leverage per cluster and each test gets small-sample df
+    (:mod:`~lincomb._covariance.bias_reduced`).
 :func:`serial`
-    Heteroskedasticity-and-autocorrelation consistent (Newey–West, Bartlett kernel).
+    Heteroskedasticity-and-autocorrelation consistent (Newey–West, Bartlett kernel); with
+    ``units=`` lags stay inside each unit of a panel.
+:func:`common_shocks`
+    Newey–West on scores summed per time point (panels with dependence across units).
+
+A test that needs no covariance estimate at all: :func:`~lincomb.wild_bootstrap`, the wild
+cluster bootstrap with the null imposed (:mod:`~lincomb._covariance.wild`).
 :func:`given`
     A covariance matrix of the coefficients supplied by the user.
 
@@ -73,6 +81,10 @@ This module is the layer's entry point: :func:`evaluate`, and the names other la
   finish; :mod:`~lincomb._covariance.in_memory` runs it over an in-memory fit's rows,
   :mod:`~lincomb._covariance.second_pass` over chunks or Dask partitions;
 * :mod:`~lincomb._covariance.rows`: the fit's rows and per-row variables (labels, times);
+* :mod:`~lincomb._covariance.cluster_blocks`: per-cluster ``k × k`` blocks of the hat matrix
+  (block / merge), which :mod:`~lincomb._covariance.bias_reduced` (few-cluster estimators and
+  their df) and :mod:`~lincomb._covariance.wild` (the bootstrap) use;
+  :mod:`~lincomb._covariance.panel`: Newey–West within units and on per-time score sums;
 * :mod:`~lincomb._covariance.estimate`: :class:`CovarianceEstimate`, the meat's factor and
   the rank check; :mod:`~lincomb._covariance.reference`: the reference distribution and df;
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
@@ -84,7 +96,16 @@ White (1980), Econometrica 48:817-838 (HC0); MacKinnon and White (1985), J. Econ
 29:305-325 (HC1-HC3); Cribari-Neto (2004), Comput. Stat. Data Anal. 45:215-233 (HC4);
 Cameron, Gelbach and Miller (2011), J. Bus. Econ. Stat. 29:238-249 (two-way clusters and the
 eigenvalue fix); Newey and West (1987), Econometrica 55:703-708 (Bartlett weights) and (1994),
-Rev. Econ. Stud. 61:631-653 (the automatic lag ``floor(4 (n/100)^(2/9))``).
+Rev. Econ. Stud. 61:631-653 (the automatic lag ``floor(4 (n/100)^(2/9))``); Bell and McCaffrey
+(2002), Survey Methodology 28:169-181 (bias-reduced cluster covariance and its df); Driscoll
+and Kraay (1998), Rev. Econ. Stat. 80:549-560 (scores summed per time point).
+
+Where second passes (chunks, Dask partitions) get each estimator: HC, one- and two-way
+clusters, the bias-reduced and jackknife clusters (per-cluster blocks merge by label) and
+:func:`common_shocks` (per-time sums merge by label) -- yes; :func:`serial` with or without
+``units`` -- no (lagged products would cross block boundaries); the wild bootstrap needs an
+in-memory fit (its per-cluster pieces come from the same blocks, but it is offered on
+in-memory fits only).
 """
 
 from __future__ import annotations

@@ -260,6 +260,10 @@ def clustered(
         a system the Hotelling-T² approximation ``(η − q + 1)/(η q)·Q ~ F(q, η − q + 1)``
         with ``η`` estimated (see :mod:`lincomb._covariance.bias_reduced`).  These are the
         estimators to use with few clusters; they never draw the few-clusters warning.
+        Multiplicity adjustments of such a test use each row's own p-value (step-wise
+        methods) and the smallest row df of the family for joint critical values
+        (conservative); :meth:`~lincomb.LinearFit.wald_batch` refuses them under the F
+        reference (it has one df for all systems).
     two_way_factor : {'per-term', 'smaller'}, default 'per-term'
         Small-sample factors of a two-way clustering: ``"per-term"`` gives each of the three
         terms its own ``G/(G−1)·(N−1)/(N−K)``; ``"smaller"`` applies the one factor of the

@@ -19,6 +19,7 @@ from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance import estimators as covmod
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
+    CovarianceInputError,
     EmptyRestrictionError,
     InconsistentRestrictionError,
     InputError,
@@ -209,6 +210,12 @@ def wald_batch(
         )
     vcov = fit._covariance_estimate(covariance)
     ref = covmod.check_reference(reference)
+    if vcov.per_test_df and ref == "F":
+        raise CovarianceInputError(
+            f"the {vcov.label} covariance gives each system its own small-sample df, which the"
+            " vectorized batch does not compute: test the systems one by one with fit.wald,"
+            " or pass df= to lc.clustered(...) for one df, or use reference='chi2'."
+        )
     labels = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
         items = list(c)  # type: ignore[arg-type]

@@ -455,7 +455,14 @@ def _family(wald: WaldTest, redundant: str) -> dict[str, Any]:
         "dropped": tuple(wald.labels[i] for i in range(m_all) if i not in keep),
         "rank": int(wald.df_num),
         "df": float(wald.df_den),
+        "row_df": None,
     }
+    row_df = getattr(wald, "row_df", None)
+    if row_df is not None and np.isfinite(wald.df_den):
+        # each row has its own small-sample df: p-value adjustments use each row's own p;
+        # joint critical values use the smallest df of the family (conservative)
+        fam["row_df"] = np.asarray(row_df, dtype=np.float64)[keep]
+        fam["df"] = float(np.min(fam["row_df"]))
     se = np.asarray(wald.std_error, dtype=np.float64)[keep]
     if np.any(~np.isfinite(se)) or np.any(se <= 0):
         i = keep[int(np.flatnonzero(~(se > 0))[0])]
@@ -504,7 +511,7 @@ def _assemble(
         target=np.asarray(wald.target, dtype=np.float64)[k].copy(),
         std_error=se.copy(),
         t=t.copy(),
-        p_value=2 * _row_dist(fam["df"]).sf(np.abs(t)),
+        p_value=_raw_p(t, fam),
         p_adjusted=p_adj,
         method=method,
         df=fam["df"],
@@ -517,6 +524,14 @@ def _assemble(
         dropped=fam["dropped"],
         integration=integration,
     )
+
+
+def _raw_p(t: Array, fam: dict[str, Any]) -> Array:
+    """Two-sided p-values of the rows: each row's own df when it has one."""
+    df = fam["df"] if fam.get("row_df") is None else fam["row_df"]
+    if np.ndim(df) == 0 and not np.isfinite(df):
+        return np.asarray(2 * stats.norm.sf(np.abs(t)), dtype=np.float64)
+    return np.asarray(2 * stats.t.sf(np.abs(t), df), dtype=np.float64)
 
 
 def _pairwise_means(fam: dict[str, Any]) -> int:
@@ -556,7 +571,7 @@ def adjust_wald(
     fam = _family(wald, redundant)
     k = fam["keep"]
     t = np.asarray(wald.t, dtype=np.float64)[k]
-    p = 2 * _row_dist(fam["df"]).sf(np.abs(t))
+    p = _raw_p(t, fam)
     integration = None
     if key in P_METHODS:
         p_adj = _adjust(p, key, float(rate))
