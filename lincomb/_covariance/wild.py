@@ -82,7 +82,7 @@ def bootstrap_weights(
     >>> w.shape, full
     ((8, 3), True)
     >>> w, full = bootstrap_weights("webb", 10, 99, 1, None)
-    >>> w.shape, full, sorted(set(abs(w).round(3).ravel()))
+    >>> w.shape, full, sorted(set(abs(w).round(3).ravel().tolist()))
     ((99, 10), False, [0.707, 1.0, 1.225])
     """
     points = np.array([-1.0, 1.0]) if kind == "rademacher" else _WEBB
