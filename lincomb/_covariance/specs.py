@@ -263,7 +263,8 @@ def clustered(
         Multiplicity adjustments of such a test use each row's own p-value (step-wise
         methods) and the smallest row df of the family for joint critical values
         (conservative); :meth:`~lincomb.LinearFit.wald_batch` refuses them under the F
-        reference (it has one df for all systems).
+        reference (it has one df for all systems).  They keep one ``k × k`` block per cluster
+        (``G·k²`` numbers): meant for few clusters, not for thousands.
     two_way_factor : {'per-term', 'smaller'}, default 'per-term'
         Small-sample factors of a two-way clustering: ``"per-term"`` gives each of the three
         terms its own ``G/(G−1)·(N−1)/(N−K)``; ``"smaller"`` applies the one factor of the
