@@ -23,7 +23,8 @@ from lincomb._builder.restriction import (
     from_matrix,
     term,
 )
-from lincomb._covariance.specs import clustered, given, serial
+from lincomb._covariance.specs import clustered, common_shocks, given, serial
+from lincomb._covariance.wild import WildBootstrapTest, wild_bootstrap
 from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
 from lincomb._fit.chunked import fit_array_chunks, fit_chunks
 from lincomb._fit.distributed import covariance_pass as dask_covariance_pass
@@ -37,7 +38,11 @@ from lincomb._results import contrast_reports as _contrast_reports  # noqa: F401
 from lincomb._results.expected import ExpectedValues
 from lincomb._results.level_table import LevelMeanTable
 from lincomb._results.many import ManyWaldTest
-from lincomb._results.multiplicity import MultipleInference, adjust_pvalues
+from lincomb._results.multiplicity import (
+    MultipleInference,
+    adjust_pvalues,
+    pairs_unequal_variances,
+)
 from lincomb._results.nested import NestedComparison, compare_nested
 from lincomb._results.overview import FitOverview
 from lincomb._results.row_diagnostics import RowDiagnostics
@@ -75,6 +80,9 @@ __all__ = [
     # covariance estimators
     "clustered",
     "serial",
+    "common_shocks",
+    "wild_bootstrap",
+    "WildBootstrapTest",
     "given",
     # results
     "WaldTest",
@@ -88,6 +96,7 @@ __all__ = [
     "TermTests",
     "FitOverview",
     "NestedComparison",
+    "pairs_unequal_variances",
     "adjust_pvalues",
     "compare_nested",
     # planning

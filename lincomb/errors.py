@@ -30,6 +30,7 @@ __all__ = [
     "ParameterError",
     "UnreachablePowerError",
     "CovarianceInputError",
+    "TiedTimesError",
     "SingularCovarianceError",
     "RowsUnavailableError",
     "ClusterTaskError",
@@ -324,6 +325,23 @@ class CovarianceInputError(InputError):
     Traceback (most recent call last):
     ...
     lincomb.errors.CovarianceInputError: cluster labels ... hold a single cluster ...
+    """
+
+
+class TiedTimesError(CovarianceInputError):
+    """A unit of a panel has two rows at the same time point, so lags within the unit are
+    undefined (:func:`~lincomb.serial` with ``units=``).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> sites = lc.datasets.service_sites()
+    >>> f = lc.fit("wait_min ~ staffing", sites)
+    >>> f.wald(lc.coef("staffing") == 0,
+    ...        covariance=lc.serial(lag=1, order="protocol", units="site"))
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.TiedTimesError: time order 'protocol' repeats ... within unit ...
     """
 
 

@@ -177,6 +177,24 @@ plan_by_farm = f.wald(planning, covariance=lc.clustered(by="farm"))
 plan_by_farm.row_frame().round(4)[["restriction", "se", "ratio", "p", "df_error"]]
 """),
     md("""
+**A test to trust with ten farms.** Two remedies are built for few clusters. The bias-reduced
+covariance adjusts each farm's residuals for the leverage of its plots and gives every row its
+own small-sample degrees of freedom (far fewer than 9 here), and the joint test an F with
+estimated degrees of freedom. The wild cluster bootstrap imposes the null by restricted least
+squares and flips the sign of each farm's residuals: with ten farms all 2¹⁰ sign patterns are
+used, so its p-value has no simulation error.
+"""),
+    code("""
+fair = f.wald(planning, covariance=lc.clustered(by="farm", adjust="bias-reduced"))
+print(fair.test_frame()[["stat", "df_test", "df_error", "p"]].round(4))
+fair.row_frame().round(4)[["restriction", "se", "ratio", "df_error", "p"]]
+"""),
+    code("""
+boot = lc.wild_bootstrap(f, planning, by="farm")
+print(boot)
+boot.interval(0, 0.95)
+"""),
+    md("""
 **Several questions, several tests.** Each row p-value above is unadjusted. Adjusting the
 three planning rows for being tested together (Holm's method) raises them:
 """),
@@ -184,8 +202,10 @@ three planning rows for being tested together (Holm's method) raises them:
 plan.adjust("holm").to_frame()[["contrast", "p", "p_adjusted"]].round(4)
 """),
     md("""
-* With the farm-robust covariance the answer to question 2 moves, and ten clusters are too
-  few for it to be trusted fully: report both, and prefer a design with more farms.
+* With the farm-robust covariance the answer to question 2 moves. Ten clusters are too few
+  for the plain farm-robust test; the bias-reduced test with small-sample degrees of freedom
+  and the wild cluster bootstrap are the ones to report, and a design with more farms is
+  better still.
 * A rejected linear response says the data contradict linearity under this model, not which
   curve is right; a non-significant test is not proof of no effect (see the power above).
 * The data are invented for demonstration.

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -62,6 +63,10 @@ class CovarianceEstimate:
         per term: first, second, intersection).
     clipped : int
         Number of clearly negative meat eigenvalues set to zero (see :data:`EIGEN_TOL`).
+    per_test_df : bool
+        True when each test gets its own small-sample degrees of freedom (the bias-reduced
+        and jackknife cluster-robust estimators); ``df_error`` is then only the fallback
+        ``G − 1`` of routes that use one df for all tests.
 
     Examples
     --------
@@ -84,6 +89,42 @@ class CovarianceEstimate:
     _sigma: float | None = field(default=None, repr=False)
     _factor: Array | None = field(default=None, repr=False)
     _direct: Array | None = field(default=None, repr=False)
+    _small_sample: Any = field(default=None, repr=False)
+
+    @property
+    def per_test_df(self) -> bool:
+        """Whether each test gets its own small-sample df (see the class docstring).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> from lincomb._covariance.estimators import evaluate
+        >>> evaluate(f, "HC3").per_test_df
+        False
+        """
+        return self._small_sample is not None
+
+    def test_df(self, cu_kept: Array, independent: NDArray[np.intp]) -> tuple[Array, float]:
+        """Small-sample df of each row and the Hotelling ``η`` of the independent rows.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        >>> from lincomb._covariance.estimators import evaluate
+        >>> est = evaluate(f, lc.clustered(by="site", adjust="bias-reduced"))
+        >>> sol = f.solution
+        >>> cu = sol.to_working(np.eye(3))[1:2][:, sol.kept]
+        >>> rows, eta = est.test_df(cu, np.array([0]))
+        >>> bool(np.isclose(rows[0], eta)) and 1 < eta < 39
+        True
+        """
+        assert self._sol is not None and self._small_sample is not None
+        v = self._sol.root(cu_kept)
+        rows = self._small_sample.row_df(v)
+        eta = self._small_sample.system_df(v[:, independent]) if independent.size else np.inf
+        return rows, float(eta)
 
     @property
     def solution(self) -> core.Solution | None:

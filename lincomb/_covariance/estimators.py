@@ -13,9 +13,17 @@ it once with :meth:`~lincomb.fit.LinearFit.with_covariance`):
     ``ẽ_i²/(1−h_i)²`` (HC3) and ``ẽ_i²/(1−h_i)^δ_i`` with ``δ_i = min(4, n h_i / k)`` (HC4),
     where ``k`` is the rank of the design and ``h_i`` the leverage of row ``i``.
 :func:`clustered`
-    Cluster-robust, one-way or two-way.
+    Cluster-robust, one-way or two-way; with ``adjust="bias-reduced"`` or ``"jackknife"`` the
+    residuals are adjusted for leverage per cluster and each test gets small-sample df
+    (:mod:`~lincomb._covariance.bias_reduced`).
 :func:`serial`
-    Heteroskedasticity-and-autocorrelation consistent (Newey–West, Bartlett kernel).
+    Heteroskedasticity-and-autocorrelation consistent (Newey–West, Bartlett kernel); with
+    ``units=`` lags stay inside each unit of a panel.
+:func:`common_shocks`
+    Newey–West on scores summed per time point (panels with dependence across units).
+
+A test that needs no covariance estimate at all: :func:`~lincomb.wild_bootstrap`, the wild
+cluster bootstrap with the null imposed (:mod:`~lincomb._covariance.wild`).
 :func:`given`
     A covariance matrix of the coefficients supplied by the user.
 
@@ -74,6 +82,10 @@ below, and other layers import them from there.
   finish; :mod:`~lincomb._covariance.in_memory` runs it over an in-memory fit's rows,
   :mod:`~lincomb._covariance.second_pass` over chunks or Dask partitions;
 * :mod:`~lincomb._covariance.rows`: the fit's rows and per-row variables (labels, times);
+* :mod:`~lincomb._covariance.cluster_blocks`: per-cluster ``k × k`` blocks of the hat matrix
+  (block / merge), which :mod:`~lincomb._covariance.bias_reduced` (few-cluster estimators and
+  their df) and :mod:`~lincomb._covariance.wild` (the bootstrap) use;
+  :mod:`~lincomb._covariance.panel`: Newey–West within units and on per-time score sums;
 * :mod:`~lincomb._covariance.estimate`: :class:`CovarianceEstimate`, the meat's factor and
   the rank check; :mod:`~lincomb._covariance.reference`: the reference distribution and df;
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
@@ -85,12 +97,24 @@ White (1980), Econometrica 48:817-838 (HC0); MacKinnon and White (1985), J. Econ
 29:305-325 (HC1-HC3); Cribari-Neto (2004), Comput. Stat. Data Anal. 45:215-233 (HC4);
 Cameron, Gelbach and Miller (2011), J. Bus. Econ. Stat. 29:238-249 (two-way clusters and the
 eigenvalue fix); Newey and West (1987), Econometrica 55:703-708 (Bartlett weights) and (1994),
-Rev. Econ. Stud. 61:631-653 (the automatic lag ``floor(4 (n/100)^(2/9))``).
+Rev. Econ. Stud. 61:631-653 (the automatic lag ``floor(4 (n/100)^(2/9))``); Bell and McCaffrey
+(2002), Survey Methodology 28:169-181 (bias-reduced cluster covariance and its df); Driscoll
+and Kraay (1998), Rev. Econ. Stat. 80:549-560 (scores summed per time point).
+
+Where second passes (chunks, Dask partitions) get each estimator: HC, one- and two-way
+clusters, the bias-reduced and jackknife clusters (per-cluster blocks merge by label) and
+:func:`common_shocks` (per-time sums merge by label) -- yes; :func:`serial` with or without
+``units`` -- no (lagged products would cross block boundaries); the wild bootstrap needs an
+in-memory fit (its per-cluster pieces come from the same blocks, but it is offered on
+in-memory fits only).
 """
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import NDArray
 
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.specs import as_estimator
@@ -100,6 +124,25 @@ if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
 __all__ = ["evaluate"]
+
+
+def coefficient_df(sol: Any, estimate: CovarianceEstimate) -> NDArray[np.float64]:
+    """Small-sample df of each coefficient under an estimate with per-test df (NaN where the
+    coefficient is aliased).
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> est = evaluate(f, lc.clustered(by="site", adjust="bias-reduced"))
+    >>> coefficient_df(f.solution, est).shape
+    (3,)
+    """
+    cu = sol.to_working(np.eye(sol.p))[:, sol.kept]
+    rows, _ = estimate.test_df(cu, np.zeros(0, dtype=np.intp))
+    out = np.asarray(rows, dtype=np.float64).copy()
+    out[sol.aliased] = np.nan
+    return out
 
 
 def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:

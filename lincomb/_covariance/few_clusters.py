@@ -9,13 +9,21 @@ from collections.abc import Sequence
 
 from lincomb.errors import FewClustersWarning
 
-__all__ = ["FEW_CLUSTERS", "warn_few_clusters"]
+__all__ = ["FEW_CLUSTERS", "REMEDIES", "warn_few_clusters"]
 
 #: Fewer clusters than this draw a :class:`~lincomb.errors.FewClustersWarning`.
 FEW_CLUSTERS: int = 30
 
 
-def warn_few_clusters(names: Sequence[str], sizes: Sequence[int]) -> None:
+#: What the few-clusters warning suggests.
+REMEDIES: str = (
+    " Remedies: lc.clustered(by=..., adjust='bias-reduced') (residuals adjusted for leverage,"
+    " small-sample df for each test) or adjust='jackknife', or lc.wild_bootstrap(fit,"
+    " restrictions, by=...) (a wild cluster bootstrap of the restricted model)."
+)
+
+
+def warn_few_clusters(names: Sequence[str], sizes: Sequence[int], remedies: bool = True) -> None:
     """Warn when a clustering variable has fewer than :data:`FEW_CLUSTERS` clusters.
 
     Examples
@@ -32,7 +40,8 @@ def warn_few_clusters(names: Sequence[str], sizes: Sequence[int]) -> None:
         warnings.warn(
             f"few clusters: {', '.join(few)}. Cluster-robust tests lean on many clusters;"
             f" with fewer than {FEW_CLUSTERS} their size can be far from nominal. Read the"
-            " p-values with care, or use a coarser model of the dependence.",
+            " p-values with care, or use a coarser model of the dependence."
+            + (REMEDIES if remedies else ""),
             FewClustersWarning,
             stacklevel=_user_stacklevel(),
         )

@@ -15,18 +15,29 @@ import threading
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
+from lincomb._covariance.panel import TimeSumMeat, UnitSerialMeat
 from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
 from lincomb._settings import blas_limit, can_limit
-from lincomb.errors import CovarianceInputError
+from lincomb.errors import CovarianceInputError, TiedTimesError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["BLOCK_ELEMENTS", "heteroskedastic", "clustered", "serial", "automatic_lag"]
+__all__ = [
+    "BLOCK_ELEMENTS",
+    "heteroskedastic",
+    "clustered",
+    "adjusted_clustered",
+    "serial",
+    "common_shocks",
+    "automatic_lag",
+]
 
 #: Numbers (rows × kept columns) in one block of rows: 512 KiB, well inside a core's L2 cache.
 BLOCK_ELEMENTS: int = 1 << 16
@@ -51,7 +62,18 @@ def _over_rows(
     order: NDArray[np.intp] | None = None,
 ) -> CovarianceEstimate:
     """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given), merge and
-    finish, on one BLAS thread when the fit is large (threads woken for small products cost
+    finish."""
+    return meat.finish(_over_rows_partial(meat, fit, labels, order))  # type: ignore[no-any-return]
+
+
+def _over_rows_partial(
+    meat: Any,
+    fit: LinearFit,
+    labels: tuple[NDArray[Any], ...] = (),
+    order: NDArray[np.intp] | None = None,
+) -> Any:
+    """The merged partial of ``meat.block`` over blocks of the fit's rows (in ``order`` if
+    given), on one BLAS thread when the fit is large (threads woken for small products cost
     more than the products on busy cores)."""
     x, y, w = fit_rows(fit)
     rmap = RowMap.of(fit.solution)
@@ -70,7 +92,7 @@ def _over_rows(
             xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
             weights = None if w is None else w[rows]
             parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
-        return meat.finish(meat.merge(*parts))  # type: ignore[no-any-return]
+        return meat.merge(*parts)
 
 
 def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
@@ -80,7 +102,11 @@ def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
 
 
 def clustered(
-    fit: LinearFit, by: tuple[Any, ...], small_sample: bool, df: float | None
+    fit: LinearFit,
+    by: tuple[Any, ...],
+    small_sample: bool,
+    df: float | None,
+    two_way_factor: str = "per-term",
 ) -> CovarianceEstimate:
     """One- or two-way cluster-robust covariance on an in-memory fit."""
     codes = []
@@ -90,14 +116,31 @@ def clustered(
         c, _ = cluster_codes(fit, values, name)
         codes.append(c)
         names.append(name)
-    meat = ClusterMeat(fit, tuple(names), small_sample, df)
+    meat = ClusterMeat(fit, tuple(names), small_sample, df, two_way_factor)
     return _over_rows(meat, fit, tuple(codes))
 
 
-def serial(
-    fit: LinearFit, lag: int | None, order: Any, small_sample: bool, df: float | None
+def adjusted_clustered(
+    fit: LinearFit, by: Any, adjust: str, df: float | None
 ) -> CovarianceEstimate:
-    """Newey–West covariance on an in-memory fit, rows taken in time order."""
+    """The bias-reduced or jackknife cluster-robust covariance on an in-memory fit."""
+    values, name = row_values(fit, by, "cluster labels")
+    codes, _ = cluster_codes(fit, values, name)
+    meat = AdjustedClusterMeat(fit, name, adjust, df)
+    return _over_rows(meat, fit, (codes,))
+
+
+def serial(
+    fit: LinearFit,
+    lag: int | None,
+    order: Any,
+    small_sample: bool,
+    df: float | None,
+    units: Any = None,
+) -> CovarianceEstimate:
+    """Newey–West covariance on an in-memory fit, rows taken in time order (within units)."""
+    if units is not None:
+        return _serial_within(fit, lag, order, small_sample, df, units)
     n = fit.n_obs
     lag = automatic_lag(n) if lag is None else lag
     if lag >= n:
@@ -114,3 +157,61 @@ def serial(
         perm = time_order(fit, values, order_name)
     meat = SerialMeat(fit, lag, order_name, small_sample, df)
     return _over_rows(meat, fit, order=perm)
+
+
+def _serial_within(
+    fit: LinearFit, lag: int | None, order: Any, small_sample: bool, df: float | None, units: Any
+) -> CovarianceEstimate:
+    """Newey–West within units: rows sorted by unit, then time; lags stay inside a unit."""
+    fit_rows(fit)
+    if order is None:
+        raise CovarianceInputError(
+            "serial(..., units=...) needs the time order of each unit's rows: pass order= (a"
+            " column name, a Series or one value per row)."
+        )
+    uvalues, uname = row_values(fit, units, "units")
+    ucodes, g = cluster_codes(fit, uvalues, uname)
+    tvalues, tname = row_values(fit, order, "time order")
+    bad = np.flatnonzero(pd.isna(tvalues))
+    if bad.size:
+        raise CovarianceInputError(
+            f"time order {tname!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
+            f" ({bad.size} missing in all); every row used needs a time value."
+        )
+    tcodes = pd.factorize(tvalues, sort=True)[0]
+    perm = np.lexsort((tcodes, ucodes)).astype(np.intp)
+    us, ts = ucodes[perm], tcodes[perm]
+    ties = np.flatnonzero((us[1:] == us[:-1]) & (ts[1:] == ts[:-1]))
+    if ties.size:
+        i = perm[ties[0]]
+        raise TiedTimesError(
+            f"time order {tname!r} repeats the value {tvalues[i]!r} within unit"
+            f" {uvalues[i]!r} of {uname!r} ({ties.size} ties): lags within a unit need one row"
+            " per unit and time point. Aggregate those rows, or use lc.common_shocks(time=...)"
+            " or lc.clustered(by=...) instead."
+        )
+    longest = int(np.bincount(ucodes).max())
+    lag = automatic_lag(longest) if lag is None else lag
+    if lag >= longest:
+        raise CovarianceInputError(
+            f"lag {lag} is not smaller than the longest unit's {longest} rows; the automatic"
+            f" rule gives {automatic_lag(longest)}."
+        )
+    meat = UnitSerialMeat(fit, lag, (tname, uname), small_sample, df, g)
+    return _over_rows(meat, fit, (ucodes,), order=perm)
+
+
+def common_shocks(
+    fit: LinearFit, time: Any, lag: int | None, small_sample: bool, df: float | None
+) -> CovarianceEstimate:
+    """Newey–West on scores summed per time point, on an in-memory fit."""
+    fit_rows(fit)
+    values, name = row_values(fit, time, "time")
+    bad = np.flatnonzero(pd.isna(values))
+    if bad.size:
+        raise CovarianceInputError(
+            f"time {name!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
+            f" ({bad.size} missing in all); every row used needs a time value."
+        )
+    meat = TimeSumMeat(fit, lag, name, small_sample, df)
+    return _over_rows(meat, fit, (values,))

@@ -89,6 +89,7 @@ class Partial:
     groups: tuple[Groups, ...] = ()
     head: Array | None = field(default=None, repr=False)
     tail: Array | None = field(default=None, repr=False)
+    extra: Any = field(default=None, repr=False)
 
 
 def leverage_weights(kind: str, zt: Array, n_obs: int, k: int) -> Array:
@@ -239,12 +240,18 @@ class ClusterMeat(_Meat):
     row_blocks = False
 
     def __init__(
-        self, fit: Any, names: tuple[str, ...], small_sample: bool, df: float | None
+        self,
+        fit: Any,
+        names: tuple[str, ...],
+        small_sample: bool,
+        df: float | None,
+        two_way_factor: str = "per-term",
     ) -> None:
         super().__init__(fit)
         self.names = names
         self.small_sample = small_sample
         self.df = df
+        self.two_way_factor = two_way_factor
 
     def block(
         self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
@@ -310,10 +317,15 @@ class ClusterMeat(_Meat):
                 m12, a12 = self._meat(part.groups[2])
             else:  # one intersection cell: its one-way meat is zero (scores sum to zero)
                 m12, a12 = np.zeros((self.k, self.k)), 0.0
+            if self.two_way_factor == "smaller":
+                # one factor, from the clustering with fewer clusters, for all three terms
+                a1 = a2 = a12 = a1 if sizes[0] <= sizes[1] else a2
             factor, clipped = psd_factor(a1 * m1 + a2 * m2 - a12 * m12)
             scale = (a1, a2, a12)
             method = "two-way cluster"
             label = f"two-way cluster by {names[0]} × {names[1]} ({sizes[0]}, {sizes[1]} groups)"
+            if self.two_way_factor == "smaller":
+                label += "; one small-sample factor, from the smaller clustering"
             if clipped:
                 label += f"; {clipped} negative eigenvalue(s) set to 0"
         return CovarianceEstimate(

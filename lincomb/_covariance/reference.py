@@ -7,11 +7,15 @@ Each covariance estimate brings the denominator degrees of freedom of its F (and
 
 from __future__ import annotations
 
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
 from scipy import stats
 
-from lincomb.errors import InputError
+from lincomb.errors import InputError, SingularCovarianceError
 
-__all__ = ["check_reference", "reference_result"]
+__all__ = ["check_reference", "reference_result", "test_reference"]
 
 
 def reference_result(
@@ -39,3 +43,28 @@ def check_reference(reference: object) -> str:
         f"reference must be 'F' (finite-sample: F for the system, t for rows) or 'chi2'"
         f" (large-sample: chi-squared for the system, normal for rows); got {reference!r}."
     )
+
+
+def test_reference(
+    estimate: Any, quad: float, q: int, cu_kept: NDArray[np.float64], independent: Any, ref: str
+) -> tuple[str, float, float, float, NDArray[np.float64] | None]:
+    """``(distribution, statistic, df_error, p_value, row_df)`` of a test under ``estimate``.
+
+    An estimate with per-test small-sample df (see
+    :attr:`~lincomb._covariance.estimate.CovarianceEstimate.per_test_df`) refers the system to
+    the Hotelling-T² approximation ``(η − q + 1)/(η q) · Q ~ F(q, η − q + 1)`` and each row to
+    t with its own df; ``row_df`` is None for the others (every row uses ``df_error``).
+    """
+    ref = check_reference(ref)
+    if ref == "chi2" or not getattr(estimate, "per_test_df", False) or q == 0:
+        return (*reference_result(quad, q, estimate.df_error, ref), None)
+    rows, eta = estimate.test_df(cu_kept, np.asarray(independent))
+    df_error = eta - q + 1
+    if not df_error > 0:
+        raise SingularCovarianceError(
+            f"the {q} restriction rows are too many for the {estimate.label} covariance: its"
+            f" estimated degrees of freedom ({eta:.3g}) leave none for an F with {q} numerator"
+            " df. Test fewer rows at once, or use the wild cluster bootstrap."
+        )
+    stat = (df_error / eta) * quad / q
+    return "F", float(stat), float(df_error), float(stats.f.sf(stat, q, df_error)), rows

@@ -15,12 +15,15 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, Partial
+from lincomb._covariance.panel import TimeSumMeat
 from lincomb._covariance.rows import RowMap
 from lincomb._covariance.specs import (
     Classical,
     Clustered,
+    CommonShocks,
     Given,
     Heteroskedastic,
     Serial,
@@ -53,15 +56,26 @@ class RowPass:
                 " partitions: lagged products would cross block boundaries in an order the pass"
                 " cannot guarantee. Fit the series in memory instead."
             )
-        meat: HeteroskedasticMeat | ClusterMeat
-        if isinstance(est, Clustered):
+        meat: HeteroskedasticMeat | ClusterMeat | AdjustedClusterMeat | TimeSumMeat
+        if isinstance(est, CommonShocks):
+            if not isinstance(est.time, str):
+                raise CovarianceInputError(
+                    "the time of a pass over chunks must be a column name of the chunks; got"
+                    f" {type(est.time).__name__}."
+                )
+            meat = TimeSumMeat(fit, est.lag, est.time, est.small_sample, est.df)
+        elif isinstance(est, Clustered):
             bad = [b for b in est.by if not isinstance(b, str)]
             if bad:
                 raise CovarianceInputError(
                     "cluster labels for a pass over chunks must be column names of the chunks"
                     f" (arrays cannot be aligned with chunks); got {type(bad[0]).__name__}."
                 )
-            meat = ClusterMeat(fit, tuple(str(b) for b in est.by), est.small_sample, est.df)
+            names = tuple(str(b) for b in est.by)
+            if est.adjust != "none":
+                meat = AdjustedClusterMeat(fit, names[0], est.adjust, est.df)
+            else:
+                meat = ClusterMeat(fit, names, est.small_sample, est.df, est.two_way_factor)
         else:
             assert isinstance(est, Heteroskedastic)
             meat = HeteroskedasticMeat(fit, est.kind)
@@ -77,6 +91,8 @@ class RowPass:
         labels: tuple[NDArray[Any], ...] = ()
         if isinstance(self.meat, ClusterMeat):
             labels = _labels(self.meat.names, frame, where)
+        elif isinstance(self.meat, (AdjustedClusterMeat, TimeSumMeat)):
+            labels = _labels((self.meat.name,), frame, where)
         xc, resid = self.rows.rows(x, y, fortran=self.meat.fortran)
         return self.meat.block(xc, resid, w, labels)
 

@@ -21,6 +21,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from lincomb._covariance import in_memory
+from lincomb._covariance.bias_reduced import ADJUSTMENTS
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.given import given_estimate
 from lincomb.errors import CovarianceInputError
@@ -36,7 +37,9 @@ __all__ = [
     "Clustered",
     "Serial",
     "Given",
+    "CommonShocks",
     "clustered",
+    "common_shocks",
     "serial",
     "given",
     "as_estimator",
@@ -143,10 +146,14 @@ class Clustered(Estimator):
     by: tuple[Any, ...]
     small_sample: bool = True
     df: float | None = None
+    adjust: str = "none"
+    two_way_factor: str = "per-term"
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit.check_variance()
-        return in_memory.clustered(fit, self.by, self.small_sample, self.df)
+        if self.adjust != "none":
+            return in_memory.adjusted_clustered(fit, self.by[0], self.adjust, self.df)
+        return in_memory.clustered(fit, self.by, self.small_sample, self.df, self.two_way_factor)
 
 
 @dataclass(frozen=True, eq=False)
@@ -166,10 +173,33 @@ class Serial(Estimator):
     order: Any = None
     small_sample: bool = False
     df: float | None = None
+    units: Any = None
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit.check_variance()
-        return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df)
+        return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df, self.units)
+
+
+@dataclass(frozen=True, eq=False)
+class CommonShocks(Estimator):
+    """Newey–West on scores summed per time point; build it with :func:`common_shocks`.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing", lc.datasets.service_sites())
+    >>> lc.common_shocks(time="week", lag=2).evaluate(f)
+    <CovarianceEstimate: common shocks by week (26 time points; Bartlett, lag 2); reference df 25>
+    """
+
+    time: Any
+    lag: int | None = None
+    small_sample: bool = False
+    df: float | None = None
+
+    def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
+        fit.check_variance()
+        return in_memory.common_shocks(fit, self.time, self.lag, self.small_sample, self.df)
 
 
 @dataclass(frozen=True, eq=False)
@@ -200,6 +230,8 @@ def clustered(
     *,
     small_sample: bool = True,
     df: float | None = None,
+    adjust: str = "none",
+    two_way_factor: str = "per-term",
 ) -> Clustered:
     """Cluster-robust covariance: errors may correlate within a cluster, not across clusters.
 
@@ -216,7 +248,27 @@ def clustered(
         ``K`` the rank of the design).
     df : float, optional
         Denominator degrees of freedom of the F (and t) reference.  Default ``G − 1``; with two
-        clustering variables ``min(G₁, G₂) − 1``.
+        clustering variables ``min(G₁, G₂) − 1``; with an ``adjust`` other than ``"none"``,
+        small-sample df computed for each test (see below).
+    adjust : {'none', 'bias-reduced', 'jackknife'}, default 'none'
+        Adjust each cluster's residuals for the leverage of its rows before summing the scores
+        (one-way clustering only; ``small_sample`` is then not used).  ``"bias-reduced"``
+        multiplies them by ``(I − H_gg)^{-1/2}`` (the block of ``I − H`` for cluster ``g``),
+        which makes the meat unbiased under independent, homoskedastic errors;
+        ``"jackknife"`` by ``(I − H_gg)^{-1}`` with the factor ``(G − 1)/G``, which equals the
+        delete-one-cluster jackknife.  Each row of a test then gets Satterthwaite-type df, and
+        a system the Hotelling-T² approximation ``(η − q + 1)/(η q)·Q ~ F(q, η − q + 1)``
+        with ``η`` estimated (see :mod:`lincomb._covariance.bias_reduced`).  These are the
+        estimators to use with few clusters; they never draw the few-clusters warning.
+        Multiplicity adjustments of such a test use each row's own p-value (step-wise
+        methods) and the smallest row df of the family for joint critical values
+        (conservative); :meth:`~lincomb.LinearFit.wald_batch` refuses them under the F
+        reference (it has one df for all systems).  They keep one ``k × k`` block per cluster
+        (``G·k²`` numbers): meant for few clusters, not for thousands.
+    two_way_factor : {'per-term', 'smaller'}, default 'per-term'
+        Small-sample factors of a two-way clustering: ``"per-term"`` gives each of the three
+        terms its own ``G/(G−1)·(N−1)/(N−K)``; ``"smaller"`` applies the one factor of the
+        clustering with fewer clusters to all three.
 
     Returns
     -------
@@ -268,7 +320,26 @@ def clustered(
             " for two-way clustering."
         )
     _check_df(df)
-    return Clustered(by=parts, small_sample=bool(small_sample), df=df)
+    if adjust not in ADJUSTMENTS:
+        raise CovarianceInputError(
+            f"unknown residual adjustment {adjust!r}; use one of {list(ADJUSTMENTS)}."
+        )
+    if adjust != "none" and len(parts) != 1:
+        raise CovarianceInputError(
+            f"adjust={adjust!r} is for one clustering variable; got {len(parts)}. Use"
+            " adjust='none' for two-way clustering."
+        )
+    if two_way_factor not in ("per-term", "smaller"):
+        raise CovarianceInputError(
+            f"two_way_factor must be 'per-term' or 'smaller', got {two_way_factor!r}."
+        )
+    return Clustered(
+        by=parts,
+        small_sample=bool(small_sample),
+        df=df,
+        adjust=adjust,
+        two_way_factor=two_way_factor,
+    )
 
 
 def serial(
@@ -277,6 +348,7 @@ def serial(
     order: str | ArrayLike | pd.Series | None = None,
     small_sample: bool = False,
     df: float | None = None,
+    units: str | ArrayLike | pd.Series | None = None,
 ) -> Serial:
     """Heteroskedasticity-and-autocorrelation consistent covariance (Newey–West).
 
@@ -294,6 +366,12 @@ def serial(
         Multiply the meat by ``n/(n−k)``.
     df : float, optional
         Denominator degrees of freedom of the F (and t) reference; default ``n − rank``.
+    units : str, array_like or pandas.Series, optional
+        Units of a panel (a column name, a Series or one label per row): lags are then taken
+        only inside each unit (rows of a unit in ``order``, which is required), errors of
+        different units are independent, and ``lag`` defaults to the rule of thumb for the
+        longest unit.  Two rows of one unit at the same time raise
+        :class:`~lincomb.errors.TiedTimesError`.  See also :func:`common_shocks`.
 
     Returns
     -------
@@ -316,16 +394,70 @@ def serial(
     >>> res.covariance
     'serial (Bartlett, lag 2, week)'
     """
-    if lag is not None:
-        if isinstance(lag, bool) or not isinstance(lag, (int, np.integer)):
-            raise CovarianceInputError(
-                f"lag must be a whole number of rows, got {lag!r}; e.g. serial(lag=4)."
-            )
-        if lag < 0:
-            raise CovarianceInputError(f"lag must be 0 or more, got {lag}.")
-        lag = int(lag)
+    lag = _check_lag(lag)
     _check_df(df)
-    return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df)
+    return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df, units=units)
+
+
+def common_shocks(
+    time: str | ArrayLike | pd.Series,
+    *,
+    lag: int | None = None,
+    small_sample: bool = False,
+    df: float | None = None,
+) -> CommonShocks:
+    """Covariance robust to common shocks across units and serial dependence (panels).
+
+    The scores of all rows at one time point are summed, and the Newey–West meat (Bartlett
+    weights) of that series in time order is the meat (the construction of Driscoll and
+    Kraay, 1998).
+
+    Parameters
+    ----------
+    time : str, array_like or pandas.Series
+        Time point of each row (a column name, a Series aligned with the data, or one value
+        per row used); rows sharing a value are summed.  Values must sort.
+    lag : int, optional
+        Highest lag, in time points present in the data.  Default: the rule of thumb
+        ``floor(4 (T/100)^(2/9))`` for ``T`` time points.
+    small_sample : bool, default False
+        Multiply the meat by ``n/(n−k)``.
+    df : float, optional
+        Denominator df of the F (and t) reference; default ``T − 1``.
+
+    Returns
+    -------
+    CommonShocks
+
+    Notes
+    -----
+    ``M = Σ_t S_t S_tᵀ + Σ_{ℓ≤L} (1 − ℓ/(L+1)) (Γ_ℓ + Γ_ℓᵀ)`` with ``S_t = Σ_{i: time t} g_i``
+    and ``Γ_ℓ = Σ_t S_t S_{t−ℓ}ᵀ``.  It needs many time points; the units may be few.  Per
+    time point sums merge over blocks of rows, so chunked and Dask second passes give it.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.common_shocks(time="week"))
+    >>> res.covariance, res.df_error
+    ('common shocks by week (26 time points; Bartlett, lag 2)', 25.0)
+    """
+    lag = _check_lag(lag)
+    _check_df(df)
+    return CommonShocks(time=time, lag=lag, small_sample=bool(small_sample), df=df)
+
+
+def _check_lag(lag: Any) -> int | None:
+    if lag is None:
+        return None
+    if isinstance(lag, bool) or not isinstance(lag, (int, np.integer)):
+        raise CovarianceInputError(
+            f"lag must be a whole number of rows, got {lag!r}; e.g. serial(lag=4)."
+        )
+    if lag < 0:
+        raise CovarianceInputError(f"lag must be 0 or more, got {lag}.")
+    return int(lag)
 
 
 def given(matrix: ArrayLike | pd.DataFrame, *, df: float | None = None) -> Given:

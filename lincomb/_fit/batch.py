@@ -21,6 +21,7 @@ from lincomb._covariance.reference import check_reference
 from lincomb._model.encoder import unused_level_hint
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
+    CovarianceInputError,
     EmptyRestrictionError,
     InconsistentRestrictionError,
     InputError,
@@ -216,6 +217,12 @@ def wald_batch(
         )
     vcov = fit.evaluate_covariance(covariance)
     ref = check_reference(reference)
+    if vcov.per_test_df and ref == "F":
+        raise CovarianceInputError(
+            f"the {vcov.label} covariance gives each system its own small-sample df, which the"
+            " vectorized batch does not compute: test the systems one by one with fit.wald,"
+            " or pass df= to lc.clustered(...) for one df, or use reference='chi2'."
+        )
     labels = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
         items = list(c)  # type: ignore[arg-type]

@@ -27,8 +27,8 @@ from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
-from lincomb._covariance.estimators import evaluate
-from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._covariance.estimators import coefficient_df, evaluate
+from lincomb._covariance.reference import check_reference, test_reference
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._model.design import (
     CoefficientIndex,
@@ -364,7 +364,9 @@ class LinearFit:
         check_level(level)
         ref = check_reference(reference)
         vcov = self.evaluate_covariance(covariance)
-        dfree = vcov.df_error if ref == "F" else np.inf
+        dfree: Any = vcov.df_error if ref == "F" else np.inf
+        if ref == "F" and vcov.per_test_df:  # each coefficient's own small-sample df
+            dfree = coefficient_df(self._sol, vcov)
         dist = stats.t(dfree) if ref == "F" else stats.norm()
         est = self.coefficients.to_numpy()
         se = self.std_errors(vcov).to_numpy()
@@ -523,12 +525,16 @@ class LinearFit:
         check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
         k = analysis.independent
+        dist, stat, df_error, p_value, row_df = test_reference(
+            vcov, wc.quad, wc.rank, cu[:, sol.kept], k, ref
+        )
         rotated = core.intercept_rotation(c[k], d[k], sol.intercept)
         if rotated is not None:  # same F, rows free of the intercept (see lincomb._core)
             cr = sol.to_working(rotated[0])[:, sol.kept]
             rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))
-            wc = replace(wc, quad=rot.quad)
-        dist, stat, df_error, p_value = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
+            dist, stat, df_error, p_value, row_df = test_reference(
+                vcov, rot.quad, wc.rank, cu[:, sol.kept], k, ref
+            )
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
@@ -544,6 +550,7 @@ class LinearFit:
             redundant=analysis.dependencies,
             matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
             estimate_covariance=_gram(root),
+            row_df=row_df,
         )
 
     def wald_batch(

@@ -115,6 +115,7 @@ class _Groups:
     role: NDArray[Any]  # (g, m) of str
     status: list[str]
     redundant_rows: NDArray[Any]  # (g,) of int
+    row_df: Array | None = None  # (g, m): each row's own df, when the estimator gives one
 
 
 class WaldResult:
@@ -133,7 +134,10 @@ class WaldResult:
         check_level(level)
         g = self._groups()
         k, m = g.estimate.shape
-        df = np.broadcast_to(np.asarray(g.df_error, dtype=np.float64).reshape(-1, 1), (k, m))
+        if g.row_df is not None:
+            df = np.asarray(g.row_df, dtype=np.float64).reshape(k, m)
+        else:
+            df = np.broadcast_to(np.asarray(g.df_error, dtype=np.float64).reshape(-1, 1), (k, m))
         q = _row_quantile(level, df)
         cols: dict[str, Any] = {}
         if g.key is not None:

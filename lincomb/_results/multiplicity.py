@@ -44,6 +44,8 @@ from lincomb._core.maxt import (
     adjusted_tails,
     max_abs_t_cdf,
     max_abs_t_quantile,
+    studentized_range_critical,
+    studentized_range_tail,
 )
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb.errors import InputError
@@ -65,6 +67,8 @@ __all__ = [
     "max_abs_t_quantile",
     "IntegrationReport",
     "MultipleInference",
+    "METHOD_NOTES",
+    "pairs_unequal_variances",
 ]
 
 Array = NDArray[np.float64]
@@ -82,9 +86,21 @@ P_METHODS = (
     "adaptive-benjamini-hochberg",
 )
 #: Adjustments available on a Wald test (they also use the rows' joint distribution).
-WALD_P_METHODS = P_METHODS + ("scheffe", "max-t")
+WALD_P_METHODS = P_METHODS + ("scheffe", "max-t", "studentized-range")
 #: Methods with simultaneous intervals (``"none"``: marginal intervals, no adjustment).
-INTERVAL_METHODS = ("bonferroni", "sidak", "scheffe", "max-t", "none")
+INTERVAL_METHODS = ("bonferroni", "sidak", "scheffe", "max-t", "none", "studentized-range")
+#: What each joint method is, shown on its results (exact or approximate).
+METHOD_NOTES = {
+    "max-t": "exact: max-|t| under the rows' joint t distribution",
+    "studentized-range": (
+        "studentized range of all pairwise differences (Tukey–Kramer type): exact for equal"
+        " group sizes, an approximation otherwise"
+    ),
+    "separate-variances": (
+        "per-pair variances, Welch df, studentized range at each pair's df (Games–Howell"
+        " type): an approximation"
+    ),
+}
 
 
 _ALIASES = {
@@ -279,6 +295,10 @@ class MultipleInference:
         Rows removed from the family (``redundant="drop"``).
     integration : IntegrationReport or None
         For the ``max-|t|`` method.
+    row_df : (m,) ndarray or None
+        Degrees of freedom of each row when they differ (``separate-variances``).
+    critical_values : (m,) ndarray or None
+        Each row's critical value when they differ (then ``critical_value`` is None).
 
     Examples
     --------
@@ -308,6 +328,8 @@ class MultipleInference:
     redundant: tuple[str, ...] = ()
     dropped: tuple[str, ...] = ()
     integration: IntegrationReport | None = None
+    row_df: Array | None = None
+    critical_values: Array | None = None
 
     @property
     def family_size(self) -> int:
@@ -343,7 +365,13 @@ class MultipleInference:
                 "lower": self.lower,
                 "upper": self.upper,
                 "level": nan if self.level is None else self.level,
-                "critical_value": nan if self.critical_value is None else self.critical_value,
+                "critical_value": (
+                    self.critical_values
+                    if self.critical_values is not None
+                    else nan
+                    if self.critical_value is None
+                    else self.critical_value
+                ),
                 "method": self.method,
             }
         )
@@ -352,13 +380,23 @@ class MultipleInference:
         m = self.family_size
         if self.level is None:
             first = f"p-values adjusted by {self.method} over {m} row(s) of rank {self.rank}"
+        elif self.critical_value is None:
+            first = (
+                f"Simultaneous {100 * self.level:g}% intervals by {self.method} over {m} row(s)"
+                f" of rank {self.rank}; a critical value per row"
+            )
         else:
             first = (
                 f"Simultaneous {100 * self.level:g}% intervals by {self.method} over {m} row(s)"
                 f" of rank {self.rank}; critical value {self.critical_value:.6g}"
             )
-        dist = "normal" if not np.isfinite(self.df_error) else f"t({self.df_error:g})"
+        if self.row_df is not None:
+            dist = "t, df per row (Welch)"
+        else:
+            dist = "normal" if not np.isfinite(self.df_error) else f"t({self.df_error:g})"
         lines = [f"{first} [{dist}]"]
+        if self.method in METHOD_NOTES:
+            lines.append(f"method: {METHOD_NOTES[self.method]}")
         if self.redundant:
             lines.append(
                 f"{len(self.redundant)} redundant row(s) kept in the family: "
@@ -418,7 +456,15 @@ def _family(wald: WaldTest, redundant: str) -> dict[str, Any]:
         "dropped": tuple(wald.labels[i] for i in range(m_all) if i not in keep),
         "rank": int(wald.df_test),
         "df": float(wald.df_error),
+        "row_df": None,
     }
+    row_df = getattr(wald, "row_df", None)
+    if row_df is not None and np.isfinite(wald.df_error):
+        # each row has its own small-sample df: p-value adjustments use each row's own p;
+        # joint critical values use the smallest df of the family (conservative)
+        own_df = np.asarray(row_df, dtype=np.float64)[keep]
+        fam["row_df"] = own_df
+        fam["df"] = float(np.min(own_df))
     se = np.asarray(wald.se, dtype=np.float64)[keep]
     if np.any(~np.isfinite(se)) or np.any(se <= 0):
         i = keep[int(np.flatnonzero(~(se > 0))[0])]
@@ -467,7 +513,7 @@ def _assemble(
         target=np.asarray(wald.target, dtype=np.float64)[k].copy(),
         se=se.copy(),
         ratio=t.copy(),
-        p=2 * _row_dist(fam["df"]).sf(np.abs(t)),
+        p=_raw_p(t, fam),
         p_adjusted=p_adj,
         method=method,
         df_error=fam["df"],
@@ -480,6 +526,27 @@ def _assemble(
         dropped=fam["dropped"],
         integration=integration,
     )
+
+
+def _raw_p(t: Array, fam: dict[str, Any]) -> Array:
+    """Two-sided p-values of the rows: each row's own df when it has one."""
+    df = fam["df"] if fam.get("row_df") is None else fam["row_df"]
+    if np.ndim(df) == 0 and not np.isfinite(df):
+        return np.asarray(2 * stats.norm.sf(np.abs(t)), dtype=np.float64)
+    return np.asarray(2 * stats.t.sf(np.abs(t), df), dtype=np.float64)
+
+
+def _pairwise_means(fam: dict[str, Any]) -> int:
+    """The number of means ``k`` of a family of all ``k(k−1)/2`` pairwise differences."""
+    q, m = fam["rank"], fam["keep"].size
+    if m != q * (q + 1) // 2:
+        raise InputError(
+            f"the studentized-range method is for the family of all pairwise differences of"
+            f" k means (k(k−1)/2 rows of rank k − 1); this family has {m} rows of rank {q}."
+            " Use it on fit.wald(lc.levels(...).pairwise()) with redundant='keep', or use"
+            " method='max-t' (exact for any family)."
+        )
+    return int(q) + 1
 
 
 def _scheffe_p(t: Array, q: int, df: float) -> Array:
@@ -506,12 +573,14 @@ def adjust_wald(
     fam = _family(wald, redundant)
     k = fam["keep"]
     t = np.asarray(wald.ratio, dtype=np.float64)[k]
-    p = 2 * _row_dist(fam["df"]).sf(np.abs(t))
+    p = _raw_p(t, fam)
     integration = None
     if key in P_METHODS:
         p_adj = _adjust(p, key, float(rate))
     elif key == "scheffe":
         p_adj = _scheffe_p(t, fam["rank"], fam["df"])
+    elif key == "studentized-range":
+        p_adj = studentized_range_tail(t, _pairwise_means(fam), fam["df"])
     else:
         _check_tol(tol, max_points)
         integ = _Integrator(_corr_of(wald, k), fam["df"], fam["rank"], seed, "auto")
@@ -566,6 +635,10 @@ def simultaneous_wald(
         )
         crit = float(np.sqrt(quant))
         p_adj = _scheffe_p(t, q, df)
+    elif key == "studentized-range":
+        means = _pairwise_means(fam)
+        crit = float(studentized_range_critical(level, means, df)[0])
+        p_adj = studentized_range_tail(t, means, df)
     else:
         _check_tol(tol, max_points)
         integ = _Integrator(_corr_of(wald, k), df, fam["rank"], seed, "auto")
@@ -579,3 +652,105 @@ def simultaneous_wald(
             small_tails=note,
         )
     return _assemble(wald, fam, p_adj, key, float(level), crit, integration)
+
+
+def pairs_unequal_variances(
+    data: pd.DataFrame, response: str, by: str, level: float = 0.95
+) -> MultipleInference:
+    """All pairwise differences of group means, each with its own variance and Welch df.
+
+    For groups ``a < b`` (in category order, else sorted): ``ȳ_b − ȳ_a`` with standard error
+    ``√(s_a²/n_a + s_b²/n_b)``, Welch–Satterthwaite df
+    ``ν = (s_a²/n_a + s_b²/n_b)² / ((s_a²/n_a)²/(n_a−1) + (s_b²/n_b)²/(n_b−1))``, simultaneous
+    intervals ``± q_{k,ν}(level)/√2 · se`` and adjusted p-values ``P(Q_{k,ν} ≥ √2 |t|)`` with the
+    studentized range of ``k`` groups at each pair's own df (the construction of Games and
+    Howell, 1976).  No common variance is assumed; the family-wise level is approximate.
+
+    Parameters
+    ----------
+    data : pandas.DataFrame
+    response : str
+        Column of the response.
+    by : str
+        Column of the groups (at least two rows each, with some spread).
+    level : float, default 0.95
+
+    Returns
+    -------
+    MultipleInference
+        ``method`` is ``'separate-variances'``; ``row_df`` holds each pair's df and
+        ``critical_values`` each pair's critical value.
+
+    Raises
+    ------
+    InputError
+        A missing column, fewer than two groups, a group with fewer than two rows or no
+        spread, or missing values.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> res = lc.pairs_unequal_variances(lc.datasets.fill_lines(), "fill_g", "line")
+    >>> res.method, res.family_size, res.row_df is not None
+    ('separate-variances', 6, True)
+    """
+    if not (0 < level < 1):
+        raise InputError(f"level must be in (0, 1), got {level!r}; e.g. 0.95 for 95%.")
+    for col in (response, by):
+        if col not in data.columns:
+            raise InputError(
+                f"no column {col!r} in the data; columns: {list(map(str, data.columns))}"
+            )
+    frame = data[[response, by]]
+    if frame.isna().any().any():
+        raise InputError(
+            f"columns {response!r} and {by!r} hold missing values; drop those rows first."
+        )
+    y = frame[response].to_numpy(dtype=np.float64)
+    groups = frame[by]
+    if isinstance(groups.dtype, pd.CategoricalDtype):
+        names = [c for c in groups.cat.categories if (groups == c).any()]
+    else:
+        names = sorted(pd.unique(groups))
+    k = len(names)
+    if k < 2:
+        raise InputError(f"{by!r} holds {k} group(s); pairwise comparisons need at least two.")
+    n = np.empty(k)
+    mean = np.empty(k)
+    var = np.empty(k)
+    for i, g in enumerate(names):
+        yi = y[(groups == g).to_numpy()]
+        n[i] = yi.size
+        if yi.size < 2:
+            raise InputError(f"group {g!r} of {by!r} has {yi.size} row(s); each needs two or more.")
+        mean[i] = yi.mean()
+        var[i] = yi.var(ddof=1)
+        if not var[i] > 0:
+            raise InputError(f"group {g!r} of {by!r} has no spread; its variance is zero.")
+    a_idx, b_idx = np.triu_indices(k, 1)
+    va, vb = var[a_idx] / n[a_idx], var[b_idx] / n[b_idx]
+    se = np.sqrt(va + vb)
+    df = (va + vb) ** 2 / (va**2 / (n[a_idx] - 1) + vb**2 / (n[b_idx] - 1))
+    est = mean[b_idx] - mean[a_idx]
+    t = est / se
+    crit = studentized_range_critical(level, k, df)
+    return MultipleInference(
+        labels=tuple(
+            f"{by}[{names[b]}] - {by}[{names[a]}]" for a, b in zip(a_idx, b_idx, strict=True)
+        ),
+        estimate=est,
+        target=np.zeros(est.size),
+        se=se,
+        ratio=t,
+        p=np.asarray(2 * stats.t.sf(np.abs(t), df), dtype=np.float64),
+        p_adjusted=studentized_range_tail(t, k, df),
+        method="separate-variances",
+        df_error=float("nan"),
+        level=float(level),
+        critical_value=None,
+        lower=est - crit * se,
+        upper=est + crit * se,
+        rank=k - 1,
+        row_df=df,
+        critical_values=crit,
+    )

@@ -104,6 +104,7 @@ class WaldTest(WaldResult):
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     matrix: pd.DataFrame | None = field(default=None, repr=False)
     estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
+    row_df: NDArray[np.float64] | None = field(default=None, repr=False)
 
     @property
     def row_p(self) -> NDArray[np.float64]:
@@ -116,7 +117,8 @@ class WaldTest(WaldResult):
         >>> f.wald(lc.term("line") == 0).row_p.shape
         (3,)
         """
-        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
+        df = self.df_error if self.row_df is None else self.row_df
+        return self._row_p(self.ratio, np.array(df, dtype=np.float64))
 
     @property
     def status(self) -> str:
@@ -148,6 +150,7 @@ class WaldTest(WaldResult):
             role=roles(m, self.redundant).reshape(1, m),
             status=[self.status],
             redundant_rows=np.array([len(self.redundant)]),
+            row_df=None if self.row_df is None else np.asarray(self.row_df).reshape(1, m),
         )
 
     def intervals(self, level: float = 0.95) -> pd.DataFrame:
