@@ -81,7 +81,7 @@ class LevelMeanTable:
     cells : tuple of tuple of str
         The level (combination) of each row.
     labels : tuple of str
-        ``factor=level`` labels, joined by ``, `` for combinations.
+        ``factor=level`` labels, joined by a comma and a space for combinations.
     estimate, se : (k,) ndarray
         The means and their standard errors (NaN where not estimable).
     estimable : (k,) ndarray of bool
@@ -236,7 +236,7 @@ class LevelMeanTable:
         WaldTest
             First row: the least-squares slope of the means on the level values, per unit of
             the values (``Σ (v − v̄) μ / Σ (v − v̄)²``); then one row per orthonormal
-            polynomial component (:func:`~lincomb._builder.contrasts.orthogonal_polynomials`,
+            polynomial component (:func:`~lincomb._builder.polynomials.orthogonal_polynomials`,
             as ``lc.levels(...).trend(...)``).  The slope row is proportional to the linear
             component, so the joint test counts it once (it is reported as redundant).
 
