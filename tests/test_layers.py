@@ -99,3 +99,66 @@ def test_the_check_itself_tells_allowed_from_forbidden(tmp_path, source, bad):
     f.write_text(source + "\n", encoding="utf-8")
     found = any(_core_violation(name) for _, name in _imports(f, tmp_path / "lincomb"))
     assert found is bad
+
+
+# -- the builder and the model layer -------------------------------------------------------------
+# The builder writes restrictions and level-mean recipes and knows no linear algebra; the model
+# layer (the formula encoder and the design) knows only itself.  Imports under
+# ``if TYPE_CHECKING:`` are annotations, not dependencies, and are not counted.
+LAYER_ALLOWED = {
+    "_builder": ("lincomb._builder", "lincomb.errors"),
+    "_model": ("lincomb._model", "lincomb.errors"),
+}
+
+
+def _runtime_imports(path: Path, root: Path = PACKAGE) -> list[tuple[int, str]]:
+    tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+    skipped: set[int] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.If) and "TYPE_CHECKING" in ast.unparse(node.test):
+            for child in node.body:
+                skipped.update(range(child.lineno, (child.end_lineno or child.lineno) + 1))
+    return [(line, name) for line, name in _imports(path, root) if line not in skipped]
+
+
+def _layer_violation(name: str, allowed: tuple[str, ...]) -> bool:
+    if name.split(".")[0] != "lincomb" or name == "lincomb":
+        return False
+    return not any(name == ok or name.startswith(ok + ".") for ok in allowed)
+
+
+def _layer_files() -> list[tuple[str, Path]]:
+    return [(layer, p) for layer in LAYER_ALLOWED for p in sorted((PACKAGE / layer).rglob("*.py"))]
+
+
+@pytest.mark.parametrize(
+    ("layer", "path"), _layer_files(), ids=lambda v: v if isinstance(v, str) else v.name
+)
+def test_builder_and_model_import_only_their_own_layer(layer, path):
+    allowed = LAYER_ALLOWED[layer]
+    bad = [
+        f"line {line}: {name}"
+        for line, name in _runtime_imports(path)
+        if _layer_violation(name, allowed)
+    ]
+    assert not bad, f"{path.relative_to(PACKAGE.parent)} imports outside its layer: {bad}"
+
+
+@pytest.mark.parametrize(
+    ("source", "bad"),
+    [
+        ("from lincomb._core import solve", True),
+        ("from lincomb._fit.linear import LinearFit", True),
+        ("if TYPE_CHECKING:\n    from lincomb._fit.linear import LinearFit", False),
+        ("from lincomb._builder.restriction import coef", False),
+        ("from lincomb.errors import ContrastError", False),
+    ],
+)
+def test_the_layer_check_can_fail(tmp_path, source, bad):
+    fake_pkg = tmp_path / "lincomb" / "_builder"
+    fake_pkg.mkdir(parents=True)
+    f = fake_pkg / "fake.py"
+    f.write_text(source + "\n", encoding="utf-8")
+    allowed = LAYER_ALLOWED["_builder"]
+    found = any(_layer_violation(n, allowed) for _, n in _runtime_imports(f, tmp_path / "lincomb"))
+    assert found is bad
