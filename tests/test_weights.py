@@ -62,8 +62,11 @@ def test_light_reference_level_is_ill_conditioned_not_silently_wrong():
     g, x, y, w = _layout(1e-60, 0)
     f = lc.fit_arrays(x, y, weights=w, names=["a", "b", "c"])
     assert f.aliased == ("c",)
-    with pytest.raises(lc.errors.NotEstimableError):
+    # the refusal names the weight ratio behind the aliasing (1 / 1e-60), not just the column
+    with pytest.raises(lc.errors.NotEstimableError, match=r"weights span a ratio of 1e\+60"):
         f.wald(lc.coef("c") == 0)
+    with pytest.raises(lc.errors.NotEstimableError, match=r"weights span a ratio of 1e\+60"):
+        f.wald_batch([lc.coef("c") == 0, lc.coef("b") == lc.coef("c")])
 
 
 def test_scaling_all_weights_changes_nothing_but_sigma():

@@ -131,7 +131,7 @@ from lincomb._core.many import (
     wald_quadratic_forms,
 )
 from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
-from lincomb._core.moments import Moments, moments_from_arrays
+from lincomb._core.moments import WEIGHT_SPREAD_PIVOT, Moments, moments_from_arrays
 from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
 from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
@@ -148,6 +148,7 @@ __all__ = [
     # tolerances
     "RANK_TOL",
     "CONSTANT_TOL",
+    "WEIGHT_SPREAD_PIVOT",
     "ROW_TOL",
     "SUPPORT_FLOOR",
     "REFINE_COND",

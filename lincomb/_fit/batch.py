@@ -18,7 +18,7 @@ from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance.estimate import COV_RANK_TOL, CovarianceEstimate
 from lincomb._covariance.reference import check_reference
-from lincomb._model.encoder import unused_level_hint
+from lincomb._fit.linear import aliasing_hint
 from lincomb._results.wald import WaldBatch
 from lincomb.errors import (
     CovarianceInputError,
@@ -170,9 +170,7 @@ def _raise_invalid(
             + "; ".join(parts)
             + _more(len(core.not_estimable))
             + f". Aliased columns: {list(fit.aliased)}. Restate the row as a contrast that the"
-            " data identify, or remove the aliasing from the design."
-            + fix
-            + unused_level_hint(fit.design.encoder)
+            " data identify, or remove the aliasing from the design." + fix + aliasing_hint(fit)
         )
     if core.singular:
         parts = []

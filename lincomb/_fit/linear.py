@@ -457,8 +457,7 @@ class LinearFit:
         ([0], [1])
         """
         c, d, labels = self.resolve(restrictions)
-        hint = unused_level_hint(self._design.encoder)
-        cu, analysis = check_rows(self._sol, c, d, labels, self.names, hint=hint)
+        cu, analysis = check_rows(self._sol, c, d, labels, self.names, hint=aliasing_hint(self))
         return c, d, labels, cu, analysis
 
     def wald(
@@ -887,6 +886,35 @@ class LinearFit:
             covariance=covariance,
             reference=reference,
         )
+
+
+def aliasing_hint(fit: LinearFit) -> str:
+    """What may explain an aliased column beyond the design itself, for error messages.
+
+    Categories left unused by subsetting (named, with the fix), and weights so unequal that
+    rows weighted lightly barely inform the fit: a column seen only in such rows is aliased at
+    working precision (the ratio of the largest weight to the smallest is named).  Empty when
+    neither applies or the fit keeps no rows.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> x = np.c_[np.ones(6), [0.0, 0, 0, 1, 1, 1]]
+    >>> f = lc.fit_arrays(x, [1.0, 2, 3, 5, 6, 8], weights=[1.0, 1, 1, 1e-60, 1e-60, 1e-60])
+    >>> "1e+60" in aliasing_hint(f)
+    True
+    """
+    hint = unused_level_hint(fit.design.encoder)
+    if fit.weighted and fit.design.has_rows:
+        w = np.asarray(fit.design.weights, dtype=np.float64)
+        ratio = float(w.max() / w.min()) if w.size and w.min() > 0 else float("inf")
+        if ratio > core.WEIGHT_SPREAD_PIVOT:
+            hint += (
+                f" The weights span a ratio of {ratio:.3g} (largest over smallest): a column seen"
+                " only in rows weighted that lightly is aliased at working precision. Rescale or"
+                " drop those rows if that is not intended."
+            )
+    return hint
 
 
 def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
