@@ -595,3 +595,13 @@ def test_reported_error_is_honest_over_seeds() -> None:
         ses.append(rep.critical_std_error)
     ratio = np.std(crits, ddof=1) / np.mean(ses)
     assert 0.3 < ratio < 1.8, (ratio, crits, ses)
+
+
+def test_wald_adjust_passes_the_rate_of_the_adaptive_method(plant_fit) -> None:
+    # WaldTest.adjust adjusts the rows' own p-values; the adaptive method's adjusted values
+    # depend on the target rate, compared here with statsmodels' "fdr_tsbky" at alpha = rate
+    res = plant_fit.wald(lc.levels("group").pairwise())
+    for rate in (0.05, 0.2):
+        adj = res.adjust("adaptive-benjamini-hochberg", rate=rate)
+        ref = multipletests(adj.p, alpha=rate, method="fdr_tsbky")[1]
+        np.testing.assert_allclose(adj.p_adjusted, ref, rtol=1e-12)

@@ -248,6 +248,7 @@ class WaldTest(WaldResult):
         tol: float = DEFAULT_TOL,
         seed: int = DEFAULT_SEED,
         max_points: int = DEFAULT_MAX_POINTS,
+        rate: float = 0.05,
     ) -> MultipleInference:
         """p-values of the rows adjusted for testing them together.
 
@@ -255,14 +256,19 @@ class WaldTest(WaldResult):
         ----------
         method : str, default 'holm'
             ``'bonferroni'``, ``'holm'``, ``'sidak'``, ``'hochberg'``,
-            ``'benjamini-hochberg'``, ``'benjamini-yekutieli'`` (from the row p-values, see
-            :func:`lincomb.multiplicity.adjust_pvalues`), ``'scheffe'`` (every combination in
-            the span of ``C``) or ``'max-t'`` (single step, joint multivariate t of the rows).
+            ``'benjamini-hochberg'``, ``'benjamini-yekutieli'``, ``'holm-sidak'``,
+            ``'hommel'``, ``'adaptive-benjamini-hochberg'`` (from the row p-values, see
+            :func:`lincomb.adjust_pvalues`), ``'scheffe'`` (every combination in the span of
+            ``C``), ``'max-t'`` (single step, joint multivariate t of the rows) or
+            ``'studentized-range'`` (all pairwise differences of level means).
         redundant : {'keep', 'drop'}, default 'keep'
             Keep rows that depend on others (e.g. all pairwise differences) in the family, or
             drop them (they get no adjusted p-value; the result lists them).
         tol, seed, max_points
             Integration settings of ``'max-t'`` (see :mod:`lincomb.multiplicity`).
+        rate : float, default 0.05
+            The false discovery rate targeted by ``'adaptive-benjamini-hochberg'``, whose
+            adjusted p-values depend on it (its first stage runs at ``rate / (1 + rate)``).
 
         Returns
         -------
@@ -280,7 +286,13 @@ class WaldTest(WaldResult):
         from lincomb._results.multiplicity import adjust_wald
 
         return adjust_wald(
-            self, method, redundant=redundant, tol=tol, seed=seed, max_points=max_points
+            self,
+            method,
+            redundant=redundant,
+            tol=tol,
+            seed=seed,
+            max_points=max_points,
+            rate=rate,
         )
 
     def simultaneous(
