@@ -401,14 +401,42 @@ class Restriction(_Item):
     <Restriction: a - b = 0>
     >>> (r & (coef("c") == 1)).text()
     'a - b = 0 & c = 1'
+    >>> r.labelled("equal effects")
+    <Restriction: equal effects (a - b = 0)>
     """
 
-    __slots__ = ("expr", "target")
+    __slots__ = ("expr", "target", "label")
     __hash__ = None  # type: ignore[assignment]
 
-    def __init__(self, expr: Expr, target: float) -> None:
+    def __init__(self, expr: Expr, target: float, label: str | None = None) -> None:
         self.expr = expr
         self.target = float(target)
+        self.label = label
+
+    def labelled(self, label: str) -> Restriction:
+        """A copy of the restriction that results call ``label`` instead of its algebra.
+
+        The label becomes the row's name in ``labels``, in ``row_frame()["restriction"]``, in
+        the reprs, in the report tables and in plots; :meth:`text` keeps the algebra.
+
+        Parameters
+        ----------
+        label : str
+            A non-empty name for the row.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> r = (lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).labelled("L2 = L3")
+        >>> f.wald(r).labels
+        ('L2 = L3',)
+        """
+        if not isinstance(label, str) or not label.strip():
+            raise RestrictionSyntaxError(
+                f"labelled() needs a non-empty string, got {label!r}; e.g. 'equal effects'."
+            )
+        return Restriction(self.expr, self.target, label)
 
     def text(self) -> str:
         """The restriction as an equation in coefficient names.
@@ -422,6 +450,8 @@ class Restriction(_Item):
         return f"{self.expr.text()} = {_fmt_num(self.target)}"
 
     def __repr__(self) -> str:
+        if self.label is not None:
+            return f"<Restriction: {self.label} ({self.text()})>"
         return f"<Restriction: {self.text()}>"
 
     def __bool__(self) -> bool:
@@ -449,7 +479,7 @@ class Restriction(_Item):
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
                 " remove it or fix its terms."
             )
-        yield row, self.target, self.text()
+        yield row, self.target, self.text() if self.label is None else self.label
 
 
 @dataclass(frozen=True)
