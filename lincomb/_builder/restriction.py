@@ -387,6 +387,10 @@ class _Item:
     def text(self) -> str:
         raise NotImplementedError
 
+    def shown(self) -> str:
+        """How reprs show the block: its algebra, or ``label (algebra)`` when it has a label."""
+        return self.text()
+
 
 class Restriction(_Item):
     """One linear restriction ``c·β = d``.
@@ -449,10 +453,19 @@ class Restriction(_Item):
         """
         return f"{self.expr.text()} = {_fmt_num(self.target)}"
 
+    def shown(self) -> str:
+        """The label and the algebra (``label (a - b = 0)``), or the algebra alone.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> (coef("a") == 1).labelled("a at one").shown()
+        'a at one (a = 1)'
+        """
+        return self.text() if self.label is None else f"{self.label} ({self.text()})"
+
     def __repr__(self) -> str:
-        if self.label is not None:
-            return f"<Restriction: {self.label} ({self.text()})>"
-        return f"<Restriction: {self.text()}>"
+        return f"<Restriction: {self.shown()}>"
 
     def __bool__(self) -> bool:
         raise RestrictionSyntaxError(_BOOL_MSG)
@@ -584,7 +597,7 @@ class RestrictionSystem:
         return " & ".join(item.text() for item in self.items)
 
     def __repr__(self) -> str:
-        return f"<RestrictionSystem: {self.text()}>"
+        return f"<RestrictionSystem: {' & '.join(item.shown() for item in self.items)}>"
 
     def resolve(
         self, index: Resolver
