@@ -387,6 +387,10 @@ class _Item:
     def text(self) -> str:
         raise NotImplementedError
 
+    def shown(self) -> str:
+        """How reprs show the block: its algebra, or ``label (algebra)`` when it has a label."""
+        return self.text()
+
 
 class Restriction(_Item):
     """One linear restriction ``c·β = d``.
@@ -401,14 +405,42 @@ class Restriction(_Item):
     <Restriction: a - b = 0>
     >>> (r & (coef("c") == 1)).text()
     'a - b = 0 & c = 1'
+    >>> r.labelled("equal effects")
+    <Restriction: equal effects (a - b = 0)>
     """
 
-    __slots__ = ("expr", "target")
+    __slots__ = ("expr", "target", "label")
     __hash__ = None  # type: ignore[assignment]
 
-    def __init__(self, expr: Expr, target: float) -> None:
+    def __init__(self, expr: Expr, target: float, label: str | None = None) -> None:
         self.expr = expr
         self.target = float(target)
+        self.label = label
+
+    def labelled(self, label: str) -> Restriction:
+        """A copy of the restriction that results call ``label`` instead of its algebra.
+
+        The label becomes the row's name in ``labels``, in ``row_frame()["restriction"]``, in
+        the reprs, in the report tables and in plots; :meth:`text` keeps the algebra.
+
+        Parameters
+        ----------
+        label : str
+            A non-empty name for the row.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> r = (lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).labelled("L2 = L3")
+        >>> f.wald(r).labels
+        ('L2 = L3',)
+        """
+        if not isinstance(label, str) or not label.strip():
+            raise RestrictionSyntaxError(
+                f"labelled() needs a non-empty string, got {label!r}; e.g. 'equal effects'."
+            )
+        return Restriction(self.expr, self.target, label)
 
     def text(self) -> str:
         """The restriction as an equation in coefficient names.
@@ -421,8 +453,19 @@ class Restriction(_Item):
         """
         return f"{self.expr.text()} = {_fmt_num(self.target)}"
 
+    def shown(self) -> str:
+        """The label and the algebra (``label (a - b = 0)``), or the algebra alone.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> (coef("a") == 1).labelled("a at one").shown()
+        'a at one (a = 1)'
+        """
+        return self.text() if self.label is None else f"{self.label} ({self.text()})"
+
     def __repr__(self) -> str:
-        return f"<Restriction: {self.text()}>"
+        return f"<Restriction: {self.shown()}>"
 
     def __bool__(self) -> bool:
         raise RestrictionSyntaxError(_BOOL_MSG)
@@ -449,7 +492,7 @@ class Restriction(_Item):
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
                 " remove it or fix its terms."
             )
-        yield row, self.target, self.text()
+        yield row, self.target, self.text() if self.label is None else self.label
 
 
 @dataclass(frozen=True)
@@ -554,7 +597,7 @@ class RestrictionSystem:
         return " & ".join(item.text() for item in self.items)
 
     def __repr__(self) -> str:
-        return f"<RestrictionSystem: {self.text()}>"
+        return f"<RestrictionSystem: {' & '.join(item.shown() for item in self.items)}>"
 
     def resolve(
         self, index: Resolver

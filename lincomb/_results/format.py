@@ -7,6 +7,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from lincomb._results.report import CELL_STYLE, HEAD_STYLE, TABLE_STYLE
+
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
     from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
@@ -45,11 +47,25 @@ def _table_text(header: list[str], rows: list[list[str]]) -> str:
 
 
 def _table_html(header: list[str], rows: list[list[str]]) -> str:
-    th = "".join(f"<th>{html.escape(h)}</th>" for h in header)
-    body = "".join(
-        "<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>" for r in rows
+    # styled inline, so the table reads the same without a notebook's stylesheet
+    def style(base: str, i: int) -> str:
+        return f"{base};text-align:{'left' if i == 0 else 'right'}"
+
+    th = "".join(
+        f"<th style='{style(HEAD_STYLE, i)}'>{html.escape(h)}</th>" for i, h in enumerate(header)
     )
-    return f"<table class='lincomb'><thead><tr>{th}</tr></thead><tbody>{body}</tbody></table>"
+    body = "".join(
+        "<tr>"
+        + "".join(
+            f"<td style='{style(CELL_STYLE, i)}'>{html.escape(c)}</td>" for i, c in enumerate(r)
+        )
+        + "</tr>"
+        for r in rows
+    )
+    return (
+        f"<table class='lincomb' style='{TABLE_STYLE}'><thead><tr>{th}</tr></thead>"
+        f"<tbody>{body}</tbody></table>"
+    )
 
 
 def _fit_rows(f: LinearFit) -> list[list[str]]:

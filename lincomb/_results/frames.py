@@ -22,6 +22,7 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb._core.checks import check_level
+from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
 __all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
 
@@ -75,6 +76,9 @@ RESULT_ATTRIBUTES = (
     "row_p",
     "row_frame",
     "test_frame",
+    "as_markdown",
+    "as_latex",
+    "as_html",
 )
 
 Array = NDArray[np.float64]
@@ -162,6 +166,95 @@ class WaldResult:
             }
         )
         return pd.DataFrame(cols)
+
+    def _report(self, level: float) -> tuple[pd.DataFrame, dict[str, str]]:
+        frame = self._row_frame(level)
+        return frame, wald_headers(frame, self.reference)
+
+    def as_markdown(self, level: float = 0.95, digits: int = 4) -> str:
+        """The rows of the test as a Markdown table, numbers to ``digits`` significant digits.
+
+        Columns (a batch or a many-response test starts with ``system`` or ``response``):
+        ``restriction``, ``estimate``, ``target``, ``s.e.``, ``t`` (``z`` under a chi2
+        reference), ``p`` and the bounds of the marginal interval at ``level``, the numbers of
+        ``row_frame(level)`` rounded.
+
+        Parameters
+        ----------
+        level : float, default 0.95
+            Confidence level of the intervals, in (0, 1).
+        digits : int, default 4
+            Significant digits of every number, 1 to 17.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> res = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 vs L1"))
+        >>> print(res.as_markdown(level=0.9, digits=3))
+        | restriction | estimate | target |  s.e. |     t |        p | lower 90% | upper 90% |
+        |:------------|---------:|-------:|------:|------:|---------:|----------:|----------:|
+        | L2 vs L1    |    -1.03 |      0 | 0.272 | -3.77 | 0.000199 |     -1.47 |    -0.576 |
+        """
+        return markdown_table(*self._report(level), digits=digits)
+
+    def as_latex(self, level: float = 0.95, digits: int = 4) -> str:
+        r"""The rows of the test as a plain LaTeX ``tabular`` (no package needed).
+
+        The columns are those of :meth:`as_markdown`; LaTeX's special characters in labels
+        (``\ & % $ # _ { } ~ ^``) are escaped.
+
+        Parameters
+        ----------
+        level : float, default 0.95
+            Confidence level of the intervals, in (0, 1).
+        digits : int, default 4
+            Significant digits of every number, 1 to 17.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> tex = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 & L1")).as_latex()
+        >>> tex.splitlines()[0], "L2 \\& L1" in tex
+        ('\\begin{tabular}{lrrrrrrr}', True)
+        """
+        return latex_table(*self._report(level), digits=digits)
+
+    def as_html(self, level: float = 0.95, digits: int = 4) -> str:
+        """The rows of the test as one standalone HTML table with inline style.
+
+        The columns are those of :meth:`as_markdown`; the table needs no stylesheet and
+        loads nothing.
+
+        Parameters
+        ----------
+        level : float, default 0.95
+            Confidence level of the intervals, in (0, 1).
+        digits : int, default 4
+            Significant digits of every number, 1 to 17.
+
+        Returns
+        -------
+        str
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> page = f.wald(lc.levels("line").pairwise()).as_html(digits=3)
+        >>> page.startswith("<table style=") and page.count("<tr>") == 1 + 6
+        True
+        """
+        return html_table(*self._report(level), digits=digits)
 
     def _test_frame(self) -> pd.DataFrame:
         g = self._groups()
