@@ -65,7 +65,11 @@ autosummary_generate = True
 autosummary_imported_members = True
 autodoc_typehints = "none"  # the numpydoc Parameters and Returns sections carry the types
 autodoc_member_order = "bysource"
-autodoc_default_options = {"members": True, "undoc-members": False, "show-inheritance": True}
+autodoc_default_options = {
+    "members": True,
+    "undoc-members": False,
+    "show-inheritance": True,
+}
 numpydoc_show_class_members = False
 numpydoc_class_members_toctree = False
 numpydoc_xref_param_type = False
