@@ -395,25 +395,22 @@ class DetectableEffect:
             f" direction {np.round(self.direction, 6).tolist()}\n" + _study_line(self)
         )
 
-    def __repr__(self) -> str:
-        rows = [
+    def _rows(self) -> list[list[str]]:
+        return [
             [lab, _num(t), _num(a), _num(s)]
             for lab, t, a, s in zip(
                 self.labels, self.target, self.alternative, self.shift, strict=True
             )
         ]
-        return f"{self._head()}\n{_table_text(_ROW_HEADER, rows)}"
+
+    def __repr__(self) -> str:
+        return f"{self._head()}\n{_table_text(_ROW_HEADER, self._rows())}"
 
     def _repr_html_(self) -> str:
         import html
 
-        rows = [
-            [lab, _num(t), _num(a), _num(s)]
-            for lab, t, a, s in zip(
-                self.labels, self.target, self.alternative, self.shift, strict=True
-            )
-        ]
         head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        rows = self._rows()
         return (
             f"<div class='lincomb-power'><p><b>{head}</b></p>{_table_html(_ROW_HEADER, rows)}</div>"
         )

@@ -28,6 +28,31 @@ def _num(v: float) -> str:
     return "—" if not np.isfinite(v) else f"{v:.6g}"
 
 
+def _html_lines(text: str) -> str:
+    """``text`` escaped for HTML, its lines joined by ``<br>``."""
+    return "<br>".join(html.escape(s) for s in text.split("\n"))
+
+
+class TableRepr:
+    """Text and HTML reprs of a result shown as a head, a table and an optional tail line.
+
+    A subclass gives ``_parts()``: ``(head, header, rows, tail)``, ``tail`` empty for none.
+    (A dataclass using it is declared with ``repr=False`` so that it keeps these reprs.)
+    """
+
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        raise NotImplementedError  # pragma: no cover - each result has its own
+
+    def __repr__(self) -> str:
+        head, header, rows, tail = self._parts()
+        return "\n".join(s for s in (head, _table_text(header, rows), tail) if s)
+
+    def _repr_html_(self) -> str:
+        head, header, rows, tail = self._parts()
+        foot = f"<p>{html.escape(tail)}</p>" if tail else ""
+        return f"<div><p><b>{_html_lines(head)}</b></p>{_table_html(header, rows)}{foot}</div>"
+
+
 def _table_text(header: list[str], rows: list[list[str]]) -> str:
     widths = [
         max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)
