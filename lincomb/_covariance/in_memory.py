@@ -22,7 +22,14 @@ from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
 from lincomb._covariance.panel import TimeSumMeat, UnitSerialMeat
-from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
+from lincomb._covariance.rows import (
+    RowMap,
+    cluster_codes,
+    fit_rows,
+    refuse_missing,
+    row_values,
+    time_order,
+)
 from lincomb._settings import blas_limit, can_limit
 from lincomb.errors import CovarianceInputError, TiedTimesError
 
@@ -172,12 +179,7 @@ def _serial_within(
     uvalues, uname = row_values(fit, units, "units")
     ucodes, g = cluster_codes(fit, uvalues, uname)
     tvalues, tname = row_values(fit, order, "time order")
-    bad = np.flatnonzero(pd.isna(tvalues))
-    if bad.size:
-        raise CovarianceInputError(
-            f"time order {tname!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
-            f" ({bad.size} missing in all); every row used needs a time value."
-        )
+    refuse_missing(fit, tvalues, f"time order {tname!r} is", "every row used needs a time value.")
     tcodes = pd.factorize(tvalues, sort=True)[0]
     perm = np.lexsort((tcodes, ucodes)).astype(np.intp)
     us, ts = ucodes[perm], tcodes[perm]
@@ -207,11 +209,6 @@ def common_shocks(
     """Newey–West on scores summed per time point, on an in-memory fit."""
     fit_rows(fit)
     values, name = row_values(fit, time, "time")
-    bad = np.flatnonzero(pd.isna(values))
-    if bad.size:
-        raise CovarianceInputError(
-            f"time {name!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
-            f" ({bad.size} missing in all); every row used needs a time value."
-        )
+    refuse_missing(fit, values, f"time {name!r} is", "every row used needs a time value.")
     meat = TimeSumMeat(fit, lag, name, small_sample, df)
     return _over_rows(meat, fit, (values,))
