@@ -579,12 +579,7 @@ def fit_dask_arrays(
     if total.moments is None:
         raise InputError("no rows to fit: the arrays are empty.")
     design = Design(
-        index=CoefficientIndex(
-            names=names_t,
-            terms={s: (j,) for j, s in enumerate(names_t)},
-            levels=tuple(() for _ in names_t),
-            factors={},
-        ),
+        index=CoefficientIndex.of_columns(names_t),
         intercept=truth,
         response="y",
         dropped=pd.Index([]),
