@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._results.format import _num, _table_html, _table_text
+from lincomb._results.format import _html_lines, _num, _table_html, _table_text
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -217,9 +217,8 @@ class PowerResult:
         return f"{self._head()}\n{_table_text(_ROW_HEADER, _rows_table(self.effect_frame()))}"
 
     def _repr_html_(self) -> str:
-        import html
 
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
         table = _table_html(_ROW_HEADER, _rows_table(self.effect_frame()))
         return f"<div class='lincomb-power'><p><b>{head}</b></p>{table}</div>"
 
@@ -305,9 +304,8 @@ class SampleSize:
         return self._head()
 
     def _repr_html_(self) -> str:
-        import html
 
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
         return f"<div class='lincomb-power'><p><b>{head}</b></p></div>"
 
 
@@ -407,9 +405,8 @@ class DetectableEffect:
         return f"{self._head()}\n{_table_text(_ROW_HEADER, self._rows())}"
 
     def _repr_html_(self) -> str:
-        import html
 
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
         rows = self._rows()
         return (
             f"<div class='lincomb-power'><p><b>{head}</b></p>{_table_html(_ROW_HEADER, rows)}</div>"

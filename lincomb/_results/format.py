@@ -129,7 +129,7 @@ def fit_text(f: LinearFit) -> str:
 
 
 def fit_html(f: LinearFit) -> str:
-    head = "<br>".join(html.escape(s) for s in _fit_head(f).split("\n"))
+    head = _html_lines(_fit_head(f))
     table = _table_html(["coefficient", "estimate", "s.e.", "t", "p"], _fit_rows(f))
     tail = (
         f"<p>aliased (not estimable): {html.escape(', '.join(f.aliased))}</p>" if f.aliased else ""
@@ -175,7 +175,7 @@ def wald_text(w: WaldTest) -> str:
 
 
 def wald_html(w: WaldTest) -> str:
-    head = "<br>".join(html.escape(s) for s in _wald_head(w).split("\n"))
+    head = _html_lines(_wald_head(w))
     table = _table_html(_wald_header(w), _wald_rows(w))
     return f"<div class='lincomb-wald'><p><b>{head}</b></p>{table}</div>"
 
@@ -202,7 +202,7 @@ def restricted_text(r: RestrictedFit) -> str:
 
 def restricted_html(r: RestrictedFit) -> str:
     head, rows = _restricted_parts(r)
-    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    h = _html_lines(head)
     return (
         f"<div class='lincomb-restricted'><p><b>{h}</b></p>"
         f"{_table_html(['coefficient', 'estimate', 's.e.'], rows)}</div>"
@@ -248,7 +248,7 @@ def batch_text(b: WaldBatch) -> str:
 
 def batch_html(b: WaldBatch) -> str:
     head, rows, tail = _batch_parts(b)
-    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    h = _html_lines(head)
     more = f"<p>{html.escape(tail)}</p>" if tail else ""
     return (
         f"<div class='lincomb-wald-batch'><p><b>{h}</b></p>"
