@@ -177,15 +177,7 @@ class PowerResult:
                 {
                     "restrictions": " & ".join(self.labels),
                     "rank": self.df_test,
-                    "replicates": self.replicates,
-                    "n_obs": self.n_obs,
-                    "df_test": self.df_test,
-                    "df_error": self.df_error,
-                    "sigma": self.sigma,
-                    "alpha": self.alpha,
-                    "noncentrality": self.noncentrality,
-                    "critical_value": self.critical_value,
-                    "power": self.power,
+                    **{c: getattr(self, c) for c in POWER_COLUMNS[2:]},  # fields of that name
                 }
             ],
             columns=list(POWER_COLUMNS),
@@ -469,15 +461,7 @@ class PowerCurve:
         1     10       8
         """
         return pd.DataFrame(
-            {
-                "replicates": self.replicates,
-                "n_obs": self.n_obs,
-                "df_test": self.df_test,
-                "df_error": self.df_error,
-                "noncentrality": self.noncentrality,
-                "critical_value": self.critical_value,
-                "power": self.power,
-            },
+            {c: getattr(self, c) for c in CURVE_COLUMNS},  # fields of that name
             columns=list(CURVE_COLUMNS),
         )
 
