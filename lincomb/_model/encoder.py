@@ -497,9 +497,7 @@ class FormulaEncoder:
         if require_rows and len(sub) == 0:
             if len(data) == 0:
                 raise InputError(f"{label} has no rows: there is nothing to fit.")
-            counts = {c: int(work[c].isna().sum()) for c in variables if work[c].isna().any()}
-            if w is not None and w.isna().any():
-                counts["<weights>"] = int(w.isna().sum())
+            counts = _missing_counts(work, variables, w)
             raise MissingValueError(
                 f"every one of the {len(data)} rows of {label} has a missing value in a variable"
                 f" of {formula!r} (missing per column: {counts}), so no row is left to fit."
@@ -1065,6 +1063,16 @@ def _na_mask(
     return na
 
 
+def _missing_counts(
+    frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
+) -> dict[str, int]:
+    """Missing values per variable that has any (and ``"<weights>"`` for the weights)."""
+    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
+    if w is not None and w.isna().any():
+        counts["<weights>"] = int(w.isna().sum())
+    return counts
+
+
 def _refuse_missing(
     frame: pd.DataFrame,
     na: NDArray[np.bool_],
@@ -1076,9 +1084,7 @@ def _refuse_missing(
     n_na = int(na.sum())
     if not n_na or missing != "refuse":
         return
-    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
-    if w is not None and w.isna().any():
-        counts["<weights>"] = int(w.isna().sum())
+    counts = _missing_counts(frame, variables, w)
     raise MissingValueError(
         f"{_prefix(where)}{n_na} rows have missing values (per column: {counts}); drop or impute"
         " them, or fit with missing='skip'."
