@@ -13,7 +13,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.moments import Moments, _weighted_mean
+from lincomb._core.moments import Moments, _centre_in_place, _weighted_mean
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
 from lincomb.errors import InternalError
@@ -301,11 +301,7 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     if intercept is not None:
         raw_norm[intercept] = np.sqrt(wsum) * abs(float(x[0, intercept])) if n else 0.0
         if n > 0:
-            m1 = _weighted_mean(a, w)
-            a -= m1
-            m2 = _weighted_mean(a, w)
-            a -= m2
-            center[cols] = m1 + m2
+            center[cols] = _centre_in_place(a, w)
     if w is not None:
         a *= np.sqrt(w)[:, None]
     q = cols.size

@@ -89,6 +89,16 @@ def _weighted_mean(a: Array, w: Array | None) -> Array:
     return mean
 
 
+def _centre_in_place(a: Array, w: Array | None) -> Array:
+    """Subtract the (weighted) column means from ``a`` in place, twice (the second pass takes
+    off what rounding left of the first), and return the total subtracted."""
+    m1 = _weighted_mean(a, w)
+    a -= m1
+    m2 = _weighted_mean(a, w)
+    a -= m2
+    return m1 + m2
+
+
 def moments_from_arrays(
     x: Array, y: Array, w: Array | None = None, intercept: int | None = None
 ) -> Moments:
@@ -201,11 +211,7 @@ def _moments_block(
     if intercept is not None and n > 0:
         if shift is not None:
             a -= shift
-        m1 = _weighted_mean(a, w)
-        a -= m1
-        m2 = _weighted_mean(a, w)
-        a -= m2
-        center[np.append(cols, p)] = m1 + m2
+        center[np.append(cols, p)] = _centre_in_place(a, w)
     if w is not None:
         a *= np.sqrt(w)[:, None]
     if w is not None and n and float(w.max()) > WEIGHT_SPREAD_PIVOT * float(w.min()):

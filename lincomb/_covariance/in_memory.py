@@ -22,7 +22,14 @@ from lincomb._covariance.bias_reduced import AdjustedClusterMeat
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import ClusterMeat, HeteroskedasticMeat, SerialMeat
 from lincomb._covariance.panel import TimeSumMeat, UnitSerialMeat
-from lincomb._covariance.rows import RowMap, cluster_codes, fit_rows, row_values, time_order
+from lincomb._covariance.rows import (
+    RowMap,
+    cluster_codes,
+    fit_rows,
+    refuse_missing,
+    row_values,
+    time_order,
+)
 from lincomb._settings import blas_limit, can_limit
 from lincomb.errors import CovarianceInputError, TiedTimesError
 
@@ -55,17 +62,6 @@ def automatic_lag(n: int) -> int:
     return int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0)))
 
 
-def _over_rows(
-    meat: Any,
-    fit: LinearFit,
-    labels: tuple[NDArray[Any], ...] = (),
-    order: NDArray[np.intp] | None = None,
-) -> CovarianceEstimate:
-    """Run ``meat.block`` over blocks of the fit's rows (in ``order`` if given), merge and
-    finish."""
-    return meat.finish(_over_rows_partial(meat, fit, labels, order))  # type: ignore[no-any-return]
-
-
 def _over_rows_partial(
     meat: Any,
     fit: LinearFit,
@@ -73,8 +69,8 @@ def _over_rows_partial(
     order: NDArray[np.intp] | None = None,
 ) -> Any:
     """The merged partial of ``meat.block`` over blocks of the fit's rows (in ``order`` if
-    given), on one BLAS thread when the fit is large (threads woken for small products cost
-    more than the products on busy cores)."""
+    given; ``meat.finish`` of it is the estimate), on one BLAS thread when the fit is large
+    (threads woken for small products cost more than the products on busy cores)."""
     x, y, w = fit_rows(fit)
     rmap = RowMap.of(fit.solution)
     n = x.shape[0]
@@ -98,7 +94,7 @@ def _over_rows_partial(
 def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
     """``HC0`` ... ``HC4`` on an in-memory fit."""
     meat = HeteroskedasticMeat(fit, kind)
-    return _over_rows(meat, fit)
+    return meat.finish(_over_rows_partial(meat, fit))
 
 
 def clustered(
@@ -117,7 +113,7 @@ def clustered(
         codes.append(c)
         names.append(name)
     meat = ClusterMeat(fit, tuple(names), small_sample, df, two_way_factor)
-    return _over_rows(meat, fit, tuple(codes))
+    return meat.finish(_over_rows_partial(meat, fit, tuple(codes)))
 
 
 def adjusted_clustered(
@@ -127,7 +123,7 @@ def adjusted_clustered(
     values, name = row_values(fit, by, "cluster labels")
     codes, _ = cluster_codes(fit, values, name)
     meat = AdjustedClusterMeat(fit, name, adjust, df)
-    return _over_rows(meat, fit, (codes,))
+    return meat.finish(_over_rows_partial(meat, fit, (codes,)))
 
 
 def serial(
@@ -156,7 +152,7 @@ def serial(
         values, order_name = row_values(fit, order, "time order")
         perm = time_order(fit, values, order_name)
     meat = SerialMeat(fit, lag, order_name, small_sample, df)
-    return _over_rows(meat, fit, order=perm)
+    return meat.finish(_over_rows_partial(meat, fit, order=perm))
 
 
 def _serial_within(
@@ -172,12 +168,7 @@ def _serial_within(
     uvalues, uname = row_values(fit, units, "units")
     ucodes, g = cluster_codes(fit, uvalues, uname)
     tvalues, tname = row_values(fit, order, "time order")
-    bad = np.flatnonzero(pd.isna(tvalues))
-    if bad.size:
-        raise CovarianceInputError(
-            f"time order {tname!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
-            f" ({bad.size} missing in all); every row used needs a time value."
-        )
+    refuse_missing(fit, tvalues, f"time order {tname!r} is", "every row used needs a time value.")
     tcodes = pd.factorize(tvalues, sort=True)[0]
     perm = np.lexsort((tcodes, ucodes)).astype(np.intp)
     us, ts = ucodes[perm], tcodes[perm]
@@ -198,7 +189,7 @@ def _serial_within(
             f" rule gives {automatic_lag(longest)}."
         )
     meat = UnitSerialMeat(fit, lag, (tname, uname), small_sample, df, g)
-    return _over_rows(meat, fit, (ucodes,), order=perm)
+    return meat.finish(_over_rows_partial(meat, fit, (ucodes,), order=perm))
 
 
 def common_shocks(
@@ -207,11 +198,6 @@ def common_shocks(
     """Newey–West on scores summed per time point, on an in-memory fit."""
     fit_rows(fit)
     values, name = row_values(fit, time, "time")
-    bad = np.flatnonzero(pd.isna(values))
-    if bad.size:
-        raise CovarianceInputError(
-            f"time {name!r} is missing at row {fit.design.row_index[int(bad[0])]!r}"
-            f" ({bad.size} missing in all); every row used needs a time value."
-        )
+    refuse_missing(fit, values, f"time {name!r} is", "every row used needs a time value.")
     meat = TimeSumMeat(fit, lag, name, small_sample, df)
-    return _over_rows(meat, fit, (values,))
+    return meat.finish(_over_rows_partial(meat, fit, (values,)))

@@ -32,6 +32,7 @@ Meat pieces, in the working coordinates ``Z = X̃_w R⁻¹`` (orthonormal column
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -53,6 +54,7 @@ __all__ = [
     "HeteroskedasticMeat",
     "ClusterMeat",
     "SerialMeat",
+    "bartlett_meat",
     "leverage_weights",
 ]
 
@@ -141,6 +143,56 @@ def _working(rs: Array, xc: Array) -> Array:
     return np.asarray(sla.blas.dtrsm(1.0, rs, xf, side=1, overwrite_b=1)).T
 
 
+def _bartlett_weight(ell: int, lag: int) -> float:
+    """The Bartlett weight ``1 − ℓ/(lag+1)`` of the lag-``ℓ`` products."""
+    return 1.0 - ell / (lag + 1.0)
+
+
+def bartlett_meat(s: Array, lag: int, same: Sequence[NDArray[np.bool_]] | None = None) -> Array:
+    """``Σ_t s_t s_tᵀ + Σ_{ℓ≤lag} (1 − ℓ/(lag+1)) (Γ_ℓ + Γ_ℓᵀ)`` for scores ``s`` (T, k) in
+    time order; with ``same`` (a function of the lag giving which pairs count) only pairs
+    of rows of one unit count.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> s = np.array([[1.0], [2.0], [3.0]])
+    >>> float(bartlett_meat(s, 1)[0, 0])  # 14 + 0.5 * 2 * (2 + 6)
+    22.0
+    """
+    meat = s.T @ s
+    for ell in range(1, min(lag, s.shape[0] - 1) + 1):
+        a, b = s[ell:], s[:-ell]
+        if same is not None:
+            keep = same[ell - 1]
+            a, b = a[keep], b[keep]
+        gam = a.T @ b
+        meat += _bartlett_weight(ell, lag) * (gam + gam.T)
+    return meat
+
+
+def _clipped_note(label: str, clipped: int) -> str:
+    """``label`` with a note of how many negative eigenvalues the factor set to 0."""
+    return label + f"; {clipped} negative eigenvalue(s) set to 0" if clipped else label
+
+
+def _merge_groups(parts: tuple[Partial, ...]) -> Partial:
+    """Partials of cluster (or time) score sums merged by adding the sums of equal labels."""
+    groups = []
+    for j in range(len(parts[0].groups)):
+        pieces = [p.groups[j] for p in parts]
+        if len(pieces) == 1:
+            groups.append(pieces[0])
+            continue
+        keys = tuple(
+            np.concatenate([pc.keys[c] for pc in pieces]) for c in range(len(pieces[0].keys))
+        )
+        sums = np.concatenate([pc.sums for pc in pieces])
+        codes, uniq = _codes(keys)
+        groups.append(Groups(uniq, _group_sum(codes, len(uniq[0]), np.ones(codes.size), sums)))
+    return Partial(sum(p.n for p in parts), math.fsum(p.rss for p in parts), groups=tuple(groups))
+
+
 class _Meat:
     """What every meat shares: the fit's solution, its row count and rank.
 
@@ -161,6 +213,38 @@ class _Meat:
     def merge(self, *parts: Partial) -> Partial:
         """Combine the partials of disjoint blocks of rows."""
         raise NotImplementedError  # pragma: no cover - each meat has its own
+
+
+class _LaggedMeat(_Meat):
+    """What the Newey–West meats share: the lag, the small-sample factor ``n/(n − k)`` and
+    the reference df, and an estimate from the finished meat."""
+
+    def __init__(self, fit: Any, lag: Any, small_sample: bool, df: float | None) -> None:
+        super().__init__(fit)
+        self.lag = lag
+        self.small_sample = small_sample
+        self.df = df
+
+    def _scale(self) -> float:
+        n, k = self.n_obs, self.k
+        return n / (n - k) if self.small_sample else 1.0
+
+    def _estimate(
+        self, method: str, label: str, meat: Array, lag: int, df_error: float
+    ) -> CovarianceEstimate:
+        """The estimate from the unscaled meat; ``df_error`` is used unless ``df`` was given."""
+        scale = self._scale()
+        factor, clipped = psd_factor(meat * scale)
+        return CovarianceEstimate(
+            method=method,
+            label=_clipped_note(label, clipped),
+            df_error=df_error if self.df is None else float(self.df),
+            lag=lag,
+            scale=scale,
+            clipped=clipped,
+            _sol=self.sol,
+            _factor=factor,
+        )
 
 
 class HeteroskedasticMeat(_Meat):
@@ -270,21 +354,7 @@ class ClusterMeat(_Meat):
         return Partial(resid.size, rss, groups=tuple(groups))
 
     def merge(self, *parts: Partial) -> Partial:
-        groups = []
-        for j in range(len(parts[0].groups)):
-            pieces = [p.groups[j] for p in parts]
-            if len(pieces) == 1:
-                groups.append(pieces[0])
-                continue
-            keys = tuple(
-                np.concatenate([pc.keys[c] for pc in pieces]) for c in range(len(pieces[0].keys))
-            )
-            sums = np.concatenate([pc.sums for pc in pieces])
-            codes, uniq = _codes(keys)
-            groups.append(Groups(uniq, _group_sum(codes, len(uniq[0]), np.ones(codes.size), sums)))
-        return Partial(
-            sum(p.n for p in parts), math.fsum(p.rss for p in parts), groups=tuple(groups)
-        )
+        return _merge_groups(parts)
 
     def _meat(self, groups: Groups) -> tuple[Array, float]:
         n, k, g = self.n_obs, self.k, len(groups)
@@ -326,11 +396,9 @@ class ClusterMeat(_Meat):
             label = f"two-way cluster by {names[0]} × {names[1]} ({sizes[0]}, {sizes[1]} groups)"
             if self.two_way_factor == "smaller":
                 label += "; one small-sample factor, from the smaller clustering"
-            if clipped:
-                label += f"; {clipped} negative eigenvalue(s) set to 0"
         return CovarianceEstimate(
             method=method,
-            label=label,
+            label=_clipped_note(label, clipped),
             df_error=float(min(sizes) - 1) if self.df is None else float(self.df),
             groups=tuple(sizes),
             scale=scale,
@@ -340,21 +408,15 @@ class ClusterMeat(_Meat):
         )
 
 
-class SerialMeat(_Meat):
+class SerialMeat(_LaggedMeat):
     """The Newey–West meat (Bartlett weights) as block / merge / finish; blocks are runs of
     consecutive rows in time order, merged in that order."""
 
     def __init__(
         self, fit: Any, lag: int, order_name: str, small_sample: bool, df: float | None
     ) -> None:
-        super().__init__(fit)
-        self.lag = lag
+        super().__init__(fit, lag, small_sample, df)
         self.order_name = order_name
-        self.small_sample = small_sample
-        self.df = df
-
-    def _weight(self, ell: int) -> float:
-        return 1.0 - ell / (self.lag + 1.0)
 
     def block(
         self,
@@ -366,10 +428,7 @@ class SerialMeat(_Meat):
         """``Γ₀ + Σ_ℓ w_ℓ (Γ_ℓ + Γ_ℓᵀ)`` over the pairs of rows inside the block."""
         xc, resid = _weighted(xc, resid, w)
         s = np.ascontiguousarray((_working(self.rs, xc) * resid).T)  # scores (b, k)
-        meat = s.T @ s
-        for ell in range(1, min(self.lag, s.shape[0] - 1) + 1):
-            gam = s[ell:].T @ s[:-ell]
-            meat += self._weight(ell) * (gam + gam.T)
+        meat = bartlett_meat(s, self.lag)
         lag = self.lag
         return Partial(resid.size, float(resid @ resid), meat, head=s[:lag], tail=s[-lag:][:lag])
 
@@ -391,7 +450,7 @@ class SerialMeat(_Meat):
             if hi > lo:
                 end = ta.shape[0] - ell
                 gam = hb[lo:hi].T @ ta[end + lo : end + hi]
-                meat += self._weight(ell) * (gam + gam.T)
+                meat += _bartlett_weight(ell, lag) * (gam + gam.T)
         head = np.concatenate([a.head, b.head])[:lag]
         tail = np.concatenate([a.tail, b.tail])[-lag:] if lag else b.tail
         return replace(b, n=a.n + b.n, rss=a.rss + b.rss, gram=meat, head=head, tail=tail)
@@ -399,19 +458,5 @@ class SerialMeat(_Meat):
     def finish(self, part: Partial) -> CovarianceEstimate:
         """The estimate from the merged partial of all the fit's rows, in time order."""
         assert part.gram is not None
-        n, k = self.n_obs, self.k
-        scale = n / (n - k) if self.small_sample else 1.0
-        factor, clipped = psd_factor(part.gram * scale)
         label = f"serial (Bartlett, lag {self.lag}, {self.order_name})"
-        if clipped:
-            label += f"; {clipped} negative eigenvalue(s) set to 0"
-        return CovarianceEstimate(
-            method="serial",
-            label=label,
-            df_error=self.df_error if self.df is None else float(self.df),
-            lag=self.lag,
-            scale=scale,
-            clipped=clipped,
-            _sol=self.sol,
-            _factor=factor,
-        )
+        return self._estimate("serial", label, part.gram, self.lag, self.df_error)

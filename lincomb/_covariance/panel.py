@@ -21,23 +21,23 @@ passes give it too.
 
 from __future__ import annotations
 
-import math
-from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 from lincomb import _core as core
-from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
+from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.meats import (
     Groups,
     Partial,
     _codes,
     _group_sum,
-    _Meat,
+    _LaggedMeat,
+    _merge_groups,
     _weighted,
     _working,
+    bartlett_meat,
 )
 from lincomb.errors import CovarianceInputError
 
@@ -46,30 +46,7 @@ __all__ = ["UnitSerialMeat", "TimeSumMeat", "bartlett_meat"]
 Array = NDArray[np.float64]
 
 
-def bartlett_meat(s: Array, lag: int, same: Sequence[NDArray[np.bool_]] | None = None) -> Array:
-    """``Σ_t s_t s_tᵀ + Σ_{ℓ≤lag} (1 − ℓ/(lag+1)) (Γ_ℓ + Γ_ℓᵀ)`` for scores ``s`` (T, k) in
-    time order; with ``same`` (a function of the lag giving which pairs count) only pairs
-    of rows of one unit count.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> s = np.array([[1.0], [2.0], [3.0]])
-    >>> float(bartlett_meat(s, 1)[0, 0])  # 14 + 0.5 * 2 * (2 + 6)
-    22.0
-    """
-    meat = s.T @ s
-    for ell in range(1, min(lag, s.shape[0] - 1) + 1):
-        a, b = s[ell:], s[:-ell]
-        if same is not None:
-            keep = same[ell - 1]
-            a, b = a[keep], b[keep]
-        gam = a.T @ b
-        meat += (1.0 - ell / (lag + 1.0)) * (gam + gam.T)
-    return meat
-
-
-class UnitSerialMeat(_Meat):
+class UnitSerialMeat(_LaggedMeat):
     """Newey–West within units, one block of rows sorted by unit then time."""
 
     row_blocks = False
@@ -83,11 +60,8 @@ class UnitSerialMeat(_Meat):
         df: float | None,
         units: int,
     ) -> None:
-        super().__init__(fit)
-        self.lag = lag
+        super().__init__(fit, lag, small_sample, df)
         self.names = names
-        self.small_sample = small_sample
-        self.df = df
         self.units = units
 
     def block(
@@ -106,28 +80,14 @@ class UnitSerialMeat(_Meat):
 
     def finish(self, part: Partial) -> CovarianceEstimate:
         assert part.gram is not None
-        n, k = self.n_obs, self.k
-        scale = n / (n - k) if self.small_sample else 1.0
-        factor, clipped = psd_factor(part.gram * scale)
         label = (
             f"serial within {self.names[1]} (Bartlett, lag {self.lag}, {self.names[0]};"
             f" {self.units} units)"
         )
-        if clipped:
-            label += f"; {clipped} negative eigenvalue(s) set to 0"
-        return CovarianceEstimate(
-            method="serial within units",
-            label=label,
-            df_error=self.df_error if self.df is None else float(self.df),
-            lag=self.lag,
-            scale=scale,
-            clipped=clipped,
-            _sol=self.sol,
-            _factor=factor,
-        )
+        return self._estimate("serial within units", label, part.gram, self.lag, self.df_error)
 
 
-class TimeSumMeat(_Meat):
+class TimeSumMeat(_LaggedMeat):
     """Newey–West on the scores summed per time point, as block / merge / finish."""
 
     fortran = False
@@ -136,11 +96,8 @@ class TimeSumMeat(_Meat):
     def __init__(
         self, fit: Any, lag: int | None, name: str, small_sample: bool, df: float | None
     ) -> None:
-        super().__init__(fit)
-        self.lag = lag
+        super().__init__(fit, lag, small_sample, df)
         self.name = name
-        self.small_sample = small_sample
-        self.df = df
 
     def block(
         self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
@@ -152,17 +109,7 @@ class TimeSumMeat(_Meat):
         return Partial(resid.size, float(resid @ u), groups=(Groups(uniq, sums),))
 
     def merge(self, *parts: Partial) -> Partial:
-        if len(parts) == 1:
-            return parts[0]
-        keys = np.concatenate([p.groups[0].keys[0] for p in parts])
-        sums = np.concatenate([p.groups[0].sums for p in parts])
-        codes, uniq = _codes((keys,))
-        merged = _group_sum(codes, len(uniq[0]), np.ones(codes.size), sums)
-        return Partial(
-            sum(p.n for p in parts),
-            math.fsum(p.rss for p in parts),
-            groups=(Groups(uniq, merged),),
-        )
+        return _merge_groups(parts)
 
     def finish(self, part: Partial) -> CovarianceEstimate:
         from lincomb._covariance.in_memory import automatic_lag
@@ -184,19 +131,6 @@ class TimeSumMeat(_Meat):
             )
         k = self.k
         s = core.upper_solve(self.rs, groups.sums[order].T, trans=True).T if k else groups.sums
-        n = self.n_obs
-        scale = n / (n - k) if self.small_sample else 1.0
-        factor, clipped = psd_factor(scale * bartlett_meat(np.ascontiguousarray(s), lag))
+        meat = bartlett_meat(np.ascontiguousarray(s), lag)
         label = f"common shocks by {self.name} ({t} time points; Bartlett, lag {lag})"
-        if clipped:
-            label += f"; {clipped} negative eigenvalue(s) set to 0"
-        return CovarianceEstimate(
-            method="common shocks",
-            label=label,
-            df_error=float(t - 1) if self.df is None else float(self.df),
-            lag=lag,
-            scale=scale,
-            clipped=clipped,
-            _sol=self.sol,
-            _factor=factor,
-        )
+        return self._estimate("common shocks", label, meat, lag, float(t - 1))

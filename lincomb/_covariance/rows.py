@@ -23,7 +23,7 @@ from lincomb.errors import CovarianceInputError, RowsUnavailableError
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["RowMap", "fit_rows", "row_values", "cluster_codes", "time_order"]
+__all__ = ["RowMap", "fit_rows", "row_values", "cluster_codes", "time_order", "refuse_missing"]
 
 Array = NDArray[np.float64]
 
@@ -158,15 +158,25 @@ def _missing_at(values: NDArray[Any]) -> NDArray[np.intp]:
     return np.flatnonzero(pd.isna(values))
 
 
-def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
+def refuse_missing(fit: LinearFit, values: NDArray[Any], what: str, fix: str) -> None:
+    """Raise naming the first of the fit's rows where ``values`` are missing (``what`` says
+    whose values, with its verb, ``fix`` the remedy)."""
     bad = _missing_at(values)
     if bad.size:
         row = _show(fit.design.row_index[int(bad[0])])
         raise CovarianceInputError(
-            f"cluster labels {name!r} are missing at row {row!r} ({bad.size} missing in all);"
-            " give every row used a cluster (for example its own label) or drop those rows"
-            " before fitting."
+            f"{what} missing at row {row!r} ({bad.size} missing in all); {fix}"
         )
+
+
+def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDArray[np.intp], int]:
+    refuse_missing(
+        fit,
+        values,
+        f"cluster labels {name!r} are",
+        "give every row used a cluster (for example its own label) or drop those rows"
+        " before fitting.",
+    )
     codes, uniques = pd.factorize(values, sort=False)
     g = len(uniques)
     if g < 2:
@@ -178,13 +188,7 @@ def cluster_codes(fit: LinearFit, values: NDArray[Any], name: str) -> tuple[NDAr
 
 
 def time_order(fit: LinearFit, values: NDArray[Any], name: str) -> NDArray[np.intp]:
-    bad = _missing_at(values)
-    if bad.size:
-        row = _show(fit.design.row_index[int(bad[0])])
-        raise CovarianceInputError(
-            f"time order {name!r} is missing at row {row!r} ({bad.size} missing in all); every"
-            " row used needs a time value."
-        )
+    refuse_missing(fit, values, f"time order {name!r} is", "every row used needs a time value.")
     perm = np.argsort(values, kind="stable")
     ordered = values[perm]
     ties = np.flatnonzero(ordered[1:] == ordered[:-1])

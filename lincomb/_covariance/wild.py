@@ -225,6 +225,13 @@ def _prepare_null(fit: Any, st: _Setup, d: Array) -> _Prepared:
     return _Prepared(a, gamma, st.scale)
 
 
+def _observed(fit: Any, restrictions: object, by: Any) -> tuple[_Setup, _Prepared, float]:
+    """The test's set-up, its pieces under the null, and the observed F (all weights 1)."""
+    st = _setup(fit, restrictions, by)
+    prep = _prepare_null(fit, st, st.target)
+    return st, prep, float(_stats(prep, np.ones((1, st.clusters)))[0])
+
+
 def draw_statistics(
     fit: Any, restrictions: object, by: Any, weights: ArrayLike2D
 ) -> tuple[float, Array]:
@@ -243,9 +250,7 @@ def draw_statistics(
     >>> bool(np.isclose(obs, plain.stat, rtol=1e-10)), bool(np.isclose(draws[0], obs))
     (True, True)
     """
-    st = _setup(fit, restrictions, by)
-    prep = _prepare_null(fit, st, st.target)
-    obs = float(_stats(prep, np.ones((1, st.clusters)))[0])
+    _st, prep, obs = _observed(fit, restrictions, by)
     return obs, _stats(prep, np.asarray(weights, dtype=np.float64))
 
 
@@ -503,9 +508,7 @@ def wild_bootstrap(
             "the wild cluster bootstrap takes one clustering variable (a column name, a Series"
             " or one label per row)."
         )
-    st = _setup(fit, restrictions, by)
-    prep = _prepare_null(fit, st, st.target)
-    obs = float(_stats(prep, np.ones((1, st.clusters)))[0])
+    st, prep, obs = _observed(fit, restrictions, by)
     w, full = bootstrap_weights(key, st.clusters, int(draws), seed, enumerate)
     drawn = _stats(prep, w)
     p = float(np.mean(drawn >= obs * (1 - TIE_RTOL)))

@@ -7,7 +7,7 @@ offending system and row when something is wrong, and attaches the reference dis
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -125,8 +125,16 @@ def _from_arrays(
     return arr, dv
 
 
-def _more(n: int) -> str:
-    return f" (and {n - _SHOWN} more system(s))" if n > _SHOWN else ""
+def _listed(
+    found: dict[int, Any], res: WaldBatch, describe: Callable[[int, list[str], Any], list[str]]
+) -> str:
+    """The first :data:`_SHOWN` invalid systems of ``found`` (system → what is wrong), each
+    described from its row labels, and how many more there are."""
+    parts = []
+    for s, what in list(found.items())[:_SHOWN]:
+        parts.extend(describe(s, list(res.row_labels(s)), what))
+    n = len(found)
+    return "; ".join(parts) + (f" (and {n - _SHOWN} more system(s))" if n > _SHOWN else "")
 
 
 def _raise_invalid(
@@ -135,9 +143,9 @@ def _raise_invalid(
     """Raise the single-system test's typed error, naming the system(s) and row(s)."""
     fix = " Or pass on_invalid='nan' to get the other systems' tests with these marked."
     if core.inconsistent:
-        parts = []
-        for s, bad in list(core.inconsistent.items())[:_SHOWN]:
-            labels = res.row_labels(s)
+
+        def contradiction(s: int, labels: list[str], bad: Any) -> list[str]:
+            parts = []
             for row, dval, implied in bad:
                 dep = core.dependencies[s][row]
                 combo = " + ".join(f"{w:.6g}·(row {j}: {labels[j]})" for j, w in dep.items())
@@ -145,10 +153,11 @@ def _raise_invalid(
                     f"system {res.systems[s]!r}, row {row} ({labels[row]}) equals {combo or '0'},"
                     f" which implies d = {implied:.6g}, but its d is {dval:.6g}"
                 )
+            return parts
+
         raise InconsistentRestrictionError(
             "the restrictions contradict each other: "
-            + "; ".join(parts)
-            + _more(len(core.inconsistent))
+            + _listed(core.inconsistent, res, contradiction)
             + ". Remove one of the conflicting rows or correct its value."
             + fix
         )
@@ -156,30 +165,29 @@ def _raise_invalid(
         sol = fit.solution
         assert res.matrix is not None  # a batch always keeps its stacked matrix
         cu = sol.to_working(res.matrix)
-        parts = []
-        for s, rows in list(core.not_estimable.items())[:_SHOWN]:
-            labels = res.row_labels(s)
-            for i in rows.tolist():
-                touched = [fit.names[j] for j in sol.aliased_touched(cu[s, i], ROW_TOL)]
-                parts.append(
-                    f"system {res.systems[s]!r}, row {i} ({labels[i]}) involves aliased"
-                    f" coefficients {touched}"
-                )
+
+        def aliased(s: int, labels: list[str], rows: Any) -> list[str]:
+            return [
+                f"system {res.systems[s]!r}, row {i} ({labels[i]}) involves aliased"
+                f" coefficients {[fit.names[j] for j in sol.aliased_touched(cu[s, i], ROW_TOL)]}"
+                for i in rows.tolist()
+            ]
+
         raise NotEstimableError(
             "restriction not estimable under this rank-deficient design: "
-            + "; ".join(parts)
-            + _more(len(core.not_estimable))
+            + _listed(core.not_estimable, res, aliased)
             + f". Aliased columns: {list(fit.aliased)}. Restate the row as a contrast that the"
             " data identify, or remove the aliasing from the design." + fix + aliasing_hint(fit)
         )
     if core.singular:
-        parts = []
-        for s, (row, rank) in list(core.singular.items())[:_SHOWN]:
-            labels = res.row_labels(s)
-            parts.append(
+
+        def no_variance(s: int, labels: list[str], found: tuple[int, int]) -> list[str]:
+            row, rank = found
+            return [
                 f"system {res.systems[s]!r}: row {row} ({labels[row]}) adds no variance outside"
                 f" the rows before it (covariance rank {rank} of {int(core.rank[s])})"
-            )
+            ]
+
         why = ""
         if estimate.groups:
             why = (
@@ -189,8 +197,7 @@ def _raise_invalid(
         raise SingularCovarianceError(
             f"under the {estimate.label} covariance the independent rows have a singular"
             " covariance: "
-            + "; ".join(parts)
-            + _more(len(core.singular))
+            + _listed(core.singular, res, no_variance)
             + why
             + ". Test fewer rows at once, or choose an estimator with more information"
             " (more clusters, another estimator)." + fix

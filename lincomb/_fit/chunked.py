@@ -449,12 +449,7 @@ def fit_array_chunks(
     if moments is None or encoder is None:
         raise _no_rows(p)
     design = Design(
-        index=CoefficientIndex(
-            names=encoder.names,
-            terms={s: (j,) for j, s in enumerate(encoder.names)},
-            levels=tuple(() for _ in encoder.names),
-            factors={},
-        ),
+        index=CoefficientIndex.of_columns(encoder.names),
         intercept=encoder.intercept,
         response="y",
         dropped=pd.Index([]),

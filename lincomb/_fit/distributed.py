@@ -156,6 +156,23 @@ def _tree(dask: Any, leaves: list[Any], merge: Any, split_every: int) -> Any:
     return level[0]
 
 
+def _merged_moments(
+    dask: Any,
+    leaves: list[Any],
+    split_every: int,
+    scheduler: Any,
+    places: Mapping[Any, str],
+    threads: int,
+) -> _Part:
+    """The first pass of a fit: the leaves' moments merged by a tree, computed under the BLAS
+    thread limit of the fit."""
+    with blas_limit(threads):
+        part: _Part = _compute(
+            dask, _tree(dask, leaves, _merge_parts, split_every), scheduler, places, "the fit"
+        )
+    return part
+
+
 def _cluster_failure(exc: BaseException) -> bool:
     """Whether ``exc`` is the scheduler's own failure (a lost worker, a cancelled task).
 
@@ -394,10 +411,7 @@ def fit_dask(
         for k, part in enumerate(parts)
     ]
     places = _places(list(zip(parts, leaves, strict=True)), "partition")
-    with blas_limit(threads):
-        total = _compute(
-            dask, _tree(dask, leaves, _merge_parts, split_every), scheduler, places, "the fit"
-        )
+    total = _merged_moments(dask, leaves, split_every, scheduler, places, threads)
     if total.moments is None:
         raise InputError(
             f"no rows to fit: the {data.npartitions} partitions held {total.rows} rows, all with"
@@ -565,11 +579,7 @@ def fit_dask_arrays(
             for k, (xk, yk) in enumerate(zip(xs, ys, strict=True))
         ]
         here = places | _places([[leaf] for leaf in leaves], "block")
-        with blas_limit(threads):
-            part: _Part = _compute(
-                dask, _tree(dask, leaves, _merge_parts, split_every), scheduler, here, "the fit"
-            )
-        return part
+        return _merged_moments(dask, leaves, split_every, scheduler, here, threads)
 
     total = run(guess)
     true_ones = np.flatnonzero(total.ones) if total.ones is not None else np.zeros(0)
@@ -579,12 +589,7 @@ def fit_dask_arrays(
     if total.moments is None:
         raise InputError("no rows to fit: the arrays are empty.")
     design = Design(
-        index=CoefficientIndex(
-            names=names_t,
-            terms={s: (j,) for j, s in enumerate(names_t)},
-            levels=tuple(() for _ in names_t),
-            factors={},
-        ),
+        index=CoefficientIndex.of_columns(names_t),
         intercept=truth,
         response="y",
         dropped=pd.Index([]),

@@ -350,10 +350,7 @@ class ManyFit:
                 redundant = analysis.dependencies
                 df_test = int(analysis.independent.size)
             if est_all is None:
-                m = len(lab)
-                est_all = np.full((r, m), np.nan)
-                se_all = np.full((r, m), np.nan)
-                t_all = np.full((r, m), np.nan)
+                est_all, se_all, t_all = _unfilled(r, len(lab))
             sol = g.fit.solution
             ck = cu[:, sol.kept]
             root = sol.root(ck)
@@ -378,10 +375,7 @@ class ManyFit:
             # every group lacked rows or estimability: resolve on the design for the labels
             c, d, lab = (main.fit or _first_fit(self._groups)).resolve(system)
             labels, target = lab, d
-            m = len(lab)
-            est_all = np.full((r, m), np.nan)
-            se_all = np.full((r, m), np.nan)
-            t_all = np.full((r, m), np.nan)
+            est_all, se_all, t_all = _unfilled(r, len(lab))
         assert target is not None and se_all is not None and t_all is not None
         return ManyWaldTest(
             responses=self.responses,
@@ -490,6 +484,14 @@ class ManyFit:
     def _repr_html_(self) -> str:
         body = "<br>".join(html.escape(s) for s in self._head().split("\n"))
         return f"<div class='lincomb'><p>{body}</p></div>"
+
+
+def _unfilled(
+    r: int, m: int
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Estimates, standard errors and t ratios (r, m) of ``m`` rows for ``r`` responses, all
+    NaN until a group fills its columns."""
+    return np.full((r, m), np.nan), np.full((r, m), np.nan), np.full((r, m), np.nan)
 
 
 def _first_fit(groups: Sequence[_Group]) -> LinearFit:

@@ -68,6 +68,23 @@ class CoefficientIndex:
     levels: tuple[tuple[str | None, ...], ...]
     factors: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
+    @classmethod
+    def of_columns(cls, names: Sequence[str]) -> CoefficientIndex:
+        """The index of plain named columns (no formula): one term per column, no factors.
+
+        Examples
+        --------
+        >>> from lincomb._model.design import CoefficientIndex
+        >>> CoefficientIndex.of_columns(["one", "x"]).terms
+        {'one': (0,), 'x': (1,)}
+        """
+        return cls(
+            names=tuple(names),
+            terms={s: (j,) for j, s in enumerate(names)},
+            levels=tuple(() for _ in names),
+            factors={},
+        )
+
     @property
     def p(self) -> int:
         return len(self.names)
@@ -533,12 +550,7 @@ def design_from_arrays(
         if wa.shape[0] != n:
             raise InputError(f"weights has {wa.shape[0]} entries for {n} rows.")
         _validate_weights(wa, rows)
-    index = CoefficientIndex(
-        names=tuple(names),
-        terms={s: (j,) for j, s in enumerate(names)},
-        levels=tuple(() for _ in names),
-        factors={},
-    )
+    index = CoefficientIndex.of_columns(names)
     row_index = rows if rows is not None else pd.RangeIndex(n)
     return Design(
         index=index,

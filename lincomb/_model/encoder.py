@@ -17,7 +17,7 @@ from __future__ import annotations
 import difflib
 import re
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -497,9 +497,7 @@ class FormulaEncoder:
         if require_rows and len(sub) == 0:
             if len(data) == 0:
                 raise InputError(f"{label} has no rows: there is nothing to fit.")
-            counts = {c: int(work[c].isna().sum()) for c in variables if work[c].isna().any()}
-            if w is not None and w.isna().any():
-                counts["<weights>"] = int(w.isna().sum())
+            counts = _missing_counts(work, variables, w)
             raise MissingValueError(
                 f"every one of the {len(data)} rows of {label} has a missing value in a variable"
                 f" of {formula!r} (missing per column: {counts}), so no row is left to fit."
@@ -854,22 +852,17 @@ class FormulaEncoder:
             y = None if self.response is None else np.zeros(0)
             wz = None if w is None else np.zeros(0)
             return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
-            try:
-                mm = self._spec.get_model_matrix(sub, na_action="raise")
-            except Exception as exc:  # formulaic raises plain errors
-                raise InputError(
-                    f"{_prefix(where)}could not encode the rows: {plain(exc)}"
-                ) from None
-        for wrn in caught:
-            if issubclass(wrn.category, formulaic.errors.DataMismatchWarning):
-                raise UnseenLevelError(
-                    f"{where or 'the data'} holds a factor level the encoding lacks"
-                    f" {self._unseen_text(sub, wrn.message)} Declare every"
-                    " level up front (levels={'column': [...]}) so that each chunk is encoded"
-                    " alike, or drop those rows."
-                )
+        mm = self._model_matrix(
+            self._spec,
+            sub,
+            formulaic.errors.DataMismatchWarning,
+            f"{_prefix(where)}could not encode the rows: ",
+            lambda levels: (
+                f"{where or 'the data'} holds a factor level the encoding lacks"
+                f" {levels} Declare every level up front (levels={{'column': [...]}}) so that each"
+                " chunk is encoded alike, or drop those rows."
+            ),
+        )
         two = self.response is not None
         return self._finish(
             mm.rhs if two else mm,
@@ -914,6 +907,31 @@ class FormulaEncoder:
             )
             _validate_weights(wa, rows)
         return EncodedRows(x, y, wa, rows, dropped, rows_read, sub if keep_frame else None)
+
+    def _model_matrix(
+        self,
+        spec: Any,
+        frame: pd.DataFrame,
+        watch: type[Warning],
+        failed: str,
+        unseen: Callable[[str], str],
+    ) -> Any:
+        """``spec``'s model matrix of ``frame``, refusing missing values.  A formulaic error
+        becomes an :class:`~lincomb.errors.InputError` (``failed`` then formulaic's text) and a
+        level the encoding lacks an :class:`~lincomb.errors.UnseenLevelError` (``unseen`` of the
+        text naming the levels); warnings of the category ``watch`` are all caught."""
+        import formulaic
+
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", watch)
+            try:
+                mm = spec.get_model_matrix(frame, na_action="raise")
+            except Exception as exc:  # noqa: BLE001 - formulaic raises plain errors
+                raise InputError(f"{failed}{plain(exc)}") from None
+        for w in caught:
+            if issubclass(w.category, formulaic.errors.DataMismatchWarning):
+                raise UnseenLevelError(unseen(self._unseen_text(frame, w.message)))
+        return mm
 
     def _unseen_text(self, frame: pd.DataFrame, fallback: object) -> str:
         """ "column 'g': ['z']. ..." naming the unseen levels (read from the data, not from
@@ -967,20 +985,16 @@ class FormulaEncoder:
                 f"new data have missing values (per column: {counts}); drop or impute those rows"
                 " before encoding."
             )
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", formulaic.errors.DataMismatchWarning)
-            try:
-                x = spec.get_model_matrix(data, na_action="raise")
-            except Exception as exc:  # formulaic raises plain errors (e.g. an absent variable)
-                raise InputError(f"could not encode the new data: {plain(exc)}") from None
-        out: pd.DataFrame = x
-        for w in caught:
-            if issubclass(w.category, formulaic.errors.DataMismatchWarning):
-                raise UnseenLevelError(
-                    f"new data hold a factor level the fit never saw"
-                    f" {self._unseen_text(data, w.message)} Remove those rows, or refit"
-                    " on data that contain those levels."
-                )
+        out: pd.DataFrame = self._model_matrix(
+            spec,
+            data,
+            formulaic.errors.DataMismatchWarning,
+            "could not encode the new data: ",  # e.g. an absent variable
+            lambda levels: (
+                f"new data hold a factor level the fit never saw {levels} Remove"
+                " those rows, or refit on data that contain those levels."
+            ),
+        )
         return out
 
     def encode_grid(
@@ -1001,24 +1015,20 @@ class FormulaEncoder:
         >>> names, rows.tolist()
         (('g[T.b]', 'g[T.c]'), [[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
         """
-        import formulaic
 
         spec = self.rhs_spec
         if terms is not None:
             wanted = set(terms)
             spec = spec.subset([t for t in spec.terms if str(t) in wanted])
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            try:
-                mm = spec.get_model_matrix(frame, na_action="raise")
-            except Exception as exc:  # noqa: BLE001 - formulaic raises plain errors
-                raise InputError(f"could not evaluate the model {where}: {plain(exc)}") from None
-        for w in caught:
-            if issubclass(w.category, formulaic.errors.DataMismatchWarning):
-                raise UnseenLevelError(
-                    f"could not evaluate the model {where}: a level the fit never saw"
-                    f" {self._unseen_text(frame, w.message)}"
-                )
+        mm = self._model_matrix(
+            spec,
+            frame,
+            Warning,
+            f"could not evaluate the model {where}: ",
+            lambda levels: (
+                f"could not evaluate the model {where}: a level the fit never saw {levels}"
+            ),
+        )
         x = np.asarray(mm.to_numpy(dtype=np.float64))
         return x, tuple(str(c) for c in spec.column_names)
 
@@ -1053,6 +1063,16 @@ def _na_mask(
     return na
 
 
+def _missing_counts(
+    frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
+) -> dict[str, int]:
+    """Missing values per variable that has any (and ``"<weights>"`` for the weights)."""
+    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
+    if w is not None and w.isna().any():
+        counts["<weights>"] = int(w.isna().sum())
+    return counts
+
+
 def _refuse_missing(
     frame: pd.DataFrame,
     na: NDArray[np.bool_],
@@ -1064,9 +1084,7 @@ def _refuse_missing(
     n_na = int(na.sum())
     if not n_na or missing != "refuse":
         return
-    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
-    if w is not None and w.isna().any():
-        counts["<weights>"] = int(w.isna().sum())
+    counts = _missing_counts(frame, variables, w)
     raise MissingValueError(
         f"{_prefix(where)}{n_na} rows have missing values (per column: {counts}); drop or impute"
         " them, or fit with missing='skip'."

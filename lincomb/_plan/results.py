@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._results.format import _num, _table_html, _table_text
+from lincomb._results.format import _html_lines, _num, _table_html, _table_text
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -177,15 +177,7 @@ class PowerResult:
                 {
                     "restrictions": " & ".join(self.labels),
                     "rank": self.df_test,
-                    "replicates": self.replicates,
-                    "n_obs": self.n_obs,
-                    "df_test": self.df_test,
-                    "df_error": self.df_error,
-                    "sigma": self.sigma,
-                    "alpha": self.alpha,
-                    "noncentrality": self.noncentrality,
-                    "critical_value": self.critical_value,
-                    "power": self.power,
+                    **{c: getattr(self, c) for c in POWER_COLUMNS[2:]},  # fields of that name
                 }
             ],
             columns=list(POWER_COLUMNS),
@@ -217,9 +209,8 @@ class PowerResult:
         return f"{self._head()}\n{_table_text(_ROW_HEADER, _rows_table(self.effect_frame()))}"
 
     def _repr_html_(self) -> str:
-        import html
 
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
         table = _table_html(_ROW_HEADER, _rows_table(self.effect_frame()))
         return f"<div class='lincomb-power'><p><b>{head}</b></p>{table}</div>"
 
@@ -305,9 +296,8 @@ class SampleSize:
         return self._head()
 
     def _repr_html_(self) -> str:
-        import html
 
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
         return f"<div class='lincomb-power'><p><b>{head}</b></p></div>"
 
 
@@ -395,25 +385,21 @@ class DetectableEffect:
             f" direction {np.round(self.direction, 6).tolist()}\n" + _study_line(self)
         )
 
-    def __repr__(self) -> str:
-        rows = [
+    def _rows(self) -> list[list[str]]:
+        return [
             [lab, _num(t), _num(a), _num(s)]
             for lab, t, a, s in zip(
                 self.labels, self.target, self.alternative, self.shift, strict=True
             )
         ]
-        return f"{self._head()}\n{_table_text(_ROW_HEADER, rows)}"
+
+    def __repr__(self) -> str:
+        return f"{self._head()}\n{_table_text(_ROW_HEADER, self._rows())}"
 
     def _repr_html_(self) -> str:
-        import html
 
-        rows = [
-            [lab, _num(t), _num(a), _num(s)]
-            for lab, t, a, s in zip(
-                self.labels, self.target, self.alternative, self.shift, strict=True
-            )
-        ]
-        head = "<br>".join(html.escape(s) for s in self._head().split("\n"))
+        head = _html_lines(self._head())
+        rows = self._rows()
         return (
             f"<div class='lincomb-power'><p><b>{head}</b></p>{_table_html(_ROW_HEADER, rows)}</div>"
         )
@@ -475,15 +461,7 @@ class PowerCurve:
         1     10       8
         """
         return pd.DataFrame(
-            {
-                "replicates": self.replicates,
-                "n_obs": self.n_obs,
-                "df_test": self.df_test,
-                "df_error": self.df_error,
-                "noncentrality": self.noncentrality,
-                "critical_value": self.critical_value,
-                "power": self.power,
-            },
+            {c: getattr(self, c) for c in CURVE_COLUMNS},  # fields of that name
             columns=list(CURVE_COLUMNS),
         )
 

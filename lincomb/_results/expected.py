@@ -26,7 +26,7 @@ from lincomb import _core as core
 from lincomb._core.checks import check_level
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.reference import check_reference
-from lincomb._results.format import _num, _table_html, _table_text
+from lincomb._results.format import TableRepr, _num
 from lincomb.errors import InputError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -53,8 +53,8 @@ EXPECTED_COLUMNS = (
 )
 
 
-@dataclass(frozen=True)
-class ExpectedValues:
+@dataclass(frozen=True, repr=False)
+class ExpectedValues(TableRepr):
     """Expected responses at rows of the design, with their standard errors.
 
     Made by :meth:`LinearFit.expected <lincomb.LinearFit.expected>`.
@@ -149,7 +149,7 @@ class ExpectedValues:
             }
         )
 
-    def _table(self, limit: int = 8) -> tuple[str, list[str], list[list[str]], str]:
+    def _parts(self, limit: int = 8) -> tuple[str, list[str], list[list[str]], str]:
         fr = self.row_frame()
         n_bad = int((~self.estimable).sum())
         head = (
@@ -169,17 +169,6 @@ class ExpectedValues:
             f"... {len(fr) - limit} more rows (row_frame() has them all)" if len(fr) > limit else ""
         )
         return head, header, rows, tail
-
-    def __repr__(self) -> str:
-        head, header, rows, tail = self._table()
-        return "\n".join(s for s in (head, _table_text(header, rows), tail) if s)
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, header, rows, tail = self._table()
-        foot = f"<p>{html.escape(tail)}</p>" if tail else ""
-        return f"<div><p><b>{html.escape(head)}</b></p>{_table_html(header, rows)}{foot}</div>"
 
 
 def row_moments(

@@ -30,6 +30,31 @@ def _num(v: float) -> str:
     return "—" if not np.isfinite(v) else f"{v:.6g}"
 
 
+def _html_lines(text: str) -> str:
+    """``text`` escaped for HTML, its lines joined by ``<br>``."""
+    return "<br>".join(html.escape(s) for s in text.split("\n"))
+
+
+class TableRepr:
+    """Text and HTML reprs of a result shown as a head, a table and an optional tail line.
+
+    A subclass gives ``_parts()``: ``(head, header, rows, tail)``, ``tail`` empty for none.
+    (A dataclass using it is declared with ``repr=False`` so that it keeps these reprs.)
+    """
+
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        raise NotImplementedError  # pragma: no cover - each result has its own
+
+    def __repr__(self) -> str:
+        head, header, rows, tail = self._parts()
+        return "\n".join(s for s in (head, _table_text(header, rows), tail) if s)
+
+    def _repr_html_(self) -> str:
+        head, header, rows, tail = self._parts()
+        foot = f"<p>{html.escape(tail)}</p>" if tail else ""
+        return f"<div><p><b>{_html_lines(head)}</b></p>{_table_html(header, rows)}{foot}</div>"
+
+
 def _table_text(header: list[str], rows: list[list[str]]) -> str:
     widths = [
         max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)
@@ -120,7 +145,7 @@ def fit_text(f: LinearFit) -> str:
 
 
 def fit_html(f: LinearFit) -> str:
-    head = "<br>".join(html.escape(s) for s in _fit_head(f).split("\n"))
+    head = _html_lines(_fit_head(f))
     table = _table_html(["coefficient", "estimate", "s.e.", "t", "p"], _fit_rows(f))
     tail = (
         f"<p>aliased (not estimable): {html.escape(', '.join(f.aliased))}</p>" if f.aliased else ""
@@ -166,7 +191,7 @@ def wald_text(w: WaldTest) -> str:
 
 
 def wald_html(w: WaldTest) -> str:
-    head = "<br>".join(html.escape(s) for s in _wald_head(w).split("\n"))
+    head = _html_lines(_wald_head(w))
     table = _table_html(_wald_header(w), _wald_rows(w))
     return f"<div class='lincomb-wald'><p><b>{head}</b></p>{table}</div>"
 
@@ -193,7 +218,7 @@ def restricted_text(r: RestrictedFit) -> str:
 
 def restricted_html(r: RestrictedFit) -> str:
     head, rows = _restricted_parts(r)
-    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    h = _html_lines(head)
     return (
         f"<div class='lincomb-restricted'><p><b>{h}</b></p>"
         f"{_table_html(['coefficient', 'estimate', 's.e.'], rows)}</div>"
@@ -239,7 +264,7 @@ def batch_text(b: WaldBatch) -> str:
 
 def batch_html(b: WaldBatch) -> str:
     head, rows, tail = _batch_parts(b)
-    h = "<br>".join(html.escape(s) for s in head.split("\n"))
+    h = _html_lines(head)
     more = f"<p>{html.escape(tail)}</p>" if tail else ""
     return (
         f"<div class='lincomb-wald-batch'><p><b>{h}</b></p>"

@@ -41,7 +41,7 @@ from lincomb._builder.restriction import _is_number, from_matrix
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference
 from lincomb._results.expected import row_moments
-from lincomb._results.format import _num, _table_html, _table_text
+from lincomb._results.format import TableRepr, _num
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -67,8 +67,8 @@ def readable(value: Any) -> str:
     return str(value)
 
 
-@dataclass(frozen=True)
-class LevelMeanTable:
+@dataclass(frozen=True, repr=False)
+class LevelMeanTable(TableRepr):
     """Mean response at each level (combination) of one or more factors, with intervals.
 
     Made by :meth:`LinearFit.level_means <lincomb.LinearFit.level_means>`; the setting of the
@@ -281,7 +281,7 @@ class LevelMeanTable:
         return self._test(rows, labels)
 
     # -- presentation ------------------------------------------------------------------
-    def _parts(self) -> tuple[str, list[str], list[list[str]]]:
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         fr = self.row_frame()
         ref = f"t, {self.df_error:g} df" if np.isfinite(self.df_error) else "normal"
         head = f"Level means of {', '.join(self.factors)} ({self.covariance} covariance, {ref})"
@@ -293,18 +293,7 @@ class LevelMeanTable:
             [lab, *(_num(x) for x in v)] if ok else [lab, "not estimable", "", "", ""]
             for lab, v, ok in zip(self.labels, vals, self.estimable, strict=True)
         ]
-        return head, header, rows
-
-    def __repr__(self) -> str:
-        head, header, rows = self._parts()
-        return f"{head}\n{_table_text(header, rows)}"
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, header, rows = self._parts()
-        top = "<br>".join(html.escape(s) for s in head.split("\n"))
-        return f"<div><p><b>{top}</b></p>{_table_html(header, rows)}</div>"
+        return head, header, rows, ""
 
 
 def _encode(fit: LinearFit, frame: pd.DataFrame) -> Array:

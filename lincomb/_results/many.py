@@ -8,14 +8,13 @@ across responses (``p_adjusted``, named in ``adjustment``) and each response's `
 
 from __future__ import annotations
 
-import html
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.format import _html_lines, _num, _p, _table_html, _table_text
 from lincomb._results.frames import ROW_COLUMNS, TEST_COLUMNS, WaldResult, _Groups, roles
 from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
 
@@ -283,5 +282,5 @@ class ManyWaldTest(WaldResult):
 
     def _repr_html_(self) -> str:
         head, cols, rows = self._summary_rows()
-        body = "<br>".join(html.escape(s) for s in head.split("\n"))
+        body = _html_lines(head)
         return f"<div class='lincomb'><p>{body}</p>{_table_html(cols, rows)}</div>"

@@ -31,7 +31,7 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb import _core as core
-from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.format import TableRepr, _num, _p
 from lincomb.errors import InputError, NotNestedError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -45,8 +45,8 @@ Array = NDArray[np.float64]
 NESTED_COLUMNS = ("model", "df_error", "rss", "df_test", "ss", "stat", "p")
 
 
-@dataclass(frozen=True)
-class NestedComparison:
+@dataclass(frozen=True, repr=False)
+class NestedComparison(TableRepr):
     """F tests between nested fits of the same rows, smallest first.
 
     Made by :func:`lincomb.compare_nested`.
@@ -112,7 +112,7 @@ class NestedComparison:
             }
         )
 
-    def _parts(self) -> tuple[str, list[str], list[list[str]]]:
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         head = (
             "Nested fits of the same rows, each against the one before"
             f" (F; error variance of the largest fit, {int(self.df_error[-1])} df)"
@@ -134,17 +134,7 @@ class NestedComparison:
                         _p(self.p[i]),
                     ]
                 )
-        return head, header, rows
-
-    def __repr__(self) -> str:
-        head, header, rows = self._parts()
-        return f"{head}\n{_table_text(header, rows)}"
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, header, rows = self._parts()
-        return f"<div><p><b>{html.escape(head)}</b></p>{_table_html(header, rows)}</div>"
+        return head, header, rows, ""
 
 
 def _check_same_rows(a: LinearFit, b: LinearFit, i: int) -> None:

@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 from lincomb import _core as core
 from lincomb._covariance.meats import LEVERAGE_TOL
 from lincomb._covariance.rows import RowMap, fit_rows
-from lincomb._results.format import _num, _table_html, _table_text
+from lincomb._results.format import TableRepr, _num
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -48,8 +48,8 @@ DIAGNOSTIC_COLUMNS = (
 )
 
 
-@dataclass(frozen=True)
-class RowDiagnostics:
+@dataclass(frozen=True, repr=False)
+class RowDiagnostics(TableRepr):
     """Per-row fitted values, residuals and leverages of a fit.
 
     Made by :meth:`LinearFit.row_diagnostics <lincomb.LinearFit.row_diagnostics>`; the
@@ -102,7 +102,7 @@ class RowDiagnostics:
             {c: getattr(self, c if c != "row" else "rows") for c in DIAGNOSTIC_COLUMNS}
         )
 
-    def _table(self) -> tuple[str, list[str], list[list[str]]]:
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         n = len(self.rows)
         ext = np.abs(self.studentized_external)
         order = np.argsort(-np.where(np.isfinite(ext), ext, -1.0), kind="stable")[:5]
@@ -122,17 +122,7 @@ class RowDiagnostics:
             ]
             for i in order
         ]
-        return head, header, rows
-
-    def __repr__(self) -> str:
-        head, header, rows = self._table()
-        return f"{head}\n{_table_text(header, rows)}"
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, header, rows = self._table()
-        return f"<div><p><b>{html.escape(head)}</b></p>{_table_html(header, rows)}</div>"
+        return head, header, rows, ""
 
 
 def row_diagnostics(fit: LinearFit) -> RowDiagnostics:

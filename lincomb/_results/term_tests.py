@@ -34,7 +34,7 @@ from numpy.typing import NDArray
 from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
 from lincomb._covariance.reference import check_reference, reference_result
-from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.format import TableRepr, _num, _p
 from lincomb.errors import InputError, SingularCovarianceError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -54,8 +54,8 @@ SCHEMES = {
 TERM_COLUMNS = ("term", "df_test", "ss", "stat", "df_error", "p", "reference", "covariance")
 
 
-@dataclass(frozen=True)
-class TermTests:
+@dataclass(frozen=True, repr=False)
+class TermTests(TableRepr):
     """Joint tests of each term of a fit.
 
     Made by :meth:`LinearFit.term_tests <lincomb.LinearFit.term_tests>`.
@@ -150,19 +150,6 @@ class TermTests:
         ]
         tail = f"residual: df {self.fit_df_error}, sum of squares {_num(self.rss)}"
         return head, header, rows, tail
-
-    def __repr__(self) -> str:
-        head, header, rows, tail = self._parts()
-        return f"{head}\n{_table_text(header, rows)}\n{tail}"
-
-    def _repr_html_(self) -> str:
-        import html
-
-        head, header, rows, tail = self._parts()
-        return (
-            f"<div><p><b>{html.escape(head)}</b></p>{_table_html(header, rows)}"
-            f"<p>{html.escape(tail)}</p></div>"
-        )
 
 
 def _contains(big: frozenset[str], small: frozenset[str]) -> bool:
