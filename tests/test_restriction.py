@@ -448,3 +448,51 @@ def test_operator_misuse_is_a_typed_error(op, build, error, builtin):
         build()
     assert type(info.value).__name__ == error
     assert isinstance(info.value, lc.errors.LincombError)
+
+
+# -- a vector of targets for a term: one per column ------------------------------------------
+def test_term_with_one_target_per_column_equals_the_rows_written_out():
+    # the same restriction written coefficient by coefficient is the reference (the builder's
+    # own single-row path, checked against statsmodels in test_reference_statsmodels.py)
+    data = lc.datasets.field_trial()
+    f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", data)
+    n = term("C(nitrogen)")
+    cols = ["C(nitrogen)[T.40]", "C(nitrogen)[T.80]", "C(nitrogen)[T.160]"]
+    targets = [1.0, 1.8, 2.4]
+    by_hand = f.wald(
+        (coef(cols[0]) == targets[0]) & (coef(cols[1]) == targets[1]) & (coef(cols[2]) == 2.4)
+    )
+    for written in (
+        n == targets,
+        n == np.array(targets),
+        n == dict(zip(cols, targets, strict=True)),
+        n == pd.Series(targets[::-1], index=cols[::-1]),  # matched by name, not position
+    ):
+        res = f.wald(written)
+        np.testing.assert_allclose(res.target, targets)
+        assert res.stat == pytest.approx(by_hand.stat, rel=1e-12)
+        assert res.p == pytest.approx(by_hand.p, rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("targets", "match"),
+    [
+        ([1.0, 2.0], "has 3 columns .* but 2 targets"),
+        ({"C(nitrogen)[T.40]": 1.0}, "without a target"),
+        (
+            {
+                "C(nitrogen)[T.40]": 1.0,
+                "C(nitrogen)[T.80]": 1.0,
+                "C(nitrogen)[T.999]": 1.0,
+                "C(nitrogen)[T.160]": 1.0,
+            },
+            "unknown",
+        ),
+        ([1.0, float("nan"), 2.0], "finite numbers"),
+        (["a", "b", "c"], "finite numbers"),
+    ],
+)
+def test_term_targets_that_do_not_fit_the_columns_are_refused(targets, match):
+    f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", lc.datasets.field_trial())
+    with pytest.raises(lc.errors.RestrictionShapeError, match=match):
+        f.wald(term("C(nitrogen)") == targets)

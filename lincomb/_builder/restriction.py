@@ -17,7 +17,7 @@ raises ``TypeError`` (write ``&`` to combine, not ``and``), and expressions are 
 from __future__ import annotations
 
 import numbers
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from types import NotImplementedType
 from typing import Any, Protocol, TypeGuard
@@ -335,7 +335,8 @@ class TermRef(_EqualitiesOnly):
     """All the columns of one model term (a factor, an interaction or a numeric variable).
 
     Index it by level to get one coefficient; compare it with a number to restrict every one of
-    its coefficients at once.
+    its coefficients at once, or with one number per column (a sequence in column order, or a
+    mapping / Series from coefficient name to value) to give each its own target.
 
     Examples
     --------
@@ -345,6 +346,8 @@ class TermRef(_EqualitiesOnly):
     <Restriction: C(dose)[40] - C(dose)[10] = 0>
     >>> t == 0
     <RestrictionSystem: C(dose) = 0>
+    >>> t == [0.5, 1.0, 2.0]
+    <RestrictionSystem: C(dose) = [0.5, 1, 2]>
     """
 
     name: str
@@ -356,9 +359,16 @@ class TermRef(_EqualitiesOnly):
         return Expr({_Level(self.name, tuple(str(k) for k in keys)): 1.0})
 
     def __eq__(self, other: object) -> RestrictionSystem:  # type: ignore[override]
-        if not _is_number(other):
-            return NotImplemented
-        return RestrictionSystem((_TermRows(self.name, float(other)),))
+        if _is_number(other):
+            return RestrictionSystem((_TermRows(self.name, float(other)),))
+        if isinstance(other, (Mapping, pd.Series)):
+            items = tuple((str(k), _target_number(v, self.name)) for k, v in other.items())
+            return RestrictionSystem((_TermRows(self.name, items),))
+        if isinstance(other, (list, tuple, np.ndarray)):
+            flat = np.asarray(other, dtype=object).reshape(-1)
+            values = tuple(_target_number(v, self.name) for v in flat)
+            return RestrictionSystem((_TermRows(self.name, values),))
+        return NotImplemented
 
     def __repr__(self) -> str:
         return f"<TermRef: {self.name}>"
@@ -495,13 +505,55 @@ class Restriction(_Item):
         yield row, self.target, self.text() if self.label is None else self.label
 
 
+def _target_number(v: object, name: str) -> float:
+    if not _is_number(v) or not np.isfinite(float(v)):
+        raise RestrictionShapeError(
+            f"the targets of term {name!r} must be finite numbers, got {v!r}."
+        )
+    return float(v)
+
+
 @dataclass(frozen=True)
 class _TermRows(_Item):
+    """Every column of a term equal to one target, or each to its own.
+
+    ``value`` is one number, a tuple of numbers (one per column, in column order) or a tuple
+    of ``(coefficient name, number)`` pairs.
+    """
+
     name: str
-    value: float
+    value: float | tuple[float, ...] | tuple[tuple[str, float], ...]
 
     def text(self) -> str:
-        return f"{self.name} = {_fmt_num(self.value)}"
+        v = self.value
+        if isinstance(v, tuple):
+            shown = [
+                _fmt_num(x) if not isinstance(x, tuple) else f"{x[0]}: {_fmt_num(x[1])}" for x in v
+            ]
+            return f"{self.name} = [{', '.join(shown)}]"
+        return f"{self.name} = {_fmt_num(v)}"
+
+    def _targets(self, names: Sequence[str]) -> list[float]:
+        v = self.value
+        if not isinstance(v, tuple):
+            return [v] * len(names)
+        if v and isinstance(v[0], tuple):
+            given = dict(v)
+            unknown = sorted(set(given) - set(names))
+            lacking = [n for n in names if n not in given]
+            if unknown or lacking:
+                raise RestrictionShapeError(
+                    f"the targets of term {self.name!r} name its columns {list(names)};"
+                    f" unknown: {unknown}, without a target: {lacking}."
+                )
+            return [float(given[n]) for n in names]
+        if len(v) != len(names):
+            raise RestrictionShapeError(
+                f"term {self.name!r} has {len(names)} columns {list(names)} but {len(v)}"
+                " targets were given; give one per column (in that order), or a mapping from"
+                " coefficient name to target."
+            )
+        return [float(x) for x in v]  # type: ignore[arg-type]
 
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         cols = index.term_columns(self.name)
@@ -511,10 +563,11 @@ class _TermRows(_Item):
                 " factor with a single level in the data (or a term the formula absorbed into"
                 " others) adds no coefficient. Leave it out of the restriction (and the formula)."
             )
-        for j in cols:
+        targets = self._targets([index.names[j] for j in cols])
+        for j, target in zip(cols, targets, strict=True):
             row = np.zeros(len(index.names))
             row[j] = 1.0
-            yield row, self.value, f"{index.names[j]} = {_fmt_num(self.value)}"
+            yield row, target, f"{index.names[j]} = {_fmt_num(target)}"
 
 
 class _MatrixRows(_Item):
