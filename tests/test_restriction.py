@@ -496,3 +496,18 @@ def test_term_targets_that_do_not_fit_the_columns_are_refused(targets, match):
     f = lc.fit("yield_t_ha ~ C(nitrogen) + variety", lc.datasets.field_trial())
     with pytest.raises(lc.errors.RestrictionShapeError, match=match):
         f.wald(term("C(nitrogen)") == targets)
+
+
+def test_a_term_can_be_named_with_or_without_its_factor_wrapper():
+    # "nitrogen" for the formula's C(nitrogen) (and the reverse for a text factor): the same
+    # columns, so the same test as the formula's own spelling
+    data = lc.datasets.field_trial()
+    f = lc.fit("yield_t_ha ~ C(nitrogen) * variety", data)
+    for bare, written in [("nitrogen", "C(nitrogen)"), ("nitrogen:variety", "C(nitrogen):variety")]:
+        a, b = f.wald(term(bare) == 0), f.wald(term(written) == 0)
+        assert (a.df_test, a.stat) == (b.df_test, b.stat)
+    assert f.wald(term("nitrogen")["80"] == 0).stat == f.wald(term("C(nitrogen)")["80"] == 0).stat
+    g = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    assert g.wald(term("C(line)") == 0).stat == g.wald(term("line") == 0).stat
+    with pytest.raises(lc.errors.UnknownCoefficientError, match="Did you mean"):
+        f.wald(term("nitro") == 0)

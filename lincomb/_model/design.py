@@ -12,6 +12,7 @@ Its :class:`CoefficientIndex` answers the builder's questions ("which column is
 from __future__ import annotations
 
 import difflib
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
@@ -127,6 +128,15 @@ class CoefficientIndex:
         for label, facs in self.factors.items():
             if wanted is not None and frozenset(facs) == wanted:
                 return label
+        # the same term with or without C(...) around its variables: "x" for "C(x)" and back
+        bare = _bare_factors(term)
+        hits = [label for label in self.terms if bare and _bare_factors(label) == bare]
+        if len(hits) == 1:
+            return hits[0]
+        if len(hits) > 1:
+            raise UnknownCoefficientError(
+                f"term {term!r} could mean any of {hits}; write the term as the formula does."
+            )
         raise UnknownCoefficientError(
             f"no term {term!r} in this fit.{self._suggest(term, tuple(self.terms))}"
             f" Terms: {list(self.terms)}"
@@ -214,6 +224,19 @@ def _reorder_key(
     if len(cats) != len(key) or cats_given == cats:
         return key
     return tuple(key[cats_given.index(f)] for f in cats)
+
+
+_WRAPPED = re.compile(r"^C\(\s*([^,()]+?)\s*(?:,.*)?\)$")
+
+
+def _bare_factors(term: str) -> frozenset[str]:
+    """The variables of a term label with any ``C(...)`` wrapper removed (``C(a):b`` -> a, b)."""
+    out = []
+    for part in term.split(":"):
+        part = part.strip()
+        m = _WRAPPED.match(part)
+        out.append(m.group(1) if m else part)
+    return frozenset(out)
 
 
 def _factor_set(term: str) -> frozenset[str] | None:
