@@ -511,3 +511,14 @@ def test_a_term_can_be_named_with_or_without_its_factor_wrapper():
     assert g.wald(term("C(line)") == 0).stat == g.wald(term("line") == 0).stat
     with pytest.raises(lc.errors.UnknownCoefficientError, match="Did you mean"):
         f.wald(term("nitro") == 0)
+
+
+def test_asking_for_the_reference_level_points_to_level_means():
+    f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    with pytest.raises(lc.errors.UnknownCoefficientError, match=r"lc\.levels\('line'\)"):
+        f.wald(term("line")["L1"] == 0)
+    # the route it names answers the question: L2 against the reference L1 as a level-mean
+    # contrast equals the treatment-coded coefficient (common practice: treatment coding)
+    via_means = f.wald(lc.levels("line").weights([[-1, 1, 0, 0]]))
+    direct = f.wald(term("line")["L2"] == 0)
+    assert via_means.stat == pytest.approx(direct.stat, rel=1e-12)

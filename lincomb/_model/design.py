@@ -201,7 +201,9 @@ class CoefficientIndex:
         raise UnknownCoefficientError(
             f"term {label!r} has no column for level {key[0] if len(key) == 1 else key!r}."
             f" Its columns code: {shown_txt}. A reference (baseline) level has no column of its"
-            " own: test differences from it, or refit with another reference."
+            " own: test differences from it, write the question on level means, which name"
+            f" every level whatever the coding (e.g. lc.levels({label!r}).versus(...) or"
+            " .weights(...)), or refit with another reference."
         )
 
 
