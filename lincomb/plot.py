@@ -71,16 +71,46 @@ def _pyplot() -> Any:
     return plt
 
 
-def _new_figure(figsize: tuple[float, float]) -> Figure:
-    """A figure on pyplot's current backend that pyplot no longer tracks.
+_FIGURE_CLASS: list[type] = []
 
-    Creating it through pyplot gives it the backend's canvas (in a notebook, the one that
-    displays it inline); closing it at once means pyplot neither shows it a second time at the
-    end of a cell nor keeps it alive.
+
+def _figure_class() -> type:
+    """A Figure that a notebook shows once, whether it is assigned, ended with ``;`` or last.
+
+    pyplot keeps the figure, so the notebook's inline backend shows it at the end of the cell
+    (the convention of plotting libraries).  A plain pyplot figure left as the cell's value is
+    then shown twice (once as the value, once by pyplot); this class, whenever it is shown,
+    first lets go of pyplot's hold on it, so whichever display comes first is the only one.
+    """
+    if not _FIGURE_CLASS:
+        from matplotlib.figure import Figure as _Figure
+
+        class ShownOnceFigure(_Figure):
+            def _ipython_display_(self) -> None:
+                plt = _pyplot()
+                if plt.fignum_exists(getattr(self, "number", -1)):
+                    plt.close(self)  # shown here; pyplot must not show it again
+                import io
+
+                from IPython.display import Image, display
+
+                buf = io.BytesIO()
+                self.savefig(buf, format="png")
+                display(Image(buf.getvalue()))
+
+        _FIGURE_CLASS.append(ShownOnceFigure)
+    return _FIGURE_CLASS[0]
+
+
+def _new_figure(figsize: tuple[float, float]) -> Figure:
+    """A new figure made through pyplot, as plotting libraries do.
+
+    pyplot keeps it, so a notebook shows it once at the end of the cell whether the call's
+    result is assigned, ended with ``;`` or left as the cell's value, and ``plt.show()`` shows
+    it in a script; close it with ``plt.close(fig)`` when many are made in a loop.
     """
     plt = _pyplot()
-    fig: Figure = plt.figure(figsize=figsize, layout="constrained")
-    plt.close(fig)
+    fig: Figure = plt.figure(figsize=figsize, layout="constrained", FigureClass=_figure_class())
     return fig
 
 

@@ -251,10 +251,11 @@ def test_draws_into_a_given_axes_and_renders(plant):
     assert buf.getvalue()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
-def test_pyplot_lets_the_figures_go(plant):
-    # Figures are made through pyplot (so a notebook's inline backend is active and shows
-    # them; tests/test_notebooks.py checks that) and released at once, so pyplot neither
-    # shows them a second time at the end of a cell nor keeps them alive.
+def test_pyplot_holds_the_figures_it_will_show(plant):
+    # Figures are made through pyplot and kept there, as plotting libraries do, so a notebook
+    # shows them at the end of the cell even when the result is assigned or the line ends
+    # with ';' (test_a_notebook_shows_each_returned_figure_once checks they show once);
+    # a script closes them with plt.close.
     import matplotlib.pyplot as plt
 
     f, _ = plant
@@ -265,6 +266,9 @@ def test_pyplot_lets_the_figures_go(plant):
         beta={"group[T.trt1]": 0.0, "group[T.trt2]": 0.5}, replicates=[5, 10, 20]
     )
     power_fig = curve.plot()
+    assert set(plt.get_fignums()) - set(before) == {chart.number, power_fig.number}
+    plt.close(chart)
+    plt.close(power_fig)
     assert plt.get_fignums() == before
     assert chart.axes and power_fig.axes
     drawn = next(line for line in power_fig.axes[0].lines if line.get_gid() == "power")
@@ -311,3 +315,24 @@ def test_importing_lincomb_does_not_import_matplotlib():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_a_notebook_shows_each_returned_figure_once():
+    # the plotting convention: a figure shows whether the call is assigned, ended with ';' or
+    # left as the cell's value, and never twice (run in a real kernel with matplotlib's inline
+    # backend, as Jupyter does)
+    nbformat = pytest.importorskip("nbformat")
+    nbclient = pytest.importorskip("nbclient")
+    setup = (
+        "import lincomb as lc\n"
+        "f = lc.fit('fill_g ~ line', lc.datasets.fill_lines())\n"
+        "res = f.wald(lc.levels('line').pairwise())"
+    )
+    cells = [setup, "fig = res.plot()", "res.plot();", "res.plot()", "fig"]
+    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(c) for c in cells])
+    nbclient.NotebookClient(nb, kernel_name="python3", timeout=120).execute()
+    shown = [
+        sum(1 for out in cell.outputs if "image/png" in out.get("data", {}))
+        for cell in nb.cells[1:]
+    ]
+    assert shown == [1, 1, 1, 1]  # the last cell shows the figure made two cells before
