@@ -89,12 +89,12 @@ class EstimatesFit:
     coefficients: pd.Series
     df_error: float | None
     rank: int
+    _cov: NDArray[np.float64] = field(repr=False, compare=False)
+    _scale: NDArray[np.float64] = field(repr=False, compare=False)
+    _basis: NDArray[np.float64] = field(repr=False, compare=False)
+    _root_scale: NDArray[np.float64] = field(repr=False, compare=False)
+    _index: CoefficientIndex = field(repr=False, compare=False)
     label: str = "supplied"
-    _cov: NDArray[np.float64] = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _scale: NDArray[np.float64] = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _basis: NDArray[np.float64] = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _root_scale: NDArray[np.float64] = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _index: CoefficientIndex = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _encoder: FormulaEncoder | None = field(repr=False, compare=False, default=None)
 
     # -- basic quantities ---------------------------------------------------------------
@@ -340,9 +340,10 @@ class EstimatesFit:
 
     def _rows(self) -> list[list[str]]:
         frame = self.coef_frame()
+        cols = [frame[c].to_numpy(dtype=np.float64) for c in ("estimate", "se", "ratio", "p")]
         return [
-            [r.coefficient, _num(r.estimate), _num(r.se), _num(r.ratio), _p(r.p)]
-            for r in frame.itertuples()
+            [name, _num(est), _num(se), _num(ratio), _p(p)]
+            for name, est, se, ratio, p in zip(self.names, *cols, strict=True)
         ]
 
     def _header(self) -> list[str]:
@@ -366,7 +367,9 @@ def _estimates(
 ) -> tuple[NDArray[np.float64], list[str]]:
     labels: list[str] | None = None
     if isinstance(estimates, pd.Series):
-        labels = [str(s) for s in estimates.index]
+        # a default (range) index carries no names
+        if not isinstance(estimates.index, pd.RangeIndex):
+            labels = [str(s) for s in estimates.index]
         raw: object = estimates.to_numpy()
     else:
         raw = estimates
@@ -380,7 +383,7 @@ def _estimates(
         given = [str(s) for s in names]
         if len(given) != b.size:
             raise InputError(f"{len(given)} names given for {b.size} estimates.")
-        if labels is not None and labels != given and not isinstance(estimates.index, pd.RangeIndex):  # type: ignore[union-attr]
+        if labels is not None and labels != given:
             raise InputError(
                 f"names= {given} differ from the estimates' index {labels}; give one of them."
             )
@@ -480,8 +483,7 @@ def _index(
             for s in members:
                 if str(s) not in names:
                     raise InputError(
-                        f"terms[{label!r}] names {s!r}, which is not a coefficient; known:"
-                        f" {names}."
+                        f"terms[{label!r}] names {s!r}, which is not a coefficient; known: {names}."
                     )
                 cols.append(names.index(str(s)))
             groups[str(label)] = tuple(cols)
