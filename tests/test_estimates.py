@@ -261,3 +261,14 @@ def test_labelled_covariance_is_matched_by_name_and_inputs_are_not_mutated():
         lc.from_estimates(b, bad)
     with pytest.raises(InputError, match="reference='F'"):
         e.wald(lc.coef("a") == 0, reference="F")
+
+
+def test_terms_read_from_formula_style_names():
+    data = lc.datasets.field_trial()
+    f = lc.fit("yield_t_ha ~ C(nitrogen) * variety + rainfall_mm", data)
+    e = lc.from_estimates(f.coefficients, f.covariance(), df_error=f.df_error)
+    n = lc.term("C(nitrogen)")
+    # lincomb's least-squares route (reference): the same terms and levels resolve the same
+    for hyp in (n == 0, n["80"] == n["40"], lc.term("C(nitrogen):variety") == 0):
+        np.testing.assert_allclose(e.wald(hyp).stat, f.wald(hyp).stat, rtol=RTOL)
+    assert e.coef_frame()["term"].tolist() == f.coef_frame()["term"].tolist()

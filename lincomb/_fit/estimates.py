@@ -34,7 +34,7 @@ from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference, reference_result
-from lincomb._model.design import CoefficientIndex
+from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.wald import WaldTest
@@ -176,7 +176,7 @@ class EstimatesFit:
         term_of: dict[int, str] = {}
         for tlabel, cols in self._index.terms.items():
             for j in cols:
-                term_of[j] = "Intercept" if tlabel == "1" else tlabel
+                term_of.setdefault(j, "Intercept" if tlabel == "1" else tlabel)
         return pd.DataFrame(
             {
                 "coefficient": list(self.names),
@@ -476,6 +476,8 @@ def _index(
                 " columns, in the same order."
             )
         return encoder.index, encoder
+    if terms is None:
+        return _index_from_names(names), None
     groups: dict[str, tuple[int, ...]] = {}
     if terms is not None:
         for label, members in terms.items():
@@ -493,6 +495,64 @@ def _index(
         names=tuple(names), terms=groups, levels=tuple(() for _ in names), factors={}
     )
     return index, None
+
+
+def _split_name(name: str) -> list[str]:
+    """Split a column name at the ``:`` between factors (not inside brackets or calls)."""
+    parts, depth, start = [], 0, 0
+    for i, ch in enumerate(name):
+        if ch in "([":
+            depth += 1
+        elif ch in ")]":
+            depth -= 1
+        elif ch == ":" and depth == 0:
+            parts.append(name[start:i])
+            start = i + 1
+    parts.append(name[start:])
+    return parts
+
+
+def _index_from_names(names: list[str]) -> CoefficientIndex:
+    """Terms and levels read from formula-style names (``g[T.b]``, ``a[x]:b[T.y]``, ``x``).
+
+    Each name is split into factors at ``:``; a factor written ``expr[level]`` codes a level
+    of ``expr``.  Columns whose factors agree form one term, so :func:`~lincomb.term` and
+    level indexing work as on a fit; ``Intercept`` is the intercept term.
+
+    Examples
+    --------
+    >>> index = _index_from_names(["Intercept", "g[T.b]", "g[T.c]", "x", "g[T.b]:x"])
+    >>> index.terms
+    {'1': (0,), 'g': (1, 2), 'x': (3,), 'g:x': (4,)}
+    >>> index.level_column("g", ("c",))
+    2
+    """
+    groups: dict[str, list[int]] = {}
+    factors: dict[str, tuple[str, ...]] = {}
+    levels: list[tuple[str | None, ...]] = []
+    for j, name in enumerate(names):
+        if name == "Intercept":
+            groups.setdefault("1", []).append(j)
+            factors["1"] = ()
+            levels.append(())
+            continue
+        exprs = []
+        for part in _split_name(name):
+            cut = part.find("[")
+            exprs.append(part[:cut] if cut > 0 and part.endswith("]") else part)
+        label = ":".join(exprs)
+        parsed = _parse_levels(name, exprs) if label != name else ()
+        if label != name and not parsed:
+            label, parsed = name, ()
+        groups.setdefault(label, []).append(j)
+        factors[label] = tuple(exprs)
+        levels.append(parsed)
+    return CoefficientIndex(
+        names=tuple(names),
+        terms={k: tuple(v) for k, v in groups.items()},
+        levels=tuple(levels),
+        factors=factors,
+    )
 
 
 def from_estimates(
@@ -522,6 +582,8 @@ def from_estimates(
         refer to chi-squared and the normal (large-sample).
     terms : mapping, optional
         ``{term: [coefficient names]}`` so that :func:`~lincomb.term` can name a group.
+        Without it (and without ``formula``), terms and levels are read from formula-style
+        names: ``g[T.b]`` and ``g[T.c]`` form the term ``g``, indexed by level as on a fit.
     formula, data : str and pandas.DataFrame, optional
         The formula and data that produced the estimates (their coefficient names must be the
         formula's columns, in order): terms, levels and level-mean contrasts
