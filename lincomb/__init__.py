@@ -29,6 +29,7 @@ from lincomb._fit.chunked import covariance_pass as chunk_covariance_pass
 from lincomb._fit.chunked import fit_array_chunks, fit_chunks
 from lincomb._fit.distributed import covariance_pass as dask_covariance_pass
 from lincomb._fit.distributed import fit_dask, fit_dask_arrays
+from lincomb._fit.estimates import EstimatesFit, from_estimates
 from lincomb._fit.linear import LinearFit, fit, fit_arrays
 from lincomb._fit.many import ManyFit, fit_many, fit_many_arrays
 from lincomb._fit.pooled import combine, without_rows
@@ -64,8 +65,10 @@ __all__ = [
     "without_rows",
     "chunk_covariance_pass",
     "dask_covariance_pass",
+    "from_estimates",
     "LinearFit",
     "ManyFit",
+    "EstimatesFit",
     # restrictions
     "coef",
     "term",
