@@ -605,3 +605,17 @@ def test_wald_adjust_passes_the_rate_of_the_adaptive_method(plant_fit) -> None:
         adj = res.adjust("adaptive-benjamini-hochberg", rate=rate)
         ref = multipletests(adj.p, alpha=rate, method="fdr_tsbky")[1]
         np.testing.assert_allclose(adj.p_adjusted, ref, rtol=1e-12)
+
+
+def test_integration_diagnostics_stay_out_of_the_headline(plant_fit) -> None:
+    # the headline says what was done; how the integral was computed is on the result and in
+    # a footnote after the table, in plain (not bold) type
+    sim = plant_fit.wald(lc.levels("group").pairwise()).simultaneous("max-t")
+    assert sim.integration is not None
+    text = repr(sim)
+    head, foot = text.splitlines()[0], text.splitlines()[-1]
+    assert "integration" not in head and foot.startswith("integration (.integration): ")
+    page = sim._repr_html_()
+    bold = page[page.index("<b>") + 3 : page.index("</b>")]
+    assert "integration" not in bold and "max-t" in bold
+    assert page.index("integration (.integration)") > page.index("</table>")

@@ -407,9 +407,13 @@ class MultipleInference:
                 f"{len(self.dropped)} redundant row(s) dropped from the family: "
                 + "; ".join(self.dropped)
             )
-        if self.integration is not None:
-            lines.append("integration: " + self.integration.text())
         return lines
+
+    def _foot(self) -> str:
+        """The integration's diagnostics: on the result (``.integration``), not in the headline."""
+        if self.integration is None:
+            return ""
+        return "integration (.integration): " + self.integration.text()
 
     def _rows(self) -> tuple[list[str], list[list[str]]]:
         ratio = "t" if np.isfinite(self.df_error) else "z"
@@ -433,13 +437,18 @@ class MultipleInference:
 
     def __repr__(self) -> str:
         header, rows = self._rows()
-        return "\n".join(self._head()) + "\n" + _table_text(header, rows)
+        foot = self._foot()
+        text = "\n".join(self._head()) + "\n" + _table_text(header, rows)
+        return text + ("\n" + foot if foot else "")
 
     def _repr_html_(self) -> str:
         header, rows = self._rows()
-        head = "<br>".join(html.escape(s) for s in self._head())
+        first, *rest = self._head()
+        head = f"<b>{html.escape(first)}</b>" + "".join("<br>" + html.escape(line) for line in rest)
+        foot = self._foot()
+        small = f"<p style='font-size:0.85em'>{html.escape(foot)}</p>" if foot else ""
         return (
-            f"<div class='lincomb-multiple'><p><b>{head}</b></p>{_table_html(header, rows)}</div>"
+            f"<div class='lincomb-multiple'><p>{head}</p>{_table_html(header, rows)}{small}</div>"
         )
 
 
