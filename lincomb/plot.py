@@ -47,7 +47,7 @@ INTERVAL_ARTISTS = ("marginal", "simultaneous", "estimate", "target")
 
 #: Artist ``gid`` values set by :func:`power_curve`: the curve, the level ``alpha`` (the power
 #: at no effect) and the target power (when the curve records one).
-POWER_CURVE_ARTISTS = ("power", "alpha", "target")
+POWER_CURVE_ARTISTS = ("power", "alpha", "target", "reached")
 
 # our own palette: marginal intervals in slate blue, simultaneous in burnt orange, targets in
 # near-black; redundant rows are drawn in grey.
@@ -361,7 +361,9 @@ def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
 
     The power at each replicate count of the curve is drawn against the observations it makes,
     with the level ``alpha`` (the power at no effect) as a dotted line and the curve's target
-    power, if it records one, as a dashed line.  The title is the restriction system.
+    power, if it records one, as a dashed line with the fewest observations that reach it marked
+    by a vertical line.  The title is the restriction system, the shift ``Cβ − d`` it assumes,
+    sigma and alpha.
 
     Parameters
     ----------
@@ -420,10 +422,21 @@ def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
             gid="target",
             label=f"target {curve.target_power:g}",
         )
+        reached = curve.reached()
+        if reached is not None:
+            ax.axvline(
+                reached,
+                color=_SIMULTANEOUS,
+                linestyle="-.",
+                gid="reached",
+                label=f"n = {reached} reaches {curve.target_power:g}",
+            )
     ax.set_ylim(0.0, 1.02)
     ax.set_xlabel("observations (n)")
     ax.set_ylabel("power")
     title = " & ".join(curve.labels)
-    ax.set_title(title if len(title) <= 60 else title[:57] + "...", fontsize="medium")
+    title = title if len(title) <= 60 else title[:57] + "..."
+    setting = f"{curve.shift_text()}; sigma = {curve.sigma:.6g}, alpha = {curve.alpha:g}"
+    ax.set_title(f"{title}\n{setting}", fontsize="medium")
     ax.legend(loc="lower right", fontsize="small")
     return fig

@@ -336,3 +336,23 @@ def test_a_notebook_shows_each_returned_figure_once():
         for cell in nb.cells[1:]
     ]
     assert shown == [1, 1, 1, 1]  # the last cell shows the figure made two cells before
+
+
+def test_power_curve_marks_the_target_and_titles_the_setting():
+    # the vertical line sits at the fewest observations whose power (computed independently
+    # here with scipy's noncentral F) reaches the target
+    design = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
+    curve = lc.power_plan(design, lc.coef("g[T.b]") == 0, sigma=1.0).curve(
+        effect=1.0, replicates=list(range(2, 30)), target=0.8
+    )
+    n = np.arange(2, 30) * 2
+    lam = n / 4  # one replicate has one row per group: λ = n·(1·1/2·1/2)/σ² for a two-group shift
+    power = stats.ncf.sf(stats.f.isf(0.05, 1, n - 2), 1, n - 2, lam)
+    fig = curve.plot()
+    ax = fig.axes[0]
+    reached = next(line for line in ax.lines if line.get_gid() == "reached")
+    assert reached.get_xdata()[0] == n[power >= 0.8].min()
+    assert "sigma = 1" in ax.get_title() and "shift Cβ − d = 1" in ax.get_title()
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)

@@ -511,12 +511,14 @@ def test_curve_plot_draws_the_frame():
     np.testing.assert_allclose(by_gid["power"].get_ydata(), frame["power"])
     assert list(by_gid["alpha"].get_ydata()) == [ALPHA, ALPHA]
     assert list(by_gid["target"].get_ydata()) == [0.8, 0.8]
+    # the fewest observations that reach the target are marked (a line added with the target)
+    assert by_gid["reached"].get_xdata()[0] == frame.loc[frame["power"] >= 0.8, "n_obs"].min()
     assert ax.get_xlabel() == "observations (n)"
     from matplotlib.figure import Figure
 
     own = Figure()
     ax2 = own.add_subplot()
-    assert cv.plot(ax=ax2) is own and len(ax2.get_lines()) == 3
+    assert cv.plot(ax=ax2) is own and len(ax2.get_lines()) == 4  # power, alpha, target, reached
 
 
 def test_curve_plot_without_matplotlib(monkeypatch):

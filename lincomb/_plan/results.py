@@ -405,6 +405,9 @@ class DetectableEffect:
         )
 
 
+CURVE_ROWS_SHOWN = 12  # rows a power curve prints; .to_frame() holds every row
+
+
 @dataclass(frozen=True)
 class PowerCurve:
     """Power of the F test against the number of replicates of the planned pattern.
@@ -500,23 +503,79 @@ class PowerCurve:
 
         return power_curve(self, ax=ax)
 
+    def shift_text(self) -> str:
+        """The alternative as ``Cβ − d``: one number when every row shares it, else each row's.
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> d = lc.planned_design("C(g)", pd.DataFrame({"g": ["a", "b", "c"]}))
+        >>> plan = lc.power_plan(d, lc.term("C(g)") == 0, sigma=1.0)
+        >>> plan.curve(effect=0.5, replicates=[5, 10]).shift_text()
+        'shift Cβ − d = 0.5 on each of 2 rows'
+        """
+        s = np.asarray(self.shift, dtype=np.float64)
+        if s.size > 1 and np.all(s == s[0]):
+            return f"shift Cβ − d = {_num(float(s[0]))} on each of {s.size} rows"
+        return "shift Cβ − d = " + ", ".join(_num(float(v)) for v in s)
+
+    def reached(self) -> int | None:
+        """The fewest observations whose power reaches the target (None: no target, or none does).
+
+        Examples
+        --------
+        >>> import pandas as pd, lincomb as lc
+        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        >>> cv = plan.curve(effect=1.0, replicates=[5, 10, 20, 40], target=0.8)
+        >>> cv.reached() == int(cv.n_obs[cv.power >= 0.8].min())
+        True
+        """
+        if self.target_power is None:
+            return None
+        ok = np.flatnonzero(np.asarray(self.power) >= self.target_power)
+        return int(self.n_obs[ok[0]]) if ok.size else None
+
     def _head(self) -> str:
-        return (
+        head = (
             f"Power curve of the F test of {len(self.labels)} restriction row(s), rank"
-            f" {self.df_test}; alpha = {self.alpha:g}, sigma = {self.sigma:.6g}"
+            f" {self.df_test}; alpha = {self.alpha:g}, sigma = {self.sigma:.6g};"
+            f" {self.shift_text()}"
         )
+        n = self.reached()
+        if self.target_power is not None:
+            head += (
+                f"\npower {self.target_power:g} reached at n = {n}"
+                if n is not None
+                else f"\npower {self.target_power:g} not reached on this range"
+            )
+        shown = self._shown()
+        if shown.size < self.power.size:
+            head += f"\n{shown.size} of {self.power.size} rows shown; .to_frame() holds them all"
+        return head
+
+    def _shown(self) -> NDArray[np.intp]:
+        """Rows to print: all up to :data:`CURVE_ROWS_SHOWN`, else spread out, with the first
+        row that reaches the target."""
+        k = self.power.size
+        if k <= CURVE_ROWS_SHOWN:
+            return np.arange(k)
+        pick = set(np.linspace(0, k - 1, CURVE_ROWS_SHOWN - 1).round().astype(int).tolist())
+        n = self.reached()
+        if n is not None:
+            pick.add(int(np.flatnonzero(self.n_obs == n)[0]))
+        return np.array(sorted(pick), dtype=np.intp)
 
     def _rows(self) -> list[list[str]]:
         return [
-            [str(r), str(n), str(d), _num(lam), f"{p:.4f}"]
-            for r, n, d, lam, p in zip(
-                self.replicates,
-                self.n_obs,
-                self.df_error,
-                self.noncentrality,
-                self.power,
-                strict=True,
-            )
+            [
+                str(self.replicates[i]),
+                str(self.n_obs[i]),
+                str(self.df_error[i]),
+                _num(self.noncentrality[i]),
+                f"{self.power[i]:.4f}",
+            ]
+            for i in self._shown()
         ]
 
     def __repr__(self) -> str:
@@ -527,7 +586,6 @@ class PowerCurve:
         import html
 
         header = ["replicates", "n", "df_error", "noncentrality", "power"]
-        return (
-            f"<div class='lincomb-power'><p><b>{html.escape(self._head())}</b></p>"
-            f"{_table_html(header, self._rows())}</div>"
-        )
+        first, *rest = self._head().split("\n")
+        head = f"<b>{html.escape(first)}</b>" + "".join(f"<br>{html.escape(r)}" for r in rest)
+        return f"<div class='lincomb-power'><p>{head}</p>{_table_html(header, self._rows())}</div>"
