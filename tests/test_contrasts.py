@@ -724,3 +724,12 @@ def test_reports_on_rowless_weighted_fits_with_two_factors(tooth, route) -> None
     fits = _rowless_routes(formula, data, weights="w")
     contrasts = lc.levels(fac).trend(2, values=[0.5, 1.0, 2.0])
     _assert_same_report(contrasts.orthogonality(fits[route]), contrasts.orthogonality(f))
+
+
+def test_averaging_accepts_a_factor_as_the_formula_wraps_it():
+    # "C(variety)" and "variety" name the same variable: the same contrast, the same test
+    f = lc.fit("yield_t_ha ~ C(nitrogen) * variety", lc.datasets.field_trial())
+    plain = f.wald(lc.levels("C(nitrogen)").averaging("variety").pairwise())
+    wrapped = f.wald(lc.levels("C(nitrogen)").averaging("C(variety)").pairwise())
+    np.testing.assert_array_equal(plain.estimate, wrapped.estimate)
+    assert plain.stat == wrapped.stat

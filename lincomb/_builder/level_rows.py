@@ -118,6 +118,17 @@ def find_factor(encoder: Any, name: str, order: Sequence[Any] | None) -> Factor:
     return Factor(name=name, variable=var, levels=levs, labels=tuple(str(v) for v in levs))
 
 
+_WRAPPED = re.compile(r"^C\(\s*([^,()]+?)\s*(?:,.*)?\)$")
+
+
+def _variable_of(name: str, model_vars: set[str]) -> str:
+    """``name`` itself if the model reads it, else the variable inside a ``C(...)`` wrapper."""
+    if name in model_vars:
+        return name
+    m = _WRAPPED.match(name.strip())
+    return m.group(1) if m and m.group(1) in model_vars else name
+
+
 def level_rows(
     resolver: Any,
     factor: Factor,
@@ -131,7 +142,9 @@ def level_rows(
     cats = encoder.categoricals()
     term_vars = encoder.term_variables()
     model_vars = model_variables(encoder)
-    pinned = dict(at)
+    # a factor may be named as the formula wraps it ("C(shift)") or by its variable ("shift")
+    pinned = {_variable_of(k, model_vars): v for k, v in at}
+    averaging = tuple(_variable_of(k, model_vars) for k in averaging)
     for key in list(pinned) + list(averaging):
         if key not in model_vars:
             raise ContrastError(
