@@ -888,3 +888,12 @@ def test_power_is_monotone_across_the_saturation_switch():
     assert np.all(np.isfinite(p))
     assert np.all(np.diff(p) >= -1e-15)
     assert np.all(p[lam >= 1e20] == 1.0)
+
+
+def test_one_effect_for_several_rows_is_said_in_the_printout():
+    plan = lc.power_plan(one_way(3), lc.term("C(g)") == 0, sigma=1.0)
+    shared = plan.power(effect=0.5, replicates=6)
+    np.testing.assert_array_equal(shared.shift, [0.5, 0.5])
+    assert "one effect for every row: shift Cβ − d = 0.5 on each of 2 rows" in repr(shared)
+    own = plan.power(effect=[0.5, 0.2], replicates=6)
+    assert "one effect for every row" not in repr(own)

@@ -200,10 +200,17 @@ class PowerResult:
         return _effect_rows(self.labels, self.target, self.alternative, self.shift, self.redundant)
 
     def _head(self) -> str:
-        return (
+        head = (
             f"Power {self.power:.4f} of the F test of {len(self.labels)} restriction row(s),"
             f" rank {self.df_test}\n" + _study_line(self)
         )
+        s = np.asarray(self.shift, dtype=np.float64)
+        if s.size > 1 and np.all(s == s[0]):
+            head += (
+                f"\none effect for every row: shift Cβ − d = {_num(float(s[0]))} on each of"
+                f" {s.size} rows (give effect=[...] or beta= to set them one by one)"
+            )
+        return head
 
     def __repr__(self) -> str:
         return f"{self._head()}\n{_table_text(_ROW_HEADER, _rows_table(self.effect_frame()))}"
