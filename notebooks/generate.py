@@ -202,6 +202,26 @@ three planning rows for being tested together (Holm's method) raises them:
 plan.adjust("holm").to_frame()[["contrast", "p", "p_adjusted"]].round(4)
 """),
     md("""
+**For the report.** A restriction can carry a label of its own, shown instead of its algebra
+in every table, frame and picture; a result renders as Markdown (here), LaTeX or standalone
+HTML with the digits asked for.
+"""),
+    code("""
+gains = (n["80"] - n["40"] == n["160"] - n["80"]).labelled("equal gains 40→80 and 80→160")
+fair_gains = f.wald(gains, covariance=lc.clustered(by="farm", adjust="bias-reduced"))
+print(fair_gains.as_markdown(digits=3))
+"""),
+    md("""
+**Estimates from elsewhere.** Any model's estimates and their covariance can be tested the same
+way (a generalized linear or mixed model fitted by another package, say). Here the fit's own
+estimates with the bias-reduced farm covariance, tested against a large-sample reference:
+"""),
+    code("""
+robust_cov = f.covariance(lc.clustered(by="farm", adjust="bias-reduced"))
+elsewhere = lc.from_estimates(f.coefficients, robust_cov)
+elsewhere.wald(planning)
+"""),
+    md("""
 * With the farm-robust covariance the answer to question 2 moves. Ten clusters are too few
   for the plain farm-robust test; the bias-reduced test with small-sample degrees of freedom
   and the wild cluster bootstrap are the ones to report, and a design with more farms is
