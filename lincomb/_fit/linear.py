@@ -39,6 +39,7 @@ from lincomb._model.design import (
 )
 from lincomb._model.encoder import require_response, unused_level_hint
 from lincomb._results.format import fit_html, fit_text
+from lincomb._results.report import ReportTables
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
 from lincomb.errors import (
     DegenerateFitError,
@@ -59,7 +60,7 @@ ZERO_RSS_TOL: float = 1e-12
 
 
 @dataclass(frozen=True)
-class LinearFit:
+class LinearFit(ReportTables):
     """A least-squares fit, kept as its sufficient statistics.
 
     Attributes

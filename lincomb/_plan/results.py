@@ -15,6 +15,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._results.format import _html_lines, _num, _table_html, _table_text
+from lincomb._results.report import ReportTables
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -101,7 +102,7 @@ def _rows_table(frame: pd.DataFrame) -> list[list[str]]:
 
 
 @dataclass(frozen=True)
-class PowerResult:
+class PowerResult(ReportTables):
     """Power of the F test of ``C·β = d`` under one alternative and study size.
 
     Attributes
@@ -223,7 +224,7 @@ class PowerResult:
 
 
 @dataclass(frozen=True)
-class SampleSize:
+class SampleSize(ReportTables):
     """The fewest replicates of the planned pattern whose test reaches a target power.
 
     Attributes
@@ -309,7 +310,7 @@ class SampleSize:
 
 
 @dataclass(frozen=True)
-class DetectableEffect:
+class DetectableEffect(ReportTables):
     """The smallest multiple of a direction detected with a target power.
 
     Attributes
@@ -416,7 +417,7 @@ CURVE_ROWS_SHOWN = 12  # rows a power curve prints; .to_frame() holds every row
 
 
 @dataclass(frozen=True)
-class PowerCurve:
+class PowerCurve(ReportTables):
     """Power of the F test against the number of replicates of the planned pattern.
 
     Attributes

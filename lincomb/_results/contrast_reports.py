@@ -34,6 +34,7 @@ from lincomb._builder.level_rows import Factor, level_index, require_level
 from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe
 from lincomb._builder.resolver import ModelResolver
 from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.report import ReportTables
 from lincomb.errors import (
     ContrastWeightsError,
     NotOrthogonalError,
@@ -320,7 +321,7 @@ PARTITION_COLUMNS = ("contrast", "estimate", "ss", "df", "share", "f", "p")
 
 
 @dataclass(frozen=True)
-class SumOfSquaresPartition:
+class SumOfSquaresPartition(ReportTables):
     """Single-df sums of squares of an orthogonal full set of contrasts.
 
     Attributes

@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from lincomb._results.report import CELL_STYLE, HEAD_STYLE, TABLE_STYLE
+from lincomb._results.report import CELL_STYLE, HEAD_STYLE, TABLE_STYLE, ReportTables
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -35,7 +35,7 @@ def _html_lines(text: str) -> str:
     return "<br>".join(html.escape(s) for s in text.split("\n"))
 
 
-class TableRepr:
+class TableRepr(ReportTables):
     """Text and HTML reprs of a result shown as a head, a table and an optional tail line.
 
     A subclass gives ``_parts()``: ``(head, header, rows, tail)``, ``tail`` empty for none.

@@ -48,6 +48,7 @@ from lincomb._core.maxt import (
     studentized_range_tail,
 )
 from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.report import ReportTables
 from lincomb.errors import InputError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -264,7 +265,7 @@ MULTIPLE_COLUMNS = (
 
 
 @dataclass(frozen=True)
-class MultipleInference:
+class MultipleInference(ReportTables):
     """Rows of a Wald test with multiplicity-adjusted p-values and, where defined, intervals.
 
     Made by :meth:`WaldTest.adjust <lincomb.results.WaldTest.adjust>` (p-values) and

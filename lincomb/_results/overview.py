@@ -26,6 +26,7 @@ from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
 from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._results.format import _num, _p, _table_html, _table_text
+from lincomb._results.report import ReportTables
 from lincomb.errors import RowsUnavailableError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -35,7 +36,7 @@ __all__ = ["FitOverview", "overview"]
 
 
 @dataclass(frozen=True)
-class FitOverview:
+class FitOverview(ReportTables):
     """Summary numbers of a fit (see :mod:`lincomb._results.overview` for definitions).
 
     Made by :meth:`LinearFit.overview <lincomb.LinearFit.overview>`.

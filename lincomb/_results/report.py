@@ -28,7 +28,7 @@ from typing import Any
 
 import pandas as pd
 
-from lincomb.errors import ParameterError
+from lincomb.errors import InternalError, ParameterError
 
 __all__ = [
     "TABLE_STYLE",
@@ -355,3 +355,60 @@ def wald_headers(frame: pd.DataFrame, reference: str) -> dict[str, str]:
         }
     )
     return headers
+
+
+class ReportTables:
+    """Markdown, LaTeX and standalone HTML tables of a result's tidy frame.
+
+    The frame is the result's own export: ``row_frame()``, else ``test_frame()``, else
+    ``to_frame()``, else ``coef_frame()`` (the first it has), with its column names as headers.
+    Wald results have their own versions with a ``level``.
+    """
+
+    def _report_frame(self) -> pd.DataFrame:
+        for name in ("row_frame", "test_frame", "to_frame", "coef_frame"):
+            method = getattr(self, name, None)
+            if callable(method):
+                frame: pd.DataFrame = method()
+                return frame
+        raise InternalError(f"{type(self).__name__} has no tidy frame to render")
+
+    def _report(self) -> tuple[pd.DataFrame, dict[str, str]]:
+        frame = self._report_frame()
+        return frame, {str(c): str(c) for c in frame.columns}
+
+    def as_markdown(self, digits: int = 4) -> str:
+        """The result's tidy frame as a Markdown table, numbers to ``digits`` significant digits.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> print(f.restrict(lc.coef("line[T.L2]") == 0).as_markdown(digits=3).splitlines()[0])
+        | coefficient | estimate |    se |
+        """
+        return markdown_table(*self._report(), digits=digits)
+
+    def as_latex(self, digits: int = 4) -> str:
+        """The result's tidy frame as a plain LaTeX ``tabular`` (labels escaped).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.restrict(lc.coef("line[T.L2]") == 0).as_latex().splitlines()[0]
+        '\\\\begin{tabular}{lrr}'
+        """
+        return latex_table(*self._report(), digits=digits)
+
+    def as_html(self, digits: int = 4) -> str:
+        """The result's tidy frame as a standalone HTML table (inline styles only).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.restrict(lc.coef("line[T.L2]") == 0).as_html().startswith("<table")
+        True
+        """
+        return html_table(*self._report(), digits=digits)

@@ -21,6 +21,7 @@ from lincomb._results.frames import ROW_COLUMNS as _ROW_COLUMNS
 from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
 from lincomb._results.frames import WaldResult, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
+from lincomb._results.report import ReportTables
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -355,7 +356,7 @@ class WaldTest(WaldResult):
 
 
 @dataclass(frozen=True)
-class RestrictedFit:
+class RestrictedFit(ReportTables):
     """Least-squares coefficients under ``C·β = d``.
 
     Attributes
