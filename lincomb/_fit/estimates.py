@@ -34,6 +34,7 @@ from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
 from lincomb._results.format import _num, _p, _table_html, _table_text
@@ -41,7 +42,6 @@ from lincomb._results.report import ReportTables
 from lincomb._results.wald import WaldTest
 from lincomb.errors import (
     CovarianceInputError,
-    InconsistentRestrictionError,
     InputError,
     NotEstimableError,
 )
@@ -293,20 +293,7 @@ class EstimatesFit(ReportTables):
             )
         # redundancy on C·D: unchanged when a coefficient and its covariance are rescaled
         analysis = core.analyze_rows(self._working(c), d, core.ROW_TOL)
-        if analysis.inconsistent:
-            lines = []
-            for row, dval, implied in analysis.inconsistent:
-                dep = analysis.dependencies[row]
-                combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items())
-                lines.append(
-                    f"row {row} ({labels[row]}) equals {combo or '0'}, which implies"
-                    f" d = {implied:.6g}, but its d is {dval:.6g}"
-                )
-            raise InconsistentRestrictionError(
-                "the restrictions contradict each other: "
-                + "; ".join(lines)
-                + ". Remove one of the conflicting rows or correct its value."
-            )
+        refuse_inconsistent(analysis, labels)
         root = self._root_scale[:, None] * (self._working(c) @ self._basis).T
         est = c @ self.coefficients.to_numpy()
         wc = core.wald_from_root(est - d, root, analysis.independent)

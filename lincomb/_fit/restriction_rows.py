@@ -14,7 +14,37 @@ from numpy.typing import NDArray
 from lincomb import _core as core
 from lincomb.errors import InconsistentRestrictionError, NotEstimableError
 
-__all__ = ["check_rows"]
+__all__ = ["check_rows", "refuse_inconsistent"]
+
+
+def refuse_inconsistent(analysis: core.RowAnalysis, labels: Sequence[str]) -> None:
+    """Raise if a redundant row's ``d`` contradicts the rows it depends on (rows named).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb import _core as core
+    >>> a = core.analyze_rows(np.array([[1.0, 0.0], [2.0, 0.0]]), np.array([1.0, 3.0]))
+    >>> refuse_inconsistent(a, ["b = 1", "2*b = 3"])
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InconsistentRestrictionError: the restrictions contradict each other: ...
+    """
+    if not analysis.inconsistent:
+        return
+    lines = []
+    for row, dval, implied in analysis.inconsistent:
+        dep = analysis.dependencies[row]
+        combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
+        lines.append(
+            f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
+            f" but its d is {dval:.6g}"
+        )
+    raise InconsistentRestrictionError(
+        "the restrictions contradict each other: "
+        + "; ".join(lines)
+        + ". Remove one of the conflicting rows or correct its value."
+    )
 
 
 def check_rows(
@@ -58,20 +88,7 @@ def check_rows(
     cu = sol.to_working(c)
     # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
     analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
-    if analysis.inconsistent:
-        lines = []
-        for row, dval, implied in analysis.inconsistent:
-            dep = analysis.dependencies[row]
-            combo = " + ".join(f"{w:.6g}·(row {k}: {labels[k]})" for k, w in dep.items()) or "0"
-            lines.append(
-                f"row {row} ({labels[row]}) equals {combo}, which implies d = {implied:.6g},"
-                f" but its d is {dval:.6g}"
-            )
-        raise InconsistentRestrictionError(
-            "the restrictions contradict each other: "
-            + "; ".join(lines)
-            + ". Remove one of the conflicting rows or correct its value."
-        )
+    refuse_inconsistent(analysis, labels)
     resid = sol.estimability_residual(cu)
     bad = np.flatnonzero(resid > core.ROW_TOL)
     if bad.size:
