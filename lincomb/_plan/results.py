@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
 from lincomb._results.format import _html_lines, _num, _table_html, _table_text
 from lincomb._results.report import ReportTables
 
@@ -476,27 +477,20 @@ class PowerCurve(ReportTables):
             columns=list(CURVE_COLUMNS),
         )
 
+    @fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS)
     def plot(self, ax: Axes | None = None) -> Figure:
         """Draw power against the number of observations (needs matplotlib).
 
         Parameters
         ----------
-        ax : matplotlib.axes.Axes, optional
-            Axes to draw into; by default a new figure (not tracked by pyplot) is made.
+        %(ax)s
 
-        Returns
-        -------
-        matplotlib.figure.Figure
-
-        Raises
-        ------
-        OptionalDependencyError
-            matplotlib is not installed.
+        %(figure_returns)s
 
         Notes
         -----
-        Artists carry a ``gid`` for inspection: ``"power"`` (the curve), ``"alpha"`` (the
-        level, which is the power at no effect) and ``"target"`` (when a target was given).
+        Draws :func:`lincomb.plot.power_curve`, which says what is drawn and which ``gid`` each
+        artist carries.
 
         Examples
         --------
