@@ -28,6 +28,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
+from lincomb._plan.results import TWO_GROUP_PLAN
 from lincomb._results.format import _p
 from lincomb._results.multiplicity import MultipleInference
 from lincomb.errors import ArgumentTypeError, InputError, OptionalDependencyError
@@ -352,7 +353,7 @@ def intervals(
     return fig
 
 
-@_drawing_doc
+@fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS, two_group_plan=TWO_GROUP_PLAN)
 def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
     """Power of a planned F test against the number of observations.
 
@@ -377,9 +378,9 @@ def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
 
     Examples
     --------
-    >>> import numpy as np, pandas as pd, lincomb as lc
-    >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
-    >>> cv = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).curve(effect=1.0, target=0.8)
+    %(two_group_plan)s
+    >>> import numpy as np
+    >>> cv = plan.curve(effect=1.0, target=0.8)
     >>> ax = lc.plot.power_curve(cv).axes[0]
     >>> line = next(a for a in ax.lines if a.get_gid() == "power")
     >>> bool(np.allclose(line.get_ydata(), cv.power))
