@@ -9,7 +9,7 @@ docstring is left alone.
 
 Fragments shared by modules of different layers live here (the figure a drawing returns);
 a fragment used in one module is defined in that module.  This module imports nothing of
-lincomb but its errors, so every layer, the numerical core included, may use it.
+lincomb but its errors, so the numerical core may use it too (``tests/test_layers.py``).
 """
 
 from __future__ import annotations
