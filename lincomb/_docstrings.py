@@ -15,6 +15,7 @@ lincomb but its errors, so the numerical core may use it too (``tests/test_layer
 from __future__ import annotations
 
 import re
+import sys
 import textwrap
 from collections.abc import Callable, Mapping
 from typing import TypeVar
@@ -88,8 +89,9 @@ def fill_text(doc: str, fragments: Mapping[str, str]) -> str:
 def fill_doc(**fragments: str) -> Callable[[_T], _T]:
     """Decorator: fill the ``%(name)s`` lines of a function's or class's docstring.
 
-    The object is returned itself, with its ``__doc__`` filled (see :func:`fill_text`); an
-    object without a docstring (``python -OO``) is returned unchanged.
+    The object is returned itself, with its ``__doc__`` filled (see :func:`fill_text`).  Under
+    ``python -OO`` (docstrings stripped; a dataclass then writes a signature of its own as
+    ``__doc__``) and for an object without a docstring, it is returned unchanged.
 
     Examples
     --------
@@ -109,7 +111,7 @@ def fill_doc(**fragments: str) -> Callable[[_T], _T]:
 
     def fill(obj: _T) -> _T:
         doc = obj.__doc__
-        if doc is not None:
+        if doc is not None and sys.flags.optimize < 2:
             obj.__doc__ = fill_text(doc, fragments)
         return obj
 
