@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from lincomb._docstrings import fill_doc
 from lincomb.errors import InputError
 
 _CONTROLLER: Any = None
@@ -79,6 +80,23 @@ def worker_threads() -> int:
     return DEFAULT_WORKER_THREADS if _WORKER_THREADS is None else _WORKER_THREADS
 
 
+#: The argument of :func:`set_blas_threads` and :func:`blas_threads` and its refusal.
+_THREADS = """\
+Parameters
+----------
+n : int or None
+    A positive number of threads, or None for the library default: one BLAS thread for each
+    chunk, partition, group of responses and row block (waking more threads for each small
+    block costs more than it saves, and on busy cores stalls for milliseconds).
+
+Raises
+------
+lincomb.errors.InputError
+    ``n`` is not a positive whole number or None."""
+_threads_doc = fill_doc(threads=_THREADS)
+
+
+@_threads_doc
 def set_blas_threads(n: int | None) -> None:
     """Set the BLAS threads that lincomb's block-wise work uses, for the whole process.
 
@@ -86,17 +104,7 @@ def set_blas_threads(n: int | None) -> None:
     of responses) and the row blocks of a tall in-memory factor call BLAS on many moderate
     blocks; they run with at most ``n`` BLAS threads.  Other work leaves BLAS as it is.
 
-    Parameters
-    ----------
-    n : int or None
-        A positive number of threads, or None for the library default: one BLAS thread inside
-        those workers (waking more threads for each small block costs more than it saves, and
-        on busy cores stalls for milliseconds).
-
-    Raises
-    ------
-    lincomb.errors.InputError
-        ``n`` is not a positive whole number or None.
+    %(threads)s
 
     See Also
     --------
@@ -129,22 +137,14 @@ def set_blas_threads(n: int | None) -> None:
 
 
 @contextlib.contextmanager
+@_threads_doc
 def blas_threads(n: int | None) -> Iterator[None]:
     """Use ``n`` BLAS threads in lincomb's block-wise work inside a ``with`` block.
 
     The setting of :func:`set_blas_threads` for the block only; the previous setting is
     restored on leaving it, also when an error is raised.
 
-    Parameters
-    ----------
-    n : int or None
-        A positive number of threads, or None for the library default (one BLAS thread inside
-        chunk, partition and many-response workers).
-
-    Raises
-    ------
-    lincomb.errors.InputError
-        ``n`` is not a positive whole number or None.
+    %(threads)s
 
     See Also
     --------

@@ -27,6 +27,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
+from lincomb._plan.results import TWO_GROUP_PLAN
 from lincomb._results.format import _p
 from lincomb._results.multiplicity import MultipleInference
 from lincomb.errors import ArgumentTypeError, InputError, OptionalDependencyError
@@ -56,6 +58,8 @@ _SIMULTANEOUS = "#d1603d"
 _TARGET = "#202020"
 _MUTED = "#9a9a9a"
 _LABEL_WIDTH = 46
+
+_drawing_doc = fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS)
 
 
 def _pyplot() -> Any:
@@ -176,6 +180,7 @@ def _simultaneous(
     )
 
 
+@_drawing_doc
 def intervals(
     result: WaldTest,
     level: float = 0.95,
@@ -207,19 +212,11 @@ def intervals(
         restriction row in the test's order.
     simultaneous_label : str, optional
         Legend text for the simultaneous bars; default names the level and the method.
-    ax : matplotlib Axes, optional
-        Draw here instead of in a new figure; the axes' figure is returned.
+    %(ax)s
     title : str, optional
         Replaces the default title (the joint test).
 
-    Returns
-    -------
-    matplotlib.figure.Figure
-
-    Raises
-    ------
-    OptionalDependencyError
-        matplotlib is not installed.
+    %(figure_returns)s
     ParameterError
         ``level`` is not in (0, 1).
     InputError
@@ -356,6 +353,7 @@ def intervals(
     return fig
 
 
+@fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS, two_group_plan=TWO_GROUP_PLAN)
 def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
     """Power of a planned F test against the number of observations.
 
@@ -369,17 +367,9 @@ def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
     ----------
     curve : PowerCurve
         From :meth:`~lincomb.PowerPlan.curve`.
-    ax : matplotlib Axes, optional
-        Draw here instead of in a new figure; the axes' figure is returned.
+    %(ax)s
 
-    Returns
-    -------
-    matplotlib.figure.Figure
-
-    Raises
-    ------
-    OptionalDependencyError
-        matplotlib is not installed.
+    %(figure_returns)s
 
     Notes
     -----
@@ -388,9 +378,9 @@ def power_curve(curve: PowerCurve, *, ax: Axes | None = None) -> Figure:
 
     Examples
     --------
-    >>> import numpy as np, pandas as pd, lincomb as lc
-    >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
-    >>> cv = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).curve(effect=1.0, target=0.8)
+    %(two_group_plan)s
+    >>> import numpy as np
+    >>> cv = plan.curve(effect=1.0, target=0.8)
     >>> ax = lc.plot.power_curve(cv).axes[0]
     >>> line = next(a for a in ax.lines if a.get_gid() == "power")
     >>> bool(np.allclose(line.get_ydata(), cv.power))

@@ -1,8 +1,9 @@
 """Import direction between lincomb's layers, read from the source with ``ast``.
 
 The numerical core (``lincomb/_core/``) works on arrays only: it may import numpy, scipy and
-the standard library, and of lincomb only ``lincomb._core`` itself, ``lincomb.errors`` and
-``lincomb._settings``.  It never imports pandas or formulaic.
+the standard library, and of lincomb only ``lincomb._core`` itself, ``lincomb.errors``,
+``lincomb._settings`` and ``lincomb._docstrings`` (shared docstring text; it imports only the
+errors).  It never imports pandas or formulaic.
 """
 
 from __future__ import annotations
@@ -16,7 +17,12 @@ PACKAGE = Path(__file__).resolve().parents[1] / "lincomb"
 CORE = PACKAGE / "_core"
 
 _CORE_FORBIDDEN_TOP = {"pandas", "formulaic"}
-_CORE_ALLOWED_LINCOMB = ("lincomb._core", "lincomb.errors", "lincomb._settings")
+_CORE_ALLOWED_LINCOMB = (
+    "lincomb._core",
+    "lincomb.errors",
+    "lincomb._settings",
+    "lincomb._docstrings",
+)
 
 
 def _module_name(path: Path, root: Path) -> str:
@@ -162,3 +168,12 @@ def test_the_layer_check_can_fail(tmp_path, source, bad):
     allowed = LAYER_ALLOWED["_builder"]
     found = any(_layer_violation(n, allowed) for _, n in _runtime_imports(f, tmp_path / "lincomb"))
     assert found is bad
+
+
+def test_the_docstring_helper_stays_a_leaf():
+    # the core may import lincomb._docstrings only because it imports nothing else of lincomb
+    path = PACKAGE / "_docstrings.py"
+    names = [name for _, name in _imports(path) if name.split(".")[0] == "lincomb"]
+    assert names, "the helper imports its errors"
+    bad = [n for n in names if not (n == "lincomb.errors" or n.startswith("lincomb.errors."))]
+    assert not bad, f"lincomb/_docstrings.py imports more of lincomb than its errors: {bad}"

@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from lincomb._core.triangular import triangular_factor
+from lincomb._docstrings import fill_doc
 from lincomb.errors import IncompatibleFitError, InputError
 
 if TYPE_CHECKING:
@@ -23,7 +24,18 @@ if TYPE_CHECKING:
 
 __all__ = ["MomentMerger", "merge_moments", "merge_tree"]
 
+#: Example set-up: 40 random rows with an intercept and the moments of all of them at once,
+#: which merged row blocks must reproduce.
+_ROWS = """\
+>>> import numpy as np
+>>> from lincomb._core import moments_from_arrays
+>>> rng = np.random.default_rng(2)
+>>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))]); y = rng.normal(size=40)
+>>> whole = moments_from_arrays(x, y, intercept=0)"""
+_rows_doc = fill_doc(rows=_ROWS)
 
+
+@_rows_doc
 def merge_moments(a: Moments, b: Moments) -> Moments:
     """Combine the moments of two disjoint row blocks into those of their union.
 
@@ -32,11 +44,7 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import moments_from_arrays
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(50), rng.normal(size=(50, 2))]); y = rng.normal(size=50)
-    >>> whole = moments_from_arrays(x, y, intercept=0)
+    %(rows)s
     >>> parts = merge_moments(moments_from_arrays(x[:20], y[:20], intercept=0),
     ...                       moments_from_arrays(x[20:], y[20:], intercept=0))
     >>> bool(np.allclose(parts.r.T @ parts.r, whole.r.T @ whole.r))
@@ -65,6 +73,7 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
     )
 
 
+@_rows_doc
 class MomentMerger:
     """Merge a stream of moments in a balanced binary tree, holding ``O(log k)`` factors.
 
@@ -75,14 +84,10 @@ class MomentMerger:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import moments_from_arrays
-    >>> rng = np.random.default_rng(4)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))]); y = rng.normal(size=30)
+    %(rows)s
     >>> merger = MomentMerger()
-    >>> for s in range(0, 30, 7):
-    ...     merger.add(moments_from_arrays(x[s:s + 7], y[s:s + 7], intercept=0))
-    >>> whole = moments_from_arrays(x, y, intercept=0)
+    >>> for s in range(0, 40, 9):  # four blocks of 9 rows and one of 4
+    ...     merger.add(moments_from_arrays(x[s:s + 9], y[s:s + 9], intercept=0))
     >>> m = merger.result()
     >>> m is not None and bool(np.allclose(m.r.T @ m.r, whole.r.T @ whole.r)), merger.count
     (True, 5)
@@ -129,6 +134,7 @@ class MomentMerger:
         return acc
 
 
+@_rows_doc
 def merge_tree(parts: Iterable[Moments]) -> Moments:
     """Merge moments of disjoint row blocks, in order, in a balanced binary tree.
 
@@ -154,14 +160,10 @@ def merge_tree(parts: Iterable[Moments]) -> Moments:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import moments_from_arrays
-    >>> rng = np.random.default_rng(2)
-    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))]); y = rng.normal(size=40)
+    %(rows)s
     >>> parts = [moments_from_arrays(x[i:i + 10], y[i:i + 10], intercept=0)
     ...          for i in range(0, 40, 10)]
     >>> m = merge_tree(parts)
-    >>> whole = moments_from_arrays(x, y, intercept=0)
     >>> bool(np.allclose(m.r.T @ m.r, whole.r.T @ whole.r)), m.n
     (True, 40)
     """

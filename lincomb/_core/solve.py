@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 
 from lincomb._core.moments import Moments
 from lincomb._core.triangular import safe_norm, upper_solve
+from lincomb._docstrings import fill_doc
 
 __all__ = ["CONSTANT_TOL", "RANK_TOL", "SUPPORT_FLOOR", "Solution", "solve", "safe_norm"]
 
@@ -33,6 +34,26 @@ CONSTANT_TOL: float = 64 * float(np.finfo(np.float64).eps)
 SUPPORT_FLOOR: float = 1e-6
 
 
+#: Example set-up: a solution of a random design with an intercept and two covariates.
+_RANDOM_SOLUTION = """\
+>>> import numpy as np
+>>> from lincomb._core import moments_from_arrays
+>>> rng = np.random.default_rng(0)
+>>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+>>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+>>> sol = solve(moments_from_arrays(x, y, intercept=0))"""
+#: Example set-up: a solution with an aliased column (two indicators that sum to the intercept).
+_ALIASED_SOLUTION = """\
+>>> import numpy as np
+>>> from lincomb._core import ROW_TOL, moments_from_arrays
+>>> a = np.array([1.0, 1, 0, 0, 0, 0])
+>>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
+>>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))"""
+_random_doc = fill_doc(random_solution=_RANDOM_SOLUTION)
+_aliased_doc = fill_doc(aliased_solution=_ALIASED_SOLUTION)
+
+
+@_random_doc
 @dataclass(frozen=True)
 class Solution:
     """A least-squares solution with its rank decision, in working coordinates.
@@ -75,12 +96,7 @@ class Solution:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import moments_from_arrays
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-    >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+    %(random_solution)s
     >>> reference = np.linalg.lstsq(x, y, rcond=None)[0]
     >>> bool(np.allclose(sol.coefficients(), reference)), sol.rank, sol.df_resid
     (True, 3, 17)
@@ -107,17 +123,13 @@ class Solution:
     def df_resid(self) -> int:
         return self.n - self.rank
 
+    @_random_doc
     def to_working(self, c: Array) -> Array:
         """Map rows of ``C`` (m, p) on ``β`` to working coordinates ``u`` (all p columns).
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import moments_from_arrays
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+        %(random_solution)s
         >>> c = np.array([[0.0, 1.0, -1.0], [1.0, 0.5, 0.0]])
         >>> u = np.zeros(3)
         >>> u[sol.kept] = sol.theta
@@ -170,16 +182,13 @@ class Solution:
         cd[..., j] = c[..., j] / np.sqrt(max(self.weight_sum, np.finfo(float).tiny))
         return cd
 
+    @_aliased_doc
     def coefficients(self) -> Array:
         """Basic solution ``β`` (aliased entries are NaN).
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import moments_from_arrays
-        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
-        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])
-        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        %(aliased_solution)s
         >>> np.isnan(sol.coefficients()).tolist()
         [False, False, True, False]
         """
@@ -211,17 +220,13 @@ class Solution:
             beta[self.intercept] -= self.center @ beta
         return beta
 
+    @_random_doc
     def root(self, cu_kept: Array) -> Array:
         """``R⁻ᵀ C_keptᵀ``: the classical covariance of ``Cβ̂`` is ``σ² rootᵀ root``.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import moments_from_arrays
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+        %(random_solution)s
         >>> c = np.array([[0.0, 1.0, -1.0]])
         >>> root = sol.root(sol.to_working(c)[:, sol.kept])
         >>> bool(np.allclose(root.T @ root, c @ np.linalg.solve(x.T @ x, c.T)))
@@ -231,6 +236,7 @@ class Solution:
             return np.zeros((0, cu_kept.shape[0]))
         return upper_solve(self.r, cu_kept.T, trans=True)
 
+    @_aliased_doc
     def estimability_residual(self, cu: Array) -> Array:
         """Relative size of each row's component in the null space (0 = estimable).
 
@@ -242,11 +248,7 @@ class Solution:
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import ROW_TOL, moments_from_arrays
-        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
-        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
-        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        %(aliased_solution)s
         >>> c = np.array([[0.0, 1, -1, 0], [0.0, 1, 0, 0]])  # a - b is estimable, a is not
         >>> (sol.estimability_residual(sol.to_working(c)) > ROW_TOL).tolist()
         [False, True]
@@ -262,16 +264,13 @@ class Solution:
         rel: Array = np.divide(res, den, out=np.zeros_like(res), where=den > 0)
         return rel
 
+    @_aliased_doc
     def aliased_touched(self, cu_row: Array, tol: float) -> list[int]:
         """Aliased columns whose null direction a non-estimable row does not annihilate.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import ROW_TOL, moments_from_arrays
-        >>> a = np.array([1.0, 1, 0, 0, 0, 0])
-        >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
-        >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))
+        %(aliased_solution)s
         >>> sol.aliased_touched(sol.to_working(np.array([0.0, 1, 0, 0])), ROW_TOL)
         [2]
         """

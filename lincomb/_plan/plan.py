@@ -30,11 +30,18 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._core import noncentral
+from lincomb._docstrings import fill_doc
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
 from lincomb._plan.design import PlannedDesign, planned_design
-from lincomb._plan.results import DetectableEffect, PowerCurve, PowerResult, SampleSize
+from lincomb._plan.results import (
+    TWO_GROUP_PLAN,
+    DetectableEffect,
+    PowerCurve,
+    PowerResult,
+    SampleSize,
+)
 from lincomb._results.format import _num, _table_html, _table_text
 from lincomb.errors import (
     DegenerateFitError,
@@ -48,6 +55,9 @@ __all__ = ["PowerPlan", "power_plan", "MAX_REPLICATES"]
 
 #: Default upper bound of the replicate search in :meth:`PowerPlan.replicates_for`.
 MAX_REPLICATES: int = 1_000_000
+
+
+_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN)
 
 
 @dataclass(frozen=True)
@@ -292,6 +302,7 @@ class PowerPlan:
             redundant=self.redundant,
         )
 
+    @_plan_doc
     def replicates_for(
         self,
         power: float,
@@ -327,10 +338,8 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
-        >>> need = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).replicates_for(
-        ...     0.8, effect=0.5)
+        %(two_group_plan)s
+        >>> need = plan.replicates_for(0.8, effect=0.5)
         >>> need.replicates, round(need.power, 4), round(need.previous_power, 4)
         (64, 0.8015, 0.7952)
         """
@@ -373,6 +382,7 @@ class PowerPlan:
             result=detail,
         )
 
+    @_plan_doc
     def detectable_effect(
         self,
         power: float,
@@ -403,10 +413,8 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
-        >>> mde = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).detectable_effect(
-        ...     0.8, replicates=64)
+        %(two_group_plan)s
+        >>> mde = plan.detectable_effect(0.8, replicates=64)
         >>> round(mde.scale, 4), round(mde.power, 6)
         (0.4991, 0.8)
         """

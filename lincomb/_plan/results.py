@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
 from lincomb._results.format import _html_lines, _num, _table_html, _table_text
 from lincomb._results.report import ReportTables
 
@@ -54,6 +55,14 @@ CURVE_COLUMNS = (
     "critical_value",
     "power",
 )
+
+
+#: Example set-up: a plan for testing that two groups differ (``g[T.b] = 0``), sigma 1.
+TWO_GROUP_PLAN = """\
+>>> import pandas as pd, lincomb as lc
+>>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
+...     lc.coef("g[T.b]") == 0, sigma=1.0)"""
+_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN)
 
 
 def _effect_rows(
@@ -101,6 +110,7 @@ def _rows_table(frame: pd.DataFrame) -> list[list[str]]:
     return out
 
 
+@_plan_doc
 @dataclass(frozen=True)
 class PowerResult(ReportTables):
     """Power of the F test of ``C·β = d`` under one alternative and study size.
@@ -129,9 +139,7 @@ class PowerResult(ReportTables):
 
     Examples
     --------
-    >>> import pandas as pd, lincomb as lc
-    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    %(two_group_plan)s
     >>> r = plan.power(effect=1.0, replicates=10)
     >>> r.n_obs, r.df_error, round(r.power, 4)
     (20, 18, 0.5620)
@@ -157,6 +165,7 @@ class PowerResult(ReportTables):
         """``λ / n``: the effect size ``f²`` of the convention ``λ = f²·N``."""
         return self.noncentrality / self.n_obs
 
+    @_plan_doc
     def to_frame(self) -> pd.DataFrame:
         """One row: the columns of :data:`POWER_COLUMNS`.
 
@@ -166,9 +175,7 @@ class PowerResult(ReportTables):
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> plan.power(effect=1.0, replicates=10).to_frame()[["n_obs", "noncentrality"]]
            n_obs  noncentrality
         0     20            5.0
@@ -184,6 +191,7 @@ class PowerResult(ReportTables):
             columns=list(POWER_COLUMNS),
         )
 
+    @_plan_doc
     def effect_frame(self) -> pd.DataFrame:
         """One row per restriction row: ``restriction, target, alternative, shift, role``.
 
@@ -192,9 +200,7 @@ class PowerResult(ReportTables):
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> plan.power(effect=1.0, replicates=10).effect_frame().values.tolist()
         [['g[T.b] = 0', 0.0, 1.0, 1.0, 'independent']]
         """
@@ -223,6 +229,7 @@ class PowerResult(ReportTables):
         return f"<div class='lincomb-power'><p><b>{head}</b></p>{table}</div>"
 
 
+@_plan_doc
 @dataclass(frozen=True)
 class SampleSize(ReportTables):
     """The fewest replicates of the planned pattern whose test reaches a target power.
@@ -243,9 +250,7 @@ class SampleSize(ReportTables):
 
     Examples
     --------
-    >>> import pandas as pd, lincomb as lc
-    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    %(two_group_plan)s
     >>> need = plan.replicates_for(0.8, effect=1.0)
     >>> need.replicates, bool(need.power >= 0.8 > need.previous_power)
     (17, True)
@@ -258,15 +263,14 @@ class SampleSize(ReportTables):
     previous_power: float
     result: PowerResult = field(repr=False)
 
+    @_plan_doc
     def to_frame(self) -> pd.DataFrame:
         """One row: ``target_power, replicates, n_obs, df_test, df_error, noncentrality, power,
         previous_power, alpha, sigma``.
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> plan.replicates_for(0.8, effect=1.0).to_frame()[["replicates", "n_obs"]]
            replicates  n_obs
         0          17     34
@@ -309,6 +313,7 @@ class SampleSize(ReportTables):
         return f"<div class='lincomb-power'><p><b>{head}</b></p></div>"
 
 
+@_plan_doc
 @dataclass(frozen=True)
 class DetectableEffect(ReportTables):
     """The smallest multiple of a direction detected with a target power.
@@ -339,9 +344,7 @@ class DetectableEffect(ReportTables):
 
     Examples
     --------
-    >>> import pandas as pd, lincomb as lc
-    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    %(two_group_plan)s
     >>> round(plan.detectable_effect(0.8, replicates=10).scale, 4)
     1.3249
     """
@@ -363,6 +366,7 @@ class DetectableEffect(ReportTables):
     n_obs: int
     beta_shift: pd.Series | None = field(default=None, repr=False)
 
+    @_plan_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per restriction row: ``restriction, target, direction, shift, alternative``.
 
@@ -371,9 +375,7 @@ class DetectableEffect(ReportTables):
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> plan.detectable_effect(0.8, replicates=10).to_frame().round(4).values.tolist()
         [['g[T.b] = 0', 0.0, 1.0, 1.3249, 1.3249]]
         """
@@ -416,6 +418,7 @@ class DetectableEffect(ReportTables):
 CURVE_ROWS_SHOWN = 12  # rows a power curve prints; .to_frame() holds every row
 
 
+@_plan_doc
 @dataclass(frozen=True)
 class PowerCurve(ReportTables):
     """Power of the F test against the number of replicates of the planned pattern.
@@ -434,9 +437,7 @@ class PowerCurve(ReportTables):
 
     Examples
     --------
-    >>> import pandas as pd, lincomb as lc
-    >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-    ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+    %(two_group_plan)s
     >>> cv = plan.curve(effect=1.0, replicates=[5, 10, 20], target=0.8)
     >>> cv.n_obs.tolist(), bool((cv.power[1:] > cv.power[:-1]).all())
     ([10, 20, 40], True)
@@ -455,6 +456,7 @@ class PowerCurve(ReportTables):
     power: NDArray[np.float64]
     target_power: float | None = None
 
+    @_plan_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per replicate count: the columns of :data:`CURVE_COLUMNS`.
 
@@ -463,9 +465,7 @@ class PowerCurve(ReportTables):
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> plan.curve(effect=1.0, replicates=[2, 5]).to_frame()[["n_obs", "df_error"]]
            n_obs  df_error
         0      4       2
@@ -476,34 +476,25 @@ class PowerCurve(ReportTables):
             columns=list(CURVE_COLUMNS),
         )
 
+    @fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS, two_group_plan=TWO_GROUP_PLAN)
     def plot(self, ax: Axes | None = None) -> Figure:
         """Draw power against the number of observations (needs matplotlib).
 
         Parameters
         ----------
-        ax : matplotlib.axes.Axes, optional
-            Axes to draw into; by default a new figure (not tracked by pyplot) is made.
+        %(ax)s
 
-        Returns
-        -------
-        matplotlib.figure.Figure
-
-        Raises
-        ------
-        OptionalDependencyError
-            matplotlib is not installed.
+        %(figure_returns)s
 
         Notes
         -----
-        Artists carry a ``gid`` for inspection: ``"power"`` (the curve), ``"alpha"`` (the
-        level, which is the power at no effect) and ``"target"`` (when a target was given).
+        Draws :func:`lincomb.plot.power_curve`, which says what is drawn and which ``gid`` each
+        artist carries.
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]}))
-        >>> cv = lc.power_plan(d, lc.coef("g[T.b]") == 0, sigma=1.0).curve(effect=1.0)
-        >>> fig = cv.plot()
+        %(two_group_plan)s
+        >>> fig = plan.curve(effect=1.0).plot()
         >>> fig.axes[0].get_xlabel()
         'observations (n)'
         """
@@ -527,14 +518,13 @@ class PowerCurve(ReportTables):
             return f"shift Cβ − d = {_num(float(s[0]))} on each of {s.size} rows"
         return "shift Cβ − d = " + ", ".join(_num(float(v)) for v in s)
 
+    @_plan_doc
     def reached(self) -> int | None:
         """The fewest observations whose power reaches the target (None: no target, or none does).
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> plan = lc.planned_design("g", pd.DataFrame({"g": ["a", "b"]})).plan(
-        ...     lc.coef("g[T.b]") == 0, sigma=1.0)
+        %(two_group_plan)s
         >>> cv = plan.curve(effect=1.0, replicates=[5, 10, 20, 40], target=0.8)
         >>> cv.reached() == int(cv.n_obs[cv.power >= 0.8].min())
         True

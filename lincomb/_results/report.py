@@ -28,6 +28,7 @@ from typing import Any
 
 import pandas as pd
 
+from lincomb._docstrings import fill_doc
 from lincomb.errors import InternalError, ParameterError
 
 __all__ = [
@@ -60,6 +61,25 @@ _LATEX_SPECIAL = {
     "~": r"\textasciitilde{}",
     "^": r"\textasciicircum{}",
 }
+
+
+#: The parameters every table renderer takes (numpydoc section).
+_TABLE_PARAMETERS = """\
+Parameters
+----------
+frame : DataFrame
+    A tidy frame, one row per table row.
+headers : mapping of str to str
+    Columns of ``frame`` to show, in order, each with the header to print.
+digits : int, default 4
+    Significant digits of every number."""
+#: What every table renderer refuses (numpydoc section).
+_TABLE_RAISES = """\
+Raises
+------
+ParameterError
+    ``digits`` is not in 1..17, or ``headers`` names a column the frame lacks."""
+_table_doc = fill_doc(table_parameters=_TABLE_PARAMETERS, table_raises=_TABLE_RAISES)
 
 
 def check_digits(digits: int) -> int:
@@ -124,27 +144,18 @@ def _numeric_columns(frame: pd.DataFrame, headers: Mapping[str, str]) -> list[bo
     return [pd.api.types.is_numeric_dtype(frame[c]) for c in headers]
 
 
+@_table_doc
 def markdown_table(frame: pd.DataFrame, headers: Mapping[str, str], digits: int = 4) -> str:
     """Render the columns of ``frame`` named in ``headers`` as a Markdown pipe table.
 
-    Parameters
-    ----------
-    frame : DataFrame
-        A tidy frame, one row per table row.
-    headers : mapping of str to str
-        Columns of ``frame`` to show, in order, each with the header to print.
-    digits : int, default 4
-        Significant digits of every number.
+    %(table_parameters)s
 
     Returns
     -------
     str
         The table, one line per row, text left-aligned and numbers right-aligned.
 
-    Raises
-    ------
-    ParameterError
-        ``digits`` is not in 1..17, or ``headers`` names a column the frame lacks.
+    %(table_raises)s
 
     Examples
     --------
@@ -193,6 +204,7 @@ def latex_escape(text: str) -> str:
     return "".join(_LATEX_SPECIAL.get(ch, ch) for ch in text)
 
 
+@_table_doc
 def latex_table(frame: pd.DataFrame, headers: Mapping[str, str], digits: int = 4) -> str:
     r"""Render the columns of ``frame`` named in ``headers`` as a plain LaTeX ``tabular``.
 
@@ -200,24 +212,14 @@ def latex_table(frame: pd.DataFrame, headers: Mapping[str, str], digits: int = 4
     ``r``; special characters in labels and headers are escaped (:func:`latex_escape`) and a
     missing number is written ``--``.  Wrap it in a ``table`` environment for a caption.
 
-    Parameters
-    ----------
-    frame : DataFrame
-        A tidy frame, one row per table row.
-    headers : mapping of str to str
-        Columns of ``frame`` to show, in order, each with the header to print.
-    digits : int, default 4
-        Significant digits of every number.
+    %(table_parameters)s
 
     Returns
     -------
     str
         ``\begin{tabular}...\end{tabular}``.
 
-    Raises
-    ------
-    ParameterError
-        ``digits`` is not in 1..17, or ``headers`` names a column the frame lacks.
+    %(table_raises)s
 
     Examples
     --------
@@ -252,6 +254,7 @@ def latex_table(frame: pd.DataFrame, headers: Mapping[str, str], digits: int = 4
     )
 
 
+@_table_doc
 def html_table(
     frame: pd.DataFrame,
     headers: Mapping[str, str],
@@ -263,14 +266,7 @@ def html_table(
     Every style is written inline (:data:`TABLE_STYLE`, :data:`HEAD_STYLE`,
     :data:`CELL_STYLE`); the table loads nothing and needs no stylesheet.
 
-    Parameters
-    ----------
-    frame : DataFrame
-        A tidy frame, one row per table row.
-    headers : mapping of str to str
-        Columns of ``frame`` to show, in order, each with the header to print.
-    digits : int, default 4
-        Significant digits of every number.
+    %(table_parameters)s
     caption : str, optional
         A caption above the table (escaped).
 
@@ -279,10 +275,7 @@ def html_table(
     str
         One ``<table>`` element.
 
-    Raises
-    ------
-    ParameterError
-        ``digits`` is not in 1..17, or ``headers`` names a column the frame lacks.
+    %(table_raises)s
 
     Examples
     --------
@@ -357,6 +350,16 @@ def wald_headers(frame: pd.DataFrame, reference: str) -> dict[str, str]:
     return headers
 
 
+#: The opening of the Examples of :class:`ReportTables`: the result they render.
+_RESTRICTED_FIT_EXAMPLES = """\
+Examples
+--------
+>>> import lincomb as lc
+>>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+>>> res = f.restrict(lc.coef("line[T.L2]") == 0)"""
+_report_doc = fill_doc(restricted_fit_examples=_RESTRICTED_FIT_EXAMPLES)
+
+
 class ReportTables:
     """Markdown, LaTeX and standalone HTML tables of a result's tidy frame.
 
@@ -377,38 +380,32 @@ class ReportTables:
         frame = self._report_frame()
         return frame, {str(c): str(c) for c in frame.columns}
 
+    @_report_doc
     def as_markdown(self, digits: int = 4) -> str:
         """The result's tidy frame as a Markdown table, numbers to ``digits`` significant digits.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> print(f.restrict(lc.coef("line[T.L2]") == 0).as_markdown(digits=3).splitlines()[0])
+        %(restricted_fit_examples)s
+        >>> print(res.as_markdown(digits=3).splitlines()[0])
         | coefficient | estimate |    se |
         """
         return markdown_table(*self._report(), digits=digits)
 
+    @_report_doc
     def as_latex(self, digits: int = 4) -> str:
         """The result's tidy frame as a plain LaTeX ``tabular`` (labels escaped).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> f.restrict(lc.coef("line[T.L2]") == 0).as_latex().splitlines()[0]
+        %(restricted_fit_examples)s
+        >>> res.as_latex().splitlines()[0]
         '\\\\begin{tabular}{lrr}'
         """
         return latex_table(*self._report(), digits=digits)
 
+    @_report_doc
     def as_html(self, digits: int = 4) -> str:
         """The result's tidy frame as a standalone HTML table (inline styles only).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> f.restrict(lc.coef("line[T.L2]") == 0).as_html().startswith("<table")
+        %(restricted_fit_examples)s
+        >>> res.as_html().startswith("<table")
         True
         """
         return html_table(*self._report(), digits=digits)
