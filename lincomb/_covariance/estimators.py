@@ -116,6 +116,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
+from lincomb._covariance.cache import evaluate_once
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.specs import as_estimator
 from lincomb.errors import IncompatibleFitError
@@ -163,4 +164,4 @@ def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
                 " estimator (e.g. 'HC3' or lc.clustered(...)) so it is computed on this fit."
             )
         return covariance
-    return as_estimator(covariance).evaluate(fit)
+    return evaluate_once(fit, as_estimator(covariance))
