@@ -67,15 +67,16 @@ class _Kept:
 class _Entry:
     """The estimates of one design (held weakly)."""
 
-    __slots__ = ("design", "kept")
+    __slots__ = ("design", "kept", "finalizer")
 
-    def __init__(self, design: object) -> None:
+    def __init__(self, design: object, key: int) -> None:
         self.design = weakref.ref(design)
         self.kept: list[_Kept] = []
+        self.finalizer = weakref.finalize(design, _drop, key)
 
 
 _ENTRIES: dict[int, _Entry] = {}
-_LOCK = threading.Lock()
+_LOCK = threading.RLock()  # reentrant: a collected design may drop its entry while it is held
 
 
 def _drop(key: int) -> None:
@@ -83,15 +84,31 @@ def _drop(key: int) -> None:
         _ENTRIES.pop(key, None)
 
 
-def forget() -> None:
-    """Drop every remembered estimate (benchmarks use it to time the pass itself).
+def forget(fit: LinearFit | None = None) -> None:
+    """Drop the remembered estimates of ``fit`` (of every fit when None); benchmarks use it
+    to time the pass over the rows itself.
 
     Examples
     --------
-    >>> forget()
+    >>> import lincomb as lc
+    >>> from lincomb._covariance.specs import as_estimator
+    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    >>> first = evaluate_once(f, as_estimator("HC3"))
+    >>> forget(f)
+    >>> evaluate_once(f, as_estimator("HC3")) is first
+    False
     """
     with _LOCK:
-        _ENTRIES.clear()
+        if fit is None:
+            entries = list(_ENTRIES.values())
+            _ENTRIES.clear()
+        else:
+            entry = _ENTRIES.get(id(fit.design))
+            entries = [] if entry is None or entry.design() is not fit.design else [entry]
+            if entries:
+                del _ENTRIES[id(fit.design)]
+    for entry in entries:
+        entry.finalizer.detach()
 
 
 def _signature(est: Estimator) -> tuple[tuple[Any, ...], tuple[Any, ...]] | None:
@@ -172,9 +189,8 @@ def _keep(fit: LinearFit, item: _Kept) -> None:
     with _LOCK:
         entry = _ENTRIES.get(key)
         if entry is None or entry.design() is not design:
-            entry = _Entry(design)
+            entry = _Entry(design, key)
             _ENTRIES[key] = entry
-            weakref.finalize(design, _drop, key)
         entry.kept.append(item)
         del entry.kept[:-KEPT_PER_FIT]
 
