@@ -89,7 +89,9 @@ below, and other layers import them from there.
 * :mod:`~lincomb._covariance.estimate`: :class:`CovarianceEstimate`, the meat's factor and
   the rank check; :mod:`~lincomb._covariance.reference`: the reference distribution and df;
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
-  :mod:`~lincomb._covariance.given`: a supplied matrix.
+  :mod:`~lincomb._covariance.given`: a supplied matrix;
+* :mod:`~lincomb._covariance.cache`: each row-based estimate computed once per fit and
+  estimator, so repeated tests, intervals and tables do not visit the rows again.
 
 References
 ----------
