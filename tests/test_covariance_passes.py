@@ -27,7 +27,8 @@ import statsmodels.formula.api as smf
 
 import lincomb as lc
 from lincomb._covariance import cache
-from lincomb._covariance.in_memory import BLOCK_ELEMENTS
+from lincomb._covariance.in_memory import BLOCK_ELEMENTS, _limited
+from lincomb._covariance.meats import ClusterMeat
 from lincomb._fit.linear import fit_from_design
 from lincomb.errors import FewClustersWarning
 
@@ -40,13 +41,13 @@ def close(actual, desired, rtol: float = RTOL) -> None:
 
 @pytest.fixture(scope="module")
 def big() -> pd.DataFrame:
-    # seeded simulation: 60,000 rows; 300 firms, 40 years; 20,000 small cells of 3 rows
+    # seeded simulation: 60,000 rows; 300 firms, 40 years; about 14,000 small cells
     rng = np.random.default_rng(20261203)
     n = 60_000
     x1, x2 = rng.normal(size=n), rng.normal(size=n)
     firm = rng.integers(0, 300, size=n)
     year = rng.integers(0, 40, size=n)
-    cell = rng.permutation(np.repeat(np.arange(n // 3), 3))
+    cell = rng.integers(0, 14_000, size=n)
     e = (
         rng.normal(size=n) * (1 + 0.5 * np.abs(x1))
         + rng.normal(size=300)[firm] * 0.4
@@ -66,8 +67,12 @@ def big() -> pd.DataFrame:
     )
 
 
-def _blocked(f: lc.LinearFit) -> None:
+def _blocked(f: lc.LinearFit, clusters: int | None = None) -> None:
     assert f.n_obs > 2 * BLOCK_ELEMENTS // f.rank  # the blocked path runs
+    if clusters is not None:  # ... and the cluster pass visits several blocks
+        meat = ClusterMeat(f, ("g",), True, None, coded=(clusters,))
+        step, limited = _limited(f, meat)
+        assert limited and step < f.n_obs
 
 
 def _sm_cluster(big: pd.DataFrame, form: str, groups, weighted: bool):
@@ -82,10 +87,10 @@ def _sm_cluster(big: pd.DataFrame, form: str, groups, weighted: bool):
 @pytest.mark.parametrize("by", ["firm", "cell"])
 def test_blocked_one_way_cluster_against_statsmodels(big, by, weighted):
     # statsmodels cov_type="cluster" (use_correction=True) <-> clustered(by=...); "cell" has
-    # 20,000 clusters, more than a cache-sized block has rows: the blocks grow to 20,000 rows
+    # about 14,000 clusters: blocks grow to 4 rows per cluster (56,000 rows, two blocks)
     form = "y ~ x1 + x2 + C(year % 3)"
     f = lc.fit(form, big, weights="w" if weighted else None)
-    _blocked(f)
+    _blocked(f, big[by].nunique())
     sm = _sm_cluster(big, form, big[by].to_numpy(), weighted)
     cov = f.covariance(lc.clustered(by=by))
     names = list(sm.model.exog_names)
@@ -97,9 +102,9 @@ def test_blocked_one_way_cluster_against_statsmodels(big, by, weighted):
 def test_blocked_two_way_cluster_against_statsmodels(big):
     # statsmodels cov_type="cluster" with groups (firm, year): V₁ + V₂ − V₁₂, unclipped; the
     # meat is positive definite here, so nothing is clipped on our side either
-    form = "y ~ x1 + x2"
+    form = "y ~ x1 + x2 + C(firm % 3)"
     f = lc.fit(form, big, weights="w")
-    _blocked(f)
+    _blocked(f, big.groupby(["firm", "year"]).ngroups)  # the intersection cells
     sm = _sm_cluster(big, form, big[["firm", "year"]].to_numpy(), weighted=True)
     est = f.evaluate_covariance(lc.clustered(by=["firm", "year"]))
     assert est.clipped == 0 and est.groups == (300, 40)

@@ -72,7 +72,7 @@ def _limited(fit: LinearFit, meat: Any) -> tuple[int, bool]:
     limited = n >= 2 * step and on_main and can_limit()
     if not (limited and meat.row_blocks):
         return max(n, 1), limited
-    return max(step, meat.min_block_rows), limited
+    return max(step * meat.block_scale, meat.min_block_rows), limited
 
 
 def _over_rows_partial(
