@@ -14,9 +14,9 @@ estimator is asked for on the same fit again.  The fit object is not touched.
   data are its own), or an array or Series equal, element by element and in dtype, index and
   name, to a copy taken when the estimate was made.  An array changed in place after an
   estimate is therefore seen as a new estimator, never given a stale answer.  Comparing costs
-  one pass over the labels (a memory compare for numeric labels: about 50 µs at 100,000 rows,
-  far below the pass over the rows it saves); a column name or
-  :meth:`~lincomb.LinearFit.with_covariance` costs nothing per test.
+  one pass over the labels (measured at 100,000 rows: 0.08 ms for integer labels, 3 ms for
+  string labels in an object array; the pass over the rows it saves took 10-60 ms); a column
+  name or :meth:`~lincomb.LinearFit.with_covariance` costs nothing per test.
 
 The few-clusters warning an estimate drew is drawn again each time the estimate is reused, so a
 call warns exactly as it would without the cache.  Classical and supplied (:func:`~lincomb.given`)
@@ -124,6 +124,10 @@ def _signature(est: Estimator) -> tuple[tuple[Any, ...], tuple[Any, ...]] | None
     return None
 
 
+#: The snapshot of a source that cannot be compared by value (its estimate is not kept).
+_UNKNOWN = object()
+
+
 def _snapshot(source: Any) -> Any:
     """A copy of a per-row source that later calls are compared with (None: not comparable,
     the estimate is not kept)."""
@@ -134,9 +138,6 @@ def _snapshot(source: Any) -> Any:
     if isinstance(source, (np.ndarray, list, tuple)):
         return np.array(source, copy=True)
     return _UNKNOWN
-
-
-_UNKNOWN = object()
 
 
 def _same(kept: Any, source: Any) -> bool:
