@@ -31,7 +31,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
-from lincomb._covariance.meats import LEVERAGE_TOL, Partial, _Meat
+from lincomb._covariance.meats import LEVERAGE_TOL, Partial, _group_sum, _Meat
 
 __all__ = ["ClusterBlocks", "ClusterPieces", "ClusterBlockMeat", "adjustment"]
 
@@ -126,10 +126,11 @@ class ClusterBlockMeat(_Meat):
         keys = np.concatenate([b.keys for b in blocks])
         codes, uniq = pd.factorize(keys, sort=False)
         g, k = len(uniq), blocks[0].grams.shape[1]
-        grams = np.zeros((g, k, k))
-        sums = np.zeros((g, k))
-        np.add.at(grams, codes, np.concatenate([b.grams for b in blocks]))
-        np.add.at(sums, codes, np.concatenate([b.sums for b in blocks]))
+        codes = codes.astype(np.intp)
+        ones = np.ones(codes.size)
+        stacked = np.concatenate([b.grams for b in blocks]).reshape(codes.size, k * k)
+        grams = _group_sum(codes, g, ones, stacked).reshape(g, k, k)
+        sums = _group_sum(codes, g, ones, np.concatenate([b.sums for b in blocks]))
         return Partial(
             sum(p.n for p in parts),
             math.fsum(p.rss for p in parts),

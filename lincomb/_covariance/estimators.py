@@ -89,7 +89,9 @@ below, and other layers import them from there.
 * :mod:`~lincomb._covariance.estimate`: :class:`CovarianceEstimate`, the meat's factor and
   the rank check; :mod:`~lincomb._covariance.reference`: the reference distribution and df;
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
-  :mod:`~lincomb._covariance.given`: a supplied matrix.
+  :mod:`~lincomb._covariance.given`: a supplied matrix;
+* :mod:`~lincomb._covariance.cache`: each row-based estimate computed once per fit and
+  estimator, so repeated tests, intervals and tables do not visit the rows again.
 
 References
 ----------
@@ -116,6 +118,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
+from lincomb._covariance.cache import evaluate_once
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.specs import as_estimator
 from lincomb.errors import IncompatibleFitError
@@ -163,4 +166,4 @@ def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
                 " estimator (e.g. 'HC3' or lc.clustered(...)) so it is computed on this fit."
             )
         return covariance
-    return as_estimator(covariance).evaluate(fit)
+    return evaluate_once(fit, as_estimator(covariance))

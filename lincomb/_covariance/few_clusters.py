@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+import contextlib
 import inspect
 import os
+import threading
 import warnings
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from typing import Any
 
 from lincomb.errors import FewClustersWarning
 
-__all__ = ["FEW_CLUSTERS", "REMEDIES", "warn_few_clusters"]
+__all__ = ["FEW_CLUSTERS", "REMEDIES", "recorded_warnings", "warn_few_clusters"]
 
 #: Fewer clusters than this draw a :class:`~lincomb.errors.FewClustersWarning`.
 FEW_CLUSTERS: int = 30
@@ -37,6 +40,8 @@ def warn_few_clusters(names: Sequence[str], sizes: Sequence[int], remedies: bool
     """
     few = [f"{nm} ({g})" for nm, g in zip(names, sizes, strict=True) if g < FEW_CLUSTERS]
     if few:
+        for seen in getattr(_RECORDERS, "stack", ()):
+            seen.append((tuple(names), tuple(sizes), remedies))
         warnings.warn(
             f"few clusters: {', '.join(few)}. Cluster-robust tests lean on many clusters;"
             f" with fewer than {FEW_CLUSTERS} their size can be far from nominal. Read the"
@@ -45,6 +50,36 @@ def warn_few_clusters(names: Sequence[str], sizes: Sequence[int], remedies: bool
             FewClustersWarning,
             stacklevel=_user_stacklevel(),
         )
+
+
+_RECORDERS = threading.local()
+
+
+@contextlib.contextmanager
+def recorded_warnings() -> Iterator[list[tuple[Any, ...]]]:
+    """Collect the arguments of every few-clusters warning drawn in this thread inside the
+    block (the warnings are drawn as usual), so that a remembered estimate can draw them again
+    (see :mod:`lincomb._covariance.cache`).
+
+    Examples
+    --------
+    >>> import warnings
+    >>> with warnings.catch_warnings():
+    ...     warnings.simplefilter("ignore")
+    ...     with recorded_warnings() as drawn:
+    ...         warn_few_clusters(["site"], [12])
+    >>> drawn
+    [(('site',), (12,), True)]
+    """
+    stack = getattr(_RECORDERS, "stack", None)
+    if stack is None:
+        stack = _RECORDERS.stack = []
+    seen: list[tuple[Any, ...]] = []
+    stack.append(seen)
+    try:
+        yield seen
+    finally:
+        stack.pop()  # blocks nest within a thread: the last one is this one
 
 
 def _user_stacklevel() -> int:

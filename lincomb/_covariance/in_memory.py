@@ -62,39 +62,67 @@ def automatic_lag(n: int) -> int:
     return int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0)))
 
 
+def _limited(fit: LinearFit, meat: Any) -> tuple[int, bool]:
+    """Rows per block, and whether to run on one BLAS thread (a large fit on the main thread
+    with threadpoolctl: threads woken for small products cost more than the products on busy
+    cores, and limits set by concurrent threads would race)."""
+    n, kept = fit.n_obs, max(int(fit.solution.rank), 1)
+    step = max(_MIN_ROWS, BLOCK_ELEMENTS // kept)
+    on_main = threading.current_thread() is threading.main_thread()
+    limited = n >= 2 * step and on_main and can_limit()
+    if not (limited and meat.row_blocks):
+        return max(n, 1), limited
+    return max(step * meat.block_scale, meat.min_block_rows), limited
+
+
 def _over_rows_partial(
     meat: Any,
     fit: LinearFit,
     labels: tuple[NDArray[Any], ...] = (),
     order: NDArray[np.intp] | None = None,
+    step: int | None = None,
 ) -> Any:
-    """The merged partial of ``meat.block`` over blocks of the fit's rows (in ``order`` if
-    given; ``meat.finish`` of it is the estimate), on one BLAS thread when the fit is large
-    (threads woken for small products cost more than the products on busy cores)."""
+    """The merged partial of ``meat.block`` over blocks of ``step`` of the fit's rows (in
+    ``order`` if given; ``meat.finish`` of it is the estimate); by default the blocks and BLAS
+    threads of :func:`_limited`."""
+    if step is None:
+        step, limited = _limited(fit, meat)
+        with blas_limit(1) if limited else contextlib.nullcontext():
+            return _over_rows_partial(meat, fit, labels, order, step)
     x, y, w = fit_rows(fit)
     rmap = RowMap.of(fit.solution)
-    n = x.shape[0]
-    step = max(_MIN_ROWS, BLOCK_ELEMENTS // max(rmap.kept.size, 1))
-    on_main = threading.current_thread() is threading.main_thread()
-    limited = n >= 2 * step and on_main and can_limit()
-    if not (limited and meat.row_blocks):
-        step = max(n, 1)
+    parts = []
+    for s in range(0, x.shape[0], step):
+        rows: slice | NDArray[np.intp] = (
+            slice(s, s + step) if order is None else order[s : s + step]
+        )
+        xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
+        weights = None if w is None else w[rows]
+        parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
+    return meat.merge(*parts)
+
+
+def _over_rows(
+    meat: Any,
+    fit: LinearFit,
+    labels: tuple[NDArray[Any], ...] = (),
+    order: NDArray[np.intp] | None = None,
+) -> CovarianceEstimate:
+    """The estimate ``meat.finish`` of the merged partial over blocks of the fit's rows; the
+    finish (a solve with one right-hand side per cluster, a small eigendecomposition) runs on
+    the same BLAS threads as the blocks."""
+    step, limited = _limited(fit, meat)
     with blas_limit(1) if limited else contextlib.nullcontext():
-        parts = []
-        for s in range(0, n, step):
-            rows: slice | NDArray[np.intp] = (
-                slice(s, s + step) if order is None else order[s : s + step]
-            )
-            xc, resid = rmap.rows(x[rows], y[rows], fortran=meat.fortran)
-            weights = None if w is None else w[rows]
-            parts.append(meat.block(xc, resid, weights, tuple(lab[rows] for lab in labels)))
-        return meat.merge(*parts)
+        estimate: CovarianceEstimate = meat.finish(
+            _over_rows_partial(meat, fit, labels, order, step)
+        )
+    return estimate
 
 
 def heteroskedastic(fit: LinearFit, kind: str) -> CovarianceEstimate:
     """``HC0`` ... ``HC4`` on an in-memory fit."""
     meat = HeteroskedasticMeat(fit, kind)
-    return meat.finish(_over_rows_partial(meat, fit))
+    return _over_rows(meat, fit)
 
 
 def clustered(
@@ -107,13 +135,19 @@ def clustered(
     """One- or two-way cluster-robust covariance on an in-memory fit."""
     codes = []
     names = []
+    sizes = []
     for b in by:
         values, name = row_values(fit, b, "cluster labels")
-        c, _ = cluster_codes(fit, values, name)
+        c, g = cluster_codes(fit, values, name)
         codes.append(c)
         names.append(name)
-    meat = ClusterMeat(fit, tuple(names), small_sample, df, two_way_factor)
-    return meat.finish(_over_rows_partial(meat, fit, tuple(codes)))
+        sizes.append(g)
+    if len(codes) == 2:  # the intersection cells, coded once for all blocks
+        cells, uniq = pd.factorize(codes[0].astype(np.int64) * sizes[1] + codes[1], sort=False)
+        codes.append(cells.astype(np.intp))
+        sizes.append(len(uniq))
+    meat = ClusterMeat(fit, tuple(names), small_sample, df, two_way_factor, coded=tuple(sizes))
+    return _over_rows(meat, fit, tuple(codes))
 
 
 def adjusted_clustered(
@@ -123,7 +157,7 @@ def adjusted_clustered(
     values, name = row_values(fit, by, "cluster labels")
     codes, _ = cluster_codes(fit, values, name)
     meat = AdjustedClusterMeat(fit, name, adjust, df)
-    return meat.finish(_over_rows_partial(meat, fit, (codes,)))
+    return _over_rows(meat, fit, (codes,))
 
 
 def serial(
@@ -152,7 +186,7 @@ def serial(
         values, order_name = row_values(fit, order, "time order")
         perm = time_order(fit, values, order_name)
     meat = SerialMeat(fit, lag, order_name, small_sample, df)
-    return meat.finish(_over_rows_partial(meat, fit, order=perm))
+    return _over_rows(meat, fit, order=perm)
 
 
 def _serial_within(
@@ -189,7 +223,7 @@ def _serial_within(
             f" rule gives {automatic_lag(longest)}."
         )
     meat = UnitSerialMeat(fit, lag, (tname, uname), small_sample, df, g)
-    return meat.finish(_over_rows_partial(meat, fit, (ucodes,), order=perm))
+    return _over_rows(meat, fit, (ucodes,), order=perm)
 
 
 def common_shocks(
@@ -200,4 +234,4 @@ def common_shocks(
     values, name = row_values(fit, time, "time")
     refuse_missing(fit, values, f"time {name!r} is", "every row used needs a time value.")
     meat = TimeSumMeat(fit, lag, name, small_sample, df)
-    return meat.finish(_over_rows_partial(meat, fit, (values,)))
+    return _over_rows(meat, fit, (values,))

@@ -119,6 +119,32 @@ def leverage_weights(kind: str, zt: Array, n_obs: int, k: int) -> Array:
         return np.where(exact, 0.0, np.power(np.where(exact, 1.0, free), -power))
 
 
+def _root_weights(kind: str, zt: Array, n_obs: int, k: int) -> Array:
+    """Square roots of :func:`leverage_weights` (the same rule, without ``pow`` where the
+    power is fixed): each working row is scaled by it before its outer product is summed."""
+    if kind == "HC4":
+        return np.sqrt(leverage_weights(kind, zt, n_obs, k))
+    h = np.einsum("ij,ij->j", zt, zt)
+    free = 1.0 - h
+    exact = free <= LEVERAGE_TOL
+    free[exact] = 1.0
+    out: Array = np.reciprocal(free if kind == "HC3" else np.sqrt(free, out=free))
+    out[exact] = 0.0
+    return out
+
+
+def _scaled_gram(zt: Array, scale: Array) -> Array:
+    """``Σ_i scale_i² z_i z_iᵀ`` for working rows ``zt`` (k, b), scaled in place (``zt`` is the
+    block's own array): one symmetric rank-b update (BLAS ``syrk``), half the arithmetic of a
+    general product and no ``k × b`` temporary."""
+    if zt.shape[0] == 0:
+        return np.zeros((0, 0))
+    zt *= scale
+    z = zt.T  # (b, k), column-major when zt is row-major: syrk reads it without a copy
+    upper = np.asarray(sla.blas.dsyrk(1.0, z, trans=1))
+    return np.triu(upper) + np.triu(upper, 1).T
+
+
 def _weighted(xc: Array, resid: Array, w: Array | None) -> tuple[Array, Array]:
     """``sqrt(w)·X_c`` (in place: ``xc`` is the block's own copy) and ``sqrt(w)·e``."""
     if w is None:
@@ -197,11 +223,14 @@ class _Meat:
     """What every meat shares: the fit's solution, its row count and rank.
 
     ``fortran``: the block's rows are wanted column-major (for a solve from the right);
-    ``row_blocks``: an in-memory fit gains from visiting its rows in cache-sized blocks.
+    ``row_blocks``: an in-memory fit gains from visiting its rows in blocks of ``block_scale``
+    cache-sized blocks, and of at least ``min_block_rows`` rows.
     """
 
     fortran = True
     row_blocks = True
+    block_scale = 1
+    min_block_rows = 0
 
     def __init__(self, fit: Any) -> None:
         self.sol: core.Solution = fit.solution
@@ -264,10 +293,10 @@ class HeteroskedasticMeat(_Meat):
         """The block's ``Σ ω_i z_i z_iᵀ`` (HC1's factor is applied at the end)."""
         xc, resid = _weighted(xc, resid, w)
         zt = _working(self.rs, xc)
-        omega = resid * resid
+        scale = np.abs(resid)  # ω_i = scale_i²
         if self.kind in ("HC2", "HC3", "HC4"):
-            omega *= leverage_weights(self.kind, zt, self.n_obs, self.k)
-        return Partial(resid.size, float(resid @ resid), (zt * omega) @ zt.T)
+            scale *= _root_weights(self.kind, zt, self.n_obs, self.k)
+        return Partial(resid.size, float(resid @ resid), _scaled_gram(zt, scale))
 
     def merge(self, *parts: Partial) -> Partial:
         gram = parts[0].gram
@@ -315,9 +344,13 @@ def _group_sum(codes: NDArray[np.intp], g: int, weights: Array, values: Array) -
 class ClusterMeat(_Meat):
     """One- and two-way cluster-robust meats as block / merge / finish.
 
-    ``names`` are the clustering variables' names (for labels and messages).  An in-memory
-    fit gives its rows as one block: the meat needs no solve per row, and labelling many
-    small blocks (a hash table each) cost more than it saved.
+    ``names`` are the clustering variables' names (for labels and messages).  Blocks of rows
+    from chunks or partitions carry raw labels, coded per block (a hash table each).  An
+    in-memory fit codes its labels once and passes ``coded``, the number of clusters of each
+    way (two-way: first, second and intersection cells); its blocks then carry those codes,
+    each block's score sums form a dense ``G × k`` array (one sparse indicator product), and
+    merging adds them.  Blocks hold at least ``4 · max(coded)`` rows, so that no block's sums
+    outgrow a quarter of its rows.
     """
 
     fortran = False
@@ -330,12 +363,23 @@ class ClusterMeat(_Meat):
         small_sample: bool,
         df: float | None,
         two_way_factor: str = "per-term",
+        coded: tuple[int, ...] = (),
     ) -> None:
         super().__init__(fit)
         self.names = names
         self.small_sample = small_sample
         self.df = df
         self.two_way_factor = two_way_factor
+        self.coded = coded
+        if coded:
+            # no solve per row to keep in cache: larger blocks (4 cache-sized ones, and 4 rows
+            # per cluster) spread the sparse product's fixed cost and its G × k output; at
+            # n = 1e5, k = 20, G = 1,000 the pass took 0.30 of the fit's time against 0.38 with
+            # cache-sized blocks (one thread, busy cores), as fast as one block of all rows
+            self.row_blocks = True
+            self.block_scale = 4
+            self.min_block_rows = 4 * max(coded)
+            self._keys = tuple((np.arange(g),) for g in coded)
 
     def block(
         self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
@@ -344,17 +388,32 @@ class ClusterMeat(_Meat):
         cell of the two labellings)."""
         u = resid if w is None else resid * w  # w_i e_i: the score is u_i x_c,i
         rss = float(resid @ u)
+        if self.coded:
+            groups = tuple(
+                Groups(keys, _group_sum(codes, g, u, xc))
+                for keys, codes, g in zip(self._keys, labels, self.coded, strict=True)
+            )
+            return Partial(resid.size, rss, groups=groups)
         ways: list[tuple[NDArray[Any], ...]] = [(lab,) for lab in labels]
         if len(labels) == 2:
             ways.append((labels[0], labels[1]))
-        groups = []
-        for keys in ways:
-            codes, uniq = _codes(keys)
-            groups.append(Groups(uniq, _group_sum(codes, len(uniq[0]), u, xc)))
-        return Partial(resid.size, rss, groups=tuple(groups))
+        groups_: list[Groups] = []
+        for keys_ in ways:
+            codes_, uniq = _codes(keys_)
+            groups_.append(Groups(uniq, _group_sum(codes_, len(uniq[0]), u, xc)))
+        return Partial(resid.size, rss, groups=tuple(groups_))
 
     def merge(self, *parts: Partial) -> Partial:
-        return _merge_groups(parts)
+        if not self.coded or len(parts) == 1:
+            return _merge_groups(parts)
+        groups = []
+        for j, keys in enumerate(self._keys):
+            sums = parts[0].groups[j].sums.copy()
+            for p in parts[1:]:
+                sums += p.groups[j].sums
+            groups.append(Groups(keys, sums))
+        rss = math.fsum(p.rss for p in parts)
+        return Partial(sum(p.n for p in parts), rss, groups=tuple(groups))
 
     def _meat(self, groups: Groups) -> tuple[Array, float]:
         n, k, g = self.n_obs, self.k, len(groups)
