@@ -15,6 +15,7 @@ which builds on it); other layers see formulaic's model spec only through this c
 from __future__ import annotations
 
 import difflib
+import functools
 import re
 import warnings
 from collections.abc import Callable, Mapping, Sequence
@@ -687,7 +688,7 @@ class FormulaEncoder:
             cols.append(weights)
         if not cols:
             return len(frame)
-        return int((~frame[cols].isna().to_numpy().any(axis=1)).sum())
+        return len(frame) - int(_na_mask(frame, cols, None).sum())
 
     @staticmethod
     def check_response(formula: str, sample: pd.DataFrame, where: str | None = None) -> None:
@@ -887,16 +888,29 @@ class FormulaEncoder:
         keep_frame: bool,
     ) -> EncodedRows:
         """Validate encoded matrices into arrays (the one place rows are checked)."""
-        x = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
+        x = _float_columns(rhs)
         if x.shape[1] != self.index.p:  # pragma: no cover - the spec fixes the columns
             raise InputError(
                 f"{_prefix(where)}encoded to {x.shape[1]} columns instead of {self.index.p}."
             )
+        y = None if lhs is None else np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+        return self._checked(x, y, sub, w, dropped, rows_read, where, keep_frame)
+
+    def _checked(
+        self,
+        x: NDArray[np.float64],
+        y: NDArray[np.float64] | None,
+        sub: pd.DataFrame,
+        w: pd.Series | None,
+        dropped: pd.Index,
+        rows_read: int,
+        where: str | None,
+        keep_frame: bool,
+    ) -> EncodedRows:
+        """Check new design and response arrays of the rows ``sub`` (finite values, weights)."""
         rows = sub.index
         _check_finite(x, f"{_prefix(where)}design", self.index.names, rows)
-        y = None
-        if lhs is not None:
-            y = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+        if y is not None:
             _check_finite(y, f"{_prefix(where)}response {self.response!r}", None, rows)
         wa = None
         if w is not None:
@@ -1036,28 +1050,57 @@ class FormulaEncoder:
 # -- helpers -----------------------------------------------------------------------------------
 
 
-def _required(formula: str, frame: pd.DataFrame) -> list[str]:
-    """Columns of ``frame`` that ``formula`` reads."""
+def _float_columns(frame: pd.DataFrame) -> NDArray[np.float64]:
+    """A new Fortran-ordered float64 array of ``frame``'s values, filled column by column: one
+    copy, and never a view of the caller's data (a frame's ``to_numpy`` may return one)."""
+    x = np.empty(frame.shape, order="F")
+    for j, (_, col) in enumerate(frame.items()):
+        v = col.to_numpy()
+        x[:, j] = v if v.dtype.kind in "biuf" else col.to_numpy(dtype=np.float64)
+    return x
+
+
+@functools.lru_cache(maxsize=256)
+def _formula_variables(target: str) -> tuple[str, ...]:
+    """Variables a formula reads (parsing is a pure function of the text: cached)."""
     import formulaic
 
+    return tuple(str(v) for v in formulaic.Formula(target).required_variables)
+
+
+def _required(formula: str, frame: pd.DataFrame) -> list[str]:
+    """Columns of ``frame`` that ``formula`` reads."""
     lhs, rhs = _split(formula)
     target = f"{lhs} ~ {rhs}" if lhs else (rhs or "1")
     try:
-        required = formulaic.Formula(target).required_variables
+        required = _formula_variables(target)
     except Exception as exc:
         raise InputError(
             f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(frame)
         ) from None
-    return sorted(str(v) for v in required if v in frame.columns)
+    return sorted(v for v in required if v in frame.columns)
 
 
 def _na_mask(
     frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
 ) -> NDArray[np.bool_]:
-    cols = [c for c in variables if c in frame.columns]
+    """Rows with a missing value in ``variables`` (or the weights), column by column: no
+    frame of the columns is assembled, and numpy columns that cannot hold one are skipped."""
     na = np.zeros(len(frame), dtype=bool)
-    if cols:
-        na |= frame[cols].isna().to_numpy().any(axis=1)
+    for c in variables:
+        if c not in frame.columns:
+            continue
+        col = frame[c]
+        if isinstance(col, pd.DataFrame):  # a name used twice (refused later, with its name)
+            na |= col.isna().to_numpy().any(axis=1)
+            continue
+        dt = col.dtype
+        if isinstance(dt, np.dtype) and dt.kind in "biu":
+            continue
+        if isinstance(dt, np.dtype) and dt.kind == "f":
+            na |= np.isnan(col.to_numpy())
+        else:
+            na |= col.isna().to_numpy(dtype=bool)
     if w is not None:
         na |= w.isna().to_numpy()
     return na
