@@ -19,13 +19,14 @@ import functools
 import re
 import warnings
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._model.column_plan import ColumnPlan
 from lincomb._model.design import (
     CoefficientIndex,
     _check_finite,
@@ -426,6 +427,7 @@ class FormulaEncoder:
     unused_levels: dict[str, tuple[Any, ...]] = field(default_factory=dict)
     _response_variables: tuple[str, ...] = field(default=(), repr=False, compare=False)
     _spec: Any = field(default=None, repr=False, compare=False)
+    _columns: ColumnPlan | None = field(default=None, repr=False, compare=False)
 
     # -- construction ------------------------------------------------------------------------
     @classmethod
@@ -441,6 +443,7 @@ class FormulaEncoder:
         keep_frame: bool = False,
         note_unused: bool = False,
         require_rows: bool = False,
+        column_plan: bool = False,
     ) -> tuple[FormulaEncoder, EncodedRows]:
         """Fix the encoding on ``data`` and encode its rows, in one formulaic pass.
 
@@ -453,6 +456,10 @@ class FormulaEncoder:
         categories of a categorical column that no row used holds (left over from subsetting)
         are recorded in :attr:`unused_levels`: their columns stay (so fits of parts of the data
         code alike and combine) but are aliased, and a test touching them names them.
+        With ``column_plan`` (for encoders that will encode many frames, e.g. the chunks of a
+        chunked fit), the encoder keeps a :class:`~lincomb._model.column_plan.ColumnPlan` if
+        the formula allows one and it reproduces formulaic's design of ``data`` exactly;
+        :meth:`encode` then builds the design without formulaic's fixed cost per call.
 
         Examples
         --------
@@ -559,6 +566,15 @@ class FormulaEncoder:
         rows = encoder._finish(
             rhs_mm, mm.lhs if lhs else None, sub, w, data.index[na], len(data), where, keep_frame
         )
+        if column_plan and len(sub):
+            plan = ColumnPlan.build(rhs_spec, spec.lhs if lhs else None, sub, rows.x)
+            got = None if plan is None else plan.columns(sub)
+            if (
+                got is not None
+                and _same_bits(got[0], rows.x)
+                and (rows.y is None or (got[1] is not None and _same_bits(got[1], rows.y)))
+            ):
+                encoder = replace(encoder, _columns=plan)
         return encoder, rows
 
     @classmethod
@@ -853,6 +869,9 @@ class FormulaEncoder:
             y = None if self.response is None else np.zeros(0)
             wz = None if w is None else np.zeros(0)
             return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
+        direct = None if self._columns is None else self._columns.columns(sub)
+        if direct is not None:  # the same numbers as formulaic's (see ColumnPlan)
+            return self._checked(*direct, sub, w, dropped, len(frame), where, keep_frame)
         mm = self._model_matrix(
             self._spec,
             sub,
@@ -1048,6 +1067,11 @@ class FormulaEncoder:
 
 
 # -- helpers -----------------------------------------------------------------------------------
+
+
+def _same_bits(a: NDArray[np.float64], b: NDArray[np.float64]) -> bool:
+    """Equal float64 arrays to the last bit (the sign of a zero included)."""
+    return a.shape == b.shape and bool(np.array_equal(a.view(np.uint64), b.view(np.uint64)))
 
 
 def _float_columns(frame: pd.DataFrame) -> NDArray[np.float64]:
