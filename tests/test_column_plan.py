@@ -210,7 +210,10 @@ def test_fit_chunks_equals_the_chunked_fit_through_formulaic(monkeypatch) -> Non
     df = _data()
     formula = "y ~ C(g, contr.sum) * x1 + h + xi"
     parts = [df.iloc[s : s + CHUNK] for s in range(0, N, CHUNK)]
+    before = [p.copy(deep=True) for p in parts]
     with_plan = lc.fit_chunks(formula, parts)
+    for part, kept in zip(parts, before, strict=True):
+        pd.testing.assert_frame_equal(part, kept)  # inputs are never mutated
     assert with_plan.design.encoder._columns is not None
     monkeypatch.setattr(column_plan.ColumnPlan, "build", classmethod(lambda *a: None))
     without = lc.fit_chunks(formula, parts)

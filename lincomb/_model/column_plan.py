@@ -293,7 +293,8 @@ def _sample_tables(
     design: NDArray[np.float64],
 ) -> dict[int, tuple[NDArray[np.float64], NDArray[np.bool_]]]:
     """Tables of the terms of one factor and no numeric column whose every level ``sample``
-    holds, read from ``design`` (formulaic's design of ``sample``) at a row of each level."""
+    holds, read from ``design`` (formulaic's design of ``sample``) at a row of each level: such
+    a term's value is its factor's coded value, the same on every row of a level."""
     out: dict[int, tuple[NDArray[np.float64], NDArray[np.bool_]]] = {}
     first: dict[str, NDArray[np.intp] | None] = {}
     for i, t in enumerate(terms):
@@ -305,8 +306,8 @@ def _sample_tables(
             rows = None
             if codes is not None and len(codes) and int(codes.min()) >= 0:
                 at = np.full(len(levels[c]), -1, dtype=np.intp)
-                at[codes[::-1]] = np.arange(len(codes) - 1, -1, -1)  # first row of each level
-                rows = at if int(at.min()) >= 0 else None
+                at[codes] = np.arange(len(codes))  # a row of each level (any: the value is the
+                rows = at if int(at.min()) >= 0 else None  # level's, whatever the row)
             first[c] = rows
         rows = first[c]
         if rows is not None:
