@@ -564,7 +564,14 @@ class FormulaEncoder:
             _spec=spec,
         )
         rows = encoder._finish(
-            rhs_mm, mm.lhs if lhs else None, sub, w, data.index[na], len(data), where, keep_frame
+            rhs_mm,
+            mm.lhs if lhs else None,
+            sub,
+            _kept(w, na),
+            data.index[na],
+            len(data),
+            where,
+            keep_frame,
         )
         if column_plan and len(sub):
             plan = ColumnPlan.build(rhs_spec, spec.lhs if lhs else None, sub, rows.x)
@@ -871,7 +878,7 @@ class FormulaEncoder:
             return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
         direct = None if self._columns is None else self._columns.columns(sub)
         if direct is not None:  # the same numbers as formulaic's (see ColumnPlan)
-            return self._checked(*direct, sub, w, dropped, len(frame), where, keep_frame)
+            return self._checked(*direct, sub, _kept(w, na), dropped, len(frame), where, keep_frame)
         mm = self._model_matrix(
             self._spec,
             sub,
@@ -888,7 +895,7 @@ class FormulaEncoder:
             mm.rhs if two else mm,
             mm.lhs if two else None,
             sub,
-            w,
+            _kept(w, na),
             dropped,
             len(frame),
             where,
@@ -926,18 +933,15 @@ class FormulaEncoder:
         where: str | None,
         keep_frame: bool,
     ) -> EncodedRows:
-        """Check new design and response arrays of the rows ``sub`` (finite values, weights)."""
+        """Check new design and response arrays of the rows ``sub`` (finite values, weights
+        ``w``, one per row of ``sub``)."""
         rows = sub.index
         _check_finite(x, f"{_prefix(where)}design", self.index.names, rows)
         if y is not None:
             _check_finite(y, f"{_prefix(where)}response {self.response!r}", None, rows)
         wa = None
         if w is not None:
-            wa = (
-                w.loc[rows].to_numpy(dtype=np.float64, copy=True)
-                if len(w) != len(rows)
-                else (w.to_numpy(dtype=np.float64, copy=True))
-            )
+            wa = w.to_numpy(dtype=np.float64, copy=True)
             _validate_weights(wa, rows)
         return EncodedRows(x, y, wa, rows, dropped, rows_read, sub if keep_frame else None)
 
@@ -1067,6 +1071,11 @@ class FormulaEncoder:
 
 
 # -- helpers -----------------------------------------------------------------------------------
+
+
+def _kept(w: pd.Series | None, na: NDArray[np.bool_]) -> pd.Series | None:
+    """The weights of the rows kept, by position (row labels may repeat)."""
+    return w if w is None or not na.any() else w[~na]
 
 
 def _same_bits(a: NDArray[np.float64], b: NDArray[np.float64]) -> bool:
