@@ -206,8 +206,8 @@ def report(res: dict[str, Any]) -> str:
         f"  throughput chunked / in-memory QR: {res['throughput_ratio_chunked_over_qr']:.2f}"
         f" (target >= {res['target_throughput_ratio']})",
         f"  DataFrame chunks with a formula (fit_chunks): {res['frame_chunks_lincomb_s']:.3f} s"
-        f" in lincomb (ratio {res['frame_chunks_throughput_ratio']:.2f}; formulaic encodes every"
-        " chunk)",
+        f" in lincomb (ratio {res['frame_chunks_throughput_ratio']:.2f}; formulaic encodes the"
+        " first chunk, a column plan the others)",
         f"  peak memory of a pass: n = {res['n_main']:,}: {res['peak_main_bytes'] / mib:.1f} MiB;"
         f" n = {res['n_second']:,}: {res['peak_second_bytes'] / mib:.1f} MiB"
         f" (ratio {res['peak_ratio_second_over_main']:.3f}; target within 10 %)",

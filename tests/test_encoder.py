@@ -205,3 +205,20 @@ def test_only_the_model_layer_imports_formulaic() -> None:
         "import formulaic" in p.read_text(encoding="utf-8")
         for p in (PACKAGE / "_model").glob("*.py")
     )
+
+
+def test_repeated_row_labels_with_weights_and_missing_values() -> None:
+    # identity: row labels name rows, they do not weigh them; the same rows with unique labels
+    # are the reference (before, repeated labels made the weights of the kept rows misaligned)
+    rng = np.random.default_rng(12)
+    df = pd.DataFrame(
+        {"y": rng.normal(size=12), "x": rng.normal(size=12), "w": rng.uniform(1, 3, 12)},
+        index=np.repeat([0, 1, 2, 3], 3),
+    )
+    df.iloc[[2, 7], 1] = np.nan
+    fit = lc.fit("y ~ x", df, weights="w")
+    ref = lc.fit("y ~ x", df.reset_index(drop=True), weights="w")
+    assert fit.n_obs == ref.n_obs == 10
+    np.testing.assert_array_equal(fit.coefficients.to_numpy(), ref.coefficients.to_numpy())
+    chunked = fit_chunks("y ~ x", [df.iloc[:6], df.iloc[6:]], weights="w")
+    np.testing.assert_allclose(chunked.coefficients, ref.coefficients, rtol=1e-12)

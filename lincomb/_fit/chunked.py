@@ -19,6 +19,9 @@ later chunk with a level the encoding lacks raises :class:`~lincomb.errors.Unsee
 every level up front to avoid it.  A level declared but absent from every chunk gives an
 all-zero, aliased column.  Stateful transforms (``center(x)``, ``scale(x)``, ``poly(x)``,
 ``bs(x)``...) are refused: their state (a mean, knots) would come from the first chunk alone.
+Where the formula allows it, later chunks are encoded from a column plan
+(:class:`lincomb._model.column_plan.ColumnPlan`: formulaic's values per level, checked against
+the first chunk's design to the last bit) instead of a formulaic call per chunk.
 
 Missing values
 --------------
@@ -291,7 +294,13 @@ def fit_chunks(
                     p.record(len(frame), 0, frame.index)
                     continue
                 encoder, enc = FormulaEncoder.learn(
-                    formula, frame, levels=levels, weights=weights, missing=missing, where=where
+                    formula,
+                    frame,
+                    levels=levels,
+                    weights=weights,
+                    missing=missing,
+                    where=where,
+                    column_plan=True,
                 )
                 encoder.check_stateless()
                 recipe = FrameRows(encoder, weights, missing)

@@ -15,16 +15,18 @@ which builds on it); other layers see formulaic's model spec only through this c
 from __future__ import annotations
 
 import difflib
+import functools
 import re
 import warnings
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._model.column_plan import ColumnPlan
 from lincomb._model.design import (
     CoefficientIndex,
     _check_finite,
@@ -425,6 +427,7 @@ class FormulaEncoder:
     unused_levels: dict[str, tuple[Any, ...]] = field(default_factory=dict)
     _response_variables: tuple[str, ...] = field(default=(), repr=False, compare=False)
     _spec: Any = field(default=None, repr=False, compare=False)
+    _columns: ColumnPlan | None = field(default=None, repr=False, compare=False)
 
     # -- construction ------------------------------------------------------------------------
     @classmethod
@@ -440,6 +443,7 @@ class FormulaEncoder:
         keep_frame: bool = False,
         note_unused: bool = False,
         require_rows: bool = False,
+        column_plan: bool = False,
     ) -> tuple[FormulaEncoder, EncodedRows]:
         """Fix the encoding on ``data`` and encode its rows, in one formulaic pass.
 
@@ -452,6 +456,10 @@ class FormulaEncoder:
         categories of a categorical column that no row used holds (left over from subsetting)
         are recorded in :attr:`unused_levels`: their columns stay (so fits of parts of the data
         code alike and combine) but are aliased, and a test touching them names them.
+        With ``column_plan`` (for encoders that will encode many frames, e.g. the chunks of a
+        chunked fit), the encoder keeps a :class:`~lincomb._model.column_plan.ColumnPlan` if
+        the formula allows one and it reproduces formulaic's design of ``data`` exactly;
+        :meth:`encode` then builds the design without formulaic's fixed cost per call.
 
         Examples
         --------
@@ -556,8 +564,24 @@ class FormulaEncoder:
             _spec=spec,
         )
         rows = encoder._finish(
-            rhs_mm, mm.lhs if lhs else None, sub, w, data.index[na], len(data), where, keep_frame
+            rhs_mm,
+            mm.lhs if lhs else None,
+            sub,
+            _kept(w, na),
+            data.index[na],
+            len(data),
+            where,
+            keep_frame,
         )
+        if column_plan and len(sub):
+            plan = ColumnPlan.build(rhs_spec, spec.lhs if lhs else None, sub, rows.x)
+            got = None if plan is None else plan.columns(sub)
+            if (
+                got is not None
+                and _same_bits(got[0], rows.x)
+                and (rows.y is None or (got[1] is not None and _same_bits(got[1], rows.y)))
+            ):
+                encoder = replace(encoder, _columns=plan)
         return encoder, rows
 
     @classmethod
@@ -687,7 +711,7 @@ class FormulaEncoder:
             cols.append(weights)
         if not cols:
             return len(frame)
-        return int((~frame[cols].isna().to_numpy().any(axis=1)).sum())
+        return len(frame) - int(_na_mask(frame, cols, None).sum())
 
     @staticmethod
     def check_response(formula: str, sample: pd.DataFrame, where: str | None = None) -> None:
@@ -852,6 +876,9 @@ class FormulaEncoder:
             y = None if self.response is None else np.zeros(0)
             wz = None if w is None else np.zeros(0)
             return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
+        direct = None if self._columns is None else self._columns.columns(sub)
+        if direct is not None:  # the same numbers as formulaic's (see ColumnPlan)
+            return self._checked(*direct, sub, _kept(w, na), dropped, len(frame), where, keep_frame)
         mm = self._model_matrix(
             self._spec,
             sub,
@@ -868,7 +895,7 @@ class FormulaEncoder:
             mm.rhs if two else mm,
             mm.lhs if two else None,
             sub,
-            w,
+            _kept(w, na),
             dropped,
             len(frame),
             where,
@@ -887,24 +914,34 @@ class FormulaEncoder:
         keep_frame: bool,
     ) -> EncodedRows:
         """Validate encoded matrices into arrays (the one place rows are checked)."""
-        x = np.array(rhs.to_numpy(dtype=np.float64), copy=True)
+        x = _float_columns(rhs)
         if x.shape[1] != self.index.p:  # pragma: no cover - the spec fixes the columns
             raise InputError(
                 f"{_prefix(where)}encoded to {x.shape[1]} columns instead of {self.index.p}."
             )
+        y = None if lhs is None else np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+        return self._checked(x, y, sub, w, dropped, rows_read, where, keep_frame)
+
+    def _checked(
+        self,
+        x: NDArray[np.float64],
+        y: NDArray[np.float64] | None,
+        sub: pd.DataFrame,
+        w: pd.Series | None,
+        dropped: pd.Index,
+        rows_read: int,
+        where: str | None,
+        keep_frame: bool,
+    ) -> EncodedRows:
+        """Check new design and response arrays of the rows ``sub`` (finite values, weights
+        ``w``, one per row of ``sub``)."""
         rows = sub.index
         _check_finite(x, f"{_prefix(where)}design", self.index.names, rows)
-        y = None
-        if lhs is not None:
-            y = np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
+        if y is not None:
             _check_finite(y, f"{_prefix(where)}response {self.response!r}", None, rows)
         wa = None
         if w is not None:
-            wa = (
-                w.loc[rows].to_numpy(dtype=np.float64, copy=True)
-                if len(w) != len(rows)
-                else (w.to_numpy(dtype=np.float64, copy=True))
-            )
+            wa = w.to_numpy(dtype=np.float64, copy=True)
             _validate_weights(wa, rows)
         return EncodedRows(x, y, wa, rows, dropped, rows_read, sub if keep_frame else None)
 
@@ -1036,28 +1073,67 @@ class FormulaEncoder:
 # -- helpers -----------------------------------------------------------------------------------
 
 
-def _required(formula: str, frame: pd.DataFrame) -> list[str]:
-    """Columns of ``frame`` that ``formula`` reads."""
+def _kept(w: pd.Series | None, na: NDArray[np.bool_]) -> pd.Series | None:
+    """The weights of the rows kept, by position (row labels may repeat)."""
+    return w if w is None or not na.any() else w[~na]
+
+
+def _same_bits(a: NDArray[np.float64], b: NDArray[np.float64]) -> bool:
+    """Equal float64 arrays to the last bit (the sign of a zero included)."""
+    return a.shape == b.shape and bool(np.array_equal(a.view(np.uint64), b.view(np.uint64)))
+
+
+def _float_columns(frame: pd.DataFrame) -> NDArray[np.float64]:
+    """A new Fortran-ordered float64 array of ``frame``'s values, filled column by column: one
+    copy, and never a view of the caller's data (a frame's ``to_numpy`` may return one)."""
+    x = np.empty(frame.shape, order="F")
+    for j, (_, col) in enumerate(frame.items()):
+        v = col.to_numpy()
+        x[:, j] = v if v.dtype.kind in "biuf" else col.to_numpy(dtype=np.float64)
+    return x
+
+
+@functools.lru_cache(maxsize=256)
+def _formula_variables(target: str) -> tuple[str, ...]:
+    """Variables a formula reads (parsing is a pure function of the text: cached)."""
     import formulaic
 
+    return tuple(str(v) for v in formulaic.Formula(target).required_variables)
+
+
+def _required(formula: str, frame: pd.DataFrame) -> list[str]:
+    """Columns of ``frame`` that ``formula`` reads."""
     lhs, rhs = _split(formula)
     target = f"{lhs} ~ {rhs}" if lhs else (rhs or "1")
     try:
-        required = formulaic.Formula(target).required_variables
+        required = _formula_variables(target)
     except Exception as exc:
         raise InputError(
             f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(frame)
         ) from None
-    return sorted(str(v) for v in required if v in frame.columns)
+    return sorted(v for v in required if v in frame.columns)
 
 
 def _na_mask(
     frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
 ) -> NDArray[np.bool_]:
-    cols = [c for c in variables if c in frame.columns]
+    """Rows with a missing value in ``variables`` (or the weights), column by column: no
+    frame of the columns is assembled, and numpy columns that cannot hold one are skipped."""
     na = np.zeros(len(frame), dtype=bool)
-    if cols:
-        na |= frame[cols].isna().to_numpy().any(axis=1)
+    for c in variables:
+        if c not in frame.columns:
+            continue
+        col = frame[c]
+        if isinstance(col, pd.DataFrame):  # a name used twice (refused later, with its name)
+            na |= col.isna().to_numpy().any(axis=1)
+            continue
+        dt = col.dtype
+        if isinstance(dt, np.dtype) and dt.kind in "biu":
+            continue
+        if isinstance(dt, np.dtype) and dt.kind == "f":
+            na |= np.isnan(col.to_numpy())
+        else:
+            na |= col.isna().to_numpy(dtype=bool)
     if w is not None:
         na |= w.isna().to_numpy()
     return na
