@@ -76,11 +76,15 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     (1.0, [2.0])
     """
     se = safe_norm(root, axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
-    vk = root[:, independent]
-    chol = triangular_factor(vk)
+    if se.size and 0 < se.min() and se.max() < np.inf:  # every row has a variance
+        stat = delta / se
+    else:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
     q = independent.size
+    # every row independent (``independent`` is then 0 .. m-1): no copy of the root
+    vk = root if q == root.shape[1] else root[:, independent]
+    chol = triangular_factor(vk)
     if q:
         sol = upper_solve(chol, delta[independent], trans=True)
         quad = float(sol @ sol)
