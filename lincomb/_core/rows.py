@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb._core.triangular import safe_norm
+from lincomb._core.triangular import safe_norm, triangular_factor
 
 __all__ = ["ROW_TOL", "RowAnalysis", "analyze_rows"]
 
@@ -64,7 +64,10 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     -----
     Greedy Gram–Schmidt with reorthogonalization on the row-normalized ``C``: a row is redundant
     when what is left after projecting it on the kept rows is at most ``tol`` of its norm.  Its
-    weights on the kept rows come from a least-squares solve.  Cost is O(m² p).
+    weights on the kept rows come from a least-squares solve.  Cost is O(m² p).  A system whose
+    rows are all clearly independent (each at least ``2·tol`` outside the span of the rows
+    before it, by one QR of the normalized rows) skips the greedy pass, whose answer it then
+    knows.
 
     Examples
     --------
@@ -76,6 +79,8 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     """
     m = cu.shape[0]
     norms = safe_norm(cu, axis=1)
+    if _clearly_independent(cu, norms, tol):
+        return RowAnalysis(np.arange(m, dtype=np.intp), {}, [])
     basis: list[Array] = []
     kept: list[int] = []
     deps: dict[int, dict[int, float]] = {}
@@ -102,3 +107,19 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
         if abs(float(d[i]) - implied) > tol * size:
             bad.append((i, float(d[i]), implied))
     return RowAnalysis(np.array(kept, dtype=np.intp), deps, bad)
+
+
+def _clearly_independent(cu: Array, norms: Array, tol: float) -> bool:
+    """True when every row is at least ``2·tol`` (relative) outside the span of the rows before
+    it, so that the greedy pass of :func:`analyze_rows` would keep them all.
+
+    One Householder QR of the row-normalized ``Cᵀ``: ``|R_ii|`` is the distance of row ``i`` to
+    the span of the rows before it, the quantity the greedy pass compares with ``tol``, up to
+    rounding (about ``eps``); the margin of two makes the screen decide nothing near the
+    threshold, where the greedy pass decides instead.
+    """
+    m, p = cu.shape
+    if m == 0 or m > p or not (np.isfinite(norms).all() and (norms > 0).all()):
+        return False
+    r = triangular_factor((cu / norms[:, None]).T, overwrite_a=True)
+    return bool((np.abs(np.diagonal(r)) > 2 * tol).all())

@@ -154,7 +154,7 @@ class Solution:
         """
         c = np.asarray(c, dtype=np.float64)
         j = self.intercept
-        if j is None:
+        if j is None or not c[..., j].any():  # no row involves the intercept: nothing to project
             return c / self.scale
         c0 = c[..., :, j : j + 1]
         c00 = np.sum(c0 * c0, axis=-2, keepdims=True)
