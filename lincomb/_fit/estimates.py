@@ -313,8 +313,9 @@ class EstimatesFit(ReportTables):
             reference=dist,
             covariance=self.label,
             redundant=analysis.dependencies,
-            matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
             estimate_covariance=gram,
+            _c=c,
+            _names=tuple(self.names),
         )
 
     # -- presentation -------------------------------------------------------------------

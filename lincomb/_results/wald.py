@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -103,9 +104,29 @@ class WaldTest(WaldResult):
     reference: str
     covariance: str
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
-    matrix: pd.DataFrame | None = field(default=None, repr=False)
     estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
     row_df: NDArray[np.float64] | None = field(default=None, repr=False)
+    # the resolved C and the coefficient names: ``matrix`` is built from them when asked for
+    _c: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+    _names: tuple[str, ...] = field(default=(), repr=False, compare=False)
+
+    @cached_property
+    def matrix(self) -> pd.DataFrame | None:
+        """The resolved ``C``: rows labelled, columns named by coefficient.
+
+        Built on first access (a test in a loop does not pay for a frame it never reads).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald(lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).matrix
+                                 Intercept  line[T.L2]  line[T.L3]  line[T.L4]
+        line[T.L2] - line[T.L3] = 0        0.0         1.0        -1.0         0.0
+        """
+        if self._c is None:
+            return None
+        return pd.DataFrame(self._c, index=list(self.labels), columns=list(self._names))
 
     @property
     def row_p(self) -> NDArray[np.float64]:
