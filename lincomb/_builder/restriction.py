@@ -20,7 +20,7 @@ import numbers
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from types import NotImplementedType
-from typing import Any, Protocol, TypeGuard
+from typing import Any, NamedTuple, Protocol, TypeGuard
 
 import numpy as np
 import pandas as pd
@@ -43,6 +43,7 @@ __all__ = [
     "TermRef",
     "Resolver",
     "as_system",
+    "stack_systems",
 ]
 
 
@@ -97,8 +98,9 @@ class Resolver(Protocol):
         ...
 
 
-@dataclass(frozen=True)
-class _Name:
+# References are named tuples, not dataclasses: an expression keys its weights by them, and a
+# tuple's hash and equality run in C (a batch of systems looks up thousands of them)
+class _Name(NamedTuple):
     name: str
 
     def label(self) -> str:
@@ -108,8 +110,7 @@ class _Name:
         return index.column(self.name)
 
 
-@dataclass(frozen=True)
-class _Level:
+class _Level(NamedTuple):
     term: str
     key: tuple[str, ...]
 
@@ -394,6 +395,10 @@ class _Item:
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         raise NotImplementedError
 
+    def row_labels(self, index: Resolver) -> list[str]:
+        """The labels of the rows :meth:`rows` yields (without building the rows, where it can)."""
+        return [label for _row, _d, label in self.rows(index)]
+
     def text(self) -> str:
         raise NotImplementedError
 
@@ -486,6 +491,18 @@ class Restriction(_Item):
     def __rand__(self, other: object) -> RestrictionSystem:
         return as_system(other) & self
 
+    def row_labels(self, index: Resolver) -> list[str]:  # noqa: ARG002 - names need no fit
+        """The restriction's one row label: its label, or its algebra.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> r = coef("a") == coef("b")
+        >>> r.row_labels(None), r.labelled("equal").row_labels(None)
+        (['a - b = 0'], ['equal'])
+        """
+        return [self.text() if self.label is None else self.label]
+
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         """Yield the restriction's one ``(row of C, d, label)`` on the columns of ``index``.
 
@@ -497,7 +514,7 @@ class Restriction(_Item):
         [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
         """
         row = self.expr.row(index)
-        if not row.any():
+        if not np.count_nonzero(row):
             raise EmptyRestrictionError(
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
                 " remove it or fix its terms."
@@ -676,6 +693,92 @@ class RestrictionSystem:
         if not rows:
             raise EmptyRestrictionError("the restriction system has no rows; add a restriction.")
         return np.array(rows), np.array(ds), labels
+
+    def row_labels(self, index: Resolver) -> list[str]:
+        """The labels :meth:`resolve` gives the rows, without building ``C``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> ((lc.term("line") == 0) & (lc.coef("Intercept") == 500)).row_labels(index)
+        ['line[T.L2] = 0', 'line[T.L3] = 0', 'line[T.L4] = 0', 'Intercept = 500']
+        """
+        return [label for item in self.items for label in item.row_labels(index)]
+
+
+def stack_systems(
+    systems: Sequence[RestrictionSystem], index: Resolver
+) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """``(C, d)`` of ``k`` systems of ``m`` rows each, as ``(k, m, p)`` and ``(k, m)`` arrays.
+
+    The values are those of :meth:`RestrictionSystem.resolve` for each system, stacked, but no
+    row array or label is made per restriction: the weights of every restriction are gathered
+    into one list and summed into ``C`` by one ``numpy.bincount`` (in the order
+    :meth:`Expr.row` adds them).  Other items (term targets, explicit matrices, level contrasts)
+    give their rows as :meth:`~RestrictionSystem.resolve` does.  Labels are left to
+    :meth:`RestrictionSystem.row_labels`.
+
+    Returns None when the systems differ in their number of rows or hold none, or when a row
+    has no coefficient left: resolving them one by one then raises the error that names the
+    system and row.  A name the resolver does not know raises its error here.
+
+    Examples
+    --------
+    >>> import lincomb as lc
+    >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+    >>> systems = [lc.coef("line[T.L2]") == lc.coef(b) for b in ("line[T.L3]", "line[T.L4]")]
+    >>> c, d = stack_systems([as_system(s) for s in systems], index)
+    >>> c.shape, c[1, 0].tolist()
+    ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
+    """
+    p = len(index.names)
+    # the loop over restrictions is the whole cost per system: it only gathers references,
+    # weights and targets (C-level list extends); references are resolved once each after it
+    refs: list[_Ref] = []
+    weights: list[float] = []
+    counts: list[int] = []  # references per row
+    targets: list[float] = []
+    dense: list[tuple[int, NDArray[np.float64]]] = []
+    sizes: list[int] = []
+    add_refs, add_weights, add_count, add_target = (
+        refs.extend,
+        weights.extend,
+        counts.append,
+        targets.append,
+    )
+    row = 0
+    for system in systems:
+        start = row
+        for item in system.items:
+            if type(item) is Restriction:
+                terms = item.expr._terms  # noqa: SLF001 - this module's own Expr
+                add_refs(terms)
+                add_weights(terms.values())
+                add_count(len(terms))
+                add_target(item.target)
+                row += 1
+            else:
+                for values, target, _label in item.rows(index):
+                    dense.append((row, values))
+                    add_count(0)
+                    add_target(target)
+                    row += 1
+        sizes.append(row - start)
+    k = len(sizes)
+    m = sizes[0] if sizes else 0
+    if m == 0 or sizes.count(m) != k:
+        return None
+    cols = {ref: ref.resolve(index) for ref in set(refs)}
+    at = np.repeat(np.arange(row, dtype=np.intp) * p, counts)
+    at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=len(refs))
+    flat = np.bincount(at, np.array(weights, dtype=np.float64), minlength=row * p)
+    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(row, p)
+    for i, values in dense:
+        c[i] = values
+    if not c.any(axis=1).all():  # a row whose weights cancel: resolve() names it
+        return None
+    return c.reshape(k, m, p), np.array(targets).reshape(k, m)
 
 
 def from_matrix(
