@@ -11,9 +11,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.triangular import safe_norm, triangular_factor
+from lincomb._core.triangular import safe_norm
 
 __all__ = ["ROW_TOL", "RowAnalysis", "analyze_rows"]
 
@@ -119,7 +120,8 @@ def _clearly_independent(cu: Array, norms: Array, tol: float) -> bool:
     threshold, where the greedy pass decides instead.
     """
     m, p = cu.shape
-    if m == 0 or m > p or not (np.isfinite(norms).all() and (norms > 0).all()):
+    if m == 0 or m > p or not (0 < norms.min() and norms.max() < np.inf):
         return False
-    r = triangular_factor((cu / norms[:, None]).T, overwrite_a=True)
-    return bool((np.abs(np.diagonal(r)) > 2 * tol).all())
+    # LAPACK geqrf in place on the normalized copy: only R's diagonal is read
+    qr, _tau, _work, info = sla.lapack.dgeqrf((cu / norms[:, None]).T, overwrite_a=1)
+    return bool(info == 0 and np.abs(qr.diagonal()).min() > 2 * tol)

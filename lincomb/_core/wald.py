@@ -86,7 +86,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     vk = root if q == root.shape[1] else root[:, independent]
     chol = triangular_factor(vk)
     if q:
-        sol = upper_solve(chol, delta[independent], trans=True)
+        sol = upper_solve(chol, delta if vk is root else delta[independent], trans=True)
         quad = float(sol @ sol)
     else:
         quad = 0.0

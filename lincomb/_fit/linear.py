@@ -196,6 +196,11 @@ class LinearFit(ReportTables):
         # the classical estimate, evaluated once: tests without covariance= reuse it
         return evaluate(self, None)
 
+    @cached_property
+    def _kept_in_order(self) -> bool:
+        # every column kept, in design order: rows of C need no reordering to working order
+        return bool(np.array_equal(self._sol.kept, np.arange(self._sol.p)))
+
     # -- basic quantities ---------------------------------------------------------------
     @property
     def index(self) -> CoefficientIndex:
@@ -546,7 +551,7 @@ class LinearFit(ReportTables):
         ref = check_reference(reference)
         c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
-        cu_kept = cu[:, sol.kept]
+        cu_kept = cu if self._kept_in_order else cu[:, sol.kept]
         root = vcov.root(cu_kept)
         est = cu_kept @ sol.theta
         check_rank(root, analysis.independent, labels, vcov)
@@ -555,7 +560,8 @@ class LinearFit(ReportTables):
         dist, stat, df_error, p_value, row_df = test_reference(
             vcov, wc.quad, wc.rank, cu_kept, k, ref
         )
-        rotated = core.intercept_rotation(c[k], d[k], sol.intercept)
+        every = k.size == d.size  # every row independent: k is 0 .. m-1
+        rotated = core.intercept_rotation(c if every else c[k], d if every else d[k], sol.intercept)
         if rotated is not None:  # same F, rows free of the intercept (see lincomb._core)
             cr = sol.to_working(rotated[0])[:, sol.kept]
             rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))

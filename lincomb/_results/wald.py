@@ -563,13 +563,32 @@ class WaldBatch(WaldResult):
     redundant: dict[int, dict[int, dict[int, float]]] = field(default_factory=dict)
     names: tuple[str, ...] = ()
     matrix: NDArray[np.float64] | None = field(default=None, repr=False)
-    labels: tuple[tuple[str, ...], ...] | None = field(default=None, repr=False)
     reference: str = "F"
     covariance: str = "classical"
     _index: Any = field(default=None, repr=False, compare=False)
+    # the restriction systems as given (their labels are written when first asked for)
+    _given: tuple[Any, ...] | None = field(default=None, repr=False, compare=False)
 
     def __len__(self) -> int:
         return len(self.systems)
+
+    @cached_property
+    def labels(self) -> tuple[tuple[str, ...], ...] | None:
+        """Row labels of every system given as restrictions (None for an array ``C``).
+
+        Written on first access, from the systems and the fit's names: a batch whose labels
+        nobody reads does not pay for writing them.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald_batch([lc.coef("line[T.L2]") == 0, lc.term("line")["L3"] == 1]).labels
+        (('line[T.L2] = 0',), ('line[L3] = 1',))
+        """
+        if self._given is None:
+            return None
+        return tuple(tuple(s.row_labels(self._index)) for s in self._given)
 
     @property
     def row_p(self) -> NDArray[np.float64]:
@@ -595,8 +614,10 @@ class WaldBatch(WaldResult):
         >>> b.row_labels(1)
         ('line[T.L4] = -1',)
         """
-        if self.labels is not None:
+        if "labels" in self.__dict__ and self.labels is not None:  # written already
             return self.labels[system]
+        if self._given is not None:
+            return tuple(self._given[system].row_labels(self._index))
         if self.matrix is None or self._index is None:
             return tuple(f"row {i}" for i in range(self.estimate.shape[1]))
         from lincomb._builder.restriction import from_matrix
