@@ -66,9 +66,9 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     Greedy Gram–Schmidt with reorthogonalization on the row-normalized ``C``: a row is redundant
     when what is left after projecting it on the kept rows is at most ``tol`` of its norm.  Its
     weights on the kept rows come from a least-squares solve.  Cost is O(m² p).  A system whose
-    rows are all clearly independent (each at least ``2·tol`` outside the span of the rows
-    before it, by one QR of the normalized rows) skips the greedy pass, whose answer it then
-    knows.
+    rows use disjoint sets of columns (exactly orthogonal), or are all clearly independent
+    (each at least ``2·tol`` outside the span of the rows before it, by one QR of the
+    normalized rows), skips the greedy pass, whose answer it then knows.
 
     Examples
     --------
@@ -79,6 +79,8 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     ([0, 1], {2: {0: 1.0, 1: 1.0}}, [])
     """
     m = cu.shape[0]
+    if _apart(cu):
+        return RowAnalysis(np.arange(m, dtype=np.intp), {}, [])
     norms = safe_norm(cu, axis=1)
     if _clearly_independent(cu, norms, tol):
         return RowAnalysis(np.arange(m, dtype=np.intp), {}, [])
@@ -108,6 +110,21 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
         if abs(float(d[i]) - implied) > tol * size:
             bad.append((i, float(d[i]), implied))
     return RowAnalysis(np.array(kept, dtype=np.intp), deps, bad)
+
+
+def _apart(cu: Array) -> bool:
+    """True when the rows are nonzero, finite and use disjoint sets of columns.
+
+    Such rows are exactly orthogonal (every product in their dot products has a zero factor),
+    so the greedy pass of :func:`analyze_rows` leaves each whole and keeps them all.
+    """
+    nz = cu != 0
+    return bool(
+        cu.shape[0]
+        and nz.sum(axis=0).max() <= 1
+        and nz.any(axis=1).all()
+        and np.abs(cu).max() < np.inf
+    )
 
 
 def _clearly_independent(cu: Array, norms: Array, tol: float) -> bool:

@@ -581,10 +581,10 @@ class LinearFit(ReportTables):
             reference=dist,
             covariance=vcov.label,
             redundant=analysis.dependencies,
-            estimate_covariance=_gram(root),
             row_df=row_df,
             _c=c,
             _names=self.names,
+            _root=root,
         )
 
     def wald_batch(

@@ -104,11 +104,33 @@ class WaldTest(WaldResult):
     reference: str
     covariance: str
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
-    estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
     row_df: NDArray[np.float64] | None = field(default=None, repr=False)
-    # the resolved C and the coefficient names: ``matrix`` is built from them when asked for
+    # the resolved C, the coefficient names and a root W of the estimates' covariance (WᵀW):
+    # ``matrix`` and ``estimate_covariance`` are built from them when first asked for
     _c: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
     _names: tuple[str, ...] = field(default=(), repr=False, compare=False)
+    _root: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+
+    @cached_property
+    def estimate_covariance(self) -> NDArray[np.float64] | None:
+        """Estimated covariance of ``Cβ̂`` (all rows) under the test's covariance estimator.
+
+        ``WᵀW`` from the root ``W`` the test used, formed on first access; entries past the
+        float64 range become inf or 0 without a warning.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> res = f.wald(lc.term("line") == 0)
+        >>> bool(np.allclose(np.sqrt(np.diag(res.estimate_covariance)), res.se))
+        True
+        """
+        if self._root is None:
+            return None
+        with np.errstate(over="ignore", under="ignore"):
+            out: NDArray[np.float64] = self._root.T @ self._root
+        return out
 
     @cached_property
     def matrix(self) -> pd.DataFrame | None:
