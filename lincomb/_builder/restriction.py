@@ -16,9 +16,12 @@ raises ``TypeError`` (write ``&`` to combine, not ``and``), and expressions are 
 
 from __future__ import annotations
 
+import math
 import numbers
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from itertools import chain
+from operator import attrgetter
 from types import NotImplementedType
 from typing import Any, NamedTuple, Protocol, TypeGuard
 
@@ -132,6 +135,8 @@ _BOOL_MSG = (
 
 def _is_number(v: object) -> TypeGuard[float]:
     """A real number (numpy scalars included), not a bool; typed as ``float`` for ``float(v)``."""
+    if type(v) is float or type(v) is int:  # the usual case, without the ABC check
+        return True
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
 
@@ -206,7 +211,7 @@ class Expr(_EqualitiesOnly):
                 terms[k] = terms.get(k, 0.0) + sign * v
             return Expr(terms, self._const + sign * rhs._const)
         if _is_number(other):
-            if not np.isfinite(float(other)):
+            if not math.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
             return Expr(self._terms, self._const + sign * float(other))
         return NotImplemented  # type: ignore[no-any-return]  # typeshed types it as Any
@@ -237,7 +242,7 @@ class Expr(_EqualitiesOnly):
         if not _is_number(other):
             return NotImplemented
         f = float(other)
-        if not np.isfinite(f):
+        if not math.isfinite(f):
             raise RestrictionShapeError(f"multiplier {other!r} is not finite.")
         return Expr({k: v * f for k, v in self._terms.items()}, self._const * f)
 
@@ -733,52 +738,92 @@ def stack_systems(
     ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
     """
     p = len(index.names)
-    # the loop over restrictions is the whole cost per system: it only gathers references,
-    # weights and targets (C-level list extends); references are resolved once each after it
+    items = list(chain.from_iterable(map(_items_of, systems)))
+    if set(map(type, items)) == {Restriction}:  # one row per item: C-level passes only
+        terms: list[dict[_Ref, float]] = list(map(_terms_of, items))
+        return _stacked(
+            index,
+            p,
+            list(map(len, map(_items_of, systems))),
+            chain.from_iterable(terms),
+            chain.from_iterable(map(dict.values, terms)),
+            list(map(len, terms)),
+            list(map(_target_of, items)),
+            [],
+        )
     refs: list[_Ref] = []
     weights: list[float] = []
     counts: list[int] = []  # references per row
     targets: list[float] = []
     dense: list[tuple[int, NDArray[np.float64]]] = []
     sizes: list[int] = []
-    add_refs, add_weights, add_count, add_target = (
-        refs.extend,
-        weights.extend,
-        counts.append,
-        targets.append,
-    )
     row = 0
     for system in systems:
         start = row
         for item in system.items:
             if type(item) is Restriction:
-                terms = item.expr._terms  # noqa: SLF001 - this module's own Expr
-                add_refs(terms)
-                add_weights(terms.values())
-                add_count(len(terms))
-                add_target(item.target)
+                found = item.expr._terms  # noqa: SLF001 - this module's own Expr
+                refs.extend(found)
+                weights.extend(found.values())
+                counts.append(len(found))
+                targets.append(item.target)
                 row += 1
             else:
                 for values, target, _label in item.rows(index):
                     dense.append((row, values))
-                    add_count(0)
-                    add_target(target)
+                    counts.append(0)
+                    targets.append(target)
                     row += 1
         sizes.append(row - start)
+    return _stacked(index, p, sizes, refs, weights, counts, targets, dense)
+
+
+class _Columns(dict[_Ref, int]):
+    """Column of each reference, resolved through ``index`` the first time it is looked up."""
+
+    def __init__(self, index: Resolver) -> None:
+        super().__init__()
+        self.index = index
+
+    def __missing__(self, ref: _Ref) -> int:
+        j = self[ref] = ref.resolve(self.index)
+        return j
+
+
+# readers for the C-level maps of stack_systems (this module's own private fields)
+_items_of = attrgetter("items")
+_terms_of = attrgetter("expr._terms")
+_target_of = attrgetter("target")
+
+
+def _stacked(
+    index: Resolver,
+    p: int,
+    sizes: list[int],
+    refs: Iterable[_Ref],
+    weights: Iterable[float],
+    counts: list[int],
+    targets: list[float],
+    dense: list[tuple[int, NDArray[np.float64]]],
+) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """``(C, d)`` from the gathered references (``counts`` per row), weights and targets."""
     k = len(sizes)
     m = sizes[0] if sizes else 0
     if m == 0 or sizes.count(m) != k:
         return None
-    cols = {ref: ref.resolve(index) for ref in set(refs)}
-    at = np.repeat(np.arange(row, dtype=np.intp) * p, counts)
-    at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=len(refs))
-    flat = np.bincount(at, np.array(weights, dtype=np.float64), minlength=row * p)
-    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(row, p)
+    rows = len(targets)
+    cols = _Columns(index)  # each reference resolved once, on its first look-up
+    at = np.repeat(np.arange(rows, dtype=np.intp) * p, counts)
+    n = at.size
+    at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=n)
+    w = np.fromiter(weights, dtype=np.float64, count=n)
+    flat = np.bincount(at, w, minlength=rows * p)
+    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(rows, p)
     for i, values in dense:
         c[i] = values
     if not c.any(axis=1).all():  # a row whose weights cancel: resolve() names it
         return None
-    return c.reshape(k, m, p), np.array(targets).reshape(k, m)
+    return c.reshape(k, m, p), np.array(targets, dtype=np.float64).reshape(k, m)
 
 
 def from_matrix(

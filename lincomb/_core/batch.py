@@ -177,8 +177,14 @@ def _clearly_independent(cd: Array, tol: float) -> NDArray[np.bool_]:
     k, m, _p = cd.shape
     clear = np.zeros(k, dtype=bool)
     nz = cd != 0
-    apart = (nz.sum(axis=1) <= 1).all(axis=1) & nz.any(axis=2).all(axis=1)
-    if np.abs(cd).max(initial=0.0) < np.inf:  # finite: no inf · 0 in a dot product
+    seen = nz[:, 0]
+    apart = seen.any(axis=1)  # every row nonzero and on columns no row before it uses
+    for i in range(1, m):
+        row = nz[:, i]
+        apart &= row.any(axis=1) & ~(seen & row).any(axis=1)
+        if i + 1 < m:
+            seen = seen | row
+    if np.isfinite(cd).all():  # finite: no inf · 0 in a dot product
         clear[apart] = True
     else:
         apart[:] = False
