@@ -15,7 +15,14 @@ from numpy.typing import NDArray
 
 from lincomb.errors import InternalError, SingularFactorError
 
-__all__ = ["pow2_scale", "row_pivoted_factor", "safe_norm", "triangular_factor", "upper_solve"]
+__all__ = [
+    "plain_norm",
+    "pow2_scale",
+    "row_pivoted_factor",
+    "safe_norm",
+    "triangular_factor",
+    "upper_solve",
+]
 
 Array = NDArray[np.float64]
 
@@ -155,15 +162,8 @@ def safe_norm(a: Array, axis: int | None = None) -> Array:
     if axis is None:
         a = a.reshape(-1)
         axis = 0
-    # scaling by a power of two is exact, so where no square over- or underflows the plain
-    # sum of squares is the scaled one: take it and skip the scaling (a fixed cost per call)
-    if axis in (-1, a.ndim - 1):
-        last = a
-    else:  # a transpose where it is one: moveaxis has a fixed cost of its own
-        last = a.T if a.ndim == 2 else np.moveaxis(a, axis, -1)
-    ss = np.einsum("...i,...i->...", last, last)
-    if ss.size and _SQUARES_LOW <= ss.min() and ss.max() < np.inf:
-        plain: Array = np.sqrt(ss)
+    plain = plain_norm(a, axis)
+    if plain is not None:
         return plain
     f = pow2_scale(a, axis=axis)
     b = a * f
@@ -171,6 +171,31 @@ def safe_norm(a: Array, axis: int | None = None) -> Array:
         np.einsum("...i,...i->...", np.moveaxis(b, axis, -1), np.moveaxis(b, axis, -1))
     )
     return out / np.squeeze(f, axis=axis)
+
+
+def plain_norm(a: Array, axis: int) -> Array | None:
+    """Euclidean norms of a float64 array along ``axis`` from the plain sum of squares, or None.
+
+    Scaling by a power of two is exact, so where no square over- or underflows the plain sum
+    of squares is the scaled one of :func:`safe_norm`: the norms are returned (all positive and
+    finite) when every sum of squares lies in ``[2**-900, inf)``, else None (then only
+    :func:`safe_norm`'s scaling gives them).  It spares a call's fixed cost of scaling.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> plain_norm(np.array([[3.0, 0.0], [4.0, 1.0]]), 0).tolist(), plain_norm(np.zeros(2), 0)
+    ([5.0, 1.0], None)
+    """
+    if axis in (-1, a.ndim - 1):
+        last = a
+    else:  # a transpose where it is one: moveaxis has a fixed cost of its own
+        last = a.T if a.ndim == 2 else np.moveaxis(a, axis, -1)
+    ss = np.einsum("...i,...i->...", last, last)
+    if ss.size and _SQUARES_LOW <= ss.min() and ss.max() < np.inf:
+        out: Array = np.sqrt(ss)
+        return out
+    return None
 
 
 def row_pivoted_factor(a: Array) -> Array:

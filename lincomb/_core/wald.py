@@ -12,7 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import safe_norm, triangular_factor, upper_solve
+from lincomb._core.triangular import plain_norm, safe_norm, triangular_factor, upper_solve
 
 __all__ = ["WaldCore", "intercept_rotation", "restricted_step", "wald_from_root"]
 
@@ -75,10 +75,12 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     >>> w.quad, w.std_error.tolist()
     (1.0, [2.0])
     """
-    se = safe_norm(root, axis=0)
-    if se.size and 0 < se.min() and se.max() < np.inf:  # every row has a variance
+    plain = plain_norm(np.asarray(root, dtype=np.float64), 0)
+    if plain is not None:  # every row has a positive, finite standard error
+        se = plain
         stat = delta / se
     else:
+        se = safe_norm(root, axis=0)
         with np.errstate(divide="ignore", invalid="ignore"):
             stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
     q = independent.size
