@@ -322,7 +322,10 @@ def wald_systems(
     True
     """
     k, m, p = c.shape
-    cu = _to_working(sol, c)
+    j0 = sol.intercept
+    # no row involves the intercept: working and decision coordinates are both C / scale
+    plain = j0 is None or not c[..., j0].any()
+    cu = c / sol.scale if plain else _to_working(sol, c)
     flat = cu.reshape(k * m, p)[:, sol.kept]
     estimate = np.einsum("nr,r->n", flat, sol.theta).reshape(k, m)
     delta = estimate - d
@@ -337,7 +340,7 @@ def wald_systems(
         t = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
 
     # screen: clearly independent rows and clearly estimable rows (margin 2x either way)
-    cd = sol.decision_rows(c)  # redundancy in decision coordinates, as analyze_rows
+    cd = cu if plain else sol.decision_rows(c)  # redundancy in decision coordinates
     clear = _clearly_independent(cd, tol)
     if sol.null_basis.shape[1]:
         clear &= (sol.estimability_residual(cu) <= tol / 2).all(axis=1)

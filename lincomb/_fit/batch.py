@@ -8,7 +8,7 @@ offending system and row when something is wrong, and attaches the reference dis
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -61,7 +61,11 @@ def _from_restrictions(
     All systems at once through the fit's resolver (:func:`stack_systems`); when that finds
     anything wrong, system by system, which raises the error naming the system."""
     try:
-        systems = tuple(as_system(obj) for obj in items)
+        systems: tuple[RestrictionSystem, ...]
+        if set(map(type, items)) == {RestrictionSystem}:  # as_system would return each as is
+            systems = cast("tuple[RestrictionSystem, ...]", tuple(items))
+        else:
+            systems = tuple(as_system(obj) for obj in items)
         stacked = stack_systems(systems, fit.resolver)
     except LincombError:
         stacked = None
