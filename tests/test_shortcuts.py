@@ -28,7 +28,8 @@ from scipy import stats
 
 import lincomb as lc
 from lincomb import _core as core
-from lincomb._builder.restriction import as_system, stack_systems
+from lincomb._builder.restriction import as_system
+from lincomb._builder.stack import stack_systems
 from lincomb._core.triangular import pow2_scale, safe_norm
 from lincomb._covariance.reference import chi2_sf, f_sf
 from lincomb.errors import EmptyRestrictionError, UnknownCoefficientError

@@ -14,14 +14,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import special
 
-from lincomb._builder.restriction import (
-    Expr,
-    RestrictionSystem,
-    TermRef,
-    _Item,
-    as_system,
-    stack_systems,
-)
+from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item, as_system
+from lincomb._builder.stack import stack_systems
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance.estimate import COV_RANK_TOL, CovarianceEstimate
 from lincomb._covariance.reference import check_reference
