@@ -1,4 +1,10 @@
-"""The resolver a fit hands to restriction items: its coefficient index and formula encoder."""
+"""The resolver a fit hands to restriction items: its coefficient index and formula encoder.
+
+A fit builds its resolver once (:attr:`LinearFit.resolver <lincomb.LinearFit.resolver>`) and
+every test on the fit reuses it: each name, term and level is looked up in the coefficient
+index once, then read from a dictionary.  Failed look-ups are not remembered, so a wrong name
+raises the index's own error every time.
+"""
 
 from __future__ import annotations
 
@@ -34,6 +40,10 @@ class ModelResolver:
         self.index = index
         self.names: tuple[str, ...] = tuple(index.names)
         self.encoder = encoder
+        # look-ups that succeeded, so a fit's later tests skip the index's search
+        self._columns: dict[str, int] = {}
+        self._terms: dict[str, tuple[int, ...]] = {}
+        self._levels: dict[tuple[str, tuple[str, ...]], int] = {}
 
     @classmethod
     def of(cls, fit: LinearFit) -> ModelResolver:
@@ -59,7 +69,11 @@ class ModelResolver:
         >>> ModelResolver.of(f).column("shift[T.night]")
         5
         """
-        return int(self.index.column(name))
+        try:
+            return self._columns[name]
+        except KeyError:
+            j = self._columns[name] = int(self.index.column(name))
+            return j
 
     def term_columns(self, term: str) -> tuple[int, ...]:
         """Positions of every coefficient of a model term.
@@ -71,7 +85,11 @@ class ModelResolver:
         >>> ModelResolver.of(f).term_columns("line")
         (1, 2, 3)
         """
-        return tuple(self.index.term_columns(term))
+        try:
+            return self._terms[term]
+        except KeyError:
+            cols = self._terms[term] = tuple(self.index.term_columns(term))
+            return cols
 
     def level_column(self, term: str, key: tuple[str, ...]) -> int:
         """Position of the coefficient of ``term`` at the level(s) ``key``.
@@ -83,4 +101,8 @@ class ModelResolver:
         >>> ModelResolver.of(f).level_column("line", ("L3",))
         2
         """
-        return int(self.index.level_column(term, key))
+        try:
+            return self._levels[term, key]
+        except KeyError:
+            j = self._levels[term, key] = int(self.index.level_column(term, key))
+            return j

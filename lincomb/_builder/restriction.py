@@ -16,11 +16,13 @@ raises ``TypeError`` (write ``&`` to combine, not ``and``), and expressions are 
 
 from __future__ import annotations
 
+import math
 import numbers
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from operator import attrgetter
 from types import NotImplementedType
-from typing import Any, Protocol, TypeGuard
+from typing import Any, NamedTuple, Protocol, TypeGuard
 
 import numpy as np
 import pandas as pd
@@ -97,8 +99,9 @@ class Resolver(Protocol):
         ...
 
 
-@dataclass(frozen=True)
-class _Name:
+# References are named tuples, not dataclasses: an expression keys its weights by them, and a
+# tuple's hash and equality run in C (a batch of systems looks up thousands of them)
+class _Name(NamedTuple):
     name: str
 
     def label(self) -> str:
@@ -108,8 +111,7 @@ class _Name:
         return index.column(self.name)
 
 
-@dataclass(frozen=True)
-class _Level:
+class _Level(NamedTuple):
     term: str
     key: tuple[str, ...]
 
@@ -131,6 +133,8 @@ _BOOL_MSG = (
 
 def _is_number(v: object) -> TypeGuard[float]:
     """A real number (numpy scalars included), not a bool; typed as ``float`` for ``float(v)``."""
+    if type(v) is float or type(v) is int:  # the usual case, without the ABC check
+        return True
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
 
@@ -205,7 +209,7 @@ class Expr(_EqualitiesOnly):
                 terms[k] = terms.get(k, 0.0) + sign * v
             return Expr(terms, self._const + sign * rhs._const)
         if _is_number(other):
-            if not np.isfinite(float(other)):
+            if not math.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
             return Expr(self._terms, self._const + sign * float(other))
         return NotImplemented  # type: ignore[no-any-return]  # typeshed types it as Any
@@ -236,7 +240,7 @@ class Expr(_EqualitiesOnly):
         if not _is_number(other):
             return NotImplemented
         f = float(other)
-        if not np.isfinite(f):
+        if not math.isfinite(f):
             raise RestrictionShapeError(f"multiplier {other!r} is not finite.")
         return Expr({k: v * f for k, v in self._terms.items()}, self._const * f)
 
@@ -394,6 +398,10 @@ class _Item:
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         raise NotImplementedError
 
+    def row_labels(self, index: Resolver) -> list[str]:
+        """The labels of the rows :meth:`rows` yields (without building the rows, where it can)."""
+        return [label for _row, _d, label in self.rows(index)]
+
     def text(self) -> str:
         raise NotImplementedError
 
@@ -486,6 +494,18 @@ class Restriction(_Item):
     def __rand__(self, other: object) -> RestrictionSystem:
         return as_system(other) & self
 
+    def row_labels(self, index: Resolver) -> list[str]:  # noqa: ARG002 - names need no fit
+        """The restriction's one row label: its label, or its algebra.
+
+        Examples
+        --------
+        >>> from lincomb import coef
+        >>> r = coef("a") == coef("b")
+        >>> r.row_labels(None), r.labelled("equal").row_labels(None)
+        (['a - b = 0'], ['equal'])
+        """
+        return [self.text() if self.label is None else self.label]
+
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         """Yield the restriction's one ``(row of C, d, label)`` on the columns of ``index``.
 
@@ -497,7 +517,7 @@ class Restriction(_Item):
         [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
         """
         row = self.expr.row(index)
-        if not row.any():
+        if not np.count_nonzero(row):
             raise EmptyRestrictionError(
                 f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
                 " remove it or fix its terms."
@@ -676,6 +696,25 @@ class RestrictionSystem:
         if not rows:
             raise EmptyRestrictionError("the restriction system has no rows; add a restriction.")
         return np.array(rows), np.array(ds), labels
+
+    def row_labels(self, index: Resolver) -> list[str]:
+        """The labels :meth:`resolve` gives the rows, without building ``C``.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> ((lc.term("line") == 0) & (lc.coef("Intercept") == 500)).row_labels(index)
+        ['line[T.L2] = 0', 'line[T.L3] = 0', 'line[T.L4] = 0', 'Intercept = 500']
+        """
+        return [label for item in self.items for label in item.row_labels(index)]
+
+
+# readers of this module's private fields, for the C-level passes of
+# :func:`lincomb._builder.stack.stack_systems` (one row per restriction)
+_items_of = attrgetter("items")
+_terms_of = attrgetter("expr._terms")
+_target_of = attrgetter("target")
 
 
 def from_matrix(

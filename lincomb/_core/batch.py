@@ -10,7 +10,8 @@ float64 arrays and knows nothing of names, formulas or pandas.  It answers the s
   over the ``rank`` columns, vectorized over rows, see :func:`root_rows`);
 * the rows of every system are checked for redundancy by the same greedy Gram–Schmidt with
   reorthogonalization as :func:`~lincomb._core.rows.analyze_rows`, run for all systems together
-  (a loop over the ``m`` rows, vectorized over the ``k`` systems), and for estimability by the
+  (a loop over the ``m`` rows, vectorized over the ``k`` systems; systems whose rows use
+  disjoint sets of columns are exactly orthogonal and skip it), and for estimability by the
   null-space residual of :meth:`~lincomb._core.Solution.estimability_residual`;
 * for every system whose rows are all independent and estimable, the Cholesky-type factor of
   ``Cov(C_s β̂)`` comes from a Householder QR of the small root ``W_s`` (``Cov(C_s β̂) =
@@ -50,7 +51,6 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -129,9 +129,9 @@ OFFSET_ROTATE: float = 1e3
 
 def _to_working(sol: Solution, c: Array) -> Array:
     """:meth:`Solution.to_working` for a stack of systems, in two passes over ``c``."""
-    if sol.intercept is None:
-        return c / sol.scale
     j = sol.intercept
+    if j is None or not c[..., j].any():  # no row involves the intercept: no shift
+        return c / sol.scale
     return np.subtract(c, c[..., j : j + 1] * sol.center, order="C") / sol.scale
 
 
@@ -164,6 +164,35 @@ def _row_residuals(cu: Array) -> tuple[Array, Array]:
         if i + 1 < m:
             v[:, i, :] = x / np.where(rn > 0, rn, 1.0)[:, None]
     return out, norms
+
+
+def _clearly_independent(cd: Array, tol: float) -> NDArray[np.bool_]:
+    """Per system: is every row more than ``2·tol`` outside the span of the rows before it?
+
+    A system of nonzero, finite rows on disjoint sets of columns (``b1 = b2`` beside
+    ``b3 = 0``, the usual form) has exactly orthogonal rows: every product in their dot
+    products has a zero factor, so Gram–Schmidt leaves each row whole (residual 1).  Only the
+    other systems need :func:`_row_residuals`.
+    """
+    k, m, _p = cd.shape
+    clear = np.zeros(k, dtype=bool)
+    nz = cd != 0
+    seen = nz[:, 0]
+    apart = seen.any(axis=1)  # every row nonzero and on columns no row before it uses
+    for i in range(1, m):
+        row = nz[:, i]
+        apart &= row.any(axis=1) & ~(seen & row).any(axis=1)
+        if i + 1 < m:
+            seen = seen | row
+    if np.isfinite(cd).all():  # finite: no inf · 0 in a dot product
+        clear[apart] = True
+    else:
+        apart[:] = False
+    rest = np.flatnonzero(~apart)
+    if rest.size:
+        resid, _ = _row_residuals(cd if rest.size == k else cd[rest])
+        clear[rest] = (resid > 2 * tol).all(axis=1)
+    return clear
 
 
 def _stacked_triangle(w: Array) -> Array:
@@ -293,7 +322,10 @@ def wald_systems(
     True
     """
     k, m, p = c.shape
-    cu = _to_working(sol, c)
+    j0 = sol.intercept
+    # no row involves the intercept: working and decision coordinates are both C / scale
+    plain = j0 is None or not c[..., j0].any()
+    cu = c / sol.scale if plain else _to_working(sol, c)
     flat = cu.reshape(k * m, p)[:, sol.kept]
     estimate = np.einsum("nr,r->n", flat, sol.theta).reshape(k, m)
     delta = estimate - d
@@ -308,9 +340,8 @@ def wald_systems(
         t = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
 
     # screen: clearly independent rows and clearly estimable rows (margin 2x either way)
-    cd = sol.decision_rows(c)  # redundancy in decision coordinates, as analyze_rows
-    resid, _ = _row_residuals(cd)
-    clear = cast("NDArray[np.bool_]", (resid > 2 * tol).all(axis=1))
+    cd = cu if plain else sol.decision_rows(c)  # redundancy in decision coordinates
+    clear = _clearly_independent(cd, tol)
     if sol.null_basis.shape[1]:
         clear &= (sol.estimability_residual(cu) <= tol / 2).all(axis=1)
     if m > r:  # more independent rows than the root has rows: singular or not estimable

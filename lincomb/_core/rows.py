@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg as sla
 from numpy.typing import NDArray
 
 from lincomb._core.triangular import safe_norm
@@ -64,7 +65,10 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     -----
     Greedy Gram–Schmidt with reorthogonalization on the row-normalized ``C``: a row is redundant
     when what is left after projecting it on the kept rows is at most ``tol`` of its norm.  Its
-    weights on the kept rows come from a least-squares solve.  Cost is O(m² p).
+    weights on the kept rows come from a least-squares solve.  Cost is O(m² p).  A system whose
+    rows use disjoint sets of columns (exactly orthogonal), or are all clearly independent
+    (each at least ``2·tol`` outside the span of the rows before it, by one QR of the
+    normalized rows), skips the greedy pass, whose answer it then knows.
 
     Examples
     --------
@@ -75,7 +79,11 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
     ([0, 1], {2: {0: 1.0, 1: 1.0}}, [])
     """
     m = cu.shape[0]
+    if _apart(cu):
+        return RowAnalysis(np.arange(m, dtype=np.intp), {}, [])
     norms = safe_norm(cu, axis=1)
+    if _clearly_independent(cu, norms, tol):
+        return RowAnalysis(np.arange(m, dtype=np.intp), {}, [])
     basis: list[Array] = []
     kept: list[int] = []
     deps: dict[int, dict[int, float]] = {}
@@ -102,3 +110,35 @@ def analyze_rows(cu: Array, d: Array, tol: float = ROW_TOL) -> RowAnalysis:
         if abs(float(d[i]) - implied) > tol * size:
             bad.append((i, float(d[i]), implied))
     return RowAnalysis(np.array(kept, dtype=np.intp), deps, bad)
+
+
+def _apart(cu: Array) -> bool:
+    """True when the rows are nonzero, finite and use disjoint sets of columns.
+
+    Such rows are exactly orthogonal (every product in their dot products has a zero factor),
+    so the greedy pass of :func:`analyze_rows` leaves each whole and keeps them all.
+    """
+    nz = cu != 0
+    return bool(
+        cu.shape[0]
+        and nz.sum(axis=0).max() <= 1
+        and nz.any(axis=1).all()
+        and np.abs(cu).max() < np.inf
+    )
+
+
+def _clearly_independent(cu: Array, norms: Array, tol: float) -> bool:
+    """True when every row is at least ``2·tol`` (relative) outside the span of the rows before
+    it, so that the greedy pass of :func:`analyze_rows` would keep them all.
+
+    One Householder QR of the row-normalized ``Cᵀ``: ``|R_ii|`` is the distance of row ``i`` to
+    the span of the rows before it, the quantity the greedy pass compares with ``tol``, up to
+    rounding (about ``eps``); the margin of two makes the screen decide nothing near the
+    threshold, where the greedy pass decides instead.
+    """
+    m, p = cu.shape
+    if m == 0 or m > p or not (0 < norms.min() and norms.max() < np.inf):
+        return False
+    # LAPACK geqrf in place on the normalized copy: only R's diagonal is read
+    qr, _tau, _work, info = sla.lapack.dgeqrf((cu / norms[:, None]).T, overwrite_a=1)
+    return bool(info == 0 and np.abs(qr.diagonal()).min() > 2 * tol)

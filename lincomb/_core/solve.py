@@ -137,9 +137,11 @@ class Solution:
         True
         """
         c = np.asarray(c, dtype=np.float64)
+        j = self.intercept
+        if j is None or not c[..., j].any():  # no row involves the intercept: no shift
+            return c / self.scale
         cu = c.copy()
-        if self.intercept is not None:
-            cu -= c[..., [self.intercept]] * self.center
+        cu -= c[..., [j]] * self.center
         return cu / self.scale
 
     def decision_rows(self, c: Array) -> Array:
@@ -166,7 +168,7 @@ class Solution:
         """
         c = np.asarray(c, dtype=np.float64)
         j = self.intercept
-        if j is None:
+        if j is None or not c[..., j].any():  # no row involves the intercept: nothing to project
             return c / self.scale
         c0 = c[..., :, j : j + 1]
         c00 = np.sum(c0 * c0, axis=-2, keepdims=True)

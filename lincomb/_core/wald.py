@@ -12,7 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution
-from lincomb._core.triangular import safe_norm, triangular_factor, upper_solve
+from lincomb._core.triangular import plain_norm, safe_norm, triangular_factor, upper_solve
 
 __all__ = ["WaldCore", "intercept_rotation", "restricted_step", "wald_from_root"]
 
@@ -75,14 +75,20 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     >>> w.quad, w.std_error.tolist()
     (1.0, [2.0])
     """
-    se = safe_norm(root, axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
-    vk = root[:, independent]
-    chol = triangular_factor(vk)
+    plain = plain_norm(np.asarray(root, dtype=np.float64), 0)
+    if plain is not None:  # every row has a positive, finite standard error
+        se = plain
+        stat = delta / se
+    else:
+        se = safe_norm(root, axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            stat = np.where(se > 0, delta / np.where(se > 0, se, 1.0), np.nan)
     q = independent.size
+    # every row independent (``independent`` is then 0 .. m-1): no copy of the root
+    vk = root if q == root.shape[1] else root[:, independent]
+    chol = triangular_factor(vk)
     if q:
-        sol = upper_solve(chol, delta[independent], trans=True)
+        sol = upper_solve(chol, delta if vk is root else delta[independent], trans=True)
         quad = float(sol @ sol)
     else:
         quad = 0.0

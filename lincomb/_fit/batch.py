@@ -8,13 +8,14 @@ offending system and row when something is wrong, and attaches the reference dis
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import special
 
-from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item
+from lincomb._builder.restriction import Expr, RestrictionSystem, TermRef, _Item, as_system
+from lincomb._builder.stack import stack_systems
 from lincomb._core import ROW_TOL, BatchCore, wald_systems
 from lincomb._covariance.estimate import COV_RANK_TOL, CovarianceEstimate
 from lincomb._covariance.reference import check_reference
@@ -47,6 +48,28 @@ def _is_restriction(obj: object) -> bool:
 
 
 def _from_restrictions(
+    fit: LinearFit, items: Sequence[object]
+) -> tuple[NDArray[np.float64], NDArray[np.float64], tuple[RestrictionSystem, ...]]:
+    """The systems stacked into ``(C, d)``, and the systems themselves (for their labels).
+
+    All systems at once through the fit's resolver (:func:`stack_systems`); when that finds
+    anything wrong, system by system, which raises the error naming the system."""
+    try:
+        systems: tuple[RestrictionSystem, ...]
+        if set(map(type, items)) == {RestrictionSystem}:  # as_system would return each as is
+            systems = cast("tuple[RestrictionSystem, ...]", tuple(items))
+        else:
+            systems = tuple(as_system(obj) for obj in items)
+        stacked = stack_systems(systems, fit.resolver)
+    except LincombError:
+        stacked = None
+    if stacked is None:
+        c, d, _labels = _one_by_one(fit, items)  # raises the error that names the system
+        return c, d, tuple(as_system(obj) for obj in items)
+    return stacked[0], stacked[1], systems
+
+
+def _one_by_one(
     fit: LinearFit, items: Sequence[object]
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], tuple[tuple[str, ...], ...]]:
     cs: list[NDArray[np.float64]] = []
@@ -228,7 +251,7 @@ def wald_batch(
             " vectorized batch does not compute: test the systems one by one with fit.wald,"
             " or pass df= to lc.clustered(...) for one df, or use reference='chi2'."
         )
-    labels = None
+    given = None
     if not isinstance(c, np.ndarray) and not isinstance(c, (str, bytes)):
         items = list(c)  # type: ignore[arg-type]
         if items and _is_restriction(items[0]):
@@ -237,7 +260,7 @@ def wald_batch(
                     "d comes with the restrictions themselves (the right-hand side of '=='):"
                     " pass d only with an array C."
                 )
-            cs, ds, labels = _from_restrictions(fit, items)
+            cs, ds, given = _from_restrictions(fit, items)
         else:
             cs, ds = _from_arrays(fit.names, items, d)
     else:
@@ -285,10 +308,10 @@ def wald_batch(
         redundant=core.dependencies,
         names=tuple(fit.names),
         matrix=cs,
-        labels=labels,
         reference=ref,
         covariance=vcov.label,
-        _index=fit.index,
+        _index=fit.resolver,
+        _given=given,
     )
     if on_invalid == "raise":
         _raise_invalid(fit, core, res, vcov)

@@ -298,8 +298,6 @@ class EstimatesFit(ReportTables):
         est = c @ self.coefficients.to_numpy()
         wc = core.wald_from_root(est - d, root, analysis.independent)
         dist, stat, df_error, p_value = reference_result(wc.quad, wc.rank, self._df(ref), ref)
-        with np.errstate(over="ignore", under="ignore"):
-            gram = root.T @ root
         return WaldTest(
             labels=tuple(labels),
             estimate=est,
@@ -313,8 +311,9 @@ class EstimatesFit(ReportTables):
             reference=dist,
             covariance=self.label,
             redundant=analysis.dependencies,
-            matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
-            estimate_covariance=gram,
+            _c=c,
+            _names=tuple(self.names),
+            _root=root,
         )
 
     # -- presentation -------------------------------------------------------------------

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -172,6 +173,34 @@ class LinearFit(ReportTables):
         """
         return self._vcov
 
+    @cached_property
+    def resolver(self) -> ModelResolver:
+        """The resolver of restriction names on this fit, built once and reused by every test.
+
+        Pairs the coefficient index with the formula encoder (see
+        :class:`~lincomb._builder.resolver.ModelResolver`) and remembers each name, term and
+        level it has looked up, so tests in a loop resolve names at the cost of a dictionary
+        look-up.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.resolver is f.resolver, f.resolver.column("line[T.L3]")
+        (True, 2)
+        """
+        return ModelResolver.of(self)
+
+    @cached_property
+    def _classical(self) -> CovarianceEstimate:
+        # the classical estimate, evaluated once: tests without covariance= reuse it
+        return evaluate(self, None)
+
+    @cached_property
+    def _kept_in_order(self) -> bool:
+        # every column kept, in design order: rows of C need no reordering to working order
+        return bool(np.array_equal(self._sol.kept, np.arange(self._sol.p)))
+
     # -- basic quantities ---------------------------------------------------------------
     @property
     def index(self) -> CoefficientIndex:
@@ -237,8 +266,8 @@ class LinearFit(ReportTables):
         >>> f.evaluate_covariance().label, f.evaluate_covariance("HC1").label
         ('classical', 'HC1')
         """
-        if covariance is None and self._vcov is not None:
-            return self._vcov
+        if covariance is None:
+            return self._classical if self._vcov is None else self._vcov
         return evaluate(self, covariance)
 
     def with_covariance(self, covariance: object) -> LinearFit:
@@ -425,7 +454,7 @@ class LinearFit(ReportTables):
         """
         system: RestrictionSystem = as_system(restrictions)
         # the resolver also carries the formula encoder, for contrasts on level means
-        return system.resolve(ModelResolver.of(self))
+        return system.resolve(self.resolver)
 
     def prepare(
         self, restrictions: object
@@ -458,7 +487,9 @@ class LinearFit(ReportTables):
         ([0], [1])
         """
         c, d, labels = self.resolve(restrictions)
-        cu, analysis = check_rows(self._sol, c, d, labels, self.names, hint=aliasing_hint(self))
+        cu, analysis = check_rows(
+            self._sol, c, d, labels, self.names, hint=lambda: aliasing_hint(self)
+        )
         return c, d, labels, cu, analysis
 
     def wald(
@@ -520,20 +551,22 @@ class LinearFit(ReportTables):
         ref = check_reference(reference)
         c, d, labels, cu, analysis = self.prepare(restrictions)
         sol = self._sol
-        root = vcov.root(cu[:, sol.kept])
-        est = cu[:, sol.kept] @ sol.theta
+        cu_kept = cu if self._kept_in_order else cu[:, sol.kept]
+        root = vcov.root(cu_kept)
+        est = cu_kept @ sol.theta
         check_rank(root, analysis.independent, labels, vcov)
         wc = core.wald_from_root(est - d, root, analysis.independent)
         k = analysis.independent
         dist, stat, df_error, p_value, row_df = test_reference(
-            vcov, wc.quad, wc.rank, cu[:, sol.kept], k, ref
+            vcov, wc.quad, wc.rank, cu_kept, k, ref
         )
-        rotated = core.intercept_rotation(c[k], d[k], sol.intercept)
+        every = k.size == d.size  # every row independent: k is 0 .. m-1
+        rotated = core.intercept_rotation(c if every else c[k], d if every else d[k], sol.intercept)
         if rotated is not None:  # same F, rows free of the intercept (see lincomb._core)
             cr = sol.to_working(rotated[0])[:, sol.kept]
             rot = core.wald_from_root(cr @ sol.theta - rotated[1], vcov.root(cr), np.arange(k.size))
             dist, stat, df_error, p_value, row_df = test_reference(
-                vcov, rot.quad, wc.rank, cu[:, sol.kept], k, ref
+                vcov, rot.quad, wc.rank, cu_kept, k, ref
             )
         return WaldTest(
             labels=tuple(labels),
@@ -548,9 +581,10 @@ class LinearFit(ReportTables):
             reference=dist,
             covariance=vcov.label,
             redundant=analysis.dependencies,
-            matrix=pd.DataFrame(c, index=labels, columns=list(self.names)),
-            estimate_covariance=_gram(root),
             row_df=row_df,
+            _c=c,
+            _names=self.names,
+            _root=root,
         )
 
     def wald_batch(

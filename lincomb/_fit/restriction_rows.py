@@ -6,7 +6,7 @@ rules and the wording of their errors are the same everywhere.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 from numpy.typing import NDArray
@@ -54,12 +54,13 @@ def check_rows(
     labels: Sequence[str],
     names: Sequence[str],
     where: str = "this rank-deficient design",
-    hint: str = "",
+    hint: str | Callable[[], str] = "",
 ) -> tuple[NDArray[np.float64], core.RowAnalysis]:
     """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
 
     Shared by every path that tests or imposes restrictions (fits, planned designs), so the
-    rules and the wording of their errors are the same everywhere.
+    rules and the wording of their errors are the same everywhere.  ``hint`` ends the message
+    of a non-estimable row: a string, or a function that gives it (called only then).
 
     Returns
     -------
@@ -89,6 +90,8 @@ def check_rows(
     # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
     analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
     refuse_inconsistent(analysis, labels)
+    if sol.null_basis.shape[1] == 0:  # a full-rank design: every row is estimable
+        return cu, analysis
     resid = sol.estimability_residual(cu)
     bad = np.flatnonzero(resid > core.ROW_TOL)
     if bad.size:
@@ -101,6 +104,7 @@ def check_rows(
             f"restriction not estimable under {where}: "
             + "; ".join(msgs)
             + f". Aliased columns: {aliased}. Restate the row as a contrast that the data"
-            " identify, or change the design so those columns are not aliased." + hint
+            " identify, or change the design so those columns are not aliased."
+            + (hint if isinstance(hint, str) else hint())
         )
     return cu, analysis

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -103,9 +104,51 @@ class WaldTest(WaldResult):
     reference: str
     covariance: str
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
-    matrix: pd.DataFrame | None = field(default=None, repr=False)
-    estimate_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
     row_df: NDArray[np.float64] | None = field(default=None, repr=False)
+    # the resolved C, the coefficient names and a root W of the estimates' covariance (WᵀW):
+    # ``matrix`` and ``estimate_covariance`` are built from them when first asked for
+    _c: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+    _names: tuple[str, ...] = field(default=(), repr=False, compare=False)
+    _root: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+
+    @cached_property
+    def estimate_covariance(self) -> NDArray[np.float64] | None:
+        """Estimated covariance of ``Cβ̂`` (all rows) under the test's covariance estimator.
+
+        ``WᵀW`` from the root ``W`` the test used, formed on first access; entries past the
+        float64 range become inf or 0 without a warning.
+
+        Examples
+        --------
+        >>> import numpy as np, lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> res = f.wald(lc.term("line") == 0)
+        >>> bool(np.allclose(np.sqrt(np.diag(res.estimate_covariance)), res.se))
+        True
+        """
+        if self._root is None:
+            return None
+        with np.errstate(over="ignore", under="ignore"):
+            out: NDArray[np.float64] = self._root.T @ self._root
+        return out
+
+    @cached_property
+    def matrix(self) -> pd.DataFrame | None:
+        """The resolved ``C``: rows labelled, columns named by coefficient.
+
+        Built on first access (a test in a loop does not pay for a frame it never reads).
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald(lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).matrix
+                                 Intercept  line[T.L2]  line[T.L3]  line[T.L4]
+        line[T.L2] - line[T.L3] = 0        0.0         1.0        -1.0         0.0
+        """
+        if self._c is None:
+            return None
+        return pd.DataFrame(self._c, index=list(self.labels), columns=list(self._names))
 
     @property
     def row_p(self) -> NDArray[np.float64]:
@@ -542,13 +585,32 @@ class WaldBatch(WaldResult):
     redundant: dict[int, dict[int, dict[int, float]]] = field(default_factory=dict)
     names: tuple[str, ...] = ()
     matrix: NDArray[np.float64] | None = field(default=None, repr=False)
-    labels: tuple[tuple[str, ...], ...] | None = field(default=None, repr=False)
     reference: str = "F"
     covariance: str = "classical"
     _index: Any = field(default=None, repr=False, compare=False)
+    # the restriction systems as given (their labels are written when first asked for)
+    _given: tuple[Any, ...] | None = field(default=None, repr=False, compare=False)
 
     def __len__(self) -> int:
         return len(self.systems)
+
+    @cached_property
+    def labels(self) -> tuple[tuple[str, ...], ...] | None:
+        """Row labels of every system given as restrictions (None for an array ``C``).
+
+        Written on first access, from the systems and the fit's names: a batch whose labels
+        nobody reads does not pay for writing them.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald_batch([lc.coef("line[T.L2]") == 0, lc.term("line")["L3"] == 1]).labels
+        (('line[T.L2] = 0',), ('line[L3] = 1',))
+        """
+        if self._given is None:
+            return None
+        return tuple(tuple(s.row_labels(self._index)) for s in self._given)
 
     @property
     def row_p(self) -> NDArray[np.float64]:
@@ -574,8 +636,10 @@ class WaldBatch(WaldResult):
         >>> b.row_labels(1)
         ('line[T.L4] = -1',)
         """
-        if self.labels is not None:
+        if "labels" in self.__dict__ and self.labels is not None:  # written already
             return self.labels[system]
+        if self._given is not None:
+            return tuple(self._given[system].row_labels(self._index))
         if self.matrix is None or self._index is None:
             return tuple(f"row {i}" for i in range(self.estimate.shape[1]))
         from lincomb._builder.restriction import from_matrix
