@@ -7,35 +7,46 @@ nothing of fits, names or frames; :mod:`lincomb._results.multiplicity` puts it o
 
 The max-|t| distribution
 ------------------------
-``P(max_i |T_i| <= c)`` has no closed form.  Two integrators, both seeded so results are
-reproducible, each repeated over independent randomizations (:data:`REPLICATES`) whose spread
-gives the standard error reported with the result:
+``P(max_i |T_i| <= c)`` has no closed form in general.  The routes, chosen from the numbers of
+the correlation matrix alone:
 
-* *full-rank families* go to :func:`scipy.stats.multivariate_t` (or
-  :func:`scipy.stats.multivariate_normal` when ``ν`` is infinite), randomized lattice rules;
-* *families with redundant rows* (all pairwise differences: ``k(k-1)/2`` rows of rank ``k-1``)
-  have a singular correlation matrix, on which that routine returns wrong probabilities.  Such
-  a family is kept whole by default and integrated in its rank-``r`` form: with ``T = L Z / S``,
-  ``L`` of rank ``r``, write ``Z = R·U`` (``U`` uniform on the unit sphere of ``ℝ^r``); then
-  ``P(max|T| <= c) = E_U[F_{r,ν}(c² / (r · max_i (l_i·U)²))]`` exactly, and ``U`` is integrated
-  by scrambled Sobol points (spherical-radial rule).  ``redundant="drop"`` instead removes the
-  redundant rows from the family (they get no adjusted p-value or interval) and says so.
+* *rank one*: exact (the t distribution);
+* *all pairwise differences of exchangeable means* (a balanced one-way layout): the
+  studentized range, and *equicorrelated rows*: deterministic quadratures with an error
+  estimate (see :func:`detect_structure`);
+* *every other family* (``engine="auto"`` or ``"sequential"``): the general rule of
+  :mod:`lincomb._core.maxt_sequential`, sequential conditioning on the ``r`` coordinates of a
+  rank-``r`` family (not its ``m`` rows), with union sampling for far tails, over independent
+  random shifts of a Sobol sequence.  When the rows are all pairwise differences of
+  independent means with unequal variances (a one-way layout with unequal group sizes), a
+  neighbouring family with an exact one-dimensional probability
+  (:mod:`lincomb._core.maxt_pairs`) serves as a control variate, which cuts the error by
+  one to two orders of magnitude at the same number of points;
+* ``engine="scipy"`` (:func:`scipy.stats.multivariate_t`, full rank only) and
+  ``engine="spherical-radial"`` (directions by scrambled Sobol points, radius exact) are the
+  earlier rules, kept for comparison.
 
-The sample size per replicate doubles until the standard error of the probability is at most
-``tol`` (default :data:`DEFAULT_TOL`) or ``max_points`` is reached (then an
-:class:`~lincomb.errors.IntegrationAccuracyWarning` is issued).  A critical value is found
-by a root search on the rule held fixed (first with the cheap spherical-radial rule, then
-refined with the final one); its standard error is the probability's over the density.  An
-adjusted p-value ``p`` is integrated to standard error ``max(tol, P_REL_TOL·p)``, and one below
-:data:`SMALL_TAIL` to relative standard error :data:`SMALL_TAIL_REL_TOL` by the
-spherical-radial rule (scipy's routines bound the absolute error only, and lose every digit of
-a 1e-9 tail).  Adjusted max-|t| p-values are kept within their exact bounds
+Accuracy.  The randomized rules double their points until the standard error of the
+probability is at most ``tol`` (default :data:`DEFAULT_TOL`) or ``max_points`` is reached (then
+an :class:`~lincomb.errors.IntegrationAccuracyWarning` is issued).  The general rule decides the
+points on one set of :data:`REPLICATES` scrambles and measures the error on a second,
+independent set at that number of points: deciding and measuring on the same scrambles stops
+on the runs whose error estimate came out small, which under-reports the error.  The reported
+error is therefore honest, and may come out a little above or below ``tol``.  A critical value
+is the mean of per-scramble roots (each the root of that scramble's estimate near a first
+guess), so its standard error comes straight from their spread; ``critical_error`` is the
+:data:`COVERAGE` (99%) bound from Student's t with ``REPLICATES − 1`` df, which the tests check
+over 200 seeds against exact values.  An adjusted p-value ``p`` is integrated to standard
+error ``max(tol, P_REL_TOL·p)``, and one below :data:`SMALL_TAIL` to relative standard error
+:data:`SMALL_TAIL_REL_TOL` (union sampling keeps its relative accuracy there; the earlier rules
+bound the absolute error only).  Adjusted max-|t| p-values are kept within their exact bounds
 ``[p, min(1, m·p)]`` (``m`` rows), which removes integration noise and nothing else.
 """
 
 from __future__ import annotations
 
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -44,9 +55,13 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, special, stats
 
 from lincomb._core.checks import check_level, check_tolerance
-from lincomb.errors import InputError, IntegrationAccuracyWarning
+from lincomb._core.maxt_pairs import PairsControl, independent_pairs
+from lincomb._core.maxt_sequential import SequentialRule
+from lincomb.errors import InputError, IntegrationAccuracyWarning, InternalError
 
 __all__ = [
+    "COVERAGE",
+    "ENGINES",
     "DEFAULT_SEED",
     "DEFAULT_TOL",
     "DEFAULT_MAX_POINTS",
@@ -62,12 +77,22 @@ Array = NDArray[np.float64]
 #: Seed of the randomized integration rules (any integer; results depend on it only through
 #: integration error, see the reported standard error).
 DEFAULT_SEED: int = 20_240_917
-#: Target standard error of an integrated probability.
+#: Target standard error of an integrated probability (at the critical value, for intervals).
 DEFAULT_TOL: float = 1e-5
 #: Largest number of integration points per replicate.
 DEFAULT_MAX_POINTS: int = 2**18
 #: Independent randomizations of the integration rule (their spread gives the error).
 REPLICATES: int = 10
+#: Confidence of the error bounds reported beside standard errors (``critical_error``,
+#: ``p_value_error``): Student's t quantile with ``REPLICATES − 1`` df times the s.e.
+COVERAGE: float = 0.99
+#: Integration engines: ``"auto"`` uses a detected structure (deterministic quadratures) and
+#: otherwise the sequential rule (with the pairs control family where it applies);
+#: ``"sequential"`` the sequential rule alone; ``"scipy"`` and ``"spherical-radial"`` the
+#: earlier rules (kept for comparison).
+ENGINES: tuple[str, ...] = ("auto", "sequential", "scipy", "spherical-radial")
+SEQUENTIAL_ROUTINE: str = "sequential conditioning, scrambled Sobol"
+PAIRS_CONTROL_NOTE: str = " (pairs control family)"
 #: An adjusted max-|t| p-value ``p`` is integrated to standard error ``max(tol, P_REL_TOL·p)``:
 #: three significant digits where the absolute target would be needlessly strict.
 P_REL_TOL: float = 1e-3
@@ -107,12 +132,21 @@ class IntegrationReport:
     rank : int
         Rank of its correlation matrix.
     critical_std_error : float or None
-        Standard error of a critical value (``std_error`` over the density there).
+        Standard error of a critical value (``std_error`` over the density there; for the
+        sequential rule, from the spread of the scrambles' own roots).
     p_value_std_error : float or None
         Largest standard error among the adjusted p-values, when they were integrated.
     small_tails : str or None
         Set when small adjusted p-values were integrated by another rule (see
         :data:`SMALL_TAIL`).
+    critical_error : float or None
+        Error bound of the critical value at confidence ``coverage``: the t quantile with
+        ``replicates − 1`` df times ``critical_std_error`` (a deterministic quadrature's error
+        estimate as it is).  Checked over many seeds in the tests.
+    p_value_error : float or None
+        The same bound for the largest ``p_value_std_error``.
+    coverage : float
+        Confidence of those bounds (:data:`COVERAGE`).
 
     Examples
     --------
@@ -125,8 +159,10 @@ class IntegrationReport:
     ('studentized range quadrature', 6, 3, True)
     >>> corr = np.array([[1.0, 0.3, 0.1], [0.3, 1.0, 0.2], [0.1, 0.2, 1.0]])
     >>> c, rep = max_abs_t_quantile(0.95, corr, df=20.0)
-    >>> rep.routine, rep.replicates
-    ('scipy.stats.multivariate_t', 10)
+    >>> rep.routine, rep.replicates, rep.converged
+    ('sequential conditioning, scrambled Sobol', 10, True)
+    >>> bool(rep.critical_error > rep.critical_std_error)     # 99% bound from 9 df of t
+    True
     """
 
     routine: str
@@ -141,6 +177,9 @@ class IntegrationReport:
     critical_std_error: float | None = None
     p_value_std_error: float | None = None
     small_tails: str | None = None
+    critical_error: float | None = None
+    p_value_error: float | None = None
+    coverage: float = COVERAGE
 
     def text(self) -> str:
         """One line describing the integration.
@@ -165,11 +204,21 @@ class IntegrationReport:
             if self.p_value_std_error is not None:
                 parts.append(f"adjusted p error <= {self.p_value_std_error:.2g}")
             return ", ".join(parts) + ("" if self.converged else "; NOT converged")
-        parts = [f"{self.routine}: {self.replicates} x {self.points} points, seed {self.seed}"]
+        scrambles = (
+            f"{self.replicates}"
+            if not self.routine.startswith(SEQUENTIAL_ROUTINE)
+            else f"2 x {self.replicates}"
+        )
+        parts = [f"{self.routine}: {scrambles} x {self.points} points, seed {self.seed}"]
         if self.critical_std_error is not None:
+            bound = (
+                ""
+                if self.critical_error is None
+                else f" (error <= {self.critical_error:.2g} at {100 * self.coverage:g}%)"
+            )
             parts.append(
                 f"probability s.e. {self.std_error:.2g} at the critical value (tol"
-                f" {self.tol:.2g}), critical value s.e. {self.critical_std_error:.2g}"
+                f" {self.tol:.2g}), critical value s.e. {self.critical_std_error:.2g}{bound}"
             )
         elif self.p_value_std_error is None:
             parts.append(f"probability s.e. {self.std_error:.2g} (tol {self.tol:.2g})")
@@ -228,10 +277,8 @@ class _Integrator:
             rank = int(np.count_nonzero(evals > 1e-9 * max(float(evals[-1]), 1e-300) * m))
         if not 1 <= rank <= m:
             raise InputError(f"rank must be between 1 and {m}, got {rank}.")
-        if engine not in ("auto", "scipy", "spherical-radial"):
-            raise InputError(
-                f"engine must be 'auto', 'scipy' or 'spherical-radial', got {engine!r}."
-            )
+        if engine not in ENGINES:
+            raise InputError(f"engine must be one of {list(ENGINES)}, got {engine!r}.")
         if engine == "scipy" and rank < m:
             raise InputError(
                 f"the correlation matrix has rank {rank} < {m}: scipy's integrator is wrong for"
@@ -247,12 +294,17 @@ class _Integrator:
         elif structure != "general":
             self.kind = structure
             self.m_unique = int(_unique_rows(corr).size)
-        elif engine == "scipy" or (engine == "auto" and rank == m):
-            self.kind = "scipy"
+        elif engine in ("scipy", "spherical-radial"):
+            self.kind = engine
         else:
-            self.kind = "spherical-radial"
+            self.kind = "sequential"
         top = evecs[:, -rank:] * np.sqrt(np.clip(evals[-rank:], 0, None))
         self.loadings = top / np.linalg.norm(top, axis=1, keepdims=True)
+        self.control: PairsControl | None = None
+        if self.kind == "sequential":
+            if engine == "auto":
+                self.control = _pairs_control(corr, rank)
+            self.rule = SequentialRule(self.loadings, df, self.seed, REPLICATES, self.control)
         # plain integer seeds: a fresh generator per use (scipy's Sobol spawns from the seed
         # sequence of the generator it is given, which would change a shared one)
         self.streams = [
@@ -274,6 +326,8 @@ class _Integrator:
             return "studentized range quadrature"
         if self.kind == "equicorrelated":
             return "equicorrelated quadrature"
+        if self.kind == "sequential":
+            return SEQUENTIAL_ROUTINE + (PAIRS_CONTROL_NOTE if self.control is not None else "")
         return "exact" if self.kind == "exact" else "spherical-radial Sobol"
 
     @property
@@ -360,6 +414,8 @@ class _Integrator:
                 self.kind, self.param, self.m_unique, self.df, c, _QUAD_TOL, _QUAD_REL
             )
             return q, err
+        if self.kind == "sequential":
+            raise InternalError("the sequential rule chooses its own points: use tails()")
         if self.kind == "spherical-radial":
             per = self._spherical_tail(c, points)
         else:
@@ -393,7 +449,12 @@ class _Integrator:
         return mean, se
 
     def report(
-        self, points: int, se: float, tol: float, crit_se: float | None = None
+        self,
+        points: int,
+        se: float,
+        tol: float,
+        crit_se: float | None = None,
+        converged: bool | None = None,
     ) -> IntegrationReport:
         exact = self.deterministic
         if self.kind == "exact":
@@ -411,11 +472,20 @@ class _Integrator:
             replicates=0 if exact else REPLICATES,
             std_error=float(se),
             tol=float(tol),
-            converged=bool(se <= tol),
+            converged=bool(se <= tol) if converged is None else bool(converged),
             rows=self.m,
             rank=self.rank,
             critical_std_error=crit_se,
+            critical_error=None if crit_se is None else self.half_width(crit_se),
         )
+
+    def half_width(self, se: float) -> float:
+        """The error bound reported beside a standard error: the :data:`COVERAGE` quantile of
+        Student's t with ``REPLICATES − 1`` df times it (the error is the mean of independent
+        scrambles); a deterministic quadrature's error estimate is used as it is."""
+        if self.deterministic:
+            return float(se)
+        return float(stats.t.ppf(0.5 + COVERAGE / 2, REPLICATES - 1) * se)
 
 
 #: Nodes of the spline in ``M`` used by the spherical-radial rule.
@@ -467,13 +537,17 @@ def max_abs_t_cdf(
     rank : int, optional
         Rank of ``corr`` (default: eigenvalues above ``1e-9 · m ·`` the largest).
     tol : float, default :data:`DEFAULT_TOL`
-        Target standard error of each probability.
+        Target standard error of each probability (for the sequential rule: the points are
+        chosen on one set of scrambles to reach it, and the error reported is measured on an
+        independent set, see the module notes).
     seed : int, default :data:`DEFAULT_SEED`
     max_points : int, default :data:`DEFAULT_MAX_POINTS`
         Cap on the integration points per replicate.
-    engine : {'auto', 'scipy', 'spherical-radial'}
-        ``'auto'``: scipy's integrator for a full-rank ``corr``, the spherical-radial rule
-        otherwise (see the module notes).
+    engine : {'auto', 'sequential', 'scipy', 'spherical-radial'}
+        ``'auto'``: a deterministic quadrature where the correlations have a structure for
+        it, else the sequential rule (with the pairs control family where it applies);
+        ``'sequential'``: the sequential rule alone; ``'scipy'`` (full rank only) and
+        ``'spherical-radial'``: the earlier rules (see the module notes).
 
     Returns
     -------
@@ -494,11 +568,17 @@ def max_abs_t_cdf(
     if np.any(~np.isfinite(cs)) or np.any(cs < 0):
         raise InputError(f"thresholds must be finite and non-negative, got {cs.tolist()}.")
     integ = _Integrator(r, d, rank, seed, engine)
-    tail, se, points = _tail_to_tol(integ, cs, tol, max_points)
+    if integ.kind == "sequential":
+        uniq, inv = np.unique(cs, return_inverse=True)
+        tail, se, points, ok = integ.rule.tails(uniq, tol, max_points)
+        tail, se = tail[inv], se[inv]
+    else:
+        tail, se, points = _tail_to_tol(integ, cs, tol, max_points)
+        ok = bool(np.all(se <= tol))
     worst = float(se.max()) if se.size else 0.0
-    if worst > tol:
+    if not ok:
         _warn_unconverged("max-|t| probability", worst, tol, max_points)
-    return np.clip(1.0 - tail, 0.0, 1.0), integ.report(points, worst, tol)
+    return np.clip(1.0 - tail, 0.0, 1.0), integ.report(points, worst, tol, converged=ok)
 
 
 def _tail_to_tol(
@@ -506,14 +586,40 @@ def _tail_to_tol(
 ) -> tuple[Array, Array, int]:
     """``P(max|T| > c)`` for each ``c``, doubling the points until each s.e. is at most
     ``max(tol, rel · value)``."""
-    points = min(integ.start_points(), max_points)
     uniq, inv = np.unique(cs, return_inverse=True)
+    points = min(integ.start_points(), max_points)
     while True:
         q, se = integ.tail(uniq, points)
         ok = bool(np.all(se <= np.maximum(tol, rel * q)))
         if integ.deterministic or ok or points >= max_points:
             return np.clip(q[inv], 0.0, 1.0), se[inv], points
         points = min(2 * points, max_points)
+
+
+def _targets(tol: float, rel: float, rel_small: float | None = None) -> Callable[[Array], Array]:
+    """Standard-error targets as a function of the tail: ``max(tol, rel · tail)``, and
+    ``rel_small · tail`` below :data:`SMALL_TAIL` when ``rel_small`` is given."""
+
+    def target(tail: Array) -> Array:
+        tail = np.asarray(tail, dtype=np.float64)
+        out = np.maximum(tol, rel * tail)
+        if rel_small is not None:
+            out = np.where(tail < SMALL_TAIL, rel_small * tail, out)
+        return np.asarray(out)
+
+    return target
+
+
+def _pairs_control(corr: Array, rank: int) -> PairsControl | None:
+    """The control family of :mod:`lincomb._core.maxt_pairs` when the rows are all pairwise
+    differences of independent means (and the neighbour is close enough to help)."""
+    unique = _unique_rows(corr)
+    if unique.size != rank * (rank + 1) // 2 or unique.size > _RANGE_MAX_ROWS:
+        return None
+    control = independent_pairs(corr, unique, STRUCTURE_TOL)
+    if control is None or np.max(np.abs(control.scale - 1.0)) > _CONTROL_MAX_SHIFT:
+        return None
+    return control
 
 
 def _bounds(level: float, m: int, df: float) -> tuple[float, float]:
@@ -600,6 +706,11 @@ def _quantile(
         err = float(err0[0]) + abs(float(q0[0]) - alpha)
         crit_err = err / density + 1e-12 * lo
         return crit, integ.report(0, err, tol, crit_err)
+    if integ.kind == "sequential":
+        crit, crit_se, se, points, reached = integ.rule.quantile(alpha, lo, hi, tol, max_points)
+        if not reached:
+            _warn_unconverged("max-|t| critical value", se, tol, max_points)
+        return crit, integ.report(points, se, tol, crit_se, converged=reached)
     if integ.kind == "scipy":
         guide = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
     else:
@@ -635,9 +746,11 @@ def max_abs_t_quantile(
     """Critical value ``c`` with ``P(max_i |T_i| <= c) = level``.
 
     Parameters are those of :func:`max_abs_t_cdf`.  ``c`` is found by Brent's method between
-    the marginal and the Bonferroni critical values, with the integration rule held fixed;
-    the report gives the probability's standard error at ``c`` and the implied standard error
-    of ``c`` (divided by the density, from a central difference).
+    the marginal and the Bonferroni critical values, with the integration rule held fixed.
+    The report gives the probability's standard error at ``c``, the standard error of ``c``
+    (for the sequential rule, the spread of per-scramble roots; otherwise the probability's
+    over the density) and ``critical_error``, a bound on the integration error of ``c`` at
+    confidence :data:`COVERAGE`.
 
     Examples
     --------
@@ -667,6 +780,14 @@ def adjusted_tails(
     # the relative targets tighten with ``tol`` (so a strict ``tol`` gives more digits)
     rel = P_REL_TOL * min(1.0, tol / DEFAULT_TOL)
     rel_small = SMALL_TAIL_REL_TOL * min(1.0, tol / DEFAULT_TOL)
+    if integ.kind == "sequential":  # union sampling keeps small tails accurate in itself
+        uniq, inv = np.unique(cs, return_inverse=True)
+        goal = _targets(tol, rel, rel_small)
+        tail, se, points, ok = integ.rule.tails(uniq, goal, max_points)
+        tail, se = tail[inv], se[inv]
+        if not ok:
+            _warn_unconverged("max-|t| adjusted p-values", float(se.max()), tol, max_points)
+        return tail, se, points, None, ok
     tail, se, points = _tail_to_tol(integ, cs, tol, max_points, rel)
     note = None
     small = tail < SMALL_TAIL
@@ -696,6 +817,9 @@ def adjusted_tails(
 STRUCTURE_TOL: float = 1e-8
 #: The all-pairs check costs about ``m² k`` operations; larger families use the general rule.
 _RANGE_MAX_ROWS: int = 2000
+#: The pairs control family is used when every row's limit moves by at most this fraction
+#: (group sizes within a factor of about 20 of each other); beyond, it helps little.
+_CONTROL_MAX_SHIFT: float = 0.3
 #: Largest grid (nodes per dimension) of the deterministic quadratures.
 _QUAD_MAX: int = 2**13 + 1
 #: Targets of the deterministic quadratures (far below any tolerance asked for; the half-grid
