@@ -232,7 +232,7 @@ class _Scrambles:
         for byte, offset in enumerate(self.offsets):
             out ^= np.take(self.tables, offset + ((base >> (8 * byte)) & 0xFF)[None, :, :])
         out ^= self.shifts
-        return (out + 0.5) / 2.0**_BITS
+        return np.asarray((out + 0.5) / 2.0**_BITS, dtype=np.float64)
 
     def points(self, start: int, stop: int) -> Array:
         """Points ``start .. stop-1`` of every scramble, shape ``(K, n, d)``."""
