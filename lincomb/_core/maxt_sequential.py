@@ -44,6 +44,7 @@ from numpy.typing import NDArray
 from scipy import optimize, special
 
 from lincomb._core.maxt_pairs import ControlCurve, PairsControl
+from lincomb._settings import blas_limit, worker_threads
 
 __all__ = ["SequentialRule", "chi_nodes"]
 
@@ -552,12 +553,20 @@ class SequentialRule:
         """``P(max|T| > c)`` for each ``c``: the mean of both parts, its standard error from
         the second part's spread (target ``target``, see :meth:`per_scramble`), the largest
         number of points per scramble used and whether every target was reached."""
-        first, second, counts, union, reached = self.per_scramble(cs, target, max_points)
+        with blas_limit(worker_threads()):  # many small products: one BLAS thread
+            first, second, counts, union, reached = self.per_scramble(cs, target, max_points)
         se = self.std_error(second, cs, union, counts)
         tail = (first.mean(axis=0) + second.mean(axis=0)) / 2
         return np.clip(tail, 0.0, 1.0), se, int(counts.max()), bool(reached.all())
 
     def quantile(
+        self, alpha: float, lo: float, hi: float, tol: float, max_points: int
+    ) -> tuple[float, float, float, int, bool]:
+        """The ``c`` with ``P(max|T| > c) = alpha`` (see :meth:`_quantile`)."""
+        with blas_limit(worker_threads()):  # many small products: one BLAS thread
+            return self._quantile(alpha, lo, hi, tol, max_points)
+
+    def _quantile(
         self, alpha: float, lo: float, hi: float, tol: float, max_points: int
     ) -> tuple[float, float, float, int, bool]:
         """The ``c`` with ``P(max|T| > c) = alpha``.
