@@ -142,6 +142,7 @@ def _factor(rho: Array, rank: int) -> tuple[Array, NDArray[np.intp]]:
     m = rho.shape[0]
     res = rho.copy()
     L = np.zeros((m, rank))
+    taken = 0
     done = np.zeros(m, dtype=bool)
     finish = np.full(m, rank - 1, dtype=np.intp)
     for j in range(rank):
@@ -170,6 +171,13 @@ def _factor(rho: Array, rank: int) -> tuple[Array, NDArray[np.intp]]:
         newly[p] = True
         finish[newly] = j
         done |= newly
+        taken = j + 1
+    L = L[:, :taken]
+    # rows left over (a remaining variance between FINISH_TOL and PIVOT_TOL, when the family
+    # is numerically of lower rank than asked) end at their last clearly non-zero entry
+    for i in np.flatnonzero(~done):
+        big = np.flatnonzero(np.abs(L[i]) > np.sqrt(FINISH_TOL))
+        finish[i] = int(big[-1]) if big.size else 0
     for i in range(m):
         L[i, finish[i] + 1 :] = 0.0
     return L, finish
@@ -301,10 +309,12 @@ class SequentialRule:
         self.rho = lo @ lo.T
         np.fill_diagonal(self.rho, 1.0)
         L, finish = _factor(self.rho, self.r)
+        self.coords = L.shape[1]  # coordinates of the sequential rule (r, or fewer if the
+        # family is numerically of lower rank)
         self.steps: list[tuple[Array, Array]] = []
         self.control_inv: list[Array] = []
         self.control = control
-        for j in range(self.r):
+        for j in range(self.coords):
             rows = np.flatnonzero(finish == j)
             lead = L[rows, j]
             sign = np.where(lead < 0, -1.0, 1.0)
@@ -321,7 +331,9 @@ class SequentialRule:
             for i in range(4)
         ]
         self._streams: dict[tuple[str, int], _Scrambles] = {}
-        self.seq_dim = self.r - 1 + (1 if np.isfinite(self.df) else 0)
+        # (at least one dimension: a family of one coordinate needs no uniforms but the
+        # generator needs a dimension)
+        self.seq_dim = max(1, self.coords - 1 + (1 if np.isfinite(self.df) else 0))
         self.s_nodes, self.s_prob = chi_nodes(self.df)
         self.s_cum = np.cumsum(self.s_prob)
         self.s_cum[-1] = 1.0
@@ -377,9 +389,9 @@ class SequentialRule:
     def _inside(self, x: Array, u: Array, invs: list[Array]) -> Array:
         """``∏_j (Φ(b_j) − Φ(a_j))`` at thresholds ``x`` (n,) and uniforms ``u`` (r−1, n)."""
         n = x.size
-        z = np.empty((self.r, n))
+        z = np.empty((self.coords, n))
         w = np.ones(n)
-        last = self.r - 1
+        last = self.coords - 1
         for j, ((coef, _inv), inv) in enumerate(zip(self.steps, invs, strict=True)):
             if j == 0:
                 b = x * float(inv.min())
@@ -613,7 +625,7 @@ class SequentialRule:
 
 def _first_root(gap: Callable[[Array], Array], lo: float, hi: float) -> float:
     """A root of an increasing function: the bracket widened if needed, then Brent's method
-    to a relative 1e-4 (the per-scramble parabolas correct the rest)."""
+    to a relative 1e-3 (the per-scramble parabolas, 5e-3 wide, correct the rest)."""
 
     def one(c: float) -> float:
         return float(gap(np.array([c]))[0])
@@ -627,7 +639,7 @@ def _first_root(gap: Callable[[Array], Array], lo: float, hi: float) -> float:
         if one(hi) >= 0:
             break
         hi, width = hi + width, 2 * width
-    return float(optimize.brentq(one, lo, hi, xtol=1e-4 * lo, rtol=1e-10))
+    return float(optimize.brentq(one, lo, hi, xtol=1e-3 * lo, rtol=1e-10))
 
 
 def _parabola_root(cs: Array, tails: Array, alpha: float) -> float:
