@@ -175,11 +175,11 @@ def _factor(rho: Array, rank: int) -> tuple[Array, NDArray[np.intp]]:
     L = L[:, :taken]
     # rows left over (a remaining variance between FINISH_TOL and PIVOT_TOL, when the family
     # is numerically of lower rank than asked) end at their last clearly non-zero entry
-    for i in np.flatnonzero(~done):
-        big = np.flatnonzero(np.abs(L[i]) > np.sqrt(FINISH_TOL))
-        finish[i] = int(big[-1]) if big.size else 0
-    for i in range(m):
-        L[i, finish[i] + 1 :] = 0.0
+    for left in np.flatnonzero(~done).tolist():
+        big = np.flatnonzero(np.abs(L[left]) > np.sqrt(FINISH_TOL))
+        finish[left] = int(big[-1]) if big.size else 0
+    for row in range(m):
+        L[row, finish[row] + 1 :] = 0.0
     return L, finish
 
 
