@@ -144,7 +144,9 @@ class IntegrationReport:
     tol : float
         Requested standard error (for adjusted p-values ``max(tol, P_REL_TOL · p)``).
     converged : bool
-        Every requested accuracy was reached.
+        Every requested accuracy was reached.  For the sequential rule: on the scrambles that
+        decide the number of points; ``std_error`` is measured on independent scrambles at
+        that number (so that it is honest) and may come out a little above ``tol``.
     rows : int
         Dimension of the family.
     rank : int
