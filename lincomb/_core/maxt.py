@@ -7,35 +7,46 @@ nothing of fits, names or frames; :mod:`lincomb._results.multiplicity` puts it o
 
 The max-|t| distribution
 ------------------------
-``P(max_i |T_i| <= c)`` has no closed form.  Two integrators, both seeded so results are
-reproducible, each repeated over independent randomizations (:data:`REPLICATES`) whose spread
-gives the standard error reported with the result:
+``P(max_i |T_i| <= c)`` has no closed form in general.  The routes, chosen from the numbers of
+the correlation matrix alone:
 
-* *full-rank families* go to :func:`scipy.stats.multivariate_t` (or
-  :func:`scipy.stats.multivariate_normal` when ``ν`` is infinite), randomized lattice rules;
-* *families with redundant rows* (all pairwise differences: ``k(k-1)/2`` rows of rank ``k-1``)
-  have a singular correlation matrix, on which that routine returns wrong probabilities.  Such
-  a family is kept whole by default and integrated in its rank-``r`` form: with ``T = L Z / S``,
-  ``L`` of rank ``r``, write ``Z = R·U`` (``U`` uniform on the unit sphere of ``ℝ^r``); then
-  ``P(max|T| <= c) = E_U[F_{r,ν}(c² / (r · max_i (l_i·U)²))]`` exactly, and ``U`` is integrated
-  by scrambled Sobol points (spherical-radial rule).  ``redundant="drop"`` instead removes the
-  redundant rows from the family (they get no adjusted p-value or interval) and says so.
+* *rank one*: exact (the t distribution);
+* *all pairwise differences of exchangeable means* (a balanced one-way layout): the
+  studentized range, and *equicorrelated rows*: deterministic quadratures with an error
+  estimate (see :func:`detect_structure`);
+* *every other family* (``engine="auto"`` or ``"sequential"``): the general rule of
+  :mod:`lincomb._core.maxt_sequential`, sequential conditioning on the ``r`` coordinates of a
+  rank-``r`` family (not its ``m`` rows), with union sampling for far tails, over independent
+  random shifts of a Sobol sequence.  When the rows are all pairwise differences of
+  independent means with unequal variances (a one-way layout with unequal group sizes), a
+  neighbouring family with an exact one-dimensional probability
+  (:mod:`lincomb._core.maxt_pairs`) serves as a control variate, which cuts the error by
+  one to two orders of magnitude at the same number of points;
+* ``engine="scipy"`` (:func:`scipy.stats.multivariate_t`, full rank only) and
+  ``engine="spherical-radial"`` (directions by scrambled Sobol points, radius exact) are the
+  earlier rules, kept for comparison.
 
-The sample size per replicate doubles until the standard error of the probability is at most
-``tol`` (default :data:`DEFAULT_TOL`) or ``max_points`` is reached (then an
-:class:`~lincomb.errors.IntegrationAccuracyWarning` is issued).  A critical value is found
-by a root search on the rule held fixed (first with the cheap spherical-radial rule, then
-refined with the final one); its standard error is the probability's over the density.  An
-adjusted p-value ``p`` is integrated to standard error ``max(tol, P_REL_TOL·p)``, and one below
-:data:`SMALL_TAIL` to relative standard error :data:`SMALL_TAIL_REL_TOL` by the
-spherical-radial rule (scipy's routines bound the absolute error only, and lose every digit of
-a 1e-9 tail).  Adjusted max-|t| p-values are kept within their exact bounds
+Accuracy.  The randomized rules double their points until the standard error of the
+probability is at most ``tol`` (default :data:`DEFAULT_TOL`) or ``max_points`` is reached (then
+an :class:`~lincomb.errors.IntegrationAccuracyWarning` is issued).  The general rule decides the
+points on one set of :data:`REPLICATES` scrambles and measures the error on a second,
+independent set at that number of points: deciding and measuring on the same scrambles stops
+on the runs whose error estimate came out small, which under-reports the error.  The reported
+error is therefore honest, and may come out a little above or below ``tol``.  A critical value
+is the mean of per-scramble roots (each the root of that scramble's estimate near a first
+guess), so its standard error comes straight from their spread; ``critical_error`` is the
+:data:`COVERAGE` (99%) bound from Student's t with ``REPLICATES − 1`` df, which the tests check
+over 200 seeds against exact values.  An adjusted p-value ``p`` is integrated to standard
+error ``max(tol, P_REL_TOL·p)``, and one below :data:`SMALL_TAIL` to relative standard error
+:data:`SMALL_TAIL_REL_TOL` (union sampling keeps its relative accuracy there; the earlier rules
+bound the absolute error only).  Adjusted max-|t| p-values are kept within their exact bounds
 ``[p, min(1, m·p)]`` (``m`` rows), which removes integration noise and nothing else.
 """
 
 from __future__ import annotations
 
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -44,9 +55,25 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, special, stats
 
 from lincomb._core.checks import check_level, check_tolerance
-from lincomb.errors import InputError, IntegrationAccuracyWarning
+from lincomb._core.maxt_pairs import PairsControl, independent_pairs
+from lincomb._core.maxt_quadrature import (
+    _QUAD_REL,
+    _QUAD_TOL,
+    _RANGE_MAX_ROWS,
+    STRUCTURE_TOL,
+    _quad_to_tol,
+    _unique_rows,
+    detect_structure,
+    studentized_range_critical,
+    studentized_range_tail,
+)
+from lincomb._core.maxt_sequential import SequentialRule
+from lincomb._settings import blas_limit, worker_threads
+from lincomb.errors import InputError, IntegrationAccuracyWarning, InternalError
 
 __all__ = [
+    "COVERAGE",
+    "ENGINES",
     "DEFAULT_SEED",
     "DEFAULT_TOL",
     "DEFAULT_MAX_POINTS",
@@ -55,6 +82,9 @@ __all__ = [
     "max_abs_t_cdf",
     "max_abs_t_quantile",
     "adjusted_tails",
+    "detect_structure",
+    "studentized_range_critical",
+    "studentized_range_tail",
 ]
 
 Array = NDArray[np.float64]
@@ -62,12 +92,22 @@ Array = NDArray[np.float64]
 #: Seed of the randomized integration rules (any integer; results depend on it only through
 #: integration error, see the reported standard error).
 DEFAULT_SEED: int = 20_240_917
-#: Target standard error of an integrated probability.
+#: Target standard error of an integrated probability (at the critical value, for intervals).
 DEFAULT_TOL: float = 1e-5
 #: Largest number of integration points per replicate.
 DEFAULT_MAX_POINTS: int = 2**18
 #: Independent randomizations of the integration rule (their spread gives the error).
 REPLICATES: int = 10
+#: Confidence of the error bounds reported beside standard errors (``critical_error``,
+#: ``p_value_error``): Student's t quantile with ``REPLICATES − 1`` df times the s.e.
+COVERAGE: float = 0.99
+#: Integration engines: ``"auto"`` uses a detected structure (deterministic quadratures) and
+#: otherwise the sequential rule (with the pairs control family where it applies);
+#: ``"sequential"`` the sequential rule alone; ``"scipy"`` and ``"spherical-radial"`` the
+#: earlier rules (kept for comparison).
+ENGINES: tuple[str, ...] = ("auto", "sequential", "scipy", "spherical-radial")
+SEQUENTIAL_ROUTINE: str = "sequential conditioning, scrambled Sobol"
+PAIRS_CONTROL_NOTE: str = " (pairs control family)"
 #: An adjusted max-|t| p-value ``p`` is integrated to standard error ``max(tol, P_REL_TOL·p)``:
 #: three significant digits where the absolute target would be needlessly strict.
 P_REL_TOL: float = 1e-3
@@ -76,6 +116,9 @@ P_REL_TOL: float = 1e-3
 #: relative standard error of :data:`SMALL_TAIL_REL_TOL`.
 SMALL_TAIL: float = 1e-3
 SMALL_TAIL_REL_TOL: float = 2e-3
+#: The pairs control family is used when every row's limit moves by at most this fraction
+#: (group sizes within a factor of about 20 of each other); beyond, it helps little.
+_CONTROL_MAX_SHIFT: float = 0.3
 
 
 # ---------------------------------------------------------------------------------------------
@@ -101,18 +144,29 @@ class IntegrationReport:
     tol : float
         Requested standard error (for adjusted p-values ``max(tol, P_REL_TOL · p)``).
     converged : bool
-        Every requested accuracy was reached.
+        Every requested accuracy was reached.  For the sequential rule: on the scrambles that
+        decide the number of points; ``std_error`` is measured on independent scrambles at
+        that number (so that it is honest) and may come out a little above ``tol``.
     rows : int
         Dimension of the family.
     rank : int
         Rank of its correlation matrix.
     critical_std_error : float or None
-        Standard error of a critical value (``std_error`` over the density there).
+        Standard error of a critical value (``std_error`` over the density there; for the
+        sequential rule, from the spread of the scrambles' own roots).
     p_value_std_error : float or None
         Largest standard error among the adjusted p-values, when they were integrated.
     small_tails : str or None
         Set when small adjusted p-values were integrated by another rule (see
         :data:`SMALL_TAIL`).
+    critical_error : float or None
+        Error bound of the critical value at confidence ``coverage``: the t quantile with
+        ``replicates − 1`` df times ``critical_std_error`` (a deterministic quadrature's error
+        estimate as it is).  Checked over many seeds in the tests.
+    p_value_error : float or None
+        The same bound for the largest ``p_value_std_error``.
+    coverage : float
+        Confidence of those bounds (:data:`COVERAGE`).
 
     Examples
     --------
@@ -125,8 +179,10 @@ class IntegrationReport:
     ('studentized range quadrature', 6, 3, True)
     >>> corr = np.array([[1.0, 0.3, 0.1], [0.3, 1.0, 0.2], [0.1, 0.2, 1.0]])
     >>> c, rep = max_abs_t_quantile(0.95, corr, df=20.0)
-    >>> rep.routine, rep.replicates
-    ('scipy.stats.multivariate_t', 10)
+    >>> rep.routine, rep.replicates, rep.converged
+    ('sequential conditioning, scrambled Sobol', 10, True)
+    >>> bool(rep.critical_error > rep.critical_std_error)     # 99% bound from 9 df of t
+    True
     """
 
     routine: str
@@ -141,6 +197,9 @@ class IntegrationReport:
     critical_std_error: float | None = None
     p_value_std_error: float | None = None
     small_tails: str | None = None
+    critical_error: float | None = None
+    p_value_error: float | None = None
+    coverage: float = COVERAGE
 
     def text(self) -> str:
         """One line describing the integration.
@@ -165,11 +224,21 @@ class IntegrationReport:
             if self.p_value_std_error is not None:
                 parts.append(f"adjusted p error <= {self.p_value_std_error:.2g}")
             return ", ".join(parts) + ("" if self.converged else "; NOT converged")
-        parts = [f"{self.routine}: {self.replicates} x {self.points} points, seed {self.seed}"]
+        scrambles = (
+            f"{self.replicates}"
+            if not self.routine.startswith(SEQUENTIAL_ROUTINE)
+            else f"2 x {self.replicates}"
+        )
+        parts = [f"{self.routine}: {scrambles} x {self.points} points, seed {self.seed}"]
         if self.critical_std_error is not None:
+            bound = (
+                ""
+                if self.critical_error is None
+                else f" (error <= {self.critical_error:.2g} at {100 * self.coverage:g}%)"
+            )
             parts.append(
                 f"probability s.e. {self.std_error:.2g} at the critical value (tol"
-                f" {self.tol:.2g}), critical value s.e. {self.critical_std_error:.2g}"
+                f" {self.tol:.2g}), critical value s.e. {self.critical_std_error:.2g}{bound}"
             )
         elif self.p_value_std_error is None:
             parts.append(f"probability s.e. {self.std_error:.2g} (tol {self.tol:.2g})")
@@ -228,10 +297,8 @@ class _Integrator:
             rank = int(np.count_nonzero(evals > 1e-9 * max(float(evals[-1]), 1e-300) * m))
         if not 1 <= rank <= m:
             raise InputError(f"rank must be between 1 and {m}, got {rank}.")
-        if engine not in ("auto", "scipy", "spherical-radial"):
-            raise InputError(
-                f"engine must be 'auto', 'scipy' or 'spherical-radial', got {engine!r}."
-            )
+        if engine not in ENGINES:
+            raise InputError(f"engine must be one of {list(ENGINES)}, got {engine!r}.")
         if engine == "scipy" and rank < m:
             raise InputError(
                 f"the correlation matrix has rank {rank} < {m}: scipy's integrator is wrong for"
@@ -247,12 +314,17 @@ class _Integrator:
         elif structure != "general":
             self.kind = structure
             self.m_unique = int(_unique_rows(corr).size)
-        elif engine == "scipy" or (engine == "auto" and rank == m):
-            self.kind = "scipy"
+        elif engine in ("scipy", "spherical-radial"):
+            self.kind = engine
         else:
-            self.kind = "spherical-radial"
+            self.kind = "sequential"
         top = evecs[:, -rank:] * np.sqrt(np.clip(evals[-rank:], 0, None))
         self.loadings = top / np.linalg.norm(top, axis=1, keepdims=True)
+        self.control: PairsControl | None = None
+        if self.kind == "sequential":
+            if engine == "auto":
+                self.control = _pairs_control(corr, rank)
+            self.rule = SequentialRule(self.loadings, df, self.seed, REPLICATES, self.control)
         # plain integer seeds: a fresh generator per use (scipy's Sobol spawns from the seed
         # sequence of the generator it is given, which would change a shared one)
         self.streams = [
@@ -274,6 +346,8 @@ class _Integrator:
             return "studentized range quadrature"
         if self.kind == "equicorrelated":
             return "equicorrelated quadrature"
+        if self.kind == "sequential":
+            return SEQUENTIAL_ROUTINE + (PAIRS_CONTROL_NOTE if self.control is not None else "")
         return "exact" if self.kind == "exact" else "spherical-radial Sobol"
 
     @property
@@ -356,10 +430,13 @@ class _Integrator:
         if self.kind == "exact":
             return 2.0 * _row_dist(self.df).sf(c), np.zeros_like(c)
         if self.kind in ("range", "equicorrelated"):
-            q, err, self._nodes = _quad_to_tol(
-                self.kind, self.param, self.m_unique, self.df, c, _QUAD_TOL, _QUAD_REL
-            )
+            with blas_limit(worker_threads()):  # many small products: one BLAS thread
+                q, err, self._nodes = _quad_to_tol(
+                    self.kind, self.param, self.m_unique, self.df, c, _QUAD_TOL, _QUAD_REL
+                )
             return q, err
+        if self.kind == "sequential":
+            raise InternalError("the sequential rule chooses its own points: use tails()")
         if self.kind == "spherical-radial":
             per = self._spherical_tail(c, points)
         else:
@@ -393,7 +470,12 @@ class _Integrator:
         return mean, se
 
     def report(
-        self, points: int, se: float, tol: float, crit_se: float | None = None
+        self,
+        points: int,
+        se: float,
+        tol: float,
+        crit_se: float | None = None,
+        converged: bool | None = None,
     ) -> IntegrationReport:
         exact = self.deterministic
         if self.kind == "exact":
@@ -411,11 +493,20 @@ class _Integrator:
             replicates=0 if exact else REPLICATES,
             std_error=float(se),
             tol=float(tol),
-            converged=bool(se <= tol),
+            converged=bool(se <= tol) if converged is None else bool(converged),
             rows=self.m,
             rank=self.rank,
             critical_std_error=crit_se,
+            critical_error=None if crit_se is None else self.half_width(crit_se),
         )
+
+    def half_width(self, se: float) -> float:
+        """The error bound reported beside a standard error: the :data:`COVERAGE` quantile of
+        Student's t with ``REPLICATES − 1`` df times it (the error is the mean of independent
+        scrambles); a deterministic quadrature's error estimate is used as it is."""
+        if self.deterministic:
+            return float(se)
+        return float(stats.t.ppf(0.5 + COVERAGE / 2, REPLICATES - 1) * se)
 
 
 #: Nodes of the spline in ``M`` used by the spherical-radial rule.
@@ -467,13 +558,17 @@ def max_abs_t_cdf(
     rank : int, optional
         Rank of ``corr`` (default: eigenvalues above ``1e-9 · m ·`` the largest).
     tol : float, default :data:`DEFAULT_TOL`
-        Target standard error of each probability.
+        Target standard error of each probability (for the sequential rule: the points are
+        chosen on one set of scrambles to reach it, and the error reported is measured on an
+        independent set, see the module notes).
     seed : int, default :data:`DEFAULT_SEED`
     max_points : int, default :data:`DEFAULT_MAX_POINTS`
         Cap on the integration points per replicate.
-    engine : {'auto', 'scipy', 'spherical-radial'}
-        ``'auto'``: scipy's integrator for a full-rank ``corr``, the spherical-radial rule
-        otherwise (see the module notes).
+    engine : {'auto', 'sequential', 'scipy', 'spherical-radial'}
+        ``'auto'``: a deterministic quadrature where the correlations have a structure for
+        it, else the sequential rule (with the pairs control family where it applies);
+        ``'sequential'``: the sequential rule alone; ``'scipy'`` (full rank only) and
+        ``'spherical-radial'``: the earlier rules (see the module notes).
 
     Returns
     -------
@@ -494,11 +589,17 @@ def max_abs_t_cdf(
     if np.any(~np.isfinite(cs)) or np.any(cs < 0):
         raise InputError(f"thresholds must be finite and non-negative, got {cs.tolist()}.")
     integ = _Integrator(r, d, rank, seed, engine)
-    tail, se, points = _tail_to_tol(integ, cs, tol, max_points)
+    if integ.kind == "sequential":
+        uniq, inv = np.unique(cs, return_inverse=True)
+        tail, se, points, ok = integ.rule.tails(uniq, tol, max_points)
+        tail, se = tail[inv], se[inv]
+    else:
+        tail, se, points = _tail_to_tol(integ, cs, tol, max_points)
+        ok = bool(np.all(se <= tol))
     worst = float(se.max()) if se.size else 0.0
-    if worst > tol:
+    if not ok:
         _warn_unconverged("max-|t| probability", worst, tol, max_points)
-    return np.clip(1.0 - tail, 0.0, 1.0), integ.report(points, worst, tol)
+    return np.clip(1.0 - tail, 0.0, 1.0), integ.report(points, worst, tol, converged=ok)
 
 
 def _tail_to_tol(
@@ -506,14 +607,40 @@ def _tail_to_tol(
 ) -> tuple[Array, Array, int]:
     """``P(max|T| > c)`` for each ``c``, doubling the points until each s.e. is at most
     ``max(tol, rel · value)``."""
-    points = min(integ.start_points(), max_points)
     uniq, inv = np.unique(cs, return_inverse=True)
+    points = min(integ.start_points(), max_points)
     while True:
         q, se = integ.tail(uniq, points)
         ok = bool(np.all(se <= np.maximum(tol, rel * q)))
         if integ.deterministic or ok or points >= max_points:
             return np.clip(q[inv], 0.0, 1.0), se[inv], points
         points = min(2 * points, max_points)
+
+
+def _targets(tol: float, rel: float, rel_small: float | None = None) -> Callable[[Array], Array]:
+    """Standard-error targets as a function of the tail: ``max(tol, rel · tail)``, and
+    ``rel_small · tail`` below :data:`SMALL_TAIL` when ``rel_small`` is given."""
+
+    def target(tail: Array) -> Array:
+        tail = np.asarray(tail, dtype=np.float64)
+        out = np.maximum(tol, rel * tail)
+        if rel_small is not None:
+            out = np.where(tail < SMALL_TAIL, rel_small * tail, out)
+        return np.asarray(out)
+
+    return target
+
+
+def _pairs_control(corr: Array, rank: int) -> PairsControl | None:
+    """The control family of :mod:`lincomb._core.maxt_pairs` when the rows are all pairwise
+    differences of independent means (and the neighbour is close enough to help)."""
+    unique = _unique_rows(corr)
+    if unique.size != rank * (rank + 1) // 2 or unique.size > _RANGE_MAX_ROWS:
+        return None
+    control = independent_pairs(corr, unique, STRUCTURE_TOL)
+    if control is None or np.max(np.abs(control.scale - 1.0)) > _CONTROL_MAX_SHIFT:
+        return None
+    return control
 
 
 def _bounds(level: float, m: int, df: float) -> tuple[float, float]:
@@ -600,6 +727,11 @@ def _quantile(
         err = float(err0[0]) + abs(float(q0[0]) - alpha)
         crit_err = err / density + 1e-12 * lo
         return crit, integ.report(0, err, tol, crit_err)
+    if integ.kind == "sequential":
+        crit, crit_se, se, points, reached = integ.rule.quantile(alpha, lo, hi, tol, max_points)
+        if not reached:
+            _warn_unconverged("max-|t| critical value", se, tol, max_points)
+        return crit, integ.report(points, se, tol, crit_se, converged=reached)
     if integ.kind == "scipy":
         guide = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
     else:
@@ -635,9 +767,11 @@ def max_abs_t_quantile(
     """Critical value ``c`` with ``P(max_i |T_i| <= c) = level``.
 
     Parameters are those of :func:`max_abs_t_cdf`.  ``c`` is found by Brent's method between
-    the marginal and the Bonferroni critical values, with the integration rule held fixed;
-    the report gives the probability's standard error at ``c`` and the implied standard error
-    of ``c`` (divided by the density, from a central difference).
+    the marginal and the Bonferroni critical values, with the integration rule held fixed.
+    The report gives the probability's standard error at ``c``, the standard error of ``c``
+    (for the sequential rule, the spread of per-scramble roots; otherwise the probability's
+    over the density) and ``critical_error``, a bound on the integration error of ``c`` at
+    confidence :data:`COVERAGE`.
 
     Examples
     --------
@@ -667,6 +801,14 @@ def adjusted_tails(
     # the relative targets tighten with ``tol`` (so a strict ``tol`` gives more digits)
     rel = P_REL_TOL * min(1.0, tol / DEFAULT_TOL)
     rel_small = SMALL_TAIL_REL_TOL * min(1.0, tol / DEFAULT_TOL)
+    if integ.kind == "sequential":  # union sampling keeps small tails accurate in itself
+        uniq, inv = np.unique(cs, return_inverse=True)
+        goal = _targets(tol, rel, rel_small)
+        tail, se, points, ok = integ.rule.tails(uniq, goal, max_points)
+        tail, se = tail[inv], se[inv]
+        if not ok:
+            _warn_unconverged("max-|t| adjusted p-values", float(se.max()), tol, max_points)
+        return tail, se, points, None, ok
     tail, se, points = _tail_to_tol(integ, cs, tol, max_points, rel)
     note = None
     small = tail < SMALL_TAIL
@@ -685,253 +827,3 @@ def adjusted_tails(
     if not ok:
         _warn_unconverged("max-|t| adjusted p-values", float(se.max()), tol, max_points)
     return tail, se, points, note, ok
-
-
-# ---------------------------------------------------------------------------------------------
-# structured families: deterministic one-dimensional quadrature inside the integral over S
-# ---------------------------------------------------------------------------------------------
-#: Two correlations are taken as equal (and a row as a duplicate, |r| = 1) when they differ by
-#: at most this much.  A change of 1e-8 in a correlation moves the probabilities by about as
-#: much, far below any integration tolerance accepted here.
-STRUCTURE_TOL: float = 1e-8
-#: The all-pairs check costs about ``m² k`` operations; larger families use the general rule.
-_RANGE_MAX_ROWS: int = 2000
-#: Largest grid (nodes per dimension) of the deterministic quadratures.
-_QUAD_MAX: int = 2**13 + 1
-#: Targets of the deterministic quadratures (far below any tolerance asked for; the half-grid
-#: error estimate is then at most ``max(_QUAD_TOL, _QUAD_REL · tail) / 100``).
-_QUAD_TOL: float = 1e-10
-_QUAD_REL: float = 1e-8
-
-
-def _unique_rows(corr: Array) -> NDArray[np.intp]:
-    """Indices of rows that are not duplicates (``|r| = 1``) of an earlier row: ``max|T|`` is
-    the same over the family and over these rows."""
-    m = corr.shape[0]
-    dup = np.abs(corr) >= 1 - STRUCTURE_TOL
-    keep = [i for i in range(m) if not dup[i, :i].any()]
-    return np.array(keep, dtype=np.intp)
-
-
-def detect_structure(corr: Array, rank: int) -> tuple[str, float]:
-    """The structure of a family's correlation matrix, from the numbers alone.
-
-    Returns ``("range", k)`` when the rows (duplicates and signs aside) have exactly the
-    correlations of all ``k(k-1)/2`` pairwise differences of ``k`` exchangeable means (a
-    balanced one-way layout with the classical covariance gives them, whatever the coding):
-    then ``√2 max|T|`` has the studentized range distribution with ``k`` means.
-    ``("equicorrelated", ρ)`` when, after flipping the signs of some rows, every pair of
-    distinct rows has the same correlation ``ρ >= 0``.  ``("general", nan)`` otherwise.
-
-    The all-pairs test: unit vectors whose inner products are ``0`` or ``±1/2`` and that are
-    closed under ``a - sign(a·b) b`` form a simply-laced root system; an irreducible one of rank
-    ``r`` with ``r(r+1)/2`` positive roots is the system of all differences of ``r+1`` points of
-    a regular simplex, i.e. of ``r+1`` exchangeable means (common practice in the theory of root
-    systems; irreducible means the graph of non-zero inner products is connected).
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> detect_structure(np.full((3, 3), 0.5) + 0.5 * np.eye(3), 3)
-    ('equicorrelated', 0.5)
-    """
-    u = _unique_rows(corr)
-    r = corr[np.ix_(u, u)]
-    m = u.size
-    tol = STRUCTURE_TOL
-    if m < 2:
-        return "general", float("nan")
-    off = r[~np.eye(m, dtype=bool)]
-    a = np.abs(off)
-    # equal correlations up to signs: r_ij = s_i s_j rho
-    rho = float(a.mean())
-    if np.all(np.abs(a - rho) <= tol) and rho < 1 - tol:
-        s = np.sign(r[0])
-        s[0] = 1.0
-        if rho <= tol or np.all(np.abs(r - rho * np.outer(s, s) - (1 - rho) * np.eye(m)) <= tol):
-            return "equicorrelated", (0.0 if rho <= tol else rho)
-    k = rank + 1
-    if k >= 3 and m == k * (k - 1) // 2 and m <= _RANGE_MAX_ROWS:
-        half = np.abs(a - 0.5) <= tol
-        zero = a <= tol
-        if np.all(half | zero):
-            nz = (np.abs(r) > tol) & ~np.eye(m, dtype=bool)
-            # connected graph of non-zero inner products
-            seen = np.zeros(m, dtype=bool)
-            seen[0] = True
-            frontier = seen.copy()
-            while frontier.any():
-                new = nz[frontier].any(axis=0) & ~seen
-                seen |= new
-                frontier = new
-            if seen.all():
-                ok = True
-                for i in range(m):
-                    js = np.flatnonzero(nz[i])
-                    # inner products of l_i - sign(r_ij) l_j with every row: one must be ±1
-                    v = r[i][None, :] - np.sign(r[i, js])[:, None] * r[js]
-                    if not np.all(np.abs(np.abs(v).max(axis=1) - 1) <= 4 * tol):
-                        ok = False
-                        break
-                if ok:
-                    return "range", float(k)
-    return "general", float("nan")
-
-
-def _chi_grid(df: float, n: int) -> tuple[Array, Array]:
-    """Nodes ``s`` and trapezoid weights for ``E[g(S)]``, ``ν S² ~ χ²_ν``, on ``t = log S``.
-
-    The density of ``t`` is smooth and decays like a Gaussian, so the trapezoid rule converges
-    geometrically; the range is where it exceeds ``e^-80`` of its peak.  The weights use the
-    exact normalizing constant, so truncation and grid error both show in the half-grid check.
-    """
-    if not np.isfinite(df):
-        return np.ones(1), np.ones(1)
-    nu = df
-
-    def logf(t: Array | float) -> Any:
-        return nu * (np.asarray(t) - np.expm1(2 * np.asarray(t)) / 2)
-
-    cut = -80.0
-    lo = optimize.brentq(lambda t: logf(t) - cut, -80.0 / nu - 60.0, 0.0)
-    hi = optimize.brentq(lambda t: logf(t) - cut, 0.0, 10.0)
-    t = np.linspace(lo, hi, n)
-    h = t[1] - t[0]
-    log_norm = np.log(2.0) + (nu / 2) * np.log(nu / 2) - special.gammaln(nu / 2) - nu / 2
-    w = h * np.exp(log_norm + logf(t))
-    w[[0, -1]] /= 2
-    return np.exp(t), w
-
-
-def _range_tail_given(w: Array, k: int, n: int) -> Array:
-    """``P(range of k standard normals > w)`` for each ``w`` (any shape), tail-accurate.
-
-    ``P(R > w) = k ∫ φ(z) {Q(z)^{k-1} - (Q(z) - Q(z+w))^{k-1}} dz`` (``Q`` the normal upper
-    tail; the first term integrates the density of the minimum to 1), with the difference of
-    powers written as ``a^n (-expm1(n log1p(-Q(z+w)/a)))`` so tiny tails keep their digits.
-    Trapezoid rule on ``z ∈ [-w/2 - 9, 9]`` with ``n`` nodes.
-    """
-    x = np.linspace(0.0, 1.0, n)
-    lo = -w[..., None] / 2 - 9.0
-    z = lo + (9.0 - lo) * x
-    h = (9.0 - lo[..., 0]) / (n - 1)
-    la = special.log_ndtr(-z)
-    ratio = np.exp(special.log_ndtr(-z - w[..., None]) - la)
-    km1 = k - 1
-    with np.errstate(divide="ignore"):  # ratio = 1 where Q(z + w) = Q(z): log1p(-1) = -inf
-        f = np.exp(-0.5 * z * z - 0.5 * np.log(2 * np.pi) + km1 * la) * -np.expm1(
-            km1 * np.log1p(-np.minimum(ratio, 1.0))
-        )
-    f[..., [0, -1]] /= 2
-    return np.asarray(k * h * f.sum(axis=-1))
-
-
-def _equi_tail_given(cs: Array, m: int, rho: float, n: int) -> Array:
-    """``P(max_i |X_i| > cs)`` for ``m`` equicorrelated standard normals (correlation
-    ``rho >= 0``), each ``cs`` (any shape): given the common factor ``Z0`` the rows are
-    independent, ``1 - g^m = -expm1(m log1p(-(Q(a+) + Q(-a-))))`` with
-    ``a± = (±cs - √ρ Z0)/√(1-ρ)``; trapezoid rule on ``Z0 ∈ [-L, L]``, ``n`` nodes."""
-    a, b = np.sqrt(rho), np.sqrt(1 - rho)
-    span = np.minimum(cs / max(a, 1e-300), 40.0) + 9.0 if rho > 0 else np.full_like(cs, 9.0)
-    x = np.linspace(-1.0, 1.0, n)
-    z = span[..., None] * x
-    h = 2 * span / (n - 1)
-    c = cs[..., None]
-    out = special.ndtr(-(c - a * z) / b) + special.ndtr((-c - a * z) / b)
-    with np.errstate(divide="ignore"):
-        f = -np.expm1(m * np.log1p(-np.minimum(out, 1.0)))
-    f *= np.exp(-0.5 * z * z) / np.sqrt(2 * np.pi)
-    f[..., [0, -1]] /= 2
-    return np.asarray(h * f.sum(axis=-1))
-
-
-def _structured_tail(
-    kind: str, param: float, m: int, df: float, c: Array, ns: int, nz: int
-) -> tuple[Array, Array]:
-    """``P(max|T| > c)`` on an ``ns × nz`` grid, and the same on every other node of both."""
-    s, ws = _chi_grid(df, ns)
-    out = np.empty((2, c.size))
-    for lo in range(0, c.size, 64):  # bound the (c, s, z) work array
-        cc = c[lo : lo + 64]
-        scaled = cc[:, None] * s[None, :]
-        if kind == "range":
-            given = _range_tail_given(np.sqrt(2.0) * scaled, int(param), nz)
-            coarse = _range_tail_given(np.sqrt(2.0) * scaled[:, ::2], int(param), (nz + 1) // 2)
-        else:
-            given = _equi_tail_given(scaled, m, param, nz)
-            coarse = _equi_tail_given(scaled[:, ::2], m, param, (nz + 1) // 2)
-        out[0, lo : lo + 64] = given @ ws
-        if ws.size == 1:
-            out[1, lo : lo + 64] = coarse @ ws
-        else:
-            _s2, ws2 = _chi_grid(df, (ns + 1) // 2)
-            out[1, lo : lo + 64] = coarse @ ws2
-    return out[0], out[1]
-
-
-def _quad_to_tol(
-    kind: str, param: float, m: int, df: float, c: Array, tol: float, rel: float
-) -> tuple[Array, Array, int]:
-    """Tails with an error estimate ``|full grid - half grid|`` at most
-    ``max(tol, rel · tail) / 100``, doubling both grids as needed.
-
-    The trapezoid rule on these smooth, rapidly decaying integrands converges geometrically,
-    so the half-grid difference bounds the full grid's error with a wide margin; it is what
-    the report gives as the error."""
-    ns = 1 if not np.isfinite(df) else 65
-    nz = 129
-    while True:
-        full, half = _structured_tail(kind, param, m, df, c, ns, nz)
-        # the half-grid difference, and a floor for rounding in sums over many nodes
-        err = np.abs(full - half) + 1e-13
-        if np.all(err <= np.maximum(tol, rel * np.abs(full)) / 100) or nz >= _QUAD_MAX:
-            return np.clip(full, 0.0, 1.0), err, ns * nz
-        nz = 2 * nz - 1
-        if ns > 1:
-            ns = 2 * ns - 1
-
-
-# ---------------------------------------------------------------------------------------------
-# the studentized range of k means (all pairwise differences)
-# ---------------------------------------------------------------------------------------------
-#: Below this ``scipy.stats.studentized_range.sf`` loses accuracy (see LIBRARY-NOTES); tails are
-#: clipped to the Bonferroni bound there, which is then tight.
-RANGE_SF_FLOOR: float = 1e-9
-
-
-def studentized_range_tail(t: ArrayLike, k: int, df: ArrayLike) -> Array:
-    """``P(Q_{k,df} ≥ √2 |t|)``: the single-step adjusted p-value of a pairwise difference of
-    ``k`` means with t statistic ``t`` (exact for equal group sizes and a common variance;
-    approximate otherwise).  ``df`` may be one value or one per ``t`` (inf: normal).
-
-    Below :data:`RANGE_SF_FLOOR` the Bonferroni bound ``k(k−1)/2 · P(|T| ≥ |t|)`` is used
-    instead of scipy's value, which is unreliable there.
-
-    Examples
-    --------
-    >>> round(float(studentized_range_tail(3.5 / 2**0.5, 4, np.inf)[0]), 4)
-    0.0639
-    """
-    t = np.atleast_1d(np.abs(np.asarray(t, dtype=np.float64)))
-    df = np.broadcast_to(np.asarray(df, dtype=np.float64), t.shape)
-    dfq = np.where(np.isfinite(df), df, 1e7)  # scipy's range with df = 1e7 is the normal limit
-    tail = stats.studentized_range.sf(np.sqrt(2.0) * t, k, dfq)
-    pairs = k * (k - 1) / 2
-    two_sided = np.where(np.isfinite(df), 2 * stats.t.sf(t, dfq), 2 * stats.norm.sf(t))
-    bonf = np.minimum(1.0, pairs * two_sided)
-    out = np.where(tail < RANGE_SF_FLOOR, bonf, tail)
-    return np.clip(out, two_sided, bonf)
-
-
-def studentized_range_critical(level: float, k: int, df: ArrayLike) -> Array:
-    """``q_{k,df}(level) / √2``: the critical value of simultaneous intervals for all pairwise
-    differences of ``k`` means (one per df).
-
-    Examples
-    --------
-    >>> round(float(studentized_range_critical(0.95, 4, 20.0)[0]) * 2**0.5, 3)  # handbook 3.958
-    3.958
-    """
-    df = np.atleast_1d(np.asarray(df, dtype=np.float64))
-    dfq = np.where(np.isfinite(df), df, 1e7)
-    return stats.studentized_range.ppf(level, k, dfq) / np.sqrt(2.0)  # type: ignore[no-any-return]

@@ -600,6 +600,7 @@ def adjust_wald(
         integration = replace(
             integ.report(points, worst, tol),
             p_value_std_error=worst,
+            p_value_error=integ.half_width(worst),
             converged=p_ok,
             small_tails=note,
         )
@@ -658,6 +659,7 @@ def simultaneous_wald(
         integration = replace(
             integration,
             p_value_std_error=float(se.max()),
+            p_value_error=integ.half_width(float(se.max())),
             converged=integration.converged and p_ok,
             small_tails=note,
         )
