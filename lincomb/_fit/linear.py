@@ -38,7 +38,8 @@ from lincomb._model.design import (
     design_from_formula,
     encode_new,
 )
-from lincomb._model.encoder import require_response, unused_level_hint
+from lincomb._model.formula_text import require_response
+from lincomb._model.row_checks import unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.report import ReportTables
 from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest, assemble_wald_test

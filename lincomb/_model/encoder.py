@@ -15,7 +15,6 @@ which builds on it); other layers see formulaic's model spec only through this c
 
 from __future__ import annotations
 
-import functools
 import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -32,55 +31,35 @@ from lincomb._model.design import (
     _index_from_spec,
     _validate_weights,
 )
+from lincomb._model.formula_text import (
+    _name_hint,
+    _required,
+    _split,
+    plain,
+)
 from lincomb._model.row_checks import (
     _check_response,
     _kept,
     _missing_counts,
     _na_mask,
-    _name_hint,
     _prefix,
     _screen,
     _show,
     _string_names,
     _unused_levels,
     cast_levels,
-    plain,
     refuse_non_numeric_responses,
     screened_rows,
 )
 from lincomb.errors import InputError, MissingValueError, UnseenLevelError
 
+# refuse_non_numeric_responses lives in row_checks; it stays importable from here for the
+# many-response route, which imports it with the encoder
 __all__ = [
     "FormulaEncoder",
     "EncodedRows",
-    "require_response",
     "refuse_non_numeric_responses",
-    "unused_level_hint",
 ]
-
-
-def _split(formula: object) -> tuple[str, str]:
-    """``(left side, right side)`` of a formula; the left side is ``""`` when there is none."""
-    if not isinstance(formula, str):
-        raise InputError(f"formula must be a string like 'y ~ a + b', got {formula!r}.")
-    if "~" in formula:
-        lhs, rhs = formula.split("~", 1)
-        return lhs.strip(), rhs.strip()
-    return "", formula.strip()
-
-
-def require_response(formula: object) -> None:
-    """Refuse a formula without a response (fits need one; designs and plans do not).
-
-    Examples
-    --------
-    >>> require_response("~ x")
-    Traceback (most recent call last):
-    ...
-    lincomb.errors.InputError: formula '~ x' has no response: write it as 'response ~ terms'.
-    """
-    if not isinstance(formula, str) or not _split(formula)[0]:
-        raise InputError(f"formula {formula!r} has no response: write it as 'response ~ terms'.")
 
 
 @dataclass(frozen=True)
@@ -838,48 +817,3 @@ def _float_columns(frame: pd.DataFrame) -> NDArray[np.float64]:
         v = col.to_numpy()
         x[:, j] = v if v.dtype.kind in "biuf" else col.to_numpy(dtype=np.float64)
     return x
-
-
-@functools.lru_cache(maxsize=256)
-def _formula_variables(target: str) -> tuple[str, ...]:
-    """Variables a formula reads (parsing is a pure function of the text: cached)."""
-    import formulaic
-
-    return tuple(str(v) for v in formulaic.Formula(target).required_variables)
-
-
-def _required(formula: str, frame: pd.DataFrame) -> list[str]:
-    """Columns of ``frame`` that ``formula`` reads."""
-    lhs, rhs = _split(formula)
-    target = f"{lhs} ~ {rhs}" if lhs else (rhs or "1")
-    try:
-        required = _formula_variables(target)
-    except Exception as exc:
-        raise InputError(
-            f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(frame)
-        ) from None
-    return sorted(v for v in required if v in frame.columns)
-
-
-def unused_level_hint(encoder: FormulaEncoder | None) -> str:
-    """A sentence naming categories no row held and the fix (``""`` when there are none).
-
-    Examples
-    --------
-    >>> import pandas as pd
-    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": pd.Categorical(["a", "b", "a"], ["a", "b", "c"])})
-    >>> enc, _ = FormulaEncoder.learn("y ~ g", df, note_unused=True)
-    >>> enc.unused_levels
-    {'g': ('c',)}
-    >>> unused_level_hint(enc)[:60]
-    " Categorical column 'g' keeps level(s) ['c'] that no row use"
-    """
-    if encoder is None or not encoder.unused_levels:
-        return ""
-    parts = [
-        f" Categorical column {col!r} keeps level(s) {list(lv)} that no row used holds (left"
-        f" over from subsetting?), so their columns cannot be estimated: drop them with"
-        f" data[{col!r}] = data[{col!r}].cat.remove_unused_categories() and refit."
-        for col, lv in encoder.unused_levels.items()
-    ]
-    return "".join(parts)

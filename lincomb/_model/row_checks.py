@@ -12,9 +12,8 @@ Nothing here reads a formula or imports formulaic.
 from __future__ import annotations
 
 import difflib
-import re
 from collections.abc import Mapping, Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -22,10 +21,13 @@ from numpy.typing import NDArray
 
 from lincomb.errors import InputError, MissingValueError, UnseenLevelError
 
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._model.encoder import FormulaEncoder
+
 __all__ = [
     "screened_rows",
+    "unused_level_hint",
     "cast_levels",
-    "plain",
     "align_series",
     "refuse_non_numeric_responses",
 ]
@@ -67,39 +69,6 @@ def cast_levels(
             out = frame.copy(deep=False)
         out[var] = pd.Categorical(col, categories=lv_list)
     return out
-
-
-_ANSI = re.compile(r"\x1b\[[0-9;]*[A-Za-z]")
-
-
-def plain(exc: object) -> str:
-    """Text of a message passed through from formulaic, without terminal colour codes.
-
-    Examples
-    --------
-    >>> plain("bad \x1b[1;31mterm\x1b[0m")
-    'bad term'
-    """
-    return _ANSI.sub("", str(exc))
-
-
-def _name_hint(frame: pd.DataFrame) -> str:
-    """How to write awkward column names in a formula (added to parse and lookup errors)."""
-    names = [str(c) for c in frame.columns]
-    hints = []
-    tick = [c for c in names if "`" in c]
-    if tick:
-        hints.append(
-            f" Column name(s) {tick[:3]} hold a backtick, which a formula cannot quote: rename"
-            " them (e.g. data.rename(columns=lambda c: c.replace('`', '_')))."
-        )
-    odd = [c for c in names if "`" not in c and not c.isidentifier()]
-    if odd:
-        hints.append(
-            f" A column whose name is not a plain identifier (here e.g. {odd[:3]}) is written in"
-            f" backticks: `{odd[0]}`."
-        )
-    return "".join(hints)
 
 
 def _string_names(frame: pd.DataFrame, where: str | None) -> pd.DataFrame:
@@ -427,3 +396,28 @@ def screened_rows(
 def _kept(w: pd.Series | None, na: NDArray[np.bool_]) -> pd.Series | None:
     """The weights of the rows kept, by position (row labels may repeat)."""
     return w if w is None or not na.any() else w[~na]
+
+
+def unused_level_hint(encoder: FormulaEncoder | None) -> str:
+    """A sentence naming categories no row held and the fix (``""`` when there are none).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from lincomb._model.encoder import FormulaEncoder
+    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": pd.Categorical(["a", "b", "a"], ["a", "b", "c"])})
+    >>> enc, _ = FormulaEncoder.learn("y ~ g", df, note_unused=True)
+    >>> enc.unused_levels
+    {'g': ('c',)}
+    >>> unused_level_hint(enc)[:60]
+    " Categorical column 'g' keeps level(s) ['c'] that no row use"
+    """
+    if encoder is None or not encoder.unused_levels:
+        return ""
+    parts = [
+        f" Categorical column {col!r} keeps level(s) {list(lv)} that no row used holds (left"
+        f" over from subsetting?), so their columns cannot be estimated: drop them with"
+        f" data[{col!r}] = data[{col!r}].cat.remove_unused_categories() and refit."
+        for col, lv in encoder.unused_levels.items()
+    ]
+    return "".join(parts)
