@@ -43,6 +43,7 @@ from lincomb._covariance.specs import (
     Heteroskedastic,
     Serial,
 )
+from lincomb._docstrings import fill_doc
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -51,6 +52,14 @@ __all__ = ["KEPT_PER_FIT", "evaluate_once", "forget"]
 
 #: Estimates kept per fit (per design object); the oldest is dropped first.
 KEPT_PER_FIT: int = 8
+
+#: The set-up of this module's examples: a fit and its HC3 estimate, asked for once.
+_HC3_ONCE = """\
+>>> import lincomb as lc
+>>> from lincomb._covariance.specs import as_estimator
+>>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+>>> first = evaluate_once(f, as_estimator("HC3"))"""
+_once_doc = fill_doc(hc3_once=_HC3_ONCE)
 
 
 @dataclass(frozen=True)
@@ -84,16 +93,14 @@ def _drop(key: int) -> None:
         _ENTRIES.pop(key, None)
 
 
+@_once_doc
 def forget(fit: LinearFit | None = None) -> None:
     """Drop the remembered estimates of ``fit`` (of every fit when None); benchmarks use it
     to time the pass over the rows itself.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> from lincomb._covariance.specs import as_estimator
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-    >>> first = evaluate_once(f, as_estimator("HC3"))
+    %(hc3_once)s
     >>> forget(f)
     >>> evaluate_once(f, as_estimator("HC3")) is first
     False
@@ -196,15 +203,13 @@ def _keep(fit: LinearFit, item: _Kept) -> None:
         del entry.kept[:-KEPT_PER_FIT]
 
 
+@_once_doc
 def evaluate_once(fit: LinearFit, estimator: Estimator) -> CovarianceEstimate:
     """``estimator.evaluate(fit)``, computed once per fit and estimator (see the module).
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> from lincomb._covariance.specs import as_estimator
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-    >>> first = evaluate_once(f, as_estimator("HC3"))
+    %(hc3_once)s
     >>> evaluate_once(f, as_estimator("HC3")) is first
     True
     """

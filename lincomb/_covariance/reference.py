@@ -15,7 +15,27 @@ from scipy import special, stats
 
 from lincomb.errors import InputError, SingularCovarianceError
 
-__all__ = ["check_reference", "chi2_sf", "f_sf", "reference_result", "test_reference"]
+__all__ = [
+    "check_reference",
+    "chi2_sf",
+    "f_sf",
+    "reference_df",
+    "reference_result",
+    "test_reference",
+]
+
+
+def reference_df(df_error: float, reference: str) -> float:
+    """The denominator df a result reports: ``df_error`` under F, ``inf`` under chi2.
+
+    ``reference`` is a checked name (:func:`check_reference`).
+
+    Examples
+    --------
+    >>> reference_df(40, "F"), reference_df(40, "chi2")
+    (40.0, inf)
+    """
+    return float(df_error) if reference == "F" else float("inf")
 
 
 def reference_result(
@@ -24,7 +44,7 @@ def reference_result(
     """``(distribution, statistic, df_error, p_value)`` of a Wald form under the reference."""
     ref = check_reference(reference)
     if q == 0:
-        return ref, float("nan"), df_error if ref == "F" else float("inf"), float("nan")
+        return ref, float("nan"), reference_df(df_error, ref), float("nan")
     if ref == "chi2":
         return "chi2", float(quad), float("inf"), chi2_sf(quad, q)
     stat = quad / q

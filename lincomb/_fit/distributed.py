@@ -63,7 +63,8 @@ from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._fit.chunked import FrameRows, _check_options
 from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
-from lincomb._model.encoder import FormulaEncoder, require_response
+from lincomb._model.encoder import FormulaEncoder
+from lincomb._model.formula_text import require_response
 from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import (
     ClusterTaskError,

@@ -39,7 +39,7 @@ from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
-from lincomb._results.wald import WaldTest
+from lincomb._results.wald import WaldTest, assemble_wald_test
 from lincomb.errors import (
     CovarianceInputError,
     InputError,
@@ -297,23 +297,17 @@ class EstimatesFit(ReportTables):
         root = self._root_scale[:, None] * (self._working(c) @ self._basis).T
         est = c @ self.coefficients.to_numpy()
         wc = core.wald_from_root(est - d, root, analysis.independent)
-        dist, stat, df_error, p_value = reference_result(wc.quad, wc.rank, self._df(ref), ref)
-        return WaldTest(
-            labels=tuple(labels),
-            estimate=est,
-            target=d.copy(),
-            se=wc.std_error,
-            ratio=wc.statistic_rows,
-            stat=stat,
-            df_test=wc.rank,
-            df_error=df_error,
-            p=p_value,
-            reference=dist,
+        return assemble_wald_test(
+            labels,
+            est,
+            d,
+            wc,
+            reference_result(wc.quad, wc.rank, self._df(ref), ref),
             covariance=self.label,
             redundant=analysis.dependencies,
-            _c=c,
-            _names=tuple(self.names),
-            _root=root,
+            c=c,
+            names=self.names,
+            root=root,
         )
 
     # -- presentation -------------------------------------------------------------------

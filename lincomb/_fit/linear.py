@@ -29,7 +29,7 @@ from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
-from lincomb._covariance.reference import check_reference, test_reference
+from lincomb._covariance.reference import check_reference, reference_df, test_reference
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._model.design import (
     CoefficientIndex,
@@ -38,10 +38,11 @@ from lincomb._model.design import (
     design_from_formula,
     encode_new,
 )
-from lincomb._model.encoder import require_response, unused_level_hint
+from lincomb._model.formula_text import require_response
+from lincomb._model.row_checks import unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.report import ReportTables
-from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest
+from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest, assemble_wald_test
 from lincomb.errors import (
     DegenerateFitError,
 )
@@ -394,7 +395,7 @@ class LinearFit(ReportTables):
         check_level(level)
         ref = check_reference(reference)
         vcov = self.evaluate_covariance(covariance)
-        dfree: Any = vcov.df_error if ref == "F" else np.inf
+        dfree: Any = reference_df(vcov.df_error, ref)
         if ref == "F" and vcov.per_test_df:  # each coefficient's own small-sample df
             dfree = coefficient_df(self._sol, vcov)
         dist = stats.t(dfree) if ref == "F" else stats.norm()
@@ -568,23 +569,18 @@ class LinearFit(ReportTables):
             dist, stat, df_error, p_value, row_df = test_reference(
                 vcov, rot.quad, wc.rank, cu_kept, k, ref
             )
-        return WaldTest(
-            labels=tuple(labels),
-            estimate=est,
-            target=d.copy(),
-            se=wc.std_error,
-            ratio=wc.statistic_rows,
-            stat=stat,
-            df_test=wc.rank,
-            df_error=df_error,
-            p=p_value,
-            reference=dist,
+        return assemble_wald_test(
+            labels,
+            est,
+            d,
+            wc,
+            (dist, stat, df_error, p_value),
             covariance=vcov.label,
             redundant=analysis.dependencies,
+            c=c,
+            names=self.names,
+            root=root,
             row_df=row_df,
-            _c=c,
-            _names=self.names,
-            _root=root,
         )
 
     def wald_batch(

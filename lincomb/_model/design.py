@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from lincomb._model.row_checks import align_series
 from lincomb.errors import InputError, RowsUnavailableError, UnknownCoefficientError
 
 if TYPE_CHECKING:
@@ -511,8 +512,6 @@ def design_from_arrays(
     (('one', 'x'), 0)
     """
     if isinstance(x, pd.DataFrame):
-        from lincomb._model.encoder import align_series
-
         if names is None:
             names = [str(c) for c in x.columns]
         rows = x.index

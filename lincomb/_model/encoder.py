@@ -5,8 +5,9 @@ codings, the response), learned from a data sample or from declared levels.  It 
 picklable, so the same object encodes a whole frame, each chunk of a chunked fit, each partition
 of a Dask fit (on the workers), new data given to :meth:`lincomb.LinearFit.encode`, and the grid
 of level combinations that contrasts on level means evaluate.  Every check on the rows (missing
-values, unseen levels, a non-numeric response, non-finite values, bad weights) is made here, in
-one place, so every route accepts and refuses the same inputs.
+values, unseen levels, a non-numeric response, non-finite values, bad weights) is made through
+this class, in one place, so every route accepts and refuses the same inputs; the checks on
+columns, dtypes, weights and missing values themselves are in :mod:`lincomb._model.row_checks`.
 
 This is the only module of lincomb that imports formulaic (with :mod:`lincomb._model.design`,
 which builds on it); other layers see formulaic's model spec only through this class.
@@ -14,9 +15,6 @@ which builds on it); other layers see formulaic's model spec only through this c
 
 from __future__ import annotations
 
-import difflib
-import functools
-import re
 import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -33,292 +31,35 @@ from lincomb._model.design import (
     _index_from_spec,
     _validate_weights,
 )
+from lincomb._model.formula_text import (
+    _name_hint,
+    _required,
+    _split,
+    plain,
+)
+from lincomb._model.row_checks import (
+    _check_response,
+    _kept,
+    _missing_counts,
+    _na_mask,
+    _prefix,
+    _screen,
+    _show,
+    _string_names,
+    _unused_levels,
+    cast_levels,
+    refuse_non_numeric_responses,
+    screened_rows,
+)
 from lincomb.errors import InputError, MissingValueError, UnseenLevelError
 
+# refuse_non_numeric_responses lives in row_checks; it stays importable from here for the
+# many-response route, which imports it with the encoder
 __all__ = [
     "FormulaEncoder",
     "EncodedRows",
-    "require_response",
-    "cast_levels",
     "refuse_non_numeric_responses",
-    "align_series",
-    "unused_level_hint",
-    "plain",
 ]
-
-
-def _split(formula: object) -> tuple[str, str]:
-    """``(left side, right side)`` of a formula; the left side is ``""`` when there is none."""
-    if not isinstance(formula, str):
-        raise InputError(f"formula must be a string like 'y ~ a + b', got {formula!r}.")
-    if "~" in formula:
-        lhs, rhs = formula.split("~", 1)
-        return lhs.strip(), rhs.strip()
-    return "", formula.strip()
-
-
-def require_response(formula: object) -> None:
-    """Refuse a formula without a response (fits need one; designs and plans do not).
-
-    Examples
-    --------
-    >>> require_response("~ x")
-    Traceback (most recent call last):
-    ...
-    lincomb.errors.InputError: formula '~ x' has no response: write it as 'response ~ terms'.
-    """
-    if not isinstance(formula, str) or not _split(formula)[0]:
-        raise InputError(f"formula {formula!r} has no response: write it as 'response ~ terms'.")
-
-
-def cast_levels(
-    frame: pd.DataFrame, levels: Mapping[str, Sequence[Any]], where: str
-) -> pd.DataFrame:
-    """Give the columns in ``levels`` a categorical dtype with exactly those categories.
-
-    A value outside the declared levels raises :class:`~lincomb.errors.UnseenLevelError`.
-    ``frame`` is not modified (a shallow copy is changed when a column needs casting).
-
-    Examples
-    --------
-    >>> import pandas as pd
-    >>> out = cast_levels(pd.DataFrame({"g": ["b", "a"]}), {"g": ["a", "b", "c"]}, "data")
-    >>> out["g"].cat.categories.tolist()
-    ['a', 'b', 'c']
-    """
-    if not levels:
-        return frame
-    out = frame
-    for var, lv in levels.items():
-        if var not in frame.columns:
-            continue
-        col = frame[var]
-        lv_list = list(lv)
-        if isinstance(col.dtype, pd.CategoricalDtype) and list(col.cat.categories) == lv_list:
-            continue
-        present = col.dropna()
-        unseen = pd.Index(present.unique()).difference(pd.Index(lv_list))
-        if len(unseen):
-            raise UnseenLevelError(
-                f"{where}: column {var!r} holds level(s) {list(unseen)[:5]} not among the"
-                f" declared levels {lv_list}. Add them to levels[{var!r}]."
-            )
-        if out is frame:
-            out = frame.copy(deep=False)
-        out[var] = pd.Categorical(col, categories=lv_list)
-    return out
-
-
-_ANSI = re.compile(r"\x1b\[[0-9;]*[A-Za-z]")
-
-
-def plain(exc: object) -> str:
-    """Text of a message passed through from formulaic, without terminal colour codes.
-
-    Examples
-    --------
-    >>> plain("bad \x1b[1;31mterm\x1b[0m")
-    'bad term'
-    """
-    return _ANSI.sub("", str(exc))
-
-
-def _name_hint(frame: pd.DataFrame) -> str:
-    """How to write awkward column names in a formula (added to parse and lookup errors)."""
-    names = [str(c) for c in frame.columns]
-    hints = []
-    tick = [c for c in names if "`" in c]
-    if tick:
-        hints.append(
-            f" Column name(s) {tick[:3]} hold a backtick, which a formula cannot quote: rename"
-            " them (e.g. data.rename(columns=lambda c: c.replace('`', '_')))."
-        )
-    odd = [c for c in names if "`" not in c and not c.isidentifier()]
-    if odd:
-        hints.append(
-            f" A column whose name is not a plain identifier (here e.g. {odd[:3]}) is written in"
-            f" backticks: `{odd[0]}`."
-        )
-    return "".join(hints)
-
-
-def _string_names(frame: pd.DataFrame, where: str | None) -> pd.DataFrame:
-    """``frame`` with non-text column names (integers, ...) turned into text, so that a formula
-    can refer to column ``5`` as `` `5` ``; refuses names that would then collide."""
-    cols = frame.columns
-    if all(isinstance(c, str) for c in cols):
-        return frame
-    text = [str(c) for c in cols]
-    seen: dict[str, int] = {}
-    for c in text:
-        seen[c] = seen.get(c, 0) + 1
-    clash = [c for c, k in seen.items() if k > 1]
-    if clash:
-        raise InputError(
-            f"{where or 'data'} has columns whose names read alike as text: {clash[:5]} (e.g. the"
-            " integer 5 and the string '5'); rename them so every column has a distinct name."
-        )
-    out = frame.copy(deep=False)
-    out.columns = pd.Index(text, dtype=object)
-    return out
-
-
-def _kind(value: object) -> str:
-    if isinstance(value, bool | np.bool_):
-        return "bool"
-    if isinstance(value, int | np.integer):
-        return "int"
-    if isinstance(value, float | np.floating):
-        return "float"
-    if isinstance(value, str | np.str_):
-        return "str"
-    return type(value).__name__
-
-
-def _screen(
-    frame: pd.DataFrame, variables: Sequence[str], where: str | None, extra: Sequence[str] = ()
-) -> pd.DataFrame:
-    """Refuse columns the formula reads that would be encoded wrongly; normalise text dtypes.
-
-    Refused, naming the column: duplicated column names; date-time, time-delta and period
-    columns (their storage unit would silently become the unit of the coefficient); complex
-    numbers; object columns mixing value types (``True`` would merge with ``1``, and ``1`` and
-    ``'1'`` would make two levels that print alike).  Nullable ``string`` columns (Python or
-    pyarrow storage, ``ArrowDtype`` strings) become pandas' default text dtype, which the
-    formula library encodes as a factor.  ``frame`` is not modified.
-    """
-    label = where or "data"
-    used = [v for v in variables if v in frame.columns] + [e for e in extra if e in frame.columns]
-    dup = frame.columns[frame.columns.duplicated()]
-    twice = sorted({str(c) for c in dup if c in used})
-    if twice:
-        raise InputError(
-            f"{label} has duplicate column names: {twice} appear(s) more than once, so the"
-            " formula cannot tell which to use. Rename or drop the copies (e.g."
-            " data.loc[:, ~data.columns.duplicated()])."
-        )
-    out = frame
-    for v in used:
-        col = frame[v]
-        dt = col.dtype
-        kind = getattr(dt, "kind", "O")
-        if kind in "mM" or isinstance(dt, pd.PeriodDtype | pd.DatetimeTZDtype):
-            what = "time differences" if kind == "m" else "dates/times"
-            how = (
-                f"data[{v!r}] / pd.Timedelta(1, 'h') for hours"
-                if kind == "m"
-                else f"(data[{v!r}] - pd.Timestamp('2020-01-01')) / pd.Timedelta(1, 'D') for days"
-                " since a date you choose"
-            )
-            raise InputError(
-                f"{label}: column {v!r} holds {what} ({dt}), which have no unit a regression"
-                f" coefficient could carry (their storage unit would silently become it). Convert"
-                f" it to a number in a unit you choose, e.g. {how}, or to a factor with"
-                f" data[{v!r}].astype(str)."
-            )
-        if kind == "c":
-            raise InputError(
-                f"{label}: column {v!r} holds complex numbers ({dt}); a linear model here needs"
-                " real values: split it into real and imaginary parts (np.real, np.imag)."
-            )
-        if (
-            isinstance(dt, pd.StringDtype)
-            and dt.na_value is not np.nan
-            or (isinstance(dt, pd.ArrowDtype) and pd.api.types.is_string_dtype(dt))
-        ):
-            if out is frame:
-                out = frame.copy(deep=False)
-            out[v] = col.astype(object).where(col.notna(), np.nan).astype("str")
-            continue
-        if kind == "O":
-            inferred = pd.api.types.infer_dtype(col, skipna=True)
-            if inferred.startswith("mixed"):
-                kinds = sorted({_kind(x) for x in pd.unique(col.dropna().to_numpy())})
-                if len(kinds) > 1:
-                    raise InputError(
-                        f"{label}: column {v!r} mixes value types {kinds}, so levels could merge"
-                        " (True with 1) or split while printing alike (1 and '1'). Give it one"
-                        f" type: data[{v!r}].astype(str) for a factor, or"
-                        f" pd.to_numeric(data[{v!r}]) for a number."
-                    )
-    return out
-
-
-def _prefix(where: str | None) -> str:
-    return f"{where}: " if where else ""
-
-
-def align_series(series: pd.Series, index: pd.Index, what: str) -> pd.Series:
-    """``series`` aligned to ``index`` by label; a typed error names ``what`` and missing labels.
-
-    A Series given beside a DataFrame is matched to its rows by index, never by position.
-
-    Examples
-    --------
-    >>> import pandas as pd
-    >>> align_series(pd.Series([1.0, 2.0], index=[20, 10]), pd.Index([10, 20]), "w").tolist()
-    [2.0, 1.0]
-    >>> align_series(pd.Series([1.0, 2.0]), pd.Index([10, 20]), "weights")
-    Traceback (most recent call last):
-    ...
-    lincomb.errors.InputError: weights is a pandas Series whose index lacks 2 of the data's ...
-    """
-    if series.index.equals(index):
-        return series
-    if not series.index.is_unique:
-        dup = series.index[series.index.duplicated()].unique()[:5].tolist()
-        raise InputError(
-            f"{what} is a pandas Series with repeated index labels {dup}, so it cannot be aligned"
-            " with the data's rows by label; give one value per row label (or an array in row"
-            " order)."
-        )
-    missing = index[~index.isin(series.index)]
-    if len(missing):
-        raise InputError(
-            f"{what} is a pandas Series whose index lacks {len(missing)} of the data's row labels"
-            f" (e.g. {missing[:5].tolist()}); a Series is matched to the rows by index, not by"
-            f" position. Reindex it like the data ({what}.set_axis(data.index) if it is in row"
-            " order), or pass an array (.to_numpy()) to match by position."
-        )
-    return series.reindex(index)
-
-
-def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> pd.Series | None:
-    """Weights as a float Series aligned with ``frame``: a column name, a Series (aligned by
-    index) or an array (by position)."""
-    if weights is None:
-        return None
-    if isinstance(weights, str):
-        if weights not in frame.columns:
-            close = difflib.get_close_matches(weights, [str(c) for c in frame.columns])
-            raise InputError(
-                f"weights column {weights!r} is not in {where or 'data'}. Close: {close}"
-            )
-        series = frame[weights]
-        if isinstance(series, pd.DataFrame):
-            raise InputError(
-                f"{where or 'data'} has duplicate column names: weights column {weights!r}"
-                " appears more than once; rename or drop the copies."
-            )
-    elif isinstance(weights, pd.Series):
-        series = align_series(weights, frame.index, "weights")
-    else:
-        wv = np.asarray(weights)
-        if wv.ndim != 1 or wv.shape[0] != len(frame):
-            raise InputError(
-                f"weights has {wv.shape[0] if wv.ndim else 1} entries for {len(frame)} rows."
-            )
-        series = pd.Series(wv, index=frame.index)
-    dt = series.dtype
-    if pd.api.types.is_bool_dtype(dt) or not pd.api.types.is_numeric_dtype(dt):
-        sample = series.dropna()
-        shown = repr(sample.iloc[0]) if len(sample) else "none"
-        raise InputError(
-            f"{_prefix(where)}weights must be numeric (positive numbers), but they hold"
-            f" {dt} values (e.g. {shown}); convert them with pd.to_numeric first."
-        )
-    values = series.to_numpy(dtype=np.float64, na_value=np.nan)
-    return pd.Series(values, index=series.index, name=series.name)
 
 
 @dataclass(frozen=True)
@@ -496,12 +237,7 @@ class FormulaEncoder:
                 " of the intercept's coefficient, so the two would be confused. Rename the column"
                 " (e.g. data.rename(columns={'Intercept': 'intercept_col'}))."
             )
-        w = _weights_series(data, weights, where)
-        work = _screen(data, variables, where, [weights] if isinstance(weights, str) else [])
-        work = cast_levels(work, declared, label)
-        na = _na_mask(work, variables, w)
-        _refuse_missing(work, na, variables, w, missing, where)
-        sub = work.loc[~na] if na.any() else work
+        work, sub, w, na = screened_rows(data, variables, weights, declared, missing, where)
         if require_rows and len(sub) == 0:
             if len(data) == 0:
                 raise InputError(f"{label} has no rows: there is nothing to fit.")
@@ -862,12 +598,7 @@ class FormulaEncoder:
                 f" It has: {[str(c) for c in frame.columns]}"
             )
         frame = _string_names(frame, where)
-        w = _weights_series(frame, weights, where)
-        work = _screen(frame, self.variables, where, [weights] if isinstance(weights, str) else [])
-        work = cast_levels(work, self.levels, where or "data")
-        na = _na_mask(work, self.variables, w)
-        _refuse_missing(work, na, self.variables, w, missing, where)
-        sub = work.loc[~na] if na.any() else work
+        _, sub, w, na = screened_rows(frame, self.variables, weights, self.levels, missing, where)
         dropped = frame.index[na]
         if self.response is not None:
             _check_response(sub, _split(self.formula)[0], self._response_variables, where)
@@ -1073,11 +804,6 @@ class FormulaEncoder:
 # -- helpers -----------------------------------------------------------------------------------
 
 
-def _kept(w: pd.Series | None, na: NDArray[np.bool_]) -> pd.Series | None:
-    """The weights of the rows kept, by position (row labels may repeat)."""
-    return w if w is None or not na.any() else w[~na]
-
-
 def _same_bits(a: NDArray[np.float64], b: NDArray[np.float64]) -> bool:
     """Equal float64 arrays to the last bit (the sign of a zero included)."""
     return a.shape == b.shape and bool(np.array_equal(a.view(np.uint64), b.view(np.uint64)))
@@ -1091,157 +817,3 @@ def _float_columns(frame: pd.DataFrame) -> NDArray[np.float64]:
         v = col.to_numpy()
         x[:, j] = v if v.dtype.kind in "biuf" else col.to_numpy(dtype=np.float64)
     return x
-
-
-@functools.lru_cache(maxsize=256)
-def _formula_variables(target: str) -> tuple[str, ...]:
-    """Variables a formula reads (parsing is a pure function of the text: cached)."""
-    import formulaic
-
-    return tuple(str(v) for v in formulaic.Formula(target).required_variables)
-
-
-def _required(formula: str, frame: pd.DataFrame) -> list[str]:
-    """Columns of ``frame`` that ``formula`` reads."""
-    lhs, rhs = _split(formula)
-    target = f"{lhs} ~ {rhs}" if lhs else (rhs or "1")
-    try:
-        required = _formula_variables(target)
-    except Exception as exc:
-        raise InputError(
-            f"could not parse the formula {formula!r}: {plain(exc)}" + _name_hint(frame)
-        ) from None
-    return sorted(v for v in required if v in frame.columns)
-
-
-def _na_mask(
-    frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
-) -> NDArray[np.bool_]:
-    """Rows with a missing value in ``variables`` (or the weights), column by column: no
-    frame of the columns is assembled, and numpy columns that cannot hold one are skipped."""
-    na = np.zeros(len(frame), dtype=bool)
-    for c in variables:
-        if c not in frame.columns:
-            continue
-        col = frame[c]
-        if isinstance(col, pd.DataFrame):  # a name used twice (refused later, with its name)
-            na |= col.isna().to_numpy().any(axis=1)
-            continue
-        dt = col.dtype
-        if isinstance(dt, np.dtype) and dt.kind in "biu":
-            continue
-        if isinstance(dt, np.dtype) and dt.kind == "f":
-            na |= np.isnan(col.to_numpy())
-        else:
-            na |= col.isna().to_numpy(dtype=bool)
-    if w is not None:
-        na |= w.isna().to_numpy()
-    return na
-
-
-def _missing_counts(
-    frame: pd.DataFrame, variables: Sequence[str], w: pd.Series | None
-) -> dict[str, int]:
-    """Missing values per variable that has any (and ``"<weights>"`` for the weights)."""
-    counts = {c: int(frame[c].isna().sum()) for c in variables if frame[c].isna().any()}
-    if w is not None and w.isna().any():
-        counts["<weights>"] = int(w.isna().sum())
-    return counts
-
-
-def _refuse_missing(
-    frame: pd.DataFrame,
-    na: NDArray[np.bool_],
-    variables: Sequence[str],
-    w: pd.Series | None,
-    missing: str,
-    where: str | None,
-) -> None:
-    n_na = int(na.sum())
-    if not n_na or missing != "refuse":
-        return
-    counts = _missing_counts(frame, variables, w)
-    raise MissingValueError(
-        f"{_prefix(where)}{n_na} rows have missing values (per column: {counts}); drop or impute"
-        " them, or fit with missing='skip'."
-    )
-
-
-def _check_response(
-    frame: pd.DataFrame, response: str, variables: Sequence[str], where: str | None
-) -> None:
-    """Refuse a response read from a non-numeric column (a one-level text column expands to a
-    single indicator column, which would otherwise be fitted under a made-up name)."""
-    bad = [v for v in variables if v in frame.columns and not _numeric(frame[v].dtype)]
-    if bad:
-        raise InputError(
-            f"{_prefix(where)}response {response!r} is not numeric: a response must be numeric,"
-            f" but {bad} hold {frame[bad[0]].dtype} values; convert them to numbers first."
-        )
-
-
-def refuse_non_numeric_responses(frame: pd.DataFrame, columns: Sequence[str]) -> None:
-    """Refuse response columns of ``frame`` whose dtype is not numeric (as every fit does).
-
-    Examples
-    --------
-    >>> import pandas as pd
-    >>> refuse_non_numeric_responses(pd.DataFrame({"a": [1.0], "b": ["x"]}), ["a", "b"])
-    Traceback (most recent call last):
-    ...
-    lincomb.errors.InputError: response 'b' is not numeric: a response must be numeric, ...
-    """
-    for c in columns:
-        if not _numeric(frame[c].dtype):
-            _check_response(frame, str(c), [c], None)
-
-
-def _numeric(dtype: Any) -> bool:
-    return bool(pd.api.types.is_numeric_dtype(dtype)) and not isinstance(dtype, pd.CategoricalDtype)
-
-
-def _show(value: Any) -> Any:
-    return value.item() if isinstance(value, np.generic) else value
-
-
-def _unused_levels(
-    frame: pd.DataFrame, variables: Sequence[str], declared: Mapping[str, Any]
-) -> dict[str, tuple[Any, ...]]:
-    """Categories no row holds, per categorical column (declared levels are not reported)."""
-    unused: dict[str, tuple[Any, ...]] = {}
-    for v in variables:
-        if v in declared or v not in frame.columns:
-            continue
-        col = frame[v]
-        if not isinstance(col.dtype, pd.CategoricalDtype):
-            continue
-        held = np.zeros(len(col.cat.categories), dtype=bool)
-        codes = col.cat.codes.to_numpy()
-        held[codes[codes >= 0]] = True
-        if not held.all():
-            unused[v] = tuple(_show(c) for c in col.cat.categories[~held])
-    return unused
-
-
-def unused_level_hint(encoder: FormulaEncoder | None) -> str:
-    """A sentence naming categories no row held and the fix (``""`` when there are none).
-
-    Examples
-    --------
-    >>> import pandas as pd
-    >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": pd.Categorical(["a", "b", "a"], ["a", "b", "c"])})
-    >>> enc, _ = FormulaEncoder.learn("y ~ g", df, note_unused=True)
-    >>> enc.unused_levels
-    {'g': ('c',)}
-    >>> unused_level_hint(enc)[:60]
-    " Categorical column 'g' keeps level(s) ['c'] that no row use"
-    """
-    if encoder is None or not encoder.unused_levels:
-        return ""
-    parts = [
-        f" Categorical column {col!r} keeps level(s) {list(lv)} that no row used holds (left"
-        f" over from subsetting?), so their columns cannot be estimated: drop them with"
-        f" data[{col!r}] = data[{col!r}].cat.remove_unused_categories() and refit."
-        for col, lv in encoder.unused_levels.items()
-    ]
-    return "".join(parts)

@@ -25,7 +25,7 @@ from scipy import stats
 from lincomb import _core as core
 from lincomb._core.checks import check_level
 from lincomb._covariance.estimate import CovarianceEstimate
-from lincomb._covariance.reference import check_reference
+from lincomb._covariance.reference import check_reference, reference_df
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import InputError
 
@@ -258,7 +258,7 @@ def expected_values(
         se=se,
         se_new=se_new,
         estimable=ok,
-        df_error=float(vcov.df_error) if ref == "F" else float("inf"),
+        df_error=reference_df(vcov.df_error, ref),
         reference=ref,
         covariance=vcov.label,
         sigma=fit.sigma,

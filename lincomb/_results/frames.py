@@ -22,9 +22,24 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb._core.checks import check_level
+from lincomb._docstrings import fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
 __all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
+
+#: The parameters and return of ``as_markdown`` / ``as_latex`` / ``as_html`` (numpydoc sections).
+_REPORT_PARAMETERS = """\
+Parameters
+----------
+level : float, default 0.95
+    Confidence level of the intervals, in (0, 1).
+digits : int, default 4
+    Significant digits of every number, 1 to 17.
+
+Returns
+-------
+str"""
+_report_doc = fill_doc(report_parameters=_REPORT_PARAMETERS)
 
 #: Columns of ``row_frame(level)``: one row per restriction row.
 ROW_COLUMNS = (
@@ -171,6 +186,7 @@ class WaldResult:
         frame = self._row_frame(level)
         return frame, wald_headers(frame, self.reference)
 
+    @_report_doc
     def as_markdown(self, level: float = 0.95, digits: int = 4) -> str:
         """The rows of the test as a Markdown table, numbers to ``digits`` significant digits.
 
@@ -179,16 +195,7 @@ class WaldResult:
         reference), ``p`` and the bounds of the marginal interval at ``level``, the numbers of
         ``row_frame(level)`` rounded.
 
-        Parameters
-        ----------
-        level : float, default 0.95
-            Confidence level of the intervals, in (0, 1).
-        digits : int, default 4
-            Significant digits of every number, 1 to 17.
-
-        Returns
-        -------
-        str
+        %(report_parameters)s
 
         Examples
         --------
@@ -202,22 +209,14 @@ class WaldResult:
         """
         return markdown_table(*self._report(level), digits=digits)
 
+    @_report_doc
     def as_latex(self, level: float = 0.95, digits: int = 4) -> str:
         r"""The rows of the test as a plain LaTeX ``tabular`` (no package needed).
 
         The columns are those of :meth:`as_markdown`; LaTeX's special characters in labels
         (``\ & % $ # _ { } ~ ^``) are escaped.
 
-        Parameters
-        ----------
-        level : float, default 0.95
-            Confidence level of the intervals, in (0, 1).
-        digits : int, default 4
-            Significant digits of every number, 1 to 17.
-
-        Returns
-        -------
-        str
+        %(report_parameters)s
 
         Examples
         --------
@@ -229,22 +228,14 @@ class WaldResult:
         """
         return latex_table(*self._report(level), digits=digits)
 
+    @_report_doc
     def as_html(self, level: float = 0.95, digits: int = 4) -> str:
         """The rows of the test as one standalone HTML table with inline style.
 
         The columns are those of :meth:`as_markdown`; the table needs no stylesheet and
         loads nothing.
 
-        Parameters
-        ----------
-        level : float, default 0.95
-            Confidence level of the intervals, in (0, 1).
-        digits : int, default 4
-            Significant digits of every number, 1 to 17.
-
-        Returns
-        -------
-        str
+        %(report_parameters)s
 
         Examples
         --------

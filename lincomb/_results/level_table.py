@@ -39,7 +39,7 @@ from lincomb._builder.polynomials import orthogonal_polynomials
 from lincomb._builder.recipes import DEGREE_NAMES
 from lincomb._builder.restriction import _is_number, from_matrix
 from lincomb._core.checks import check_level
-from lincomb._covariance.reference import check_reference
+from lincomb._covariance.reference import check_reference, reference_df
 from lincomb._results.expected import row_moments
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
@@ -436,7 +436,7 @@ def level_mean_table(
         estimate=est,
         se=se,
         estimable=ok,
-        df_error=float(vcov.df_error) if ref == "F" else float("inf"),
+        df_error=reference_df(vcov.df_error, ref),
         reference=ref,
         covariance=vcov.label,
         setting="; ".join(setting_parts),

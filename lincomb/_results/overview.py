@@ -24,7 +24,7 @@ import pandas as pd
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
-from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._covariance.reference import check_reference, reference_df, reference_result
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
 from lincomb.errors import RowsUnavailableError
@@ -163,7 +163,7 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
         _d, stat, df_err, p = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     else:
         stat, p = float("nan"), float("nan")
-        df_err = float(vcov.df_error) if ref == "F" else float("inf")
+        df_err = reference_df(vcov.df_error, ref)
     log_w = 0.0
     if fit.weighted:
         try:

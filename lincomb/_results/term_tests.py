@@ -33,7 +33,7 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
-from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._covariance.reference import check_reference, reference_df, reference_result
 from lincomb._results.format import TableRepr, _num, _p
 from lincomb.errors import InputError, SingularCovarianceError
 
@@ -217,7 +217,7 @@ def term_tests(
     ss = np.full(n_t, np.nan)
     stat = np.full(n_t, np.nan)
     pval = np.full(n_t, np.nan)
-    df_den = float(vcov.df_error) if ref == "F" else float("inf")
+    df_den = reference_df(vcov.df_error, ref)
     for i, t in enumerate(labels):
         mine = [pos[c] for c in index.terms[t] if c in pos]
         if adjusted_for == "preceding":

@@ -25,9 +25,12 @@ from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFA
 from lincomb._results.report import ReportTables
 
 if TYPE_CHECKING:  # pragma: no cover
+    from collections.abc import Sequence
+
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
+    from lincomb._core.wald import WaldCore
     from lincomb._results.multiplicity import MultipleInference
 
 __all__ = [
@@ -396,6 +399,47 @@ class WaldTest(WaldResult):
 
     def _repr_html_(self) -> str:
         return wald_html(self)
+
+
+def assemble_wald_test(
+    labels: Sequence[str],
+    estimate: NDArray[np.float64],
+    target: NDArray[np.float64],
+    numbers: WaldCore,
+    referred: tuple[str, float, float, float],
+    *,
+    covariance: str,
+    redundant: dict[int, dict[int, float]],
+    c: NDArray[np.float64],
+    names: Sequence[str],
+    root: NDArray[np.float64],
+    row_df: NDArray[np.float64] | None = None,
+) -> WaldTest:
+    """The :class:`WaldTest` of a system from its core numbers, one assembly for every route.
+
+    ``numbers`` holds the rows' standard errors and ratios and the rank; ``referred`` is
+    ``(distribution, statistic, df_error, p)`` under the test's reference; ``target`` is
+    copied, so the result never shares it with the caller.
+    """
+    dist, stat, df_error, p_value = referred
+    return WaldTest(
+        labels=tuple(labels),
+        estimate=estimate,
+        target=target.copy(),
+        se=numbers.std_error,
+        ratio=numbers.statistic_rows,
+        stat=stat,
+        df_test=numbers.rank,
+        df_error=df_error,
+        p=p_value,
+        reference=dist,
+        covariance=covariance,
+        redundant=redundant,
+        row_df=row_df,
+        _c=c,
+        _names=tuple(names),
+        _root=root,
+    )
 
 
 @dataclass(frozen=True)
