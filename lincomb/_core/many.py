@@ -158,6 +158,12 @@ class DesignFactor:
     weights: Array | None
     _q: Array = field(repr=False)
 
+    @property
+    def thin_q(self) -> Array:
+        """The thin ``Q`` (n, min(n, q)) of the centred, scaled non-intercept columns (read only:
+        do not modify)."""
+        return self._q
+
     def project(self, y: Array) -> ResponseBlock:
         """Summarize responses ``y`` (n, b) against this design; ``y`` is not modified.
 
@@ -185,14 +191,50 @@ class DesignFactor:
         with np.errstate(invalid="ignore", over="ignore"):  # NaN/inf propagate on purpose
             return self._project(np.asarray(y, dtype=np.float64))
 
-    def _project(self, y: Array) -> ResponseBlock:
+    def project_finite(self, y: Array) -> tuple[NDArray[np.bool_], ResponseBlock]:
+        """Set aside the responses holding a NaN or inf, and :meth:`project` the others.
+
+        Returns ``odd`` (r,), True for the responses set aside (a non-finite sum or mean: a
+        missing or infinite value, or one that overflows a sum), and the summaries of the
+        others, in order.  With an intercept the test costs nothing: it is the mean that
+        centring takes anyway.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = rng.normal(size=(20, 3)); y[4, 1] = np.nan
+        >>> odd, block = factor_design(x, intercept=0).project_finite(y)
+        >>> odd.tolist(), block.count
+        ([False, True, False], 2)
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        m = self.moments
+        with np.errstate(invalid="ignore", over="ignore"):
+            if m.intercept is not None and m.n > 0:
+                m1 = _weighted_mean(y, self.weights)
+            else:
+                m1 = None
+            odd = ~np.isfinite(m1 if m1 is not None else y.sum(axis=0))
+            if odd.all():
+                return odd, ResponseBlock.concat([], m.others.size)
+            if odd.any():
+                y = y[:, ~odd]
+                m1 = None if m1 is None else m1[~odd]
+            return odd, self._project(y, m1)
+
+    def _project(self, y: Array, m1: Array | None = None) -> ResponseBlock:
         m = self.moments
         n = m.n
         w = self.weights
         if y.ndim == 1:
             y = y[:, None]
         if m.intercept is not None and n > 0:
-            m1 = _weighted_mean(y, w)
+            if m1 is None:
+                m1 = _weighted_mean(y, w)
             yb = y - m1  # the one copy of the block
             m2 = _weighted_mean(yb, w)
             yb -= m2

@@ -49,12 +49,19 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level
-from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design, fit_from_moments
+from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design
+from lincomb._fit.response_groups import (
+    _Group,
+    _ObservedGroup,
+    design_fit,
+    exact_groups,
+    group_wald,
+    solve_group,
+)
 from lincomb._fit.responses import (
     _array_source,
     _check_no_inf,
@@ -99,57 +106,6 @@ MIN_BLOCK_COLUMNS: int = 16
 MAX_WORKERS: int = 4
 
 _OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
-
-# -- groups of responses sharing rows ----------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class _Group:
-    """Responses fitted on the same rows: one factorization, vectorized solutions."""
-
-    columns: NDArray[np.intp]
-    rows: NDArray[np.intp] | None  # positions in the design's rows; None = all
-    n: int
-    fit: LinearFit | None  # the design's own fit (zero response): rank, names, restrictions
-    theta: NDArray[np.float64]
-    rss: NDArray[np.float64]
-    y_norm: NDArray[np.float64]
-
-    @property
-    def sol(self) -> core.Solution | None:
-        return None if self.fit is None else self.fit.solution
-
-
-def _design_fit(
-    design: Design, rows: NDArray[np.intp] | None, rank_tol: float
-) -> tuple[core.DesignFactor, LinearFit | None]:
-    x = design.x if rows is None else design.x[rows]
-    w = design.weights if rows is None or design.weights is None else design.weights[rows]
-    factor = core.factor_design(x, w, design.intercept)
-    if x.shape[0] == 0:  # a response missing in every row: flagged like too few rows
-        return factor, None
-    try:
-        lf = fit_from_moments(design, factor.moments, rank_tol)
-    except DegenerateFitError:
-        lf = None
-    return factor, lf
-
-
-def _solve_group(
-    factor: core.DesignFactor,
-    lf: LinearFit | None,
-    blocks: list[core.ResponseBlock],
-    columns: NDArray[np.intp],
-    rows: NDArray[np.intp] | None,
-) -> _Group:
-    q = factor.moments.others.size
-    block = core.ResponseBlock.concat(blocks, q)
-    r = columns.size
-    if lf is None:
-        nan = np.full(r, np.nan)
-        return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
-    theta, rss, y_norm = core.solve_responses(factor.moments, lf.solution, block)
-    return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
 
 
 def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -212,7 +168,7 @@ class ManyFit:
     formula: str | None
     rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _groups: tuple[_Group, ...] = field(repr=False, compare=False, default=())
+    _groups: tuple[_Group | _ObservedGroup, ...] = field(repr=False, compare=False, default=())
     _source: _Responses = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _frame: pd.DataFrame | None = field(repr=False, compare=False, default=None)
     _positions: NDArray[np.intp] | None = field(repr=False, compare=False, default=None)
@@ -330,47 +286,50 @@ class ManyFit:
         df_error = self.df_error.to_numpy(dtype=np.float64).copy()
         status = self.status.cat.codes.to_numpy().astype(np.int8)
         main = self._groups[0]
-        for gi, g in enumerate(self._groups):
+        main_prepared = None
+        groups = list(self._groups)
+        gi = -1
+        while gi + 1 < len(groups):
+            gi += 1
+            g = groups[gi]
             if g.fit is None:
                 continue
-            try:
-                c, d, lab, cu, analysis = g.fit.prepare(system)
-            except NotEstimableError:
+            if isinstance(g, _ObservedGroup):
+                assert main_prepared is not None  # the first group is the design's own
+                c, d, lab, cu, analysis = main_prepared
+                if not g.decisions_hold(c, analysis):
+                    # a redundancy decision too close to its tolerance: refit these exactly
+                    groups.extend(self._exact(g.columns))
+                    continue
+            else:
+                try:
+                    c, d, lab, cu, analysis = g.fit.prepare(system)
+                except NotEstimableError:
+                    if gi == 0:
+                        raise
+                    status[g.columns] = np.where(
+                        status[g.columns] == _OK, _NOT_ESTIMABLE, status[g.columns]
+                    )
+                    if labels is None:
+                        c, d, lab = g.fit.resolve(system)
+                        labels, target = lab, d
+                    continue
                 if gi == 0:
-                    raise
-                status[g.columns] = np.where(
-                    status[g.columns] == _OK, _NOT_ESTIMABLE, status[g.columns]
-                )
-                if labels is None:
-                    c, d, lab = g.fit.resolve(system)
-                    labels, target = lab, d
-                continue
+                    main_prepared = (c, d, lab, cu, analysis)
             if labels is None or gi == 0:
                 labels, target = lab, d
                 redundant = analysis.dependencies
                 df_test = int(analysis.independent.size)
             if est_all is None:
                 est_all, se_all, t_all = _unfilled(r, len(lab))
-            sol = g.fit.solution
-            ck = cu[:, sol.kept]
-            root = sol.root(ck)
-            est = ck @ g.theta  # (m, r_g)
-            delta = est - d[:, None]
-            quad, se0 = core.wald_quadratic_forms(delta, root, analysis.independent)
-            dfg = g.n - sol.rank
-            with np.errstate(divide="ignore", invalid="ignore"):
-                sigma = np.sqrt(g.rss / dfg)
-                se = se0[:, None] * sigma[None, :]
-                tt = delta / se
-                qn = analysis.independent.size
-                f = quad / (qn * sigma**2)
-            ok = status[g.columns] == _OK
             cols = g.columns
-            est_all[cols] = est.T
-            se_all[cols] = np.where(ok[:, None], se.T, np.nan)  # type: ignore[index]
-            t_all[cols] = np.where(ok[:, None], tt.T, np.nan)  # type: ignore[index]
-            stat[cols] = np.where(ok, f, np.nan)
-            pval[cols] = np.where(ok, stats.f.sf(f, qn, dfg), np.nan)
+            ck = cu[:, g.fit.solution.kept]
+            res = group_wald(g, ck, d, analysis.independent, status[cols] == _OK)
+            est_all[cols] = res.estimate
+            se_all[cols] = res.se  # type: ignore[index]
+            t_all[cols] = res.ratio  # type: ignore[index]
+            stat[cols] = res.stat
+            pval[cols] = res.p
         if labels is None or est_all is None:
             # every group lacked rows or estimability: resolve on the design for the labels
             c, d, lab = (main.fit or _first_fit(self._groups)).resolve(system)
@@ -391,6 +350,18 @@ class ManyFit:
             status=np.asarray(STATUSES)[status],
             n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
             redundant=redundant,
+        )
+
+    def _exact(self, columns: NDArray[np.intp]) -> list[_Group]:
+        """Responses ``columns`` refitted exactly on their own rows (one factor per pattern)."""
+        return exact_groups(
+            self._design,
+            self._source,
+            self._positions,
+            columns,
+            self.rank_tol,
+            BLOCK_BYTES,
+            MIN_BLOCK_COLUMNS,
         )
 
     def screen(
@@ -494,7 +465,7 @@ def _unfilled(
     return np.full((r, m), np.nan), np.full((r, m), np.nan), np.full((r, m), np.nan)
 
 
-def _first_fit(groups: Sequence[_Group]) -> LinearFit:
+def _first_fit(groups: Sequence[_Group | _ObservedGroup]) -> LinearFit:
     for g in groups:
         if g.fit is not None:
             return g.fit
@@ -523,66 +494,124 @@ def _build(
     r = source.count
     if r == 0:
         raise InputError("no responses given.")
-    factor, lf = _design_fit(design, None, rank_tol)
+    factor, lf = design_fit(design, None, rank_tol)
     if lf is None:
         raise DegenerateFitError(
             f"{n} rows for a design of rank {core.solve(factor.moments, rank_tol).rank} leave"
             " no residual degrees of freedom for any response. Add rows or drop terms."
         )
+    od = None
+    if missing == "skip":
+        od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
+        if not od.usable:
+            od = None
+
+    seen = [0, 0]  # responses seen, and how many of them had missing values
+
+    def work(yb: NDArray[np.float64]) -> _BlockFits:
+        return _fit_block(factor, od, yb, 2 * seen[1] > seen[0])
+
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
-    patterns: dict[bytes, list[int]] = {}
-    masks: dict[bytes, NDArray[np.bool_]] = {}
-    for j0, cols, yb, block in _projected(factor, source, positions, r, width, workers):
-        good = block.finite()  # a NaN or inf in a column makes its summaries non-finite
-        if not good.all():
-            bad = np.flatnonzero(~good)
-            sub = yb[:, bad]
-            _check_no_inf(sub, source.names, cols[bad], design)
-            nan = np.isnan(sub)
-            overflow = bad[~nan.any(axis=0)]
-            if overflow.size:
+    obs_blocks: list[core.ObservedBlock] = []
+    obs_cols: list[NDArray[np.intp]] = []
+    refit: list[NDArray[np.intp]] = []
+    for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
+        odd, block, observed = fits  # odd: a NaN, inf or overflow in the column
+        seen[0] += odd.size
+        seen[1] += int(odd.sum())
+        good = np.flatnonzero(~odd)
+        finite = block.finite()  # values too large to square make the summaries non-finite
+        odd_cols = np.flatnonzero(odd)
+        if odd_cols.size or not finite.all():
+            # an inf makes a column's fit non-finite too: look for infs only there
+            unfit = odd_cols if observed is None else odd_cols[~observed.finite()]
+            suspect = np.sort(np.concatenate([unfit, good[~finite]]))
+            if suspect.size:
+                _check_no_inf(yb[:, suspect], source.names, cols[suspect], design)
+            if observed is None:
+                has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
+            else:
+                has_nan = observed.n < n
+            big = np.sort(np.concatenate([odd_cols[~has_nan], good[~finite]]))
+            if big.size:
                 raise InputError(
-                    f"response {source.names[cols[overflow[0]]]!r} holds values too large to"
+                    f"response {source.names[cols[big[0]]]!r} holds values too large to"
                     " square in float64; rescale it."
                 )
             if missing == "refuse":
+                first = odd_cols[0]
                 raise MissingValueError(
-                    f"response {source.names[cols[bad[0]]]!r} has {int(nan[:, 0].sum())} missing"
-                    f" values ({bad.size} responses in this block have some); fit with"
-                    " missing='skip' to fit each response on its observed rows."
+                    f"response {source.names[cols[first]]!r} has"
+                    f" {int(np.isnan(yb[:, first]).sum())} missing values ({odd_cols.size}"
+                    " responses in this block have some); fit with missing='skip' to fit each"
+                    " response on its observed rows."
                 )
-            for t, j in enumerate(bad):
-                key = np.packbits(nan[:, t]).tobytes()
-                patterns.setdefault(key, []).append(j0 + int(j))
-                masks.setdefault(key, ~nan[:, t])
-            keep = np.flatnonzero(good)
-            if keep.size:
-                main_blocks.append(block.take(keep))
-                main_cols.append(cols[keep])
-        else:
-            main_blocks.append(block)
-            main_cols.append(cols)
+            if observed is None:
+                refit.append(cols[odd_cols])
+            else:
+                ok = observed.certified
+                obs_blocks.append(observed.take(np.flatnonzero(ok)))
+                obs_cols.append(cols[odd_cols[ok]])
+                refit.append(cols[odd_cols[~ok]])
+        main_blocks.append(block)
+        main_cols.append(cols[good])
         del yb
-    main_columns = np.concatenate(main_cols) if main_cols else np.zeros(0, dtype=np.intp)
-    groups = [_solve_group(factor, lf, main_blocks, main_columns, None)]
+    groups: list[_Group | _ObservedGroup] = [
+        solve_group(factor, lf, main_blocks, _joined(main_cols), None)
+    ]
     del main_blocks
-    for key, members in patterns.items():
-        rows = np.flatnonzero(masks[key])
-        cols = np.asarray(members, dtype=np.intp)
-        gfactor, glf = _design_fit(design, rows, rank_tol)
-        blocks = []
-        sub_width = _block_width(cols.size, rows.size)
-        for k0 in range(0, cols.size, sub_width):
-            part = cols[k0 : k0 + sub_width]
-            yb = source.block(part)
-            if positions is not None:
-                yb = yb[positions]
-            blocks.append(gfactor.project(yb[rows]) if glf is not None else None)
-        groups.append(_solve_group(gfactor, glf, [b for b in blocks if b is not None], cols, rows))
+    observed_columns = _joined(obs_cols)
+    if od is not None and observed_columns.size:
+        joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
+        groups.append(_ObservedGroup(observed_columns, lf, od, joined, joined.cholesky()))
+    del obs_blocks
+    groups.extend(
+        exact_groups(
+            design, source, positions, _joined(refit), rank_tol, BLOCK_BYTES, MIN_BLOCK_COLUMNS
+        )
+    )
     fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
     return replace(fit, _blas=threads)
+
+
+_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedBlock | None"]
+
+
+def _fit_block(
+    factor: core.DesignFactor,
+    od: core.ObservedDesign | None,
+    yb: NDArray[np.float64],
+    mostly_missing: bool,
+) -> _BlockFits:
+    """Summaries of one block of responses: finite ones projected on the design of all rows,
+    the others (missing values; or an inf, refused later) fitted on their own rows when ``od``
+    is given.
+
+    Which responses are set aside is found from the means that centring takes anyway
+    (:meth:`~lincomb._core.DesignFactor.project_finite`), or, when most responses have missing
+    values (``mostly_missing``, learnt from the blocks before), from the missing values
+    directly; the summaries are the same either way.
+    """
+    if od is not None and mostly_missing:
+        missing = np.isnan(yb)
+        odd: NDArray[np.bool_] = np.asarray(missing.any(axis=0), dtype=bool)
+        if odd.all():
+            block = core.ResponseBlock.concat([], factor.moments.others.size)
+            return odd, block, od.fit(yb, missing)
+        block = factor.project(yb[:, ~odd]) if odd.any() else factor.project(yb)
+        if not odd.any():
+            return odd, block, None
+        return odd, block, od.fit(yb[:, odd], missing[:, odd])
+    odd, block = factor.project_finite(yb)
+    if od is None or not odd.any():
+        return odd, block, None
+    return odd, block, od.fit(yb if odd.all() else yb[:, odd])
+
+
+def _joined(parts: list[NDArray[np.intp]]) -> NDArray[np.intp]:
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=np.intp)
 
 
 def _workers(workers: object) -> int:
@@ -600,7 +629,7 @@ def _block_width(r: int, n: int) -> int:
 def _assemble(
     design: Design,
     source: _Responses,
-    groups: list[_Group],
+    groups: list[_Group | _ObservedGroup],
     lf: LinearFit,
     rank_tol: float,
     formula: str | None,
@@ -617,6 +646,13 @@ def _assemble(
     for g in groups:
         cols = g.columns
         n_obs[cols] = g.n
+        if isinstance(g, _ObservedGroup):
+            rank[cols] = g.fit.solution.rank
+            coef[:, cols] = _coefficients(g.fit.solution, g.block.theta)
+            rss[cols] = g.block.rss
+            exact = g.block.resid_norm <= ZERO_RSS_TOL * g.block.y_norm
+            status[cols[exact]] = _EXACT
+            continue
         if g.fit is None:
             status[cols] = _FEW
             rank[cols] = min(g.n, p)

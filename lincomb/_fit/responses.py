@@ -5,15 +5,16 @@ from __future__ import annotations
 from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb import _core as core
 from lincomb._model.design import Design
 from lincomb.errors import InputError
+
+T = TypeVar("T")
 
 
 class _FrameColumns:
@@ -122,17 +123,18 @@ def _array_source(
 
 
 def _projected(
-    factor: core.DesignFactor,
+    work: Callable[[NDArray[np.float64]], T],
     source: _Responses,
     positions: NDArray[np.intp] | None,
     r: int,
     width: int,
     workers: int,
-) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], core.ResponseBlock]]:
-    """Blocks of responses with their projections, in order.
+) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], T]]:
+    """Blocks of responses with what ``work`` makes of them (their projections), in order.
 
-    Blocks are read in this thread (pandas is not asked to serve several threads) and projected
-    by ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
+    Blocks are read in this thread (pandas is not asked to serve several threads) and handed
+    to ``work`` on ``workers`` threads (numpy and BLAS release the GIL); at most ``workers``
+    blocks wait.
     """
 
     def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
@@ -140,16 +142,16 @@ def _projected(
         yb = source.block(slice(j0, j0 + cols.size))
         return cols, (yb if positions is None else yb[positions])
 
-    if workers <= 1:
+    if workers <= 1 or width >= r:
         for j0 in range(0, r, width):
             cols, yb = read(j0)
-            yield j0, cols, yb, factor.project(yb)
+            yield j0, cols, yb, work(yb)
         return
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[Any]]] = deque()
+        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[T]]] = deque()
         for j0 in range(0, r, width):
             cols, yb = read(j0)
-            pending.append((j0, cols, yb, pool.submit(factor.project, yb)))
+            pending.append((j0, cols, yb, pool.submit(work, yb)))
             if len(pending) > workers:
                 k0, kc, ky, fut = pending.popleft()
                 yield k0, kc, ky, fut.result()
