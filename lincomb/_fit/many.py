@@ -350,6 +350,8 @@ class ManyFit:
             status=np.asarray(STATUSES)[status],
             n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
             redundant=redundant,
+            _response_index=self.n_obs.index,
+            _status_codes=status,
         )
 
     def _exact(self, columns: NDArray[np.intp]) -> list[_Group]:
