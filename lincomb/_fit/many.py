@@ -40,9 +40,10 @@ residuals row by row (use :meth:`ManyFit.fit_of` for one response).
 from __future__ import annotations
 
 import difflib
+import functools
 import html
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -77,6 +78,7 @@ from lincomb._results.many import (
     SCREEN_ROW_COLUMNS,
     STATUSES,
     ManyWaldTest,
+    from_codes,
 )
 from lincomb._results.many import fdr_adjust as _fdr
 from lincomb._settings import blas_limit, worker_threads
@@ -502,16 +504,17 @@ def _build(
             f"{n} rows for a design of rank {core.solve(factor.moments, rank_tol).rank} leave"
             " no residual degrees of freedom for any response. Add rows or drop terms."
         )
-    od = None
-    if missing == "skip":
-        od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
-        if not od.usable:
-            od = None
-
     seen = [0, 0]  # responses seen, and how many of them had missing values
 
+    @functools.cache
+    def observed() -> core.ObservedDesign | None:  # built when a response needs it
+        if missing != "skip":
+            return None
+        od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
+        return od if od.usable else None
+
     def work(yb: NDArray[np.float64]) -> _BlockFits:
-        return _fit_block(factor, od, yb, 2 * seen[1] > seen[0])
+        return _fit_block(factor, observed, yb, 2 * seen[1] > seen[0])
 
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
@@ -520,7 +523,7 @@ def _build(
     obs_cols: list[NDArray[np.intp]] = []
     refit: list[NDArray[np.intp]] = []
     for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
-        odd, block, observed = fits  # odd: a NaN, inf or overflow in the column
+        odd, block, own = fits  # odd: a NaN, inf or overflow in the column
         seen[0] += odd.size
         seen[1] += int(odd.sum())
         good = np.flatnonzero(~odd)
@@ -528,14 +531,14 @@ def _build(
         odd_cols = np.flatnonzero(odd)
         if odd_cols.size or not finite.all():
             # an inf makes a column's fit non-finite too: look for infs only there
-            unfit = odd_cols if observed is None else odd_cols[~observed.finite()]
+            unfit = odd_cols if own is None else odd_cols[~own.finite()]
             suspect = np.sort(np.concatenate([unfit, good[~finite]]))
             if suspect.size:
                 _check_no_inf(yb[:, suspect], source.names, cols[suspect], design)
-            if observed is None:
+            if own is None:
                 has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
             else:
-                has_nan = observed.n < n
+                has_nan = own.n < n
             big = np.sort(np.concatenate([odd_cols[~has_nan], good[~finite]]))
             if big.size:
                 raise InputError(
@@ -550,11 +553,11 @@ def _build(
                     " responses in this block have some); fit with missing='skip' to fit each"
                     " response on its observed rows."
                 )
-            if observed is None:
+            if own is None:
                 refit.append(cols[odd_cols])
             else:
-                ok = observed.certified
-                obs_blocks.append(observed.take(np.flatnonzero(ok)))
+                ok = own.certified
+                obs_blocks.append(own.take(np.flatnonzero(ok)))
                 obs_cols.append(cols[odd_cols[ok]])
                 refit.append(cols[odd_cols[~ok]])
         main_blocks.append(block)
@@ -565,7 +568,8 @@ def _build(
     ]
     del main_blocks
     observed_columns = _joined(obs_cols)
-    if od is not None and observed_columns.size:
+    od = observed() if observed_columns.size else None
+    if od is not None:
         joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
         groups.append(_ObservedGroup(observed_columns, lf, od, joined, joined.cholesky()))
     del obs_blocks
@@ -583,20 +587,20 @@ _BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedBlock | 
 
 def _fit_block(
     factor: core.DesignFactor,
-    od: core.ObservedDesign | None,
+    observed: Callable[[], core.ObservedDesign | None],
     yb: NDArray[np.float64],
     mostly_missing: bool,
 ) -> _BlockFits:
     """Summaries of one block of responses: finite ones projected on the design of all rows,
-    the others (missing values; or an inf, refused later) fitted on their own rows when ``od``
-    is given.
+    the others (missing values; or an inf, refused later) fitted on their own rows when
+    ``observed()`` gives the design for it.
 
     Which responses are set aside is found from the means that centring takes anyway
     (:meth:`~lincomb._core.DesignFactor.project_finite`), or, when most responses have missing
     values (``mostly_missing``, learnt from the blocks before), from the missing values
     directly; the summaries are the same either way.
     """
-    if od is not None and mostly_missing:
+    if mostly_missing and (od := observed()) is not None:
         missing = np.isnan(yb)
         odd: NDArray[np.bool_] = np.asarray(missing.any(axis=0), dtype=bool)
         if odd.all():
@@ -607,7 +611,7 @@ def _fit_block(
             return odd, block, None
         return odd, block, od.fit(yb[:, odd], missing[:, odd])
     odd, block = factor.project_finite(yb)
-    if od is None or not odd.any():
+    if not odd.any() or (od := observed()) is None:
         return odd, block, None
     return odd, block, od.fit(yb if odd.all() else yb[:, odd])
 
@@ -680,7 +684,7 @@ def _assemble(
         sigma=pd.Series(sigma, index=idx, name="sigma"),
         rank=pd.Series(rank, index=idx, name="rank"),
         status=pd.Series(
-            pd.Categorical.from_codes(status, categories=pd.Index(STATUSES)),
+            from_codes(status, STATUSES),
             index=idx,
             name="status",
         ),

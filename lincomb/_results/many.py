@@ -8,7 +8,9 @@ across responses (``p_adjusted``, named in ``adjustment``) and each response's `
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
+from typing import Any, cast
 
 import numpy as np
 import pandas as pd
@@ -45,9 +47,21 @@ def fdr_adjust(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.f
     return out, _canonical(method, P_METHODS, "p-value")
 
 
+@functools.lru_cache(maxsize=64)
+def _labels_dtype(labels: tuple[str, ...]) -> pd.CategoricalDtype:
+    """The categorical dtype of ``labels`` (dtypes are immutable: built and validated once)."""
+    return pd.CategoricalDtype(pd.Index(list(labels)))
+
+
+def from_codes(codes: NDArray[np.integer], labels: tuple[str, ...]) -> pd.Categorical[str]:
+    """A categorical column of ``labels[codes]`` (the dtype is built once per set of labels)."""
+    dtype: Any = _labels_dtype(labels)  # pandas-stubs type from_codes' dtype as integer
+    return cast("pd.Categorical[str]", pd.Categorical.from_codes(codes, dtype=dtype))
+
+
 def _repeat(value: str, r: int) -> pd.Categorical[str]:
     """A column holding one label ``r`` times (categorical: cheap for many rows)."""
-    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=pd.Index([value]))
+    return from_codes(np.zeros(r, dtype=np.int8), (value,))
 
 
 @dataclass(frozen=True)
@@ -248,7 +262,7 @@ class ManyWaldTest(WaldResult):
 
     def _status_categorical(self) -> pd.Categorical[str]:
         if self._status_codes is not None:
-            return pd.Categorical.from_codes(self._status_codes, categories=pd.Index(STATUSES))
+            return from_codes(self._status_codes, STATUSES)
         return pd.Categorical(self.status, categories=STATUSES)
 
     def row_frame(
@@ -281,9 +295,7 @@ class ManyWaldTest(WaldResult):
         for col in ("reference", "covariance"):
             out[col] = _repeat(self.reference if col == "reference" else self.covariance, r * m)
         codes = self._status_categorical().codes
-        out["status"] = pd.Categorical.from_codes(
-            np.repeat(codes, m), categories=pd.Index(STATUSES)
-        )
+        out["status"] = from_codes(np.repeat(codes, m), STATUSES)
         out["p_adjusted"] = adj.ravel()
         out["adjustment"] = _repeat(name, r * m)
         out["n_obs"] = np.repeat(self.n_obs, m)
