@@ -157,6 +157,7 @@ class DesignFactor:
     moments: Moments
     weights: Array | None
     _q: Array = field(repr=False)
+    _q_ext: Array | None = field(default=None, repr=False)  # [sqrt(w)/sqrt(W), Q] (intercept)
 
     @property
     def thin_q(self) -> Array:
@@ -169,10 +170,12 @@ class DesignFactor:
 
         Notes
         -----
-        One copy of ``y`` is centred (two passes, as in :func:`moments_from_arrays`), scaled,
-        and rotated by ``Qᵀ`` (one matrix product); the residual norm comes from the explicit
-        residual ``y_c − Q Qᵀ y_c`` (a second product, in place), not from
-        ``‖y_c‖² − ‖Qᵀy_c‖²``, which would cancel when the fit is close.  The work memory is
+        One copy of ``y`` is centred on its mean, scaled, and rotated by ``Qᵀ`` (one matrix
+        product; with an intercept, ``Q`` holds the intercept's direction first, so the product
+        also gives the mean left over by rounding: the second centring pass of
+        :func:`moments_from_arrays`); the residual norm comes from the explicit residual
+        ``y_c − Q Qᵀ y_c`` (a second product, in place), not from ``‖y_c‖² − ‖Qᵀy_c‖²``,
+        which would cancel when the fit is close.  The work memory is
         one copy of the block given, so callers bound memory by passing blocks of columns.
         Missing or infinite values propagate into the summaries of their column (non-finite
         ``center``, ``qty`` or ``resid``), which callers use to find them.
@@ -228,30 +231,36 @@ class DesignFactor:
 
     def _project(self, y: Array, m1: Array | None = None) -> ResponseBlock:
         m = self.moments
-        n = m.n
         w = self.weights
         if y.ndim == 1:
             y = y[:, None]
-        if m.intercept is not None and n > 0:
+        q = m.others.size
+        ext = self._q_ext
+        if ext is not None:
             if m1 is None:
                 m1 = _weighted_mean(y, w)
             yb = y - m1  # the one copy of the block
-            m2 = _weighted_mean(yb, w)
-            yb -= m2
-            center = m1 + m2
+            if w is not None:
+                yb *= np.sqrt(w)[:, None]
+            # the second centring pass rides on the projection: the intercept's direction is
+            # the first column of Q, so its coefficient is sqrt(W) times the mean left over
+            qk = ext.T @ yb
+            center = m1 + qk[0] / np.sqrt(m.weight_sum)
+            qty = np.zeros((q, yb.shape[1]))
+            qty[: ext.shape[1] - 1] = qk[1:]
+            yb = _subtract_product(yb, ext, qk)
         else:
             yb = np.array(y, copy=True)
             center = np.zeros(yb.shape[1])
-        if w is not None:
-            yb *= np.sqrt(w)[:, None]
-        q = m.others.size
-        qd = self._q
-        k = qd.shape[1]
-        qty = np.zeros((q, yb.shape[1]))
-        if k:
-            qk = qd.T @ yb
-            qty[:k] = qk
-            yb = _subtract_product(yb, qd, qk)
+            if w is not None:
+                yb *= np.sqrt(w)[:, None]
+            qd = self._q
+            k = qd.shape[1]
+            qty = np.zeros((q, yb.shape[1]))
+            if k:
+                qk = qd.T @ yb
+                qty[:k] = qk
+                yb = _subtract_product(yb, qd, qk)
         resid2 = np.einsum("ij,ij->j", yb, yb)
         # ‖√w·y‖² = ‖Qᵀy_c‖² + ‖residual‖² + W·mean²: a sum of squares, no cancellation
         raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
@@ -362,7 +371,13 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     moments = Moments(
         n=n, weight_sum=wsum, intercept=intercept, center=center, raw_norm=raw_norm, r=r
     )
-    return DesignFactor(moments=moments, weights=w, _q=thin)
+    if intercept is None or n == 0:
+        return DesignFactor(moments=moments, weights=w, _q=thin)
+    # the intercept's direction sqrt(w)/sqrt(W) first: orthogonal to the centred columns
+    ext = np.empty((n, thin.shape[1] + 1), order="F")
+    ext[:, 0] = (1.0 if w is None else np.sqrt(w)) / np.sqrt(wsum)
+    ext[:, 1:] = thin
+    return DesignFactor(moments=moments, weights=w, _q=ext[:, 1:], _q_ext=ext)
 
 
 def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Array, Array, Array]:
