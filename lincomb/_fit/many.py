@@ -525,7 +525,7 @@ def _build(
     for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
         odd, block, own = fits  # odd: a NaN, inf or overflow in the column
         seen[0] += odd.size
-        seen[1] += int(odd.sum())
+        seen[1] += int(odd.sum()) if own is None else int(np.count_nonzero(own.n < n))
         good = np.flatnonzero(~odd)
         finite = block.finite()  # values too large to square make the summaries non-finite
         odd_cols = np.flatnonzero(odd)
@@ -535,11 +535,13 @@ def _build(
             suspect = np.sort(np.concatenate([unfit, good[~finite]]))
             if suspect.size:
                 _check_no_inf(yb[:, suspect], source.names, cols[suspect], design)
-            if own is None:
+            if own is None:  # each odd column has a NaN, an inf or a sum that overflows
                 has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
-            else:
+                unfit_own = np.ones(odd_cols.size, dtype=bool)
+            else:  # or none of them, in a block handed whole to the own-rows fit
                 has_nan = own.n < n
-            big = np.sort(np.concatenate([odd_cols[~has_nan], good[~finite]]))
+                unfit_own = ~own.finite()
+            big = np.sort(np.concatenate([odd_cols[~has_nan & unfit_own], good[~finite]]))
             if big.size:
                 raise InputError(
                     f"response {source.names[cols[big[0]]]!r} holds values too large to"
@@ -596,20 +598,15 @@ def _fit_block(
     ``observed()`` gives the design for it.
 
     Which responses are set aside is found from the means that centring takes anyway
-    (:meth:`~lincomb._core.DesignFactor.project_finite`), or, when most responses have missing
-    values (``mostly_missing``, learnt from the blocks before), from the missing values
-    directly; the summaries are the same either way.
+    (:meth:`~lincomb._core.DesignFactor.project_finite`); when most responses have missing
+    values (``mostly_missing``, learnt from the blocks before), every response of the block is
+    fitted on its own rows (those without missing values on all rows, exactly as well).
     """
     if mostly_missing and (od := observed()) is not None:
-        missing = np.isnan(yb)
-        odd: NDArray[np.bool_] = np.asarray(missing.any(axis=0), dtype=bool)
-        if odd.all():
-            block = core.ResponseBlock.concat([], factor.moments.others.size)
-            return odd, block, od.fit(yb, missing)
-        block = factor.project(yb[:, ~odd]) if odd.any() else factor.project(yb)
-        if not odd.any():
-            return odd, block, None
-        return odd, block, od.fit(yb[:, odd], missing[:, odd])
+        # every response of the block is fitted on its own rows (all rows when it has no
+        # missing value): no pass over the block to sort them first
+        odd = np.ones(yb.shape[1], dtype=bool)
+        return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.fit(yb)
     odd, block = factor.project_finite(yb)
     if not odd.any() or (od := observed()) is None:
         return odd, block, None
