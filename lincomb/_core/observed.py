@@ -262,6 +262,8 @@ class ObservedDesign:
     r_work: Array
     _q: Array  # (n, k): Q̂, intercept direction first
     _outer: Array  # (n, k(k+1)/2): the upper triangle of the outer product of each row of Q̂
+    _full_from_half: NDArray[np.intp]  # (k*k,): position in the upper triangle of each entry
+    _diag_in_half: NDArray[np.intp]  # (k,): positions of the diagonal in the upper triangle
     _w: Array | None
     _sqrt_w: Array | None
     _weight_sum: float
@@ -355,18 +357,15 @@ class ObservedDesign:
         if self._sqrt_w is not None:
             yc *= self._sqrt_w[:, None]
         qty = qh.T @ yc  # (k, r)
-        # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only
+        # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
         indptr = np.zeros(r + 1, dtype=np.int64)
         np.cumsum(count, out=indptr[1:])
         half = sps.csr_array((np.ones(flat.size), ii, indptr), shape=(r, n)) @ self._outer
-        iu, ju = np.triu_indices(k)
-        lost = np.empty((r, k, k))
-        lost[:, iu, ju] = half
-        lost[:, ju, iu] = half
-        gram = np.eye(k) - lost
+        gram = -half[:, self._full_from_half].reshape(r, k, k)
+        gram[:, np.arange(k), np.arange(k)] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
         # rows), then exactly by a Cholesky factorization of G − GRAM_FLOOR·I where needed
-        wide = np.einsum("rii->r", lost) <= 1.0 - GRAM_FLOOR
+        wide = half[:, self._diag_in_half].sum(axis=1) <= 1.0 - GRAM_FLOOR
         unsure = np.flatnonzero(~wide)
         if unsure.size:
             wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
@@ -462,11 +461,16 @@ def observed_design(
         qh[:, int(intercept) :] = 0.0
     iu, ju = np.triu_indices(k)
     outer = qh[:, iu] * qh[:, ju] if usable else np.zeros((n, 0))  # upper triangles of q̂ q̂ᵀ
+    where = np.zeros((k, k), dtype=np.intp)
+    where[iu, ju] = np.arange(iu.size)
+    where[ju, iu] = np.arange(iu.size)
     return ObservedDesign(
         usable=usable,
         r_work=r_work,
         _q=qh,
         _outer=outer,
+        _full_from_half=where.ravel(),
+        _diag_in_half=where[np.arange(k), np.arange(k)],
         _w=w,
         _sqrt_w=sqrt_w,
         _weight_sum=wsum,
