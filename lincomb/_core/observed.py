@@ -58,7 +58,7 @@ import numpy as np
 import scipy.sparse as sps
 from numpy.typing import NDArray
 
-from lincomb._core.many import DesignFactor, _subtract_product
+from lincomb._core.many import DesignFactor
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import safe_norm, upper_solve
 
@@ -371,11 +371,21 @@ class ObservedDesign:
             wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
         gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
         coef = np.asarray(np.linalg.solve(gram, qty.T[:, :, None])[:, :, 0].T, dtype=np.float64)
-        resid = _subtract_product(yc, qh, coef)
-        resid[ii, jj] = 0.0
-        resid2 = np.einsum("ij,ij->j", resid, resid)
-        # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows): no cancellation
-        y_norm = np.sqrt(resid2 + np.einsum("ij,ij->j", coef, qty))
+        # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
+        # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
+        # it takes more, the residual sum of squares comes from the explicit residual
+        y2 = np.einsum("ij,ij->j", yc, yc)
+        fit2 = np.einsum("ij,ij->j", coef, qty)
+        resid2 = np.maximum(y2 - fit2, 0.0)
+        close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
+        if close.size:
+            pos = np.full(r, -1)
+            pos[close] = np.arange(close.size)
+            resid = yc[:, close] - qh @ coef[:, close]
+            hit = pos[jj] >= 0
+            resid[ii[hit], pos[jj[hit]]] = 0.0
+            resid2[close] = np.einsum("ij,ij->j", resid, resid)
+        y_norm = np.sqrt(y2)
         resid_norm = np.sqrt(resid2)
         theta = upper_solve(self.r_work, coef)
         if self._intercept:
@@ -460,7 +470,8 @@ def observed_design(
     else:
         qh[:, int(intercept) :] = 0.0
     iu, ju = np.triu_indices(k)
-    outer = qh[:, iu] * qh[:, ju] if usable else np.zeros((n, 0))  # upper triangles of q̂ q̂ᵀ
+    # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows)
+    outer = np.ascontiguousarray(qh[:, iu] * qh[:, ju]) if usable else np.zeros((n, 0))
     where = np.zeros((k, k), dtype=np.intp)
     where[iu, ju] = np.arange(iu.size)
     where[ju, iu] = np.arange(iu.size)

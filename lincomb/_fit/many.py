@@ -325,6 +325,8 @@ class ManyFit:
             if est_all is None:
                 est_all, se_all, t_all = _unfilled(r, len(lab))
             cols = g.columns
+            if cols.size == 0:  # the design's own group when every response has missing values
+                continue
             ck = cu[:, g.fit.solution.kept]
             res = group_wald(g, ck, d, analysis.independent, status[cols] == _OK)
             est_all[cols] = res.estimate
