@@ -13,7 +13,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.moments import Moments, _centre_in_place, _weighted_mean
+from lincomb._core.moments import Moments, _centre_in_place
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
 from lincomb.errors import InternalError
@@ -173,9 +173,10 @@ class DesignFactor:
         One copy of ``y`` is centred on its mean, scaled, and rotated by ``Qᵀ`` (one matrix
         product; with an intercept, ``Q`` holds the intercept's direction first, so the product
         also gives the mean left over by rounding: the second centring pass of
-        :func:`moments_from_arrays`); the residual norm comes from the explicit residual
-        ``y_c − Q Qᵀ y_c`` (a second product, in place), not from ``‖y_c‖² − ‖Qᵀy_c‖²``,
-        which would cancel when the fit is close.  The work memory is
+        :func:`moments_from_arrays`).  The residual sum of squares is ``‖y_c‖² − ‖Qᵀy_c‖²``
+        where the fit takes at most half of ``‖y_c‖²`` (at most one bit lost), and comes from
+        the explicit residual ``y_c − Q Qᵀ y_c`` (a second product) where the fit is close
+        and the difference would cancel.  The work memory is
         one copy of the block given, so callers bound memory by passing blocks of columns.
         Missing or infinite values propagate into the summaries of their column (non-finite
         ``center``, ``qty`` or ``resid``), which callers use to find them.
@@ -218,7 +219,7 @@ class DesignFactor:
         m = self.moments
         with np.errstate(invalid="ignore", over="ignore"):
             if m.intercept is not None and m.n > 0:
-                m1 = _weighted_mean(y, self.weights)
+                m1 = _column_means(y, self.weights)
             else:
                 m1 = None
             odd = ~np.isfinite(m1 if m1 is not None else y.sum(axis=0))
@@ -238,30 +239,27 @@ class DesignFactor:
         ext = self._q_ext
         if ext is not None:
             if m1 is None:
-                m1 = _weighted_mean(y, w)
+                m1 = _column_means(y, w)
             yb = y - m1  # the one copy of the block
             if w is not None:
                 yb *= np.sqrt(w)[:, None]
             # the second centring pass rides on the projection: the intercept's direction is
             # the first column of Q, so its coefficient is sqrt(W) times the mean left over
+            basis = ext
             qk = ext.T @ yb
             center = m1 + qk[0] / np.sqrt(m.weight_sum)
             qty = np.zeros((q, yb.shape[1]))
             qty[: ext.shape[1] - 1] = qk[1:]
-            yb = _subtract_product(yb, ext, qk)
         else:
             yb = np.array(y, copy=True)
             center = np.zeros(yb.shape[1])
             if w is not None:
                 yb *= np.sqrt(w)[:, None]
-            qd = self._q
-            k = qd.shape[1]
+            basis = self._q
+            qk = basis.T @ yb
             qty = np.zeros((q, yb.shape[1]))
-            if k:
-                qk = qd.T @ yb
-                qty[:k] = qk
-                yb = _subtract_product(yb, qd, qk)
-        resid2 = np.einsum("ij,ij->j", yb, yb)
+            qty[: basis.shape[1]] = qk
+        resid2 = _residual_squares(yb, basis, qk)
         # ‖√w·y‖² = ‖Qᵀy_c‖² + ‖residual‖² + W·mean²: a sum of squares, no cancellation
         raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
         return ResponseBlock(qty=qty, resid=np.sqrt(resid2), center=center, raw_norm=raw)
@@ -291,6 +289,33 @@ class DesignFactor:
         raw = m.raw_norm.copy()
         raw[m.p] = block.raw_norm[j]
         return Moments(m.n, m.weight_sum, m.intercept, center, raw, r)
+
+
+def _column_means(y: Array, w: Array | None) -> Array:
+    """(Weighted) column means by one matrix-vector product (a NaN or inf propagates)."""
+    ones = np.ones(y.shape[0]) if w is None else w
+    out: Array = (ones @ y) / (y.shape[0] if w is None else w.sum())
+    return out
+
+
+def _residual_squares(y: Array, basis: Array, coef: Array) -> Array:
+    """``‖y − basis·coef‖²`` per column, ``coef = basisᵀ y`` with orthonormal ``basis``.
+
+    Where the fit takes at most half of ``‖y‖²``, ``‖y‖² − ‖coef‖²`` loses at most one bit and
+    is used; elsewhere (a close fit, where the difference would cancel) the residual is formed
+    explicitly.  ``y`` may be overwritten.
+    """
+    y2 = np.einsum("ij,ij->j", y, y)
+    fit2 = np.einsum("ij,ij->j", coef, coef)
+    out: Array = np.maximum(y2 - fit2, 0.0)
+    close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN and inf go this way too
+    if close.size == y.shape[1]:
+        resid = _subtract_product(y, basis, coef)
+        out = np.einsum("ij,ij->j", resid, resid)
+    elif close.size:
+        resid = y[:, close] - basis @ coef[:, close]
+        out[close] = np.einsum("ij,ij->j", resid, resid)
+    return out
 
 
 def _subtract_product(c: Array, a: Array, b: Array) -> Array:
