@@ -425,6 +425,34 @@ def test_refitted_route_equals_the_vectorized_route(
         np.testing.assert_allclose(fast.stat[j], one.wald(system).stat, rtol=RTOL)
 
 
+def test_blocks_after_mostly_missing_ones_are_checked_and_fitted_alike(
+    monkeypatch: pytest.MonkeyPatch, airquality: pd.DataFrame
+) -> None:
+    # One response per block: after blocks whose responses have missing values, later blocks go
+    # whole to the own-rows fit.  Their complete responses must still equal their single fits
+    # (statsmodels' formula interface per response), and bad values must still be refused.
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    names = ["Ozone", "Solar_R", "Temp", "Wind"]  # R: only Ozone and Solar.R have NA
+    mf = lc.fit_many("~ C(Month)", airquality, responses=names, workers=1)
+    res = mf.wald(lc.term("C(Month)") == 0)
+    for j, name in enumerate(names):
+        sm = smf.ols(f"{name} ~ C(Month)", airquality).fit()
+        assert mf.n_obs[name] == sm.nobs
+        np.testing.assert_allclose(mf.rss[name], sm.ssr, rtol=RTOL)
+        months = [s for s in sm.model.exog_names if s.startswith("C(Month)")]
+        ft = sm.f_test(_sm_matrix(sm, dict.fromkeys(months, 0.0)))
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+    bad = airquality["Temp"].to_numpy(dtype=float).copy()
+    bad[9] = -np.inf
+    ys = airquality[["Ozone", "Solar_R", "Wind"]].assign(bad=bad)
+    with pytest.raises(InputError, match="response 'bad' holds -inf at row 9"):
+        lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+    ys = airquality[["Ozone", "Solar_R", "Wind"]].assign(big=airquality["Temp"] * 1e200)
+    with pytest.raises(InputError, match="response 'big' holds values too large to square"):
+        lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+
+
 def test_values_too_large_to_square_are_refused_with_missing_values(mtcars: pd.DataFrame) -> None:
     # A response whose squares overflow float64 is refused, whether or not it has missing values.
     big = mtcars["qsec"].to_numpy() * 1e200

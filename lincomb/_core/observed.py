@@ -15,14 +15,16 @@ columns in working order).  On the rows ``O`` it is ``A_O = Q̂_O R``, and::
 
 so ``A_O = (Q̂_O L⁻ᵀ)(Lᵀ R)``: the columns of ``Q̂_O L⁻ᵀ`` are orthonormal and ``Lᵀ R`` is the
 triangular factor of the response's own rows.  ``G`` is ``k × k`` (``k`` = columns of the
-design) and is formed from the few missing rows only (``k²`` work per missing value), so a
-response costs what its missing values cost plus its share of two matrix products over all rows
-(``Q̂ᵀ y`` and the explicit residual ``y − Q̂ c``), vectorized over responses.  The response is
-centred on its own (weighted) mean over ``O`` in two passes, as :class:`Moments` centres; the
-coefficients ``c = G⁻¹ Q̂ᵀ y_O`` come from the Cholesky factor ``L`` of ``G`` (one batched
-forward and one back substitution), the residual sum of squares from the explicit residual on
-``O``, never from a difference of sums of squares.  The covariance of ``Cβ̂`` is
-``σ² Uᵀ G⁻¹ U`` with ``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U``.
+design) and is formed from the few missing rows only (``k²`` work per missing value, one sparse
+product), so a response costs what its missing values cost plus its share of the matrix products
+over all rows, vectorized over responses.  The response is centred on its own (weighted) mean
+over ``O`` (what rounding leaves of the mean lies along the intercept, which the fit takes up
+exactly, so no second pass is needed); the coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched
+solve).  The residual sum of squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of
+``‖y_O‖²`` (at most one bit lost to cancellation) and comes from the explicit residual
+``y_O − Q̂_O c`` elsewhere.  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
+``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U`` (``L`` the Cholesky
+factor of ``G``, a batched forward substitution).
 
 When the result is exact (certified)
 ------------------------------------

@@ -18,8 +18,13 @@ Missing values in the responses
 -------------------------------
 Handled exactly, per response: a response with missing values is fitted on the rows where it
 is observed, as its own ``lc.fit`` would with ``missing="skip"``; it never shrinks or shifts
-the design of the other responses.  Responses sharing a pattern of missing values share one
-factorization of the design rows they use.  Each response reports its own ``n_obs`` and
+the design of the other responses.  Each response is fitted on its own rows from the one
+factorization of all rows, vectorized over responses (:mod:`lincomb._core.observed`: from its
+missing rows only, without refactoring the design), wherever that is certified exact: the
+design has full rank with a margin, the response's rows keep at least a quarter of every
+direction of the design, and every rank, redundancy and exact-fit decision is far from its
+tolerance.  Any other response is refitted on its rows by a factorization of them (responses
+sharing a pattern of missing values share it).  Each response reports its own ``n_obs`` and
 ``df_error``; the rank of a subset of rows can be lower (aliased columns), a restriction can
 then be not estimable for that response: its test is NaN with status ``"not estimable"``.
 ``missing="refuse"`` refuses any missing response value instead.  Rows with missing values in
@@ -43,7 +48,7 @@ import difflib
 import functools
 import html
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -65,9 +70,11 @@ from lincomb._fit.response_groups import (
 )
 from lincomb._fit.responses import (
     _array_source,
-    _check_no_inf,
+    _BlockFits,
+    _fit_block,
     _FrameColumns,
     _projected,
+    _refuse_bad_values,
     _Responses,
     _unique_names,
 )
@@ -85,7 +92,6 @@ from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
-    MissingValueError,
     NotEstimableError,
 )
 
@@ -529,34 +535,9 @@ def _build(
         seen[0] += odd.size
         seen[1] += int(odd.sum()) if own is None else int(np.count_nonzero(own.n < n))
         good = np.flatnonzero(~odd)
-        finite = block.finite()  # values too large to square make the summaries non-finite
         odd_cols = np.flatnonzero(odd)
-        if odd_cols.size or not finite.all():
-            # an inf makes a column's fit non-finite too: look for infs only there
-            unfit = odd_cols if own is None else odd_cols[~own.finite()]
-            suspect = np.sort(np.concatenate([unfit, good[~finite]]))
-            if suspect.size:
-                _check_no_inf(yb[:, suspect], source.names, cols[suspect], design)
-            if own is None:  # each odd column has a NaN, an inf or a sum that overflows
-                has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
-                unfit_own = np.ones(odd_cols.size, dtype=bool)
-            else:  # or none of them, in a block handed whole to the own-rows fit
-                has_nan = own.n < n
-                unfit_own = ~own.finite()
-            big = np.sort(np.concatenate([odd_cols[~has_nan & unfit_own], good[~finite]]))
-            if big.size:
-                raise InputError(
-                    f"response {source.names[cols[big[0]]]!r} holds values too large to"
-                    " square in float64; rescale it."
-                )
-            if missing == "refuse":
-                first = odd_cols[0]
-                raise MissingValueError(
-                    f"response {source.names[cols[first]]!r} has"
-                    f" {int(np.isnan(yb[:, first]).sum())} missing values ({odd_cols.size}"
-                    " responses in this block have some); fit with missing='skip' to fit each"
-                    " response on its observed rows."
-                )
+        _refuse_bad_values(yb, cols, odd, block, own, source.names, design, missing)
+        if odd_cols.size:
             if own is None:
                 refit.append(cols[odd_cols])
             else:
@@ -584,35 +565,6 @@ def _build(
     )
     fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
     return replace(fit, _blas=threads)
-
-
-_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedBlock | None"]
-
-
-def _fit_block(
-    factor: core.DesignFactor,
-    observed: Callable[[], core.ObservedDesign | None],
-    yb: NDArray[np.float64],
-    mostly_missing: bool,
-) -> _BlockFits:
-    """Summaries of one block of responses: finite ones projected on the design of all rows,
-    the others (missing values; or an inf, refused later) fitted on their own rows when
-    ``observed()`` gives the design for it.
-
-    Which responses are set aside is found from the means that centring takes anyway
-    (:meth:`~lincomb._core.DesignFactor.project_finite`); when most responses have missing
-    values (``mostly_missing``, learnt from the blocks before), every response of the block is
-    fitted on its own rows (those without missing values on all rows, exactly as well).
-    """
-    if mostly_missing and (od := observed()) is not None:
-        # every response of the block is fitted on its own rows (all rows when it has no
-        # missing value): no pass over the block to sort them first
-        odd = np.ones(yb.shape[1], dtype=bool)
-        return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.fit(yb)
-    odd, block = factor.project_finite(yb)
-    if not odd.any() or (od := observed()) is None:
-        return odd, block, None
-    return odd, block, od.fit(yb if odd.all() else yb[:, odd])
 
 
 def _joined(parts: list[NDArray[np.intp]]) -> NDArray[np.intp]:
