@@ -613,7 +613,7 @@ def test_own_rows_factor_identities(
         return
     ys0 = ys.copy()
     block = od.fit(ys)
-    low = block.cholesky()
+    low = block.chol
     np.testing.assert_array_equal(ys, ys0)  # the input is not modified
     sw = np.ones(n) if w is None else np.sqrt(w)
     work = (x - sol.center) / sol.scale * sw[:, None]  # working columns, all rows

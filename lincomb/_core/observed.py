@@ -109,8 +109,9 @@ class ObservedBlock:
         Residual norms (weighted), from the explicit residual.
     y_norm : (r,) ndarray
         Norms of the centred, scaled responses on their rows.
-    gram : (r, k, k) ndarray
-        ``G = Q̂_Oᵀ Q̂_O`` per response (the identity where not certified).
+    chol : (r, k, k) ndarray
+        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response (the identity
+        where not certified).
     certified : (r,) ndarray of bool
         Whether the vectorized fit stands (module notes); the others must be refitted.
 
@@ -131,7 +132,7 @@ class ObservedBlock:
     theta: Array
     resid_norm: Array
     y_norm: Array
-    gram: Array
+    chol: Array
     certified: NDArray[np.bool_]
 
     @property
@@ -143,24 +144,6 @@ class ObservedBlock:
     @property
     def count(self) -> int:
         return int(self.n.shape[0])
-
-    def cholesky(self) -> Array:
-        """Lower Cholesky factors ``L`` (r, k, k) of ``G = L Lᵀ``, one per response.
-
-        Examples
-        --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
-        >>> y = rng.normal(size=(40, 2)); y[[1, 5], 1] = np.nan
-        >>> block = observed_design(factor_design(x, intercept=0), None).fit(y)
-        >>> low = block.cholesky()
-        >>> bool(np.allclose(low @ np.swapaxes(low, 1, 2), block.gram))
-        True
-        """
-        # G is positive definite (the identity where not certified)
-        return np.asarray(np.linalg.cholesky(self.gram), dtype=np.float64)
 
     def finite(self) -> NDArray[np.bool_]:
         """Responses whose fit is finite (an infinite value or an overflow propagates).
@@ -200,7 +183,7 @@ class ObservedBlock:
             self.theta[:, cols],
             self.resid_norm[cols],
             self.y_norm[cols],
-            self.gram[cols],
+            self.chol[cols],
             self.certified[cols],
         )
 
@@ -233,7 +216,7 @@ class ObservedBlock:
             np.concatenate([b.theta for b in blocks], axis=1),
             np.concatenate([b.resid_norm for b in blocks]),
             np.concatenate([b.y_norm for b in blocks]),
-            np.concatenate([b.gram for b in blocks]),
+            np.concatenate([b.chol for b in blocks]),
             np.concatenate([b.certified for b in blocks]),
         )
 
@@ -347,7 +330,7 @@ class ObservedDesign:
             # along the intercept, which the fit below takes up exactly
             if w is None:
                 wsum = n_obs.astype(np.float64)
-                total = yc.sum(axis=0)
+                total = np.ones(n) @ yc
             else:
                 wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
                 total = w @ yc
@@ -372,7 +355,8 @@ class ObservedDesign:
         if unsure.size:
             wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
         gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
-        coef = np.asarray(np.linalg.solve(gram, qty.T[:, :, None])[:, :, 0].T, dtype=np.float64)
+        chol = np.asarray(np.linalg.cholesky(gram), dtype=np.float64)  # positive definite
+        coef = _lower_solve(chol, _lower_solve(chol, qty.T[:, :, None]), trans=True)[:, :, 0].T
         # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
         # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
         # it takes more, the residual sum of squares comes from the explicit residual
@@ -402,7 +386,7 @@ class ObservedDesign:
             & np.isfinite(resid_norm)
             & np.isfinite(y_norm)
         )
-        return ObservedBlock(n_obs.astype(np.int64), theta, resid_norm, y_norm, gram, certified)
+        return ObservedBlock(n_obs.astype(np.int64), theta, resid_norm, y_norm, chol, certified)
 
 
 def observed_design(
@@ -493,19 +477,13 @@ def observed_design(
 
 
 def observed_wald(
-    block: ObservedBlock,
-    chol: Array,
-    root: Array,
-    delta: Array,
-    independent: NDArray[np.intp],
+    block: ObservedBlock, root: Array, delta: Array, independent: NDArray[np.intp]
 ) -> tuple[Array, Array]:
     """Quadratic forms and row standard errors of one system on responses fitted on own rows.
 
     Parameters
     ----------
     block : ObservedBlock
-    chol : (r, k, k) ndarray
-        :meth:`ObservedBlock.cholesky` of ``block``.
     root : (k, m) ndarray
         ``U`` of :meth:`ObservedDesign.root`.
     delta : (m, r) ndarray
@@ -538,14 +516,13 @@ def observed_wald(
     >>> block = od.fit(y[:, None])
     >>> c = np.array([[0.0, 1.0, 0.0]])
     >>> ck = sol.to_working(c)[:, sol.kept]
-    >>> low = block.cholesky()
-    >>> quad, se = observed_wald(block, low, od.root(ck), ck @ block.theta, np.array([0]))
+    >>> quad, se = observed_wald(block, od.root(ck), ck @ block.theta, np.array([0]))
     >>> keep = ~np.isnan(y)
     >>> xtx = x[keep].T @ x[keep]
     >>> bool(np.isclose(se[0, 0] ** 2, np.linalg.solve(xtx, c[0])[1]))
     True
     """
-    roots = _lower_solve(chol, np.broadcast_to(root, (block.count, *root.shape)))
+    roots = _lower_solve(block.chol, np.broadcast_to(root, (block.count, *root.shape)))
     se = np.sqrt(np.einsum("rkm,rkm->rm", roots, roots))
     if independent.size == 0:
         return np.zeros(block.count), se

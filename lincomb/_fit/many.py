@@ -556,7 +556,7 @@ def _build(
     od = observed() if observed_columns.size else None
     if od is not None:
         joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
-        groups.append(_ObservedGroup(observed_columns, lf, od, joined, joined.cholesky()))
+        groups.append(_ObservedGroup(observed_columns, lf, od, joined))
     del obs_blocks
     groups.extend(
         exact_groups(

@@ -52,7 +52,6 @@ class _ObservedGroup:
     fit: LinearFit  # the design's fit on all rows: names, restrictions, working coordinates
     design: core.ObservedDesign
     block: core.ObservedBlock
-    chol: Array  # block.cholesky(), once
 
     @property
     def n(self) -> NDArray[np.int64]:
@@ -187,7 +186,7 @@ def group_wald(
         block = g.block
         est = ck @ block.theta
         delta = est - d[:, None]
-        quad, se0 = core.observed_wald(block, g.chol, g.design.root(ck), delta, independent)
+        quad, se0 = core.observed_wald(block, g.design.root(ck), delta, independent)
         dfg = block.n - g.fit.solution.rank
         with np.errstate(divide="ignore", invalid="ignore"):
             sigma = block.resid_norm / np.sqrt(dfg)
