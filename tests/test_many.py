@@ -20,6 +20,7 @@ from statsmodels.stats.multitest import multipletests
 
 import lincomb as lc
 from lincomb._fit import many, response_groups
+from lincomb._fit import responses as responses_module
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
@@ -305,6 +306,31 @@ def test_blocks_give_the_same_answer(
     assert split.n_obs.tolist() == whole.n_obs.tolist() == [116, 153, 146, 153]
     with pytest.raises(InputError, match="workers must be a positive whole number"):
         lc.fit_many("~ C(Month)", airquality, responses=ys, workers=0)
+
+
+def test_threads_give_the_same_answer(
+    monkeypatch: pytest.MonkeyPatch, airquality: pd.DataFrame
+) -> None:
+    # Twelve responses, one per block, on three threads (four blocks each), with missing
+    # values in some: the same numbers as one block on one thread (identity of the method).
+    ys = pd.concat([airquality[["Ozone", "Temp", "Solar_R", "Wind"]]] * 3, axis=1)
+    ys.columns = [f"{c}_{k}" for k in range(3) for c in ["Ozone", "Temp", "Solar_R", "Wind"]]
+    whole = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    used = []
+    real = responses_module._projected
+
+    def spy(*args: object) -> object:
+        used.append(args[-1])
+        return real(*args)
+
+    monkeypatch.setattr(many, "_projected", spy)
+    split = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=3)
+    assert used == [3]
+    system = lc.term("C(Month)") == 0
+    np.testing.assert_allclose(split.wald(system).stat, whole.wald(system).stat, rtol=1e-13)
+    np.testing.assert_allclose(split.rss, whole.rss, rtol=1e-13)
 
 
 def test_screen_several_tests_and_family_all(mtcars: pd.DataFrame) -> None:
