@@ -95,8 +95,13 @@ def solve_group(
 ) -> _Group:
     """The group of ``columns`` whose summaries against ``factor`` are ``blocks``."""
     q = factor.moments.others.size
-    block = core.ResponseBlock.concat(blocks, q)
     r = columns.size
+    if r == 0 and lf is not None:  # nothing to solve (every response went another way)
+        empty = np.zeros(0)
+        return _Group(
+            columns, rows, factor.moments.n, lf, np.zeros((lf.solution.rank, 0)), empty, empty
+        )
+    block = core.ResponseBlock.concat(blocks, q)
     if lf is None:
         nan = np.full(r, np.nan)
         return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
