@@ -456,8 +456,14 @@ def observed_design(
     else:
         qh[:, int(intercept) :] = 0.0
     iu, ju = np.triu_indices(k)
-    # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows)
-    outer = np.ascontiguousarray(qh[:, iu] * qh[:, ju]) if usable else np.zeros((n, 0))
+    # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows), in the order of
+    # triu_indices: row i of the triangle is q̂_i times q̂_i..q̂_(k-1)
+    outer = np.empty((n, iu.size) if usable else (n, 0))
+    if usable:
+        start = 0
+        for i in range(k):
+            np.multiply(qh[:, i : i + 1], qh[:, i:], out=outer[:, start : start + k - i])
+            start += k - i
     where = np.zeros((k, k), dtype=np.intp)
     where[iu, ju] = np.arange(iu.size)
     where[ju, iu] = np.arange(iu.size)
@@ -547,14 +553,15 @@ def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
     """
     m = cd.shape[0]
     out = np.zeros(m)
+    norms = safe_norm(cd, axis=1)  # scaled: no overflow; the unit rows below cannot overflow
+    unit = cd / np.where(norms > 0, norms, 1.0)[:, None]
     basis = np.zeros((0, cd.shape[1]))
     kept = set(int(i) for i in independent)
     for i in range(m):
-        nv = float(safe_norm(cd[i]))
-        v = cd[i] / nv if nv > 0 else cd[i]
+        v = unit[i]
         for _ in range(2):
             v = v - basis.T @ (basis @ v)
-        out[i] = float(safe_norm(v))
+        out[i] = float(np.sqrt(v @ v))
         if i in kept and out[i] > 0:
             basis = np.vstack([basis, v / out[i]])
     return out

@@ -295,7 +295,7 @@ class ManyFit:
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
         df_error = self.df_error.to_numpy(dtype=np.float64).copy()
-        status = self.status.cat.codes.to_numpy().astype(np.int8)
+        status = np.array(self.status.array.codes, dtype=np.int8)  # a copy: marked below
         main = self._groups[0]
         main_prepared = None
         groups = list(self._groups)
