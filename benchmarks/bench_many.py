@@ -9,7 +9,8 @@ Run (unset the two OpenBLAS variables for timing only, in this command alone)::
     ... --rows all         # or a comma list of: wide, missing, complete
 
 Needs the ``bench`` extra (statsmodels, threadpoolctl).  statsmodels is a timing and numerical
-reference only.
+reference only.  The script times the ``lincomb`` of the checkout it lives in (its folder goes
+first on ``sys.path``; the report names the folder), not an installed copy.
 
 Problem: n = 500 rows, p = 10 columns (an intercept and 9 standard normal columns, seeded),
 r = 10,000 responses (standard normal, seeded: an (n, r) float64 matrix of 40 MB), one 2-row
@@ -57,11 +58,16 @@ of other processes).
 from __future__ import annotations
 
 import statistics
+import sys
 import time
 import tracemalloc
+from pathlib import Path
 from typing import Any
 
 import numpy as np
+
+# time the lincomb of this checkout (its folder first on the path), not an installed copy
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 try:
     from _common import blas_line, emit, interleaved, machine, parser, ratio, thread_limit
@@ -307,7 +313,10 @@ def report(res: dict[str, Any]) -> str:
         lines += report_loop("scattered missing values", res["missing"])
     if "complete" in res:
         lines += report_loop("complete responses", res["complete"])
-    lines += [f"  load average at the end: {res['load_average']}", blas_line(res["blas"])]
+    lines += [
+        f"  load average at the end: {res['load_average']}; lincomb from {res['lincomb_path']}",
+        blas_line(res["blas"]),
+    ]
     return "\n".join(lines)
 
 
@@ -334,6 +343,9 @@ def main(argv: list[str] | None = None) -> int:
                 x, y[:, :R_SMALL], 2 * args.repeats + 1, args.subset, 150.0
             )
         res.update(machine())
+    import lincomb
+
+    res["lincomb_path"] = str(Path(lincomb.__file__).parent)
     emit(report(res), res, args.json)
     return 0
 
