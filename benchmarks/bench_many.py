@@ -6,9 +6,11 @@ Run (unset the two OpenBLAS variables for timing only, in this command alone)::
     env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python benchmarks/bench_many.py --json
     ... --threads 1        # limit BLAS threads (threadpoolctl) for the whole run
     ... --subset 300       # responses in the timed statsmodels loop (see below)
+    ... --rows all         # or a comma list of: wide, missing, complete
 
 Needs the ``bench`` extra (statsmodels, threadpoolctl).  statsmodels is a timing and numerical
-reference only.
+reference only.  The script times the ``lincomb`` of the checkout it lives in (its folder goes
+first on ``sys.path``; the report names the folder), not an installed copy.
 
 Problem: n = 500 rows, p = 10 columns (an intercept and 9 standard normal columns, seeded),
 r = 10,000 responses (standard normal, seeded: an (n, r) float64 matrix of 40 MB), one 2-row
@@ -30,6 +32,22 @@ fraction of the response matrix's size.  Target <= 1.2.
 Correctness is checked before timing: F statistics and p-values of the subset against
 statsmodels (largest relative difference reported).
 
+Two more rows, each timed round robin (``_common.interleaved``: every round runs lincomb once
+and the statsmodels subset loop once; medians over the rounds) against a statsmodels loop in
+the same run, extrapolated linearly from its subset of responses as above (CPU time of this
+process is reported beside the wall time, as above):
+
+* **missing** (``--rows missing``): n = 2,000 rows, the same kind of design (an intercept and
+  9 standard normal columns, seeded), r = 600 responses in which every value is missing with
+  probability 0.02 (about 40 scattered missing values per response, so every response has its
+  own pattern).  lincomb: ``fit_many_arrays`` + ``wald`` + ``test_frame`` (each response fitted
+  on its own observed rows); statsmodels: per response ``OLS(y[obs], X[obs]).fit().f_test``.
+  The F and p of the subset are checked against statsmodels first.  Target: statsmodels /
+  lincomb >= 50.
+* **complete** (``--rows complete``): the first problem (n = 500, p = 10, same seed) with
+  r = 2,000 complete responses: the same lincomb pipeline, ``test_frame`` included, against the
+  statsmodels loop.  Target >= 150.
+
 Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
 run interleaved in every repeat so that load changes on a shared machine hit both alike; we
 report medians and the median of the per-repeat ratios, in wall time (the target) and in CPU
@@ -40,19 +58,36 @@ of other processes).
 from __future__ import annotations
 
 import statistics
+import sys
 import time
 import tracemalloc
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+# time the lincomb of this checkout (its folder first on the path), not an installed copy
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
 try:
-    from _common import blas_line, emit, machine, parser, thread_limit
+    from _common import blas_line, emit, interleaved, machine, parser, ratio, thread_limit
 except ModuleNotFoundError:  # imported as benchmarks.<name> from the repository root
-    from benchmarks._common import blas_line, emit, machine, parser, thread_limit
+    from benchmarks._common import (
+        blas_line,
+        emit,
+        interleaved,
+        machine,
+        parser,
+        ratio,
+        thread_limit,
+    )
 
 SEED = 20240715
 N, P, R = 500, 10, 10_000
+#: The row with scattered missing values: rows, responses, probability that a value is missing.
+N_MISS, R_MISS, MISS_RATE = 2_000, 600, 0.02
+#: The row with fewer complete responses.
+R_SMALL = 2_000
 
 
 def make_data() -> tuple[np.ndarray, np.ndarray]:
@@ -61,6 +96,101 @@ def make_data() -> tuple[np.ndarray, np.ndarray]:
     y = rng.normal(size=(N, R))
     y[:, ::7] += 0.2 * x[:, [3]]  # a few responses with a real effect on x3
     return x, y
+
+
+def make_missing() -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(SEED + 1)
+    x = np.column_stack([np.ones(N_MISS), rng.normal(size=(N_MISS, P - 1))])
+    y = rng.normal(size=(N_MISS, R_MISS))
+    y[:, ::7] += 0.2 * x[:, [3]]
+    y[rng.uniform(size=y.shape) < MISS_RATE] = np.nan
+    return x, y
+
+
+def _system() -> tuple[Any, np.ndarray, np.ndarray]:
+    import lincomb as lc
+
+    system = (lc.coef("x1") == lc.coef("x2")) & (lc.coef("x3") == 0)
+    c = np.zeros((2, P))
+    c[0, 1], c[0, 2], c[1, 3] = 1.0, -1.0, 1.0
+    return system, c, np.zeros(2)
+
+
+def run_against_loop(
+    x: np.ndarray, y: np.ndarray, repeats: int, subset: int, target: float
+) -> dict[str, Any]:
+    """lincomb's pipeline on every response against a statsmodels loop over ``subset`` of
+    them (each response on its observed rows), round robin; the loop's time is extrapolated."""
+    import statsmodels.api as sm
+
+    import lincomb as lc
+
+    names = [f"x{j}" for j in range(P)]
+    system, c, d = _system()
+    r = y.shape[1]
+    subset = min(subset, r)
+    obs = ~np.isnan(y)
+
+    def lincomb_all() -> Any:
+        res = lc.fit_many_arrays(x, y, names=names).wald(system)
+        return res, res.test_frame()
+
+    def sm_subset() -> list[Any]:
+        return [sm.OLS(y[obs[:, j], j], x[obs[:, j]]).fit().f_test((c, d)) for j in range(subset)]
+
+    res, _ = lincomb_all()
+    ref = sm_subset()
+    f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
+    p_sm = np.array([float(t.pvalue) for t in ref])
+    f_rel = float(np.max(np.abs(res.stat[:subset] / f_sm - 1)))
+    p_rel = float(np.max(np.abs(res.p[:subset] / p_sm - 1)))
+    assert f_rel < 1e-9, f_rel
+    cpu: dict[str, list[float]] = {"lincomb": [], "statsmodels_subset": []}
+
+    def cpu_timed(name: str, fn: Any) -> Any:
+        def call() -> Any:
+            c0 = time.process_time()
+            out = fn()
+            cpu[name].append(time.process_time() - c0)
+            return out
+
+        return call
+
+    timing = interleaved(
+        {
+            "lincomb": cpu_timed("lincomb", lincomb_all),
+            "statsmodels_subset": cpu_timed("statsmodels_subset", sm_subset),
+        },
+        repeats,
+        warmup=1,
+    )
+    med = timing["median"]
+    per_round = np.array(timing["times"]["statsmodels_subset"]) / np.array(
+        timing["times"]["lincomb"]
+    )
+    return {
+        "n": int(x.shape[0]),
+        "p": int(x.shape[1]),
+        "responses": r,
+        "missing_values": int((~obs).sum()),
+        "distinct_patterns": len({obs[:, j].tobytes() for j in range(r)}),
+        "statsmodels_subset": subset,
+        "repeats": repeats,
+        "lincomb_s": med["lincomb"],
+        "statsmodels_extrapolated_s": med["statsmodels_subset"] / subset * r,
+        "ratio_statsmodels_over_lincomb": ratio(timing, "statsmodels_subset", "lincomb")
+        / subset
+        * r,
+        "ratio_paired": float(np.median(per_round)) / subset * r,
+        "lincomb_cpu_s": statistics.median(cpu["lincomb"]),
+        "ratio_cpu_time": statistics.median(cpu["statsmodels_subset"])
+        / statistics.median(cpu["lincomb"])
+        / subset
+        * r,
+        "target_ratio": target,
+        "max_rel_diff_F_vs_statsmodels": f_rel,
+        "max_rel_diff_p_vs_statsmodels": p_rel,
+    }
 
 
 def run(repeats: int, subset: int) -> dict[str, Any]:
@@ -142,23 +272,49 @@ def run(repeats: int, subset: int) -> dict[str, Any]:
     }
 
 
-def report(res: dict[str, Any]) -> str:
-    lines = [
-        f"many responses: n = {res['n']}, p = {res['p']}, r = {res['responses']},"
-        f" one 2-row system; {res['repeats']} interleaved repeats (medians)",
+def report_loop(title: str, res: dict[str, Any]) -> list[str]:
+    return [
+        f"{title}: n = {res['n']}, p = {res['p']}, r = {res['responses']}"
+        f" ({res['missing_values']} missing values, {res['distinct_patterns']} distinct"
+        f" patterns of observed rows); {res['repeats']} interleaved rounds (medians)",
         f"  lincomb fit_many_arrays + wald + test_frame : {res['lincomb_s'] * 1e3:9.1f} ms",
         f"  statsmodels OLS + f_test loop (extrapolated from {res['statsmodels_subset']}"
-        f" responses): {res['statsmodels_extrapolated_s']:8.2f} s"
-        f" ({res['statsmodels_per_response_ms']:.3f} ms per response)",
-        f"  ratio statsmodels / lincomb: {res['ratio_statsmodels_over_lincomb']:.0f}x wall time"
-        f" (target >= {res['target_ratio']:.0f}x); {res['ratio_cpu_time']:.0f}x in CPU time"
-        f" (lincomb {res['lincomb_cpu_s'] * 1e3:.1f} ms CPU)",
-        f"  peak memory above the input: {res['peak_extra_bytes'] / 2**20:.1f} MiB ="
-        f" {res['peak_extra_over_responses']:.2f} x the response matrix"
-        f" ({res['response_bytes'] / 2**20:.1f} MiB; target <= {res['target_memory']})",
+        f" responses): {res['statsmodels_extrapolated_s']:8.2f} s",
+        f"  ratio statsmodels / lincomb: {res['ratio_statsmodels_over_lincomb']:.0f}x"
+        f" (paired by round {res['ratio_paired']:.0f}x; target >= {res['target_ratio']:.0f}x);"
+        f" {res['ratio_cpu_time']:.0f}x in CPU time (lincomb {res['lincomb_cpu_s'] * 1e3:.1f} ms"
+        " CPU)",
         f"  F vs statsmodels: max relative difference {res['max_rel_diff_F_vs_statsmodels']:.2e}"
         f" (p: {res['max_rel_diff_p_vs_statsmodels']:.2e})",
-        f"  load average at the end: {res['load_average']}",
+    ]
+
+
+def report(res: dict[str, Any]) -> str:
+    lines: list[str] = []
+    if "lincomb_s" in res:
+        lines += [
+            f"many responses: n = {res['n']}, p = {res['p']}, r = {res['responses']},"
+            f" one 2-row system; {res['repeats']} interleaved repeats (medians)",
+            f"  lincomb fit_many_arrays + wald + test_frame : {res['lincomb_s'] * 1e3:9.1f} ms",
+            f"  statsmodels OLS + f_test loop (extrapolated from {res['statsmodels_subset']}"
+            f" responses): {res['statsmodels_extrapolated_s']:8.2f} s"
+            f" ({res['statsmodels_per_response_ms']:.3f} ms per response)",
+            f"  ratio statsmodels / lincomb: {res['ratio_statsmodels_over_lincomb']:.0f}x wall"
+            f" time (target >= {res['target_ratio']:.0f}x); {res['ratio_cpu_time']:.0f}x in CPU"
+            f" time (lincomb {res['lincomb_cpu_s'] * 1e3:.1f} ms CPU)",
+            f"  peak memory above the input: {res['peak_extra_bytes'] / 2**20:.1f} MiB ="
+            f" {res['peak_extra_over_responses']:.2f} x the response matrix"
+            f" ({res['response_bytes'] / 2**20:.1f} MiB; target <= {res['target_memory']})",
+            f"  F vs statsmodels: max relative difference"
+            f" {res['max_rel_diff_F_vs_statsmodels']:.2e}"
+            f" (p: {res['max_rel_diff_p_vs_statsmodels']:.2e})",
+        ]
+    if "missing" in res:
+        lines += report_loop("scattered missing values", res["missing"])
+    if "complete" in res:
+        lines += report_loop("complete responses", res["complete"])
+    lines += [
+        f"  load average at the end: {res['load_average']}; lincomb from {res['lincomb_path']}",
         blas_line(res["blas"]),
     ]
     return "\n".join(lines)
@@ -168,12 +324,28 @@ def main(argv: list[str] | None = None) -> int:
     ap = parser(__doc__)
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--subset", type=int, default=300, help="responses in the statsmodels loop")
+    ap.add_argument(
+        "--rows", default="all", help="comma list of rows to run: wide, missing, complete"
+    )
     args = ap.parse_args(argv)
+    rows = {"wide", "missing", "complete"} if args.rows == "all" else set(args.rows.split(","))
     import scipy.linalg  # noqa: F401 - load scipy's BLAS so threadpoolctl sees it
     import statsmodels.api  # noqa: F401
 
     with thread_limit(args.threads):
-        res = run(args.repeats, args.subset)
+        res: dict[str, Any] = run(args.repeats, args.subset) if "wide" in rows else machine()
+        if "missing" in rows:
+            xm, ym = make_missing()
+            res["missing"] = run_against_loop(xm, ym, 2 * args.repeats + 1, 100, 50.0)
+        if "complete" in rows:
+            x, y = make_data()
+            res["complete"] = run_against_loop(
+                x, y[:, :R_SMALL], 2 * args.repeats + 1, args.subset, 150.0
+            )
+        res.update(machine())
+    import lincomb
+
+    res["lincomb_path"] = str(Path(lincomb.__file__).parent)
     emit(report(res), res, args.json)
     return 0
 

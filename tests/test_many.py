@@ -19,7 +19,8 @@ from hypothesis import strategies as st
 from statsmodels.stats.multitest import multipletests
 
 import lincomb as lc
-from lincomb._fit import many
+from lincomb._fit import many, response_groups
+from lincomb._fit import responses as responses_module
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
@@ -307,6 +308,31 @@ def test_blocks_give_the_same_answer(
         lc.fit_many("~ C(Month)", airquality, responses=ys, workers=0)
 
 
+def test_threads_give_the_same_answer(
+    monkeypatch: pytest.MonkeyPatch, airquality: pd.DataFrame
+) -> None:
+    # Twelve responses, one per block, on three threads (four blocks each), with missing
+    # values in some: the same numbers as one block on one thread (identity of the method).
+    ys = pd.concat([airquality[["Ozone", "Temp", "Solar_R", "Wind"]]] * 3, axis=1)
+    ys.columns = [f"{c}_{k}" for k in range(3) for c in ["Ozone", "Temp", "Solar_R", "Wind"]]
+    whole = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    used = []
+    real = responses_module._projected
+
+    def spy(*args: object) -> object:
+        used.append(args[-1])
+        return real(*args)
+
+    monkeypatch.setattr(many, "_projected", spy)
+    split = lc.fit_many("~ C(Month)", airquality, responses=ys, workers=3)
+    assert used == [3]
+    system = lc.term("C(Month)") == 0
+    np.testing.assert_allclose(split.wald(system).stat, whole.wald(system).stat, rtol=1e-13)
+    np.testing.assert_allclose(split.rss, whole.rss, rtol=1e-13)
+
+
 def test_screen_several_tests_and_family_all(mtcars: pd.DataFrame) -> None:
     mf = lc.fit_many("~ C(cyl) + am + wt", mtcars, responses=MTCARS_RESPONSES)
     tests = {"cyl": lc.term("C(cyl)") == 0, "am": lc.coef("am") == 0}
@@ -332,6 +358,136 @@ def test_reprs_and_intervals(mtcars: pd.DataFrame) -> None:
     ci = res.intervals(0.9)
     sm = smf.ols("qsec ~ wt", mtcars).fit().conf_int(alpha=0.1).loc["wt"]
     np.testing.assert_allclose(ci.iloc[1][["lower", "upper"]].astype(float), sm, rtol=RTOL)
+
+
+# -- responses with scattered missing values: each on its own rows ------------------------------
+
+
+def _scattered(frame: pd.DataFrame, columns: list[str], copies: int, rate: float, seed: int):
+    """Each column ``copies`` times, each copy with its own seeded scattered missing values."""
+    rng = np.random.default_rng(seed)
+    ys = {}
+    for name in columns:
+        for k in range(copies):
+            y = frame[name].to_numpy(dtype=float).copy()
+            y[rng.uniform(size=y.size) < rate] = np.nan
+            ys[f"{name}_{k}"] = y
+    return pd.DataFrame(ys, index=frame.index)
+
+
+def test_scattered_missing_values_match_statsmodels_per_response() -> None:
+    # R's quakes (1,000 rows) with seeded scattered missing values in the responses, so that
+    # every response has its own rows.  Reference: statsmodels OLS per response, whose formula
+    # interface drops the rows where that response is missing.
+    quakes = load_r("quakes")
+    ys = _scattered(quakes, ["lat", "long", "stations"], copies=4, rate=0.03, seed=7)
+    data = pd.concat([quakes[["depth", "mag"]], ys], axis=1)
+    mf = lc.fit_many("~ depth + mag", data, responses=list(ys.columns))
+    # every response went the vectorized route (one factor of all rows), none was refitted
+    routed = [g for g in mf._groups if isinstance(g, response_groups._ObservedGroup)]
+    assert len(routed) == 1 and sorted(routed[0].columns) == list(range(ys.shape[1]))
+    assert len(mf._groups) == 2  # the complete responses' group (empty) and that one
+    system = (lc.coef("depth") == 0) & (lc.coef("mag") == 1.0)
+    res = mf.wald(system)
+    for j, name in enumerate(ys.columns):
+        sm = smf.ols(f"{name} ~ depth + mag", data).fit()
+        assert mf.n_obs[name] == sm.nobs and res.df_error[j] == sm.df_resid
+        np.testing.assert_allclose(mf.coefficients[name], sm.params, rtol=RTOL)
+        np.testing.assert_allclose(mf.rss[name], sm.ssr, rtol=RTOL)
+        c = _sm_matrix(sm, {"depth": 0, "mag": 1})
+        ft = sm.f_test((c, np.array([0.0, 1.0])))
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+        np.testing.assert_allclose(res.p[j], float(ft.pvalue), rtol=1e-9)
+        tt = sm.t_test((c, np.array([0.0, 1.0])))
+        np.testing.assert_allclose(res.se[j], np.squeeze(tt.sd), rtol=RTOL)
+        np.testing.assert_allclose(res.ratio[j], np.squeeze(tt.tvalue), rtol=RTOL)
+
+
+def test_rows_that_lose_a_direction_are_refitted_exactly(warpbreaks: pd.DataFrame) -> None:
+    # A response observed on only 2 of the 18 rows of tension H keeps its rank, but most of
+    # the H column's variation is on its missing rows: the vectorized route is not certified
+    # there (module notes of lincomb._core.observed) and the response is refitted on its own
+    # rows.  Reference: statsmodels OLS on that response's rows.
+    y = warpbreaks["breaks"].astype(float).to_numpy().copy()
+    h_rows = np.flatnonzero(warpbreaks["tension"].to_numpy() == "H")
+    y[h_rows[2:]] = np.nan
+    scattered = warpbreaks["breaks"].astype(float).to_numpy().copy()
+    scattered[[3, 30]] = np.nan
+    data = warpbreaks.assign(few_h=y, two_gone=scattered)
+    mf = lc.fit_many("~ wool + tension", data, responses=["few_h", "two_gone"])
+    routed = [g for g in mf._groups if isinstance(g, response_groups._ObservedGroup)]
+    assert [list(g.columns) for g in routed] == [[1]]
+    res = mf.wald(lc.term("tension") == 0)
+    for j, name in enumerate(["few_h", "two_gone"]):
+        sm = smf.ols(f"{name} ~ wool + tension", data).fit()
+        names = [s for s in sm.model.exog_names if s.startswith("tension")]
+        ft = sm.f_test(_sm_matrix(sm, dict.fromkeys(names, 0.0)))
+        assert mf.n_obs[name] == sm.nobs
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+        np.testing.assert_allclose(mf.coefficients[name], sm.params, rtol=RTOL)
+
+
+def test_refitted_route_equals_the_vectorized_route(
+    monkeypatch: pytest.MonkeyPatch, mtcars: pd.DataFrame
+) -> None:
+    # Forcing every system's redundancy decisions to be taken again on each response's rows
+    # sends the responses through the exact refit (one factor per pattern): the two routes
+    # must agree (brute-force identity; the single fits are the reference of both).
+    ys = _scattered(mtcars, ["mpg", "qsec", "drat"], copies=3, rate=0.08, seed=3)
+    data = pd.concat([mtcars[["wt", "hp", "am"]], ys], axis=1)
+    mf = lc.fit_many("~ wt + hp + am", data, responses=list(ys.columns))
+    system = (lc.coef("wt") == 0) & (lc.coef("hp") == 0) & (lc.coef("wt") + lc.coef("hp") == 0)
+    fast = mf.wald(system)
+    routed = [g for g in mf._groups if isinstance(g, response_groups._ObservedGroup)]
+    assert routed and routed[0].columns.size >= 6
+    monkeypatch.setattr(lc._core, "ROW_MARGIN", 1e12)  # every decision "too close" to call
+    exact = mf.wald(system)
+    for field in ("stat", "p", "se", "ratio", "estimate"):
+        np.testing.assert_allclose(getattr(exact, field), getattr(fast, field), rtol=1e-10)
+    assert exact.df_test == fast.df_test == 2 and exact.redundant == fast.redundant
+    for j, name in enumerate(ys.columns):
+        obs = data[name].notna()
+        one = lc.fit(f"{name} ~ wt + hp + am", data[obs])
+        np.testing.assert_allclose(fast.stat[j], one.wald(system).stat, rtol=RTOL)
+
+
+def test_blocks_after_mostly_missing_ones_are_checked_and_fitted_alike(
+    monkeypatch: pytest.MonkeyPatch, airquality: pd.DataFrame
+) -> None:
+    # One response per block: after blocks whose responses have missing values, later blocks go
+    # whole to the own-rows fit.  Their complete responses must still equal their single fits
+    # (statsmodels' formula interface per response), and bad values must still be refused.
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    names = ["Ozone", "Solar_R", "Temp", "Wind"]  # R: only Ozone and Solar.R have NA
+    mf = lc.fit_many("~ C(Month)", airquality, responses=names, workers=1)
+    res = mf.wald(lc.term("C(Month)") == 0)
+    for j, name in enumerate(names):
+        sm = smf.ols(f"{name} ~ C(Month)", airquality).fit()
+        assert mf.n_obs[name] == sm.nobs
+        np.testing.assert_allclose(mf.rss[name], sm.ssr, rtol=RTOL)
+        months = [s for s in sm.model.exog_names if s.startswith("C(Month)")]
+        ft = sm.f_test(_sm_matrix(sm, dict.fromkeys(months, 0.0)))
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=RTOL)
+    bad = airquality["Temp"].to_numpy(dtype=float).copy()
+    bad[9] = -np.inf
+    ys = airquality[["Ozone", "Solar_R", "Wind"]].assign(bad=bad)
+    with pytest.raises(InputError, match="response 'bad' holds -inf at row 9"):
+        lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+    ys = airquality[["Ozone", "Solar_R", "Wind"]].assign(big=airquality["Temp"] * 1e200)
+    with pytest.raises(InputError, match="response 'big' holds values too large to square"):
+        lc.fit_many("~ C(Month)", airquality, responses=ys, workers=1)
+
+
+def test_values_too_large_to_square_are_refused_with_missing_values(mtcars: pd.DataFrame) -> None:
+    # A response whose squares overflow float64 is refused, whether or not it has missing values.
+    big = mtcars["qsec"].to_numpy() * 1e200
+    with_nan = big.copy()
+    with_nan[3] = np.nan
+    for values in (big, with_nan):
+        ys = mtcars[["mpg"]].assign(big=values)
+        with pytest.raises(InputError, match="response 'big' holds values too large to square"):
+            lc.fit_many("~ wt", mtcars, responses=ys)
 
 
 # -- property: vectorized equals one fit per response -------------------------------------------
@@ -386,6 +542,118 @@ def test_vectorized_equals_single_fits(
         assert res.status[j] == "ok"
         np.testing.assert_allclose(res.stat[j], ref.stat, rtol=1e-8)
         np.testing.assert_allclose(res.se[j], ref.se, rtol=1e-8)
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    n=st.integers(30, 200),
+    p=st.integers(1, 4),
+    r=st.integers(1, 8),
+    seed=st.integers(0, 2**32 - 1),
+    weighted=st.booleans(),
+    intercept=st.booleans(),
+    rate=st.sampled_from([0.01, 0.05, 0.2]),
+    offset=st.sampled_from([0.0, 1e4]),
+)
+def test_own_rows_route_equals_single_fits(
+    n: int,
+    p: int,
+    r: int,
+    seed: int,
+    weighted: bool,
+    intercept: bool,
+    rate: float,
+    offset: float,
+) -> None:
+    # Scattered missing values on designs of various scales (with or without an intercept,
+    # large column offsets, weights): each response equals its own single fit, whichever route
+    # (vectorized on its own rows, or refitted per pattern) it took.
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, p)) * rng.uniform(0.01, 100, size=p) + offset
+    if intercept:
+        x = np.column_stack([np.ones(n), x])
+    ys = rng.normal(size=(n, r)) * 2 + (x @ rng.normal(size=x.shape[1]))[:, None] + offset
+    ys[rng.uniform(size=ys.shape) < rate] = np.nan
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    names = [f"c{j}" for j in range(x.shape[1])]
+    try:
+        mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
+    except DegenerateFitError:
+        return
+    system = lc.from_matrix(np.eye(x.shape[1])[-1:], [0.25])
+    res = mf.wald(system)
+    for j in range(r):
+        obs = ~np.isnan(ys[:, j])
+        try:
+            one = lc.fit_arrays(
+                x[obs], ys[obs, j], names=names, weights=None if w is None else w[obs]
+            )
+        except DegenerateFitError:
+            assert res.status[j] == "too few rows"
+            continue
+        assert mf.n_obs.iloc[j] == one.n_obs and mf.rank.iloc[j] == one.rank
+        scale = np.abs(one.coefficients).max()
+        np.testing.assert_allclose(
+            mf.coefficients.iloc[:, j], one.coefficients, rtol=1e-9, atol=1e-9 * scale
+        )
+        np.testing.assert_allclose(mf.rss.iloc[j], one.rss, rtol=1e-9)
+        try:
+            ref = one.wald(system)
+        except NotEstimableError:
+            assert res.status[j] == "not estimable"
+            continue
+        except DegenerateFitError:
+            assert res.status[j] == "exact fit"
+            continue
+        assert res.status[j] == "ok"
+        np.testing.assert_allclose(res.stat[j], ref.stat, rtol=1e-8)
+        np.testing.assert_allclose(res.se[j], ref.se, rtol=1e-8)
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    n=st.integers(12, 60),
+    p=st.integers(1, 4),
+    seed=st.integers(0, 2**32 - 1),
+    weighted=st.booleans(),
+    intercept=st.booleans(),
+)
+def test_own_rows_factor_identities(
+    n: int, p: int, seed: int, weighted: bool, intercept: bool
+) -> None:
+    # The factor of a response's own rows is Lᵀ·R (module notes of lincomb._core.observed):
+    # its Gram matrix equals that of the response's rows of the working design (identity).
+    from lincomb import _core as core
+
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, p)) * 3 + 7
+    if intercept:
+        x = np.column_stack([np.ones(n), x])
+    ys = rng.normal(size=(n, 3))
+    ys[rng.uniform(size=ys.shape) < 0.1] = np.nan
+    w = rng.uniform(0.2, 3, size=n) if weighted else None
+    f = core.factor_design(x, w, 0 if intercept else None)
+    sol = core.solve(f.moments)
+    od = core.observed_design(f, sol)
+    if not od.usable:
+        return
+    ys0 = ys.copy()
+    block = od.fit(ys)
+    low = block.chol
+    np.testing.assert_array_equal(ys, ys0)  # the input is not modified
+    sw = np.ones(n) if w is None else np.sqrt(w)
+    work = (x - sol.center) / sol.scale * sw[:, None]  # working columns, all rows
+    if intercept:
+        work[:, 0] = sw
+    for j in range(3):
+        obs = ~np.isnan(ys[:, j])
+        assert block.n[j] == obs.sum()
+        if not block.certified[j]:  # its factor is not used: the response is refitted
+            continue
+        tri = low[j].T @ od.r_work
+        a = work[obs][:, sol.kept]
+        np.testing.assert_allclose(tri.T @ tri, a.T @ a, rtol=1e-10, atol=1e-10 * n)
+        assert np.allclose(np.tril(tri, -1), 0.0)
 
 
 # -- the core functions: identities ------------------------------------------------------------

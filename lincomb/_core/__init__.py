@@ -19,6 +19,9 @@ modules:
 * :mod:`~lincomb._core.many`: many responses on one design (:class:`DesignFactor`,
   :class:`ResponseBlock`, :func:`factor_design`, :func:`solve_responses`,
   :func:`wald_quadratic_forms`);
+* :mod:`~lincomb._core.observed`: many responses with missing values, each on its own rows
+  from the one factor of all rows (:func:`observed_design`, :class:`ObservedBlock`,
+  :func:`observed_wald`, :func:`row_distances`);
 * :mod:`~lincomb._core.batch`: many restriction systems on one fit (:func:`wald_systems`).
 
 Everything the later stages need is derived from a small *moment* object (the sufficient
@@ -132,6 +135,14 @@ from lincomb._core.many import (
 )
 from lincomb._core.merge import MomentMerger, merge_moments, merge_tree
 from lincomb._core.moments import WEIGHT_SPREAD_PIVOT, Moments, moments_from_arrays
+from lincomb._core.observed import (
+    ROW_MARGIN,
+    ObservedBlock,
+    ObservedDesign,
+    observed_design,
+    observed_wald,
+    row_distances,
+)
 from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
 from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
@@ -183,6 +194,13 @@ __all__ = [
     "factor_design",
     "solve_responses",
     "wald_quadratic_forms",
+    # many responses, each on its own rows
+    "ObservedBlock",
+    "ObservedDesign",
+    "observed_design",
+    "observed_wald",
+    "row_distances",
+    "ROW_MARGIN",
     # many restriction systems on one fit
     "BatchCore",
     "wald_systems",

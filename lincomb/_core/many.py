@@ -13,7 +13,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.moments import Moments, _centre_in_place, _weighted_mean
+from lincomb._core.moments import Moments, _centre_in_place
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
 from lincomb.errors import InternalError
@@ -157,16 +157,26 @@ class DesignFactor:
     moments: Moments
     weights: Array | None
     _q: Array = field(repr=False)
+    _q_ext: Array | None = field(default=None, repr=False)  # [sqrt(w)/sqrt(W), Q] (intercept)
+
+    @property
+    def thin_q(self) -> Array:
+        """The thin ``Q`` (n, min(n, q)) of the centred, scaled non-intercept columns (read only:
+        do not modify)."""
+        return self._q
 
     def project(self, y: Array) -> ResponseBlock:
         """Summarize responses ``y`` (n, b) against this design; ``y`` is not modified.
 
         Notes
         -----
-        One copy of ``y`` is centred (two passes, as in :func:`moments_from_arrays`), scaled,
-        and rotated by ``Qᵀ`` (one matrix product); the residual norm comes from the explicit
-        residual ``y_c − Q Qᵀ y_c`` (a second product, in place), not from
-        ``‖y_c‖² − ‖Qᵀy_c‖²``, which would cancel when the fit is close.  The work memory is
+        One copy of ``y`` is centred on its mean, scaled, and rotated by ``Qᵀ`` (one matrix
+        product; with an intercept, ``Q`` holds the intercept's direction first, so the product
+        also gives the mean left over by rounding: the second centring pass of
+        :func:`moments_from_arrays`).  The residual sum of squares is ``‖y_c‖² − ‖Qᵀy_c‖²``
+        where the fit takes at most half of ``‖y_c‖²`` (at most one bit lost), and comes from
+        the explicit residual ``y_c − Q Qᵀ y_c`` (a second product) where the fit is close
+        and the difference would cancel.  The work memory is
         one copy of the block given, so callers bound memory by passing blocks of columns.
         Missing or infinite values propagate into the summaries of their column (non-finite
         ``center``, ``qty`` or ``resid``), which callers use to find them.
@@ -185,32 +195,71 @@ class DesignFactor:
         with np.errstate(invalid="ignore", over="ignore"):  # NaN/inf propagate on purpose
             return self._project(np.asarray(y, dtype=np.float64))
 
-    def _project(self, y: Array) -> ResponseBlock:
+    def project_finite(self, y: Array) -> tuple[NDArray[np.bool_], ResponseBlock]:
+        """Set aside the responses holding a NaN or inf, and :meth:`project` the others.
+
+        Returns ``odd`` (r,), True for the responses set aside (a non-finite sum or mean: a
+        missing or infinite value, or one that overflows a sum), and the summaries of the
+        others, in order.  With an intercept the test costs nothing: it is the mean that
+        centring takes anyway.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        >>> y = rng.normal(size=(20, 3)); y[4, 1] = np.nan
+        >>> odd, block = factor_design(x, intercept=0).project_finite(y)
+        >>> odd.tolist(), block.count
+        ([False, True, False], 2)
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
         m = self.moments
-        n = m.n
+        with np.errstate(invalid="ignore", over="ignore"):
+            if m.intercept is not None and m.n > 0:
+                m1 = _column_means(y, self.weights)
+            else:
+                m1 = None
+            odd = ~np.isfinite(m1 if m1 is not None else y.sum(axis=0))
+            if odd.all():
+                return odd, ResponseBlock.concat([], m.others.size)
+            if odd.any():
+                y = y[:, ~odd]
+                m1 = None if m1 is None else m1[~odd]
+            return odd, self._project(y, m1)
+
+    def _project(self, y: Array, m1: Array | None = None) -> ResponseBlock:
+        m = self.moments
         w = self.weights
         if y.ndim == 1:
             y = y[:, None]
-        if m.intercept is not None and n > 0:
-            m1 = _weighted_mean(y, w)
+        q = m.others.size
+        ext = self._q_ext
+        if ext is not None:
+            if m1 is None:
+                m1 = _column_means(y, w)
             yb = y - m1  # the one copy of the block
-            m2 = _weighted_mean(yb, w)
-            yb -= m2
-            center = m1 + m2
+            if w is not None:
+                yb *= np.sqrt(w)[:, None]
+            # the second centring pass rides on the projection: the intercept's direction is
+            # the first column of Q, so its coefficient is sqrt(W) times the mean left over
+            basis = ext
+            qk = ext.T @ yb
+            center = m1 + qk[0] / np.sqrt(m.weight_sum)
+            qty = np.zeros((q, yb.shape[1]))
+            qty[: ext.shape[1] - 1] = qk[1:]
         else:
             yb = np.array(y, copy=True)
             center = np.zeros(yb.shape[1])
-        if w is not None:
-            yb *= np.sqrt(w)[:, None]
-        q = m.others.size
-        qd = self._q
-        k = qd.shape[1]
-        qty = np.zeros((q, yb.shape[1]))
-        if k:
-            qk = qd.T @ yb
-            qty[:k] = qk
-            yb = _subtract_product(yb, qd, qk)
-        resid2 = np.einsum("ij,ij->j", yb, yb)
+            if w is not None:
+                yb *= np.sqrt(w)[:, None]
+            basis = self._q
+            qk = basis.T @ yb
+            qty = np.zeros((q, yb.shape[1]))
+            qty[: basis.shape[1]] = qk
+        resid2 = _residual_squares(yb, basis, qk)
         # ‖√w·y‖² = ‖Qᵀy_c‖² + ‖residual‖² + W·mean²: a sum of squares, no cancellation
         raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
         return ResponseBlock(qty=qty, resid=np.sqrt(resid2), center=center, raw_norm=raw)
@@ -240,6 +289,33 @@ class DesignFactor:
         raw = m.raw_norm.copy()
         raw[m.p] = block.raw_norm[j]
         return Moments(m.n, m.weight_sum, m.intercept, center, raw, r)
+
+
+def _column_means(y: Array, w: Array | None) -> Array:
+    """(Weighted) column means by one matrix-vector product (a NaN or inf propagates)."""
+    ones = np.ones(y.shape[0]) if w is None else w
+    out: Array = (ones @ y) / (y.shape[0] if w is None else w.sum())
+    return out
+
+
+def _residual_squares(y: Array, basis: Array, coef: Array) -> Array:
+    """``‖y − basis·coef‖²`` per column, ``coef = basisᵀ y`` with orthonormal ``basis``.
+
+    Where the fit takes at most half of ``‖y‖²``, ``‖y‖² − ‖coef‖²`` loses at most one bit and
+    is used; elsewhere (a close fit, where the difference would cancel) the residual is formed
+    explicitly.  ``y`` may be overwritten.
+    """
+    y2 = np.einsum("ij,ij->j", y, y)
+    fit2 = np.einsum("ij,ij->j", coef, coef)
+    out: Array = np.maximum(y2 - fit2, 0.0)
+    close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN and inf go this way too
+    if close.size == y.shape[1]:
+        resid = _subtract_product(y, basis, coef)
+        out = np.einsum("ij,ij->j", resid, resid)
+    elif close.size:
+        resid = y[:, close] - basis @ coef[:, close]
+        out[close] = np.einsum("ij,ij->j", resid, resid)
+    return out
 
 
 def _subtract_product(c: Array, a: Array, b: Array) -> Array:
@@ -320,7 +396,13 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     moments = Moments(
         n=n, weight_sum=wsum, intercept=intercept, center=center, raw_norm=raw_norm, r=r
     )
-    return DesignFactor(moments=moments, weights=w, _q=thin)
+    if intercept is None or n == 0:
+        return DesignFactor(moments=moments, weights=w, _q=thin)
+    # the intercept's direction sqrt(w)/sqrt(W) first: orthogonal to the centred columns
+    ext = np.empty((n, thin.shape[1] + 1), order="F")
+    ext[:, 0] = (1.0 if w is None else np.sqrt(w)) / np.sqrt(wsum)
+    ext[:, 1:] = thin
+    return DesignFactor(moments=moments, weights=w, _q=ext[:, 1:], _q_ext=ext)
 
 
 def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Array, Array, Array]:

@@ -18,8 +18,13 @@ Missing values in the responses
 -------------------------------
 Handled exactly, per response: a response with missing values is fitted on the rows where it
 is observed, as its own ``lc.fit`` would with ``missing="skip"``; it never shrinks or shifts
-the design of the other responses.  Responses sharing a pattern of missing values share one
-factorization of the design rows they use.  Each response reports its own ``n_obs`` and
+the design of the other responses.  Each response is fitted on its own rows from the one
+factorization of all rows, vectorized over responses (:mod:`lincomb._core.observed`: from its
+missing rows only, without refactoring the design), wherever that is certified exact: the
+design has full rank with a margin, the response's rows keep at least a quarter of every
+direction of the design, and every rank, redundancy and exact-fit decision is far from its
+tolerance.  Any other response is refitted on its rows by a factorization of them (responses
+sharing a pattern of missing values share it).  Each response reports its own ``n_obs`` and
 ``df_error``; the rank of a subset of rows can be lower (aliased columns), a restriction can
 then be not estimable for that response: its test is NaN with status ``"not estimable"``.
 ``missing="refuse"`` refuses any missing response value instead.  Rows with missing values in
@@ -40,6 +45,7 @@ residuals row by row (use :meth:`ManyFit.fit_of` for one response).
 from __future__ import annotations
 
 import difflib
+import functools
 import html
 import os
 from collections.abc import Mapping, Sequence
@@ -49,17 +55,26 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level
-from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design, fit_from_moments
+from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design
+from lincomb._fit.response_groups import (
+    _Group,
+    _ObservedGroup,
+    design_fit,
+    exact_groups,
+    group_wald,
+    solve_group,
+)
 from lincomb._fit.responses import (
     _array_source,
-    _check_no_inf,
+    _BlockFits,
+    _fit_block,
     _FrameColumns,
     _projected,
+    _refuse_bad_values,
     _Responses,
     _unique_names,
 )
@@ -70,13 +85,13 @@ from lincomb._results.many import (
     SCREEN_ROW_COLUMNS,
     STATUSES,
     ManyWaldTest,
+    from_codes,
 )
 from lincomb._results.many import fdr_adjust as _fdr
 from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import (
     DegenerateFitError,
     InputError,
-    MissingValueError,
     NotEstimableError,
 )
 
@@ -97,59 +112,11 @@ BLOCK_BYTES: int = 2**21
 MIN_BLOCK_COLUMNS: int = 16
 #: Most threads projecting blocks by default (the work is bound by memory bandwidth).
 MAX_WORKERS: int = 4
+#: Fewest blocks per thread: with fewer, starting threads and handing blocks over cost more than
+#: they save (measured on two busy cores: 4-5 blocks ran faster, in CPU and wall time, on one).
+MIN_BLOCKS_PER_WORKER: int = 4
 
 _OK, _FEW, _EXACT, _NOT_ESTIMABLE = range(4)
-
-# -- groups of responses sharing rows ----------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class _Group:
-    """Responses fitted on the same rows: one factorization, vectorized solutions."""
-
-    columns: NDArray[np.intp]
-    rows: NDArray[np.intp] | None  # positions in the design's rows; None = all
-    n: int
-    fit: LinearFit | None  # the design's own fit (zero response): rank, names, restrictions
-    theta: NDArray[np.float64]
-    rss: NDArray[np.float64]
-    y_norm: NDArray[np.float64]
-
-    @property
-    def sol(self) -> core.Solution | None:
-        return None if self.fit is None else self.fit.solution
-
-
-def _design_fit(
-    design: Design, rows: NDArray[np.intp] | None, rank_tol: float
-) -> tuple[core.DesignFactor, LinearFit | None]:
-    x = design.x if rows is None else design.x[rows]
-    w = design.weights if rows is None or design.weights is None else design.weights[rows]
-    factor = core.factor_design(x, w, design.intercept)
-    if x.shape[0] == 0:  # a response missing in every row: flagged like too few rows
-        return factor, None
-    try:
-        lf = fit_from_moments(design, factor.moments, rank_tol)
-    except DegenerateFitError:
-        lf = None
-    return factor, lf
-
-
-def _solve_group(
-    factor: core.DesignFactor,
-    lf: LinearFit | None,
-    blocks: list[core.ResponseBlock],
-    columns: NDArray[np.intp],
-    rows: NDArray[np.intp] | None,
-) -> _Group:
-    q = factor.moments.others.size
-    block = core.ResponseBlock.concat(blocks, q)
-    r = columns.size
-    if lf is None:
-        nan = np.full(r, np.nan)
-        return _Group(columns, rows, factor.moments.n, None, np.zeros((0, r)), nan, nan)
-    theta, rss, y_norm = core.solve_responses(factor.moments, lf.solution, block)
-    return _Group(columns, rows, factor.moments.n, lf, theta, rss, y_norm)
 
 
 def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -212,7 +179,7 @@ class ManyFit:
     formula: str | None
     rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
-    _groups: tuple[_Group, ...] = field(repr=False, compare=False, default=())
+    _groups: tuple[_Group | _ObservedGroup, ...] = field(repr=False, compare=False, default=())
     _source: _Responses = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _frame: pd.DataFrame | None = field(repr=False, compare=False, default=None)
     _positions: NDArray[np.intp] | None = field(repr=False, compare=False, default=None)
@@ -328,49 +295,54 @@ class ManyFit:
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
         df_error = self.df_error.to_numpy(dtype=np.float64).copy()
-        status = self.status.cat.codes.to_numpy().astype(np.int8)
+        status = np.array(self.status.array.codes, dtype=np.int8)  # a copy: marked below
         main = self._groups[0]
-        for gi, g in enumerate(self._groups):
+        main_prepared = None
+        groups = list(self._groups)
+        gi = -1
+        while gi + 1 < len(groups):
+            gi += 1
+            g = groups[gi]
             if g.fit is None:
                 continue
-            try:
-                c, d, lab, cu, analysis = g.fit.prepare(system)
-            except NotEstimableError:
+            if isinstance(g, _ObservedGroup):
+                assert main_prepared is not None  # the first group is the design's own
+                c, d, lab, cu, analysis = main_prepared
+                if not g.decisions_hold(c, analysis):
+                    # a redundancy decision too close to its tolerance: refit these exactly
+                    groups.extend(self._exact(g.columns))
+                    continue
+            else:
+                try:
+                    c, d, lab, cu, analysis = g.fit.prepare(system)
+                except NotEstimableError:
+                    if gi == 0:
+                        raise
+                    status[g.columns] = np.where(
+                        status[g.columns] == _OK, _NOT_ESTIMABLE, status[g.columns]
+                    )
+                    if labels is None:
+                        c, d, lab = g.fit.resolve(system)
+                        labels, target = lab, d
+                    continue
                 if gi == 0:
-                    raise
-                status[g.columns] = np.where(
-                    status[g.columns] == _OK, _NOT_ESTIMABLE, status[g.columns]
-                )
-                if labels is None:
-                    c, d, lab = g.fit.resolve(system)
-                    labels, target = lab, d
-                continue
+                    main_prepared = (c, d, lab, cu, analysis)
             if labels is None or gi == 0:
                 labels, target = lab, d
                 redundant = analysis.dependencies
                 df_test = int(analysis.independent.size)
             if est_all is None:
                 est_all, se_all, t_all = _unfilled(r, len(lab))
-            sol = g.fit.solution
-            ck = cu[:, sol.kept]
-            root = sol.root(ck)
-            est = ck @ g.theta  # (m, r_g)
-            delta = est - d[:, None]
-            quad, se0 = core.wald_quadratic_forms(delta, root, analysis.independent)
-            dfg = g.n - sol.rank
-            with np.errstate(divide="ignore", invalid="ignore"):
-                sigma = np.sqrt(g.rss / dfg)
-                se = se0[:, None] * sigma[None, :]
-                tt = delta / se
-                qn = analysis.independent.size
-                f = quad / (qn * sigma**2)
-            ok = status[g.columns] == _OK
             cols = g.columns
-            est_all[cols] = est.T
-            se_all[cols] = np.where(ok[:, None], se.T, np.nan)  # type: ignore[index]
-            t_all[cols] = np.where(ok[:, None], tt.T, np.nan)  # type: ignore[index]
-            stat[cols] = np.where(ok, f, np.nan)
-            pval[cols] = np.where(ok, stats.f.sf(f, qn, dfg), np.nan)
+            if cols.size == 0:  # the design's own group when every response has missing values
+                continue
+            ck = cu[:, g.fit.solution.kept]
+            res = group_wald(g, ck, d, analysis.independent, status[cols] == _OK)
+            est_all[cols] = res.estimate
+            se_all[cols] = res.se  # type: ignore[index]
+            t_all[cols] = res.ratio  # type: ignore[index]
+            stat[cols] = res.stat
+            pval[cols] = res.p
         if labels is None or est_all is None:
             # every group lacked rows or estimability: resolve on the design for the labels
             c, d, lab = (main.fit or _first_fit(self._groups)).resolve(system)
@@ -391,6 +363,20 @@ class ManyFit:
             status=np.asarray(STATUSES)[status],
             n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
             redundant=redundant,
+            _response_index=self.n_obs.index,
+            _status_codes=status,
+        )
+
+    def _exact(self, columns: NDArray[np.intp]) -> list[_Group]:
+        """Responses ``columns`` refitted exactly on their own rows (one factor per pattern)."""
+        return exact_groups(
+            self._design,
+            self._source,
+            self._positions,
+            columns,
+            self.rank_tol,
+            BLOCK_BYTES,
+            MIN_BLOCK_COLUMNS,
         )
 
     def screen(
@@ -494,7 +480,7 @@ def _unfilled(
     return np.full((r, m), np.nan), np.full((r, m), np.nan), np.full((r, m), np.nan)
 
 
-def _first_fit(groups: Sequence[_Group]) -> LinearFit:
+def _first_fit(groups: Sequence[_Group | _ObservedGroup]) -> LinearFit:
     for g in groups:
         if g.fit is not None:
             return g.fit
@@ -523,66 +509,71 @@ def _build(
     r = source.count
     if r == 0:
         raise InputError("no responses given.")
-    factor, lf = _design_fit(design, None, rank_tol)
+    factor, lf = design_fit(design, None, rank_tol)
     if lf is None:
         raise DegenerateFitError(
             f"{n} rows for a design of rank {core.solve(factor.moments, rank_tol).rank} leave"
             " no residual degrees of freedom for any response. Add rows or drop terms."
         )
+    seen = [0, 0]  # responses seen, and how many of them had missing values
+
+    @functools.cache
+    def observed() -> core.ObservedDesign | None:  # built when a response needs it
+        if missing != "skip":
+            return None
+        od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
+        return od if od.usable else None
+
+    def work(yb: NDArray[np.float64]) -> _BlockFits:
+        return _fit_block(factor, observed, yb, 2 * seen[1] > seen[0])
+
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
-    patterns: dict[bytes, list[int]] = {}
-    masks: dict[bytes, NDArray[np.bool_]] = {}
-    for j0, cols, yb, block in _projected(factor, source, positions, r, width, workers):
-        good = block.finite()  # a NaN or inf in a column makes its summaries non-finite
-        if not good.all():
-            bad = np.flatnonzero(~good)
-            sub = yb[:, bad]
-            _check_no_inf(sub, source.names, cols[bad], design)
-            nan = np.isnan(sub)
-            overflow = bad[~nan.any(axis=0)]
-            if overflow.size:
-                raise InputError(
-                    f"response {source.names[cols[overflow[0]]]!r} holds values too large to"
-                    " square in float64; rescale it."
-                )
-            if missing == "refuse":
-                raise MissingValueError(
-                    f"response {source.names[cols[bad[0]]]!r} has {int(nan[:, 0].sum())} missing"
-                    f" values ({bad.size} responses in this block have some); fit with"
-                    " missing='skip' to fit each response on its observed rows."
-                )
-            for t, j in enumerate(bad):
-                key = np.packbits(nan[:, t]).tobytes()
-                patterns.setdefault(key, []).append(j0 + int(j))
-                masks.setdefault(key, ~nan[:, t])
-            keep = np.flatnonzero(good)
-            if keep.size:
-                main_blocks.append(block.take(keep))
-                main_cols.append(cols[keep])
-        else:
-            main_blocks.append(block)
-            main_cols.append(cols)
+    obs_blocks: list[core.ObservedBlock] = []
+    obs_cols: list[NDArray[np.intp]] = []
+    refit: list[NDArray[np.intp]] = []
+    blocks = -(-r // width)
+    workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
+    for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
+        odd, block, own = fits  # odd: a NaN, inf or overflow in the column
+        seen[0] += odd.size
+        seen[1] += int(odd.sum()) if own is None else int(np.count_nonzero(own.n < n))
+        good = np.flatnonzero(~odd)
+        odd_cols = np.flatnonzero(odd)
+        _refuse_bad_values(yb, cols, odd, block, own, source.names, design, missing)
+        if odd_cols.size:
+            if own is None:
+                refit.append(cols[odd_cols])
+            else:
+                ok = own.certified
+                obs_blocks.append(own.take(np.flatnonzero(ok)))
+                obs_cols.append(cols[odd_cols[ok]])
+                refit.append(cols[odd_cols[~ok]])
+        main_blocks.append(block)
+        main_cols.append(cols[good])
         del yb
-    main_columns = np.concatenate(main_cols) if main_cols else np.zeros(0, dtype=np.intp)
-    groups = [_solve_group(factor, lf, main_blocks, main_columns, None)]
+    groups: list[_Group | _ObservedGroup] = [
+        solve_group(factor, lf, main_blocks, _joined(main_cols), None)
+    ]
     del main_blocks
-    for key, members in patterns.items():
-        rows = np.flatnonzero(masks[key])
-        cols = np.asarray(members, dtype=np.intp)
-        gfactor, glf = _design_fit(design, rows, rank_tol)
-        blocks = []
-        sub_width = _block_width(cols.size, rows.size)
-        for k0 in range(0, cols.size, sub_width):
-            part = cols[k0 : k0 + sub_width]
-            yb = source.block(part)
-            if positions is not None:
-                yb = yb[positions]
-            blocks.append(gfactor.project(yb[rows]) if glf is not None else None)
-        groups.append(_solve_group(gfactor, glf, [b for b in blocks if b is not None], cols, rows))
+    observed_columns = _joined(obs_cols)
+    od = observed() if observed_columns.size else None
+    if od is not None:
+        joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
+        groups.append(_ObservedGroup(observed_columns, lf, od, joined))
+    del obs_blocks
+    groups.extend(
+        exact_groups(
+            design, source, positions, _joined(refit), rank_tol, BLOCK_BYTES, MIN_BLOCK_COLUMNS
+        )
+    )
     fit = _assemble(design, source, groups, lf, rank_tol, formula, frame, positions)
     return replace(fit, _blas=threads)
+
+
+def _joined(parts: list[NDArray[np.intp]]) -> NDArray[np.intp]:
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=np.intp)
 
 
 def _workers(workers: object) -> int:
@@ -600,7 +591,7 @@ def _block_width(r: int, n: int) -> int:
 def _assemble(
     design: Design,
     source: _Responses,
-    groups: list[_Group],
+    groups: list[_Group | _ObservedGroup],
     lf: LinearFit,
     rank_tol: float,
     formula: str | None,
@@ -617,6 +608,13 @@ def _assemble(
     for g in groups:
         cols = g.columns
         n_obs[cols] = g.n
+        if isinstance(g, _ObservedGroup):
+            rank[cols] = g.fit.solution.rank
+            coef[:, cols] = _coefficients(g.fit.solution, g.block.theta)
+            rss[cols] = g.block.rss
+            exact = g.block.resid_norm <= ZERO_RSS_TOL * g.block.y_norm
+            status[cols[exact]] = _EXACT
+            continue
         if g.fit is None:
             status[cols] = _FEW
             rank[cols] = min(g.n, p)
@@ -642,7 +640,7 @@ def _assemble(
         sigma=pd.Series(sigma, index=idx, name="sigma"),
         rank=pd.Series(rank, index=idx, name="rank"),
         status=pd.Series(
-            pd.Categorical.from_codes(status, categories=pd.Index(STATUSES)),
+            from_codes(status, STATUSES),
             index=idx,
             name="status",
         ),
@@ -693,6 +691,8 @@ def fit_many(
     workers : int, optional
         Threads projecting blocks of responses in parallel (numpy and BLAS release the GIL).
         Default: the number of CPUs, at most :data:`MAX_WORKERS`; 1 projects in this thread.
+        Fewer are used when there are fewer than :data:`MIN_BLOCKS_PER_WORKER` blocks of
+        responses per thread.
 
     Returns
     -------

@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import pandas as pd
@@ -13,7 +13,9 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._model.design import Design
-from lincomb.errors import InputError
+from lincomb.errors import InputError, MissingValueError
+
+T = TypeVar("T")
 
 
 class _FrameColumns:
@@ -113,7 +115,7 @@ def _array_source(
         raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
     r = arr.shape[1]
     if response_names is None:
-        names = tuple(np.char.add("y", np.arange(r).astype(str)).tolist())
+        names = tuple(f"y{j}" for j in range(r))
     else:
         names = _unique_names(response_names, "response names")
         if len(names) != r:
@@ -122,17 +124,18 @@ def _array_source(
 
 
 def _projected(
-    factor: core.DesignFactor,
+    work: Callable[[NDArray[np.float64]], T],
     source: _Responses,
     positions: NDArray[np.intp] | None,
     r: int,
     width: int,
     workers: int,
-) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], core.ResponseBlock]]:
-    """Blocks of responses with their projections, in order.
+) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], T]]:
+    """Blocks of responses with what ``work`` makes of them (their projections), in order.
 
-    Blocks are read in this thread (pandas is not asked to serve several threads) and projected
-    by ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
+    Blocks are read in this thread (pandas is not asked to serve several threads) and handed
+    to ``work`` on ``workers`` threads (numpy and BLAS release the GIL); at most ``workers``
+    blocks wait.
     """
 
     def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
@@ -140,16 +143,16 @@ def _projected(
         yb = source.block(slice(j0, j0 + cols.size))
         return cols, (yb if positions is None else yb[positions])
 
-    if workers <= 1:
+    if workers <= 1 or width >= r:
         for j0 in range(0, r, width):
             cols, yb = read(j0)
-            yield j0, cols, yb, factor.project(yb)
+            yield j0, cols, yb, work(yb)
         return
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[Any]]] = deque()
+        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[T]]] = deque()
         for j0 in range(0, r, width):
             cols, yb = read(j0)
-            pending.append((j0, cols, yb, pool.submit(factor.project, yb)))
+            pending.append((j0, cols, yb, pool.submit(work, yb)))
             if len(pending) > workers:
                 k0, kc, ky, fut = pending.popleft()
                 yield k0, kc, ky, fut.result()
@@ -168,4 +171,79 @@ def _check_no_inf(
             f"response {names[cols[j]]!r} holds {float(yb[i, j])!r} at row"
             f" {design.row_index[i]!r};"
             " remove or replace infinite values (missing values are fine: NaN)."
+        )
+
+
+_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedBlock | None"]
+
+
+def _fit_block(
+    factor: core.DesignFactor,
+    observed: Callable[[], core.ObservedDesign | None],
+    yb: NDArray[np.float64],
+    mostly_missing: bool,
+) -> _BlockFits:
+    """Summaries of one block of responses: finite ones projected on the design of all rows,
+    the others (missing values; or an inf, refused later) fitted on their own rows when
+    ``observed()`` gives the design for it.
+
+    Returns ``odd`` (the responses not projected), the projections of the others, and the
+    own-rows fits of the odd ones (None without ``observed()``).  Which responses are odd is
+    found from the means that centring takes anyway
+    (:meth:`~lincomb._core.DesignFactor.project_finite`); when most responses have missing
+    values (``mostly_missing``, learnt from the blocks before), every response of the block is
+    fitted on its own rows (those without missing values on all rows, exactly as well).
+    """
+    if mostly_missing and (od := observed()) is not None:
+        # every response of the block is fitted on its own rows (all rows when it has no
+        # missing value): no pass over the block to sort them first
+        odd = np.ones(yb.shape[1], dtype=bool)
+        return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.fit(yb)
+    odd, block = factor.project_finite(yb)
+    if not odd.any() or (od := observed()) is None:
+        return odd, block, None
+    return odd, block, od.fit(yb if odd.all() else yb[:, odd])
+
+
+def _refuse_bad_values(
+    yb: NDArray[np.float64],
+    cols: NDArray[np.intp],
+    odd: NDArray[np.bool_],
+    block: core.ResponseBlock,
+    own: core.ObservedBlock | None,
+    names: tuple[str, ...],
+    design: Design,
+    missing: str,
+) -> None:
+    """Refuse infinite values, values too large to square, and (``missing='refuse'``) missing
+    values in one block of responses, naming the first culprit (from :func:`_fit_block`)."""
+    finite = block.finite()  # values too large to square make the summaries non-finite
+    if not odd.any() and finite.all():
+        return
+    good = np.flatnonzero(~odd)
+    odd_cols = np.flatnonzero(odd)
+    n = yb.shape[0]
+    # an inf makes a column's fit non-finite too: look for infs only there
+    unfit = odd_cols if own is None else odd_cols[~own.finite()]
+    suspect = np.sort(np.concatenate([unfit, good[~finite]]))
+    if suspect.size:
+        _check_no_inf(yb[:, suspect], names, cols[suspect], design)
+    if own is None:  # each odd column has a NaN, an inf or a sum that overflows
+        has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
+        unfit_own = np.ones(odd_cols.size, dtype=bool)
+    else:  # or none of them, in a block handed whole to the own-rows fit
+        has_nan = own.n < n
+        unfit_own = ~own.finite()
+    big = np.sort(np.concatenate([odd_cols[~has_nan & unfit_own], good[~finite]]))
+    if big.size:
+        raise InputError(
+            f"response {names[cols[big[0]]]!r} holds values too large to square in float64;"
+            " rescale it."
+        )
+    if missing == "refuse" and odd_cols.size:
+        first = odd_cols[0]
+        raise MissingValueError(
+            f"response {names[cols[first]]!r} has {int(np.isnan(yb[:, first]).sum())} missing"
+            f" values ({odd_cols.size} responses in this block have some); fit with"
+            " missing='skip' to fit each response on its observed rows."
         )

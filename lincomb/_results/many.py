@@ -8,7 +8,9 @@ across responses (``p_adjusted``, named in ``adjustment``) and each response's `
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
+from typing import Any, cast
 
 import numpy as np
 import pandas as pd
@@ -45,9 +47,21 @@ def fdr_adjust(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.f
     return out, _canonical(method, P_METHODS, "p-value")
 
 
+@functools.lru_cache(maxsize=64)
+def _labels_dtype(labels: tuple[str, ...]) -> pd.CategoricalDtype:
+    """The categorical dtype of ``labels`` (dtypes are immutable: built and validated once)."""
+    return pd.CategoricalDtype(pd.Index(list(labels)))
+
+
+def from_codes(codes: NDArray[np.integer], labels: tuple[str, ...]) -> pd.Categorical[str]:
+    """A categorical column of ``labels[codes]`` (the dtype is built once per set of labels)."""
+    dtype: Any = _labels_dtype(labels)  # pandas-stubs type from_codes' dtype as integer
+    return cast("pd.Categorical[str]", pd.Categorical.from_codes(codes, dtype=dtype))
+
+
 def _repeat(value: str, r: int) -> pd.Categorical[str]:
     """A column holding one label ``r`` times (categorical: cheap for many rows)."""
-    return pd.Categorical.from_codes(np.zeros(r, dtype=np.int8), categories=pd.Index([value]))
+    return from_codes(np.zeros(r, dtype=np.int8), (value,))
 
 
 @dataclass(frozen=True)
@@ -111,6 +125,10 @@ class ManyWaldTest(WaldResult):
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
     reference: str = "F"
     covariance: str = "classical"
+    # the responses as an Index and the status codes (positions in STATUSES), when the fit
+    # has them: the frames reuse them instead of converting r strings again
+    _response_index: pd.Index | None = field(default=None, repr=False, compare=False)
+    _status_codes: NDArray[np.int8] | None = field(default=None, repr=False, compare=False)
 
     @property
     def row_p(self) -> NDArray[np.float64]:
@@ -208,15 +226,44 @@ class ManyWaldTest(WaldResult):
         ((6, 15), 'holm')
         """
         adj, name = fdr_adjust(self.p, fdr)
-        r = len(self.responses)
-        out = self._test_frame()
-        for col in ("restrictions", "reference", "covariance"):
-            out[col] = _repeat(str(out[col].iloc[0]), r) if r else out[col]
-        out["status"] = pd.Categorical(self.status, categories=STATUSES)
-        out["p_adjusted"] = adj
-        out["adjustment"] = _repeat(name, r)
-        out["n_obs"] = self.n_obs
-        return out
+        r, m = self.estimate.shape
+        if r == 0:
+            out = self._test_frame()
+            out["status"] = pd.Categorical(self.status, categories=STATUSES)
+            out["p_adjusted"] = adj
+            out["adjustment"] = _repeat(name, r)
+            out["n_obs"] = self.n_obs
+            return out
+        # built column by column in the layout of the shared test frame (``_test_frame``),
+        # without converting r strings per column
+        cols = {
+            "response": self._responses_array(),
+            "restrictions": _repeat(" & ".join(self.labels), r),
+            "rows": np.full(r, m),
+            "rank": np.full(r, self.df_test),
+            "stat": self.stat,
+            "reference": _repeat(self.reference, r),
+            "df_test": np.full(r, self.df_test),
+            "df_error": np.asarray(self.df_error, dtype=np.float64),
+            "p": self.p,
+            "covariance": _repeat(self.covariance, r),
+            "redundant_rows": np.full(r, len(self.redundant)),
+            "status": self._status_categorical(),
+            "p_adjusted": adj,
+            "adjustment": _repeat(name, r),
+            "n_obs": self.n_obs,
+        }
+        return pd.DataFrame(cols, index=pd.RangeIndex(r))
+
+    def _responses_array(self) -> object:
+        if self._response_index is not None and len(self._response_index) == len(self.responses):
+            return self._response_index.array
+        return list(self.responses)
+
+    def _status_categorical(self) -> pd.Categorical[str]:
+        if self._status_codes is not None:
+            return from_codes(self._status_codes, STATUSES)
+        return pd.Categorical(self.status, categories=STATUSES)
 
     def row_frame(
         self, level: float = 0.95, fdr: str | None = "benjamini-hochberg"
@@ -247,7 +294,8 @@ class ManyWaldTest(WaldResult):
             adj[:, i], name = fdr_adjust(pr[:, i], fdr)
         for col in ("reference", "covariance"):
             out[col] = _repeat(self.reference if col == "reference" else self.covariance, r * m)
-        out["status"] = pd.Categorical(np.repeat(self.status, m), categories=STATUSES)
+        codes = self._status_categorical().codes
+        out["status"] = from_codes(np.repeat(codes, m), STATUSES)
         out["p_adjusted"] = adj.ravel()
         out["adjustment"] = _repeat(name, r * m)
         out["n_obs"] = np.repeat(self.n_obs, m)

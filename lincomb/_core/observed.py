@@ -1,0 +1,623 @@
+"""Responses with missing values: each fitted on its own rows, vectorized over responses.
+
+A response observed on the rows ``O`` of a shared design is the least-squares problem of the
+design's rows ``O`` alone.  Refactoring the design for every pattern of missing values costs a
+QR of ``n`` rows per response; this module reuses the one factorization of all rows instead.
+
+Algebra
+-------
+With ``Q̂`` the thin ``Q`` of the centred, ``sqrt(w)``-scaled design of all rows
+(:class:`~lincomb._core.many.DesignFactor`), with the intercept's own direction
+``sqrt(w)/sqrt(W)`` as its first column, the design is ``A = Q̂ R`` (``R`` upper triangular,
+columns in working order).  On the rows ``O`` it is ``A_O = Q̂_O R``, and::
+
+    G = Q̂_Oᵀ Q̂_O = I − Q̂_Mᵀ Q̂_M = L Lᵀ          (M: the rows where the response is missing)
+
+so ``A_O = (Q̂_O L⁻ᵀ)(Lᵀ R)``: the columns of ``Q̂_O L⁻ᵀ`` are orthonormal and ``Lᵀ R`` is the
+triangular factor of the response's own rows.  ``G`` is ``k × k`` (``k`` = columns of the
+design) and is formed from the few missing rows only (``k²`` work per missing value, one sparse
+product), so a response costs what its missing values cost plus its share of the matrix products
+over all rows, vectorized over responses.  The response is centred on its own (weighted) mean
+over ``O`` (what rounding leaves of the mean lies along the intercept, which the fit takes up
+exactly, so no second pass is needed); the coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched
+solve).  The residual sum of squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of
+``‖y_O‖²`` (at most one bit lost to cancellation) and comes from the explicit residual
+``y_O − Q̂_O c`` elsewhere.  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
+``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U`` (``L`` the Cholesky
+factor of ``G``, a batched forward substitution).
+
+When the result is exact (certified)
+------------------------------------
+A response's vectorized fit is *certified* when
+
+1. **the design is full rank with a margin** (:func:`observed_design`, once per design): every
+   column's greedy residual on all rows (the quantity :func:`~lincomb._core.solve.solve`
+   compares with ``rank_tol``) exceeds ``RANK_MARGIN · max(rank_tol, RANK_FLOOR)`` and every
+   centred column norm exceeds ``RANK_MARGIN · CONSTANT_TOL`` times its raw norm;
+2. **the response's rows keep a quarter of every direction**: ``λ_min(G) ≥ GRAM_FLOOR`` (1/4),
+   i.e. every linear combination of the design's columns keeps at least a quarter of its
+   weighted sum of squares on the rows where the response is observed (tested exactly by a
+   Cholesky factorization of ``G − GRAM_FLOOR·I``);
+3. rows are left for the error (``n_O > p``), every number is finite, and the residual norm is
+   not within a factor :data:`ZERO_MARGIN` of the exact-fit threshold ``ZERO_RSS_TOL·‖y‖``.
+
+Under (2) every greedy residual on ``O`` is at least half of its value on all rows and every
+column scale and the weight sum change by at most a factor 2 (so the response's rank decision
+is the design's, with a margin of ``RANK_MARGIN / 2`` over the rounding of either computation),
+``κ(G) ≤ 4`` bounds the extra rounding of the Cholesky route to a factor 4 over the direct one,
+and restriction rows in decision coordinates (:meth:`~lincomb._core.solve.Solution.decision_rows`)
+change their distances by at most a factor 2 (callers check that every row's distance is at
+least a factor :data:`ROW_MARGIN` from ``row_tol``: :func:`row_distances`).  Responses that are
+not certified are refitted exactly on their own rows by the caller (one factorization per
+pattern of missing values), so no decision ever rests on a downdate that could lose accuracy.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sps
+from numpy.typing import NDArray
+
+from lincomb._core.many import DesignFactor
+from lincomb._core.solve import CONSTANT_TOL, Solution
+from lincomb._core.triangular import safe_norm, upper_solve
+
+__all__ = [
+    "GRAM_FLOOR",
+    "RANK_MARGIN",
+    "RANK_FLOOR",
+    "ROW_MARGIN",
+    "ZERO_MARGIN",
+    "ObservedBlock",
+    "ObservedDesign",
+    "observed_design",
+    "observed_wald",
+    "row_distances",
+]
+
+Array = NDArray[np.float64]
+
+#: Smallest eigenvalue of ``G`` (share of every direction's sum of squares kept on a response's
+#: rows) for a certified vectorized fit.
+GRAM_FLOOR: float = 0.25
+#: Margin of the design's greedy residuals over the rank tolerance (and of its column norms over
+#: the constant-column tolerance) for the vectorized route.
+RANK_MARGIN: float = 32.0
+#: The rank margin is taken over at least this tolerance (about 4,500 machine epsilons), so that
+#: rounding of the factor of a response's rows cannot decide.
+RANK_FLOOR: float = 2.0**-40
+#: A restriction row's distance (decision coordinates) must be this factor away from ``row_tol``.
+ROW_MARGIN: float = 4.0
+#: A residual norm within this factor of the exact-fit threshold is refitted exactly.
+ZERO_MARGIN: float = 4.0
+
+
+@dataclass(frozen=True)
+class ObservedBlock:
+    """Responses fitted on their own rows of a shared design (see the module notes).
+
+    Attributes
+    ----------
+    n : (r,) ndarray of int
+        Rows where each response is observed.
+    theta : (k, r) ndarray
+        Working coefficients of each response, in the coordinates of the design's
+        :class:`Solution` on all rows (kept order).
+    resid_norm : (r,) ndarray
+        Residual norms (weighted), from the explicit residual.
+    y_norm : (r,) ndarray
+        Norms of the centred, scaled responses on their rows.
+    chol : (r, k, k) ndarray
+        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response (the identity
+        where not certified).
+    certified : (r,) ndarray of bool
+        Whether the vectorized fit stands (module notes); the others must be refitted.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import factor_design, solve
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+    >>> y = rng.normal(size=(40, 3)); y[[2, 7], 1] = np.nan
+    >>> f = factor_design(x, intercept=0)
+    >>> block = observed_design(f, solve(f.moments)).fit(y)
+    >>> block.n.tolist(), block.certified.tolist()
+    ([40, 38, 40], [True, True, True])
+    """
+
+    n: NDArray[np.int64]
+    theta: Array
+    resid_norm: Array
+    y_norm: Array
+    chol: Array
+    certified: NDArray[np.bool_]
+
+    @property
+    def rss(self) -> Array:
+        with np.errstate(over="ignore"):
+            out: Array = self.resid_norm**2
+        return out
+
+    @property
+    def count(self) -> int:
+        return int(self.n.shape[0])
+
+    def finite(self) -> NDArray[np.bool_]:
+        """Responses whose fit is finite (an infinite value or an overflow propagates).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import factor_design
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
+        >>> observed_design(factor_design(x, intercept=0), None).fit(y).finite().tolist()
+        [True, False]
+        """
+        return (
+            np.isfinite(self.y_norm)
+            & np.isfinite(self.resid_norm)
+            & np.isfinite(self.theta).all(axis=0)
+        )
+
+    def take(self, cols: NDArray[np.intp]) -> ObservedBlock:
+        """The responses at positions ``cols``.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import factor_design, solve
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        >>> y = rng.normal(size=(40, 3)); y[5, 2] = np.nan
+        >>> f = factor_design(x, intercept=0)
+        >>> observed_design(f, solve(f.moments)).fit(y).take(np.array([2, 0])).n.tolist()
+        [39, 40]
+        """
+        return ObservedBlock(
+            self.n[cols],
+            self.theta[:, cols],
+            self.resid_norm[cols],
+            self.y_norm[cols],
+            self.chol[cols],
+            self.certified[cols],
+        )
+
+    @staticmethod
+    def concat(blocks: list[ObservedBlock], k: int) -> ObservedBlock:
+        """Join blocks of responses (in order) into one.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import factor_design, solve
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        >>> y = rng.normal(size=(40, 2)); y[5, 1] = np.nan
+        >>> od = observed_design(factor_design(x, intercept=0), None)
+        >>> ObservedBlock.concat([od.fit(y), od.fit(y[:, ::-1])], 3).n.tolist()
+        [40, 39, 39, 40]
+        """
+        if not blocks:
+            return ObservedBlock(
+                np.zeros(0, dtype=np.int64),
+                np.zeros((k, 0)),
+                np.zeros(0),
+                np.zeros(0),
+                np.zeros((0, k, k)),
+                np.zeros(0, dtype=bool),
+            )
+        return ObservedBlock(
+            np.concatenate([b.n for b in blocks]),
+            np.concatenate([b.theta for b in blocks], axis=1),
+            np.concatenate([b.resid_norm for b in blocks]),
+            np.concatenate([b.y_norm for b in blocks]),
+            np.concatenate([b.chol for b in blocks]),
+            np.concatenate([b.certified for b in blocks]),
+        )
+
+
+@dataclass(frozen=True)
+class ObservedDesign:
+    """A factored design prepared to fit responses on their own rows (:func:`observed_design`).
+
+    Attributes
+    ----------
+    usable : bool
+        Whether the design meets condition 1 of the module notes (else every response with
+        missing values must be refitted exactly).
+    r_work : (k, k) ndarray
+        Triangular factor ``R`` of all rows in working coordinates (``A = Q̂ R``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import factor_design, solve
+    >>> x = np.column_stack([np.ones(6), [0.0, 1, 2, 3, 4, 5], [0.0, 2, 4, 6, 8, 10]])
+    >>> f = factor_design(x, intercept=0)
+    >>> observed_design(f, solve(f.moments)).usable  # an aliased column: refit exactly
+    False
+    """
+
+    usable: bool
+    r_work: Array
+    _q: Array  # (n, k): Q̂, intercept direction first
+    _outer: Array  # (n, k(k+1)/2): the upper triangle of the outer product of each row of Q̂
+    _full_from_half: NDArray[np.intp]  # (k*k,): position in the upper triangle of each entry
+    _diag_in_half: NDArray[np.intp]  # (k,): positions of the diagonal in the upper triangle
+    _w: Array | None
+    _sqrt_w: Array | None
+    _weight_sum: float
+    _intercept: bool
+    _zero_tol: float
+
+    def root(self, ck: Array) -> Array:
+        """``U = R⁻ᵀ C_keptᵀ`` (k, m): ``Cov(Cβ̂) = σ² Uᵀ G⁻¹ U`` for each response.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import factor_design, solve
+        >>> rng = np.random.default_rng(0)
+        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
+        >>> f = factor_design(x, intercept=0)
+        >>> sol = solve(f.moments)
+        >>> c = np.array([[0.0, 1.0, -1.0]])
+        >>> u = observed_design(f, sol).root(sol.to_working(c)[:, sol.kept])
+        >>> bool(np.allclose(u.T @ u, c @ np.linalg.solve(x.T @ x, c.T)))
+        True
+        """
+        return upper_solve(self.r_work, np.asarray(ck, dtype=np.float64).T, trans=True)
+
+    def fit(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedBlock:
+        """Fit responses ``y`` (n, r) with NaN where missing, each on its own rows.
+
+        ``y`` is not modified.  Responses with no missing value are fitted too (``G = I``).
+        ``missing`` is ``isnan(y)`` when the caller has it already.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from lincomb._core import factor_design, solve
+        >>> rng = np.random.default_rng(1)
+        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
+        >>> y = rng.normal(size=30); y[[3, 4]] = np.nan
+        >>> f = factor_design(x, intercept=0)
+        >>> sol = solve(f.moments)
+        >>> block = observed_design(f, sol).fit(y[:, None])
+        >>> keep = ~np.isnan(y)
+        >>> ref = np.linalg.lstsq(x[keep], y[keep], rcond=None)[0]
+        >>> bool(np.allclose(sol.from_working(block.theta)[:, 0], ref))
+        True
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return self._fit(y, missing)
+
+    def _fit(self, y: Array, missing: NDArray[np.bool_] | None) -> ObservedBlock:
+        n, r = y.shape
+        qh = self._q
+        k = qh.shape[1]
+        if not self.usable:
+            n_obs = n - np.count_nonzero(np.isnan(y) if missing is None else missing, axis=0)
+            nan = np.full(r, np.nan)
+            return ObservedBlock(
+                n_obs.astype(np.int64),
+                np.full((k, r), np.nan),
+                nan,
+                nan.copy(),
+                np.broadcast_to(np.eye(k), (r, k, k)).copy(),
+                np.zeros(r, dtype=bool),
+            )
+        yc = np.array(y, dtype=np.float64, order="C")  # the one copy of the block
+        if missing is None:
+            missing = np.isnan(yc)
+        flat = np.flatnonzero(np.ascontiguousarray(missing.T))  # response by response
+        jj = flat // n
+        ii = flat - jj * n
+        count = np.bincount(jj, minlength=r)
+        n_obs = n - count
+        yc[ii, jj] = 0.0
+        w = self._w
+        if self._intercept:
+            # centred once on the response's own mean: what rounding leaves of the mean lies
+            # along the intercept, which the fit below takes up exactly
+            if w is None:
+                wsum = n_obs.astype(np.float64)
+                total = np.ones(n) @ yc
+            else:
+                wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
+                total = w @ yc
+            center = total / np.where(wsum > 0, wsum, 1.0)
+            yc -= center
+            yc[ii, jj] = 0.0
+        else:
+            center = np.zeros(r)
+        if self._sqrt_w is not None:
+            yc *= self._sqrt_w[:, None]
+        qty = qh.T @ yc  # (k, r)
+        # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
+        indptr = np.zeros(r + 1, dtype=np.int64)
+        np.cumsum(count, out=indptr[1:])
+        half = sps.csr_array((np.ones(flat.size), ii, indptr), shape=(r, n)) @ self._outer
+        gram = -half[:, self._full_from_half].reshape(r, k, k)
+        gram[:, np.arange(k), np.arange(k)] += 1.0
+        # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
+        # rows), then exactly by a Cholesky factorization of G − GRAM_FLOOR·I where needed
+        wide = half[:, self._diag_in_half].sum(axis=1) <= 1.0 - GRAM_FLOOR
+        unsure = np.flatnonzero(~wide)
+        if unsure.size:
+            wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
+        gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
+        chol = np.asarray(np.linalg.cholesky(gram), dtype=np.float64)  # positive definite
+        coef = _lower_solve(chol, _lower_solve(chol, qty.T[:, :, None]), trans=True)[:, :, 0].T
+        # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
+        # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
+        # it takes more, the residual sum of squares comes from the explicit residual
+        y2 = np.einsum("ij,ij->j", yc, yc)
+        fit2 = np.einsum("ij,ij->j", coef, qty)
+        resid2 = np.maximum(y2 - fit2, 0.0)
+        close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
+        if close.size:
+            pos = np.full(r, -1)
+            pos[close] = np.arange(close.size)
+            resid = yc[:, close] - qh @ coef[:, close]
+            hit = pos[jj] >= 0
+            resid[ii[hit], pos[jj[hit]]] = 0.0
+            resid2[close] = np.einsum("ij,ij->j", resid, resid)
+        y_norm = np.sqrt(y2)
+        resid_norm = np.sqrt(resid2)
+        theta = upper_solve(self.r_work, coef)
+        if self._intercept:
+            theta[0] += center
+        edge = self._zero_tol * y_norm
+        near_zero = (resid_norm > edge / ZERO_MARGIN) & (resid_norm <= edge * ZERO_MARGIN)
+        certified = (
+            wide
+            & (n_obs > k)
+            & ~near_zero
+            & np.isfinite(theta).all(axis=0)
+            & np.isfinite(resid_norm)
+            & np.isfinite(y_norm)
+        )
+        return ObservedBlock(n_obs.astype(np.int64), theta, resid_norm, y_norm, chol, certified)
+
+
+def observed_design(
+    factor: DesignFactor, sol: Solution | None, rank_tol: float = 1e-10, zero_tol: float = 1e-12
+) -> ObservedDesign:
+    """Prepare a factored design (all rows) to fit responses on their own rows.
+
+    Parameters
+    ----------
+    factor : DesignFactor
+        The design's factor on all rows (its thin ``Q`` is reused).
+    sol : Solution or None
+        ``solve(factor.moments, rank_tol)``: the design's rank decision (computed when None).
+    rank_tol : float
+        The rank tolerance the design was solved with.
+    zero_tol : float
+        Relative residual norm below which a fit is exact (``ZERO_RSS_TOL`` of a fit).
+
+    Returns
+    -------
+    ObservedDesign
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import factor_design
+    >>> rng = np.random.default_rng(0)
+    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
+    >>> observed_design(factor_design(x, intercept=0), None).usable
+    True
+    """
+    from lincomb._core.solve import solve
+
+    m = factor.moments
+    if sol is None:
+        sol = solve(m, rank_tol)
+    n, p = m.n, m.p
+    others = m.others
+    q = others.size
+    qc = factor.thin_q
+    intercept = m.intercept is not None
+    k = q + int(intercept)
+    w = factor.weights
+    wsum = float(m.weight_sum)
+    sqrt_w = None if w is None else np.sqrt(w)
+    qh = np.empty((n, k))
+    if intercept:
+        qh[:, 0] = (1.0 if sqrt_w is None else sqrt_w) / np.sqrt(wsum) if wsum > 0 else 0.0
+    usable = bool(sol.rank == p and qc.shape[1] == q and n > p)
+    r_work = np.eye(k)
+    if usable:
+        qh[:, int(intercept) :] = qc
+        col = np.linalg.norm(m.r[:q, :q], axis=0)
+        raw = m.raw_norm[others]
+        scale = sol.scale[others]
+        rs = m.r[:q, :q] / np.where(col > 0, col, 1.0)
+        margin = RANK_MARGIN * max(rank_tol, RANK_FLOOR)
+        usable = bool(
+            np.all(np.abs(np.diag(rs)) > margin)
+            and np.all(col > RANK_MARGIN * CONSTANT_TOL * raw)
+            and np.array_equal(sol.kept[int(intercept) :], others)
+        )
+        r_work = np.zeros((k, k))
+        if intercept:
+            r_work[0, 0] = np.sqrt(wsum)
+        r_work[int(intercept) :, int(intercept) :] = m.r[:q, :q] / scale
+    else:
+        qh[:, int(intercept) :] = 0.0
+    iu, ju = np.triu_indices(k)
+    # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows), in the order of
+    # triu_indices: row i of the triangle is q̂_i times q̂_i..q̂_(k-1)
+    outer = np.empty((n, iu.size) if usable else (n, 0))
+    if usable:
+        start = 0
+        for i in range(k):
+            np.multiply(qh[:, i : i + 1], qh[:, i:], out=outer[:, start : start + k - i])
+            start += k - i
+    where = np.zeros((k, k), dtype=np.intp)
+    where[iu, ju] = np.arange(iu.size)
+    where[ju, iu] = np.arange(iu.size)
+    return ObservedDesign(
+        usable=usable,
+        r_work=r_work,
+        _q=qh,
+        _outer=outer,
+        _full_from_half=where.ravel(),
+        _diag_in_half=where[np.arange(k), np.arange(k)],
+        _w=w,
+        _sqrt_w=sqrt_w,
+        _weight_sum=wsum,
+        _intercept=intercept,
+        _zero_tol=zero_tol,
+    )
+
+
+def observed_wald(
+    block: ObservedBlock, root: Array, delta: Array, independent: NDArray[np.intp]
+) -> tuple[Array, Array]:
+    """Quadratic forms and row standard errors of one system on responses fitted on own rows.
+
+    Parameters
+    ----------
+    block : ObservedBlock
+    root : (k, m) ndarray
+        ``U`` of :meth:`ObservedDesign.root`.
+    delta : (m, r) ndarray
+        ``Cβ̂ − d`` per response.
+    independent : (q,) ndarray of int
+        The independent rows of the system.
+
+    Returns
+    -------
+    quad : (r,) ndarray
+        ``δ_Kᵀ (V_KK)⁻¹ δ_K`` with ``V = Uᵀ G⁻¹ U`` per response (divide by ``q σ²`` for F).
+    std_error : (r, m) ndarray
+        Unscaled standard error of each row (multiply by ``σ``).
+
+    Notes
+    -----
+    Each response's root ``L⁻¹ U`` comes from a batched forward substitution; ``V_KK`` is never
+    formed: its triangular factor comes from a batched Gram–Schmidt (twice) of the root's
+    independent columns, as :func:`~lincomb._core.triangular.triangular_factor` does by QR.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from lincomb._core import factor_design, solve
+    >>> rng = np.random.default_rng(2)
+    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
+    >>> y = rng.normal(size=30); y[[1, 8]] = np.nan
+    >>> f = factor_design(x, intercept=0); sol = solve(f.moments)
+    >>> od = observed_design(f, sol)
+    >>> block = od.fit(y[:, None])
+    >>> c = np.array([[0.0, 1.0, 0.0]])
+    >>> ck = sol.to_working(c)[:, sol.kept]
+    >>> quad, se = observed_wald(block, od.root(ck), ck @ block.theta, np.array([0]))
+    >>> keep = ~np.isnan(y)
+    >>> xtx = x[keep].T @ x[keep]
+    >>> bool(np.isclose(se[0, 0] ** 2, np.linalg.solve(xtx, c[0])[1]))
+    True
+    """
+    roots = _lower_solve(block.chol, np.broadcast_to(root, (block.count, *root.shape)))
+    se = np.sqrt(np.einsum("rkm,rkm->rm", roots, roots))
+    if independent.size == 0:
+        return np.zeros(block.count), se
+    tri = _r_factor(roots[:, :, independent])
+    z = _lower_solve(np.swapaxes(tri, 1, 2), delta[independent].T[:, :, None])[:, :, 0]
+    return np.einsum("rq,rq->r", z, z), se
+
+
+def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
+    """Distance of each row (normalized) to the span of the independent rows before it.
+
+    ``cd`` are the rows of a system in decision coordinates and ``independent`` the rows that
+    :func:`~lincomb._core.rows.analyze_rows` kept: the numbers it compared with ``row_tol``
+    (used to check that a decision is far from its tolerance).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = row_distances(np.array([[1.0, 0.0], [1.0, 1e-12], [0.0, 1.0]]), np.array([0, 2]))
+    >>> [f"{v:.0e}" for v in d]
+    ['1e+00', '1e-12', '1e+00']
+    """
+    m = cd.shape[0]
+    out = np.zeros(m)
+    norms = safe_norm(cd, axis=1)  # scaled: no overflow; the unit rows below cannot overflow
+    unit = cd / np.where(norms > 0, norms, 1.0)[:, None]
+    basis = np.zeros((0, cd.shape[1]))
+    kept = set(int(i) for i in independent)
+    for i in range(m):
+        v = unit[i]
+        for _ in range(2):
+            v = v - basis.T @ (basis @ v)
+        out[i] = float(np.sqrt(v @ v))
+        if i in kept and out[i] > 0:
+            basis = np.vstack([basis, v / out[i]])
+    return out
+
+
+# -- batched small factorizations (loops over the k columns, vectorized over responses) --------
+
+
+def _cholesky(g: Array) -> tuple[Array, NDArray[np.bool_]]:
+    """Lower Cholesky factors of a stack (r, k, k) and whether each is positive definite
+    (a failed factor is left with unit pivots and must not be used)."""
+    r, k, _ = g.shape
+    low = np.zeros_like(g)
+    ok = np.ones(r, dtype=bool)
+    for j in range(k):
+        row = low[:, j, :j]
+        piv = g[:, j, j] - np.einsum("ri,ri->r", row, row)
+        good = piv > 0
+        ok &= good
+        d = np.sqrt(np.where(good, piv, 1.0))
+        low[:, j, j] = d
+        if j + 1 < k:
+            below = g[:, j + 1 :, j] - np.einsum("rik,rk->ri", low[:, j + 1 :, :j], row)
+            low[:, j + 1 :, j] = below / d[:, None]
+    return low, ok
+
+
+def _lower_solve(low: Array, b: Array, *, trans: bool = False) -> Array:
+    """``L⁻¹ b`` (or ``L⁻ᵀ b``) for stacks ``low`` (r, k, k) and ``b`` (r, k, m)."""
+    k = low.shape[1]
+    x = np.array(b, dtype=np.float64, copy=True)
+    order = range(k - 1, -1, -1) if trans else range(k)
+    for j in order:
+        x[:, j] /= low[:, j, j][:, None]
+        if trans:
+            if j:
+                x[:, :j] -= low[:, j, :j][:, :, None] * x[:, j][:, None, :]
+        elif j + 1 < k:
+            x[:, j + 1 :] -= low[:, j + 1 :, j][:, :, None] * x[:, j][:, None, :]
+    return x
+
+
+def _r_factor(a: Array) -> Array:
+    """Upper triangular ``T`` (r, q, q) with ``Tᵀ T = aᵀ a`` for a stack ``a`` (r, k, q):
+    classical Gram–Schmidt twice (accurate as Householder QR for the small ``q`` here)."""
+    r, k, q = a.shape
+    basis = np.zeros((r, k, q))
+    tri = np.zeros((r, q, q))
+    for j in range(q):
+        v = a[:, :, j].copy()
+        b = basis[:, :, :j]
+        for _ in range(2):
+            h = np.einsum("rkj,rk->rj", b, v)
+            tri[:, :j, j] += h
+            v -= np.einsum("rkj,rj->rk", b, h)
+        nv = np.sqrt(np.einsum("rk,rk->r", v, v))
+        tri[:, j, j] = nv
+        basis[:, :, j] = v / np.where(nv > 0, nv, 1.0)[:, None]
+    return tri
