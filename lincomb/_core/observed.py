@@ -348,7 +348,8 @@ class ObservedDesign:
         # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
         indptr = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(ii, minlength=n), out=indptr[1:])
-        half = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n)) @ self._outer
+        missing_rows = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n))
+        half = np.asarray(missing_rows @ self._outer)
         gram = -half[:, self._full_from_half].reshape(r, k, k)
         gram[:, np.arange(k), np.arange(k)] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
