@@ -318,9 +318,12 @@ class ObservedDesign:
         yc = np.array(y, dtype=np.float64, order="C")  # the one copy of the block
         if missing is None:
             missing = np.isnan(yc)
-        flat = np.flatnonzero(np.ascontiguousarray(missing.T))  # response by response
-        jj = flat // n
-        ii = flat - jj * n
+        # the missing values row by row (no transposed copy of the mask): within each
+        # response they come in row order, so every sum over them below (and the sparse
+        # product, column by column) adds them in the same order as response by response
+        flat = np.flatnonzero(missing)
+        ii = flat // r
+        jj = flat - ii * r
         count = np.bincount(jj, minlength=r)
         n_obs = n - count
         yc[ii, jj] = 0.0
@@ -343,9 +346,10 @@ class ObservedDesign:
             yc *= self._sqrt_w[:, None]
         qty = qh.T @ yc  # (k, r)
         # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
-        indptr = np.zeros(r + 1, dtype=np.int64)
-        np.cumsum(count, out=indptr[1:])
-        half = sps.csr_array((np.ones(flat.size), ii, indptr), shape=(r, n)) @ self._outer
+        indptr = np.zeros(n + 1, dtype=np.int64)
+        np.cumsum(np.bincount(ii, minlength=n), out=indptr[1:])
+        missing_rows = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n))
+        half = np.asarray(missing_rows @ self._outer)
         gram = -half[:, self._full_from_half].reshape(r, k, k)
         gram[:, np.arange(k), np.arange(k)] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
@@ -356,7 +360,10 @@ class ObservedDesign:
             wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
         gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
         chol = np.asarray(np.linalg.cholesky(gram), dtype=np.float64)  # positive definite
-        coef = _lower_solve(chol, _lower_solve(chol, qty.T[:, :, None]), trans=True)[:, :, 0].T
+        coef = np.array(qty)  # (k, r): G⁻¹ Q̂ᵀ y by two triangular solves, responses last
+        low = np.ascontiguousarray(np.moveaxis(chol, 0, -1))
+        _lower_solve_last(low, coef)
+        _lower_solve_last(low, coef, trans=True)
         # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
         # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
         # it takes more, the residual sum of squares comes from the explicit residual
@@ -591,17 +598,25 @@ def _cholesky(g: Array) -> tuple[Array, NDArray[np.bool_]]:
 
 def _lower_solve(low: Array, b: Array, *, trans: bool = False) -> Array:
     """``L⁻¹ b`` (or ``L⁻ᵀ b``) for stacks ``low`` (r, k, k) and ``b`` (r, k, m)."""
-    k = low.shape[1]
-    x = np.array(b, dtype=np.float64, copy=True)
+    # worked with the responses last (contiguous rows of r numbers): fewer, longer loops
+    x = np.array(np.moveaxis(b, 0, -1), dtype=np.float64, order="C")  # (k, m, r), a copy
+    _lower_solve_last(np.ascontiguousarray(np.moveaxis(low, 0, -1)), x, trans=trans)
+    return np.moveaxis(x, -1, 0)
+
+
+def _lower_solve_last(low: Array, x: Array, *, trans: bool = False) -> None:
+    """``x ← L⁻¹ x`` (or ``L⁻ᵀ x``) in place, responses last: ``low`` (k, k, r), ``x`` (k, r) or
+    (k, m, r)."""
+    k = low.shape[0]
+    lead = (slice(None),) + (None,) * (x.ndim - 2)  # broadcast L's entries over the m columns
     order = range(k - 1, -1, -1) if trans else range(k)
     for j in order:
-        x[:, j] /= low[:, j, j][:, None]
+        x[j] /= low[j, j]
         if trans:
             if j:
-                x[:, :j] -= low[:, j, :j][:, :, None] * x[:, j][:, None, :]
+                x[:j] -= low[j, :j][lead] * x[j]
         elif j + 1 < k:
-            x[:, j + 1 :] -= low[:, j + 1 :, j][:, :, None] * x[:, j][:, None, :]
-    return x
+            x[j + 1 :] -= low[j + 1 :, j][lead] * x[j]
 
 
 def _r_factor(a: Array) -> Array:

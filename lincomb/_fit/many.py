@@ -547,7 +547,7 @@ def _build(
                 refit.append(cols[odd_cols])
             else:
                 ok = own.certified
-                obs_blocks.append(own.take(np.flatnonzero(ok)))
+                obs_blocks.append(own if ok.all() else own.take(np.flatnonzero(ok)))
                 obs_cols.append(cols[odd_cols[ok]])
                 refit.append(cols[odd_cols[~ok]])
         main_blocks.append(block)

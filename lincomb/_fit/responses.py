@@ -220,11 +220,14 @@ def _refuse_bad_values(
     finite = block.finite()  # values too large to square make the summaries non-finite
     if not odd.any() and finite.all():
         return
+    own_finite = None if own is None else own.finite()
+    if own_finite is not None and own_finite.all() and finite.all() and missing != "refuse":
+        return  # missing values only, each response fitted on its rows (no inf, no overflow)
     good = np.flatnonzero(~odd)
     odd_cols = np.flatnonzero(odd)
     n = yb.shape[0]
     # an inf makes a column's fit non-finite too: look for infs only there
-    unfit = odd_cols if own is None else odd_cols[~own.finite()]
+    unfit = odd_cols if own_finite is None else odd_cols[~own_finite]
     suspect = np.sort(np.concatenate([unfit, good[~finite]]))
     if suspect.size:
         _check_no_inf(yb[:, suspect], names, cols[suspect], design)
@@ -232,8 +235,9 @@ def _refuse_bad_values(
         has_nan = np.isnan(yb[:, odd_cols]).any(axis=0)
         unfit_own = np.ones(odd_cols.size, dtype=bool)
     else:  # or none of them, in a block handed whole to the own-rows fit
+        assert own_finite is not None
         has_nan = own.n < n
-        unfit_own = ~own.finite()
+        unfit_own = ~own_finite
     big = np.sort(np.concatenate([odd_cols[~has_nan & unfit_own], good[~finite]]))
     if big.size:
         raise InputError(
