@@ -63,6 +63,7 @@ from numpy.typing import NDArray
 from lincomb._core.many import DesignFactor
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import safe_norm, upper_solve
+from lincomb._docstrings import fill_doc
 
 __all__ = [
     "GRAM_FLOOR",
@@ -94,6 +95,17 @@ ROW_MARGIN: float = 4.0
 ZERO_MARGIN: float = 4.0
 
 
+#: Example set-up shared by the docstrings below: 40 rows, an intercept and two columns.
+_FORTY_ROWS = """\
+>>> import numpy as np
+>>> from lincomb._core import factor_design, solve
+>>> rng = np.random.default_rng(0)
+>>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+>>> f = factor_design(x, intercept=0)"""
+_forty_doc = fill_doc(forty_rows=_FORTY_ROWS)
+
+
+@_forty_doc
 @dataclass(frozen=True)
 class ObservedBlock:
     """Responses fitted on their own rows of a shared design (see the module notes).
@@ -117,12 +129,8 @@ class ObservedBlock:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import factor_design, solve
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+    %(forty_rows)s
     >>> y = rng.normal(size=(40, 3)); y[[2, 7], 1] = np.nan
-    >>> f = factor_design(x, intercept=0)
     >>> block = observed_design(f, solve(f.moments)).fit(y)
     >>> block.n.tolist(), block.certified.tolist()
     ([40, 38, 40], [True, True, True])
@@ -145,17 +153,15 @@ class ObservedBlock:
     def count(self) -> int:
         return int(self.n.shape[0])
 
+    @_forty_doc
     def finite(self) -> NDArray[np.bool_]:
         """Responses whose fit is finite (an infinite value or an overflow propagates).
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        %(forty_rows)s
         >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
-        >>> observed_design(factor_design(x, intercept=0), None).fit(y).finite().tolist()
+        >>> observed_design(f, None).fit(y).finite().tolist()
         [True, False]
         """
         return (
@@ -164,17 +170,14 @@ class ObservedBlock:
             & np.isfinite(self.theta).all(axis=0)
         )
 
+    @_forty_doc
     def take(self, cols: NDArray[np.intp]) -> ObservedBlock:
         """The responses at positions ``cols``.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        %(forty_rows)s
         >>> y = rng.normal(size=(40, 3)); y[5, 2] = np.nan
-        >>> f = factor_design(x, intercept=0)
         >>> observed_design(f, solve(f.moments)).fit(y).take(np.array([2, 0])).n.tolist()
         [39, 40]
         """
@@ -188,17 +191,15 @@ class ObservedBlock:
         )
 
     @staticmethod
+    @_forty_doc
     def concat(blocks: list[ObservedBlock], k: int) -> ObservedBlock:
         """Join blocks of responses (in order) into one.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
+        %(forty_rows)s
         >>> y = rng.normal(size=(40, 2)); y[5, 1] = np.nan
-        >>> od = observed_design(factor_design(x, intercept=0), None)
+        >>> od = observed_design(f, None)
         >>> ObservedBlock.concat([od.fit(y), od.fit(y[:, ::-1])], 3).n.tolist()
         [40, 39, 39, 40]
         """
