@@ -160,6 +160,24 @@ def test_rows_on_disjoint_columns_are_kept_whole():
     np.testing.assert_allclose(got.dependencies[1][0], deps[1][0], rtol=1e-14)
 
 
+def test_row_reductions_down_the_transpose_are_row_reductions():
+    # brute force: ndarray.any(axis=1), which the batch screens replace for speed
+    from lincomb._core.batch import _rows_any
+
+    rng = np.random.default_rng(12)
+    for shape in [(1, 1), (5, 3), (200, 20), (7, 300)]:
+        b = rng.random(shape) < 0.05
+        b[0] = False
+        np.testing.assert_array_equal(_rows_any(b), b.any(axis=1))
+        np.testing.assert_array_equal(_rows_any(b[:, ::2]), b[:, ::2].any(axis=1))
+    # a stacked C with a NaN, a zero and a cancelling row: the stack refuses the same systems
+    fit = lc.fit_arrays(np.c_[np.ones(6), np.arange(6.0), np.arange(6.0) ** 2], np.arange(6.0))
+    ok = [as_system(lc.coef("x1") == 0), as_system(lc.coef("x2") - lc.coef("x1") == 0)]
+    assert stack_systems(ok, fit.resolver) is not None
+    gone = ok + [as_system(lc.coef("x2") - lc.coef("x2") / 1 == 0)]
+    assert stack_systems(gone, fit.resolver) is None
+
+
 # -- coordinate maps ------------------------------------------------------------------------
 def full_maps(sol, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Brute force: working rows (shift by the column means, then the scales) and decision
