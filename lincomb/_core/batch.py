@@ -333,7 +333,9 @@ def wald_systems(
     # no row involves the intercept: working and decision coordinates are both C / scale
     plain = j0 is None or not c[..., j0].any()
     cu = c / sol.scale if plain else _to_working(sol, c)
-    flat = cu.reshape(k * m, p)[:, sol.kept]
+    flat = cu.reshape(k * m, p)  # a view of cu (a new array), read only below
+    if sol.kept.size != p or not np.array_equal(sol.kept, np.arange(p)):
+        flat = flat[:, sol.kept]  # aliased columns dropped
     estimate = np.einsum("nr,r->n", flat, sol.theta).reshape(k, m)
     delta = estimate - d
     if root_of is None:  # one triangular solve for all rows
