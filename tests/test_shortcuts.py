@@ -30,9 +30,10 @@ import lincomb as lc
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._builder.stack import stack_systems
-from lincomb._core.triangular import pow2_scale, safe_norm
+from lincomb._core.triangular import plain_norm, pow2_scale, safe_norm
 from lincomb._covariance.reference import chi2_sf, f_sf
-from lincomb.errors import EmptyRestrictionError, UnknownCoefficientError
+from lincomb._fit.restriction_rows import check_rows
+from lincomb.errors import EmptyRestrictionError, LincombError, UnknownCoefficientError
 
 MTCARS_X = ["wt", "hp", "disp", "qsec", "drat", "am", "gear"]
 
@@ -79,6 +80,20 @@ def test_norm_of_zeros_and_non_finite_entries_takes_the_scaled_path():
     a = np.array([[0.0, 0.0], [np.inf, 1.0], [np.nan, 2.0]])
     np.testing.assert_array_equal(safe_norm(a, axis=1), scaled_norm(a, 1))
     assert float(safe_norm(np.zeros(3))) == 0.0
+
+
+@pytest.mark.parametrize("size", [1, 8, 9, 40])
+def test_plain_norm_refuses_what_the_scaled_norm_must_handle(size):
+    # few norms are compared in Python, many with reductions: both refuse the same inputs
+    rng = np.random.default_rng(size)
+    a = rng.normal(size=(3, size))
+    assert plain_norm(a, 0) is not None
+    np.testing.assert_array_equal(plain_norm(a, 0), scaled_norm(a, 0))
+    for bad in (np.nan, np.inf, 1e200, 1e-300, 0.0):
+        b = a.copy()
+        b[:, -1] = bad
+        assert plain_norm(b, 0) is None
+        np.testing.assert_array_equal(safe_norm(b, axis=0), scaled_norm(b, 0))
 
 
 # -- redundancy screens ---------------------------------------------------------------------
@@ -145,6 +160,24 @@ def test_rows_on_disjoint_columns_are_kept_whole():
     np.testing.assert_allclose(got.dependencies[1][0], deps[1][0], rtol=1e-14)
 
 
+def test_row_reductions_down_the_transpose_are_row_reductions():
+    # brute force: ndarray.any(axis=1), which the batch screens replace for speed
+    from lincomb._core.batch import _rows_any
+
+    rng = np.random.default_rng(12)
+    for shape in [(1, 1), (5, 3), (200, 20), (7, 300)]:
+        b = rng.random(shape) < 0.05
+        b[0] = False
+        np.testing.assert_array_equal(_rows_any(b), b.any(axis=1))
+        np.testing.assert_array_equal(_rows_any(b[:, ::2]), b[:, ::2].any(axis=1))
+    # a stacked C with a NaN, a zero and a cancelling row: the stack refuses the same systems
+    fit = lc.fit_arrays(np.c_[np.ones(6), np.arange(6.0), np.arange(6.0) ** 2], np.arange(6.0))
+    ok = [as_system(lc.coef("x1") == 0), as_system(lc.coef("x2") - lc.coef("x1") == 0)]
+    assert stack_systems(ok, fit.resolver) is not None
+    gone = ok + [as_system(lc.coef("x2") - lc.coef("x2") / 1 == 0)]
+    assert stack_systems(gone, fit.resolver) is None
+
+
 # -- coordinate maps ------------------------------------------------------------------------
 def full_maps(sol, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Brute force: working rows (shift by the column means, then the scales) and decision
@@ -172,6 +205,26 @@ def test_coordinate_maps_are_the_full_maps(cars, touch):
     working, decision = full_maps(sol, c)
     np.testing.assert_allclose(sol.to_working(c), working, rtol=1e-15, atol=0)
     np.testing.assert_allclose(sol.decision_rows(c), decision, rtol=1e-13, atol=1e-15)
+
+
+@pytest.mark.parametrize("touch", [False, True])
+def test_checked_rows_are_the_full_maps(cars, touch):
+    # check_rows takes C / scale for both maps when no row involves the intercept
+    _, _, fit = cars
+    sol = fit.solution
+    rng = np.random.default_rng(9)
+    c = rng.integers(-3, 4, size=(3, 8)).astype(float)
+    c[:, sol.intercept] = [0.0, 1.0, 0.0] if touch else 0.0
+    c[2] = 2 * c[0] - c[1]  # a redundant row: decided in decision coordinates
+    d = np.array([1.0, 0.5, 1.5])
+    working, decision = full_maps(sol, c)
+    cu, analysis = check_rows(sol, c, d, ["a", "b", "c"], fit.names)
+    np.testing.assert_allclose(cu, working, rtol=1e-15, atol=0)
+    want = core.analyze_rows(decision, d)
+    assert analysis.independent.tolist() == want.independent.tolist() == [0, 1]
+    assert list(analysis.dependencies) == list(want.dependencies) == [2]
+    for k, w in want.dependencies[2].items():
+        np.testing.assert_allclose(analysis.dependencies[2][k], w, rtol=1e-12)
 
 
 # -- names, stacks, lazy attributes -------------------------------------------------------------
@@ -236,6 +289,41 @@ def test_stacked_systems_are_the_systems_resolved_one_by_one(warpbreaks):
         single = fit.wald(system)
         np.testing.assert_allclose(batch.stat[s], single.stat, rtol=1e-10)
         assert batch.row_labels(s) == single.labels
+
+
+def resolve_item_by_item(system, index):
+    """Brute force: every restriction's own row, target and label, stacked."""
+    rows = [next(iter(item.rows(index))) for item in system.items]
+    return np.array([r[0] for r in rows]), np.array([r[1] for r in rows]), [r[2] for r in rows]
+
+
+def test_systems_of_restrictions_resolve_as_their_rows(warpbreaks):
+    fit = lc.fit("breaks ~ wool * tension", warpbreaks)
+    t, coef = lc.term("tension"), lc.coef
+    systems = [
+        (t["M"] == t["H"]) & (coef("wool[T.B]") == 0.5),
+        (coef("tension[T.M]") + 2 * t["M"] - 0.1 * coef("tension[T.M]") == 1)
+        & (t["H"] - coef("wool[T.B]") / 4 == 0).labelled("named row"),
+        as_system(coef("Intercept") / 3 + coef("wool[T.B]:tension[T.H]") == -2),
+    ]
+    for system in systems:
+        c, d, labels = system.resolve(fit.resolver)
+        want = resolve_item_by_item(system, fit.resolver)
+        np.testing.assert_array_equal(c, want[0])
+        np.testing.assert_array_equal(d, want[1])
+        assert labels == want[2]
+    # the first bad row raises, with the message of the row-by-row path
+    cancel = coef("tension[T.M]") - t["M"] == 0
+    for system in (
+        (coef("wool[T.B]") == 0) & cancel & (coef("woolB") == 0),
+        (coef("wool[T.B]") == 0) & (coef("woolB") == 0) & cancel,
+    ):
+        with pytest.raises(LincombError) as fast:
+            system.resolve(fit.resolver)
+        with pytest.raises(LincombError) as slow:
+            resolve_item_by_item(system, fit.resolver)
+        assert type(fast.value) is type(slow.value)
+        assert str(fast.value) == str(slow.value)
 
 
 def test_stacks_that_cannot_be_made_leave_the_error_to_each_system(warpbreaks):

@@ -518,11 +518,15 @@ class Restriction(_Item):
         """
         row = self.expr.row(index)
         if not np.count_nonzero(row):
-            raise EmptyRestrictionError(
-                f"restriction '{self.text()}' has no coefficients left (its weights cancel);"
-                " remove it or fix its terms."
-            )
+            raise _cancelled(self)
         yield row, self.target, self.text() if self.label is None else self.label
+
+
+def _cancelled(r: Restriction) -> EmptyRestrictionError:
+    return EmptyRestrictionError(
+        f"restriction '{r.text()}' has no coefficients left (its weights cancel);"
+        " remove it or fix its terms."
+    )
 
 
 def _target_number(v: object, name: str) -> float:
@@ -685,10 +689,13 @@ class RestrictionSystem:
         >>> c.shape, d.tolist(), labels[-1]
         ((4, 4), [0.0, 0.0, 0.0, 500.0], 'Intercept = 500')
         """
+        items = self.items
+        if items and all(type(item) is Restriction for item in items):
+            return _resolve_restrictions(items, index)  # type: ignore[arg-type]
         rows: list[NDArray[np.float64]] = []
         ds: list[float] = []
         labels: list[str] = []
-        for item in self.items:
+        for item in items:
             for row, d, label in item.rows(index):
                 rows.append(row)
                 ds.append(d)
@@ -708,6 +715,25 @@ class RestrictionSystem:
         ['line[T.L2] = 0', 'line[T.L3] = 0', 'line[T.L4] = 0', 'Intercept = 500']
         """
         return [label for item in self.items for label in item.row_labels(index)]
+
+
+def _resolve_restrictions(
+    items: Sequence[Restriction], index: Resolver
+) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
+    """:meth:`RestrictionSystem.resolve` for a system of plain restrictions (one row each).
+
+    The rows are summed in place into one ``C`` (in the order :meth:`Expr.row` adds them) and
+    checked in turn, so the values and the first error raised are those of the general path,
+    without a row array, a generator and a stacking pass per restriction.
+    """
+    c = np.zeros((len(items), len(index.names)))
+    for row, item in zip(c, items, strict=True):
+        for ref, w in _terms_of(item).items():
+            row[ref.resolve(index)] += w
+        if not row.any():
+            raise _cancelled(item)
+    d = np.array([item.target for item in items])
+    return c, d, [item.text() if item.label is None else item.label for item in items]
 
 
 # readers of this module's private fields, for the C-level passes of

@@ -57,13 +57,14 @@ def stack_systems(
     ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
     """
     p = len(index.names)
-    items = list(chain.from_iterable(map(_items_of, systems)))
+    per_system = list(map(_items_of, systems))
+    items = list(chain.from_iterable(per_system))
     if set(map(type, items)) == {Restriction}:  # one row per item: C-level passes only
         terms: list[dict[_Ref, float]] = list(map(_terms_of, items))
         return _stacked(
             index,
             p,
-            list(map(len, map(_items_of, systems))),
+            list(map(len, per_system)),
             chain.from_iterable(terms),
             chain.from_iterable(map(dict.values, terms)),
             list(map(len, terms)),
@@ -134,6 +135,9 @@ def _stacked(
     c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(rows, p)
     for i, values in dense:
         c[i] = values
-    if not c.any(axis=1).all():  # a row whose weights cancel: resolve() names it
+    # a row whose weights cancel: resolve() names it.  Reduced down the columns of the
+    # transposed copy: numpy reduces short rows (p entries) one row at a time, several times
+    # slower for a tall C
+    if not np.logical_or.reduce(np.ascontiguousarray((c != 0).T), axis=0).all():
         return None
     return c.reshape(k, m, p), np.array(targets, dtype=np.float64).reshape(k, m)

@@ -118,13 +118,24 @@ def _apart(cu: Array) -> bool:
     Such rows are exactly orthogonal (every product in their dot products has a zero factor),
     so the greedy pass of :func:`analyze_rows` leaves each whole and keeps them all.
     """
+    if not cu.shape[0]:
+        return False
     nz = cu != 0
+    # ufunc reductions called directly: the array methods' Python wrappers cost more than the
+    # work on a few rows
     return bool(
-        cu.shape[0]
-        and nz.sum(axis=0).max() <= 1
-        and nz.any(axis=1).all()
-        and np.abs(cu).max() < np.inf
+        _max(_add(nz, axis=0, dtype=np.intp)) <= 1
+        and _all(_any(nz, axis=1))
+        and _all(np.isfinite(cu), axis=None)
     )
+
+
+_max, _add, _any, _all = (
+    np.maximum.reduce,
+    np.add.reduce,
+    np.logical_or.reduce,
+    np.logical_and.reduce,
+)
 
 
 def _clearly_independent(cu: Array, norms: Array, tol: float) -> bool:

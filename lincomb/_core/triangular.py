@@ -192,7 +192,13 @@ def plain_norm(a: Array, axis: int) -> Array | None:
     else:  # a transpose where it is one: moveaxis has a fixed cost of its own
         last = a.T if a.ndim == 2 else np.moveaxis(a, axis, -1)
     ss = np.einsum("...i,...i->...", last, last)
-    if ss.size and _SQUARES_LOW <= ss.min() and ss.max() < np.inf:
+    if not ss.size:
+        return None
+    if ss.size <= 8:  # a few norms: compared in Python, without two reductions' fixed cost
+        ok = all(_SQUARES_LOW <= v < np.inf for v in ss.reshape(-1).tolist())  # NaN fails
+    else:
+        ok = _SQUARES_LOW <= ss.min() and ss.max() < np.inf
+    if ok:
         out: Array = np.sqrt(ss)
         return out
     return None

@@ -122,7 +122,10 @@ def _from_arrays(
             f"C holds {float(arr[s, i, j])!r} at system {s}, row {i}, column {j} ({names[j]});"
             " C must be finite."
         )
-    nonzero = arr.any(axis=2)
+    # down the columns of the contiguous transpose: numpy reduces short rows one at a time
+    nonzero = np.logical_or.reduce(
+        np.ascontiguousarray((arr != 0).reshape(k * m, p).T), axis=0
+    ).reshape(k, m)
     if not nonzero.all():
         zero = np.argwhere(~nonzero)
         s, i = (int(v) for v in zero[0])

@@ -86,9 +86,15 @@ def check_rows(
     >>> a.independent.tolist(), a.dependencies
     ([0], {1: {0: 2.0}})
     """
-    cu = sol.to_working(c)
+    c = np.asarray(c, dtype=np.float64)
+    j = sol.intercept
+    if j is None or not c[:, j].any():
+        # no row involves the intercept: working and decision rows are both C / scale
+        cu = cd = c / sol.scale
+    else:
+        cu, cd = sol.to_working(c), sol.decision_rows(c)
     # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
-    analysis = core.analyze_rows(sol.decision_rows(c), d, core.ROW_TOL)
+    analysis = core.analyze_rows(cd, d, core.ROW_TOL)
     refuse_inconsistent(analysis, labels)
     if sol.null_basis.shape[1] == 0:  # a full-rank design: every row is estimable
         return cu, analysis
