@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._docstrings import fill_doc
 from lincomb._results.format import _html_lines, _num, _p, _table_html, _table_text
 from lincomb._results.frames import ROW_COLUMNS, TEST_COLUMNS, WaldResult, _Groups, roles
 from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
@@ -45,6 +46,17 @@ def fdr_adjust(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.f
     from lincomb._results.multiplicity import _canonical
 
     return out, _canonical(method, P_METHODS, "p-value")
+
+
+#: The example set-up of the methods below: six markers of the assay panel tested for a
+#: treatment effect.
+_MARKER_SCREEN = """\
+>>> import lincomb as lc
+>>> panel = lc.datasets.assay_panel()
+>>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
+>>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
+...     lc.term("treatment") == 0)"""
+_screen_doc = fill_doc(marker_screen=_MARKER_SCREEN)
 
 
 @functools.lru_cache(maxsize=64)
@@ -131,21 +143,19 @@ class ManyWaldTest(WaldResult):
     _status_codes: NDArray[np.int8] | None = field(default=None, repr=False, compare=False)
 
     @property
+    @_screen_doc
     def row_p(self) -> NDArray[np.float64]:
         """Two-sided t p-value of each row, per response: (r, m).
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
+        %(marker_screen)s
         >>> res.row_p.shape
         (6, 3)
         """
         return self._row_p(self.ratio, self.df_error[:, None])
 
+    @_screen_doc
     def adjusted(self, method: str | None = "benjamini-hochberg") -> NDArray[np.float64]:
         """The F p-values adjusted across responses (NaN where there is no test).
 
@@ -157,17 +167,14 @@ class ManyWaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
+        %(marker_screen)s
         >>> adj = res.adjusted("benjamini-hochberg")
         >>> markers[int(adj.argmin())], bool((adj >= res.p).all())
         ('g0004', True)
         """
         return fdr_adjust(self.p, method)[0]
 
+    @_screen_doc
     def intervals(self, level: float = 0.95) -> pd.DataFrame:
         """Marginal intervals for each row's ``Cβ`` per response (tidy).
 
@@ -175,11 +182,7 @@ class ManyWaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
+        %(marker_screen)s
         >>> res.intervals(0.9).shape
         (18, 5)
         """
@@ -206,6 +209,7 @@ class ManyWaldTest(WaldResult):
             redundant_rows=np.full(r, len(self.redundant)),
         )
 
+    @_screen_doc
     def test_frame(self, fdr: str | None = "benjamini-hochberg") -> pd.DataFrame:
         """One row per response; columns :data:`SCREEN_COLUMNS`.
 
@@ -216,11 +220,7 @@ class ManyWaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
+        %(marker_screen)s
         >>> screen = res.test_frame(fdr="holm")
         >>> screen.shape, screen["adjustment"].iloc[0]
         ((6, 15), 'holm')
@@ -265,6 +265,7 @@ class ManyWaldTest(WaldResult):
             return from_codes(self._status_codes, STATUSES)
         return pd.Categorical(self.status, categories=STATUSES)
 
+    @_screen_doc
     def row_frame(
         self, level: float = 0.95, fdr: str | None = "benjamini-hochberg"
     ) -> pd.DataFrame:
@@ -276,11 +277,7 @@ class ManyWaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> panel = lc.datasets.assay_panel()
-        >>> markers = ["g0001", "g0002", "g0003", "g0004", "g0005", "g0006"]
-        >>> res = lc.fit_many("~ treatment + batch", panel, responses=markers).wald(
-        ...     lc.term("treatment") == 0)
+        %(marker_screen)s
         >>> rows = res.row_frame(level=0.9)
         >>> rows.shape, rows["restriction"].iloc[0]
         ((18, 19), 'treatment[T.low] = 0')
