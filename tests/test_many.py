@@ -493,6 +493,49 @@ def test_values_too_large_to_square_are_refused_with_missing_values(mtcars: pd.D
 # -- property: vectorized equals one fit per response -------------------------------------------
 
 
+def _check_single_fits(
+    mf: lc.ManyFit,
+    system: object,
+    x: np.ndarray,
+    ys: np.ndarray,
+    w: np.ndarray | None,
+    *,
+    scaled_atol: bool = False,
+    rss: bool = False,
+) -> None:
+    """Each response of ``mf`` and its test of ``system`` equal the single fit of that response
+    on its own rows (brute force, one ``fit_arrays`` per response)."""
+    names = list(mf.names)
+    res = mf.wald(system)
+    for j in range(ys.shape[1]):
+        obs = ~np.isnan(ys[:, j])
+        try:
+            one = lc.fit_arrays(
+                x[obs], ys[obs, j], names=names, weights=None if w is None else w[obs]
+            )
+        except DegenerateFitError:
+            assert res.status[j] == "too few rows"
+            continue
+        assert mf.n_obs.iloc[j] == one.n_obs and mf.rank.iloc[j] == one.rank
+        atol = 1e-9 * (np.abs(one.coefficients).max() if scaled_atol else 1.0)
+        np.testing.assert_allclose(
+            mf.coefficients.iloc[:, j], one.coefficients, rtol=1e-9, atol=atol
+        )
+        if rss:
+            np.testing.assert_allclose(mf.rss.iloc[j], one.rss, rtol=1e-9)
+        try:
+            ref = one.wald(system)
+        except NotEstimableError:
+            assert res.status[j] == "not estimable"
+            continue
+        except DegenerateFitError:
+            assert res.status[j] == "exact fit"
+            continue
+        assert res.status[j] == "ok"
+        np.testing.assert_allclose(res.stat[j], ref.stat, rtol=1e-8)
+        np.testing.assert_allclose(res.se[j], ref.se, rtol=1e-8)
+
+
 @settings(max_examples=30, deadline=None)
 @given(
     n=st.integers(8, 40),
@@ -517,31 +560,7 @@ def test_vectorized_equals_single_fits(
     mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
     # estimable under the aliasing c2 = 2·c1 (its columns enter as c1 + 2·c2)
     system = (lc.coef("c1") + 2 * lc.coef("c2") if p >= 2 else lc.coef("c1")) == 0.5
-    res = mf.wald(system)
-    for j in range(r):
-        obs = ~np.isnan(ys[:, j])
-        try:
-            one = lc.fit_arrays(
-                x[obs], ys[obs, j], names=names, weights=None if w is None else w[obs]
-            )
-        except DegenerateFitError:
-            assert res.status[j] == "too few rows"
-            continue
-        assert mf.n_obs.iloc[j] == one.n_obs and mf.rank.iloc[j] == one.rank
-        np.testing.assert_allclose(
-            mf.coefficients.iloc[:, j], one.coefficients, rtol=1e-9, atol=1e-9
-        )
-        try:
-            ref = one.wald(system)
-        except NotEstimableError:
-            assert res.status[j] == "not estimable"
-            continue
-        except DegenerateFitError:
-            assert res.status[j] == "exact fit"
-            continue
-        assert res.status[j] == "ok"
-        np.testing.assert_allclose(res.stat[j], ref.stat, rtol=1e-8)
-        np.testing.assert_allclose(res.se[j], ref.se, rtol=1e-8)
+    _check_single_fits(mf, system, x, ys, w)
 
 
 @settings(max_examples=30, deadline=None)
@@ -581,33 +600,7 @@ def test_own_rows_route_equals_single_fits(
     except DegenerateFitError:
         return
     system = lc.from_matrix(np.eye(x.shape[1])[-1:], [0.25])
-    res = mf.wald(system)
-    for j in range(r):
-        obs = ~np.isnan(ys[:, j])
-        try:
-            one = lc.fit_arrays(
-                x[obs], ys[obs, j], names=names, weights=None if w is None else w[obs]
-            )
-        except DegenerateFitError:
-            assert res.status[j] == "too few rows"
-            continue
-        assert mf.n_obs.iloc[j] == one.n_obs and mf.rank.iloc[j] == one.rank
-        scale = np.abs(one.coefficients).max()
-        np.testing.assert_allclose(
-            mf.coefficients.iloc[:, j], one.coefficients, rtol=1e-9, atol=1e-9 * scale
-        )
-        np.testing.assert_allclose(mf.rss.iloc[j], one.rss, rtol=1e-9)
-        try:
-            ref = one.wald(system)
-        except NotEstimableError:
-            assert res.status[j] == "not estimable"
-            continue
-        except DegenerateFitError:
-            assert res.status[j] == "exact fit"
-            continue
-        assert res.status[j] == "ok"
-        np.testing.assert_allclose(res.stat[j], ref.stat, rtol=1e-8)
-        np.testing.assert_allclose(res.se[j], ref.se, rtol=1e-8)
+    _check_single_fits(mf, system, x, ys, w, scaled_atol=True, rss=True)
 
 
 @settings(max_examples=25, deadline=None)
