@@ -56,7 +56,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._core.rows import ROW_TOL, analyze_rows
-from lincomb._core.solve import Solution
+from lincomb._core.solve import Solution, random_solution_doc
 from lincomb._core.triangular import safe_norm, triangular_factor
 from lincomb._core.wald import intercept_rotation, wald_from_root
 
@@ -65,6 +65,7 @@ __all__ = ["BatchCore", "root_rows", "wald_systems"]
 Array = NDArray[np.float64]
 
 
+@random_solution_doc
 @dataclass(frozen=True)
 class BatchCore:
     """Numbers of ``k`` Wald tests of ``m``-row systems, before names are attached.
@@ -98,11 +99,7 @@ class BatchCore:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb import _core as core
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> sol = core.solve(core.moments_from_arrays(x, rng.normal(size=30), intercept=0))
+    %(random_solution)s
     >>> c = np.zeros((2, 1, 3))
     >>> c[0, 0, 1] = c[1, 0, 2] = 1.0
     >>> out = wald_systems(sol, c, np.zeros((2, 1)), sol.root)
@@ -264,6 +261,7 @@ def _forward_quad(rv: Array, delta: Array) -> Array:
     return _dot(sol, sol)
 
 
+@random_solution_doc
 def wald_systems(
     sol: Solution,
     c: Array,
@@ -312,14 +310,9 @@ def wald_systems(
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb import _core as core
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 3))])
-    >>> y = x @ [1.0, 0.5, 0.0, -0.2] + rng.normal(size=30)
-    >>> sol = core.solve(core.moments_from_arrays(x, y, intercept=0))
+    %(random_solution)s
     >>> sigma = float(np.sqrt(sol.rss / sol.df_resid))
-    >>> c = np.zeros((3, 2, 4))
+    >>> c = np.zeros((3, 2, 3))
     >>> c[:, 0, 1] = 1.0; c[:, 1, 2] = 1.0        # b1 = b2 = 0 ...
     >>> c[2, 1] = c[2, 0]                          # ... but system 2 repeats its first row
     >>> out = wald_systems(sol, c, np.zeros((3, 2)), sigma=sigma)

@@ -13,9 +13,10 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.moments import Moments, _centre_in_place
+from lincomb._core.moments import RANDOM_DESIGN, Moments, _centre_in_place
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
+from lincomb._docstrings import fill_doc
 from lincomb.errors import InternalError
 
 __all__ = [
@@ -28,7 +29,13 @@ __all__ = [
 
 Array = NDArray[np.float64]
 
+#: Example set-up shared by the docstrings below: the random design of
+#: :data:`~lincomb._core.moments.RANDOM_DESIGN`, factored once.
+_FACTORED = RANDOM_DESIGN + "\n>>> f = factor_design(x, intercept=0)"
+_factored_doc = fill_doc(factored=_FACTORED)
 
+
+@_factored_doc
 @dataclass(frozen=True)
 class ResponseBlock:
     """Sufficient statistics of several responses fitted on one shared design.
@@ -51,11 +58,8 @@ class ResponseBlock:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-    >>> block = factor_design(x, intercept=0).project(np.column_stack([y, 2 * y, -y]))
+    %(factored)s
+    >>> block = f.project(np.column_stack([y, 2 * y, -y]))
     >>> block.count, block.qty.shape
     (3, (2, 3))
     """
@@ -69,16 +73,14 @@ class ResponseBlock:
     def count(self) -> int:
         return int(self.resid.shape[0])
 
+    @_factored_doc
     def take(self, cols: NDArray[np.intp]) -> ResponseBlock:
         """The responses at positions ``cols``.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> block = factor_design(x, intercept=0).project(np.column_stack([y, 2 * y, 3 * y]))
+        %(factored)s
+        >>> block = f.project(np.column_stack([y, 2 * y, 3 * y]))
         >>> part = block.take(np.array([2, 0]))
         >>> part.count, bool(np.isclose(part.resid[0], 3 * part.resid[1]))
         (2, True)
@@ -87,18 +89,16 @@ class ResponseBlock:
             self.qty[:, cols], self.resid[cols], self.center[cols], self.raw_norm[cols]
         )
 
+    @_factored_doc
     def finite(self) -> NDArray[np.bool_]:
         """Responses whose summaries are finite (a missing or infinite value propagates).
 
         Examples
         --------
-        >>> import numpy as np
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+        %(factored)s
         >>> bad = y.copy()
         >>> bad[3] = np.nan
-        >>> factor_design(x, intercept=0).project(np.column_stack([y, bad])).finite().tolist()
+        >>> f.project(np.column_stack([y, bad])).finite().tolist()
         [True, False]
         """
         return (
@@ -109,16 +109,13 @@ class ResponseBlock:
         )
 
     @staticmethod
+    @_factored_doc
     def concat(blocks: list[ResponseBlock], q: int) -> ResponseBlock:
         """Join blocks of responses (in order) into one.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> f = factor_design(x, intercept=0)
+        %(factored)s
         >>> both = ResponseBlock.concat([f.project(y), f.project(2 * y)], q=2)
         >>> both.count, bool(np.allclose(both.resid[1], 2 * both.resid[0]))
         (2, True)
@@ -133,6 +130,7 @@ class ResponseBlock:
         )
 
 
+@_factored_doc
 @dataclass(frozen=True)
 class DesignFactor:
     """QR factorization of a design, with its thin ``Q`` kept to project responses.
@@ -144,12 +142,8 @@ class DesignFactor:
 
     Examples
     --------
-    >>> import numpy as np
+    %(factored)s
     >>> from lincomb._core import solve
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-    >>> f = factor_design(x, intercept=0)
     >>> solve(f.moments).rank, f.moments.n
     (3, 20)
     """
@@ -165,6 +159,7 @@ class DesignFactor:
         do not modify)."""
         return self._q
 
+    @_factored_doc
     def project(self, y: Array) -> ResponseBlock:
         """Summarize responses ``y`` (n, b) against this design; ``y`` is not modified.
 
@@ -183,11 +178,8 @@ class DesignFactor:
 
         Examples
         --------
-        >>> import numpy as np
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> block = factor_design(x, intercept=0).project(y)
+        %(factored)s
+        >>> block = f.project(y)
         >>> rss = np.sum((y - x @ np.linalg.lstsq(x, y, rcond=None)[0]) ** 2)
         >>> bool(np.isclose(block.resid[0] ** 2, rss))
         True
@@ -195,6 +187,7 @@ class DesignFactor:
         with np.errstate(invalid="ignore", over="ignore"):  # NaN/inf propagate on purpose
             return self._project(np.asarray(y, dtype=np.float64))
 
+    @_factored_doc
     def project_finite(self, y: Array) -> tuple[NDArray[np.bool_], ResponseBlock]:
         """Set aside the responses holding a NaN or inf, and :meth:`project` the others.
 
@@ -205,11 +198,9 @@ class DesignFactor:
 
         Examples
         --------
-        >>> import numpy as np
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+        %(factored)s
         >>> y = rng.normal(size=(20, 3)); y[4, 1] = np.nan
-        >>> odd, block = factor_design(x, intercept=0).project_finite(y)
+        >>> odd, block = f.project_finite(y)
         >>> odd.tolist(), block.count
         ([False, True, False], 2)
         """
@@ -264,17 +255,14 @@ class DesignFactor:
         raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
         return ResponseBlock(qty=qty, resid=np.sqrt(resid2), center=center, raw_norm=raw)
 
+    @_factored_doc
     def response_moments(self, block: ResponseBlock, j: int) -> Moments:
         """The :class:`Moments` of ``[X y_j]`` for response ``j`` of ``block``.
 
         Examples
         --------
-        >>> import numpy as np
+        %(factored)s
         >>> from lincomb._core import solve
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-        >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-        >>> f = factor_design(x, intercept=0)
         >>> one = f.response_moments(f.project(np.column_stack([-y, y])), 1)
         >>> bool(np.allclose(solve(one).coefficients(), np.linalg.lstsq(x, y, rcond=None)[0]))
         True
@@ -405,6 +393,7 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     return DesignFactor(moments=moments, weights=w, _q=ext[:, 1:], _q_ext=ext)
 
 
+@_factored_doc
 def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Array, Array, Array]:
     """Coefficients and residual sums of squares of many responses on one solved design.
 
@@ -434,12 +423,8 @@ def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Ar
 
     Examples
     --------
-    >>> import numpy as np
+    %(factored)s
     >>> from lincomb._core import solve
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-    >>> f = factor_design(x, intercept=0)
     >>> block = f.project(np.column_stack([y, 3 * y]))
     >>> theta, rss, y_norm = solve_responses(f.moments, solve(f.moments), block)
     >>> bool(np.isclose(rss[1], 9 * rss[0])), theta.shape

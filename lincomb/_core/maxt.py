@@ -67,7 +67,7 @@ from lincomb._core.maxt_quadrature import (
     studentized_range_critical,
     studentized_range_tail,
 )
-from lincomb._core.maxt_sequential import SequentialRule
+from lincomb._core.maxt_sequential import SequentialRule, widen_bracket
 from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import InputError, IntegrationAccuracyWarning, InternalError
 
@@ -658,15 +658,7 @@ def _root(
     def gap(c: float) -> float:
         return alpha - float(integ.tail(np.array([c]), points)[0][0])
 
-    width = b - a
-    for _ in range(60):
-        if gap(a) <= 0:
-            break
-        a, width = max(a - width, 1e-8), 2 * width
-    for _ in range(60):
-        if gap(b) >= 0:
-            break
-        b, width = b + width, 2 * width
+    a, b = widen_bracket(gap, a, b)
     return float(optimize.brentq(gap, a, b, xtol=xtol, rtol=1e-13))
 
 

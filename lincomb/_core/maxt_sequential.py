@@ -46,7 +46,7 @@ from scipy import optimize, special
 from lincomb._core.maxt_pairs import ControlCurve, PairsControl
 from lincomb._settings import blas_limit, worker_threads
 
-__all__ = ["SequentialRule", "chi_nodes"]
+__all__ = ["SequentialRule", "chi_nodes", "widen_bracket"]
 
 Array = NDArray[np.float64]
 #: A standard-error target: one value, one per threshold, or a function of the tails.
@@ -623,6 +623,28 @@ class SequentialRule:
         return crit, crit_se, se_tail, int(counts[0]), bool(reached[0])
 
 
+def widen_bracket(f: Callable[[float], float], lo: float, hi: float) -> tuple[float, float]:
+    """``[lo, hi]`` widened until the increasing ``f`` changes sign over it (for Brent's
+    method): an end that does not bracket moves out by the current width, which doubles each
+    time (at most 60 times each way; ``lo`` stays at 1e-8 or above, thresholds are positive).
+
+    Examples
+    --------
+    >>> widen_bracket(lambda c: c - 10.0, 1.0, 2.0)
+    (1.0, 17.0)
+    """
+    width = hi - lo
+    for _ in range(60):
+        if f(lo) <= 0:
+            break
+        lo, width = max(lo - width, 1e-8), 2 * width
+    for _ in range(60):
+        if f(hi) >= 0:
+            break
+        hi, width = hi + width, 2 * width
+    return lo, hi
+
+
 def _first_root(gap: Callable[[Array], Array], lo: float, hi: float) -> float:
     """A root of an increasing function: the bracket widened if needed, then Brent's method
     to a relative 1e-3 (the per-scramble parabolas, 5e-3 wide, correct the rest)."""
@@ -630,15 +652,7 @@ def _first_root(gap: Callable[[Array], Array], lo: float, hi: float) -> float:
     def one(c: float) -> float:
         return float(gap(np.array([c]))[0])
 
-    width = hi - lo
-    for _ in range(60):
-        if one(lo) <= 0:
-            break
-        lo, width = max(lo - width, 1e-8), 2 * width
-    for _ in range(60):
-        if one(hi) >= 0:
-            break
-        hi, width = hi + width, 2 * width
+    lo, hi = widen_bracket(one, lo, hi)
     return float(optimize.brentq(one, lo, hi, xtol=1e-3 * lo, rtol=1e-10))
 
 

@@ -16,13 +16,23 @@ from numpy.typing import NDArray
 
 from lincomb._core.merge import merge_tree
 from lincomb._core.triangular import row_pivoted_factor, safe_norm, triangular_factor
+from lincomb._docstrings import fill_doc
 from lincomb._settings import blas_limit, can_limit, worker_threads
 
 __all__ = ["Moments", "moments_from_arrays"]
 
 Array = NDArray[np.float64]
 
+#: Example set-up shared by docstrings of the core: 20 random rows of an intercept and two
+#: covariates, and a response on them.
+RANDOM_DESIGN = """\
+>>> import numpy as np
+>>> rng = np.random.default_rng(0)
+>>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
+>>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)"""
 
+
+@fill_doc(random_design=RANDOM_DESIGN)
 @dataclass(frozen=True)
 class Moments:
     """Sufficient statistics of a weighted least-squares problem (see :mod:`lincomb._core`).
@@ -46,10 +56,7 @@ class Moments:
 
     Examples
     --------
-    >>> import numpy as np
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+    %(random_design)s
     >>> m = moments_from_arrays(x, y, intercept=0)
     >>> m.n, m.p, m.others.tolist(), m.r.shape
     (20, 3, [1, 2], (3, 3))

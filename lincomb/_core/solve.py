@@ -15,7 +15,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
-from lincomb._core.moments import Moments
+from lincomb._core.moments import RANDOM_DESIGN, Moments
 from lincomb._core.triangular import safe_norm, upper_solve
 from lincomb._docstrings import fill_doc
 
@@ -34,14 +34,14 @@ CONSTANT_TOL: float = 64 * float(np.finfo(np.float64).eps)
 SUPPORT_FLOOR: float = 1e-6
 
 
-#: Example set-up: a solution of a random design with an intercept and two covariates.
-_RANDOM_SOLUTION = """\
->>> import numpy as np
->>> from lincomb._core import moments_from_arrays
->>> rng = np.random.default_rng(0)
->>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
->>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
+#: Example set-up shared by docstrings of the core: the solution of the random design of
+#: :data:`~lincomb._core.moments.RANDOM_DESIGN`.
+RANDOM_SOLUTION = (
+    RANDOM_DESIGN
+    + """
+>>> from lincomb._core import moments_from_arrays, solve
 >>> sol = solve(moments_from_arrays(x, y, intercept=0))"""
+)
 #: Example set-up: a solution with an aliased column (two indicators that sum to the intercept).
 _ALIASED_SOLUTION = """\
 >>> import numpy as np
@@ -49,11 +49,12 @@ _ALIASED_SOLUTION = """\
 >>> a = np.array([1.0, 1, 0, 0, 0, 0])
 >>> x = np.column_stack([np.ones(6), a, 1 - a, [1.0, 2, 3, 4, 5, 7]])  # a + b = 1
 >>> sol = solve(moments_from_arrays(x, np.arange(6.0) ** 1.5, intercept=0))"""
-_random_doc = fill_doc(random_solution=_RANDOM_SOLUTION)
+#: Fills ``%(random_solution)s`` lines (with :data:`RANDOM_SOLUTION`) in the core's docstrings.
+random_solution_doc = fill_doc(random_solution=RANDOM_SOLUTION)
 _aliased_doc = fill_doc(aliased_solution=_ALIASED_SOLUTION)
 
 
-@_random_doc
+@random_solution_doc
 @dataclass(frozen=True)
 class Solution:
     """A least-squares solution with its rank decision, in working coordinates.
@@ -123,7 +124,7 @@ class Solution:
     def df_resid(self) -> int:
         return self.n - self.rank
 
-    @_random_doc
+    @random_solution_doc
     def to_working(self, c: Array) -> Array:
         """Map rows of ``C`` (m, p) on ``β`` to working coordinates ``u`` (all p columns).
 
@@ -222,7 +223,7 @@ class Solution:
             beta[self.intercept] -= self.center @ beta
         return beta
 
-    @_random_doc
+    @random_solution_doc
     def root(self, cu_kept: Array) -> Array:
         """``R⁻ᵀ C_keptᵀ``: the classical covariance of ``Cβ̂`` is ``σ² rootᵀ root``.
 

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from lincomb._core.solve import Solution
+from lincomb._core.solve import Solution, random_solution_doc
 from lincomb._core.triangular import plain_norm, safe_norm, triangular_factor, upper_solve
 
 __all__ = ["WaldCore", "intercept_rotation", "restricted_step", "wald_from_root"]
@@ -95,6 +95,7 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     return WaldCore(std_error=se, statistic_rows=stat, quad=quad, rank=q, chol=chol)
 
 
+@random_solution_doc
 def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array, Array]:
     """Change of working coefficients imposed by ``C_K u = d_K``, and the residual projector.
 
@@ -120,12 +121,7 @@ def restricted_step(sol: Solution, root_k: Array, delta_k: Array) -> tuple[Array
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import moments_from_arrays, solve
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(20), rng.normal(size=(20, 2))])
-    >>> y = x @ [1.0, 2.0, -1.0] + rng.normal(size=20)
-    >>> sol = solve(moments_from_arrays(x, y, intercept=0))
+    %(random_solution)s
     >>> cu = sol.to_working(np.array([[0.0, 1.0, -1.0]]))[:, sol.kept]  # β1 - β2 = 3
     >>> step, w = restricted_step(sol, sol.root(cu), cu @ sol.theta - 3.0)
     >>> bool(np.allclose(cu @ (sol.theta + step), 3.0)), w.shape
