@@ -91,7 +91,8 @@ below, and other layers import them from there.
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
   :mod:`~lincomb._covariance.given`: a supplied matrix;
 * :mod:`~lincomb._covariance.cache`: each row-based estimate computed once per fit and
-  estimator, so repeated tests, intervals and tables do not visit the rows again.
+  estimator, so repeated tests, intervals and tables do not visit the rows again;
+  :mod:`~lincomb._covariance.examples`: the two fits the layer's examples start from.
 
 References
 ----------
