@@ -35,6 +35,7 @@ import numpy as np
 import pandas as pd
 
 from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.examples import LINES_FIT
 from lincomb._covariance.few_clusters import recorded_warnings, warn_few_clusters
 from lincomb._covariance.specs import (
     Clustered,
@@ -54,10 +55,9 @@ __all__ = ["KEPT_PER_FIT", "evaluate_once", "forget"]
 KEPT_PER_FIT: int = 8
 
 #: The set-up of this module's examples: a fit and its HC3 estimate, asked for once.
-_HC3_ONCE = """\
->>> import lincomb as lc
+_HC3_ONCE = f"""\
+{LINES_FIT}
 >>> from lincomb._covariance.specs import as_estimator
->>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
 >>> first = evaluate_once(f, as_estimator("HC3"))"""
 _once_doc = fill_doc(hc3_once=_HC3_ONCE)
 

@@ -31,6 +31,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._covariance.examples import sites_doc
 from lincomb._covariance.meats import LEVERAGE_TOL, Partial, _group_sum, _Meat
 
 __all__ = ["ClusterBlocks", "ClusterPieces", "ClusterBlockMeat", "adjustment"]
@@ -154,14 +155,14 @@ class ClusterBlockMeat(_Meat):
         return ClusterPieces(hat, np.ascontiguousarray(scores))
 
 
+@sites_doc
 def pieces_of(fit: Any, by: Any) -> ClusterPieces:
     """The per-cluster pieces of an in-memory fit clustered by ``by`` (a column name, a Series
     aligned with the data, or one label per row used).
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> pieces_of(f, "site").clusters
     40
     """

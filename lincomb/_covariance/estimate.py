@@ -17,6 +17,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._covariance.examples import lines_doc, sites_doc
 from lincomb.errors import SingularCovarianceError
 
 __all__ = [
@@ -38,6 +39,7 @@ MEAT_RANK_TOL: float = 1e-12
 COV_RANK_TOL: float = 1e-9
 
 
+@sites_doc
 @dataclass(frozen=True, eq=False)
 class CovarianceEstimate:
     """A covariance estimator evaluated on one fit, ready for any number of tests.
@@ -70,8 +72,7 @@ class CovarianceEstimate:
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> from lincomb._covariance.estimators import evaluate
     >>> est = evaluate(f, lc.clustered(by="site"))
     >>> est.method, est.groups, est.df_error
@@ -92,26 +93,27 @@ class CovarianceEstimate:
     _small_sample: Any = field(default=None, repr=False)
 
     @property
+    @lines_doc
     def per_test_df(self) -> bool:
         """Whether each test gets its own small-sample df (see the class docstring).
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        %(lines_fit)s
         >>> from lincomb._covariance.estimators import evaluate
         >>> evaluate(f, "HC3").per_test_df
         False
         """
         return self._small_sample is not None
 
+    @sites_doc
     def test_df(self, cu_kept: Array, independent: NDArray[np.intp]) -> tuple[Array, float]:
         """Small-sample df of each row and the Hotelling ``η`` of the independent rows.
 
         Examples
         --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        >>> import numpy as np
+        %(sites_fit)s
         >>> from lincomb._covariance.estimators import evaluate
         >>> est = evaluate(f, lc.clustered(by="site", adjust="bias-reduced"))
         >>> sol = f.solution
@@ -127,26 +129,27 @@ class CovarianceEstimate:
         return rows, float(eta)
 
     @property
+    @lines_doc
     def solution(self) -> core.Solution | None:
         """The solution of the fit this estimate was evaluated on (it applies to no other).
 
         Examples
         --------
-        >>> import lincomb as lc
+        %(lines_fit)s
         >>> from lincomb._covariance.estimators import evaluate
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
         >>> evaluate(f, "HC3").solution is f.solution
         True
         """
         return self._sol
 
+    @lines_doc
     def root(self, cu_kept: Array) -> Array:
         """A matrix ``W`` with ``Cov(Cβ̂) = WᵀW`` for rows ``cu_kept`` (working, kept columns).
 
         Examples
         --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        >>> import numpy as np
+        %(lines_fit)s
         >>> sol = f.solution
         >>> cu = sol.to_working(np.eye(5))[:, sol.kept]
         >>> from lincomb._covariance.estimators import evaluate

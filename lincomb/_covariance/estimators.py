@@ -91,7 +91,8 @@ below, and other layers import them from there.
   :mod:`~lincomb._covariance.few_clusters`: the few-clusters warning;
   :mod:`~lincomb._covariance.given`: a supplied matrix;
 * :mod:`~lincomb._covariance.cache`: each row-based estimate computed once per fit and
-  estimator, so repeated tests, intervals and tables do not visit the rows again.
+  estimator, so repeated tests, intervals and tables do not visit the rows again;
+  :mod:`~lincomb._covariance.examples`: the two fits the layer's examples start from.
 
 References
 ----------
@@ -120,6 +121,7 @@ from numpy.typing import NDArray
 
 from lincomb._covariance.cache import evaluate_once
 from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.examples import lines_doc, sites_doc
 from lincomb._covariance.specs import as_estimator
 from lincomb.errors import IncompatibleFitError
 
@@ -129,14 +131,14 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["evaluate"]
 
 
+@sites_doc
 def coefficient_df(sol: Any, estimate: CovarianceEstimate) -> NDArray[np.float64]:
     """Small-sample df of each coefficient under an estimate with per-test df (NaN where the
     coefficient is aliased).
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> est = evaluate(f, lc.clustered(by="site", adjust="bias-reduced"))
     >>> coefficient_df(f.solution, est).shape
     (3,)
@@ -148,13 +150,13 @@ def coefficient_df(sol: Any, estimate: CovarianceEstimate) -> NDArray[np.float64
     return out
 
 
+@lines_doc
 def evaluate(fit: LinearFit, covariance: object) -> CovarianceEstimate:
     """Evaluate an estimator (or check an already evaluated one) on ``fit``.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    %(lines_fit)s
     >>> est = evaluate(f, "HC3")
     >>> est, evaluate(f, est) is est
     (<CovarianceEstimate: HC3; reference df 295>, True)

@@ -7,6 +7,7 @@ with the map from the basic solution's kept coefficients to working coordinates.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -19,7 +20,7 @@ from lincomb.errors import CovarianceInputError
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["SYMMETRY_TOL", "PSD_TOL", "given_estimate"]
+__all__ = ["SYMMETRY_TOL", "PSD_TOL", "given_estimate", "refuse_nonfinite"]
 
 Array = NDArray[np.float64]
 
@@ -49,6 +50,29 @@ def given_estimate(fit: LinearFit, matrix: Any, df: float | None) -> CovarianceE
         _factor=factor,
         _direct=bmap,
     )
+
+
+def refuse_nonfinite(v: Array, labels: Sequence[str], what: str, allowed: str) -> None:
+    """Raise :class:`~lincomb.errors.CovarianceInputError` naming the first non-finite entry
+    of a supplied covariance ``v`` (rows and columns shown as ``labels``), how many others
+    there are, and what is ``allowed``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> refuse_nonfinite(np.eye(2), ["a", "b"], "V", "all must be finite.")  # finite: passes
+    >>> refuse_nonfinite(np.array([[1.0, np.inf], [np.inf, 1.0]]), ["a", "b"], "V", "no.")
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.CovarianceInputError: V holds inf at (a, b) and 1 other non-finite entries; no.
+    """
+    bad = np.argwhere(~np.isfinite(v))
+    if bad.size:
+        i, j = (int(t) for t in bad[0])
+        raise CovarianceInputError(
+            f"{what} holds {float(v[i, j])!r} at ({labels[i]}, {labels[j]}) and"
+            f" {len(bad) - 1} other non-finite entries; {allowed}"
+        )
 
 
 def _given_block(fit: LinearFit, matrix: Any) -> Array:
@@ -90,14 +114,12 @@ def _given_block(fit: LinearFit, matrix: Any) -> Array:
             )
     kept = sol.kept
     v = m[np.ix_(kept, kept)]
-    bad = np.argwhere(~np.isfinite(v))
-    if bad.size:
-        i, j = (int(t) for t in bad[0])
-        raise CovarianceInputError(
-            f"the given covariance holds {float(v[i, j])!r} at ({names[kept[i]]!r},"
-            f" {names[kept[j]]!r}); only rows and columns of aliased coefficients may be"
-            " non-finite."
-        )
+    refuse_nonfinite(
+        v,
+        [repr(names[c]) for c in kept],
+        "the given covariance",
+        "only rows and columns of aliased coefficients may be non-finite.",
+    )
     big = float(np.abs(v).max()) if v.size else 0.0
     asym = float(np.abs(v - v.T).max()) if v.size else 0.0
     if asym > SYMMETRY_TOL * big:

@@ -56,6 +56,7 @@ __all__ = [
     "SerialMeat",
     "bartlett_meat",
     "leverage_weights",
+    "scores",
 ]
 
 Array = NDArray[np.float64]
@@ -169,6 +170,18 @@ def _working(rs: Array, xc: Array) -> Array:
     return np.asarray(sla.blas.dtrsm(1.0, rs, xf, side=1, overwrite_b=1)).T
 
 
+def scores(zt: Array, resid: Array) -> Array:
+    """The scores ``g_i = z_i ẽ_i`` (b, k), row-major, of a block's working rows ``zt`` (k, b).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> scores(np.array([[1.0, 2.0], [3.0, 4.0]]), np.array([10.0, -1.0])).tolist()
+    [[10.0, 30.0], [-2.0, -4.0]]
+    """
+    return np.ascontiguousarray((zt * resid).T)
+
+
 def _bartlett_weight(ell: int, lag: int) -> float:
     """The Bartlett weight ``1 − ℓ/(lag+1)`` of the lag-``ℓ`` products."""
     return 1.0 - ell / (lag + 1.0)
@@ -239,6 +252,27 @@ class _Meat:
         self.df_error = float(fit.df_error)
         self.rs: Array = self.sol.r * self.sol.scale[self.sol.kept]
 
+    def block(
+        self,
+        xc: Array,
+        resid: Array,
+        w: Array | None,
+        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - for the meats that override this
+    ) -> Partial:
+        """The partial of one block of rows: by default :meth:`_from_working` of its rows in
+        working coordinates (meats that need the labels or centred scores have their own)."""
+        return self._from_working(*self._working_rows(xc, resid, w))
+
+    def _working_rows(self, xc: Array, resid: Array, w: Array | None) -> tuple[Array, Array]:
+        """The block's weighted rows in working coordinates, ``Zᵀ`` (k, b), and its weighted
+        residuals ``ẽ``."""
+        xc, resid = _weighted(xc, resid, w)
+        return _working(self.rs, xc), resid
+
+    def _from_working(self, zt: Array, resid: Array) -> Partial:
+        """The partial of a block from ``Zᵀ`` (k, b, the block's own array) and ``ẽ``."""
+        raise NotImplementedError  # pragma: no cover - a meat has this or its own block
+
     def merge(self, *parts: Partial) -> Partial:
         """Combine the partials of disjoint blocks of rows."""
         raise NotImplementedError  # pragma: no cover - each meat has its own
@@ -283,16 +317,8 @@ class HeteroskedasticMeat(_Meat):
         super().__init__(fit)
         self.kind = kind
 
-    def block(
-        self,
-        xc: Array,
-        resid: Array,
-        w: Array | None,
-        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
-    ) -> Partial:
+    def _from_working(self, zt: Array, resid: Array) -> Partial:
         """The block's ``Σ ω_i z_i z_iᵀ`` (HC1's factor is applied at the end)."""
-        xc, resid = _weighted(xc, resid, w)
-        zt = _working(self.rs, xc)
         scale = np.abs(resid)  # ω_i = scale_i²
         if self.kind in ("HC2", "HC3", "HC4"):
             scale *= _root_weights(self.kind, zt, self.n_obs, self.k)
@@ -477,16 +503,9 @@ class SerialMeat(_LaggedMeat):
         super().__init__(fit, lag, small_sample, df)
         self.order_name = order_name
 
-    def block(
-        self,
-        xc: Array,
-        resid: Array,
-        w: Array | None,
-        labels: tuple[NDArray[Any], ...] = (),  # noqa: ARG002 - one signature for every meat
-    ) -> Partial:
+    def _from_working(self, zt: Array, resid: Array) -> Partial:
         """``Γ₀ + Σ_ℓ w_ℓ (Γ_ℓ + Γ_ℓᵀ)`` over the pairs of rows inside the block."""
-        xc, resid = _weighted(xc, resid, w)
-        s = np.ascontiguousarray((_working(self.rs, xc) * resid).T)  # scores (b, k)
+        s = scores(zt, resid)
         meat = bartlett_meat(s, self.lag)
         lag = self.lag
         return Partial(resid.size, float(resid @ resid), meat, head=s[:lag], tail=s[-lag:][:lag])

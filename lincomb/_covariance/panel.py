@@ -35,9 +35,8 @@ from lincomb._covariance.meats import (
     _group_sum,
     _LaggedMeat,
     _merge_groups,
-    _weighted,
-    _working,
     bartlett_meat,
+    scores,
 )
 from lincomb.errors import CovarianceInputError
 
@@ -68,8 +67,8 @@ class UnitSerialMeat(_LaggedMeat):
         self, xc: Array, resid: Array, w: Array | None, labels: tuple[NDArray[Any], ...] = ()
     ) -> Partial:
         """The whole meat (rows in unit and time order; ``labels[0]`` the unit codes)."""
-        xc, resid = _weighted(xc, resid, w)
-        s = np.ascontiguousarray((_working(self.rs, xc) * resid).T)
+        zt, resid = self._working_rows(xc, resid, w)
+        s = scores(zt, resid)
         unit = labels[0]
         same = [unit[ell:] == unit[:-ell] for ell in range(1, min(self.lag, s.shape[0] - 1) + 1)]
         return Partial(resid.size, float(resid @ resid), bartlett_meat(s, self.lag, same))

@@ -23,6 +23,7 @@ from numpy.typing import ArrayLike
 from lincomb._covariance import in_memory
 from lincomb._covariance.bias_reduced import ADJUSTMENTS
 from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._covariance.examples import lines_doc, sites_doc
 from lincomb._covariance.given import given_estimate
 from lincomb.errors import CovarianceInputError
 
@@ -64,19 +65,20 @@ class Estimator:
     (True, True)
     """
 
+    @lines_doc
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:  # pragma: no cover - abstract
         """Evaluate this estimator on ``fit`` (subclasses implement it).
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+        %(lines_fit)s
         >>> as_estimator("HC1").evaluate(f)
         <CovarianceEstimate: HC1; reference df 295>
         """
         raise NotImplementedError
 
 
+@lines_doc
 @dataclass(frozen=True)
 class Classical(Estimator):
     """``σ² (X̃ᵀX̃)⁻¹``: the covariance under constant error variance (the default).
@@ -85,8 +87,7 @@ class Classical(Estimator):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    %(lines_fit)s
     >>> Classical().evaluate(f)
     <CovarianceEstimate: classical; reference df 295>
     """
@@ -102,6 +103,7 @@ class Classical(Estimator):
         )
 
 
+@lines_doc
 @dataclass(frozen=True)
 class Heteroskedastic(Estimator):
     """One of the heteroskedasticity-consistent sandwiches ``HC0`` to ``HC4``.
@@ -111,8 +113,7 @@ class Heteroskedastic(Estimator):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    %(lines_fit)s
     >>> f.wald(lc.term("line") == 0, covariance=Heteroskedastic("HC2")).covariance
     'HC2'
     """
@@ -131,14 +132,14 @@ class Heteroskedastic(Estimator):
         return in_memory.heteroskedastic(fit, self.kind)
 
 
+@sites_doc
 @dataclass(frozen=True, eq=False)
 class Clustered(Estimator):
     """Cluster-robust covariance; build it with :func:`clustered`.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> lc.clustered(by="site").evaluate(f)
     <CovarianceEstimate: cluster by site (40 groups); reference df 39>
     """
@@ -180,14 +181,14 @@ class Serial(Estimator):
         return in_memory.serial(fit, self.lag, self.order, self.small_sample, self.df, self.units)
 
 
+@sites_doc
 @dataclass(frozen=True, eq=False)
 class CommonShocks(Estimator):
     """Newey–West on scores summed per time point; build it with :func:`common_shocks`.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> lc.common_shocks(time="week", lag=2).evaluate(f)
     <CovarianceEstimate: common shocks by week (26 time points; Bartlett, lag 2); reference df 25>
     """
@@ -202,6 +203,7 @@ class CommonShocks(Estimator):
         return in_memory.common_shocks(fit, self.time, self.lag, self.small_sample, self.df)
 
 
+@lines_doc
 @dataclass(frozen=True, eq=False)
 class Given(Estimator):
     """A covariance matrix of the coefficients supplied by the user; build it with
@@ -209,8 +211,7 @@ class Given(Estimator):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
+    %(lines_fit)s
     >>> lc.given(f.covariance("HC3"), df=100).evaluate(f)
     <CovarianceEstimate: given matrix; reference df 100>
     """
@@ -225,6 +226,7 @@ class Given(Estimator):
 # -- public constructors --------------------------------------------------------------------
 
 
+@sites_doc
 def clustered(
     by: str | ArrayLike | pd.Series | Sequence[Any],
     *,
@@ -289,8 +291,7 @@ def clustered(
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.clustered(by="site"))
     >>> res.covariance, res.df_error
     ('cluster by site (40 groups)', 39.0)
@@ -399,6 +400,7 @@ def serial(
     return Serial(lag=lag, order=order, small_sample=bool(small_sample), df=df, units=units)
 
 
+@sites_doc
 def common_shocks(
     time: str | ArrayLike | pd.Series,
     *,
@@ -437,8 +439,7 @@ def common_shocks(
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> res = f.wald(lc.coef("staffing") == 0, covariance=lc.common_shocks(time="week"))
     >>> res.covariance, res.df_error
     ('common shocks by week (26 time points; Bartlett, lag 2)', 25.0)

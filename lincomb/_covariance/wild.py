@@ -48,6 +48,7 @@ from numpy.typing import ArrayLike, NDArray
 from lincomb import _core as core
 from lincomb._core.checks import check_level
 from lincomb._covariance.cluster_blocks import pieces_of
+from lincomb._covariance.examples import sites_doc
 from lincomb._settings import blas_limit, can_limit
 from lincomb.errors import CovarianceInputError, InputError, SingularCovarianceError
 
@@ -254,6 +255,7 @@ def draw_statistics(
     return obs, _stats(prep, np.asarray(weights, dtype=np.float64))
 
 
+@sites_doc
 @dataclass(frozen=True)
 class WildBootstrapTest:
     """A wild cluster bootstrap test of ``C·β = d`` (see :func:`wild_bootstrap`).
@@ -288,8 +290,7 @@ class WildBootstrapTest:
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> res = lc.wild_bootstrap(f, lc.coef("staffing") == 0, by="site", draws=999, seed=1)
     >>> res.draws, res.weights, res.enumerated
     (999, 'rademacher', False)
@@ -314,6 +315,7 @@ class WildBootstrapTest:
     _setup: Any = field(default=None, repr=False)
     _w: Any = field(default=None, repr=False)
 
+    @sites_doc
     def interval(self, row: int = 0, level: float = 0.95) -> pd.DataFrame:
         """Confidence interval for one row's ``Cβ`` by inverting the bootstrap test.
 
@@ -325,8 +327,7 @@ class WildBootstrapTest:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        %(sites_fit)s
         >>> res = lc.wild_bootstrap(f, lc.coef("staffing") == 0, by="site", draws=999, seed=1)
         >>> ci = res.interval(0, 0.9)
         >>> bool(ci["lower"].iloc[0] < res.estimate[0] < ci["upper"].iloc[0])
@@ -381,6 +382,7 @@ class WildBootstrapTest:
             index=pd.Index([self.labels[row]], name="restriction"),
         )
 
+    @sites_doc
     def to_frame(self) -> pd.DataFrame:
         """One row for the test.
 
@@ -390,8 +392,7 @@ class WildBootstrapTest:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+        %(sites_fit)s
         >>> res = lc.wild_bootstrap(f, lc.coef("staffing") == 0, by="site", draws=99, seed=1)
         >>> list(res.to_frame().columns)[:4]
         ['restrictions', 'rank', 'stat', 'p']
@@ -438,6 +439,7 @@ class WildBootstrapTest:
         return f"<table><caption>Wild cluster bootstrap test</caption>{rows}</table>"
 
 
+@sites_doc
 def wild_bootstrap(
     fit: LinearFit,
     restrictions: object,
@@ -492,8 +494,7 @@ def wild_bootstrap(
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("wait_min ~ staffing + protocol", lc.datasets.service_sites())
+    %(sites_fit)s
     >>> res = lc.wild_bootstrap(f, lc.coef("staffing") == 0, by="site", draws=999, seed=3)
     >>> 0 <= res.p <= 1 and res.mc_error < 0.02
     True

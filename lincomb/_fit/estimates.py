@@ -33,6 +33,7 @@ from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
+from lincomb._covariance.given import refuse_nonfinite
 from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
@@ -409,13 +410,7 @@ def _covariance(covariance: ArrayLike | pd.DataFrame, names: list[str]) -> NDArr
         raise CovarianceInputError(
             f"the covariance must be {k} × {k} for {k} estimates; got shape {v.shape}."
         )
-    nonfinite = np.argwhere(~np.isfinite(v))
-    if nonfinite.size:
-        i, j = (int(t) for t in nonfinite[0])
-        raise CovarianceInputError(
-            f"the covariance holds {v[i, j]} at ({names[i]}, {names[j]}) and"
-            f" {len(nonfinite) - 1} other non-finite entries; every entry must be finite."
-        )
+    refuse_nonfinite(v, names, "the covariance", "every entry must be finite.")
     diag = np.diag(v)
     neg = np.flatnonzero(diag < 0)
     if neg.size:
