@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 
 from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
 from lincomb._results.format import TableRepr, _num
+from lincomb._results.frames import field_frame
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -439,10 +440,7 @@ class PowerCurve(TableRepr):
         0      4       2
         1     10       8
         """
-        return pd.DataFrame(
-            {c: getattr(self, c) for c in CURVE_COLUMNS},  # fields of that name
-            columns=list(CURVE_COLUMNS),
-        )
+        return field_frame(self, CURVE_COLUMNS)
 
     @fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS, two_group_plan=TWO_GROUP_PLAN)
     def plot(self, ax: Axes | None = None) -> Figure:

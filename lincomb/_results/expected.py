@@ -216,19 +216,20 @@ def _new_weights(fit: LinearFit, new: pd.DataFrame, weights: Any) -> Array | Non
 
 def expected_values(
     fit: LinearFit,
-    new: pd.DataFrame | None = None,
+    new: pd.DataFrame | None,
     *,
-    weights: ArrayLike | str | None = None,
-    covariance: object = None,
-    reference: str = "F",
+    weights: ArrayLike | str | None,
+    covariance: object,
+    reference: str,
 ) -> ExpectedValues:
-    """The computation behind :meth:`LinearFit.expected <lincomb.LinearFit.expected>`.
+    """The computation behind :meth:`LinearFit.expected <lincomb.LinearFit.expected>`, which
+    documents the arguments and holds their defaults.
 
     Examples
     --------
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> expected_values(f).rows.size
+    >>> expected_values(f, None, weights=None, covariance=None, reference="F").rows.size
     300
     """
     ref = check_reference(reference)

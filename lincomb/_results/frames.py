@@ -13,6 +13,7 @@ Columns of ``test_frame()`` (one row per test; the same leading columns): :data:
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -25,7 +26,7 @@ from lincomb._core.checks import check_level
 from lincomb._docstrings import fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
-__all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
+__all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult", "field_frame"]
 
 #: The parameters and return of ``as_markdown`` / ``as_latex`` / ``as_html`` (numpydoc sections).
 _REPORT_PARAMETERS = """\
@@ -97,6 +98,22 @@ RESULT_ATTRIBUTES = (
 )
 
 Array = NDArray[np.float64]
+
+
+def field_frame(result: object, columns: Sequence[str], **renamed: str) -> pd.DataFrame:
+    """A tidy frame whose columns are a result's fields of the same names, in ``columns`` order.
+
+    ``renamed`` maps a column to the field it comes from where the names differ
+    (``row="rows"``).  A scalar field fills its column.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> res = SimpleNamespace(terms=("a", "b"), p=[0.5, 0.01], reference="F")
+    >>> field_frame(res, ("term", "p", "reference"), term="terms").values.tolist()
+    [['a', 0.5, 'F'], ['b', 0.01, 'F']]
+    """
+    return pd.DataFrame({c: getattr(result, renamed.get(c, c)) for c in columns})
 
 
 def _row_tail(ratio: Array, df_error: Array) -> Array:

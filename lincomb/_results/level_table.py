@@ -314,19 +314,21 @@ def level_mean_table(
     fit: LinearFit,
     factors: str | Sequence[str],
     *,
-    holding: Mapping[str, Any] | None = None,
-    covariates: str = "mean",
-    weighting: str = "equal",
-    covariance: object = None,
-    reference: str = "F",
+    holding: Mapping[str, Any] | None,
+    covariates: str,
+    weighting: str,
+    covariance: object,
+    reference: str,
 ) -> LevelMeanTable:
-    """The computation behind :meth:`LinearFit.level_means`.
+    """The computation behind :meth:`LinearFit.level_means`, which documents the arguments and
+    holds their defaults.
 
     Examples
     --------
     >>> import lincomb as lc
     >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> level_mean_table(f, "line").estimate.shape
+    >>> options = {"covariates": "mean", "weighting": "equal", "covariance": None}
+    >>> level_mean_table(f, "line", holding=None, reference="F", **options).estimate.shape
     (4,)
     """
     encoder = fit.design.encoder

@@ -568,17 +568,18 @@ def _scheffe_p(t: Array, q: int, df: float) -> Array:
 
 def adjust_wald(
     wald: WaldTest,
-    method: str = "holm",
+    method: str,
     *,
-    redundant: str = "keep",
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
-    rate: float = 0.05,
+    redundant: str,
+    tol: float,
+    seed: int,
+    max_points: int,
+    rate: float,
 ) -> MultipleInference:
-    """Adjusted p-values for the rows of a Wald test (see :meth:`WaldTest.adjust
-    <lincomb.results.WaldTest.adjust>`); ``rate`` is the false discovery rate of the
-    adaptive Benjamini–Hochberg method (see :func:`adjust_pvalues`)."""
+    """Adjusted p-values for the rows of a Wald test: the computation behind
+    :meth:`WaldTest.adjust <lincomb.results.WaldTest.adjust>`, which documents the arguments
+    and holds their defaults; ``rate`` is the false discovery rate of the adaptive
+    Benjamini–Hochberg method (see :func:`adjust_pvalues`)."""
     key = _canonical(method, WALD_P_METHODS, "p-value")
     fam = _family(wald, redundant)
     k = fam["keep"]
@@ -609,16 +610,17 @@ def adjust_wald(
 
 def simultaneous_wald(
     wald: WaldTest,
-    method: str = "max-t",
-    level: float = 0.95,
+    method: str,
+    level: float,
     *,
-    redundant: str = "keep",
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
+    redundant: str,
+    tol: float,
+    seed: int,
+    max_points: int,
 ) -> MultipleInference:
-    """Simultaneous intervals for the rows of a Wald test (see :meth:`WaldTest.simultaneous
-    <lincomb.results.WaldTest.simultaneous>`)."""
+    """Simultaneous intervals for the rows of a Wald test: the computation behind
+    :meth:`WaldTest.simultaneous <lincomb.results.WaldTest.simultaneous>`, which documents the
+    arguments and holds their defaults."""
     key = _canonical(method, INTERVAL_METHODS, "interval")
     check_level(level)
     fam = _family(wald, redundant)

@@ -27,6 +27,7 @@ from lincomb import _core as core
 from lincomb._covariance.meats import LEVERAGE_TOL
 from lincomb._covariance.rows import RowMap, fit_rows
 from lincomb._results.format import TableRepr, _num
+from lincomb._results.frames import field_frame
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -98,9 +99,7 @@ class RowDiagnostics(TableRepr):
         >>> list(f.row_diagnostics().row_frame().columns)[:4]
         ['row', 'response', 'fitted', 'residual']
         """
-        return pd.DataFrame(
-            {c: getattr(self, c if c != "row" else "rows") for c in DIAGNOSTIC_COLUMNS}
-        )
+        return field_frame(self, DIAGNOSTIC_COLUMNS, row="rows")
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         n = len(self.rows)

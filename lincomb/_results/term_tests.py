@@ -35,6 +35,7 @@ from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
 from lincomb._covariance.reference import check_reference, reference_df, reference_result
 from lincomb._results.format import TableRepr, _num, _p
+from lincomb._results.frames import field_frame
 from lincomb.errors import InputError, SingularCovarianceError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -121,18 +122,7 @@ class TermTests(TableRepr):
         >>> list(f.term_tests().test_frame().columns)[:4]
         ['term', 'df_test', 'ss', 'stat']
         """
-        return pd.DataFrame(
-            {
-                "term": list(self.terms),
-                "df_test": self.df_test,
-                "ss": self.ss,
-                "stat": self.stat,
-                "df_error": self.df_error,
-                "p": self.p,
-                "reference": self.reference,
-                "covariance": self.covariance,
-            }
-        )
+        return field_frame(self, TERM_COLUMNS, term="terms")
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         head = (
@@ -183,18 +173,16 @@ def term_rows(sol: core.Solution, first: list[int], term: list[int]) -> Array:
 
 
 def term_tests(
-    fit: LinearFit,
-    adjusted_for: str = "preceding",
-    *,
-    covariance: object = None,
-    reference: str = "F",
+    fit: LinearFit, adjusted_for: str, *, covariance: object, reference: str
 ) -> TermTests:
-    """The computation behind :meth:`LinearFit.term_tests`.
+    """The computation behind :meth:`LinearFit.term_tests`, which documents the arguments and
+    holds their defaults.
 
     Examples
     --------
     >>> import lincomb as lc
-    >>> term_tests(lc.fit("fill_g ~ line", lc.datasets.fill_lines())).terms
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> term_tests(f, "preceding", covariance=None, reference="F").terms
     ('line',)
     """
     if adjusted_for not in SCHEMES:
