@@ -26,6 +26,7 @@ from lincomb import _core as core
 from lincomb._core.checks import check_level
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.reference import check_reference, reference_df
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import InputError
 
@@ -108,6 +109,7 @@ class ExpectedValues(TableRepr):
         dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
         return float(dist.ppf(0.5 + level / 2))
 
+    @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
         """One row per design row: the mean, its interval and the interval for a new observation.
 
@@ -125,8 +127,7 @@ class ExpectedValues(TableRepr):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> fr = f.expected().row_frame(0.9)
         >>> bool(((fr.new_lower < fr.lower) & (fr.upper < fr.new_upper)).all())
         True
@@ -214,6 +215,7 @@ def _new_weights(fit: LinearFit, new: pd.DataFrame, weights: Any) -> Array | Non
     return w
 
 
+@fill_lines_doc
 def expected_values(
     fit: LinearFit,
     new: pd.DataFrame | None,
@@ -227,8 +229,7 @@ def expected_values(
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> expected_values(f, None, weights=None, covariance=None, reference="F").rows.size
     300
     """

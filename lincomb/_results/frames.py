@@ -23,7 +23,7 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb._core.checks import check_level
-from lincomb._docstrings import fill_doc
+from lincomb._docstrings import FILL_LINES_FIT, fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
 __all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult", "field_frame"]
@@ -40,7 +40,7 @@ digits : int, default 4
 Returns
 -------
 str"""
-_report_doc = fill_doc(report_parameters=_REPORT_PARAMETERS)
+_report_doc = fill_doc(report_parameters=_REPORT_PARAMETERS, fill_lines_fit=FILL_LINES_FIT)
 
 #: Columns of ``row_frame(level)``: one row per restriction row.
 ROW_COLUMNS = (
@@ -216,8 +216,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> res = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 vs L1"))
         >>> print(res.as_markdown(level=0.9, digits=3))
         | restriction | estimate | target |  s.e. |     t |        p | lower 90% | upper 90% |
@@ -237,8 +236,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> tex = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 & L1")).as_latex()
         >>> tex.splitlines()[0], "L2 \\& L1" in tex
         ('\\begin{tabular}{lrrrrrrr}', True)
@@ -256,8 +254,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> page = f.wald(lc.levels("line").pairwise()).as_html(digits=3)
         >>> page.startswith("<table style=") and page.count("<tr>") == 1 + 6
         True

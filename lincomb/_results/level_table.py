@@ -40,6 +40,7 @@ from lincomb._builder.recipes import DEGREE_NAMES
 from lincomb._builder.restriction import _is_number, from_matrix
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference, reference_df
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.expected import row_moments
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
@@ -115,6 +116,7 @@ class LevelMeanTable(TableRepr):
     _fit: Any = field(repr=False, compare=False, default=None)
     _vcov: Any = field(repr=False, compare=False, default=None)
 
+    @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
         """One row per level (combination): the mean and its confidence interval.
 
@@ -130,8 +132,7 @@ class LevelMeanTable(TableRepr):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.level_means("line").row_frame()[["line", "label"]].iloc[0].tolist()
         ['L1', 'line=L1']
         """
@@ -310,6 +311,7 @@ def _encode(fit: LinearFit, frame: pd.DataFrame) -> Array:
     return out
 
 
+@fill_lines_doc
 def level_mean_table(
     fit: LinearFit,
     factors: str | Sequence[str],
@@ -325,8 +327,7 @@ def level_mean_table(
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> options = {"covariates": "mean", "weighting": "equal", "covariance": None}
     >>> level_mean_table(f, "line", holding=None, reference="F", **options).estimate.shape
     (4,)

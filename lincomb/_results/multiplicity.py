@@ -47,6 +47,7 @@ from lincomb._core.maxt import (
     studentized_range_critical,
     studentized_range_tail,
 )
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
 from lincomb.errors import InputError
@@ -265,6 +266,7 @@ MULTIPLE_COLUMNS = (
 
 
 @dataclass(frozen=True)
+@fill_lines_doc
 class MultipleInference(ReportTables):
     """Rows of a Wald test with multiplicity-adjusted p-values and, where defined, intervals.
 
@@ -303,8 +305,7 @@ class MultipleInference(ReportTables):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> bonf = f.wald(lc.term("line") == 0).simultaneous("bonferroni", 0.95)
     >>> bonf.method, bonf.family_size, bool(bonf.critical_value > 1.96)
     ('bonferroni', 3, True)
@@ -337,6 +338,7 @@ class MultipleInference(ReportTables):
         """Number of rows in the family."""
         return len(self.labels)
 
+    @fill_lines_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast in the family.
 
@@ -347,8 +349,7 @@ class MultipleInference(ReportTables):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> holm = f.wald(lc.term("line") == 0).adjust("holm").to_frame()
         >>> holm["method"].unique().tolist(), bool(holm["lower"].isna().all())
         (['holm'], True)
