@@ -34,7 +34,7 @@ from lincomb._docstrings import fill_doc
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
-from lincomb._plan.design import PlannedDesign, planned_design
+from lincomb._plan.design import PlannedDesign, planned_design, three_groups_doc
 from lincomb._plan.results import (
     TWO_GROUP_PLAN,
     DetectableEffect,
@@ -57,7 +57,11 @@ __all__ = ["PowerPlan", "power_plan", "MAX_REPLICATES"]
 MAX_REPLICATES: int = 1_000_000
 
 
-_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN)
+#: The target power of the searches (numpydoc parameter).
+_TARGET_POWER = """\
+power : float
+    Target power, in ``(alpha, 1)``."""
+_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN, target_power=_TARGET_POWER)
 
 
 @dataclass(frozen=True)
@@ -180,13 +184,13 @@ class PowerPlan:
             )
         return arr
 
+    @three_groups_doc
     def shift(self, effect: object = None, *, beta: object = None) -> NDArray[np.float64]:
         """``Cβ − d`` under the alternative, one entry per restriction row.
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> plan = lc.power_plan(d, lc.coef("g[T.b]") - lc.coef("g[T.c]") == 1, sigma=1.0)
         >>> plan.shift(beta={"g[T.b]": 3.0, "g[T.c]": 0.5}).tolist()
         [1.5]
@@ -247,6 +251,7 @@ class PowerPlan:
         return r * self._lambda1(self.shift(effect, beta=beta)) / self.sigma**2
 
     # -- questions ------------------------------------------------------------------------
+    @three_groups_doc
     def power(
         self, effect: object = None, *, beta: object = None, replicates: int = 1
     ) -> PowerResult:
@@ -274,8 +279,7 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> res = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).power(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 1.0}, replicates=8)
         >>> res.df_test, res.df_error, round(res.noncentrality, 4), round(res.power, 4)
@@ -315,8 +319,7 @@ class PowerPlan:
 
         Parameters
         ----------
-        power : float
-            Target power, in ``(alpha, 1)``.
+        %(target_power)s
         effect, beta
             The alternative (see the class notes).
         max_replicates : int, default :data:`MAX_REPLICATES`
@@ -398,8 +401,7 @@ class PowerPlan:
 
         Parameters
         ----------
-        power : float
-            Target power, in ``(alpha, 1)``.
+        %(target_power)s
         direction : float or (m,) array_like, optional
             ``h``, in units of ``Cβ``, one entry per row.  Defaults to 1 for a one-row system.
         beta_direction : mapping or Series, optional
@@ -471,6 +473,7 @@ class PowerPlan:
             beta_shift=beta_shift,
         )
 
+    @three_groups_doc
     def curve(
         self,
         effect: object = None,
@@ -497,8 +500,7 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> cv = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).curve(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 0.0}, replicates=[2, 5, 10])
         >>> cv.to_frame()[["replicates", "n_obs", "df_error"]].values.tolist()
