@@ -33,7 +33,14 @@ from lincomb.errors import InputError
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["ExpectedValues", "EXPECTED_COLUMNS", "expected_values", "row_moments"]
+__all__ = [
+    "ExpectedValues",
+    "EXPECTED_COLUMNS",
+    "expected_values",
+    "row_moments",
+    "MeanIntervals",
+    "reference_fields",
+]
 
 Array = NDArray[np.float64]
 
@@ -54,8 +61,32 @@ EXPECTED_COLUMNS = (
 )
 
 
+def reference_fields(vcov: CovarianceEstimate, ref: str) -> dict[str, Any]:
+    """The fields a result records about the reference of its intervals and tests: ``df_error``
+    (of the t or F reference, ``inf`` for a large-sample one), ``reference`` and the
+    ``covariance`` estimator's label."""
+    return {
+        "df_error": reference_df(vcov.df_error, ref),
+        "reference": ref,
+        "covariance": vcov.label,
+    }
+
+
+class MeanIntervals:
+    """Intervals of estimated means (a mixin over the dataclasses of :class:`ExpectedValues`
+    and :class:`~lincomb._results.level_table.LevelMeanTable`): t with ``df_error``, or the
+    standard normal where ``df_error`` is inf."""
+
+    df_error: float
+
+    def _quantile(self, level: float) -> float:
+        check_level(level)
+        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
+        return float(dist.ppf(0.5 + level / 2))
+
+
 @dataclass(frozen=True, repr=False)
-class ExpectedValues(TableRepr):
+class ExpectedValues(MeanIntervals, TableRepr):
     """Expected responses at rows of the design, with their standard errors.
 
     Made by :meth:`LinearFit.expected <lincomb.LinearFit.expected>`.
@@ -103,11 +134,6 @@ class ExpectedValues(TableRepr):
     reference: str
     covariance: str
     sigma: float
-
-    def _quantile(self, level: float) -> float:
-        check_level(level)
-        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
-        return float(dist.ppf(0.5 + level / 2))
 
     @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
@@ -260,8 +286,6 @@ def expected_values(
         se=se,
         se_new=se_new,
         estimable=ok,
-        df_error=reference_df(vcov.df_error, ref),
-        reference=ref,
-        covariance=vcov.label,
         sigma=fit.sigma,
+        **reference_fields(vcov, ref),
     )

@@ -32,16 +32,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy import stats
 
 from lincomb._builder.level_rows import find_factor, level_index, model_variables
 from lincomb._builder.polynomials import orthogonal_polynomials
 from lincomb._builder.recipes import DEGREE_NAMES
 from lincomb._builder.restriction import _is_number, from_matrix
-from lincomb._core.checks import check_level
-from lincomb._covariance.reference import check_reference, reference_df
+from lincomb._covariance.reference import check_reference
 from lincomb._docstrings import fill_lines_doc
-from lincomb._results.expected import row_moments
+from lincomb._results.expected import MeanIntervals, reference_fields, row_moments
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
 
@@ -69,7 +67,7 @@ def readable(value: Any) -> str:
 
 
 @dataclass(frozen=True, repr=False)
-class LevelMeanTable(TableRepr):
+class LevelMeanTable(MeanIntervals, TableRepr):
     """Mean response at each level (combination) of one or more factors, with intervals.
 
     Made by :meth:`LinearFit.level_means <lincomb.LinearFit.level_means>`; the setting of the
@@ -136,9 +134,7 @@ class LevelMeanTable(TableRepr):
         >>> f.level_means("line").row_frame()[["line", "label"]].iloc[0].tolist()
         ['L1', 'line=L1']
         """
-        check_level(level)
-        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
-        q = float(dist.ppf(0.5 + level / 2))
+        q = self._quantile(level)
         out = pd.DataFrame({f: [c[i] for c in self.cells] for i, f in enumerate(self.factors)})
         out["label"] = list(self.labels)
         out["estimate"] = self.estimate
@@ -439,10 +435,8 @@ def level_mean_table(
         estimate=est,
         se=se,
         estimable=ok,
-        df_error=reference_df(vcov.df_error, ref),
-        reference=ref,
-        covariance=vcov.label,
         setting="; ".join(setting_parts),
+        **reference_fields(vcov, ref),
         _rows=rows_l,
         _fit=fit,
         _vcov=vcov,

@@ -33,7 +33,8 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
-from lincomb._covariance.reference import check_reference, reference_df, reference_result
+from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._results.expected import reference_fields
 from lincomb._results.format import TableRepr, _num, _p
 from lincomb._results.frames import field_frame
 from lincomb.errors import InputError, SingularCovarianceError
@@ -205,7 +206,6 @@ def term_tests(
     ss = np.full(n_t, np.nan)
     stat = np.full(n_t, np.nan)
     pval = np.full(n_t, np.nan)
-    df_den = reference_df(vcov.df_error, ref)
     for i, t in enumerate(labels):
         mine = [pos[c] for c in index.terms[t] if c in pos]
         if adjusted_for == "preceding":
@@ -239,9 +239,7 @@ def term_tests(
         ss=ss,
         stat=stat,
         p=pval,
-        df_error=df_den,
         rss=fit.rss,
         fit_df_error=fit.df_error,
-        reference=ref,
-        covariance=vcov.label,
+        **reference_fields(vcov, ref),
     )
