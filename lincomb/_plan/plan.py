@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -114,6 +115,15 @@ class PowerPlan:
     _root: NDArray[np.float64] = field(repr=False, compare=False)
     _independent: NDArray[np.intp] = field(repr=False, compare=False)
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
+
+    def _recorded(self) -> dict[str, Any]:
+        """What every result of the plan records from it: the rows, their rank, alpha, sigma."""
+        return {
+            "labels": self.labels,
+            "df_test": self.df_test,
+            "alpha": self.alpha,
+            "sigma": self.sigma,
+        }
 
     # -- the alternative ------------------------------------------------------------------
     def _consistent(self, values: NDArray[np.float64], what: str) -> None:
@@ -290,17 +300,14 @@ class PowerPlan:
         df2 = self._df_den(r)
         lam = r * self._lambda1(delta) / self.sigma**2
         return PowerResult(
-            labels=self.labels,
+            **self._recorded(),
             target=self.target.copy(),
             alternative=self.target + delta,
             shift=delta,
-            df_test=self.df_test,
             df_error=df2,
             noncentrality=float(lam),
             critical_value=float(noncentral.critical_value(self.df_test, df2, self.alpha)),
             power=float(noncentral.power(lam, self.df_test, df2, self.alpha)),
-            alpha=self.alpha,
-            sigma=self.sigma,
             replicates=r,
             n_obs=r * self.design.n_obs,
             redundant=self.redundant,
@@ -453,21 +460,18 @@ class PowerPlan:
         if beta_dir is not None:
             beta_shift = pd.Series(s * beta_dir, index=list(self.design.names), name="shift")
         return DetectableEffect(
-            labels=self.labels,
+            **self._recorded(),
             target_power=target,
             scale=s,
             direction=h,
             target=self.target.copy(),
             shift=delta,
             alternative=self.target + delta,
-            df_test=self.df_test,
             df_error=df2,
             noncentrality=lam_star,
             power=float(
                 noncentral.power(r * lam1 * s**2 / self.sigma**2, self.df_test, df2, self.alpha)
             ),
-            alpha=self.alpha,
-            sigma=self.sigma,
             replicates=r,
             n_obs=r * self.design.n_obs,
             beta_shift=beta_shift,
@@ -525,11 +529,8 @@ class PowerPlan:
         df2 = reps * d.n_obs - d.rank
         lam = reps * lam1
         return PowerCurve(
-            labels=self.labels,
+            **self._recorded(),
             shift=delta,
-            alpha=self.alpha,
-            sigma=self.sigma,
-            df_test=self.df_test,
             replicates=reps,
             n_obs=reps * d.n_obs,
             df_error=df2,
