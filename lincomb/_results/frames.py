@@ -26,7 +26,14 @@ from lincomb._core.checks import check_level
 from lincomb._docstrings import FILL_LINES_FIT, fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
-__all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult", "field_frame"]
+__all__ = [
+    "ROW_COLUMNS",
+    "TEST_COLUMNS",
+    "RESULT_ATTRIBUTES",
+    "WaldRows",
+    "WaldResult",
+    "field_frame",
+]
 
 #: The parameters and return of ``as_markdown`` / ``as_latex`` / ``as_html`` (numpydoc sections).
 _REPORT_PARAMETERS = """\
@@ -152,6 +159,21 @@ class _Groups:
     status: list[str]
     redundant_rows: NDArray[Any]  # (g,) of int
     row_df: Array | None = None  # (g, m): each row's own df, when the estimator gives one
+
+
+@dataclass(frozen=True)
+class WaldRows:
+    """The per-row numbers of a Wald result, declared once for the classes that hold them.
+
+    ``estimate`` (``Cβ̂``), ``target`` (``d``), ``se`` and ``ratio`` (``(estimate − target) /
+    se``): ``(m,)`` arrays for one test, ``(k, m)`` for a batch of ``k`` systems.  The classes
+    document them among their attributes.
+    """
+
+    estimate: Array
+    target: Array
+    se: Array
+    ratio: Array
 
 
 class WaldResult:

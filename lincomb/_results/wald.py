@@ -21,7 +21,7 @@ from lincomb._results.format import (
 )
 from lincomb._results.frames import ROW_COLUMNS as _ROW_COLUMNS
 from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
-from lincomb._results.frames import WaldResult, _Groups, roles
+from lincomb._results.frames import WaldResult, WaldRows, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 from lincomb._results.report import ReportTables
 
@@ -52,7 +52,7 @@ TEST_COLUMNS = _TEST_COLUMNS
 
 @dataclass(frozen=True)
 @fill_lines_doc
-class WaldTest(WaldResult):
+class WaldTest(WaldRows, WaldResult):
     """Wald test of a restriction system ``C·β = d``.
 
     Attributes
@@ -97,10 +97,6 @@ class WaldTest(WaldResult):
     """
 
     labels: tuple[str, ...]
-    estimate: NDArray[np.float64]
-    target: NDArray[np.float64]
-    se: NDArray[np.float64]
-    ratio: NDArray[np.float64]
     stat: float
     df_test: int
     df_error: float
@@ -557,7 +553,7 @@ BATCH_ROW_COLUMNS = ("system", *_ROW_COLUMNS)
 
 
 @dataclass(frozen=True)
-class WaldBatch(WaldResult):
+class WaldBatch(WaldRows, WaldResult):
     """Wald tests of many restriction systems ``C_s·β = d_s`` on one fit, one F per system.
 
     Made by :meth:`LinearFit.wald_batch <lincomb.fit.LinearFit.wald_batch>`.  Per-system
@@ -618,10 +614,6 @@ class WaldBatch(WaldResult):
     """
 
     systems: tuple[Any, ...]
-    estimate: NDArray[np.float64]
-    target: NDArray[np.float64]
-    se: NDArray[np.float64]
-    ratio: NDArray[np.float64]
     stat: NDArray[np.float64]
     df_test: NDArray[np.intp]
     df_error: float
