@@ -7,7 +7,8 @@ docstring still shows the whole text, while the source holds a shared parameter 
 section or example set-up once.  Only whole lines are placeholders: a ``%`` anywhere else in a
 docstring is left alone.
 
-Fragments shared by modules of different layers live here (the figure a drawing returns);
+Fragments shared by modules of different layers live here (the figure a drawing returns,
+the fit most examples start from);
 a fragment used in one module is defined in that module.  This module imports nothing of
 lincomb but its errors, so the numerical core may use it too (``tests/test_layers.py``).
 """
@@ -22,7 +23,14 @@ from typing import TypeVar
 
 from lincomb.errors import InternalError
 
-__all__ = ["fill_doc", "fill_text", "AX_PARAMETER", "FIGURE_RETURNS"]
+__all__ = [
+    "fill_doc",
+    "fill_text",
+    "AX_PARAMETER",
+    "FIGURE_RETURNS",
+    "FILL_LINES_FIT",
+    "fill_lines_doc",
+]
 
 _T = TypeVar("_T")
 
@@ -45,6 +53,12 @@ Raises
 ------
 OptionalDependencyError
     matplotlib is not installed."""
+
+#: Example set-up: ``f``, a fit of fill weight on the filling line (the bundled filling-lines
+#: data; coefficients ``Intercept, line[T.L2], line[T.L3], line[T.L4]``).
+FILL_LINES_FIT = """\
+>>> import lincomb as lc
+>>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())"""
 
 
 def fill_text(doc: str, fragments: Mapping[str, str]) -> str:
@@ -116,3 +130,7 @@ def fill_doc(**fragments: str) -> Callable[[_T], _T]:
         return obj
 
     return fill
+
+
+#: Decorator: fill :data:`FILL_LINES_FIT` into a docstring's ``%(fill_lines_fit)s`` line.
+fill_lines_doc = fill_doc(fill_lines_fit=FILL_LINES_FIT)

@@ -20,6 +20,7 @@ from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_tolerance
+from lincomb._docstrings import fill_doc
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
 from lincomb._plan.checks import check_replicates
@@ -30,7 +31,13 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from lincomb._plan.plan import PowerPlan
 
-__all__ = ["PlannedDesign", "planned_design"]
+__all__ = ["PlannedDesign", "planned_design", "THREE_GROUPS", "three_groups_doc"]
+
+#: Example set-up: ``d``, a planned design of one three-level factor ``g`` (one row a level).
+THREE_GROUPS = """\
+>>> import pandas as pd, lincomb as lc
+>>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))"""
+three_groups_doc = fill_doc(three_groups=THREE_GROUPS)
 
 # a placeholder response for formula designs; the plan needs only the right-hand side
 
@@ -85,13 +92,13 @@ class PlannedDesign:
         return self._index
 
     @property
+    @three_groups_doc
     def solution(self) -> core.Solution:
         """The rank decision and triangular factor of one replicate of the pattern.
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> d.solution.rank == d.rank
         True
         """
@@ -119,6 +126,7 @@ class PlannedDesign:
         """
         return check_replicates(replicates) * self.n_obs - self.rank
 
+    @three_groups_doc
     def resolve(
         self, restrictions: object
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
@@ -126,8 +134,7 @@ class PlannedDesign:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> c, target, labels = d.resolve(lc.term("g") == 0)
         >>> c.tolist(), labels
         ([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], ['g[T.b] = 0', 'g[T.c] = 0'])

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -34,7 +35,7 @@ from lincomb._docstrings import fill_doc
 from lincomb._fit.linear import LinearFit
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._plan.checks import check_alpha, check_replicates, check_sigma, check_target
-from lincomb._plan.design import PlannedDesign, planned_design
+from lincomb._plan.design import PlannedDesign, planned_design, three_groups_doc
 from lincomb._plan.results import (
     TWO_GROUP_PLAN,
     DetectableEffect,
@@ -57,7 +58,11 @@ __all__ = ["PowerPlan", "power_plan", "MAX_REPLICATES"]
 MAX_REPLICATES: int = 1_000_000
 
 
-_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN)
+#: The target power of the searches (numpydoc parameter).
+_TARGET_POWER = """\
+power : float
+    Target power, in ``(alpha, 1)``."""
+_plan_doc = fill_doc(two_group_plan=TWO_GROUP_PLAN, target_power=_TARGET_POWER)
 
 
 @dataclass(frozen=True)
@@ -110,6 +115,15 @@ class PowerPlan:
     _root: NDArray[np.float64] = field(repr=False, compare=False)
     _independent: NDArray[np.intp] = field(repr=False, compare=False)
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
+
+    def _recorded(self) -> dict[str, Any]:
+        """What every result of the plan records from it: the rows, their rank, alpha, sigma."""
+        return {
+            "labels": self.labels,
+            "df_test": self.df_test,
+            "alpha": self.alpha,
+            "sigma": self.sigma,
+        }
 
     # -- the alternative ------------------------------------------------------------------
     def _consistent(self, values: NDArray[np.float64], what: str) -> None:
@@ -180,13 +194,13 @@ class PowerPlan:
             )
         return arr
 
+    @three_groups_doc
     def shift(self, effect: object = None, *, beta: object = None) -> NDArray[np.float64]:
         """``Cβ − d`` under the alternative, one entry per restriction row.
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> plan = lc.power_plan(d, lc.coef("g[T.b]") - lc.coef("g[T.c]") == 1, sigma=1.0)
         >>> plan.shift(beta={"g[T.b]": 3.0, "g[T.c]": 0.5}).tolist()
         [1.5]
@@ -247,6 +261,7 @@ class PowerPlan:
         return r * self._lambda1(self.shift(effect, beta=beta)) / self.sigma**2
 
     # -- questions ------------------------------------------------------------------------
+    @three_groups_doc
     def power(
         self, effect: object = None, *, beta: object = None, replicates: int = 1
     ) -> PowerResult:
@@ -274,8 +289,7 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> res = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).power(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 1.0}, replicates=8)
         >>> res.df_test, res.df_error, round(res.noncentrality, 4), round(res.power, 4)
@@ -286,17 +300,14 @@ class PowerPlan:
         df2 = self._df_den(r)
         lam = r * self._lambda1(delta) / self.sigma**2
         return PowerResult(
-            labels=self.labels,
+            **self._recorded(),
             target=self.target.copy(),
             alternative=self.target + delta,
             shift=delta,
-            df_test=self.df_test,
             df_error=df2,
             noncentrality=float(lam),
             critical_value=float(noncentral.critical_value(self.df_test, df2, self.alpha)),
             power=float(noncentral.power(lam, self.df_test, df2, self.alpha)),
-            alpha=self.alpha,
-            sigma=self.sigma,
             replicates=r,
             n_obs=r * self.design.n_obs,
             redundant=self.redundant,
@@ -315,8 +326,7 @@ class PowerPlan:
 
         Parameters
         ----------
-        power : float
-            Target power, in ``(alpha, 1)``.
+        %(target_power)s
         effect, beta
             The alternative (see the class notes).
         max_replicates : int, default :data:`MAX_REPLICATES`
@@ -398,8 +408,7 @@ class PowerPlan:
 
         Parameters
         ----------
-        power : float
-            Target power, in ``(alpha, 1)``.
+        %(target_power)s
         direction : float or (m,) array_like, optional
             ``h``, in units of ``Cβ``, one entry per row.  Defaults to 1 for a one-row system.
         beta_direction : mapping or Series, optional
@@ -451,26 +460,24 @@ class PowerPlan:
         if beta_dir is not None:
             beta_shift = pd.Series(s * beta_dir, index=list(self.design.names), name="shift")
         return DetectableEffect(
-            labels=self.labels,
+            **self._recorded(),
             target_power=target,
             scale=s,
             direction=h,
             target=self.target.copy(),
             shift=delta,
             alternative=self.target + delta,
-            df_test=self.df_test,
             df_error=df2,
             noncentrality=lam_star,
             power=float(
                 noncentral.power(r * lam1 * s**2 / self.sigma**2, self.df_test, df2, self.alpha)
             ),
-            alpha=self.alpha,
-            sigma=self.sigma,
             replicates=r,
             n_obs=r * self.design.n_obs,
             beta_shift=beta_shift,
         )
 
+    @three_groups_doc
     def curve(
         self,
         effect: object = None,
@@ -497,8 +504,7 @@ class PowerPlan:
 
         Examples
         --------
-        >>> import pandas as pd, lincomb as lc
-        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        %(three_groups)s
         >>> cv = lc.power_plan(d, lc.term("g") == 0, sigma=1.0).curve(
         ...     beta={"g[T.b]": 1.0, "g[T.c]": 0.0}, replicates=[2, 5, 10])
         >>> cv.to_frame()[["replicates", "n_obs", "df_error"]].values.tolist()
@@ -523,11 +529,8 @@ class PowerPlan:
         df2 = reps * d.n_obs - d.rank
         lam = reps * lam1
         return PowerCurve(
-            labels=self.labels,
+            **self._recorded(),
             shift=delta,
-            alpha=self.alpha,
-            sigma=self.sigma,
-            df_test=self.df_test,
             replicates=reps,
             n_obs=reps * d.n_obs,
             df_error=df2,

@@ -6,6 +6,7 @@ Frozen dataclasses with tidy ``to_frame`` exports and text and HTML reprs; drawi
 
 from __future__ import annotations
 
+import html
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
@@ -15,8 +16,8 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb._docstrings import AX_PARAMETER, FIGURE_RETURNS, fill_doc
-from lincomb._results.format import _html_lines, _num, _table_html, _table_text
-from lincomb._results.report import ReportTables
+from lincomb._results.format import TableRepr, _num
+from lincomb._results.frames import field_frame
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
@@ -83,36 +84,53 @@ def _effect_rows(
     )
 
 
-def _study_line(res: Any) -> str:
-    """The study line of a result with ``replicates, n_obs, df_test, df_error, noncentrality,
-    alpha, sigma`` (a :class:`PowerResult` or :class:`DetectableEffect`)."""
+_ROW_HEADER = ["restriction", "d", "alternative Cβ", "shift"]
+_POWER_DIV = "<div class='lincomb-power'>"  # what the HTML of every plan result stands in
+
+
+def _study_line(res: _PlannedStudy) -> str:
+    """The line that describes a planned study: its size, F test and noncentrality."""
     return (
         f"n = {res.n_obs} ({res.replicates} replicate(s)); F({res.df_test}, {res.df_error}) at"
         f" alpha = {res.alpha:g}, sigma = {res.sigma:.6g}; noncentrality = {res.noncentrality:.6g}"
     )
 
 
-_ROW_HEADER = ["restriction", "d", "alternative Cβ", "shift"]
+@dataclass(frozen=True, repr=False)
+class _PlannedStudy(TableRepr):
+    """What a power result and a detectable effect share: the rows under the alternative and
+    the study (its size, its F test's degrees of freedom, noncentrality and power).
 
+    The fields are described in each subclass's docstring.
+    """
 
-def _rows_table(frame: pd.DataFrame) -> list[list[str]]:
-    out = []
-    for lab, role, t, a, s in zip(
-        frame["restriction"].astype(str),
-        frame["role"].astype(str),
-        frame["target"].to_numpy(dtype=np.float64),
-        frame["alternative"].to_numpy(dtype=np.float64),
-        frame["shift"].to_numpy(dtype=np.float64),
-        strict=True,
-    ):
-        mark = " (redundant)" if role == "redundant" else ""
-        out.append([lab + mark, _num(float(t)), _num(float(a)), _num(float(s))])
-    return out
+    _HTML_DIV = _POWER_DIV
+
+    labels: tuple[str, ...]
+    target: NDArray[np.float64]
+    alternative: NDArray[np.float64]
+    shift: NDArray[np.float64]
+    df_test: int
+    df_error: int
+    noncentrality: float
+    power: float
+    alpha: float
+    sigma: float
+    replicates: int
+    n_obs: int
+
+    def _shift_rows(self, redundant: Mapping[int, Any]) -> list[list[str]]:
+        """Rows of the table under the head: ``restriction, d, alternative Cβ, shift``."""
+        rows = zip(self.labels, self.target, self.alternative, self.shift, strict=True)
+        return [
+            [lab + (" (redundant)" if i in redundant else ""), _num(t), _num(a), _num(s)]
+            for i, (lab, t, a, s) in enumerate(rows)
+        ]
 
 
 @_plan_doc
-@dataclass(frozen=True)
-class PowerResult(ReportTables):
+@dataclass(frozen=True, repr=False)
+class PowerResult(_PlannedStudy):
     """Power of the F test of ``C·β = d`` under one alternative and study size.
 
     Attributes
@@ -145,19 +163,7 @@ class PowerResult(ReportTables):
     (20, 18, 0.5620)
     """
 
-    labels: tuple[str, ...]
-    target: NDArray[np.float64]
-    alternative: NDArray[np.float64]
-    shift: NDArray[np.float64]
-    df_test: int
-    df_error: int
-    noncentrality: float
     critical_value: float
-    power: float
-    alpha: float
-    sigma: float
-    replicates: int
-    n_obs: int
     redundant: dict[int, dict[int, float]] = field(default_factory=dict)
 
     @property
@@ -219,19 +225,13 @@ class PowerResult(ReportTables):
             )
         return head
 
-    def __repr__(self) -> str:
-        return f"{self._head()}\n{_table_text(_ROW_HEADER, _rows_table(self.effect_frame()))}"
-
-    def _repr_html_(self) -> str:
-
-        head = _html_lines(self._head())
-        table = _table_html(_ROW_HEADER, _rows_table(self.effect_frame()))
-        return f"<div class='lincomb-power'><p><b>{head}</b></p>{table}</div>"
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        return self._head(), _ROW_HEADER, self._shift_rows(self.redundant), ""
 
 
 @_plan_doc
-@dataclass(frozen=True)
-class SampleSize(ReportTables):
+@dataclass(frozen=True, repr=False)
+class SampleSize(TableRepr):
     """The fewest replicates of the planned pattern whose test reaches a target power.
 
     Attributes
@@ -304,18 +304,15 @@ class SampleSize(ReportTables):
             f" >= {self.target_power:g}{prev}\n" + _study_line(self.result)
         )
 
-    def __repr__(self) -> str:
-        return self._head()
+    _HTML_DIV = _POWER_DIV
 
-    def _repr_html_(self) -> str:
-
-        head = _html_lines(self._head())
-        return f"<div class='lincomb-power'><p><b>{head}</b></p></div>"
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        return self._head(), [], [], ""  # the head alone
 
 
 @_plan_doc
-@dataclass(frozen=True)
-class DetectableEffect(ReportTables):
+@dataclass(frozen=True, repr=False)
+class DetectableEffect(_PlannedStudy):
     """The smallest multiple of a direction detected with a target power.
 
     Attributes
@@ -349,21 +346,9 @@ class DetectableEffect(ReportTables):
     1.3249
     """
 
-    labels: tuple[str, ...]
     target_power: float
     scale: float
     direction: NDArray[np.float64]
-    target: NDArray[np.float64]
-    shift: NDArray[np.float64]
-    alternative: NDArray[np.float64]
-    df_test: int
-    df_error: int
-    noncentrality: float
-    power: float
-    alpha: float
-    sigma: float
-    replicates: int
-    n_obs: int
     beta_shift: pd.Series | None = field(default=None, repr=False)
 
     @_plan_doc
@@ -395,32 +380,16 @@ class DetectableEffect(ReportTables):
             f" direction {np.round(self.direction, 6).tolist()}\n" + _study_line(self)
         )
 
-    def _rows(self) -> list[list[str]]:
-        return [
-            [lab, _num(t), _num(a), _num(s)]
-            for lab, t, a, s in zip(
-                self.labels, self.target, self.alternative, self.shift, strict=True
-            )
-        ]
-
-    def __repr__(self) -> str:
-        return f"{self._head()}\n{_table_text(_ROW_HEADER, self._rows())}"
-
-    def _repr_html_(self) -> str:
-
-        head = _html_lines(self._head())
-        rows = self._rows()
-        return (
-            f"<div class='lincomb-power'><p><b>{head}</b></p>{_table_html(_ROW_HEADER, rows)}</div>"
-        )
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        return self._head(), _ROW_HEADER, self._shift_rows({}), ""
 
 
 CURVE_ROWS_SHOWN = 12  # rows a power curve prints; .to_frame() holds every row
 
 
 @_plan_doc
-@dataclass(frozen=True)
-class PowerCurve(ReportTables):
+@dataclass(frozen=True, repr=False)
+class PowerCurve(TableRepr):
     """Power of the F test against the number of replicates of the planned pattern.
 
     Attributes
@@ -471,10 +440,7 @@ class PowerCurve(ReportTables):
         0      4       2
         1     10       8
         """
-        return pd.DataFrame(
-            {c: getattr(self, c) for c in CURVE_COLUMNS},  # fields of that name
-            columns=list(CURVE_COLUMNS),
-        )
+        return field_frame(self, CURVE_COLUMNS)
 
     @fill_doc(ax=AX_PARAMETER, figure_returns=FIGURE_RETURNS, two_group_plan=TWO_GROUP_PLAN)
     def plot(self, ax: Axes | None = None) -> Figure:
@@ -576,14 +542,16 @@ class PowerCurve(ReportTables):
             for i in self._shown()
         ]
 
-    def __repr__(self) -> str:
-        header = ["replicates", "n", "df_error", "noncentrality", "power"]
-        return f"{self._head()}\n{_table_text(header, self._rows())}"
+    _HTML_DIV = _POWER_DIV
 
-    def _repr_html_(self) -> str:
-        import html
+    def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
+        return (
+            self._head(),
+            ["replicates", "n", "df_error", "noncentrality", "power"],
+            self._rows(),
+            "",
+        )
 
-        header = ["replicates", "n", "df_error", "noncentrality", "power"]
-        first, *rest = self._head().split("\n")
-        head = f"<b>{html.escape(first)}</b>" + "".join(f"<br>{html.escape(r)}" for r in rest)
-        return f"<div class='lincomb-power'><p>{head}</p>{_table_html(header, self._rows())}</div>"
+    def _head_html(self, head: str) -> str:
+        first, *rest = head.split("\n")  # the first line in bold, the notes under it plain
+        return f"<b>{html.escape(first)}</b>" + "".join(f"<br>{html.escape(r)}" for r in rest)

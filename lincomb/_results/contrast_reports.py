@@ -33,6 +33,7 @@ from lincomb._builder.contrasts import LevelContrasts, level_weights, register_r
 from lincomb._builder.level_rows import Factor, level_index, require_level
 from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe
 from lincomb._builder.resolver import ModelResolver
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
 from lincomb.errors import (
@@ -255,6 +256,7 @@ def _offdiag_ok(cos: Array) -> bool:
 
 
 @dataclass(frozen=True)
+@fill_lines_doc
 class OrthogonalityReport:
     """Whether a set of contrasts is orthogonal, under three metrics, and whether it is full.
 
@@ -280,8 +282,7 @@ class OrthogonalityReport:
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> rep = lc.levels("line").successive().orthogonality(f)
     >>> rep.equal_n, rep.complete
     (False, True)
@@ -359,6 +360,7 @@ class SumOfSquaresPartition(ReportTables):
     df_error: float
     sigma2: float
 
+    @fill_lines_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast.
 
@@ -367,8 +369,7 @@ class SumOfSquaresPartition(ReportTables):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> frame = lc.levels("line").helmert().partition(f).to_frame()
         >>> float(frame["share"].sum().round(10))
         1.0

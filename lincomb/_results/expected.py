@@ -26,13 +26,21 @@ from lincomb import _core as core
 from lincomb._core.checks import check_level
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.reference import check_reference, reference_df
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import InputError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
-__all__ = ["ExpectedValues", "EXPECTED_COLUMNS", "expected_values", "row_moments"]
+__all__ = [
+    "ExpectedValues",
+    "EXPECTED_COLUMNS",
+    "expected_values",
+    "row_moments",
+    "MeanIntervals",
+    "reference_fields",
+]
 
 Array = NDArray[np.float64]
 
@@ -53,8 +61,32 @@ EXPECTED_COLUMNS = (
 )
 
 
+def reference_fields(vcov: CovarianceEstimate, ref: str) -> dict[str, Any]:
+    """The fields a result records about the reference of its intervals and tests: ``df_error``
+    (of the t or F reference, ``inf`` for a large-sample one), ``reference`` and the
+    ``covariance`` estimator's label."""
+    return {
+        "df_error": reference_df(vcov.df_error, ref),
+        "reference": ref,
+        "covariance": vcov.label,
+    }
+
+
+class MeanIntervals:
+    """Intervals of estimated means (a mixin over the dataclasses of :class:`ExpectedValues`
+    and :class:`~lincomb._results.level_table.LevelMeanTable`): t with ``df_error``, or the
+    standard normal where ``df_error`` is inf."""
+
+    df_error: float
+
+    def _quantile(self, level: float) -> float:
+        check_level(level)
+        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
+        return float(dist.ppf(0.5 + level / 2))
+
+
 @dataclass(frozen=True, repr=False)
-class ExpectedValues(TableRepr):
+class ExpectedValues(MeanIntervals, TableRepr):
     """Expected responses at rows of the design, with their standard errors.
 
     Made by :meth:`LinearFit.expected <lincomb.LinearFit.expected>`.
@@ -103,11 +135,7 @@ class ExpectedValues(TableRepr):
     covariance: str
     sigma: float
 
-    def _quantile(self, level: float) -> float:
-        check_level(level)
-        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
-        return float(dist.ppf(0.5 + level / 2))
-
+    @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
         """One row per design row: the mean, its interval and the interval for a new observation.
 
@@ -125,8 +153,7 @@ class ExpectedValues(TableRepr):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> fr = f.expected().row_frame(0.9)
         >>> bool(((fr.new_lower < fr.lower) & (fr.upper < fr.new_upper)).all())
         True
@@ -214,21 +241,22 @@ def _new_weights(fit: LinearFit, new: pd.DataFrame, weights: Any) -> Array | Non
     return w
 
 
+@fill_lines_doc
 def expected_values(
     fit: LinearFit,
-    new: pd.DataFrame | None = None,
+    new: pd.DataFrame | None,
     *,
-    weights: ArrayLike | str | None = None,
-    covariance: object = None,
-    reference: str = "F",
+    weights: ArrayLike | str | None,
+    covariance: object,
+    reference: str,
 ) -> ExpectedValues:
-    """The computation behind :meth:`LinearFit.expected <lincomb.LinearFit.expected>`.
+    """The computation behind :meth:`LinearFit.expected <lincomb.LinearFit.expected>`, which
+    documents the arguments and holds their defaults.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> expected_values(f).rows.size
+    %(fill_lines_fit)s
+    >>> expected_values(f, None, weights=None, covariance=None, reference="F").rows.size
     300
     """
     ref = check_reference(reference)
@@ -258,8 +286,6 @@ def expected_values(
         se=se,
         se_new=se_new,
         estimable=ok,
-        df_error=reference_df(vcov.df_error, ref),
-        reference=ref,
-        covariance=vcov.label,
         sigma=fit.sigma,
+        **reference_fields(vcov, ref),
     )

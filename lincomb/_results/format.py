@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import html
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 
@@ -38,21 +38,30 @@ def _html_lines(text: str) -> str:
 class TableRepr(ReportTables):
     """Text and HTML reprs of a result shown as a head, a table and an optional tail line.
 
-    A subclass gives ``_parts()``: ``(head, header, rows, tail)``, ``tail`` empty for none.
-    (A dataclass using it is declared with ``repr=False`` so that it keeps these reprs.)
+    A subclass gives ``_parts()``: ``(head, header, rows, tail)``, ``tail`` empty for none and
+    ``header`` empty for a result shown by its head alone.  In HTML the parts stand in
+    ``_HTML_DIV`` and the head is bold (``_head_html`` says how).  (A dataclass using it is
+    declared with ``repr=False`` so that it keeps these reprs.)
     """
+
+    _HTML_DIV: ClassVar[str] = "<div>"
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         raise NotImplementedError  # pragma: no cover - each result has its own
 
+    def _head_html(self, head: str) -> str:
+        return f"<b>{_html_lines(head)}</b>"
+
     def __repr__(self) -> str:
         head, header, rows, tail = self._parts()
-        return "\n".join(s for s in (head, _table_text(header, rows), tail) if s)
+        table = _table_text(header, rows) if header else ""
+        return "\n".join(s for s in (head, table, tail) if s)
 
     def _repr_html_(self) -> str:
         head, header, rows, tail = self._parts()
+        table = _table_html(header, rows) if header else ""
         foot = f"<p>{html.escape(tail)}</p>" if tail else ""
-        return f"<div><p><b>{_html_lines(head)}</b></p>{_table_html(header, rows)}{foot}</div>"
+        return f"{self._HTML_DIV}<p>{self._head_html(head)}</p>{table}{foot}</div>"
 
 
 def _table_text(header: list[str], rows: list[list[str]]) -> str:

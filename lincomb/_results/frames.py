@@ -13,6 +13,7 @@ Columns of ``test_frame()`` (one row per test; the same leading columns): :data:
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -22,10 +23,17 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb._core.checks import check_level
-from lincomb._docstrings import fill_doc
+from lincomb._docstrings import FILL_LINES_FIT, fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 
-__all__ = ["ROW_COLUMNS", "TEST_COLUMNS", "RESULT_ATTRIBUTES", "WaldResult"]
+__all__ = [
+    "ROW_COLUMNS",
+    "TEST_COLUMNS",
+    "RESULT_ATTRIBUTES",
+    "WaldRows",
+    "WaldResult",
+    "field_frame",
+]
 
 #: The parameters and return of ``as_markdown`` / ``as_latex`` / ``as_html`` (numpydoc sections).
 _REPORT_PARAMETERS = """\
@@ -39,7 +47,7 @@ digits : int, default 4
 Returns
 -------
 str"""
-_report_doc = fill_doc(report_parameters=_REPORT_PARAMETERS)
+_report_doc = fill_doc(report_parameters=_REPORT_PARAMETERS, fill_lines_fit=FILL_LINES_FIT)
 
 #: Columns of ``row_frame(level)``: one row per restriction row.
 ROW_COLUMNS = (
@@ -99,6 +107,22 @@ RESULT_ATTRIBUTES = (
 Array = NDArray[np.float64]
 
 
+def field_frame(result: object, columns: Sequence[str], **renamed: str) -> pd.DataFrame:
+    """A tidy frame whose columns are a result's fields of the same names, in ``columns`` order.
+
+    ``renamed`` maps a column to the field it comes from where the names differ
+    (``row="rows"``).  A scalar field fills its column.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> res = SimpleNamespace(terms=("a", "b"), p=[0.5, 0.01], reference="F")
+    >>> field_frame(res, ("term", "p", "reference"), term="terms").values.tolist()
+    [['a', 0.5, 'F'], ['b', 0.01, 'F']]
+    """
+    return pd.DataFrame({c: getattr(result, renamed.get(c, c)) for c in columns})
+
+
 def _row_tail(ratio: Array, df_error: Array) -> Array:
     """Two-sided p of each ratio: t with ``df_error``, normal where ``df_error`` is inf."""
     finite = np.isfinite(df_error)
@@ -135,6 +159,21 @@ class _Groups:
     status: list[str]
     redundant_rows: NDArray[Any]  # (g,) of int
     row_df: Array | None = None  # (g, m): each row's own df, when the estimator gives one
+
+
+@dataclass(frozen=True)
+class WaldRows:
+    """The per-row numbers of a Wald result, declared once for the classes that hold them.
+
+    ``estimate`` (``Cβ̂``), ``target`` (``d``), ``se`` and ``ratio`` (``(estimate − target) /
+    se``): ``(m,)`` arrays for one test, ``(k, m)`` for a batch of ``k`` systems.  The classes
+    document them among their attributes.
+    """
+
+    estimate: Array
+    target: Array
+    se: Array
+    ratio: Array
 
 
 class WaldResult:
@@ -199,8 +238,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> res = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 vs L1"))
         >>> print(res.as_markdown(level=0.9, digits=3))
         | restriction | estimate | target |  s.e. |     t |        p | lower 90% | upper 90% |
@@ -220,8 +258,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> tex = f.wald((lc.coef("line[T.L2]") == 0).labelled("L2 & L1")).as_latex()
         >>> tex.splitlines()[0], "L2 \\& L1" in tex
         ('\\begin{tabular}{lrrrrrrr}', True)
@@ -239,8 +276,7 @@ class WaldResult:
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> page = f.wald(lc.levels("line").pairwise()).as_html(digits=3)
         >>> page.startswith("<table style=") and page.count("<tr>") == 1 + 6
         True

@@ -32,15 +32,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy import stats
 
 from lincomb._builder.level_rows import find_factor, level_index, model_variables
 from lincomb._builder.polynomials import orthogonal_polynomials
 from lincomb._builder.recipes import DEGREE_NAMES
 from lincomb._builder.restriction import _is_number, from_matrix
-from lincomb._core.checks import check_level
-from lincomb._covariance.reference import check_reference, reference_df
-from lincomb._results.expected import row_moments
+from lincomb._covariance.reference import check_reference
+from lincomb._docstrings import fill_lines_doc
+from lincomb._results.expected import MeanIntervals, reference_fields, row_moments
 from lincomb._results.format import TableRepr, _num
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
 
@@ -68,7 +67,7 @@ def readable(value: Any) -> str:
 
 
 @dataclass(frozen=True, repr=False)
-class LevelMeanTable(TableRepr):
+class LevelMeanTable(MeanIntervals, TableRepr):
     """Mean response at each level (combination) of one or more factors, with intervals.
 
     Made by :meth:`LinearFit.level_means <lincomb.LinearFit.level_means>`; the setting of the
@@ -115,6 +114,7 @@ class LevelMeanTable(TableRepr):
     _fit: Any = field(repr=False, compare=False, default=None)
     _vcov: Any = field(repr=False, compare=False, default=None)
 
+    @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
         """One row per level (combination): the mean and its confidence interval.
 
@@ -130,14 +130,11 @@ class LevelMeanTable(TableRepr):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.level_means("line").row_frame()[["line", "label"]].iloc[0].tolist()
         ['L1', 'line=L1']
         """
-        check_level(level)
-        dist = stats.t(self.df_error) if np.isfinite(self.df_error) else stats.norm()
-        q = float(dist.ppf(0.5 + level / 2))
+        q = self._quantile(level)
         out = pd.DataFrame({f: [c[i] for c in self.cells] for i, f in enumerate(self.factors)})
         out["label"] = list(self.labels)
         out["estimate"] = self.estimate
@@ -310,23 +307,25 @@ def _encode(fit: LinearFit, frame: pd.DataFrame) -> Array:
     return out
 
 
+@fill_lines_doc
 def level_mean_table(
     fit: LinearFit,
     factors: str | Sequence[str],
     *,
-    holding: Mapping[str, Any] | None = None,
-    covariates: str = "mean",
-    weighting: str = "equal",
-    covariance: object = None,
-    reference: str = "F",
+    holding: Mapping[str, Any] | None,
+    covariates: str,
+    weighting: str,
+    covariance: object,
+    reference: str,
 ) -> LevelMeanTable:
-    """The computation behind :meth:`LinearFit.level_means`.
+    """The computation behind :meth:`LinearFit.level_means`, which documents the arguments and
+    holds their defaults.
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-    >>> level_mean_table(f, "line").estimate.shape
+    %(fill_lines_fit)s
+    >>> options = {"covariates": "mean", "weighting": "equal", "covariance": None}
+    >>> level_mean_table(f, "line", holding=None, reference="F", **options).estimate.shape
     (4,)
     """
     encoder = fit.design.encoder
@@ -436,10 +435,8 @@ def level_mean_table(
         estimate=est,
         se=se,
         estimable=ok,
-        df_error=reference_df(vcov.df_error, ref),
-        reference=ref,
-        covariance=vcov.label,
         setting="; ".join(setting_parts),
+        **reference_fields(vcov, ref),
         _rows=rows_l,
         _fit=fit,
         _vcov=vcov,

@@ -47,6 +47,7 @@ from lincomb._core.maxt import (
     studentized_range_critical,
     studentized_range_tail,
 )
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
 from lincomb.errors import InputError
@@ -265,6 +266,7 @@ MULTIPLE_COLUMNS = (
 
 
 @dataclass(frozen=True)
+@fill_lines_doc
 class MultipleInference(ReportTables):
     """Rows of a Wald test with multiplicity-adjusted p-values and, where defined, intervals.
 
@@ -303,8 +305,7 @@ class MultipleInference(ReportTables):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> bonf = f.wald(lc.term("line") == 0).simultaneous("bonferroni", 0.95)
     >>> bonf.method, bonf.family_size, bool(bonf.critical_value > 1.96)
     ('bonferroni', 3, True)
@@ -337,6 +338,7 @@ class MultipleInference(ReportTables):
         """Number of rows in the family."""
         return len(self.labels)
 
+    @fill_lines_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per contrast in the family.
 
@@ -347,8 +349,7 @@ class MultipleInference(ReportTables):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> holm = f.wald(lc.term("line") == 0).adjust("holm").to_frame()
         >>> holm["method"].unique().tolist(), bool(holm["lower"].isna().all())
         (['holm'], True)
@@ -568,17 +569,18 @@ def _scheffe_p(t: Array, q: int, df: float) -> Array:
 
 def adjust_wald(
     wald: WaldTest,
-    method: str = "holm",
+    method: str,
     *,
-    redundant: str = "keep",
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
-    rate: float = 0.05,
+    redundant: str,
+    tol: float,
+    seed: int,
+    max_points: int,
+    rate: float,
 ) -> MultipleInference:
-    """Adjusted p-values for the rows of a Wald test (see :meth:`WaldTest.adjust
-    <lincomb.results.WaldTest.adjust>`); ``rate`` is the false discovery rate of the
-    adaptive Benjamini–Hochberg method (see :func:`adjust_pvalues`)."""
+    """Adjusted p-values for the rows of a Wald test: the computation behind
+    :meth:`WaldTest.adjust <lincomb.results.WaldTest.adjust>`, which documents the arguments
+    and holds their defaults; ``rate`` is the false discovery rate of the adaptive
+    Benjamini–Hochberg method (see :func:`adjust_pvalues`)."""
     key = _canonical(method, WALD_P_METHODS, "p-value")
     fam = _family(wald, redundant)
     k = fam["keep"]
@@ -609,16 +611,17 @@ def adjust_wald(
 
 def simultaneous_wald(
     wald: WaldTest,
-    method: str = "max-t",
-    level: float = 0.95,
+    method: str,
+    level: float,
     *,
-    redundant: str = "keep",
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
+    redundant: str,
+    tol: float,
+    seed: int,
+    max_points: int,
 ) -> MultipleInference:
-    """Simultaneous intervals for the rows of a Wald test (see :meth:`WaldTest.simultaneous
-    <lincomb.results.WaldTest.simultaneous>`)."""
+    """Simultaneous intervals for the rows of a Wald test: the computation behind
+    :meth:`WaldTest.simultaneous <lincomb.results.WaldTest.simultaneous>`, which documents the
+    arguments and holds their defaults."""
     key = _canonical(method, INTERVAL_METHODS, "interval")
     check_level(level)
     fam = _family(wald, redundant)

@@ -32,6 +32,7 @@ from scipy import stats
 
 from lincomb import _core as core
 from lincomb._results.format import TableRepr, _num, _p
+from lincomb._results.frames import field_frame
 from lincomb.errors import InputError, NotNestedError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -100,17 +101,7 @@ class NestedComparison(TableRepr):
         >>> list(lc.compare_nested(*fits).test_frame().columns)
         ['model', 'df_error', 'rss', 'df_test', 'ss', 'stat', 'p']
         """
-        return pd.DataFrame(
-            {
-                "model": list(self.models),
-                "df_error": self.df_error,
-                "rss": self.rss,
-                "df_test": self.df_test,
-                "ss": self.ss,
-                "stat": self.stat,
-                "p": self.p,
-            }
-        )
+        return field_frame(self, NESTED_COLUMNS, model="models")
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         head = (

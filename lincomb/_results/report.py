@@ -28,7 +28,7 @@ from typing import Any
 
 import pandas as pd
 
-from lincomb._docstrings import fill_doc
+from lincomb._docstrings import fill_doc, fill_lines_doc
 from lincomb.errors import InternalError, ParameterError
 
 __all__ = [
@@ -315,6 +315,7 @@ def html_table(
     )
 
 
+@fill_lines_doc
 def wald_headers(frame: pd.DataFrame, reference: str) -> dict[str, str]:
     """The columns of a Wald result's ``row_frame(level)`` that a report shows, with headers.
 
@@ -324,8 +325,7 @@ def wald_headers(frame: pd.DataFrame, reference: str) -> dict[str, str]:
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> res = f.wald(lc.coef("line[T.L2]") == 0)
     >>> list(wald_headers(res.row_frame(0.9), res.reference).values())
     ['restriction', 'estimate', 'target', 's.e.', 't', 'p', 'lower 90%', 'upper 90%']

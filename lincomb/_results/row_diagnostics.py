@@ -26,7 +26,9 @@ from numpy.typing import NDArray
 from lincomb import _core as core
 from lincomb._covariance.meats import LEVERAGE_TOL
 from lincomb._covariance.rows import RowMap, fit_rows
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import TableRepr, _num
+from lincomb._results.frames import field_frame
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
@@ -82,6 +84,7 @@ class RowDiagnostics(TableRepr):
     studentized_internal: Array
     studentized_external: Array
 
+    @fill_lines_doc
     def row_frame(self) -> pd.DataFrame:
         """One row per row of the fit.
 
@@ -93,14 +96,11 @@ class RowDiagnostics(TableRepr):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> list(f.row_diagnostics().row_frame().columns)[:4]
         ['row', 'response', 'fitted', 'residual']
         """
-        return pd.DataFrame(
-            {c: getattr(self, c if c != "row" else "rows") for c in DIAGNOSTIC_COLUMNS}
-        )
+        return field_frame(self, DIAGNOSTIC_COLUMNS, row="rows")
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         n = len(self.rows)

@@ -33,8 +33,10 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import check_rank
-from lincomb._covariance.reference import check_reference, reference_df, reference_result
+from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._results.expected import reference_fields
 from lincomb._results.format import TableRepr, _num, _p
+from lincomb._results.frames import field_frame
 from lincomb.errors import InputError, SingularCovarianceError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -121,18 +123,7 @@ class TermTests(TableRepr):
         >>> list(f.term_tests().test_frame().columns)[:4]
         ['term', 'df_test', 'ss', 'stat']
         """
-        return pd.DataFrame(
-            {
-                "term": list(self.terms),
-                "df_test": self.df_test,
-                "ss": self.ss,
-                "stat": self.stat,
-                "df_error": self.df_error,
-                "p": self.p,
-                "reference": self.reference,
-                "covariance": self.covariance,
-            }
-        )
+        return field_frame(self, TERM_COLUMNS, term="terms")
 
     def _parts(self) -> tuple[str, list[str], list[list[str]], str]:
         head = (
@@ -183,18 +174,16 @@ def term_rows(sol: core.Solution, first: list[int], term: list[int]) -> Array:
 
 
 def term_tests(
-    fit: LinearFit,
-    adjusted_for: str = "preceding",
-    *,
-    covariance: object = None,
-    reference: str = "F",
+    fit: LinearFit, adjusted_for: str, *, covariance: object, reference: str
 ) -> TermTests:
-    """The computation behind :meth:`LinearFit.term_tests`.
+    """The computation behind :meth:`LinearFit.term_tests`, which documents the arguments and
+    holds their defaults.
 
     Examples
     --------
     >>> import lincomb as lc
-    >>> term_tests(lc.fit("fill_g ~ line", lc.datasets.fill_lines())).terms
+    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    >>> term_tests(f, "preceding", covariance=None, reference="F").terms
     ('line',)
     """
     if adjusted_for not in SCHEMES:
@@ -217,7 +206,6 @@ def term_tests(
     ss = np.full(n_t, np.nan)
     stat = np.full(n_t, np.nan)
     pval = np.full(n_t, np.nan)
-    df_den = reference_df(vcov.df_error, ref)
     for i, t in enumerate(labels):
         mine = [pos[c] for c in index.terms[t] if c in pos]
         if adjusted_for == "preceding":
@@ -251,9 +239,7 @@ def term_tests(
         ss=ss,
         stat=stat,
         p=pval,
-        df_error=df_den,
         rss=fit.rss,
         fit_df_error=fit.df_error,
-        reference=ref,
-        covariance=vcov.label,
+        **reference_fields(vcov, ref),
     )

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import (
     batch_html,
     batch_text,
@@ -20,7 +21,7 @@ from lincomb._results.format import (
 )
 from lincomb._results.frames import ROW_COLUMNS as _ROW_COLUMNS
 from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
-from lincomb._results.frames import WaldResult, _Groups, roles
+from lincomb._results.frames import WaldResult, WaldRows, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 from lincomb._results.report import ReportTables
 
@@ -50,7 +51,8 @@ TEST_COLUMNS = _TEST_COLUMNS
 
 
 @dataclass(frozen=True)
-class WaldTest(WaldResult):
+@fill_lines_doc
+class WaldTest(WaldRows, WaldResult):
     """Wald test of a restriction system ``C·β = d``.
 
     Attributes
@@ -86,8 +88,7 @@ class WaldTest(WaldResult):
 
     Examples
     --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(fill_lines_fit)s
     >>> res = f.wald((lc.coef("line[T.L2]") == 0) & (lc.coef("line[T.L3]") == 2))
     >>> res.row_frame().shape, res.test_frame().shape
     ((2, 15), (1, 11))
@@ -96,10 +97,6 @@ class WaldTest(WaldResult):
     """
 
     labels: tuple[str, ...]
-    estimate: NDArray[np.float64]
-    target: NDArray[np.float64]
-    se: NDArray[np.float64]
-    ratio: NDArray[np.float64]
     stat: float
     df_test: int
     df_error: float
@@ -136,6 +133,7 @@ class WaldTest(WaldResult):
         return out
 
     @cached_property
+    @fill_lines_doc
     def matrix(self) -> pd.DataFrame | None:
         """The resolved ``C``: rows labelled, columns named by coefficient.
 
@@ -143,8 +141,7 @@ class WaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.wald(lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).matrix
                                  Intercept  line[T.L2]  line[T.L3]  line[T.L4]
         line[T.L2] - line[T.L3] = 0        0.0         1.0        -1.0         0.0
@@ -154,13 +151,13 @@ class WaldTest(WaldResult):
         return pd.DataFrame(self._c, index=list(self.labels), columns=list(self._names))
 
     @property
+    @fill_lines_doc
     def row_p(self) -> NDArray[np.float64]:
         """Two-sided p-value of each row (t with ``df_error``, normal if ``df_error`` is inf).
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.wald(lc.term("line") == 0).row_p.shape
         (3,)
         """
@@ -168,13 +165,13 @@ class WaldTest(WaldResult):
         return self._row_p(self.ratio, np.array(df, dtype=np.float64))
 
     @property
+    @fill_lines_doc
     def status(self) -> str:
         """``"independent"`` (all rows independent) or ``"redundant"`` (some depend on others).
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.wald(lc.levels("line").pairwise()).status
         'redundant'
         """
@@ -200,13 +197,13 @@ class WaldTest(WaldResult):
             row_df=None if self.row_df is None else np.asarray(self.row_df).reshape(1, m),
         )
 
+    @fill_lines_doc
     def intervals(self, level: float = 0.95) -> pd.DataFrame:
         """Marginal confidence intervals for each row's ``Cβ`` at ``level``.
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> ci = f.wald(lc.coef("line[T.L3]") == 0).intervals(0.9)
         >>> list(ci.columns)
         ['lower', 'upper']
@@ -217,6 +214,7 @@ class WaldTest(WaldResult):
             index=pd.Index(self.labels, name="restriction"),
         )
 
+    @fill_lines_doc
     def row_frame(self, level: float = 0.95) -> pd.DataFrame:
         """One row per restriction row; columns :data:`ROW_COLUMNS`.
 
@@ -229,8 +227,7 @@ class WaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> res = f.wald((lc.coef("Intercept") == 500) & (lc.term("line")["L3"] == 1))
         >>> rows = res.row_frame()
         >>> rows[["restriction", "target", "role"]].values.tolist()
@@ -238,6 +235,7 @@ class WaldTest(WaldResult):
         """
         return self._row_frame(level)
 
+    @fill_lines_doc
     def test_frame(self) -> pd.DataFrame:
         """One row for the whole test; columns :data:`TEST_COLUMNS`.
 
@@ -247,14 +245,14 @@ class WaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> one = f.wald(lc.levels("line").pairwise()).test_frame()
         >>> one[["rows", "rank", "df_test", "redundant_rows"]].values.tolist()
         [[6, 3, 3, 3]]
         """
         return self._test_frame()
 
+    @fill_lines_doc
     def plot(
         self,
         level: float = 0.95,
@@ -270,8 +268,7 @@ class WaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> fig = f.wald(lc.term("line") == 0).plot(level=0.9)
         >>> len(fig.axes[0].get_yticklabels())
         3
@@ -287,6 +284,7 @@ class WaldTest(WaldResult):
             title=title,
         )
 
+    @fill_lines_doc
     def adjust(
         self,
         method: str = "holm",
@@ -324,8 +322,7 @@ class WaldTest(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> adj = f.wald(lc.levels("line").pairwise()).adjust("holm")
         >>> adj.family_size, adj.rank, bool((adj.p_adjusted >= adj.p).all())
         (6, 3, True)
@@ -524,13 +521,13 @@ class RestrictedFit(ReportTables):
         df_u = self.df_error - self.rank
         return ((self.rss - self.rss_unrestricted) / self.rank) / (self.rss_unrestricted / df_u)
 
+    @fill_lines_doc
     def to_frame(self) -> pd.DataFrame:
         """One row per coefficient: ``coefficient, estimate, std_error``.
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.restrict(lc.term("line") == 0).to_frame()["estimate"].round(6).tolist()[1:]
         [0.0, 0.0, 0.0]
         """
@@ -556,7 +553,7 @@ BATCH_ROW_COLUMNS = ("system", *_ROW_COLUMNS)
 
 
 @dataclass(frozen=True)
-class WaldBatch(WaldResult):
+class WaldBatch(WaldRows, WaldResult):
     """Wald tests of many restriction systems ``C_s·β = d_s`` on one fit, one F per system.
 
     Made by :meth:`LinearFit.wald_batch <lincomb.fit.LinearFit.wald_batch>`.  Per-system
@@ -617,10 +614,6 @@ class WaldBatch(WaldResult):
     """
 
     systems: tuple[Any, ...]
-    estimate: NDArray[np.float64]
-    target: NDArray[np.float64]
-    se: NDArray[np.float64]
-    ratio: NDArray[np.float64]
     stat: NDArray[np.float64]
     df_test: NDArray[np.intp]
     df_error: float
@@ -639,6 +632,7 @@ class WaldBatch(WaldResult):
         return len(self.systems)
 
     @cached_property
+    @fill_lines_doc
     def labels(self) -> tuple[tuple[str, ...], ...] | None:
         """Row labels of every system given as restrictions (None for an array ``C``).
 
@@ -647,8 +641,7 @@ class WaldBatch(WaldResult):
 
         Examples
         --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(fill_lines_fit)s
         >>> f.wald_batch([lc.coef("line[T.L2]") == 0, lc.term("line")["L3"] == 1]).labels
         (('line[T.L2] = 0',), ('line[L3] = 1',))
         """
