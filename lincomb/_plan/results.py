@@ -96,7 +96,7 @@ def _study_line(res: _PlannedStudy) -> str:
     )
 
 
-@dataclass(frozen=True, repr=False)
+@dataclass(frozen=True, kw_only=True, repr=False)
 class _PlannedStudy(TableRepr):
     """What a power result and a detectable effect share: the rows under the alternative and
     the study (its size, its F test's degrees of freedom, noncentrality and power).
@@ -129,7 +129,7 @@ class _PlannedStudy(TableRepr):
 
 
 @_plan_doc
-@dataclass(frozen=True, repr=False)
+@dataclass(frozen=True, kw_only=True, repr=False)
 class PowerResult(_PlannedStudy):
     """Power of the F test of ``C·β = d`` under one alternative and study size.
 
@@ -311,7 +311,7 @@ class SampleSize(TableRepr):
 
 
 @_plan_doc
-@dataclass(frozen=True, repr=False)
+@dataclass(frozen=True, kw_only=True, repr=False)
 class DetectableEffect(_PlannedStudy):
     """The smallest multiple of a direction detected with a target power.
 

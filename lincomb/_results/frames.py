@@ -161,7 +161,7 @@ class _Groups:
     row_df: Array | None = None  # (g, m): each row's own df, when the estimator gives one
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class WaldRows:
     """The per-row numbers of a Wald result, declared once for the classes that hold them.
 

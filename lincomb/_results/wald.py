@@ -50,7 +50,7 @@ ROW_COLUMNS = _ROW_COLUMNS
 TEST_COLUMNS = _TEST_COLUMNS
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 @fill_lines_doc
 class WaldTest(WaldRows, WaldResult):
     """Wald test of a restriction system ``C·β = d``.
@@ -552,7 +552,7 @@ BATCH_COLUMNS = ("system", *_TEST_COLUMNS)
 BATCH_ROW_COLUMNS = ("system", *_ROW_COLUMNS)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class WaldBatch(WaldRows, WaldResult):
     """Wald tests of many restriction systems ``C_s·β = d_s`` on one fit, one F per system.
 
