@@ -343,6 +343,17 @@ class EstimatesFit(ReportTables):
 # ---------------------------------------------------------------------------------------------
 # validation
 # ---------------------------------------------------------------------------------------------
+def _float_copy(raw: object, what: str) -> NDArray[np.float64]:
+    """A float64 copy of the ``estimates`` or the ``covariance``; an entry that is not a number
+    raises (:class:`~lincomb.errors.CovarianceInputError` for the covariance)."""
+    try:
+        return np.array(raw, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        if what == "covariance":
+            raise CovarianceInputError(f"the covariance must be numbers: {exc}.") from None
+        raise InputError(f"the {what} must be numbers: {exc}.") from None
+
+
 def _estimates(
     estimates: ArrayLike | pd.Series, names: Sequence[str] | None
 ) -> tuple[NDArray[np.float64], list[str]]:
@@ -354,10 +365,7 @@ def _estimates(
         raw: object = estimates.to_numpy()
     else:
         raw = estimates
-    try:
-        b = np.array(raw, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"the estimates must be numbers: {exc}.") from None
+    b = _float_copy(raw, "estimates")
     if b.ndim != 1 or b.size == 0:
         raise InputError(f"the estimates must be a non-empty vector; got shape {b.shape}.")
     if names is not None:
@@ -401,10 +409,7 @@ def _covariance(covariance: ArrayLike | pd.DataFrame, names: list[str]) -> NDArr
         raw: object = frame.loc[names, names].to_numpy()
     else:
         raw = covariance
-    try:
-        v = np.array(raw, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        raise CovarianceInputError(f"the covariance must be numbers: {exc}.") from None
+    v = _float_copy(raw, "covariance")
     if v.shape != (k, k):
         raise CovarianceInputError(
             f"the covariance must be {k} × {k} for {k} estimates; got shape {v.shape}."
