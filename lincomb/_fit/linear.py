@@ -30,6 +30,7 @@ from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
 from lincomb._covariance.reference import check_reference, reference_df, test_reference
+from lincomb._docstrings import LINE_FIT_EXAMPLES, RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit.restriction_rows import check_rows
 from lincomb._model.design import (
     CoefficientIndex,
@@ -55,6 +56,8 @@ if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.term_tests import TermTests
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
+
+_line_fit_doc = fill_doc(line_fit_examples=LINE_FIT_EXAMPLES)
 
 #: A residual sum of squares at most this fraction of the centred response's squared norm
 #: (squared) counts as zero: the model reproduces the data and no error variance is left.
@@ -121,52 +124,44 @@ class LinearFit(ReportTables):
 
     # -- the fit's internals, read-only, for the other layers ------------------------------
     @property
+    @_line_fit_doc
     def design(self) -> Design:
         """The validated design the fit was made from (names, encoder, rows when kept).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.design.index.names == f.names, f.design.has_rows
         (True, True)
         """
         return self._design
 
     @property
+    @_line_fit_doc
     def moments(self) -> core.Moments:
         """The fit's moments: the R factor of ``sqrt(w)·[X y]`` and the column shifts.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.moments.n == f.n_obs
         True
         """
         return self._moments
 
     @property
+    @_line_fit_doc
     def solution(self) -> core.Solution:
         """The rank decision and the kept-column triangle in working coordinates.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.solution.rank == f.rank, f.solution.df_resid == f.df_error
         (True, True)
         """
         return self._sol
 
     @property
+    @_line_fit_doc
     def covariance_estimate(self) -> CovarianceEstimate | None:
         """The covariance estimate set with :meth:`with_covariance` (``None``: classical).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.covariance_estimate is None
         True
         >>> f.with_covariance("HC3").covariance_estimate.label
@@ -175,6 +170,7 @@ class LinearFit(ReportTables):
         return self._vcov
 
     @cached_property
+    @_line_fit_doc
     def resolver(self) -> ModelResolver:
         """The resolver of restriction names on this fit, built once and reused by every test.
 
@@ -183,10 +179,7 @@ class LinearFit(ReportTables):
         level it has looked up, so tests in a loop resolve names at the cost of a dictionary
         look-up.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.resolver is f.resolver, f.resolver.column("line[T.L3]")
         (True, 2)
         """
@@ -252,6 +245,7 @@ class LinearFit(ReportTables):
         """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
         return "classical" if self._vcov is None else self._vcov.label
 
+    @_line_fit_doc
     def evaluate_covariance(self, covariance: object = None) -> CovarianceEstimate:
         """The covariance estimate a test with ``covariance=`` uses on this fit.
 
@@ -260,10 +254,7 @@ class LinearFit(ReportTables):
         covariance : str or estimator, optional
             As in :meth:`wald`; ``None`` gives the fit's own (see :meth:`with_covariance`).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.evaluate_covariance().label, f.evaluate_covariance("HC1").label
         ('classical', 'HC1')
         """
@@ -338,14 +329,12 @@ class LinearFit(ReportTables):
         cov[np.ix_(est, est)] = root.T @ root
         return pd.DataFrame(cov, index=list(self.names), columns=list(self.names))
 
+    @_line_fit_doc
     def std_errors(self, covariance: object = None) -> pd.Series:
         """Standard errors (NaN for aliased coefficients) under ``covariance`` (see
         :meth:`covariance`).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> se = f.std_errors().to_frame("classical").assign(HC3=f.std_errors("HC3"))
         >>> se.shape, se.index[0]
         ((4, 2), 'Intercept')
@@ -440,15 +429,13 @@ class LinearFit(ReportTables):
         return out
 
     # -- restrictions -------------------------------------------------------------------
+    @_line_fit_doc
     def resolve(
         self, restrictions: object
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
         """Turn restrictions into ``(C, d, labels)`` on this fit's coefficients.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> c, d, labels = f.resolve(lc.coef("line[T.L2]") == lc.coef("line[T.L3]"))
         >>> c.tolist(), d.tolist()
         ([[0.0, 1.0, -1.0, 0.0]], [0.0])
@@ -457,6 +444,7 @@ class LinearFit(ReportTables):
         # the resolver also carries the formula encoder, for contrasts on level means
         return system.resolve(self.resolver)
 
+    @_line_fit_doc
     def prepare(
         self, restrictions: object
     ) -> tuple[
@@ -478,10 +466,7 @@ class LinearFit(ReportTables):
         InconsistentRestrictionError, NotEstimableError
             As in :meth:`wald`.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> two = (lc.coef("line[T.L2]") == 0) & (2 * lc.coef("line[T.L2]") == 0)
         >>> c, d, labels, cu, analysis = f.prepare(two)
         >>> analysis.independent.tolist(), list(analysis.dependencies)
@@ -955,13 +940,11 @@ def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
     return out
 
 
+@_line_fit_doc
 def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
     """Factor a design's rows and fit (the in-memory route of every entry point).
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(line_fit_examples)s
     >>> fit_from_design(f.design, f.rank_tol).rss == f.rss
     True
     """
@@ -969,6 +952,7 @@ def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
     return fit_from_moments(design, moments, rank_tol, rows=True)
 
 
+@_line_fit_doc
 def fit_from_moments(
     design: Design, moments: core.Moments, rank_tol: float, rows: bool = False
 ) -> LinearFit:
@@ -984,10 +968,7 @@ def fit_from_moments(
     DegenerateFitError
         No residual degrees of freedom.
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(line_fit_examples)s
     >>> again = fit_from_moments(f.design, f.moments, f.rank_tol)
     >>> bool((again.coefficients == f.coefficients).all())
     True
@@ -1026,6 +1007,7 @@ def fit_from_moments(
     )
 
 
+@fill_doc(rank_tol=RANK_TOL_PARAMETER)
 def fit(
     formula: str,
     data: pd.DataFrame,
@@ -1049,8 +1031,7 @@ def fit(
     missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables are dropped and counted
         (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
-    rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb._core`).
+    %(rank_tol)s
 
     Returns
     -------
