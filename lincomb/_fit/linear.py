@@ -31,7 +31,8 @@ from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
 from lincomb._covariance.reference import check_reference, reference_df, test_reference
 from lincomb._docstrings import LINE_FIT_EXAMPLES, RANK_TOL_PARAMETER, fill_doc
-from lincomb._fit.restriction_rows import check_rows
+from lincomb._fit import batch
+from lincomb._fit.restriction_rows import aliasing_hint, check_rows
 from lincomb._model.design import (
     CoefficientIndex,
     Design,
@@ -40,10 +41,9 @@ from lincomb._model.design import (
     encode_new,
 )
 from lincomb._model.formula_text import require_response
-from lincomb._model.row_checks import unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.report import ReportTables
-from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest, assemble_wald_test
+from lincomb._results.wald import RestrictedFit, WaldTest, assemble_wald_test
 from lincomb.errors import (
     DegenerateFitError,
 )
@@ -568,89 +568,8 @@ class LinearFit(ReportTables):
             row_df=row_df,
         )
 
-    def wald_batch(
-        self,
-        c: ArrayLike | Sequence[object],
-        d: ArrayLike | None = None,
-        *,
-        ids: Sequence[Any] | None = None,
-        covariance: object = None,
-        reference: str = "F",
-        on_invalid: str = "raise",
-    ) -> WaldBatch:
-        """Wald tests of many restriction systems at once, vectorized over the systems.
-
-        Gives, for each system ``C_s·β = d_s``, the numbers :meth:`wald` gives (F, rank, p,
-        and per row the estimate, standard error and t), at a cost per system that depends
-        on neither ``n`` nor a Python-level pass through the single-system path.
-
-        Parameters
-        ----------
-        c : (k, m, p) array_like, or sequence of restrictions
-            ``k`` systems of ``m`` rows on the fit's coefficients (in fit order), or ``k``
-            restriction systems (each anything :meth:`wald` accepts) with ``m`` rows each;
-            those are resolved first, which costs a Python pass per system.
-        d : scalar, (m,) or (k, m) array_like, optional
-            Right-hand sides for an array ``c`` (default 0).  Restrictions carry their own.
-        ids : sequence, optional
-            One identifier per system for the results (default ``0 .. k-1``).
-        covariance : str or estimator, optional
-            As in :meth:`wald` (default: the fit's own).
-        reference : {'F', 'chi2'}, default 'F'
-            As in :meth:`wald`.
-        on_invalid : {'raise', 'nan'}, default 'raise'
-            A system with contradictory rows, non-estimable rows or (under a robust estimator)
-            a singular covariance raises the error :meth:`wald` would raise, naming the
-            system and row; with ``'nan'`` it gets a NaN statistic and its ``status`` says why.
-
-        Returns
-        -------
-        WaldBatch
-
-        Raises
-        ------
-        RestrictionShapeError, EmptyRestrictionError
-            ``c`` or ``d`` has the wrong shape, holds NaN/inf or an all-zero row, or the
-            restriction systems differ in their number of rows.
-        InconsistentRestrictionError, NotEstimableError, SingularCovarianceError
-            As in :meth:`wald` (with ``on_invalid='raise'``).
-        DegenerateFitError
-            The residual sum of squares is zero.
-
-        Notes
-        -----
-        Redundant rows are found and handled as in :meth:`wald` (the F uses the rank).  The
-        arithmetic is in :mod:`lincomb.batch`: one triangular solve for all ``k·m`` rows, a
-        stacked QR of the small ``m``-column roots, and the single-system path for any
-        system with a row near a rank or estimability threshold, so the decisions are the
-        same as :meth:`wald`'s.
-
-        Examples
-        --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-        >>> pairs = [("line[T.L2]", "line[T.L3]"), ("line[T.L3]", "line[T.L4]")]
-        >>> systems = [(lc.coef(a) == lc.coef(b)) & (lc.coef("temperature_c") == 0)
-        ...            for a, b in pairs]
-        >>> b = f.wald_batch(systems, ids=["L2 vs L3", "L3 vs L4"])
-        >>> b.test_frame()[["system", "rank", "df_error"]]
-             system  rank  df_error
-        0  L2 vs L3     2   295.0
-        1  L3 vs L4     2   295.0
-        >>> bool(np.isclose(b.p[1], f.wald(systems[1]).p, rtol=1e-10))
-        True
-        """
-        from lincomb._fit.batch import wald_batch
-
-        return wald_batch(
-            self,
-            c,
-            d,
-            ids=ids,
-            covariance=covariance,
-            reference=reference,
-            on_invalid=on_invalid,
-        )
+    # the batch route is written with its arithmetic in lincomb._fit.batch
+    wald_batch = batch.wald_batch
 
     def restrict(self, restrictions: object) -> RestrictedFit:
         """Least squares subject to ``C·β = d``.
@@ -902,35 +821,6 @@ class LinearFit(ReportTables):
             covariance=covariance,
             reference=reference,
         )
-
-
-def aliasing_hint(fit: LinearFit) -> str:
-    """What may explain an aliased column beyond the design itself, for error messages.
-
-    Categories left unused by subsetting (named, with the fix), and weights so unequal that
-    rows weighted lightly barely inform the fit: a column seen only in such rows is aliased at
-    working precision (the ratio of the largest weight to the smallest is named).  Empty when
-    neither applies or the fit keeps no rows.
-
-    Examples
-    --------
-    >>> import numpy as np, lincomb as lc
-    >>> x = np.c_[np.ones(6), [0.0, 0, 0, 1, 1, 1]]
-    >>> f = lc.fit_arrays(x, [1.0, 2, 3, 5, 6, 8], weights=[1.0, 1, 1, 1e-60, 1e-60, 1e-60])
-    >>> "1e+60" in aliasing_hint(f)
-    True
-    """
-    hint = unused_level_hint(fit.design.encoder)
-    if fit.weighted and fit.design.has_rows:
-        w = np.asarray(fit.design.weights, dtype=np.float64)
-        ratio = float(w.max() / w.min()) if w.size and w.min() > 0 else float("inf")
-        if ratio > core.WEIGHT_SPREAD_PIVOT:
-            hint += (
-                f" The weights span a ratio of {ratio:.3g} (largest over smallest): a column seen"
-                " only in rows weighted that lightly is aliased at working precision. Rescale or"
-                " drop those rows if that is not intended."
-            )
-    return hint
 
 
 def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
