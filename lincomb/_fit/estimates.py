@@ -27,13 +27,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._fit.coef_table import coefficient_frame
 from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
@@ -166,34 +166,17 @@ class EstimatesFit(ReportTables):
         """
         check_level(level)
         ref = self._reference(reference)
-        dfree = self._df(ref)
-        dist = stats.t(dfree) if ref == "F" else stats.norm()
-        est = self.coefficients.to_numpy()
-        se = self.std_errors().to_numpy()
         testable = self._residual(np.eye(len(self.names))) <= core.ROW_TOL
-        with np.errstate(divide="ignore", invalid="ignore"):
-            ratio = np.where(testable, est / se, np.nan)
-        q = dist.ppf(0.5 + level / 2)
-        term_of: dict[int, str] = {}
-        for tlabel, cols in self._index.terms.items():
-            for j in cols:
-                term_of.setdefault(j, "Intercept" if tlabel == "1" else tlabel)
-        return pd.DataFrame(
-            {
-                "coefficient": list(self.names),
-                "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
-                "estimate": est,
-                "se": se,
-                "ratio": ratio,
-                "p": 2 * dist.sf(np.abs(ratio)),
-                "lower": np.where(testable, est - q * se, np.nan),
-                "upper": np.where(testable, est + q * se, np.nan),
-                "level": level,
-                "status": np.where(testable, "estimable", "not estimable"),
-                "reference": ref,
-                "df_error": dfree,
-                "covariance": self.label,
-            }
+        return coefficient_frame(
+            self._index,
+            self.coefficients.to_numpy(),
+            self.std_errors().to_numpy(),
+            level=level,
+            reference=ref,
+            df_error=self._df(ref),
+            status=np.where(testable, "estimable", "not estimable"),
+            covariance=self.label,
+            testable=testable,
         )
 
     # -- restrictions -------------------------------------------------------------------

@@ -21,7 +21,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
@@ -32,6 +31,7 @@ from lincomb._covariance.estimators import coefficient_df, evaluate
 from lincomb._covariance.reference import check_reference, reference_df, test_reference
 from lincomb._docstrings import LINE_FIT_EXAMPLES, RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit import batch
+from lincomb._fit.coef_table import coefficient_frame
 from lincomb._fit.restriction_rows import aliasing_hint, check_rows
 from lincomb._model.design import (
     CoefficientIndex,
@@ -387,32 +387,15 @@ class LinearFit(ReportTables):
         dfree: Any = reference_df(vcov.df_error, ref)
         if ref == "F" and vcov.per_test_df:  # each coefficient's own small-sample df
             dfree = coefficient_df(self._sol, vcov)
-        dist = stats.t(dfree) if ref == "F" else stats.norm()
-        est = self.coefficients.to_numpy()
-        se = self.std_errors(vcov).to_numpy()
-        t = est / se
-        p = 2 * dist.sf(np.abs(t))
-        q = dist.ppf(0.5 + level / 2)
-        term_of = {}
-        for tlabel, cols in self._design.index.terms.items():
-            for j in cols:
-                term_of[j] = "Intercept" if tlabel == "1" else tlabel
-        return pd.DataFrame(
-            {
-                "coefficient": list(self.names),
-                "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
-                "estimate": est,
-                "se": se,
-                "ratio": t,
-                "p": p,
-                "lower": est - q * se,
-                "upper": est + q * se,
-                "level": level,
-                "status": self._status(),
-                "reference": ref,
-                "df_error": dfree,
-                "covariance": vcov.label,
-            }
+        return coefficient_frame(
+            self._design.index,
+            self.coefficients.to_numpy(),
+            self.std_errors(vcov).to_numpy(),
+            level=level,
+            reference=ref,
+            df_error=dfree,
+            status=self._status(),
+            covariance=vcov.label,
         )
 
     def _status(self) -> list[str]:
