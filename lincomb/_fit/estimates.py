@@ -33,6 +33,7 @@ from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._docstrings import fill_doc
 from lincomb._fit.coef_table import coefficient_frame
 from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
@@ -55,7 +56,17 @@ COVARIANCE_RANK_TOL: float = 1e-10
 #: ``|V_ij − V_ji|`` above this fraction of ``sqrt(V_ii V_jj)`` makes the matrix asymmetric.
 SYMMETRY_TOL: float = 1e-8
 
+#: The start of an Examples section on ``e``, two uncorrelated estimates ``a`` and ``b``.
+_TWO_ESTIMATES = """\
+Examples
+--------
+>>> import lincomb as lc
+>>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])"""
 
+_estimates_doc = fill_doc(two_estimates=_TWO_ESTIMATES)
+
+
+@_estimates_doc
 @dataclass(frozen=True)
 class EstimatesFit(ReportTables):
     """Estimates and their covariance from any model, ready for Wald tests.
@@ -75,10 +86,7 @@ class EstimatesFit(ReportTables):
     label : str
         Name of the covariance in every result (default ``"supplied"``).
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+    %(two_estimates)s
     >>> e.names, e.rank, e.df_error
     (('a', 'b'), 2, None)
     >>> res = e.wald(lc.coef("a") == 0)
@@ -141,6 +149,7 @@ class EstimatesFit(ReportTables):
     def _df(self, ref: str) -> float:
         return float(self.df_error) if ref == "F" and self.df_error is not None else np.inf
 
+    @_estimates_doc
     def coef_frame(self, level: float = 0.95, *, reference: str | None = None) -> pd.DataFrame:
         """One row per coefficient: estimate, standard error, ratio, p-value, interval.
 
@@ -157,10 +166,7 @@ class EstimatesFit(ReportTables):
         estimable"`` for a coefficient outside the row space of a singular covariance (its
         ratio and p are then NaN).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+        %(two_estimates)s
         >>> e.coef_frame()[["coefficient", "ratio", "reference"]].values.tolist()
         [['a', 1.0, 'chi2'], ['b', 1.0, 'chi2']]
         """
@@ -180,15 +186,13 @@ class EstimatesFit(ReportTables):
         )
 
     # -- restrictions -------------------------------------------------------------------
+    @_estimates_doc
     def resolve(
         self, restrictions: object
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
         """Turn restrictions into ``(C, d, labels)`` on these coefficients.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+        %(two_estimates)s
         >>> c, d, labels = e.resolve(lc.coef("a") == lc.coef("b"))
         >>> c.tolist(), d.tolist()
         ([[1.0, -1.0]], [0.0])
