@@ -27,7 +27,6 @@ __all__ = [
     "fill_text",
     "AX_PARAMETER",
     "FIGURE_RETURNS",
-    "LINE_FIT_EXAMPLES",
     "RANK_TOL_PARAMETER",
 ]
 
@@ -58,14 +57,6 @@ OptionalDependencyError
 RANK_TOL_PARAMETER = """\
 rank_tol : float, default 1e-10
     Relative rank tolerance (see :mod:`lincomb._core`)."""
-
-#: The start of an Examples section on ``f``, a fit of the filling-line data on the line alone
-#: (coefficients ``Intercept, line[T.L2], line[T.L3], line[T.L4]``).
-LINE_FIT_EXAMPLES = """\
-Examples
---------
->>> import lincomb as lc
->>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())"""
 
 
 def fill_text(doc: str, fragments: Mapping[str, str]) -> str:

@@ -29,7 +29,7 @@ from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
 from lincomb._covariance.reference import check_reference, reference_df, test_reference
-from lincomb._docstrings import LINE_FIT_EXAMPLES, RANK_TOL_PARAMETER, fill_doc
+from lincomb._docstrings import RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit import batch
 from lincomb._fit.coef_table import coefficient_frame
 from lincomb._fit.restriction_rows import aliasing_hint, check_rows
@@ -57,7 +57,15 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
 
-_line_fit_doc = fill_doc(line_fit_examples=LINE_FIT_EXAMPLES)
+#: The start of an Examples section on ``f``, a fit of the filling-line data on the line alone
+#: (coefficients ``Intercept, line[T.L2], line[T.L3], line[T.L4]``).
+_LINE_FIT_EXAMPLES = """\
+Examples
+--------
+>>> import lincomb as lc
+>>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())"""
+
+_line_fit_doc = fill_doc(line_fit_examples=_LINE_FIT_EXAMPLES)
 
 #: A residual sum of squares at most this fraction of the centred response's squared norm
 #: (squared) counts as zero: the model reproduces the data and no error variance is left.
