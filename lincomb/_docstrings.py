@@ -30,6 +30,7 @@ __all__ = [
     "FIGURE_RETURNS",
     "FILL_LINES_FIT",
     "fill_lines_doc",
+    "RANK_TOL_PARAMETER",
 ]
 
 _T = TypeVar("_T")
@@ -59,6 +60,12 @@ OptionalDependencyError
 FILL_LINES_FIT = """\
 >>> import lincomb as lc
 >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())"""
+
+
+#: The ``rank_tol`` parameter of everything that fits or plans a design (numpydoc entry).
+RANK_TOL_PARAMETER = """\
+rank_tol : float, default 1e-10
+    Relative rank tolerance (see :mod:`lincomb._core`)."""
 
 
 def fill_text(doc: str, fragments: Mapping[str, str]) -> str:

@@ -8,6 +8,8 @@ working.  Messages name the offending term, row or value and say how to fix it.
 
 from __future__ import annotations
 
+from typing import TypeVar
+
 import numpy as np
 
 __all__ = [
@@ -44,6 +46,25 @@ __all__ = [
     "InternalError",
     "SingularFactorError",
 ]
+
+
+_Class = TypeVar("_Class", bound=type)
+
+
+def _caught_as_builtin(cls: _Class) -> _Class:
+    """End the docstring of a class that no short example can raise with an Examples section
+    showing the built-in class that catches it too (its last base).
+
+    Under ``python -OO`` (docstrings stripped) the class is returned unchanged.
+    """
+    if cls.__doc__ is not None:
+        base = cls.__bases__[-1].__name__
+        cls.__doc__ = (
+            cls.__doc__.rstrip(" ")
+            + "\n    Examples\n    --------\n    >>> import lincomb as lc\n"
+            + f"    >>> issubclass(lc.errors.{cls.__name__}, {base})\n    True\n    "
+        )
+    return cls
 
 
 class LincombError(Exception):
@@ -265,16 +286,11 @@ class NotNestedError(IncompatibleFitError):
     """
 
 
+@_caught_as_builtin
 class OptionalDependencyError(LincombError, ImportError):
     """A capability needs an optional extra that is not installed (e.g. ``lincomb[plot]``).
 
     The message names the missing package and the ``pip install`` command that adds it.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> issubclass(lc.errors.OptionalDependencyError, ImportError)
-    True
     """
 
 
@@ -375,6 +391,7 @@ class RowsUnavailableError(LincombError, ValueError):
     """
 
 
+@_caught_as_builtin
 class ClusterTaskError(LincombError, RuntimeError):
     """A task of a Dask fit failed on the cluster for a reason of the cluster's own (its worker
     process died every time the scheduler tried it, or the scheduler cancelled it).
@@ -382,12 +399,6 @@ class ClusterTaskError(LincombError, RuntimeError):
     No fit is returned: the message names the partition or block whose task failed and carries
     the scheduler's own message, which is also chained as ``__cause__``.  An error raised by the
     user's code or by lincomb inside a task is not wrapped: it reaches the caller as raised.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> issubclass(lc.errors.ClusterTaskError, RuntimeError)
-    True
     """
 
 
@@ -469,15 +480,10 @@ class NotOrthogonalError(ContrastError):
     """
 
 
+@_caught_as_builtin
 class IntegrationAccuracyWarning(LincombWarning, RuntimeWarning):
     """A numerical integration (the ``max-|t|`` distribution) stopped before reaching the requested
     tolerance; the reported standard error says how far it got.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> issubclass(lc.errors.IntegrationAccuracyWarning, RuntimeWarning)
-    True
     """
 
 
@@ -495,18 +501,13 @@ class ArgumentTypeError(LincombError, TypeError):
     """
 
 
+@_caught_as_builtin
 class InternalError(LincombError, RuntimeError):
     """An internal consistency check failed: a bug in lincomb, not in the input.
 
     Raised where a state the code guarantees does not hold (a LAPACK argument error, a shipped
     dataset that disagrees with its declared levels).  Please report it with the call that
     raised it.
-
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> issubclass(lc.errors.InternalError, RuntimeError)
-    True
     """
 
 

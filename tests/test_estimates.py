@@ -242,6 +242,8 @@ def test_scaling_a_coefficient_leaves_the_test_unchanged():
         ([1.0, 2.0], np.eye(2), {"names": ["a", "a"]}, InputError, "repeated"),
         ([1.0, 2.0], np.eye(2), {"df_error": 0}, InputError, "df_error"),
         ([1.0, 2.0], np.zeros((2, 2)), {}, CovarianceInputError, "zero"),
+        (["a", 2.0], np.eye(2), {}, InputError, "the estimates must be numbers"),
+        ([1.0, 2.0], [["x", 0], [0, 1]], {}, CovarianceInputError, "covariance must be numbers"),
     ],
 )
 def test_validation_errors(estimates, covariance, kwargs, error, match):

@@ -48,6 +48,7 @@ import pandas as pd
 
 from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate
+from lincomb._docstrings import RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import EncodedRows, FormulaEncoder
@@ -207,6 +208,7 @@ def _no_rows(p: _Pass) -> InputError:
 # -- public entry points ---------------------------------------------------------------------
 
 
+@fill_doc(rank_tol=RANK_TOL_PARAMETER)
 def fit_chunks(
     formula: str,
     chunks: Iterable[pd.DataFrame],
@@ -236,8 +238,7 @@ def fit_chunks(
     missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables or the weights are dropped and
         counted across chunks, or raise :class:`~lincomb.errors.MissingValueError`.
-    rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb._core`).
+    %(rank_tol)s
     progress : callable, optional
         Called after each chunk with a :class:`ChunkProgress`.
 

@@ -27,7 +27,6 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
@@ -35,6 +34,8 @@ from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.given import refuse_nonfinite
 from lincomb._covariance.reference import check_reference, reference_result
+from lincomb._docstrings import fill_doc
+from lincomb._fit.coef_table import coefficient_frame
 from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
@@ -56,7 +57,17 @@ COVARIANCE_RANK_TOL: float = 1e-10
 #: ``|V_ij − V_ji|`` above this fraction of ``sqrt(V_ii V_jj)`` makes the matrix asymmetric.
 SYMMETRY_TOL: float = 1e-8
 
+#: The start of an Examples section on ``e``, two uncorrelated estimates ``a`` and ``b``.
+_TWO_ESTIMATES = """\
+Examples
+--------
+>>> import lincomb as lc
+>>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])"""
 
+_estimates_doc = fill_doc(two_estimates=_TWO_ESTIMATES)
+
+
+@_estimates_doc
 @dataclass(frozen=True)
 class EstimatesFit(ReportTables):
     """Estimates and their covariance from any model, ready for Wald tests.
@@ -76,10 +87,7 @@ class EstimatesFit(ReportTables):
     label : str
         Name of the covariance in every result (default ``"supplied"``).
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+    %(two_estimates)s
     >>> e.names, e.rank, e.df_error
     (('a', 'b'), 2, None)
     >>> res = e.wald(lc.coef("a") == 0)
@@ -142,6 +150,7 @@ class EstimatesFit(ReportTables):
     def _df(self, ref: str) -> float:
         return float(self.df_error) if ref == "F" and self.df_error is not None else np.inf
 
+    @_estimates_doc
     def coef_frame(self, level: float = 0.95, *, reference: str | None = None) -> pd.DataFrame:
         """One row per coefficient: estimate, standard error, ratio, p-value, interval.
 
@@ -158,55 +167,33 @@ class EstimatesFit(ReportTables):
         estimable"`` for a coefficient outside the row space of a singular covariance (its
         ratio and p are then NaN).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+        %(two_estimates)s
         >>> e.coef_frame()[["coefficient", "ratio", "reference"]].values.tolist()
         [['a', 1.0, 'chi2'], ['b', 1.0, 'chi2']]
         """
         check_level(level)
         ref = self._reference(reference)
-        dfree = self._df(ref)
-        dist = stats.t(dfree) if ref == "F" else stats.norm()
-        est = self.coefficients.to_numpy()
-        se = self.std_errors().to_numpy()
         testable = self._residual(np.eye(len(self.names))) <= core.ROW_TOL
-        with np.errstate(divide="ignore", invalid="ignore"):
-            ratio = np.where(testable, est / se, np.nan)
-        q = dist.ppf(0.5 + level / 2)
-        term_of: dict[int, str] = {}
-        for tlabel, cols in self._index.terms.items():
-            for j in cols:
-                term_of.setdefault(j, "Intercept" if tlabel == "1" else tlabel)
-        return pd.DataFrame(
-            {
-                "coefficient": list(self.names),
-                "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
-                "estimate": est,
-                "se": se,
-                "ratio": ratio,
-                "p": 2 * dist.sf(np.abs(ratio)),
-                "lower": np.where(testable, est - q * se, np.nan),
-                "upper": np.where(testable, est + q * se, np.nan),
-                "level": level,
-                "status": np.where(testable, "estimable", "not estimable"),
-                "reference": ref,
-                "df_error": dfree,
-                "covariance": self.label,
-            }
+        return coefficient_frame(
+            self._index,
+            self.coefficients.to_numpy(),
+            self.std_errors().to_numpy(),
+            level=level,
+            reference=ref,
+            df_error=self._df(ref),
+            status=np.where(testable, "estimable", "not estimable"),
+            covariance=self.label,
+            testable=testable,
         )
 
     # -- restrictions -------------------------------------------------------------------
+    @_estimates_doc
     def resolve(
         self, restrictions: object
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
         """Turn restrictions into ``(C, d, labels)`` on these coefficients.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
+        %(two_estimates)s
         >>> c, d, labels = e.resolve(lc.coef("a") == lc.coef("b"))
         >>> c.tolist(), d.tolist()
         ([[1.0, -1.0]], [0.0])
@@ -344,6 +331,17 @@ class EstimatesFit(ReportTables):
 # ---------------------------------------------------------------------------------------------
 # validation
 # ---------------------------------------------------------------------------------------------
+def _float_copy(raw: object, what: str) -> NDArray[np.float64]:
+    """A float64 copy of the ``estimates`` or the ``covariance``; an entry that is not a number
+    raises (:class:`~lincomb.errors.CovarianceInputError` for the covariance)."""
+    try:
+        return np.array(raw, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        if what == "covariance":
+            raise CovarianceInputError(f"the covariance must be numbers: {exc}.") from None
+        raise InputError(f"the {what} must be numbers: {exc}.") from None
+
+
 def _estimates(
     estimates: ArrayLike | pd.Series, names: Sequence[str] | None
 ) -> tuple[NDArray[np.float64], list[str]]:
@@ -355,10 +353,7 @@ def _estimates(
         raw: object = estimates.to_numpy()
     else:
         raw = estimates
-    try:
-        b = np.array(raw, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"the estimates must be numbers: {exc}.") from None
+    b = _float_copy(raw, "estimates")
     if b.ndim != 1 or b.size == 0:
         raise InputError(f"the estimates must be a non-empty vector; got shape {b.shape}.")
     if names is not None:
@@ -402,10 +397,7 @@ def _covariance(covariance: ArrayLike | pd.DataFrame, names: list[str]) -> NDArr
         raw: object = frame.loc[names, names].to_numpy()
     else:
         raw = covariance
-    try:
-        v = np.array(raw, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        raise CovarianceInputError(f"the covariance must be numbers: {exc}.") from None
+    v = _float_copy(raw, "covariance")
     if v.shape != (k, k):
         raise CovarianceInputError(
             f"the covariance must be {k} × {k} for {k} estimates; got shape {v.shape}."

@@ -21,7 +21,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
@@ -30,7 +29,10 @@ from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
 from lincomb._covariance.reference import check_reference, reference_df, test_reference
-from lincomb._fit.restriction_rows import check_rows
+from lincomb._docstrings import FILL_LINES_FIT, RANK_TOL_PARAMETER, fill_doc
+from lincomb._fit import batch
+from lincomb._fit.coef_table import coefficient_frame
+from lincomb._fit.restriction_rows import aliasing_hint, check_rows
 from lincomb._model.design import (
     CoefficientIndex,
     Design,
@@ -39,10 +41,9 @@ from lincomb._model.design import (
     encode_new,
 )
 from lincomb._model.formula_text import require_response
-from lincomb._model.row_checks import unused_level_hint
 from lincomb._results.format import fit_html, fit_text
 from lincomb._results.report import ReportTables
-from lincomb._results.wald import RestrictedFit, WaldBatch, WaldTest, assemble_wald_test
+from lincomb._results.wald import RestrictedFit, WaldTest, assemble_wald_test
 from lincomb.errors import (
     DegenerateFitError,
 )
@@ -55,6 +56,12 @@ if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.term_tests import TermTests
 
 __all__ = ["LinearFit", "fit", "fit_arrays"]
+
+#: The start of an Examples section on ``f``, a fit of the filling-line data on the line alone
+#: (coefficients ``Intercept, line[T.L2], line[T.L3], line[T.L4]``).
+_LINE_FIT_EXAMPLES = "Examples\n--------\n" + FILL_LINES_FIT
+
+_line_fit_doc = fill_doc(line_fit_examples=_LINE_FIT_EXAMPLES)
 
 #: A residual sum of squares at most this fraction of the centred response's squared norm
 #: (squared) counts as zero: the model reproduces the data and no error variance is left.
@@ -121,52 +128,44 @@ class LinearFit(ReportTables):
 
     # -- the fit's internals, read-only, for the other layers ------------------------------
     @property
+    @_line_fit_doc
     def design(self) -> Design:
         """The validated design the fit was made from (names, encoder, rows when kept).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.design.index.names == f.names, f.design.has_rows
         (True, True)
         """
         return self._design
 
     @property
+    @_line_fit_doc
     def moments(self) -> core.Moments:
         """The fit's moments: the R factor of ``sqrt(w)·[X y]`` and the column shifts.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.moments.n == f.n_obs
         True
         """
         return self._moments
 
     @property
+    @_line_fit_doc
     def solution(self) -> core.Solution:
         """The rank decision and the kept-column triangle in working coordinates.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.solution.rank == f.rank, f.solution.df_resid == f.df_error
         (True, True)
         """
         return self._sol
 
     @property
+    @_line_fit_doc
     def covariance_estimate(self) -> CovarianceEstimate | None:
         """The covariance estimate set with :meth:`with_covariance` (``None``: classical).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.covariance_estimate is None
         True
         >>> f.with_covariance("HC3").covariance_estimate.label
@@ -175,6 +174,7 @@ class LinearFit(ReportTables):
         return self._vcov
 
     @cached_property
+    @_line_fit_doc
     def resolver(self) -> ModelResolver:
         """The resolver of restriction names on this fit, built once and reused by every test.
 
@@ -183,10 +183,7 @@ class LinearFit(ReportTables):
         level it has looked up, so tests in a loop resolve names at the cost of a dictionary
         look-up.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.resolver is f.resolver, f.resolver.column("line[T.L3]")
         (True, 2)
         """
@@ -252,6 +249,7 @@ class LinearFit(ReportTables):
         """Label of the covariance estimator tests use by default (see :meth:`with_covariance`)."""
         return "classical" if self._vcov is None else self._vcov.label
 
+    @_line_fit_doc
     def evaluate_covariance(self, covariance: object = None) -> CovarianceEstimate:
         """The covariance estimate a test with ``covariance=`` uses on this fit.
 
@@ -260,10 +258,7 @@ class LinearFit(ReportTables):
         covariance : str or estimator, optional
             As in :meth:`wald`; ``None`` gives the fit's own (see :meth:`with_covariance`).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> f.evaluate_covariance().label, f.evaluate_covariance("HC1").label
         ('classical', 'HC1')
         """
@@ -338,14 +333,12 @@ class LinearFit(ReportTables):
         cov[np.ix_(est, est)] = root.T @ root
         return pd.DataFrame(cov, index=list(self.names), columns=list(self.names))
 
+    @_line_fit_doc
     def std_errors(self, covariance: object = None) -> pd.Series:
         """Standard errors (NaN for aliased coefficients) under ``covariance`` (see
         :meth:`covariance`).
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> se = f.std_errors().to_frame("classical").assign(HC3=f.std_errors("HC3"))
         >>> se.shape, se.index[0]
         ((4, 2), 'Intercept')
@@ -398,32 +391,15 @@ class LinearFit(ReportTables):
         dfree: Any = reference_df(vcov.df_error, ref)
         if ref == "F" and vcov.per_test_df:  # each coefficient's own small-sample df
             dfree = coefficient_df(self._sol, vcov)
-        dist = stats.t(dfree) if ref == "F" else stats.norm()
-        est = self.coefficients.to_numpy()
-        se = self.std_errors(vcov).to_numpy()
-        t = est / se
-        p = 2 * dist.sf(np.abs(t))
-        q = dist.ppf(0.5 + level / 2)
-        term_of = {}
-        for tlabel, cols in self._design.index.terms.items():
-            for j in cols:
-                term_of[j] = "Intercept" if tlabel == "1" else tlabel
-        return pd.DataFrame(
-            {
-                "coefficient": list(self.names),
-                "term": [term_of.get(j, self.names[j]) for j in range(len(self.names))],
-                "estimate": est,
-                "se": se,
-                "ratio": t,
-                "p": p,
-                "lower": est - q * se,
-                "upper": est + q * se,
-                "level": level,
-                "status": self._status(),
-                "reference": ref,
-                "df_error": dfree,
-                "covariance": vcov.label,
-            }
+        return coefficient_frame(
+            self._design.index,
+            self.coefficients.to_numpy(),
+            self.std_errors(vcov).to_numpy(),
+            level=level,
+            reference=ref,
+            df_error=dfree,
+            status=self._status(),
+            covariance=vcov.label,
         )
 
     def _status(self) -> list[str]:
@@ -440,15 +416,13 @@ class LinearFit(ReportTables):
         return out
 
     # -- restrictions -------------------------------------------------------------------
+    @_line_fit_doc
     def resolve(
         self, restrictions: object
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
         """Turn restrictions into ``(C, d, labels)`` on this fit's coefficients.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> c, d, labels = f.resolve(lc.coef("line[T.L2]") == lc.coef("line[T.L3]"))
         >>> c.tolist(), d.tolist()
         ([[0.0, 1.0, -1.0, 0.0]], [0.0])
@@ -457,6 +431,7 @@ class LinearFit(ReportTables):
         # the resolver also carries the formula encoder, for contrasts on level means
         return system.resolve(self.resolver)
 
+    @_line_fit_doc
     def prepare(
         self, restrictions: object
     ) -> tuple[
@@ -478,10 +453,7 @@ class LinearFit(ReportTables):
         InconsistentRestrictionError, NotEstimableError
             As in :meth:`wald`.
 
-        Examples
-        --------
-        >>> import lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        %(line_fit_examples)s
         >>> two = (lc.coef("line[T.L2]") == 0) & (2 * lc.coef("line[T.L2]") == 0)
         >>> c, d, labels, cu, analysis = f.prepare(two)
         >>> analysis.independent.tolist(), list(analysis.dependencies)
@@ -583,89 +555,8 @@ class LinearFit(ReportTables):
             row_df=row_df,
         )
 
-    def wald_batch(
-        self,
-        c: ArrayLike | Sequence[object],
-        d: ArrayLike | None = None,
-        *,
-        ids: Sequence[Any] | None = None,
-        covariance: object = None,
-        reference: str = "F",
-        on_invalid: str = "raise",
-    ) -> WaldBatch:
-        """Wald tests of many restriction systems at once, vectorized over the systems.
-
-        Gives, for each system ``C_s·β = d_s``, the numbers :meth:`wald` gives (F, rank, p,
-        and per row the estimate, standard error and t), at a cost per system that depends
-        on neither ``n`` nor a Python-level pass through the single-system path.
-
-        Parameters
-        ----------
-        c : (k, m, p) array_like, or sequence of restrictions
-            ``k`` systems of ``m`` rows on the fit's coefficients (in fit order), or ``k``
-            restriction systems (each anything :meth:`wald` accepts) with ``m`` rows each;
-            those are resolved first, which costs a Python pass per system.
-        d : scalar, (m,) or (k, m) array_like, optional
-            Right-hand sides for an array ``c`` (default 0).  Restrictions carry their own.
-        ids : sequence, optional
-            One identifier per system for the results (default ``0 .. k-1``).
-        covariance : str or estimator, optional
-            As in :meth:`wald` (default: the fit's own).
-        reference : {'F', 'chi2'}, default 'F'
-            As in :meth:`wald`.
-        on_invalid : {'raise', 'nan'}, default 'raise'
-            A system with contradictory rows, non-estimable rows or (under a robust estimator)
-            a singular covariance raises the error :meth:`wald` would raise, naming the
-            system and row; with ``'nan'`` it gets a NaN statistic and its ``status`` says why.
-
-        Returns
-        -------
-        WaldBatch
-
-        Raises
-        ------
-        RestrictionShapeError, EmptyRestrictionError
-            ``c`` or ``d`` has the wrong shape, holds NaN/inf or an all-zero row, or the
-            restriction systems differ in their number of rows.
-        InconsistentRestrictionError, NotEstimableError, SingularCovarianceError
-            As in :meth:`wald` (with ``on_invalid='raise'``).
-        DegenerateFitError
-            The residual sum of squares is zero.
-
-        Notes
-        -----
-        Redundant rows are found and handled as in :meth:`wald` (the F uses the rank).  The
-        arithmetic is in :mod:`lincomb.batch`: one triangular solve for all ``k·m`` rows, a
-        stacked QR of the small ``m``-column roots, and the single-system path for any
-        system with a row near a rank or estimability threshold, so the decisions are the
-        same as :meth:`wald`'s.
-
-        Examples
-        --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("fill_g ~ line + temperature_c", lc.datasets.fill_lines())
-        >>> pairs = [("line[T.L2]", "line[T.L3]"), ("line[T.L3]", "line[T.L4]")]
-        >>> systems = [(lc.coef(a) == lc.coef(b)) & (lc.coef("temperature_c") == 0)
-        ...            for a, b in pairs]
-        >>> b = f.wald_batch(systems, ids=["L2 vs L3", "L3 vs L4"])
-        >>> b.test_frame()[["system", "rank", "df_error"]]
-             system  rank  df_error
-        0  L2 vs L3     2   295.0
-        1  L3 vs L4     2   295.0
-        >>> bool(np.isclose(b.p[1], f.wald(systems[1]).p, rtol=1e-10))
-        True
-        """
-        from lincomb._fit.batch import wald_batch
-
-        return wald_batch(
-            self,
-            c,
-            d,
-            ids=ids,
-            covariance=covariance,
-            reference=reference,
-            on_invalid=on_invalid,
-        )
+    # the batch route is written with its arithmetic in lincomb._fit.batch
+    wald_batch = batch.wald_batch
 
     def restrict(self, restrictions: object) -> RestrictedFit:
         """Least squares subject to ``C·β = d``.
@@ -919,35 +810,6 @@ class LinearFit(ReportTables):
         )
 
 
-def aliasing_hint(fit: LinearFit) -> str:
-    """What may explain an aliased column beyond the design itself, for error messages.
-
-    Categories left unused by subsetting (named, with the fix), and weights so unequal that
-    rows weighted lightly barely inform the fit: a column seen only in such rows is aliased at
-    working precision (the ratio of the largest weight to the smallest is named).  Empty when
-    neither applies or the fit keeps no rows.
-
-    Examples
-    --------
-    >>> import numpy as np, lincomb as lc
-    >>> x = np.c_[np.ones(6), [0.0, 0, 0, 1, 1, 1]]
-    >>> f = lc.fit_arrays(x, [1.0, 2, 3, 5, 6, 8], weights=[1.0, 1, 1, 1e-60, 1e-60, 1e-60])
-    >>> "1e+60" in aliasing_hint(f)
-    True
-    """
-    hint = unused_level_hint(fit.design.encoder)
-    if fit.weighted and fit.design.has_rows:
-        w = np.asarray(fit.design.weights, dtype=np.float64)
-        ratio = float(w.max() / w.min()) if w.size and w.min() > 0 else float("inf")
-        if ratio > core.WEIGHT_SPREAD_PIVOT:
-            hint += (
-                f" The weights span a ratio of {ratio:.3g} (largest over smallest): a column seen"
-                " only in rows weighted that lightly is aliased at working precision. Rescale or"
-                " drop those rows if that is not intended."
-            )
-    return hint
-
-
 def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
     """``rootᵀ root``; entries past the float64 range become inf or 0 without a warning."""
     with np.errstate(over="ignore", under="ignore"):
@@ -955,13 +817,11 @@ def _gram(root: NDArray[np.float64]) -> NDArray[np.float64]:
     return out
 
 
+@_line_fit_doc
 def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
     """Factor a design's rows and fit (the in-memory route of every entry point).
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(line_fit_examples)s
     >>> fit_from_design(f.design, f.rank_tol).rss == f.rss
     True
     """
@@ -969,6 +829,7 @@ def fit_from_design(design: Design, rank_tol: float) -> LinearFit:
     return fit_from_moments(design, moments, rank_tol, rows=True)
 
 
+@_line_fit_doc
 def fit_from_moments(
     design: Design, moments: core.Moments, rank_tol: float, rows: bool = False
 ) -> LinearFit:
@@ -984,10 +845,7 @@ def fit_from_moments(
     DegenerateFitError
         No residual degrees of freedom.
 
-    Examples
-    --------
-    >>> import lincomb as lc
-    >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+    %(line_fit_examples)s
     >>> again = fit_from_moments(f.design, f.moments, f.rank_tol)
     >>> bool((again.coefficients == f.coefficients).all())
     True
@@ -1026,6 +884,7 @@ def fit_from_moments(
     )
 
 
+@fill_doc(rank_tol=RANK_TOL_PARAMETER)
 def fit(
     formula: str,
     data: pd.DataFrame,
@@ -1049,8 +908,7 @@ def fit(
     missing : {'skip', 'refuse'}, default 'skip'
         Rows with missing values in the formula's variables are dropped and counted
         (``n_dropped``, ``dropped_rows``), or raise :class:`~lincomb.errors.MissingValueError`.
-    rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb._core`).
+    %(rank_tol)s
 
     Returns
     -------

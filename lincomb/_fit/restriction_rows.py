@@ -7,14 +7,19 @@ rules and the wording of their errors are the same everywhere.
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._model.row_checks import unused_level_hint
 from lincomb.errors import InconsistentRestrictionError, NotEstimableError
 
-__all__ = ["check_rows", "refuse_inconsistent"]
+if TYPE_CHECKING:  # pragma: no cover
+    from lincomb._fit.linear import LinearFit
+
+__all__ = ["aliasing_hint", "check_rows", "refuse_inconsistent"]
 
 
 def refuse_inconsistent(analysis: core.RowAnalysis, labels: Sequence[str]) -> None:
@@ -114,3 +119,32 @@ def check_rows(
             + (hint if isinstance(hint, str) else hint())
         )
     return cu, analysis
+
+
+def aliasing_hint(fit: LinearFit) -> str:
+    """What may explain an aliased column beyond the design itself, for error messages.
+
+    Categories left unused by subsetting (named, with the fix), and weights so unequal that
+    rows weighted lightly barely inform the fit: a column seen only in such rows is aliased at
+    working precision (the ratio of the largest weight to the smallest is named).  Empty when
+    neither applies or the fit keeps no rows.
+
+    Examples
+    --------
+    >>> import numpy as np, lincomb as lc
+    >>> x = np.c_[np.ones(6), [0.0, 0, 0, 1, 1, 1]]
+    >>> f = lc.fit_arrays(x, [1.0, 2, 3, 5, 6, 8], weights=[1.0, 1, 1, 1e-60, 1e-60, 1e-60])
+    >>> "1e+60" in aliasing_hint(f)
+    True
+    """
+    hint = unused_level_hint(fit.design.encoder)
+    if fit.weighted and fit.design.has_rows:
+        w = np.asarray(fit.design.weights, dtype=np.float64)
+        ratio = float(w.max() / w.min()) if w.size and w.min() > 0 else float("inf")
+        if ratio > core.WEIGHT_SPREAD_PIVOT:
+            hint += (
+                f" The weights span a ratio of {ratio:.3g} (largest over smallest): a column seen"
+                " only in rows weighted that lightly is aliased at working precision. Rescale or"
+                " drop those rows if that is not intended."
+            )
+    return hint

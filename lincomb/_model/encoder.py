@@ -299,15 +299,9 @@ class FormulaEncoder:
             _response_variables=response_vars,
             _spec=spec,
         )
-        rows = encoder._finish(
-            rhs_mm,
-            mm.lhs if lhs else None,
-            sub,
-            _kept(w, na),
-            data.index[na],
-            len(data),
-            where,
-            keep_frame,
+        x, y = encoder._arrays(rhs_mm, mm.lhs if lhs else None, where)
+        rows = encoder._checked(
+            x, y, sub, _kept(w, na), data.index[na], len(data), where, keep_frame
         )
         if column_plan and len(sub):
             plan = ColumnPlan.build(rhs_spec, spec.lhs if lhs else None, sub, rows.x)
@@ -607,51 +601,35 @@ class FormulaEncoder:
             y = None if self.response is None else np.zeros(0)
             wz = None if w is None else np.zeros(0)
             return EncodedRows(np.zeros((0, p)), y, wz, sub.index, dropped, len(frame), None)
+        # the column plan gives the same numbers as formulaic's (see ColumnPlan), faster
         direct = None if self._columns is None else self._columns.columns(sub)
-        if direct is not None:  # the same numbers as formulaic's (see ColumnPlan)
-            return self._checked(*direct, sub, _kept(w, na), dropped, len(frame), where, keep_frame)
-        mm = self._model_matrix(
-            self._spec,
-            sub,
-            formulaic.errors.DataMismatchWarning,
-            f"{_prefix(where)}could not encode the rows: ",
-            lambda levels: (
-                f"{where or 'the data'} holds a factor level the encoding lacks"
-                f" {levels} Declare every level up front (levels={{'column': [...]}}) so that each"
-                " chunk is encoded alike, or drop those rows."
-            ),
-        )
-        two = self.response is not None
-        return self._finish(
-            mm.rhs if two else mm,
-            mm.lhs if two else None,
-            sub,
-            _kept(w, na),
-            dropped,
-            len(frame),
-            where,
-            keep_frame,
-        )
+        if direct is None:
+            mm = self._model_matrix(
+                self._spec,
+                sub,
+                formulaic.errors.DataMismatchWarning,
+                f"{_prefix(where)}could not encode the rows: ",
+                lambda levels: (
+                    f"{where or 'the data'} holds a factor level the encoding lacks"
+                    f" {levels} Declare every level up front (levels={{'column': [...]}}) so that"
+                    " each chunk is encoded alike, or drop those rows."
+                ),
+            )
+            two = self.response is not None
+            direct = self._arrays(mm.rhs if two else mm, mm.lhs if two else None, where)
+        return self._checked(*direct, sub, _kept(w, na), dropped, len(frame), where, keep_frame)
 
-    def _finish(
-        self,
-        rhs: Any,
-        lhs: Any,
-        sub: pd.DataFrame,
-        w: pd.Series | None,
-        dropped: pd.Index,
-        rows_read: int,
-        where: str | None,
-        keep_frame: bool,
-    ) -> EncodedRows:
-        """Validate encoded matrices into arrays (the one place rows are checked)."""
+    def _arrays(
+        self, rhs: Any, lhs: Any, where: str | None
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+        """Formulaic's design and response matrices as float arrays."""
         x = _float_columns(rhs)
         if x.shape[1] != self.index.p:  # pragma: no cover - the spec fixes the columns
             raise InputError(
                 f"{_prefix(where)}encoded to {x.shape[1]} columns instead of {self.index.p}."
             )
         y = None if lhs is None else np.array(lhs.to_numpy(dtype=np.float64)[:, 0], copy=True)
-        return self._checked(x, y, sub, w, dropped, rows_read, where, keep_frame)
+        return x, y
 
     def _checked(
         self,
@@ -665,7 +643,7 @@ class FormulaEncoder:
         keep_frame: bool,
     ) -> EncodedRows:
         """Check new design and response arrays of the rows ``sub`` (finite values, weights
-        ``w``, one per row of ``sub``)."""
+        ``w``, one per row of ``sub``): the one place encoded rows are checked."""
         rows = sub.index
         _check_finite(x, f"{_prefix(where)}design", self.index.names, rows)
         if y is not None:

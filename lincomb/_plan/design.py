@@ -20,7 +20,7 @@ from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_tolerance
-from lincomb._docstrings import fill_doc
+from lincomb._docstrings import RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit.linear import LinearFit
 from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
 from lincomb._plan.checks import check_replicates
@@ -174,6 +174,7 @@ class PlannedDesign:
         return f"<div class='lincomb-plan'><p>{html.escape(self._head())}</p></div>"
 
 
+@fill_doc(rank_tol=RANK_TOL_PARAMETER)
 def planned_design(
     source: PlannedDesign | LinearFit | str | ArrayLike | pd.DataFrame,
     data: pd.DataFrame | None = None,
@@ -200,8 +201,7 @@ def planned_design(
         Planned precision weights (a column of ``data`` or an array): ``XᵀWX`` replaces ``XᵀX``.
     names : sequence of str, optional
         Column names for an array design.
-    rank_tol : float, default 1e-10
-        Relative rank tolerance (see :mod:`lincomb._core`).
+    %(rank_tol)s
 
     Returns
     -------
