@@ -3,10 +3,11 @@
 :func:`stack_systems` gives the ``(C, d)`` of ``k`` systems of ``m`` rows each as ``(k, m, p)``
 and ``(k, m)`` arrays, with the values :meth:`RestrictionSystem.resolve
 <lincomb._builder.restriction.RestrictionSystem.resolve>` gives each system, but without a row
-array or a label per restriction: what costs time per system is touching its Python objects,
-so the restrictions' references, weights and targets are gathered by C-level passes
-(``itertools.chain``, ``operator.attrgetter``, ``numpy.fromiter``), each distinct reference is
-resolved once, and the weights are summed into ``C`` by one ``numpy.bincount``.
+array or a label per restriction.  What costs time per system is touching its Python objects,
+so a system of plain restrictions carries its rows as four flat tuples made when it was built
+(references, weights, references per row, targets); the stack chains the systems' tuples into
+arrays by C-level passes (``itertools.chain``, ``numpy.fromiter``), resolves each distinct
+reference once per call, and sums the weights into ``C`` by one ``numpy.bincount``.
 """
 
 from __future__ import annotations
@@ -21,10 +22,9 @@ from lincomb._builder.restriction import (
     Resolver,
     Restriction,
     RestrictionSystem,
-    _items_of,
+    _flat_of,
     _Ref,
-    _target_of,
-    _terms_of,
+    _ref_column,
 )
 
 __all__ = ["stack_systems"]
@@ -36,10 +36,11 @@ def stack_systems(
     """``(C, d)`` of ``k`` systems of ``m`` rows each, as ``(k, m, p)`` and ``(k, m)`` arrays.
 
     The values are those of :meth:`RestrictionSystem.resolve` for each system, stacked, but no
-    row array or label is made per restriction: the weights of every restriction are gathered
-    into one list and summed into ``C`` by one ``numpy.bincount`` (in the order
-    :meth:`Expr.row` adds them).  Other items (term targets, explicit matrices, level contrasts)
-    give their rows as :meth:`~RestrictionSystem.resolve` does.  Labels are left to
+    row array or label is made per restriction: the references and weights of every
+    restriction are chained from the flat tuples each system was built with and summed into
+    ``C`` by one ``numpy.bincount`` (in the order :meth:`Expr.row` adds them).  Other items
+    (term targets, explicit matrices, level contrasts) give their rows as
+    :meth:`~RestrictionSystem.resolve` does.  Labels are left to
     :meth:`RestrictionSystem.row_labels`.
 
     Returns None when the systems differ in their number of rows or hold none, or when a row
@@ -57,24 +58,23 @@ def stack_systems(
     ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
     """
     p = len(index.names)
-    per_system = list(map(_items_of, systems))
-    items = list(chain.from_iterable(per_system))
-    if set(map(type, items)) == {Restriction}:  # one row per item: C-level passes only
-        terms: list[dict[_Ref, float]] = list(map(_terms_of, items))
+    flats = list(map(_flat_of, systems))
+    if flats and None not in flats:  # plain restrictions only: C-level passes
+        refs, weights, counts, targets = zip(*flats, strict=True)
         return _stacked(
             index,
             p,
-            list(map(len, per_system)),
-            chain.from_iterable(terms),
-            chain.from_iterable(map(dict.values, terms)),
-            list(map(len, terms)),
-            list(map(_target_of, items)),
+            list(map(len, targets)),
+            chain.from_iterable(refs),
+            chain.from_iterable(weights),
+            chain.from_iterable(counts),
+            chain.from_iterable(targets),
             [],
         )
-    refs: list[_Ref] = []
-    weights: list[float] = []
-    counts: list[int] = []  # references per row
-    targets: list[float] = []
+    refs_: list[_Ref] = []
+    weights_: list[float] = []
+    counts_: list[int] = []  # references per row
+    targets_: list[float] = []
     dense: list[tuple[int, NDArray[np.float64]]] = []
     sizes: list[int] = []
     row = 0
@@ -82,20 +82,20 @@ def stack_systems(
         start = row
         for item in system.items:
             if type(item) is Restriction:
-                found = _terms_of(item)
-                refs.extend(found)
-                weights.extend(found.values())
-                counts.append(len(found))
-                targets.append(item.target)
+                found, w, n, d = _flat_of(item)
+                refs_.extend(found)
+                weights_.extend(w)
+                counts_.extend(n)
+                targets_.extend(d)
                 row += 1
             else:
                 for values, target, _label in item.rows(index):
                     dense.append((row, values))
-                    counts.append(0)
-                    targets.append(target)
+                    counts_.append(0)
+                    targets_.append(target)
                     row += 1
         sizes.append(row - start)
-    return _stacked(index, p, sizes, refs, weights, counts, targets, dense)
+    return _stacked(index, p, sizes, refs_, weights_, counts_, targets_, dense)
 
 
 class _Columns(dict[_Ref, int]):
@@ -106,7 +106,7 @@ class _Columns(dict[_Ref, int]):
         self.index = index
 
     def __missing__(self, ref: _Ref) -> int:
-        j = self[ref] = ref.resolve(self.index)
+        j = self[ref] = _ref_column(ref, self.index)
         return j
 
 
@@ -116,8 +116,8 @@ def _stacked(
     sizes: list[int],
     refs: Iterable[_Ref],
     weights: Iterable[float],
-    counts: list[int],
-    targets: list[float],
+    counts: Iterable[int],
+    targets: Iterable[float],
     dense: list[tuple[int, NDArray[np.float64]]],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
     """``(C, d)`` from the gathered references (``counts`` per row), weights and targets."""
@@ -125,9 +125,12 @@ def _stacked(
     m = sizes[0] if sizes else 0
     if m == 0 or sizes.count(m) != k:
         return None
-    rows = len(targets)
+    rows = k * m
     cols = _Columns(index)  # each reference resolved once, on its first look-up
-    at = np.repeat(np.arange(rows, dtype=np.intp) * p, counts)
+    at = np.repeat(
+        np.arange(0, rows * p, p, dtype=np.intp),
+        np.fromiter(counts, dtype=np.intp, count=rows),
+    )
     n = at.size
     at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=n)
     w = np.fromiter(weights, dtype=np.float64, count=n)
@@ -140,4 +143,5 @@ def _stacked(
     # slower for a tall C
     if not np.logical_or.reduce(np.ascontiguousarray((c != 0).T), axis=0).all():
         return None
-    return c.reshape(k, m, p), np.array(targets, dtype=np.float64).reshape(k, m)
+    d = np.fromiter(targets, dtype=np.float64, count=rows)
+    return c.reshape(k, m, p), d.reshape(k, m)
