@@ -351,3 +351,25 @@ def test_expression_arithmetic_keeps_the_weights(cars):
         assert built is not e
     assert e.text() == "wt - 0.25*hp"
     assert (e == 1).text() == "wt - 0.25*hp = 1" and e.text() == "wt - 0.25*hp"
+
+
+def test_a_subclass_of_restriction_gives_its_rows_through_rows(cars):
+    fit, _, _ = cars
+    names = list(fit.names)
+
+    class Doubled(lc.Restriction):
+        __slots__ = ()
+
+        def rows(self, index):
+            for row, target, label in super().rows(index):
+                yield 2 * row, 2 * target, label
+
+    doubled = Doubled(lc.coef("wt") - lc.coef("hp"), 1.0)
+    systems = [doubled & (lc.coef(n) == 0) for n in ("Intercept", "C(gear)[T.4]")]
+    # hand-built: the subclass's rows, twice the restriction's
+    c = np.zeros((2, 2, len(names)))
+    c[:, 0, names.index("wt")], c[:, 0, names.index("hp")] = 2.0, -2.0
+    c[0, 1, names.index("Intercept")] = c[1, 1, names.index("C(gear)[T.4]")] = 1.0
+    d = np.array([[2.0, 0.0], [2.0, 0.0]])
+    assert_same_batch(fit.wald_batch(systems), fit.wald_batch(c, d))
+    np.testing.assert_array_equal(fit.resolve(systems[1])[0], c[1])

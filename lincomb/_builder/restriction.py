@@ -470,8 +470,12 @@ class Restriction(_Item):
         self._target = target = float(target)
         self._label = label
         # the row in the form batches read (see _Flat), made once here: the fields are
-        # read-only, so it cannot go stale
-        self._flat: _Flat = (tuple(terms), tuple(terms.values()), (len(terms),), (target,))
+        # read-only, so it cannot go stale.  A subclass gives its rows through rows()
+        self._flat: _Flat | None = (
+            (tuple(terms), tuple(terms.values()), (len(terms),), (target,))
+            if type(self) is Restriction
+            else None
+        )
 
     @property
     def expr(self) -> Expr:
