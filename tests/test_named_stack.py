@@ -1,7 +1,7 @@
 """Named batches read the flat rows a restriction keeps from construction.
 
-A plain restriction carries its references, weights and target as flat tuples made when it is
-built, and ``fit.wald_batch(systems)`` chains those of all systems into one stacked ``C``
+A plain restriction carries its references, weights and target in a flat form made when it is
+built, and ``fit.wald_batch(systems)`` joins those of all systems into one stacked ``C``
 (:func:`lincomb._builder.stack.stack_systems`); anything the chained path cannot take falls
 back to resolving system by system.  The references here are outside that code:
 
@@ -373,3 +373,44 @@ def test_a_subclass_of_restriction_gives_its_rows_through_rows(cars):
     d = np.array([[2.0, 0.0], [2.0, 0.0]])
     assert_same_batch(fit.wald_batch(systems), fit.wald_batch(c, d))
     np.testing.assert_array_equal(fit.resolve(systems[1])[0], c[1])
+
+
+def test_weights_and_targets_reach_the_stack_bit_for_bit(cars):
+    fit, _, _ = cars
+    names = list(fit.names)
+    # weights and targets that are not dyadic, tiny, huge: one column per weight, so no sums
+    # and the hand-built C holds the very floats the test wrote
+    weights = [0.1, 1 / 3, -2.5e-8, 1e-300, 1e300, -7.0]
+    targets = [0.3, -1e10]
+    r0 = weights[0] * lc.coef("wt") + lc.coef("hp") * weights[1] == targets[0]
+    r1 = (
+        weights[2] * lc.coef("Intercept")
+        + weights[3] * lc.term("C(cyl)")["6"]
+        + weights[4] * lc.coef("C(gear)[T.5]")
+        + weights[5] * lc.term("C(cyl):wt")["8"]
+        == targets[1]
+    )
+    c = np.zeros((1, 2, len(names)))
+    for (row, col), w in zip(
+        [
+            (0, "wt"),
+            (0, "hp"),
+            (1, "Intercept"),
+            (1, "C(cyl)[T.6]"),
+            (1, "C(gear)[T.5]"),
+            (1, "C(cyl)[T.8]:wt"),
+        ],
+        weights,
+        strict=True,
+    ):
+        c[0, row, names.index(col)] = w
+    stacked = stack_systems([r0 & r1], fit.resolver)
+    assert stacked is not None
+    np.testing.assert_array_equal(stacked[0], c)
+    np.testing.assert_array_equal(stacked[1], [targets])
+    moderate = [(r0 & (lc.coef("wt") == t)) for t in targets]
+    c2 = np.repeat(c[:, :1], 2, axis=1).repeat(2, axis=0)
+    c2[:, 1] = 0.0
+    c2[:, 1, names.index("wt")] = 1.0
+    d2 = np.array([[targets[0], targets[0]], [targets[0], targets[1]]])
+    assert_same_batch(fit.wald_batch(moderate), fit.wald_batch(c2, d2))

@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import math
 import numbers
+import struct
+from array import array
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from itertools import chain
@@ -133,11 +135,17 @@ def _ref_column(ref: _Ref, index: Resolver) -> int:
     return index.column(ref) if isinstance(ref, str) else ref.resolve(index)
 
 
-# Rows of plain restrictions in the form a batch reads without touching each restriction:
-# (references of every row, in order; their weights; references per row; targets), four flat
-# tuples made when the restriction or system is built.  A system of k plain rows concatenates
-# its rows' tuples; a batch chains the systems' tuples into arrays.
-_Flat = tuple[tuple[_Ref, ...], tuple[float, ...], tuple[int, ...], tuple[float, ...]]
+# Rows of plain restrictions in the form a batch reads without touching each restriction,
+# made when the restriction or system is built: (the references of every row, in order; their
+# weights as float64 bytes; per row, its number of references and its target as two float64
+# bytes).  A system of k plain rows concatenates its rows' parts; a batch joins the systems'
+# bytes into arrays (numpy.frombuffer) and chains their references.  Bytes and tuples are
+# immutable, and packing a float64 is exact.
+_Flat = tuple[tuple[_Ref, ...], bytes, bytes]
+_pack_row = struct.Struct("dd").pack
+_pack_weights = tuple(struct.Struct(f"{n}d").pack for n in range(16))  # by number of weights
+#: bytes per row in the third part of a :data:`_Flat`
+_ROW_BYTES = struct.calcsize("dd")
 
 _BOOL_MSG = (
     "a restriction has no truth value: combine restrictions with '&' (not 'and'), and test"
@@ -387,7 +395,7 @@ class TermRef(_EqualitiesOnly):
 
     def __getitem__(self, key: object) -> Expr:
         keys = tuple(key) if isinstance(key, tuple) else (key,)
-        return Expr({_Level(self.name, tuple(str(k) for k in keys)): 1.0})
+        return Expr({_Level(self.name, tuple(map(str, keys))): 1.0})
 
     def __eq__(self, other: object) -> RestrictionSystem:  # type: ignore[override]
         if _is_number(other):
@@ -471,8 +479,15 @@ class Restriction(_Item):
         self._label = label
         # the row in the form batches read (see _Flat), made once here: the fields are
         # read-only, so it cannot go stale.  A subclass gives its rows through rows()
+        n = len(terms)
         self._flat: _Flat | None = (
-            (tuple(terms), tuple(terms.values()), (len(terms),), (target,))
+            (
+                tuple(terms),
+                _pack_weights[n](*terms.values())
+                if n < 16
+                else array("d", terms.values()).tobytes(),
+                _pack_row(n, target),
+            )
             if type(self) is Restriction
             else None
         )
@@ -805,18 +820,13 @@ def _flat_rows(items: tuple[_Item, ...]) -> _Flat | None:
     if len(plain) == 2:
         return _concat(*plain)
     if not plain:
-        return ((), (), (), ())
-    refs, weights, counts, targets = zip(*plain, strict=True)
-    return (
-        tuple(chain.from_iterable(refs)),
-        tuple(chain.from_iterable(weights)),
-        tuple(chain.from_iterable(counts)),
-        tuple(chain.from_iterable(targets)),
-    )
+        return ((), b"", b"")
+    refs, weights, rows = zip(*plain, strict=True)
+    return (tuple(chain.from_iterable(refs)), b"".join(weights), b"".join(rows))
 
 
 def _concat(a: _Flat, b: _Flat) -> _Flat:
-    return (a[0] + b[0], a[1] + b[1], a[2] + b[2], a[3] + b[3])
+    return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
 
 
 def _resolve_restrictions(

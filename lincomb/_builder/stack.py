@@ -4,10 +4,11 @@
 and ``(k, m)`` arrays, with the values :meth:`RestrictionSystem.resolve
 <lincomb._builder.restriction.RestrictionSystem.resolve>` gives each system, but without a row
 array or a label per restriction.  What costs time per system is touching its Python objects,
-so a system of plain restrictions carries its rows as four flat tuples made when it was built
-(references, weights, references per row, targets); the stack chains the systems' tuples into
-arrays by C-level passes (``itertools.chain``, ``numpy.fromiter``), resolves each distinct
-reference once per call, and sums the weights into ``C`` by one ``numpy.bincount``.
+so a system of plain restrictions carries its rows in a flat form made when it was built (a
+tuple of references; weights, and per row the number of references and the target, as float64
+bytes): the stack joins the systems' bytes into arrays (``numpy.frombuffer``), chains their
+references through one C-level pass (``numpy.fromiter``), resolves each distinct reference
+once per call, and sums the weights into ``C`` by one ``numpy.bincount``.
 """
 
 from __future__ import annotations
@@ -19,10 +20,12 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._builder.restriction import (
+    _ROW_BYTES,
     Resolver,
     Restriction,
     RestrictionSystem,
     _flat_of,
+    _pack_row,
     _Ref,
     _ref_column,
 )
@@ -36,10 +39,10 @@ def stack_systems(
     """``(C, d)`` of ``k`` systems of ``m`` rows each, as ``(k, m, p)`` and ``(k, m)`` arrays.
 
     The values are those of :meth:`RestrictionSystem.resolve` for each system, stacked, but no
-    row array or label is made per restriction: the references and weights of every
-    restriction are chained from the flat tuples each system was built with and summed into
-    ``C`` by one ``numpy.bincount`` (in the order :meth:`Expr.row` adds them).  Other items
-    (term targets, explicit matrices, level contrasts) give their rows as
+    row array or label is made per restriction: the references, weights and targets of every
+    restriction are joined from the flat form each system was built with and the weights summed
+    into ``C`` by one ``numpy.bincount`` (in the order :meth:`Expr.row` adds them).  Other
+    items (term targets, explicit matrices, level contrasts) give their rows as
     :meth:`~RestrictionSystem.resolve` does.  Labels are left to
     :meth:`RestrictionSystem.row_labels`.
 
@@ -57,45 +60,35 @@ def stack_systems(
     >>> c.shape, c[1, 0].tolist()
     ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
     """
-    p = len(index.names)
     flats = list(map(_flat_of, systems))
-    if flats and None not in flats:  # plain restrictions only: C-level passes
-        refs, weights, counts, targets = zip(*flats, strict=True)
+    if flats and None not in flats:  # plain restrictions only: no pass per restriction
+        refs, weights, rows = zip(*flats, strict=True)
+        sizes = list(map(len, rows))  # bytes: _ROW_BYTES per row
         return _stacked(
-            index,
-            p,
-            list(map(len, targets)),
-            chain.from_iterable(refs),
-            chain.from_iterable(weights),
-            chain.from_iterable(counts),
-            chain.from_iterable(targets),
-            [],
+            index, sizes[0] // _ROW_BYTES, sizes, chain.from_iterable(refs), weights, rows, []
         )
     refs_: list[_Ref] = []
-    weights_: list[float] = []
-    counts_: list[int] = []  # references per row
-    targets_: list[float] = []
+    weights_: list[bytes] = []
+    rows_: list[bytes] = []
     dense: list[tuple[int, NDArray[np.float64]]] = []
-    sizes: list[int] = []
+    sizes_: list[int] = []
     row = 0
     for system in systems:
         start = row
         for item in system.items:
             if type(item) is Restriction:
-                found, w, n, d = _flat_of(item)
+                found, w, info = _flat_of(item)
                 refs_.extend(found)
-                weights_.extend(w)
-                counts_.extend(n)
-                targets_.extend(d)
+                weights_.append(w)
+                rows_.append(info)
                 row += 1
             else:
                 for values, target, _label in item.rows(index):
                     dense.append((row, values))
-                    counts_.append(0)
-                    targets_.append(target)
+                    rows_.append(_pack_row(0, target))
                     row += 1
-        sizes.append(row - start)
-    return _stacked(index, p, sizes, refs_, weights_, counts_, targets_, dense)
+        sizes_.append(row - start)
+    return _stacked(index, sizes_[0] if sizes_ else 0, sizes_, refs_, weights_, rows_, dense)
 
 
 class _Columns(dict[_Ref, int]):
@@ -112,30 +105,27 @@ class _Columns(dict[_Ref, int]):
 
 def _stacked(
     index: Resolver,
-    p: int,
+    m: int,
     sizes: list[int],
     refs: Iterable[_Ref],
-    weights: Iterable[float],
-    counts: Iterable[int],
-    targets: Iterable[float],
+    weights: Iterable[bytes],
+    rows: Iterable[bytes],
     dense: list[tuple[int, NDArray[np.float64]]],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
-    """``(C, d)`` from the gathered references (``counts`` per row), weights and targets."""
+    """``(C, d)`` of ``len(sizes)`` systems of ``m`` rows from their references, weights and
+    rows (references per row and target, as bytes), unless the ``sizes`` are not all alike."""
     k = len(sizes)
-    m = sizes[0] if sizes else 0
-    if m == 0 or sizes.count(m) != k:
+    if m == 0 or sizes.count(sizes[0]) != k:
         return None
-    rows = k * m
-    cols = _Columns(index)  # each reference resolved once, on its first look-up
-    at = np.repeat(
-        np.arange(0, rows * p, p, dtype=np.intp),
-        np.fromiter(counts, dtype=np.intp, count=rows),
-    )
+    p = len(index.names)
+    info = np.frombuffer(b"".join(rows), dtype=np.float64).reshape(k * m, 2)
+    w = np.frombuffer(b"".join(weights), dtype=np.float64)
+    at = np.repeat(np.arange(0, k * m * p, p, dtype=np.intp), info[:, 0].astype(np.intp))
     n = at.size
+    cols = _Columns(index)  # each reference resolved once, on its first look-up
     at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=n)
-    w = np.fromiter(weights, dtype=np.float64, count=n)
-    flat = np.bincount(at, w, minlength=rows * p)
-    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(rows, p)
+    flat = np.bincount(at, w, minlength=k * m * p)
+    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(k * m, p)
     for i, values in dense:
         c[i] = values
     # a row whose weights cancel: resolve() names it.  Reduced down the columns of the
@@ -143,5 +133,4 @@ def _stacked(
     # slower for a tall C
     if not np.logical_or.reduce(np.ascontiguousarray((c != 0).T), axis=0).all():
         return None
-    d = np.fromiter(targets, dtype=np.float64, count=rows)
-    return c.reshape(k, m, p), d.reshape(k, m)
+    return c.reshape(k, m, p), info[:, 1].reshape(k, m).copy()
