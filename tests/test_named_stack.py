@@ -414,3 +414,32 @@ def test_weights_and_targets_reach_the_stack_bit_for_bit(cars):
     c2[:, 1, names.index("wt")] = 1.0
     d2 = np.array([[targets[0], targets[0]], [targets[0], targets[1]]])
     assert_same_batch(fit.wald_batch(moderate), fit.wald_batch(c2, d2))
+
+
+def test_rows_of_many_references_are_packed_alike(mtcars):
+    # more references in one row than the prepared packers take (16): the other packing path
+    fit = lc.fit("mpg ~ wt + hp + disp + qsec + drat + am + vs + C(carb) + C(gear)", mtcars)
+    names = list(fit.names)
+    carb, gear = lc.term("C(carb)"), lc.term("C(gear)")
+    by_level = [(carb[v], f"C(carb)[T.{v}]") for v in (2, 3, 4, 6, 8)]
+    by_level += [(gear[v], f"C(gear)[T.{v}]") for v in (4, 5)]
+    long_row = sum(
+        ((j + 1) * lc.coef(n) for j, n in enumerate(names)), start=0.5 * lc.coef("wt")
+    ) - sum(ref / 2 for ref, _ in by_level)
+    short_row = lc.coef("hp") == 0.25
+    systems = [(long_row == 1.5) & short_row, short_row & (long_row == -3)]
+    c = np.zeros((2, 2, len(names)))
+    for s, row in ((0, 0), (1, 1)):
+        c[s, row, names.index("wt")] += 0.5
+        for j in range(len(names)):
+            c[s, row, j] += j + 1
+        for _, n in by_level:
+            c[s, row, names.index(n)] -= 0.5
+        c[s, 1 - row, names.index("hp")] = 1.0
+    d = np.array([[1.5, 0.25], [0.25, -3.0]])
+    assert len(names) + len(by_level) > 16  # distinct references in the long row
+    stacked = stack_systems(systems, fit.resolver)
+    assert stacked is not None
+    np.testing.assert_array_equal(stacked[0], c)
+    np.testing.assert_array_equal(stacked[1], d)
+    assert_same_batch(fit.wald_batch(systems), fit.wald_batch(c, d))

@@ -484,7 +484,7 @@ class Restriction(_Item):
             (
                 tuple(terms),
                 _pack_weights[n](*terms.values())
-                if n < 16
+                if n < len(_pack_weights)
                 else array("d", terms.values()).tobytes(),
                 _pack_row(n, target),
             )
