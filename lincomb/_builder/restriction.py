@@ -18,11 +18,14 @@ from __future__ import annotations
 
 import math
 import numbers
+import struct
+from array import array
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from itertools import chain
 from operator import attrgetter
 from types import NotImplementedType
-from typing import Any, NamedTuple, Protocol, TypeGuard
+from typing import Any, NamedTuple, Protocol, TypeGuard, cast
 
 import numpy as np
 import pandas as pd
@@ -99,18 +102,9 @@ class Resolver(Protocol):
         ...
 
 
-# References are named tuples, not dataclasses: an expression keys its weights by them, and a
-# tuple's hash and equality run in C (a batch of systems looks up thousands of them)
-class _Name(NamedTuple):
-    name: str
-
-    def label(self) -> str:
-        return self.name
-
-    def resolve(self, index: Resolver) -> int:
-        return index.column(self.name)
-
-
+# References: a coefficient is its name, a plain string; a level of a term is a named tuple.
+# An expression keys its weights by them, and a batch of systems looks up thousands of them:
+# a string's hash is cached, and a tuple's hash and equality run in C
 class _Level(NamedTuple):
     term: str
     key: tuple[str, ...]
@@ -123,7 +117,35 @@ class _Level(NamedTuple):
         return index.level_column(self.term, self.key)
 
 
-_Ref = _Name | _Level
+_Ref = str | _Level
+
+# readers of this module's private fields, for the functions outside the classes and the
+# C-level passes of :func:`lincomb._builder.stack.stack_systems`
+_expr_terms = attrgetter("_terms")
+_terms_of = attrgetter("_expr._terms")
+_flat_of = attrgetter("_flat")
+
+
+def _ref_label(ref: _Ref) -> str:
+    return ref if isinstance(ref, str) else ref.label()
+
+
+def _ref_column(ref: _Ref, index: Resolver) -> int:
+    """Position of the coefficient ``ref`` names, through the resolver's look-ups."""
+    return index.column(ref) if isinstance(ref, str) else ref.resolve(index)
+
+
+# Rows of plain restrictions in the form a batch reads without touching each restriction,
+# made when the restriction or system is built: (the references of every row, in order; their
+# weights as float64 bytes; per row, its number of references and its target as two float64
+# bytes).  A system of k plain rows concatenates its rows' parts; a batch joins the systems'
+# bytes into arrays (numpy.frombuffer) and chains their references.  Bytes and tuples are
+# immutable, and packing a float64 is exact.
+_Flat = tuple[tuple[_Ref, ...], bytes, bytes]
+_pack_row = struct.Struct("dd").pack
+_pack_weights = tuple(struct.Struct(f"{n}d").pack for n in range(16))  # by number of weights
+#: bytes per row in the third part of a :data:`_Flat`
+_ROW_BYTES = struct.calcsize("dd")
 
 _BOOL_MSG = (
     "a restriction has no truth value: combine restrictions with '&' (not 'and'), and test"
@@ -200,18 +222,30 @@ class Expr(_EqualitiesOnly):
         self._terms: dict[_Ref, float] = {k: float(v) for k, v in (terms or {}).items() if v != 0}
         self._const = float(const)
 
+    @staticmethod
+    def _made(terms: dict[_Ref, float], const: float) -> Expr:
+        """An expression over ``terms`` as they are: non-zero floats in a dict that nothing
+        changes (expressions never change their dict, so they may share one)."""
+        e: Expr = Expr.__new__(Expr)
+        e._terms = terms
+        e._const = const
+        return e
+
     # -- arithmetic ---------------------------------------------------------------------
     def _combine(self, other: object, sign: float) -> Expr | NotImplementedType:
         if isinstance(other, Expr):
             rhs: Expr = other
             terms = dict(self._terms)
+            get = terms.get
             for k, v in rhs._terms.items():
-                terms[k] = terms.get(k, 0.0) + sign * v
-            return Expr(terms, self._const + sign * rhs._const)
+                terms[k] = get(k, 0.0) + sign * v
+            if 0.0 in terms.values():  # a weight cancelled: left out, as __init__ does
+                terms = {k: v for k, v in terms.items() if v != 0}
+            return Expr._made(terms, self._const + sign * rhs._const)
         if _is_number(other):
             if not math.isfinite(float(other)):
                 raise RestrictionShapeError(f"constant {other!r} is not finite.")
-            return Expr(self._terms, self._const + sign * float(other))
+            return Expr._made(self._terms, self._const + sign * float(other))
         return NotImplemented  # type: ignore[no-any-return]  # typeshed types it as Any
 
     def __add__(self, other: object) -> Expr:
@@ -267,7 +301,7 @@ class Expr(_EqualitiesOnly):
             diff = self - other
         else:
             return NotImplemented
-        return Restriction(Expr(diff._terms), 0.0 - diff._const if diff._const else 0.0)
+        return Restriction(Expr._made(diff._terms, 0.0), 0.0 - diff._const if diff._const else 0.0)
 
     # -- presentation -------------------------------------------------------------------
     def text(self) -> str:
@@ -282,7 +316,8 @@ class Expr(_EqualitiesOnly):
         parts: list[str] = []
         for ref, w in self._terms.items():
             mag = abs(w)
-            body = ref.label() if mag == 1 else f"{_fmt_num(mag)}*{ref.label()}"
+            name = _ref_label(ref)
+            body = name if mag == 1 else f"{_fmt_num(mag)}*{name}"
             if not parts:
                 parts.append(body if w > 0 else f"-{body}")
             else:
@@ -310,7 +345,7 @@ class Expr(_EqualitiesOnly):
         """
         row = np.zeros(len(index.names))
         for ref, w in self._terms.items():
-            row[ref.resolve(index)] += w
+            row[_ref_column(ref, index)] += w
         return row
 
 
@@ -331,7 +366,7 @@ def coef(name: str) -> Expr:
     """
     if not isinstance(name, str) or not name:
         raise RestrictionSyntaxError(f"coef() needs a non-empty column name, got {name!r}.")
-    return Expr({_Name(name): 1.0})
+    return Expr({name: 1.0})
 
 
 @dataclass(frozen=True, eq=False)
@@ -360,7 +395,7 @@ class TermRef(_EqualitiesOnly):
 
     def __getitem__(self, key: object) -> Expr:
         keys = tuple(key) if isinstance(key, tuple) else (key,)
-        return Expr({_Level(self.name, tuple(str(k) for k in keys)): 1.0})
+        return Expr({_Level(self.name, tuple(map(str, keys))): 1.0})
 
     def __eq__(self, other: object) -> RestrictionSystem:  # type: ignore[override]
         if _is_number(other):
@@ -395,6 +430,9 @@ def term(name: str) -> TermRef:
 class _Item:
     """One building block of a system: resolves into one or more rows."""
 
+    #: the rows as batches read them (see ``_Flat``); only a plain restriction has them
+    _flat: _Flat | None = None
+
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         raise NotImplementedError
 
@@ -427,13 +465,47 @@ class Restriction(_Item):
     <Restriction: equal effects (a - b = 0)>
     """
 
-    __slots__ = ("expr", "target", "label")
+    __slots__ = ("_expr", "_target", "_label", "_flat")
     __hash__ = None  # type: ignore[assignment]
 
     def __init__(self, expr: Expr, target: float, label: str | None = None) -> None:
-        self.expr = expr
-        self.target = float(target)
-        self.label = label
+        if not isinstance(expr, Expr):
+            raise RestrictionSyntaxError(
+                f"a restriction is built from an expression, e.g. coef('x') == 0; got {expr!r}."
+            )
+        terms = _expr_terms(expr)
+        self._expr = expr
+        self._target = target = float(target)
+        self._label = label
+        # the row in the form batches read (see _Flat), made once here: the fields are
+        # read-only, so it cannot go stale.  A subclass gives its rows through rows()
+        n = len(terms)
+        self._flat: _Flat | None = (
+            (
+                tuple(terms),
+                _pack_weights[n](*terms.values())
+                if n < len(_pack_weights)
+                else array("d", terms.values()).tobytes(),
+                _pack_row(n, target),
+            )
+            if type(self) is Restriction
+            else None
+        )
+
+    @property
+    def expr(self) -> Expr:
+        """The left-hand side: the weights on the coefficients (read-only)."""
+        return self._expr
+
+    @property
+    def target(self) -> float:
+        """The right-hand side ``d`` (read-only)."""
+        return self._target
+
+    @property
+    def label(self) -> str | None:
+        """The user's label for the row, or None (read-only; see :meth:`labelled`)."""
+        return self._label
 
     def labelled(self, label: str) -> Restriction:
         """A copy of the restriction that results call ``label`` instead of its algebra.
@@ -458,7 +530,7 @@ class Restriction(_Item):
             raise RestrictionSyntaxError(
                 f"labelled() needs a non-empty string, got {label!r}; e.g. 'equal effects'."
             )
-        return Restriction(self.expr, self.target, label)
+        return Restriction(self._expr, self._target, label)
 
     def text(self) -> str:
         """The restriction as an equation in coefficient names.
@@ -469,7 +541,7 @@ class Restriction(_Item):
         >>> (coef("a") + 1 == coef("b")).text()
         'a - b = -1'
         """
-        return f"{self.expr.text()} = {_fmt_num(self.target)}"
+        return f"{self._expr.text()} = {_fmt_num(self._target)}"
 
     def shown(self) -> str:
         """The label and the algebra (``label (a - b = 0)``), or the algebra alone.
@@ -480,7 +552,7 @@ class Restriction(_Item):
         >>> (coef("a") == 1).labelled("a at one").shown()
         'a at one (a = 1)'
         """
-        return self.text() if self.label is None else f"{self.label} ({self.text()})"
+        return self.text() if self._label is None else f"{self._label} ({self.text()})"
 
     def __repr__(self) -> str:
         return f"<Restriction: {self.shown()}>"
@@ -489,6 +561,8 @@ class Restriction(_Item):
         raise RestrictionSyntaxError(_BOOL_MSG)
 
     def __and__(self, other: object) -> RestrictionSystem:
+        if type(other) is Restriction:  # the usual case, without the intermediate systems
+            return RestrictionSystem((self, other))
         return as_system(self) & other
 
     def __rand__(self, other: object) -> RestrictionSystem:
@@ -504,7 +578,7 @@ class Restriction(_Item):
         >>> r.row_labels(None), r.labelled("equal").row_labels(None)
         (['a - b = 0'], ['equal'])
         """
-        return [self.text() if self.label is None else self.label]
+        return [self.text() if self._label is None else self._label]
 
     def rows(self, index: Resolver) -> Iterator[tuple[NDArray[np.float64], float, str]]:
         """Yield the restriction's one ``(row of C, d, label)`` on the columns of ``index``.
@@ -516,10 +590,10 @@ class Restriction(_Item):
         >>> [(c.tolist(), d, label) for c, d, label in (lc.coef("line[T.L2]") == 1).rows(index)]
         [([0.0, 1.0, 0.0, 0.0], 1.0, 'line[T.L2] = 1')]
         """
-        row = self.expr.row(index)
+        row = self._expr.row(index)
         if not np.count_nonzero(row):
             raise _cancelled(self)
-        yield row, self.target, self.text() if self.label is None else self.label
+        yield row, self._target, self.text() if self._label is None else self._label
 
 
 def _cancelled(r: Restriction) -> EmptyRestrictionError:
@@ -624,7 +698,7 @@ class _MatrixRows(_Item):
             if self.labels is not None:
                 label = str(self.labels[i])
             else:
-                e = Expr({_Name(index.names[j]): row[j] for j in np.flatnonzero(row)})
+                e = Expr({index.names[j]: row[j] for j in np.flatnonzero(row)})
                 label = f"{e.text()} = {_fmt_num(self.d[i])}"
             if not row.any():
                 raise EmptyRestrictionError(f"row {i} of C ({label!r}) is all zeros; drop it.")
@@ -642,14 +716,32 @@ class RestrictionSystem:
     (2, 'a = 0 & b - c = 2.5')
     """
 
+    __slots__ = ("_items", "_flat")
     __hash__ = None  # type: ignore[assignment]
 
     def __init__(self, items: Iterable[_Item]) -> None:
-        self.items: tuple[_Item, ...] = tuple(items)
+        self._items: tuple[_Item, ...] = tuple(items)
+        self._flat: _Flat | None = _flat_rows(self._items)
+
+    @property
+    def items(self) -> tuple[_Item, ...]:
+        """The restrictions and other blocks of the system, in order (read-only)."""
+        return self._items
+
+    def _joined(self, items: tuple[_Item, ...], flat: _Flat | None) -> RestrictionSystem:
+        """``self & (items)``, given the flat rows of ``items``: both concatenated."""
+        new: RestrictionSystem = RestrictionSystem.__new__(RestrictionSystem)
+        new._items = self._items + items
+        a = self._flat
+        new._flat = None if a is None or flat is None else _concat(a, flat)
+        return new
 
     def __and__(self, other: object) -> RestrictionSystem:
+        if type(other) is Restriction:  # the usual case, without an intermediate system
+            return self._joined((other,), _flat_of(other))
         if isinstance(other, (RestrictionSystem, _Item)):
-            return RestrictionSystem(self.items + as_system(other).items)
+            rhs = as_system(other)
+            return self._joined(rhs._items, rhs._flat)
         if isinstance(other, (Expr, TermRef)):
             raise RestrictionSyntaxError(
                 f"{other!r} is an expression, not a restriction: compare it with '==' first."
@@ -671,10 +763,10 @@ class RestrictionSystem:
         >>> ((coef("a") == 0) & (term("C(g)") == 1)).text()
         'a = 0 & C(g) = 1'
         """
-        return " & ".join(item.text() for item in self.items)
+        return " & ".join(item.text() for item in self._items)
 
     def __repr__(self) -> str:
-        return f"<RestrictionSystem: {' & '.join(item.shown() for item in self.items)}>"
+        return f"<RestrictionSystem: {' & '.join(item.shown() for item in self._items)}>"
 
     def resolve(
         self, index: Resolver
@@ -689,7 +781,7 @@ class RestrictionSystem:
         >>> c.shape, d.tolist(), labels[-1]
         ((4, 4), [0.0, 0.0, 0.0, 500.0], 'Intercept = 500')
         """
-        items = self.items
+        items = self._items
         if items and all(type(item) is Restriction for item in items):
             return _resolve_restrictions(items, index)  # type: ignore[arg-type]
         rows: list[NDArray[np.float64]] = []
@@ -714,7 +806,27 @@ class RestrictionSystem:
         >>> ((lc.term("line") == 0) & (lc.coef("Intercept") == 500)).row_labels(index)
         ['line[T.L2] = 0', 'line[T.L3] = 0', 'line[T.L4] = 0', 'Intercept = 500']
         """
-        return [label for item in self.items for label in item.row_labels(index)]
+        return [label for item in self._items for label in item.row_labels(index)]
+
+
+def _flat_rows(items: tuple[_Item, ...]) -> _Flat | None:
+    """The rows of ``items`` as one :data:`_Flat`, or None unless all are plain restrictions."""
+    flats: list[_Flat | None] = list(map(_flat_of, items))
+    if None in flats:
+        return None
+    plain = cast("list[_Flat]", flats)
+    if len(plain) == 1:
+        return plain[0]
+    if len(plain) == 2:
+        return _concat(*plain)
+    if not plain:
+        return ((), b"", b"")
+    refs, weights, rows = zip(*plain, strict=True)
+    return (tuple(chain.from_iterable(refs)), b"".join(weights), b"".join(rows))
+
+
+def _concat(a: _Flat, b: _Flat) -> _Flat:
+    return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
 
 
 def _resolve_restrictions(
@@ -729,18 +841,11 @@ def _resolve_restrictions(
     c = np.zeros((len(items), len(index.names)))
     for row, item in zip(c, items, strict=True):
         for ref, w in _terms_of(item).items():
-            row[ref.resolve(index)] += w
+            row[_ref_column(ref, index)] += w
         if not row.any():
             raise _cancelled(item)
     d = np.array([item.target for item in items])
     return c, d, [item.text() if item.label is None else item.label for item in items]
-
-
-# readers of this module's private fields, for the C-level passes of
-# :func:`lincomb._builder.stack.stack_systems` (one row per restriction)
-_items_of = attrgetter("items")
-_terms_of = attrgetter("expr._terms")
-_target_of = attrgetter("target")
 
 
 def from_matrix(

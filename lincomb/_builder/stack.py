@@ -3,10 +3,12 @@
 :func:`stack_systems` gives the ``(C, d)`` of ``k`` systems of ``m`` rows each as ``(k, m, p)``
 and ``(k, m)`` arrays, with the values :meth:`RestrictionSystem.resolve
 <lincomb._builder.restriction.RestrictionSystem.resolve>` gives each system, but without a row
-array or a label per restriction: what costs time per system is touching its Python objects,
-so the restrictions' references, weights and targets are gathered by C-level passes
-(``itertools.chain``, ``operator.attrgetter``, ``numpy.fromiter``), each distinct reference is
-resolved once, and the weights are summed into ``C`` by one ``numpy.bincount``.
+array or a label per restriction.  What costs time per system is touching its Python objects,
+so a system of plain restrictions carries its rows in a flat form made when it was built (a
+tuple of references; weights, and per row the number of references and the target, as float64
+bytes): the stack joins the systems' bytes into arrays (``numpy.frombuffer``), chains their
+references through one C-level pass (``numpy.fromiter``), resolves each distinct reference
+once per call, and sums the weights into ``C`` by one ``numpy.bincount``.
 """
 
 from __future__ import annotations
@@ -18,13 +20,14 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb._builder.restriction import (
+    _ROW_BYTES,
     Resolver,
     Restriction,
     RestrictionSystem,
-    _items_of,
+    _flat_of,
+    _pack_row,
     _Ref,
-    _target_of,
-    _terms_of,
+    _ref_column,
 )
 
 __all__ = ["stack_systems"]
@@ -36,10 +39,11 @@ def stack_systems(
     """``(C, d)`` of ``k`` systems of ``m`` rows each, as ``(k, m, p)`` and ``(k, m)`` arrays.
 
     The values are those of :meth:`RestrictionSystem.resolve` for each system, stacked, but no
-    row array or label is made per restriction: the weights of every restriction are gathered
-    into one list and summed into ``C`` by one ``numpy.bincount`` (in the order
-    :meth:`Expr.row` adds them).  Other items (term targets, explicit matrices, level contrasts)
-    give their rows as :meth:`~RestrictionSystem.resolve` does.  Labels are left to
+    row array or label is made per restriction: the references, weights and targets of every
+    restriction are joined from the flat form each system was built with and the weights summed
+    into ``C`` by one ``numpy.bincount`` (in the order :meth:`Expr.row` adds them).  Other
+    items (term targets, explicit matrices, level contrasts) give their rows as
+    :meth:`~RestrictionSystem.resolve` does.  Labels are left to
     :meth:`RestrictionSystem.row_labels`.
 
     Returns None when the systems differ in their number of rows or hold none, or when a row
@@ -56,46 +60,35 @@ def stack_systems(
     >>> c.shape, c[1, 0].tolist()
     ((2, 1, 4), [0.0, 1.0, 0.0, -1.0])
     """
-    p = len(index.names)
-    per_system = list(map(_items_of, systems))
-    items = list(chain.from_iterable(per_system))
-    if set(map(type, items)) == {Restriction}:  # one row per item: C-level passes only
-        terms: list[dict[_Ref, float]] = list(map(_terms_of, items))
+    flats = list(map(_flat_of, systems))
+    if flats and None not in flats:  # plain restrictions only: no pass per restriction
+        refs, weights, rows = zip(*flats, strict=True)
+        sizes = list(map(len, rows))  # bytes: _ROW_BYTES per row
         return _stacked(
-            index,
-            p,
-            list(map(len, per_system)),
-            chain.from_iterable(terms),
-            chain.from_iterable(map(dict.values, terms)),
-            list(map(len, terms)),
-            list(map(_target_of, items)),
-            [],
+            index, sizes[0] // _ROW_BYTES, sizes, chain.from_iterable(refs), weights, rows, []
         )
-    refs: list[_Ref] = []
-    weights: list[float] = []
-    counts: list[int] = []  # references per row
-    targets: list[float] = []
+    refs_: list[_Ref] = []
+    weights_: list[bytes] = []
+    rows_: list[bytes] = []
     dense: list[tuple[int, NDArray[np.float64]]] = []
-    sizes: list[int] = []
+    sizes_: list[int] = []
     row = 0
     for system in systems:
         start = row
         for item in system.items:
             if type(item) is Restriction:
-                found = _terms_of(item)
-                refs.extend(found)
-                weights.extend(found.values())
-                counts.append(len(found))
-                targets.append(item.target)
+                found, w, info = _flat_of(item)
+                refs_.extend(found)
+                weights_.append(w)
+                rows_.append(info)
                 row += 1
             else:
                 for values, target, _label in item.rows(index):
                     dense.append((row, values))
-                    counts.append(0)
-                    targets.append(target)
+                    rows_.append(_pack_row(0, target))
                     row += 1
-        sizes.append(row - start)
-    return _stacked(index, p, sizes, refs, weights, counts, targets, dense)
+        sizes_.append(row - start)
+    return _stacked(index, sizes_[0] if sizes_ else 0, sizes_, refs_, weights_, rows_, dense)
 
 
 class _Columns(dict[_Ref, int]):
@@ -106,33 +99,33 @@ class _Columns(dict[_Ref, int]):
         self.index = index
 
     def __missing__(self, ref: _Ref) -> int:
-        j = self[ref] = ref.resolve(self.index)
+        j = self[ref] = _ref_column(ref, self.index)
         return j
 
 
 def _stacked(
     index: Resolver,
-    p: int,
+    m: int,
     sizes: list[int],
     refs: Iterable[_Ref],
-    weights: Iterable[float],
-    counts: list[int],
-    targets: list[float],
+    weights: Iterable[bytes],
+    rows: Iterable[bytes],
     dense: list[tuple[int, NDArray[np.float64]]],
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
-    """``(C, d)`` from the gathered references (``counts`` per row), weights and targets."""
+    """``(C, d)`` of ``len(sizes)`` systems of ``m`` rows from their references, weights and
+    rows (references per row and target, as bytes), unless the ``sizes`` are not all alike."""
     k = len(sizes)
-    m = sizes[0] if sizes else 0
-    if m == 0 or sizes.count(m) != k:
+    if m == 0 or sizes.count(sizes[0]) != k:
         return None
-    rows = len(targets)
-    cols = _Columns(index)  # each reference resolved once, on its first look-up
-    at = np.repeat(np.arange(rows, dtype=np.intp) * p, counts)
+    p = len(index.names)
+    info = np.frombuffer(b"".join(rows), dtype=np.float64).reshape(k * m, 2)
+    w = np.frombuffer(b"".join(weights), dtype=np.float64)
+    at = np.repeat(np.arange(0, k * m * p, p, dtype=np.intp), info[:, 0].astype(np.intp))
     n = at.size
+    cols = _Columns(index)  # each reference resolved once, on its first look-up
     at += np.fromiter(map(cols.__getitem__, refs), dtype=np.intp, count=n)
-    w = np.fromiter(weights, dtype=np.float64, count=n)
-    flat = np.bincount(at, w, minlength=rows * p)
-    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(rows, p)
+    flat = np.bincount(at, w, minlength=k * m * p)
+    c: NDArray[np.float64] = flat.astype(np.float64, copy=False).reshape(k * m, p)
     for i, values in dense:
         c[i] = values
     # a row whose weights cancel: resolve() names it.  Reduced down the columns of the
@@ -140,4 +133,4 @@ def _stacked(
     # slower for a tall C
     if not np.logical_or.reduce(np.ascontiguousarray((c != 0).T), axis=0).all():
         return None
-    return c.reshape(k, m, p), np.array(targets, dtype=np.float64).reshape(k, m)
+    return c.reshape(k, m, p), info[:, 1].reshape(k, m).copy()
