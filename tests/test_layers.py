@@ -2,8 +2,9 @@
 
 The numerical core (``lincomb/_core/``) works on arrays only: it may import numpy, scipy and
 the standard library, and of lincomb only ``lincomb._core`` itself, ``lincomb.errors``,
-``lincomb._settings`` and ``lincomb._docstrings`` (shared docstring text; it imports only the
-errors).  It never imports pandas or formulaic.
+``lincomb._settings``, ``lincomb._docstrings`` (shared docstring text; it imports only the
+errors) and ``lincomb._typing`` (the array type names; it imports only numpy).  It never
+imports pandas or formulaic.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ _CORE_ALLOWED_LINCOMB = (
     "lincomb.errors",
     "lincomb._settings",
     "lincomb._docstrings",
+    "lincomb._typing",
 )
 
 
@@ -112,8 +114,8 @@ def test_the_check_itself_tells_allowed_from_forbidden(tmp_path, source, bad):
 # layer (the formula encoder and the design) knows only itself.  Imports under
 # ``if TYPE_CHECKING:`` are annotations, not dependencies, and are not counted.
 LAYER_ALLOWED = {
-    "_builder": ("lincomb._builder", "lincomb.errors"),
-    "_model": ("lincomb._model", "lincomb.errors"),
+    "_builder": ("lincomb._builder", "lincomb.errors", "lincomb._typing"),
+    "_model": ("lincomb._model", "lincomb.errors", "lincomb._typing"),
 }
 
 
@@ -177,3 +179,13 @@ def test_the_docstring_helper_stays_a_leaf():
     assert names, "the helper imports its errors"
     bad = [n for n in names if not (n == "lincomb.errors" or n.startswith("lincomb.errors."))]
     assert not bad, f"lincomb/_docstrings.py imports more of lincomb than its errors: {bad}"
+
+
+def test_the_array_type_module_stays_a_leaf():
+    # every layer may import lincomb._typing only because it imports nothing of lincomb
+    # and no pandas or formulaic
+    path = PACKAGE / "_typing.py"
+    names = [name for _, name in _imports(path)]
+    assert "numpy" in {n.split(".")[0] for n in names}, "the module defines numpy array types"
+    bad = [n for n in names if n.split(".")[0] in {"lincomb", "pandas", "formulaic"}]
+    assert not bad, f"lincomb/_typing.py imports {bad}"

@@ -46,7 +46,6 @@ from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb._builder.level_rows import Factor, find_factor, level_rows
 from lincomb._builder.recipes import ZERO_SUM_TOL, Recipe, build_weights
@@ -59,6 +58,7 @@ from lincomb._builder.restriction import (
     _Item,
     as_system,
 )
+from lincomb._typing import Array
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
@@ -78,8 +78,6 @@ __all__ = [
     "level_weights",
     "register_report",
 ]
-
-Array = NDArray[np.float64]
 
 
 # ---------------------------------------------------------------------------------------------

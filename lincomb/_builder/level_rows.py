@@ -14,9 +14,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb._builder.restriction import _is_number
+from lincomb._typing import Array
 from lincomb.errors import (
     ContrastError,
     LincombError,
@@ -24,8 +24,6 @@ from lincomb.errors import (
 )
 
 __all__ = ["Factor", "find_factor", "level_index", "level_rows", "require_level"]
-
-Array = NDArray[np.float64]
 
 
 # ---------------------------------------------------------------------------------------------

@@ -5,15 +5,13 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-from numpy.typing import NDArray
 
+from lincomb._typing import Array
 from lincomb.errors import (
     ContrastWeightsError,
 )
 
 __all__ = ["orthogonal_polynomials"]
-
-Array = NDArray[np.float64]
 
 
 # ---------------------------------------------------------------------------------------------

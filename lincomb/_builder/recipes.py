@@ -8,11 +8,11 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from numpy.typing import NDArray
 
 from lincomb._builder.level_rows import Factor, level_index, require_level
 from lincomb._builder.polynomials import orthogonal_polynomials
 from lincomb._builder.restriction import _fmt_num, _is_number
+from lincomb._typing import Array
 from lincomb.errors import (
     ContrastError,
     ContrastWeightsError,
@@ -21,7 +21,6 @@ from lincomb.errors import (
 
 __all__ = ["ZERO_SUM_TOL", "Recipe", "build_weights"]
 
-Array = NDArray[np.float64]
 
 #: Weights count as summing to zero when ``|Σ w| <= ZERO_SUM_TOL · Σ |w|``.
 ZERO_SUM_TOL: float = 1e-10

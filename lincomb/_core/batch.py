@@ -59,10 +59,9 @@ from lincomb._core.rows import ROW_TOL, analyze_rows
 from lincomb._core.solve import Solution, random_solution_doc
 from lincomb._core.triangular import safe_norm, triangular_factor
 from lincomb._core.wald import intercept_rotation, wald_from_root
+from lincomb._typing import Array
 
 __all__ = ["BatchCore", "root_rows", "wald_systems"]
-
-Array = NDArray[np.float64]
 
 
 @random_solution_doc

@@ -17,6 +17,7 @@ from lincomb._core.moments import RANDOM_DESIGN, Moments, _centre_in_place
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import triangular_factor, upper_solve
 from lincomb._docstrings import fill_doc
+from lincomb._typing import Array
 from lincomb.errors import InternalError
 
 __all__ = [
@@ -27,7 +28,6 @@ __all__ = [
     "wald_quadratic_forms",
 ]
 
-Array = NDArray[np.float64]
 
 #: Example set-up shared by the docstrings below: the random design of
 #: :data:`~lincomb._core.moments.RANDOM_DESIGN`, factored once.

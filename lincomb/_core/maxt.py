@@ -51,7 +51,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from numpy.typing import ArrayLike, NDArray
+from numpy.typing import ArrayLike
 from scipy import optimize, special, stats
 
 from lincomb._core.checks import check_level, check_tolerance
@@ -69,6 +69,7 @@ from lincomb._core.maxt_quadrature import (
 )
 from lincomb._core.maxt_sequential import SequentialRule, widen_bracket
 from lincomb._settings import blas_limit, worker_threads
+from lincomb._typing import Array
 from lincomb.errors import InputError, IntegrationAccuracyWarning, InternalError
 
 __all__ = [
@@ -87,7 +88,6 @@ __all__ = [
     "studentized_range_tail",
 ]
 
-Array = NDArray[np.float64]
 
 #: Seed of the randomized integration rules (any integer; results depend on it only through
 #: integration error, see the reported standard error).

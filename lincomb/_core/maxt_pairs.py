@@ -26,9 +26,10 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import special
 
+from lincomb._typing import Array
+
 __all__ = ["PairsControl", "independent_pairs"]
 
-Array = NDArray[np.float64]
 
 #: Largest trapezoid grid in ``y`` (nodes) for the neighbour's probability.
 _Y_MAX: int = 2**12 + 1

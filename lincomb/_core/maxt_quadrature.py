@@ -15,6 +15,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, special, stats
 
+from lincomb._typing import Array
+
 __all__ = [
     "RANGE_SF_FLOOR",
     "STRUCTURE_TOL",
@@ -22,8 +24,6 @@ __all__ = [
     "studentized_range_critical",
     "studentized_range_tail",
 ]
-
-Array = NDArray[np.float64]
 
 
 # ---------------------------------------------------------------------------------------------

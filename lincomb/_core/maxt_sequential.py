@@ -45,10 +45,10 @@ from scipy import optimize, special
 
 from lincomb._core.maxt_pairs import ControlCurve, PairsControl
 from lincomb._settings import blas_limit, worker_threads
+from lincomb._typing import Array
 
 __all__ = ["SequentialRule", "chi_nodes", "widen_bracket"]
 
-Array = NDArray[np.float64]
 #: A standard-error target: one value, one per threshold, or a function of the tails.
 Target = float | Array | Callable[[Array], Array]
 

@@ -18,10 +18,10 @@ from lincomb._core.merge import merge_tree
 from lincomb._core.triangular import row_pivoted_factor, safe_norm, triangular_factor
 from lincomb._docstrings import fill_doc
 from lincomb._settings import blas_limit, can_limit, worker_threads
+from lincomb._typing import Array
 
 __all__ = ["Moments", "moments_from_arrays"]
 
-Array = NDArray[np.float64]
 
 #: Example set-up shared by docstrings of the core: 20 random rows of an intercept and two
 #: covariates, and a response on them.

@@ -64,6 +64,7 @@ from lincomb._core.many import DesignFactor
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import safe_norm, upper_solve
 from lincomb._docstrings import fill_doc
+from lincomb._typing import Array
 
 __all__ = [
     "GRAM_FLOOR",
@@ -78,7 +79,6 @@ __all__ = [
     "row_distances",
 ]
 
-Array = NDArray[np.float64]
 
 #: Smallest eigenvalue of ``G`` (share of every direction's sum of squares kept on a response's
 #: rows) for a certified vectorized fit.

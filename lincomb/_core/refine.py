@@ -18,14 +18,13 @@ from dataclasses import replace
 
 import numpy as np
 import scipy.linalg.lapack as lapack
-from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution
 from lincomb._core.triangular import upper_solve
+from lincomb._typing import Array
 
 __all__ = ["REFINE_COND", "REFINE_STEPS", "condition_estimate", "refine"]
 
-Array = NDArray[np.float64]
 
 #: Refine when the working factor's 1-norm condition estimate exceeds this.
 REFINE_COND: float = 1e8

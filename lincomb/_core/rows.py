@@ -15,10 +15,10 @@ import scipy.linalg as sla
 from numpy.typing import NDArray
 
 from lincomb._core.triangular import safe_norm
+from lincomb._typing import Array
 
 __all__ = ["ROW_TOL", "RowAnalysis", "analyze_rows"]
 
-Array = NDArray[np.float64]
 
 #: Relative tolerance for redundant / inconsistent / non-estimable restriction rows.
 ROW_TOL: float = 1e-9

@@ -18,10 +18,10 @@ from numpy.typing import NDArray
 from lincomb._core.moments import RANDOM_DESIGN, Moments
 from lincomb._core.triangular import safe_norm, upper_solve
 from lincomb._docstrings import fill_doc
+from lincomb._typing import Array
 
 __all__ = ["CONSTANT_TOL", "RANK_TOL", "SUPPORT_FLOOR", "Solution", "solve", "safe_norm"]
 
-Array = NDArray[np.float64]
 
 #: Relative tolerance for the rank of the design (see the notes in :mod:`lincomb._core`).
 RANK_TOL: float = 1e-10

@@ -13,6 +13,7 @@ import numpy as np
 import scipy.linalg as sla
 from numpy.typing import NDArray
 
+from lincomb._typing import Array
 from lincomb.errors import InternalError, SingularFactorError
 
 __all__ = [
@@ -24,7 +25,6 @@ __all__ = [
     "upper_solve",
 ]
 
-Array = NDArray[np.float64]
 
 #: A sum of squares at least this large (2**-900) lost nothing that matters to underflow: a
 #: square that underflowed is below 2**-1022, under 2**-120 of the sum (see :func:`safe_norm`).

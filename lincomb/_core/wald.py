@@ -13,10 +13,9 @@ from numpy.typing import NDArray
 
 from lincomb._core.solve import Solution, random_solution_doc
 from lincomb._core.triangular import plain_norm, safe_norm, triangular_factor, upper_solve
+from lincomb._typing import Array
 
 __all__ = ["WaldCore", "intercept_rotation", "restricted_step", "wald_from_root"]
-
-Array = NDArray[np.float64]
 
 
 @dataclass(frozen=True)

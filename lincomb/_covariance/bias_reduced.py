@@ -43,15 +43,14 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from numpy.typing import NDArray
 
 from lincomb._covariance.cluster_blocks import ClusterBlockMeat, ClusterPieces, adjustment
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError, SingularCovarianceError
 
 __all__ = ["ADJUSTMENTS", "SmallSampleDf", "AdjustedClusterMeat", "estimate_from_pieces"]
 
-Array = NDArray[np.float64]
 
 #: The residual adjustments of :func:`~lincomb.clustered` (``"none"`` is the plain sandwich).
 ADJUSTMENTS: tuple[str, ...] = ("none", "bias-reduced", "jackknife")

@@ -33,10 +33,9 @@ from numpy.typing import NDArray
 from lincomb import _core as core
 from lincomb._covariance.examples import sites_doc
 from lincomb._covariance.meats import LEVERAGE_TOL, Partial, _group_sum, _Meat
+from lincomb._typing import Array
 
 __all__ = ["ClusterBlocks", "ClusterPieces", "ClusterBlockMeat", "adjustment"]
-
-Array = NDArray[np.float64]
 
 
 @dataclass(frozen=True)

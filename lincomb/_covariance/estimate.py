@@ -18,6 +18,7 @@ from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.examples import lines_doc, sites_doc
+from lincomb._typing import Array
 from lincomb.errors import SingularCovarianceError
 
 __all__ = [
@@ -29,7 +30,6 @@ __all__ = [
     "psd_factor",
 ]
 
-Array = NDArray[np.float64]
 
 #: Relative size of a negative meat eigenvalue that is reported as clipped.
 EIGEN_TOL: float = 1e-10

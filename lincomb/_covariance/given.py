@@ -12,9 +12,9 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -22,7 +22,6 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["SYMMETRY_TOL", "PSD_TOL", "given_estimate", "refuse_nonfinite"]
 
-Array = NDArray[np.float64]
 
 #: Relative asymmetry allowed in a supplied covariance matrix.
 SYMMETRY_TOL: float = 1e-8

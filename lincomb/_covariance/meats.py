@@ -45,6 +45,7 @@ from scipy import sparse
 from lincomb import _core as core
 from lincomb._covariance.estimate import CovarianceEstimate, psd_factor
 from lincomb._covariance.few_clusters import warn_few_clusters
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError, SingularFactorError
 
 __all__ = [
@@ -59,7 +60,6 @@ __all__ = [
     "scores",
 ]
 
-Array = NDArray[np.float64]
 
 #: Rows with ``1 - h_i`` at most this are fitted exactly and dropped from HC2-HC4 meats.
 LEVERAGE_TOL: float = 1e-10

@@ -38,11 +38,10 @@ from lincomb._covariance.meats import (
     bartlett_meat,
     scores,
 )
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError
 
 __all__ = ["UnitSerialMeat", "TimeSumMeat", "bartlett_meat"]
-
-Array = NDArray[np.float64]
 
 
 class UnitSerialMeat(_LaggedMeat):

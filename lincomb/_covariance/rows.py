@@ -18,14 +18,13 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError, RowsUnavailableError
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
 __all__ = ["RowMap", "fit_rows", "row_values", "cluster_codes", "time_order", "refuse_missing"]
-
-Array = NDArray[np.float64]
 
 
 @dataclass(frozen=True)

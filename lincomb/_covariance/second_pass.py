@@ -29,11 +29,11 @@ from lincomb._covariance.specs import (
     Serial,
     as_estimator,
 )
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError, IncompatibleFitError
 
 __all__ = ["RSS_MATCH_TOL", "RowPass"]
 
-Array = NDArray[np.float64]
 
 #: The residual sum of squares seen in a second pass must match the fit's to this relative
 #: tolerance, or the blocks are not the fit's rows.

@@ -50,6 +50,7 @@ from lincomb._core.checks import check_level
 from lincomb._covariance.cluster_blocks import pieces_of
 from lincomb._covariance.examples import sites_doc
 from lincomb._settings import blas_limit, can_limit
+from lincomb._typing import Array
 from lincomb.errors import CovarianceInputError, InputError, SingularCovarianceError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -63,7 +64,6 @@ __all__ = [
     "bootstrap_weights",
 ]
 
-Array = NDArray[np.float64]
 ArrayLike2D = Any
 
 #: The weight distributions, by name.

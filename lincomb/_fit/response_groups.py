@@ -22,9 +22,8 @@ from lincomb import _core as core
 from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._fit.responses import _Responses
 from lincomb._model.design import Design
+from lincomb._typing import Array
 from lincomb.errors import DegenerateFitError, InputError
-
-Array = NDArray[np.float64]
 
 
 @dataclass(frozen=True)

@@ -27,7 +27,6 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb._builder.contrasts import LevelContrasts, level_weights, register_report
 from lincomb._builder.level_rows import Factor, level_index, require_level
@@ -36,6 +35,7 @@ from lincomb._builder.resolver import ModelResolver
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
+from lincomb._typing import Array
 from lincomb.errors import (
     ContrastWeightsError,
     NotOrthogonalError,
@@ -55,7 +55,6 @@ __all__ = [
     "partition",
 ]
 
-Array = NDArray[np.float64]
 
 #: Two contrasts count as orthogonal when the cosine of their angle (in the metric of the check)
 #: is at most this in absolute value.

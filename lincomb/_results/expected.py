@@ -28,6 +28,7 @@ from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.reference import check_reference, reference_df
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import TableRepr, _num
+from lincomb._typing import Array
 from lincomb.errors import InputError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -42,7 +43,6 @@ __all__ = [
     "reference_fields",
 ]
 
-Array = NDArray[np.float64]
 
 #: Columns of :meth:`ExpectedValues.row_frame`.
 EXPECTED_COLUMNS = (

@@ -25,6 +25,7 @@ from scipy import stats
 from lincomb._core.checks import check_level
 from lincomb._docstrings import FILL_LINES_FIT, fill_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
+from lincomb._typing import Array
 
 __all__ = [
     "ROW_COLUMNS",
@@ -103,8 +104,6 @@ RESULT_ATTRIBUTES = (
     "as_latex",
     "as_html",
 )
-
-Array = NDArray[np.float64]
 
 
 def field_frame(result: object, columns: Sequence[str], **renamed: str) -> pd.DataFrame:

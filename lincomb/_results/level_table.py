@@ -41,6 +41,7 @@ from lincomb._covariance.reference import check_reference
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.expected import MeanIntervals, reference_fields, row_moments
 from lincomb._results.format import TableRepr, _num
+from lincomb._typing import Array
 from lincomb.errors import ContrastError, LincombError, UnknownCoefficientError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -48,8 +49,6 @@ if TYPE_CHECKING:  # pragma: no cover
     from lincomb._results.wald import WaldTest
 
 __all__ = ["LevelMeanTable", "level_mean_table", "readable"]
-
-Array = NDArray[np.float64]
 
 
 def readable(value: Any) -> str:

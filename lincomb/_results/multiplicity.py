@@ -50,6 +50,7 @@ from lincomb._core.maxt import (
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import _num, _p, _table_html, _table_text
 from lincomb._results.report import ReportTables
+from lincomb._typing import Array
 from lincomb.errors import InputError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -73,7 +74,6 @@ __all__ = [
     "pairs_unequal_variances",
 ]
 
-Array = NDArray[np.float64]
 
 #: p-value adjustments that need only the p-values.
 P_METHODS = (

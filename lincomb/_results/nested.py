@@ -33,6 +33,7 @@ from scipy import stats
 from lincomb import _core as core
 from lincomb._results.format import TableRepr, _num, _p
 from lincomb._results.frames import field_frame
+from lincomb._typing import Array
 from lincomb.errors import InputError, NotNestedError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -40,7 +41,6 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["NestedComparison", "compare_nested", "NESTED_COLUMNS"]
 
-Array = NDArray[np.float64]
 
 #: Columns of :meth:`NestedComparison.test_frame`.
 NESTED_COLUMNS = ("model", "df_error", "rss", "df_test", "ss", "stat", "p")

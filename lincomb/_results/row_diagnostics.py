@@ -21,7 +21,6 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
 
 from lincomb import _core as core
 from lincomb._covariance.meats import LEVERAGE_TOL
@@ -29,13 +28,13 @@ from lincomb._covariance.rows import RowMap, fit_rows
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import TableRepr, _num
 from lincomb._results.frames import field_frame
+from lincomb._typing import Array
 
 if TYPE_CHECKING:  # pragma: no cover
     from lincomb._fit.linear import LinearFit
 
 __all__ = ["RowDiagnostics", "row_diagnostics", "DIAGNOSTIC_COLUMNS"]
 
-Array = NDArray[np.float64]
 
 #: Columns of :meth:`RowDiagnostics.row_frame`.
 DIAGNOSTIC_COLUMNS = (

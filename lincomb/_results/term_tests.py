@@ -37,6 +37,7 @@ from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._results.expected import reference_fields
 from lincomb._results.format import TableRepr, _num, _p
 from lincomb._results.frames import field_frame
+from lincomb._typing import Array
 from lincomb.errors import InputError, SingularCovarianceError
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -44,7 +45,6 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["TermTests", "term_tests", "SCHEMES", "TERM_COLUMNS"]
 
-Array = NDArray[np.float64]
 
 #: The adjustment schemes and what each term is adjusted for.
 SCHEMES = {
