@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ast
 import pickle
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -78,6 +79,23 @@ def test_unseen_levels_are_refused_everywhere(warpbreaks: pd.DataFrame) -> None:
     )
     with pytest.raises(UnseenLevelError, match=r"holds level\(s\) \['Q'\] not among"):
         declared.encode(odd, where="chunk 2")
+
+
+def test_declared_levels_drop_unused_categories_quietly(warpbreaks: pd.DataFrame) -> None:
+    # A categorical column may carry categories no row uses; declared levels that leave such a
+    # category out are not a conflict.  pandas deprecates building a Categorical from values
+    # whose dtype lists categories outside the new ones, so the cast must not warn (a future
+    # pandas raises there).  The design is the hand-built one of the plain text columns.
+    extra = warpbreaks.assign(
+        tension=pd.Categorical(warpbreaks["tension"], categories=["L", "M", "H", "Q"])
+    )
+    enc = FormulaEncoder.from_levels(
+        "breaks ~ wool + tension", {"wool": ["A", "B"], "tension": ["L", "M", "H"]}
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        got = enc.encode(extra).x
+    np.testing.assert_array_equal(got, _by_hand(warpbreaks))
 
 
 def test_declared_levels_without_data(warpbreaks: pd.DataFrame) -> None:

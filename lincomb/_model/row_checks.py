@@ -67,7 +67,10 @@ def cast_levels(
             )
         if out is frame:
             out = frame.copy(deep=False)
-        out[var] = pd.Categorical(col, categories=lv_list)
+        if isinstance(col.dtype, pd.CategoricalDtype):  # unused categories may be dropped
+            out[var] = col.cat.set_categories(lv_list)
+        else:
+            out[var] = pd.Categorical(col, categories=lv_list)
     return out
 
 
