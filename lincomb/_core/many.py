@@ -240,7 +240,10 @@ class DesignFactor:
         if ext is not None:
             if m1 is None:
                 m1 = _column_means(y, w)
-            yb = y - m1  # the one copy of the block
+            # the one copy of the block, centred in place (faster than a subtraction that
+            # reads a strided view of the caller's array)
+            yb = np.array(y, dtype=np.float64, order="C")
+            yb -= m1
             if w is not None:
                 yb *= np.sqrt(w)[:, None]
             # the second centring pass rides on the projection: the intercept's direction is

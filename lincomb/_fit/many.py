@@ -166,17 +166,17 @@ class ManyFit:
 
     names: tuple[str, ...]
     responses: tuple[str, ...]
-    coefficients: pd.DataFrame
-    n_obs: pd.Series
-    df_error: pd.Series
-    rss: pd.Series
-    sigma: pd.Series
-    rank: pd.Series
-    status: pd.Series
     aliased: tuple[str, ...]
     n_dropped: int
     weighted: bool
     formula: str | None
+    # the per-response numbers as arrays; the pandas attributes are built from them when first
+    # read (a fit tested right away never needs them)
+    _coef: NDArray[np.float64] = field(repr=False, compare=False)  # (p, r)
+    _n_obs: NDArray[np.int64] = field(repr=False, compare=False)
+    _rank: NDArray[np.int64] = field(repr=False, compare=False)
+    _rss: NDArray[np.float64] = field(repr=False, compare=False)
+    _status_codes: NDArray[np.int8] = field(repr=False, compare=False)  # positions in STATUSES
     rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _groups: tuple[_Group | _ObservedGroup, ...] = field(repr=False, compare=False, default=())
@@ -184,6 +184,52 @@ class ManyFit:
     _frame: pd.DataFrame | None = field(repr=False, compare=False, default=None)
     _positions: NDArray[np.intp] | None = field(repr=False, compare=False, default=None)
     _blas: int | None = field(repr=False, compare=False, default=1)
+
+    # -- per-response attributes (pandas, built once when first read) ---------------------------
+    @functools.cached_property
+    def _response_index(self) -> pd.Index:
+        return pd.Index(self.responses, name="response")
+
+    def _series(self, values: NDArray[Any] | pd.Categorical[str], name: str) -> pd.Series:
+        return pd.Series(values, index=self._response_index, name=name)
+
+    @functools.cached_property
+    def coefficients(self) -> pd.DataFrame:
+        """Estimates, one column per response (index: coefficient names; NaN where aliased)."""
+        return pd.DataFrame(self._coef, index=list(self.names), columns=self._response_index)
+
+    @functools.cached_property
+    def n_obs(self) -> pd.Series:
+        """Rows used per response."""
+        return self._series(self._n_obs, "n_obs")
+
+    @functools.cached_property
+    def df_error(self) -> pd.Series:
+        """Error degrees of freedom per response."""
+        return self._series(self._n_obs - self._rank, "df_error")
+
+    @functools.cached_property
+    def rss(self) -> pd.Series:
+        """Residual sum of squares per response."""
+        return self._series(self._rss, "rss")
+
+    @functools.cached_property
+    def sigma(self) -> pd.Series:
+        """Residual standard deviation per response (NaN without error degrees of freedom)."""
+        df = self._n_obs - self._rank
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sigma = np.where(df > 0, np.sqrt(self._rss / np.where(df > 0, df, 1)), np.nan)
+        return self._series(sigma, "sigma")
+
+    @functools.cached_property
+    def rank(self) -> pd.Series:
+        """Rank of the design on each response's rows."""
+        return self._series(self._rank, "rank")
+
+    @functools.cached_property
+    def status(self) -> pd.Series:
+        """``"ok"``, ``"too few rows"`` or ``"exact fit"`` per response (categorical)."""
+        return self._series(from_codes(self._status_codes, STATUSES), "status")
 
     # -- single responses ----------------------------------------------------------------------
     def _position(self, response: str | int) -> int:
@@ -294,8 +340,8 @@ class ManyFit:
         se_all = t_all = None
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
-        df_error = self.df_error.to_numpy(dtype=np.float64).copy()
-        status = np.array(self.status.array.codes, dtype=np.int8)  # a copy: marked below
+        df_error = (self._n_obs - self._rank).astype(np.float64)
+        status = self._status_codes.copy()  # marked below
         main = self._groups[0]
         main_prepared = None
         groups = list(self._groups)
@@ -361,9 +407,9 @@ class ManyFit:
             df_error=df_error,
             p=pval,
             status=np.asarray(STATUSES)[status],
-            n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
+            n_obs=self._n_obs.copy(),
             redundant=redundant,
-            _response_index=self.n_obs.index,
+            _response_index=self._response_index,
             _status_codes=status,
         )
 
@@ -625,25 +671,14 @@ def _assemble(
         rss[cols] = g.rss
         exact = g.rss <= (ZERO_RSS_TOL * g.y_norm) ** 2
         status[cols[exact]] = _EXACT
-    df = n_obs - rank
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sigma = np.where(df > 0, np.sqrt(rss / np.where(df > 0, df, 1)), np.nan)
-    idx = pd.Index(source.names, name="response")
-    names = design.index.names
     return ManyFit(
-        names=names,
+        names=design.index.names,
         responses=source.names,
-        coefficients=pd.DataFrame(coef, index=list(names), columns=idx),
-        n_obs=pd.Series(n_obs, index=idx, name="n_obs"),
-        df_error=pd.Series(df, index=idx, name="df_error"),
-        rss=pd.Series(rss, index=idx, name="rss"),
-        sigma=pd.Series(sigma, index=idx, name="sigma"),
-        rank=pd.Series(rank, index=idx, name="rank"),
-        status=pd.Series(
-            from_codes(status, STATUSES),
-            index=idx,
-            name="status",
-        ),
+        _coef=coef,
+        _n_obs=n_obs,
+        _rank=rank,
+        _rss=rss,
+        _status_codes=status,
         aliased=lf.aliased,
         n_dropped=len(design.dropped),
         weighted=design.weights is not None,

@@ -115,7 +115,7 @@ def _array_source(
         raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
     r = arr.shape[1]
     if response_names is None:
-        names = tuple(f"y{j}" for j in range(r))
+        names = tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
     else:
         names = _unique_names(response_names, "response names")
         if len(names) != r:
