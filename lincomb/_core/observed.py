@@ -54,6 +54,7 @@ pattern of missing values), so no decision ever rests on a downdate that could l
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -73,6 +74,7 @@ __all__ = [
     "ZERO_MARGIN",
     "ObservedBlock",
     "ObservedDesign",
+    "ObservedPart",
     "observed_design",
     "observed_wald",
     "row_distances",
@@ -121,9 +123,9 @@ class ObservedBlock:
         Residual norms (weighted), from the explicit residual.
     y_norm : (r,) ndarray
         Norms of the centred, scaled responses on their rows.
-    chol : (r, k, k) ndarray
-        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response (the identity
-        where not certified).
+    low : (k, k, r) ndarray
+        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response, responses last
+        (the identity where not certified); :attr:`chol` is the same, responses first.
     certified : (r,) ndarray of bool
         Whether the vectorized fit stands (module notes); the others must be refitted.
 
@@ -140,8 +142,13 @@ class ObservedBlock:
     theta: Array
     resid_norm: Array
     y_norm: Array
-    chol: Array
+    low: Array
     certified: NDArray[np.bool_]
+
+    @property
+    def chol(self) -> Array:
+        """``L`` per response, (r, k, k) (a view of :attr:`low`)."""
+        return np.moveaxis(self.low, -1, 0)
 
     @property
     def rss(self) -> Array:
@@ -186,7 +193,7 @@ class ObservedBlock:
             self.theta[:, cols],
             self.resid_norm[cols],
             self.y_norm[cols],
-            self.chol[cols],
+            self.low[:, :, cols],
             self.certified[cols],
         )
 
@@ -209,7 +216,7 @@ class ObservedBlock:
                 np.zeros((k, 0)),
                 np.zeros(0),
                 np.zeros(0),
-                np.zeros((0, k, k)),
+                np.zeros((k, k, 0)),
                 np.zeros(0, dtype=bool),
             )
         return ObservedBlock(
@@ -217,8 +224,106 @@ class ObservedBlock:
             np.concatenate([b.theta for b in blocks], axis=1),
             np.concatenate([b.resid_norm for b in blocks]),
             np.concatenate([b.y_norm for b in blocks]),
-            np.concatenate([b.chol for b in blocks]),
+            np.concatenate([b.low for b in blocks], axis=2),
             np.concatenate([b.certified for b in blocks]),
+        )
+
+
+@_forty_doc
+@dataclass(frozen=True)
+class ObservedPart:
+    """A block of responses projected for an own-rows fit (:meth:`ObservedDesign.project`).
+
+    Attributes
+    ----------
+    n : (b,) ndarray of int
+        Rows where each response is observed.
+    qty : (k, b) ndarray
+        ``Q̂ᵀ`` times the shifted, scaled responses (zero where missing).
+    y2 : (b,) ndarray
+        Their sums of squares.
+    c2 : (b,) ndarray
+        The sums of squares of the centred, scaled responses on their rows.
+    shift, mean : (b,) ndarray
+        What was subtracted: a rough mean, then (where it was far from the mean) the mean it
+        left (zero elsewhere).
+    half : (b, k(k+1)/2) ndarray
+        Upper triangles of ``Q̂_Mᵀ Q̂_M`` (the missing rows' part of the Gram matrix).
+    rows, cols : (nnz,) ndarray of int
+        The missing values: rows and positions in the block (row by row).
+
+    Examples
+    --------
+    %(forty_rows)s
+    >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
+    >>> observed_design(f, None).project(y).finite().tolist()
+    [True, False]
+    """
+
+    n: NDArray[np.int64]
+    qty: Array
+    y2: Array
+    c2: Array
+    shift: Array
+    mean: Array
+    half: Array
+    rows: NDArray[np.intp]
+    cols: NDArray[np.intp]
+
+    @property
+    def count(self) -> int:
+        return int(self.n.shape[0])
+
+    @_forty_doc
+    def finite(self) -> NDArray[np.bool_]:
+        """Responses whose summaries are finite (an infinite value or an overflow propagates;
+        their fit would not be).
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 2)); y[3, 0] = -np.inf
+        >>> observed_design(f, None).project(y).finite().tolist()
+        [False, True]
+        """
+        return (
+            np.isfinite(self.y2)
+            & np.isfinite(self.c2)
+            & np.isfinite(self.shift)
+            & np.isfinite(self.mean)
+            & np.isfinite(self.qty).all(axis=0)
+        )
+
+    @staticmethod
+    def concat(parts: list[ObservedPart], k: int, h: int) -> ObservedPart:
+        """Join parts (in order) into one; ``cols`` become positions in the joined block."""
+        if len(parts) == 1:
+            return parts[0]
+        if not parts:
+            none = np.zeros(0)
+            index = np.zeros(0, dtype=np.intp)
+            return ObservedPart(
+                np.zeros(0, dtype=np.int64),
+                np.zeros((k, 0)),
+                none,
+                none,
+                none,
+                none,
+                np.zeros((0, h)),
+                index,
+                index,
+            )
+        offsets = np.cumsum([0] + [p.count for p in parts])
+        return ObservedPart(
+            np.concatenate([p.n for p in parts]),
+            np.concatenate([p.qty for p in parts], axis=1),
+            np.concatenate([p.y2 for p in parts]),
+            np.concatenate([p.c2 for p in parts]),
+            np.concatenate([p.shift for p in parts]),
+            np.concatenate([p.mean for p in parts]),
+            np.concatenate([p.half for p in parts]),
+            np.concatenate([p.rows for p in parts]),
+            np.concatenate([p.cols + o for p, o in zip(parts, offsets[:-1], strict=True)]),
         )
 
 
@@ -278,7 +383,8 @@ class ObservedDesign:
         """Fit responses ``y`` (n, r) with NaN where missing, each on its own rows.
 
         ``y`` is not modified.  Responses with no missing value are fitted too (``G = I``).
-        ``missing`` is ``isnan(y)`` when the caller has it already.
+        ``missing`` is ``isnan(y)`` when the caller has it already.  The same as
+        :meth:`finish` of the one :meth:`project` of ``y``.
 
         Examples
         --------
@@ -298,23 +404,49 @@ class ObservedDesign:
         y = np.asarray(y, dtype=np.float64)
         if y.ndim == 1:
             y = y[:, None]
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return self._fit(y, missing)
+        return self.finish([self.project(y, missing)], lambda cols: y[:, cols])
 
-    def _fit(self, y: Array, missing: NDArray[np.bool_] | None) -> ObservedBlock:
+    @_forty_doc
+    def project(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedPart:
+        """The summaries of a block of responses ``y`` (n, b) that :meth:`finish` fits.
+
+        One pass over the block: a copy shifted by a rough mean (:func:`_rough_mean`), its
+        product with ``Q̂``, its sums of squares and the Gram corrections ``Q̂_Mᵀ Q̂_M`` of the
+        missing rows; ``y`` is not modified.  Blocks projected one by one (on any thread) are
+        finished together, so the small per-response algebra runs once over all of them.
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 3)); y[5, 1] = np.nan
+        >>> part = observed_design(f, solve(f.moments)).project(y)
+        >>> part.n.tolist(), part.qty.shape
+        ([40, 39, 40], (3, 3))
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return self._project(y, missing)
+
+    def _project(self, y: Array, missing: NDArray[np.bool_] | None) -> ObservedPart:
         n, r = y.shape
         qh = self._q
         k = qh.shape[1]
         if not self.usable:
-            n_obs = n - np.count_nonzero(np.isnan(y) if missing is None else missing, axis=0)
+            miss = np.isnan(y) if missing is None else missing
+            ii, jj = np.nonzero(miss)
             nan = np.full(r, np.nan)
-            return ObservedBlock(
-                n_obs.astype(np.int64),
+            return ObservedPart(
+                (n - np.count_nonzero(miss, axis=0)).astype(np.int64),
                 np.full((k, r), np.nan),
                 nan,
-                nan.copy(),
-                np.broadcast_to(np.eye(k), (r, k, k)).copy(),
-                np.zeros(r, dtype=bool),
+                nan,
+                nan,
+                np.zeros(r),
+                np.zeros((r, self._outer.shape[1])),
+                ii,
+                jj,
             )
         yc = np.array(y, dtype=np.float64, order="C")  # the one copy of the block
         if missing is None:
@@ -325,32 +457,113 @@ class ObservedDesign:
         flat = np.flatnonzero(missing)
         ii = flat // r
         jj = flat - ii * r
-        count = np.bincount(jj, minlength=r)
-        n_obs = n - count
-        yc[ii, jj] = 0.0
-        w = self._w
+        n_obs = n - np.bincount(jj, minlength=r)
         if self._intercept:
-            # centred once on the response's own mean: what rounding leaves of the mean lies
-            # along the intercept, which the fit below takes up exactly
-            if w is None:
-                wsum = n_obs.astype(np.float64)
-                total = np.ones(n) @ yc
-            else:
-                wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
-                total = w @ yc
-            center = total / np.where(wsum > 0, wsum, 1.0)
-            yc -= center
-            yc[ii, jj] = 0.0
+            # shifted by a rough mean from a sample of rows (no pass over the block for the
+            # mean); what the shift leaves of the mean lies along the intercept, first in Q̂
+            shift = _rough_mean(yc)
+            yc -= shift
         else:
-            center = np.zeros(r)
+            shift = np.zeros(r)
+        yc[ii, jj] = 0.0
         if self._sqrt_w is not None:
             yc *= self._sqrt_w[:, None]
         qty = qh.T @ yc  # (k, r)
-        # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
+        y2 = np.einsum("ij,ij->j", yc, yc)
+        mean = np.zeros(r)
+        c2 = self._centre_far(yc, qty, y2, mean, ii, jj) if self._intercept else y2
+        # Q̂_Mᵀ Q̂_M from the missing rows only (upper triangles summed, by a sparse product)
         indptr = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(ii, minlength=n), out=indptr[1:])
         missing_rows = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n))
         half = np.asarray(missing_rows @ self._outer)
+        return ObservedPart(n_obs.astype(np.int64), qty, y2, c2, shift, mean, half, ii, jj)
+
+    def _centre_far(
+        self,
+        yc: Array,
+        qty: Array,
+        y2: Array,
+        mean: Array,
+        ii: NDArray[np.intp],
+        jj: NDArray[np.intp],
+    ) -> Array:
+        """The centred sums of squares, after centring exactly where a rough shift left much of
+        the mean.
+
+        ``yc`` (n, r) holds the shifted, scaled responses (zero where missing), ``qty`` and
+        ``y2`` their products with ``Q̂`` and sums of squares.  The weighted mean ``c`` left
+        by the shift on a response's rows is ``qty[0]·√W / W_O`` and ``W_O c² = qty[0]²·W/W_O``
+        is the part of ``y2`` it makes.  Where that part is at most ``y2 / 4`` the centred sum
+        of squares ``y2 − W_O c²`` loses less than half a bit; elsewhere (a shift far from the
+        mean, a constant response) the response is centred on ``c`` in ``yc`` (the second
+        pass of a two-pass mean, as a single fit centres), its products are taken again
+        (``qty``, ``y2`` updated in place) and ``c`` is recorded in ``mean``.
+        """
+        r = yc.shape[1]
+        w = self._w
+        if w is None:
+            wsum = yc.shape[0] - np.bincount(jj, minlength=r).astype(np.float64)
+        else:
+            wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
+        wsum = np.where(wsum > 0, wsum, 1.0)
+        c2: Array = y2 - qty[0] ** 2 * (self._weight_sum / wsum)
+        far = np.flatnonzero(~(y2 - c2 <= 0.25 * y2))  # NaN, inf: centred as well
+        if far.size:
+            mean[far] = qty[0, far] * (np.sqrt(self._weight_sum) / wsum[far])
+            part = self._recentred(yc[:, far], mean[far])
+            _zero_missing(part, far, ii, jj, r)
+            yc[:, far] = part
+            qty[:, far] = self._q.T @ part
+            y2[far] = c2[far] = np.einsum("ij,ij->j", part, part)
+        return c2
+
+    def _recentred(self, part: Array, mean: Array) -> Array:
+        part -= mean if self._sqrt_w is None else self._sqrt_w[:, None] * mean
+        return part
+
+    @_forty_doc
+    def finish(
+        self, parts: list[ObservedPart], read: Callable[[NDArray[np.intp]], Array]
+    ) -> ObservedBlock:
+        """Fit the responses of projected blocks (:meth:`project`), in order, on their own rows.
+
+        ``read(cols)`` gives the responses (n, c) at positions ``cols`` of the joined blocks
+        again: the residuals of responses whose fit is close are formed explicitly from them
+        (module notes).
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 4)); y[[3, 9], 1] = np.nan; y[0, 3] = np.nan
+        >>> od = observed_design(f, solve(f.moments))
+        >>> both = od.finish([od.project(y[:, :2]), od.project(y[:, 2:])], lambda c: y[:, c])
+        >>> bool(np.allclose(both.theta, od.fit(y).theta)), both.n.tolist()
+        (True, [40, 38, 40, 39])
+        """
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return self._finish(parts, read)
+
+    def _finish(
+        self, parts: list[ObservedPart], read: Callable[[NDArray[np.intp]], Array]
+    ) -> ObservedBlock:
+        qh = self._q
+        n, k = qh.shape
+        part = ObservedPart.concat(parts, k, self._outer.shape[1])
+        r = part.count
+        n_obs, qty, y2 = part.n, part.qty, part.y2
+        if not self.usable:
+            nan = np.full(r, np.nan)
+            return ObservedBlock(
+                n_obs,
+                np.full((k, r), np.nan),
+                nan,
+                nan.copy(),
+                np.broadcast_to(np.eye(k)[:, :, None], (k, k, r)).copy(),
+                np.zeros(r, dtype=bool),
+            )
+        half = part.half
+        # G = I − Σ_missing q̂_i q̂_iᵀ
         gram = -half[:, self._full_from_half].reshape(r, k, k)
         gram[:, np.arange(k), np.arange(k)] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
@@ -360,30 +573,26 @@ class ObservedDesign:
         if unsure.size:
             wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
         gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
-        chol = np.asarray(np.linalg.cholesky(gram), dtype=np.float64)  # positive definite
+        chol = np.linalg.cholesky(gram)  # positive definite
+        low = np.ascontiguousarray(np.moveaxis(chol, 0, -1))  # (k, k, r): responses last
         coef = np.array(qty)  # (k, r): G⁻¹ Q̂ᵀ y by two triangular solves, responses last
-        low = np.ascontiguousarray(np.moveaxis(chol, 0, -1))
         _lower_solve_last(low, coef)
         _lower_solve_last(low, coef, trans=True)
-        # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
-        # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
+        # ‖y‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
+        # takes at most half of ‖y‖², the difference loses at most one bit and is used; where
         # it takes more, the residual sum of squares comes from the explicit residual
-        y2 = np.einsum("ij,ij->j", yc, yc)
         fit2 = np.einsum("ij,ij->j", coef, qty)
         resid2 = np.maximum(y2 - fit2, 0.0)
         close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
         if close.size:
-            pos = np.full(r, -1)
-            pos[close] = np.arange(close.size)
-            resid = yc[:, close] - qh @ coef[:, close]
-            hit = pos[jj] >= 0
-            resid[ii[hit], pos[jj[hit]]] = 0.0
+            resid = self._shifted(read(close), part, close) - qh @ coef[:, close]
+            _zero_missing(resid, close, part.rows, part.cols, r)
             resid2[close] = np.einsum("ij,ij->j", resid, resid)
-        y_norm = np.sqrt(y2)
+        y_norm = np.sqrt(part.c2)
         resid_norm = np.sqrt(resid2)
         theta = upper_solve(self.r_work, coef)
         if self._intercept:
-            theta[0] += center
+            theta[0] += part.shift + part.mean
         edge = self._zero_tol * y_norm
         near_zero = (resid_norm > edge / ZERO_MARGIN) & (resid_norm <= edge * ZERO_MARGIN)
         certified = (
@@ -394,7 +603,24 @@ class ObservedDesign:
             & np.isfinite(resid_norm)
             & np.isfinite(y_norm)
         )
-        return ObservedBlock(n_obs.astype(np.int64), theta, resid_norm, y_norm, chol, certified)
+        return ObservedBlock(n_obs, theta, resid_norm, y_norm, low, certified)
+
+    def _shifted(self, y: Array, part: ObservedPart, cols: NDArray[np.intp]) -> Array:
+        """The responses ``cols`` of ``part`` as :meth:`project` left them in its copy (the same
+        operations, so the same numbers)."""
+        yc = np.array(y, dtype=np.float64, order="C")
+        r = part.count
+        if self._intercept:
+            yc -= part.shift[cols]
+        _zero_missing(yc, cols, part.rows, part.cols, r)
+        if self._sqrt_w is not None:
+            yc *= self._sqrt_w[:, None]
+        far = np.flatnonzero(part.mean[cols] != 0.0)
+        if far.size:
+            sub = self._recentred(yc[:, far], part.mean[cols[far]])
+            _zero_missing(sub, cols[far], part.rows, part.cols, r)
+            yc[:, far] = sub
+        return yc
 
 
 def observed_design(
@@ -466,12 +692,9 @@ def observed_design(
     iu, ju = np.triu_indices(k)
     # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows), in the order of
     # triu_indices: row i of the triangle is q̂_i times q̂_i..q̂_(k-1)
-    outer = np.empty((n, iu.size) if usable else (n, 0))
-    if usable:
-        start = 0
-        for i in range(k):
-            np.multiply(qh[:, i : i + 1], qh[:, i:], out=outer[:, start : start + k - i])
-            start += k - i
+    # (formed transposed from Q̂ᵀ's contiguous rows, then laid out row by row)
+    qt = qh.T.copy()
+    outer = np.ascontiguousarray((qt[iu] * qt[ju]).T) if usable else np.empty((n, 0))
     where = np.zeros((k, k), dtype=np.intp)
     where[iu, ju] = np.arange(iu.size)
     where[ju, iu] = np.arange(iu.size)
@@ -536,13 +759,17 @@ def observed_wald(
     >>> bool(np.isclose(se[0, 0] ** 2, np.linalg.solve(xtx, c[0])[1]))
     True
     """
-    roots = _lower_solve(block.chol, np.broadcast_to(root, (block.count, *root.shape)))
-    se = np.sqrt(np.einsum("rkm,rkm->rm", roots, roots))
+    k, m = root.shape
+    roots = np.empty((k, m, block.count))  # L⁻¹ U per response, responses last
+    roots[...] = root[:, :, None]
+    _lower_solve_last(block.low, roots)
+    se = np.sqrt(np.einsum("kmr,kmr->rm", roots, roots))
     if independent.size == 0:
         return np.zeros(block.count), se
-    tri = _r_factor(roots[:, :, independent])
-    z = _lower_solve(np.swapaxes(tri, 1, 2), delta[independent].T[:, :, None])[:, :, 0]
-    return np.einsum("rq,rq->r", z, z), se
+    tri = _r_factor(roots[:, independent, :])
+    z = np.array(delta[independent], dtype=np.float64)  # (q, r)
+    _lower_solve_last(np.ascontiguousarray(np.swapaxes(tri, 0, 1)), z)
+    return np.einsum("qr,qr->r", z, z), se
 
 
 def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
@@ -575,6 +802,27 @@ def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
     return out
 
 
+def _rough_mean(yc: Array) -> Array:
+    """Means of a sample of about 64 rows spread over the block (missing values left out; 0
+    for a response missing in all of them): a shift close to each response's mean."""
+    sample = yc[:: max(1, yc.shape[0] // 64)]
+    seen = ~np.isnan(sample)
+    total = np.where(seen, sample, 0.0).sum(axis=0)
+    out: Array = total / np.maximum(seen.sum(axis=0), 1)
+    return out
+
+
+def _zero_missing(
+    part: Array, cols: NDArray[np.intp], ii: NDArray[np.intp], jj: NDArray[np.intp], r: int
+) -> None:
+    """Zero the missing values (rows ``ii``, responses ``jj`` of ``r``) of ``part``, which holds
+    the responses ``cols`` (in that order)."""
+    pos = np.full(r, -1)
+    pos[cols] = np.arange(cols.size)
+    hit = pos[jj] >= 0
+    part[ii[hit], pos[jj[hit]]] = 0.0
+
+
 # -- batched small factorizations (loops over the k columns, vectorized over responses) --------
 
 
@@ -597,14 +845,6 @@ def _cholesky(g: Array) -> tuple[Array, NDArray[np.bool_]]:
     return low, ok
 
 
-def _lower_solve(low: Array, b: Array, *, trans: bool = False) -> Array:
-    """``L⁻¹ b`` (or ``L⁻ᵀ b``) for stacks ``low`` (r, k, k) and ``b`` (r, k, m)."""
-    # worked with the responses last (contiguous rows of r numbers): fewer, longer loops
-    x = np.array(np.moveaxis(b, 0, -1), dtype=np.float64, order="C")  # (k, m, r), a copy
-    _lower_solve_last(np.ascontiguousarray(np.moveaxis(low, 0, -1)), x, trans=trans)
-    return np.moveaxis(x, -1, 0)
-
-
 def _lower_solve_last(low: Array, x: Array, *, trans: bool = False) -> None:
     """``x ← L⁻¹ x`` (or ``L⁻ᵀ x``) in place, responses last: ``low`` (k, k, r), ``x`` (k, r) or
     (k, m, r)."""
@@ -621,19 +861,19 @@ def _lower_solve_last(low: Array, x: Array, *, trans: bool = False) -> None:
 
 
 def _r_factor(a: Array) -> Array:
-    """Upper triangular ``T`` (r, q, q) with ``Tᵀ T = aᵀ a`` for a stack ``a`` (r, k, q):
-    classical Gram–Schmidt twice (accurate as Householder QR for the small ``q`` here)."""
-    r, k, q = a.shape
-    basis = np.zeros((r, k, q))
-    tri = np.zeros((r, q, q))
+    """Upper triangular ``T`` (q, q, r) with ``Tᵀ T = aᵀ a`` for a stack ``a`` (k, q, r), responses
+    last: classical Gram–Schmidt twice (accurate as Householder QR for the small ``q`` here)."""
+    k, q, r = a.shape
+    basis = np.zeros((k, q, r))
+    tri = np.zeros((q, q, r))
     for j in range(q):
-        v = a[:, :, j].copy()
-        b = basis[:, :, :j]
+        v = a[:, j, :].copy()
+        b = basis[:, :j, :]
         for _ in range(2):
-            h = np.einsum("rkj,rk->rj", b, v)
-            tri[:, :j, j] += h
-            v -= np.einsum("rkj,rj->rk", b, h)
-        nv = np.sqrt(np.einsum("rk,rk->r", v, v))
-        tri[:, j, j] = nv
-        basis[:, :, j] = v / np.where(nv > 0, nv, 1.0)[:, None]
+            h = np.einsum("kjr,kr->jr", b, v)
+            tri[:j, j] += h
+            v -= np.einsum("kjr,jr->kr", b, h)
+        nv = np.sqrt(np.einsum("kr,kr->r", v, v))
+        tri[j, j] = nv
+        basis[:, j, :] = v / np.where(nv > 0, nv, 1.0)
     return tri

@@ -576,8 +576,8 @@ def _build(
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
-    obs_blocks: list[core.ObservedBlock] = []
-    obs_cols: list[NDArray[np.intp]] = []
+    own_parts: list[core.ObservedPart] = []
+    own_cols: list[NDArray[np.intp]] = []
     refit: list[NDArray[np.intp]] = []
     blocks = -(-r // width)
     workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
@@ -592,10 +592,8 @@ def _build(
             if own is None:
                 refit.append(cols[odd_cols])
             else:
-                ok = own.certified
-                obs_blocks.append(own if ok.all() else own.take(np.flatnonzero(ok)))
-                obs_cols.append(cols[odd_cols[ok]])
-                refit.append(cols[odd_cols[~ok]])
+                own_parts.append(own)
+                own_cols.append(cols[odd_cols])
         main_blocks.append(block)
         main_cols.append(cols[good])
         del yb
@@ -603,12 +601,22 @@ def _build(
         solve_group(factor, lf, main_blocks, _joined(main_cols), None)
     ]
     del main_blocks
-    observed_columns = _joined(obs_cols)
-    od = observed() if observed_columns.size else None
+    od = observed() if own_parts else None
     if od is not None:
-        joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
-        groups.append(_ObservedGroup(observed_columns, lf, od, joined))
-    del obs_blocks
+        # the own-rows fits of every block at once; responses not certified are refitted
+        columns = _joined(own_cols)
+
+        def read(at: NDArray[np.intp]) -> NDArray[np.float64]:
+            yb = source.block(columns[at])
+            return yb if positions is None else yb[positions]
+
+        joined = od.finish(own_parts, read)
+        ok = joined.certified
+        if ok.any():
+            kept = joined if ok.all() else joined.take(np.flatnonzero(ok))
+            groups.append(_ObservedGroup(columns[ok], lf, od, kept))
+        refit.append(columns[~ok])
+    del own_parts
     groups.extend(
         exact_groups(
             design, source, positions, _joined(refit), rank_tol, BLOCK_BYTES, MIN_BLOCK_COLUMNS
