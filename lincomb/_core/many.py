@@ -454,7 +454,12 @@ def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Ar
     rank_o = kept_o.size
     r_count = block.count
     qty = block.qty
-    if rank_o:
+    if rank_o == q and np.array_equal(kept_o, others):
+        # every column kept in order: the working factor is triangular already (its QR would
+        # be the identity times itself, exactly: LAPACK leaves zero columns unreflected)
+        theta_o = upper_solve(m.r[:q, :q] / sol.scale[kept_o], qty)
+        tail = qty[:0]
+    elif rank_o:
         pos = np.searchsorted(others, kept_o)
         rs_k = m.r[:q, :q][:, pos] / sol.scale[kept_o]
         qk, rk = np.linalg.qr(rs_k, mode="complete")
