@@ -20,8 +20,9 @@ modules:
   :class:`ResponseBlock`, :func:`factor_design`, :func:`solve_responses`,
   :func:`wald_quadratic_forms`);
 * :mod:`~lincomb._core.observed`: many responses with missing values, each on its own rows
-  from the one factor of all rows (:func:`observed_design`, :class:`ObservedPart`,
-  :class:`ObservedBlock`, :func:`observed_wald`, :func:`row_distances`);
+  from the one factor of all rows (:func:`observed_design`,
+  :class:`~lincomb._core.observed.ObservedPart`, :class:`ObservedBlock`, :func:`observed_wald`,
+  :func:`row_distances`);
 * :mod:`~lincomb._core.batch`: many restriction systems on one fit (:func:`wald_systems`).
 
 Everything the later stages need is derived from a small *moment* object (the sufficient
@@ -139,7 +140,6 @@ from lincomb._core.observed import (
     ROW_MARGIN,
     ObservedBlock,
     ObservedDesign,
-    ObservedPart,
     observed_design,
     observed_wald,
     row_distances,
@@ -198,7 +198,6 @@ __all__ = [
     # many responses, each on its own rows
     "ObservedBlock",
     "ObservedDesign",
-    "ObservedPart",
     "observed_design",
     "observed_wald",
     "row_distances",

@@ -59,6 +59,7 @@ from numpy.typing import ArrayLike, NDArray
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level
+from lincomb._core.observed import ObservedPart
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design
 from lincomb._fit.response_groups import (
     _Group,
@@ -126,6 +127,21 @@ def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.
 
 
 @dataclass(frozen=True)
+class _PerResponse:
+    """The numbers of every response of a :class:`ManyFit`, as arrays (responses last)."""
+
+    coef: NDArray[np.float64]  # (p, r), NaN where aliased
+    n_obs: NDArray[np.int64]
+    rank: NDArray[np.int64]
+    rss: NDArray[np.float64]
+    status: NDArray[np.int8]  # positions in STATUSES
+
+    @property
+    def df_error(self) -> NDArray[np.int64]:
+        return self.n_obs - self.rank
+
+
+@dataclass(frozen=True)
 class ManyFit:
     """Least-squares fits of many responses on one design, kept as sufficient statistics.
 
@@ -172,11 +188,7 @@ class ManyFit:
     formula: str | None
     # the per-response numbers as arrays; the pandas attributes are built from them when first
     # read (a fit tested right away never needs them)
-    _coef: NDArray[np.float64] = field(repr=False, compare=False)  # (p, r)
-    _n_obs: NDArray[np.int64] = field(repr=False, compare=False)
-    _rank: NDArray[np.int64] = field(repr=False, compare=False)
-    _rss: NDArray[np.float64] = field(repr=False, compare=False)
-    _status_codes: NDArray[np.int8] = field(repr=False, compare=False)  # positions in STATUSES
+    _per: _PerResponse = field(repr=False, compare=False)
     rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _groups: tuple[_Group | _ObservedGroup, ...] = field(repr=False, compare=False, default=())
@@ -196,40 +208,40 @@ class ManyFit:
     @functools.cached_property
     def coefficients(self) -> pd.DataFrame:
         """Estimates, one column per response (index: coefficient names; NaN where aliased)."""
-        return pd.DataFrame(self._coef, index=list(self.names), columns=self._response_index)
+        return pd.DataFrame(self._per.coef, index=list(self.names), columns=self._response_index)
 
     @functools.cached_property
     def n_obs(self) -> pd.Series:
         """Rows used per response."""
-        return self._series(self._n_obs, "n_obs")
+        return self._series(self._per.n_obs, "n_obs")
 
     @functools.cached_property
     def df_error(self) -> pd.Series:
         """Error degrees of freedom per response."""
-        return self._series(self._n_obs - self._rank, "df_error")
+        return self._series(self._per.df_error, "df_error")
 
     @functools.cached_property
     def rss(self) -> pd.Series:
         """Residual sum of squares per response."""
-        return self._series(self._rss, "rss")
+        return self._series(self._per.rss, "rss")
 
     @functools.cached_property
     def sigma(self) -> pd.Series:
         """Residual standard deviation per response (NaN without error degrees of freedom)."""
-        df = self._n_obs - self._rank
+        df = self._per.df_error
         with np.errstate(divide="ignore", invalid="ignore"):
-            sigma = np.where(df > 0, np.sqrt(self._rss / np.where(df > 0, df, 1)), np.nan)
+            sigma = np.where(df > 0, np.sqrt(self._per.rss / np.where(df > 0, df, 1)), np.nan)
         return self._series(sigma, "sigma")
 
     @functools.cached_property
     def rank(self) -> pd.Series:
         """Rank of the design on each response's rows."""
-        return self._series(self._rank, "rank")
+        return self._series(self._per.rank, "rank")
 
     @functools.cached_property
     def status(self) -> pd.Series:
         """``"ok"``, ``"too few rows"`` or ``"exact fit"`` per response (categorical)."""
-        return self._series(from_codes(self._status_codes, STATUSES), "status")
+        return self._series(from_codes(self._per.status, STATUSES), "status")
 
     # -- single responses ----------------------------------------------------------------------
     def _position(self, response: str | int) -> int:
@@ -340,8 +352,8 @@ class ManyFit:
         se_all = t_all = None
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
-        df_error = (self._n_obs - self._rank).astype(np.float64)
-        status = self._status_codes.copy()  # marked below
+        df_error = self._per.df_error.astype(np.float64)
+        status = self._per.status.copy()  # marked below
         main = self._groups[0]
         main_prepared = None
         groups = list(self._groups)
@@ -407,7 +419,7 @@ class ManyFit:
             df_error=df_error,
             p=pval,
             status=np.asarray(STATUSES)[status],
-            n_obs=self._n_obs.copy(),
+            n_obs=self._per.n_obs.copy(),
             redundant=redundant,
             _response_index=self._response_index,
             _status_codes=status,
@@ -576,7 +588,7 @@ def _build(
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
-    own_parts: list[core.ObservedPart] = []
+    own_parts: list[ObservedPart] = []
     own_cols: list[NDArray[np.intp]] = []
     refit: list[NDArray[np.intp]] = []
     blocks = -(-r // width)
@@ -682,11 +694,7 @@ def _assemble(
     return ManyFit(
         names=design.index.names,
         responses=source.names,
-        _coef=coef,
-        _n_obs=n_obs,
-        _rank=rank,
-        _rss=rss,
-        _status_codes=status,
+        _per=_PerResponse(coef, n_obs, rank, rss, status),
         aliased=lf.aliased,
         n_dropped=len(design.dropped),
         weighted=design.weights is not None,

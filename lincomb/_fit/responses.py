@@ -12,6 +12,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._core.observed import ObservedPart
 from lincomb._model.design import Design
 from lincomb.errors import InputError, MissingValueError
 
@@ -174,7 +175,7 @@ def _check_no_inf(
         )
 
 
-_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedPart | None"]
+_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "ObservedPart | None"]
 
 
 def _fit_block(
@@ -211,7 +212,7 @@ def _refuse_bad_values(
     cols: NDArray[np.intp],
     odd: NDArray[np.bool_],
     block: core.ResponseBlock,
-    own: core.ObservedPart | None,
+    own: ObservedPart | None,
     names: tuple[str, ...],
     design: Design,
     missing: str,
