@@ -1,11 +1,16 @@
-"""Responses with missing values fitted on their own rows: the shifted one-pass projection.
+"""Many responses with fewer passes over the data: the digits they keep and the routes they take.
 
-The own-rows route (:mod:`lincomb._core.observed`) centres each response by a rough mean taken
-from a sample of rows, in the pass that copies the block, and centres exactly only where that
-shift was far from the mean; blocks are projected one by one and finished together, the
-residuals of close fits formed again from the responses.  These tests check the digits of
-responses with large means, the far-shift path and the finish over several blocks against
-statsmodels (a numerical reference only: OLS/WLS per response on that response's rows).
+* Complete responses whose mean is small beside their spread are projected without a centred
+  copy (:meth:`lincomb._core.DesignFactor.project_finite`); the others are centred first.
+* Responses with missing values are fitted on their own rows (:mod:`lincomb._core.observed`):
+  each is shifted by a rough mean taken from a sample of rows, in the pass that copies the
+  block, and centred exactly only where that shift was far from its mean; blocks are projected
+  one by one and finished together, the residuals of close fits formed again from the
+  responses.
+
+The tests check the digits of responses with large means, the far-shift path, mixed routes
+within a block and the finish over several blocks against statsmodels (a numerical reference
+only: OLS/WLS per response on that response's rows).
 """
 
 from __future__ import annotations
@@ -117,3 +122,33 @@ def test_blocks_finished_together_and_close_fits_read_again(
         np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
         ft = ref.f_test((c, np.array([1.0, 0.5])))
         np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-8)
+
+
+def test_small_and_large_means_in_one_block_and_close_fits() -> None:
+    # Complete responses: some with mean 0 (projected without a centred copy), some with mean
+    # 1e8 and spread 1 (centred first), some fitting closely (R² near 1: explicit residuals
+    # from the caller's array, which must stay untouched), in one block.  Reference:
+    # statsmodels OLS per response on y - 1e8 where the mean is large (exact deviations, as
+    # above), so the reference itself keeps every digit.
+    n, r = 200, 9
+    x = _design(n, 7)
+    rng = np.random.default_rng(8)
+    ys = rng.normal(size=(n, r))
+    ys[:, 3:6] += 1e8
+    ys[:, 6:] = 1e-3 * ys[:, 6:] + x @ np.array([0.0, 1.0, -2.0, 0.5])[:, None]
+    ys0 = ys.copy()
+    f = core.factor_design(x, None, 0)
+    odd, block = f.project_finite(ys)
+    np.testing.assert_array_equal(ys, ys0)  # the input is not modified
+    assert not odd.any() and block.count == r
+    mf = lc.fit_many_arrays(x, ys, names=["one", "a", "b", "c"])
+    res = mf.wald(lc.coef("a") == 0.999)  # well away from every estimate: a stable F
+    for j in range(r):
+        shift = 1e8 if 3 <= j < 6 else 0.0
+        ref = _reference(x, ys[:, j] - shift)
+        beta = mf.coefficients.iloc[:, j].to_numpy()
+        np.testing.assert_allclose(beta[1:], ref.params[1:], rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(beta[0], ref.params[0] + shift, rtol=1e-14, atol=1e-12)
+        np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
+        ft = ref.f_test((np.array([[0.0, 1, 0, 0]]), np.array([0.999])))
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)
