@@ -3,8 +3,9 @@
 * Complete responses whose mean is small beside their spread are projected without a centred
   copy (:meth:`lincomb._core.DesignFactor.project_finite`); the others are centred first.
 * Responses with missing values are fitted on their own rows (:mod:`lincomb._core.observed`):
-  each is shifted by a rough mean taken from a sample of rows, in the pass that copies the
-  block, and centred exactly only where that shift was far from its mean; blocks are projected
+  each is shifted by a rough mean taken from a sample of rows (not at all where that sample's
+  mean is small beside its spread), and centred exactly only where the shift was far from
+  its mean; blocks are projected
   one by one and finished together, the residuals of close fits formed again from the
   responses.
 

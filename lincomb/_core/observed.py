@@ -460,9 +460,11 @@ class ObservedDesign:
         n_obs = n - np.bincount(jj, minlength=r)
         if self._intercept:
             # shifted by a rough mean from a sample of rows (no pass over the block for the
-            # mean); what the shift leaves of the mean lies along the intercept, first in Q̂
+            # mean; no shift at all where every mean is small beside its spread); what the
+            # shift leaves of the mean lies along the intercept, first in Q̂
             shift = _rough_mean(yc)
-            yc -= shift
+            if shift.any():
+                yc -= shift
         else:
             shift = np.zeros(r)
         yc[ii, jj] = 0.0
@@ -804,11 +806,15 @@ def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
 
 def _rough_mean(yc: Array) -> Array:
     """Means of a sample of about 64 rows spread over the block (missing values left out; 0
-    for a response missing in all of them): a shift close to each response's mean."""
+    for a response missing in all of them): a shift close to each response's mean; 0 where the
+    sample's mean is small beside its spread (such a response needs no shift)."""
     sample = yc[:: max(1, yc.shape[0] // 64)]
     seen = ~np.isnan(sample)
-    total = np.where(seen, sample, 0.0).sum(axis=0)
-    out: Array = total / np.maximum(seen.sum(axis=0), 1)
+    values = np.where(seen, sample, 0.0)
+    count = np.maximum(seen.sum(axis=0), 1)
+    mean = values.sum(axis=0) / count
+    square = np.einsum("ij,ij->j", values, values) / count
+    out: Array = np.where(4.0 * mean**2 <= square - mean**2, 0.0, mean)
     return out
 
 
