@@ -17,12 +17,18 @@ so ``A_O = (Q̂_O L⁻ᵀ)(Lᵀ R)``: the columns of ``Q̂_O L⁻ᵀ`` are ortho
 triangular factor of the response's own rows.  ``G`` is ``k × k`` (``k`` = columns of the
 design) and is formed from the few missing rows only (``k²`` work per missing value, one sparse
 product), so a response costs what its missing values cost plus its share of the matrix products
-over all rows, vectorized over responses.  The response is centred on its own (weighted) mean
-over ``O`` (what rounding leaves of the mean lies along the intercept, which the fit takes up
-exactly, so no second pass is needed); the coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched
-solve).  The residual sum of squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of
-``‖y_O‖²`` (at most one bit lost to cancellation) and comes from the explicit residual
-``y_O − Q̂_O c`` elsewhere.  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
+over all rows, vectorized over responses.  The response is shifted by a rough mean (of a
+sample of rows; no shift where that mean is small beside the sample's spread): what the shift
+leaves of the mean lies along the intercept, which the fit takes up exactly, and where it is
+more than a quarter of the shifted sum of squares the response is centred on its exact mean
+before its products are taken again, so the shifted response is never more than ``√(4/3)``
+times the centred one in norm and its products lose no digit to a large mean.  The
+coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched solve).  Blocks of responses are projected one
+by one (:meth:`ObservedDesign.project`: the passes over the data) and finished together
+(:meth:`ObservedDesign.finish`: the small algebra per response).  The residual sum of
+squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of ``‖y_O‖²`` (at most one
+bit lost to cancellation) and comes from the explicit residual ``y_O − Q̂_O c`` elsewhere
+(those responses are read again).  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
 ``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U`` (``L`` the Cholesky
 factor of ``G``, a batched forward substitution).
 
