@@ -571,18 +571,20 @@ class ObservedDesign:
                 np.zeros(r, dtype=bool),
             )
         half = part.half
-        # G = I − Σ_missing q̂_i q̂_iᵀ
-        gram = -half[:, self._full_from_half].reshape(r, k, k)
-        gram[:, np.arange(k), np.arange(k)] += 1.0
+        # G = I − Σ_missing q̂_i q̂_iᵀ, responses last (k, k, r)
+        gram = -half.T[self._full_from_half].reshape(k, k, r)
+        diag = np.arange(k)
+        gram[diag, diag] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
         # rows), then exactly by a Cholesky factorization of G − GRAM_FLOOR·I where needed
         wide = half[:, self._diag_in_half].sum(axis=1) <= 1.0 - GRAM_FLOOR
         unsure = np.flatnonzero(~wide)
         if unsure.size:
-            wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
-        gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
-        chol = np.linalg.cholesky(gram)  # positive definite
-        low = np.ascontiguousarray(np.moveaxis(chol, 0, -1))  # (k, k, r): responses last
+            shifted = gram[:, :, unsure]
+            shifted[diag, diag] -= GRAM_FLOOR
+            wide[unsure] = _cholesky(shifted)[1]
+        gram[:, :, ~wide] = np.eye(k)[:, :, None]  # left out below; keeps the factors defined
+        low = _cholesky(gram)[0]  # positive definite
         coef = np.array(qty)  # (k, r): G⁻¹ Q̂ᵀ y by two triangular solves, responses last
         _lower_solve_last(low, coef)
         _lower_solve_last(low, coef, trans=True)
@@ -839,21 +841,21 @@ def _zero_missing(
 
 
 def _cholesky(g: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Lower Cholesky factors of a stack (r, k, k) and whether each is positive definite
-    (a failed factor is left with unit pivots and must not be used)."""
-    r, k, _ = g.shape
+    """Lower Cholesky factors of a stack (k, k, r), responses last, and whether each is
+    positive definite (a failed factor is left with unit pivots and must not be used)."""
+    k, _, r = g.shape
     low = np.zeros_like(g)
     ok = np.ones(r, dtype=bool)
     for j in range(k):
-        row = low[:, j, :j]
-        piv = g[:, j, j] - np.einsum("ri,ri->r", row, row)
+        row = low[j, :j]
+        piv = g[j, j] - np.einsum("ir,ir->r", row, row)
         good = piv > 0
         ok &= good
         d = np.sqrt(np.where(good, piv, 1.0))
-        low[:, j, j] = d
+        low[j, j] = d
         if j + 1 < k:
-            below = g[:, j + 1 :, j] - np.einsum("rik,rk->ri", low[:, j + 1 :, :j], row)
-            low[:, j + 1 :, j] = below / d[:, None]
+            below = g[j + 1 :, j] - np.einsum("ikr,kr->ir", low[j + 1 :, :j], row)
+            low[j + 1 :, j] = below / d
     return low, ok
 
 
