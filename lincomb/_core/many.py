@@ -201,7 +201,8 @@ class DesignFactor:
         Returns ``odd`` (r,), True for the responses set aside (a non-finite sum or mean: a
         missing or infinite value, or one that overflows a sum), and the summaries of the
         others, in order.  With an intercept the test costs nothing: it is the mean that
-        centring takes anyway.
+        centring takes anyway.  Unweighted responses whose mean is small beside their spread
+        need no centred copy and are projected as they are (:meth:`_project_small_means`).
 
         Examples
         --------
