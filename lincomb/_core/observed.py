@@ -367,16 +367,13 @@ class ObservedDesign:
     _intercept: bool
     _zero_tol: float
 
+    @_forty_doc
     def root(self, ck: Array) -> Array:
         """``U = R⁻ᵀ C_keptᵀ`` (k, m): ``Cov(Cβ̂) = σ² Uᵀ G⁻¹ U`` for each response.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-        >>> f = factor_design(x, intercept=0)
+        %(forty_rows)s
         >>> sol = solve(f.moments)
         >>> c = np.array([[0.0, 1.0, -1.0]])
         >>> u = observed_design(f, sol).root(sol.to_working(c)[:, sol.kept])
@@ -385,6 +382,7 @@ class ObservedDesign:
         """
         return upper_solve(self.r_work, np.asarray(ck, dtype=np.float64).T, trans=True)
 
+    @_forty_doc
     def fit(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedBlock:
         """Fit responses ``y`` (n, r) with NaN where missing, each on its own rows.
 
@@ -394,12 +392,8 @@ class ObservedDesign:
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(1)
-        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-        >>> y = rng.normal(size=30); y[[3, 4]] = np.nan
-        >>> f = factor_design(x, intercept=0)
+        %(forty_rows)s
+        >>> y = rng.normal(size=40); y[[3, 4]] = np.nan
         >>> sol = solve(f.moments)
         >>> block = observed_design(f, sol).fit(y[:, None])
         >>> keep = ~np.isnan(y)
@@ -633,6 +627,7 @@ class ObservedDesign:
         return yc
 
 
+@_forty_doc
 def observed_design(
     factor: DesignFactor, sol: Solution | None, rank_tol: float = 1e-10, zero_tol: float = 1e-12
 ) -> ObservedDesign:
@@ -655,11 +650,8 @@ def observed_design(
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import factor_design
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> observed_design(factor_design(x, intercept=0), None).usable
+    %(forty_rows)s
+    >>> observed_design(f, None).usable
     True
     """
     from lincomb._core.solve import solve
@@ -723,6 +715,7 @@ def observed_design(
     )
 
 
+@_forty_doc
 def observed_wald(
     block: ObservedBlock, root: Array, delta: Array, independent: NDArray[np.intp]
 ) -> tuple[Array, Array]:
@@ -753,12 +746,9 @@ def observed_wald(
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import factor_design, solve
-    >>> rng = np.random.default_rng(2)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> y = rng.normal(size=30); y[[1, 8]] = np.nan
-    >>> f = factor_design(x, intercept=0); sol = solve(f.moments)
+    %(forty_rows)s
+    >>> y = rng.normal(size=40); y[[1, 8]] = np.nan
+    >>> sol = solve(f.moments)
     >>> od = observed_design(f, sol)
     >>> block = od.fit(y[:, None])
     >>> c = np.array([[0.0, 1.0, 0.0]])
