@@ -141,9 +141,8 @@ from lincomb._core.observed import (
     ObservedBlock,
     ObservedDesign,
     observed_design,
-    observed_wald,
-    row_distances,
 )
+from lincomb._core.observed_wald import observed_wald, row_distances
 from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
 from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve
