@@ -20,8 +20,9 @@ modules:
   :class:`ResponseBlock`, :func:`factor_design`, :func:`solve_responses`,
   :func:`wald_quadratic_forms`);
 * :mod:`~lincomb._core.observed`: many responses with missing values, each on its own rows
-  from the one factor of all rows (:func:`observed_design`, :class:`ObservedBlock`,
-  :func:`observed_wald`, :func:`row_distances`);
+  from the one factor of all rows (:func:`observed_design`,
+  :class:`~lincomb._core.observed.ObservedPart`, :class:`ObservedBlock`, :func:`observed_wald`,
+  :func:`row_distances`);
 * :mod:`~lincomb._core.batch`: many restriction systems on one fit (:func:`wald_systems`).
 
 Everything the later stages need is derived from a small *moment* object (the sufficient
@@ -140,9 +141,8 @@ from lincomb._core.observed import (
     ObservedBlock,
     ObservedDesign,
     observed_design,
-    observed_wald,
-    row_distances,
 )
+from lincomb._core.observed_wald import observed_wald, row_distances
 from lincomb._core.refine import REFINE_COND, REFINE_STEPS, condition_estimate, refine
 from lincomb._core.rows import ROW_TOL, RowAnalysis, analyze_rows
 from lincomb._core.solve import CONSTANT_TOL, RANK_TOL, SUPPORT_FLOOR, Solution, solve

@@ -194,7 +194,8 @@ class DesignFactor:
         Returns ``odd`` (r,), True for the responses set aside (a non-finite sum or mean: a
         missing or infinite value, or one that overflows a sum), and the summaries of the
         others, in order.  With an intercept the test costs nothing: it is the mean that
-        centring takes anyway.
+        centring takes anyway.  Unweighted responses whose mean is small beside their spread
+        need no centred copy and are projected as they are (:meth:`_project_small_means`).
 
         Examples
         --------
@@ -219,7 +220,51 @@ class DesignFactor:
             if odd.any():
                 y = y[:, ~odd]
                 m1 = None if m1 is None else m1[~odd]
+            if m1 is not None and self.weights is None:
+                return odd, self._project_small_means(y, m1)
             return odd, self._project(y, m1)
+
+    def _project_small_means(self, y: Array, m1: Array) -> ResponseBlock:
+        """:meth:`_project` without the centred copy for responses whose mean is small beside
+        their spread (unweighted, with an intercept); the others are projected centred.
+
+        Where ``n·mean² ≤ ‖y‖²/4``, ``‖y‖ ≤ √(4/3)·‖y − mean‖``: the products of the uncentred
+        ``y`` with ``[1/√n, Q]`` (``Q``'s centred columns are orthogonal to the intercept) carry
+        no more rounding than those of the centred copy, the intercept's coefficient gives
+        the mean, and the residual is ``‖y‖² − ‖[1/√n, Q]ᵀy‖²`` as in
+        :func:`_residual_squares` (the fit takes at most half, or the residual is formed).
+        """
+        ext = self._q_ext
+        assert ext is not None
+        y2 = np.einsum("ij,ij->j", y, y)
+        small = self.moments.weight_sum * m1**2 <= 0.25 * y2  # NaN, inf: centred
+        if small.all():
+            return self._project_uncentred(y, y2)
+        if not small.any():
+            return self._project(y, m1)
+        parts = (
+            self._project_uncentred(y[:, small], y2[small]),
+            self._project(y[:, ~small], m1[~small]),
+        )
+        order = np.argsort(np.concatenate([np.flatnonzero(small), np.flatnonzero(~small)]))
+        return ResponseBlock.concat(list(parts), self.moments.others.size).take(order)
+
+    def _project_uncentred(self, y: Array, y2: Array) -> ResponseBlock:
+        """The summaries of uncentred responses ``y`` (sums of squares ``y2``): see
+        :meth:`_project_small_means`.  ``y`` is read, not copied or modified."""
+        m = self.moments
+        ext = self._q_ext
+        assert ext is not None
+        qk = ext.T @ y
+        qty = np.zeros((m.others.size, y.shape[1]))
+        qty[: ext.shape[1] - 1] = qk[1:]
+        resid2 = _residual_squares(y, ext, qk, y2, overwrite=False)
+        return ResponseBlock(
+            qty=qty,
+            resid=np.sqrt(resid2),
+            center=qk[0] / np.sqrt(m.weight_sum),
+            raw_norm=np.sqrt(y2),
+        )
 
     def _project(self, y: Array, m1: Array | None = None) -> ResponseBlock:
         m = self.moments
@@ -231,7 +276,10 @@ class DesignFactor:
         if ext is not None:
             if m1 is None:
                 m1 = _column_means(y, w)
-            yb = y - m1  # the one copy of the block
+            # the one copy of the block, centred in place (faster than a subtraction that
+            # reads a strided view of the caller's array)
+            yb = np.array(y, dtype=np.float64, order="C")
+            yb -= m1
             if w is not None:
                 yb *= np.sqrt(w)[:, None]
             # the second centring pass rides on the projection: the intercept's direction is
@@ -286,18 +334,21 @@ def _column_means(y: Array, w: Array | None) -> Array:
     return out
 
 
-def _residual_squares(y: Array, basis: Array, coef: Array) -> Array:
+def _residual_squares(
+    y: Array, basis: Array, coef: Array, y2: Array | None = None, overwrite: bool = True
+) -> Array:
     """``‖y − basis·coef‖²`` per column, ``coef = basisᵀ y`` with orthonormal ``basis``.
 
-    Where the fit takes at most half of ``‖y‖²``, ``‖y‖² − ‖coef‖²`` loses at most one bit and
-    is used; elsewhere (a close fit, where the difference would cancel) the residual is formed
-    explicitly.  ``y`` may be overwritten.
+    Where the fit takes at most half of ``‖y‖²`` (``y2`` when given), ``‖y‖² − ‖coef‖²`` loses
+    at most one bit and is used; elsewhere (a close fit, where the difference would cancel)
+    the residual is formed explicitly.  ``y`` may be overwritten when ``overwrite``.
     """
-    y2 = np.einsum("ij,ij->j", y, y)
+    if y2 is None:
+        y2 = np.einsum("ij,ij->j", y, y)
     fit2 = np.einsum("ij,ij->j", coef, coef)
     out: Array = np.maximum(y2 - fit2, 0.0)
     close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN and inf go this way too
-    if close.size == y.shape[1]:
+    if close.size == y.shape[1] and overwrite:
         resid = _subtract_product(y, basis, coef)
         out = np.einsum("ij,ij->j", resid, resid)
     elif close.size:
@@ -436,7 +487,12 @@ def solve_responses(m: Moments, sol: Solution, block: ResponseBlock) -> tuple[Ar
     rank_o = kept_o.size
     r_count = block.count
     qty = block.qty
-    if rank_o:
+    if rank_o == q and np.array_equal(kept_o, others):
+        # every column kept in order: the working factor is triangular already (its QR would
+        # be the identity times itself, exactly: LAPACK leaves zero columns unreflected)
+        theta_o = upper_solve(m.r[:q, :q] / sol.scale[kept_o], qty)
+        tail = qty[:0]
+    elif rank_o:
         pos = np.searchsorted(others, kept_o)
         rs_k = m.r[:q, :q][:, pos] / sol.scale[kept_o]
         qk, rk = np.linalg.qr(rs_k, mode="complete")

@@ -17,12 +17,18 @@ so ``A_O = (Q̂_O L⁻ᵀ)(Lᵀ R)``: the columns of ``Q̂_O L⁻ᵀ`` are ortho
 triangular factor of the response's own rows.  ``G`` is ``k × k`` (``k`` = columns of the
 design) and is formed from the few missing rows only (``k²`` work per missing value, one sparse
 product), so a response costs what its missing values cost plus its share of the matrix products
-over all rows, vectorized over responses.  The response is centred on its own (weighted) mean
-over ``O`` (what rounding leaves of the mean lies along the intercept, which the fit takes up
-exactly, so no second pass is needed); the coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched
-solve).  The residual sum of squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of
-``‖y_O‖²`` (at most one bit lost to cancellation) and comes from the explicit residual
-``y_O − Q̂_O c`` elsewhere.  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
+over all rows, vectorized over responses.  The response is shifted by a rough mean (of a
+sample of rows; no shift where that mean is small beside the sample's spread): what the shift
+leaves of the mean lies along the intercept, which the fit takes up exactly, and where it is
+more than a quarter of the shifted sum of squares the response is centred on its exact mean
+before its products are taken again, so the shifted response is never more than ``√(4/3)``
+times the centred one in norm and its products lose no digit to a large mean.  The
+coefficients are ``c = G⁻¹ Q̂ᵀ y_O`` (a batched solve).  Blocks of responses are projected one
+by one (:meth:`ObservedDesign.project`: the passes over the data) and finished together
+(:meth:`ObservedDesign.finish`: the small algebra per response).  The residual sum of
+squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of ``‖y_O‖²`` (at most one
+bit lost to cancellation) and comes from the explicit residual ``y_O − Q̂_O c`` elsewhere
+(those responses are read again).  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
 ``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U`` (``L`` the Cholesky
 factor of ``G``, a batched forward substitution).
 
@@ -47,13 +53,15 @@ is the design's, with a margin of ``RANK_MARGIN / 2`` over the rounding of eithe
 ``κ(G) ≤ 4`` bounds the extra rounding of the Cholesky route to a factor 4 over the direct one,
 and restriction rows in decision coordinates (:meth:`~lincomb._core.solve.Solution.decision_rows`)
 change their distances by at most a factor 2 (callers check that every row's distance is at
-least a factor :data:`ROW_MARGIN` from ``row_tol``: :func:`row_distances`).  Responses that are
+least a factor :data:`ROW_MARGIN` from ``row_tol``:
+:func:`~lincomb._core.observed_wald.row_distances`).  Responses that are
 not certified are refitted exactly on their own rows by the caller (one factorization per
 pattern of missing values), so no decision ever rests on a downdate that could lose accuracy.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -62,7 +70,7 @@ from numpy.typing import NDArray
 
 from lincomb._core.many import DesignFactor
 from lincomb._core.solve import CONSTANT_TOL, Solution
-from lincomb._core.triangular import safe_norm, upper_solve
+from lincomb._core.triangular import upper_solve
 from lincomb._docstrings import fill_doc
 from lincomb._typing import Array
 
@@ -74,9 +82,8 @@ __all__ = [
     "ZERO_MARGIN",
     "ObservedBlock",
     "ObservedDesign",
+    "ObservedPart",
     "observed_design",
-    "observed_wald",
-    "row_distances",
 ]
 
 
@@ -121,9 +128,9 @@ class ObservedBlock:
         Residual norms (weighted), from the explicit residual.
     y_norm : (r,) ndarray
         Norms of the centred, scaled responses on their rows.
-    chol : (r, k, k) ndarray
-        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response (the identity
-        where not certified).
+    low : (k, k, r) ndarray
+        Lower Cholesky factor ``L`` of ``G = Q̂_Oᵀ Q̂_O = L Lᵀ`` per response, responses last
+        (the identity where not certified); :attr:`chol` is the same, responses first.
     certified : (r,) ndarray of bool
         Whether the vectorized fit stands (module notes); the others must be refitted.
 
@@ -140,8 +147,13 @@ class ObservedBlock:
     theta: Array
     resid_norm: Array
     y_norm: Array
-    chol: Array
+    low: Array
     certified: NDArray[np.bool_]
+
+    @property
+    def chol(self) -> Array:
+        """``L`` per response, (r, k, k) (a view of :attr:`low`)."""
+        return np.moveaxis(self.low, -1, 0)
 
     @property
     def rss(self) -> Array:
@@ -186,7 +198,7 @@ class ObservedBlock:
             self.theta[:, cols],
             self.resid_norm[cols],
             self.y_norm[cols],
-            self.chol[cols],
+            self.low[:, :, cols],
             self.certified[cols],
         )
 
@@ -209,7 +221,7 @@ class ObservedBlock:
                 np.zeros((k, 0)),
                 np.zeros(0),
                 np.zeros(0),
-                np.zeros((0, k, k)),
+                np.zeros((k, k, 0)),
                 np.zeros(0, dtype=bool),
             )
         return ObservedBlock(
@@ -217,8 +229,106 @@ class ObservedBlock:
             np.concatenate([b.theta for b in blocks], axis=1),
             np.concatenate([b.resid_norm for b in blocks]),
             np.concatenate([b.y_norm for b in blocks]),
-            np.concatenate([b.chol for b in blocks]),
+            np.concatenate([b.low for b in blocks], axis=2),
             np.concatenate([b.certified for b in blocks]),
+        )
+
+
+@_forty_doc
+@dataclass(frozen=True)
+class ObservedPart:
+    """A block of responses projected for an own-rows fit (:meth:`ObservedDesign.project`).
+
+    Attributes
+    ----------
+    n : (b,) ndarray of int
+        Rows where each response is observed.
+    qty : (k, b) ndarray
+        ``Q̂ᵀ`` times the shifted, scaled responses (zero where missing).
+    y2 : (b,) ndarray
+        Their sums of squares.
+    c2 : (b,) ndarray
+        The sums of squares of the centred, scaled responses on their rows.
+    shift, mean : (b,) ndarray
+        What was subtracted: a rough mean, then (where it was far from the mean) the mean it
+        left (zero elsewhere).
+    half : (b, k(k+1)/2) ndarray
+        Upper triangles of ``Q̂_Mᵀ Q̂_M`` (the missing rows' part of the Gram matrix).
+    rows, cols : (nnz,) ndarray of int
+        The missing values: rows and positions in the block (row by row).
+
+    Examples
+    --------
+    %(forty_rows)s
+    >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
+    >>> observed_design(f, None).project(y).finite().tolist()
+    [True, False]
+    """
+
+    n: NDArray[np.int64]
+    qty: Array
+    y2: Array
+    c2: Array
+    shift: Array
+    mean: Array
+    half: Array
+    rows: NDArray[np.intp]
+    cols: NDArray[np.intp]
+
+    @property
+    def count(self) -> int:
+        return int(self.n.shape[0])
+
+    @_forty_doc
+    def finite(self) -> NDArray[np.bool_]:
+        """Responses whose summaries are finite (an infinite value or an overflow propagates;
+        their fit would not be).
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 2)); y[3, 0] = -np.inf
+        >>> observed_design(f, None).project(y).finite().tolist()
+        [False, True]
+        """
+        return (
+            np.isfinite(self.y2)
+            & np.isfinite(self.c2)
+            & np.isfinite(self.shift)
+            & np.isfinite(self.mean)
+            & np.isfinite(self.qty).all(axis=0)
+        )
+
+    @staticmethod
+    def concat(parts: list[ObservedPart], k: int, h: int) -> ObservedPart:
+        """Join parts (in order) into one; ``cols`` become positions in the joined block."""
+        if len(parts) == 1:
+            return parts[0]
+        if not parts:
+            none = np.zeros(0)
+            index = np.zeros(0, dtype=np.intp)
+            return ObservedPart(
+                np.zeros(0, dtype=np.int64),
+                np.zeros((k, 0)),
+                none,
+                none,
+                none,
+                none,
+                np.zeros((0, h)),
+                index,
+                index,
+            )
+        offsets = np.cumsum([0] + [p.count for p in parts])
+        return ObservedPart(
+            np.concatenate([p.n for p in parts]),
+            np.concatenate([p.qty for p in parts], axis=1),
+            np.concatenate([p.y2 for p in parts]),
+            np.concatenate([p.c2 for p in parts]),
+            np.concatenate([p.shift for p in parts]),
+            np.concatenate([p.mean for p in parts]),
+            np.concatenate([p.half for p in parts]),
+            np.concatenate([p.rows for p in parts]),
+            np.concatenate([p.cols + o for p, o in zip(parts, offsets[:-1], strict=True)]),
         )
 
 
@@ -256,16 +366,13 @@ class ObservedDesign:
     _intercept: bool
     _zero_tol: float
 
+    @_forty_doc
     def root(self, ck: Array) -> Array:
         """``U = R⁻ᵀ C_keptᵀ`` (k, m): ``Cov(Cβ̂) = σ² Uᵀ G⁻¹ U`` for each response.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(0)
-        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-        >>> f = factor_design(x, intercept=0)
+        %(forty_rows)s
         >>> sol = solve(f.moments)
         >>> c = np.array([[0.0, 1.0, -1.0]])
         >>> u = observed_design(f, sol).root(sol.to_working(c)[:, sol.kept])
@@ -274,20 +381,18 @@ class ObservedDesign:
         """
         return upper_solve(self.r_work, np.asarray(ck, dtype=np.float64).T, trans=True)
 
+    @_forty_doc
     def fit(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedBlock:
         """Fit responses ``y`` (n, r) with NaN where missing, each on its own rows.
 
         ``y`` is not modified.  Responses with no missing value are fitted too (``G = I``).
-        ``missing`` is ``isnan(y)`` when the caller has it already.
+        ``missing`` is ``isnan(y)`` when the caller has it already.  The same as
+        :meth:`finish` of the one :meth:`project` of ``y``.
 
         Examples
         --------
-        >>> import numpy as np
-        >>> from lincomb._core import factor_design, solve
-        >>> rng = np.random.default_rng(1)
-        >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-        >>> y = rng.normal(size=30); y[[3, 4]] = np.nan
-        >>> f = factor_design(x, intercept=0)
+        %(forty_rows)s
+        >>> y = rng.normal(size=40); y[[3, 4]] = np.nan
         >>> sol = solve(f.moments)
         >>> block = observed_design(f, sol).fit(y[:, None])
         >>> keep = ~np.isnan(y)
@@ -298,23 +403,49 @@ class ObservedDesign:
         y = np.asarray(y, dtype=np.float64)
         if y.ndim == 1:
             y = y[:, None]
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return self._fit(y, missing)
+        return self.finish([self.project(y, missing)], lambda cols: y[:, cols])
 
-    def _fit(self, y: Array, missing: NDArray[np.bool_] | None) -> ObservedBlock:
+    @_forty_doc
+    def project(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedPart:
+        """The summaries of a block of responses ``y`` (n, b) that :meth:`finish` fits.
+
+        One pass over the block: a copy shifted by a rough mean (:func:`_rough_mean`), its
+        product with ``Q̂``, its sums of squares and the Gram corrections ``Q̂_Mᵀ Q̂_M`` of the
+        missing rows; ``y`` is not modified.  Blocks projected one by one (on any thread) are
+        finished together, so the small per-response algebra runs once over all of them.
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 3)); y[5, 1] = np.nan
+        >>> part = observed_design(f, solve(f.moments)).project(y)
+        >>> part.n.tolist(), part.qty.shape
+        ([40, 39, 40], (3, 3))
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return self._project(y, missing)
+
+    def _project(self, y: Array, missing: NDArray[np.bool_] | None) -> ObservedPart:
         n, r = y.shape
         qh = self._q
         k = qh.shape[1]
         if not self.usable:
-            n_obs = n - np.count_nonzero(np.isnan(y) if missing is None else missing, axis=0)
+            miss = np.isnan(y) if missing is None else missing
+            ii, jj = np.nonzero(miss)
             nan = np.full(r, np.nan)
-            return ObservedBlock(
-                n_obs.astype(np.int64),
+            return ObservedPart(
+                (n - np.count_nonzero(miss, axis=0)).astype(np.int64),
                 np.full((k, r), np.nan),
                 nan,
-                nan.copy(),
-                np.broadcast_to(np.eye(k), (r, k, k)).copy(),
-                np.zeros(r, dtype=bool),
+                nan,
+                nan,
+                np.zeros(r),
+                np.zeros((r, self._outer.shape[1])),
+                ii,
+                jj,
             )
         yc = np.array(y, dtype=np.float64, order="C")  # the one copy of the block
         if missing is None:
@@ -325,65 +456,146 @@ class ObservedDesign:
         flat = np.flatnonzero(missing)
         ii = flat // r
         jj = flat - ii * r
-        count = np.bincount(jj, minlength=r)
-        n_obs = n - count
-        yc[ii, jj] = 0.0
-        w = self._w
+        n_obs = n - np.bincount(jj, minlength=r)
         if self._intercept:
-            # centred once on the response's own mean: what rounding leaves of the mean lies
-            # along the intercept, which the fit below takes up exactly
-            if w is None:
-                wsum = n_obs.astype(np.float64)
-                total = np.ones(n) @ yc
-            else:
-                wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
-                total = w @ yc
-            center = total / np.where(wsum > 0, wsum, 1.0)
-            yc -= center
-            yc[ii, jj] = 0.0
+            # shifted by a rough mean from a sample of rows (no pass over the block for the
+            # mean; no shift at all where every mean is small beside its spread); what the
+            # shift leaves of the mean lies along the intercept, first in Q̂
+            shift = _rough_mean(yc)
+            if shift.any():
+                yc -= shift
         else:
-            center = np.zeros(r)
+            shift = np.zeros(r)
+        yc[ii, jj] = 0.0
         if self._sqrt_w is not None:
             yc *= self._sqrt_w[:, None]
         qty = qh.T @ yc  # (k, r)
-        # G = I − Σ_missing q̂_i q̂_iᵀ, from the missing rows only (upper triangles summed)
+        y2 = np.einsum("ij,ij->j", yc, yc)
+        mean = np.zeros(r)
+        c2 = self._centre_far(yc, qty, y2, mean, ii, jj) if self._intercept else y2
+        # Q̂_Mᵀ Q̂_M from the missing rows only (upper triangles summed, by a sparse product)
         indptr = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(ii, minlength=n), out=indptr[1:])
         missing_rows = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n))
         half = np.asarray(missing_rows @ self._outer)
-        gram = -half[:, self._full_from_half].reshape(r, k, k)
-        gram[:, np.arange(k), np.arange(k)] += 1.0
+        return ObservedPart(n_obs.astype(np.int64), qty, y2, c2, shift, mean, half, ii, jj)
+
+    def _centre_far(
+        self,
+        yc: Array,
+        qty: Array,
+        y2: Array,
+        mean: Array,
+        ii: NDArray[np.intp],
+        jj: NDArray[np.intp],
+    ) -> Array:
+        """The centred sums of squares, after centring exactly where a rough shift left much of
+        the mean.
+
+        ``yc`` (n, r) holds the shifted, scaled responses (zero where missing), ``qty`` and
+        ``y2`` their products with ``Q̂`` and sums of squares.  The weighted mean ``c`` left
+        by the shift on a response's rows is ``qty[0]·√W / W_O`` and ``W_O c² = qty[0]²·W/W_O``
+        is the part of ``y2`` it makes.  Where that part is at most ``y2 / 4`` the centred sum
+        of squares ``y2 − W_O c²`` loses less than half a bit; elsewhere (a shift far from the
+        mean, a constant response) the response is centred on ``c`` in ``yc`` (the second
+        pass of a two-pass mean, as a single fit centres), its products are taken again
+        (``qty``, ``y2`` updated in place) and ``c`` is recorded in ``mean``.
+        """
+        r = yc.shape[1]
+        w = self._w
+        if w is None:
+            wsum = yc.shape[0] - np.bincount(jj, minlength=r).astype(np.float64)
+        else:
+            wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
+        wsum = np.where(wsum > 0, wsum, 1.0)
+        c2: Array = y2 - qty[0] ** 2 * (self._weight_sum / wsum)
+        far = np.flatnonzero(~(y2 - c2 <= 0.25 * y2))  # NaN, inf: centred as well
+        if far.size:
+            mean[far] = qty[0, far] * (np.sqrt(self._weight_sum) / wsum[far])
+            part = self._recentred(yc[:, far], mean[far])
+            _zero_missing(part, far, ii, jj, r)
+            yc[:, far] = part
+            qty[:, far] = self._q.T @ part
+            y2[far] = c2[far] = np.einsum("ij,ij->j", part, part)
+        return c2
+
+    def _recentred(self, part: Array, mean: Array) -> Array:
+        part -= mean if self._sqrt_w is None else self._sqrt_w[:, None] * mean
+        return part
+
+    @_forty_doc
+    def finish(
+        self, parts: list[ObservedPart], read: Callable[[NDArray[np.intp]], Array]
+    ) -> ObservedBlock:
+        """Fit the responses of projected blocks (:meth:`project`), in order, on their own rows.
+
+        ``read(cols)`` gives the responses (n, c) at positions ``cols`` of the joined blocks
+        again: the residuals of responses whose fit is close are formed explicitly from them
+        (module notes).
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 4)); y[[3, 9], 1] = np.nan; y[0, 3] = np.nan
+        >>> od = observed_design(f, solve(f.moments))
+        >>> both = od.finish([od.project(y[:, :2]), od.project(y[:, 2:])], lambda c: y[:, c])
+        >>> bool(np.allclose(both.theta, od.fit(y).theta)), both.n.tolist()
+        (True, [40, 38, 40, 39])
+        """
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return self._finish(parts, read)
+
+    def _finish(
+        self, parts: list[ObservedPart], read: Callable[[NDArray[np.intp]], Array]
+    ) -> ObservedBlock:
+        qh = self._q
+        n, k = qh.shape
+        part = ObservedPart.concat(parts, k, self._outer.shape[1])
+        r = part.count
+        n_obs, qty, y2 = part.n, part.qty, part.y2
+        if not self.usable:
+            nan = np.full(r, np.nan)
+            return ObservedBlock(
+                n_obs,
+                np.full((k, r), np.nan),
+                nan,
+                nan.copy(),
+                np.broadcast_to(np.eye(k)[:, :, None], (k, k, r)).copy(),
+                np.zeros(r, dtype=bool),
+            )
+        half = part.half
+        # G = I − Σ_missing q̂_i q̂_iᵀ, responses last (k, k, r)
+        gram = -half.T[self._full_from_half].reshape(k, k, r)
+        diag = np.arange(k)
+        gram[diag, diag] += 1.0
         # λ_min(G) ≥ GRAM_FLOOR: first by λ_max(S) ≤ trace(S) (the leverages of the missing
         # rows), then exactly by a Cholesky factorization of G − GRAM_FLOOR·I where needed
         wide = half[:, self._diag_in_half].sum(axis=1) <= 1.0 - GRAM_FLOOR
         unsure = np.flatnonzero(~wide)
         if unsure.size:
-            wide[unsure] = _cholesky(gram[unsure] - GRAM_FLOOR * np.eye(k))[1]
-        gram[~wide] = np.eye(k)  # left out below; keeps the factorizations defined
-        chol = np.asarray(np.linalg.cholesky(gram), dtype=np.float64)  # positive definite
+            shifted = gram[:, :, unsure]
+            shifted[diag, diag] -= GRAM_FLOOR
+            wide[unsure] = _cholesky(shifted)[1]
+        gram[:, :, ~wide] = np.eye(k)[:, :, None]  # left out below; keeps the factors defined
+        low = _cholesky(gram)[0]  # positive definite
         coef = np.array(qty)  # (k, r): G⁻¹ Q̂ᵀ y by two triangular solves, responses last
-        low = np.ascontiguousarray(np.moveaxis(chol, 0, -1))
         _lower_solve_last(low, coef)
         _lower_solve_last(low, coef, trans=True)
-        # ‖y_c‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
-        # takes at most half of ‖y_c‖², the difference loses at most one bit and is used; where
+        # ‖y‖² = ‖residual‖² + cᵀ G c (orthogonal parts on the response's rows).  Where the fit
+        # takes at most half of ‖y‖², the difference loses at most one bit and is used; where
         # it takes more, the residual sum of squares comes from the explicit residual
-        y2 = np.einsum("ij,ij->j", yc, yc)
         fit2 = np.einsum("ij,ij->j", coef, qty)
         resid2 = np.maximum(y2 - fit2, 0.0)
         close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
         if close.size:
-            pos = np.full(r, -1)
-            pos[close] = np.arange(close.size)
-            resid = yc[:, close] - qh @ coef[:, close]
-            hit = pos[jj] >= 0
-            resid[ii[hit], pos[jj[hit]]] = 0.0
+            resid = self._shifted(read(close), part, close) - qh @ coef[:, close]
+            _zero_missing(resid, close, part.rows, part.cols, r)
             resid2[close] = np.einsum("ij,ij->j", resid, resid)
-        y_norm = np.sqrt(y2)
+        y_norm = np.sqrt(part.c2)
         resid_norm = np.sqrt(resid2)
         theta = upper_solve(self.r_work, coef)
         if self._intercept:
-            theta[0] += center
+            theta[0] += part.shift + part.mean
         edge = self._zero_tol * y_norm
         near_zero = (resid_norm > edge / ZERO_MARGIN) & (resid_norm <= edge * ZERO_MARGIN)
         certified = (
@@ -394,9 +606,27 @@ class ObservedDesign:
             & np.isfinite(resid_norm)
             & np.isfinite(y_norm)
         )
-        return ObservedBlock(n_obs.astype(np.int64), theta, resid_norm, y_norm, chol, certified)
+        return ObservedBlock(n_obs, theta, resid_norm, y_norm, low, certified)
+
+    def _shifted(self, y: Array, part: ObservedPart, cols: NDArray[np.intp]) -> Array:
+        """The responses ``cols`` of ``part`` as :meth:`project` left them in its copy (the same
+        operations, so the same numbers)."""
+        yc = np.array(y, dtype=np.float64, order="C")
+        r = part.count
+        if self._intercept:
+            yc -= part.shift[cols]
+        _zero_missing(yc, cols, part.rows, part.cols, r)
+        if self._sqrt_w is not None:
+            yc *= self._sqrt_w[:, None]
+        far = np.flatnonzero(part.mean[cols] != 0.0)
+        if far.size:
+            sub = self._recentred(yc[:, far], part.mean[cols[far]])
+            _zero_missing(sub, cols[far], part.rows, part.cols, r)
+            yc[:, far] = sub
+        return yc
 
 
+@_forty_doc
 def observed_design(
     factor: DesignFactor, sol: Solution | None, rank_tol: float = 1e-10, zero_tol: float = 1e-12
 ) -> ObservedDesign:
@@ -419,11 +649,8 @@ def observed_design(
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from lincomb._core import factor_design
-    >>> rng = np.random.default_rng(0)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> observed_design(factor_design(x, intercept=0), None).usable
+    %(forty_rows)s
+    >>> observed_design(f, None).usable
     True
     """
     from lincomb._core.solve import solve
@@ -466,12 +693,9 @@ def observed_design(
     iu, ju = np.triu_indices(k)
     # upper triangles of q̂ q̂ᵀ, row by row (the sparse product reads rows), in the order of
     # triu_indices: row i of the triangle is q̂_i times q̂_i..q̂_(k-1)
-    outer = np.empty((n, iu.size) if usable else (n, 0))
-    if usable:
-        start = 0
-        for i in range(k):
-            np.multiply(qh[:, i : i + 1], qh[:, i:], out=outer[:, start : start + k - i])
-            start += k - i
+    # (formed transposed from Q̂ᵀ's contiguous rows, then laid out row by row)
+    qt = qh.T.copy()
+    outer = np.ascontiguousarray((qt[iu] * qt[ju]).T) if usable else np.empty((n, 0))
     where = np.zeros((k, k), dtype=np.intp)
     where[iu, ju] = np.arange(iu.size)
     where[ju, iu] = np.arange(iu.size)
@@ -490,119 +714,51 @@ def observed_design(
     )
 
 
-def observed_wald(
-    block: ObservedBlock, root: Array, delta: Array, independent: NDArray[np.intp]
-) -> tuple[Array, Array]:
-    """Quadratic forms and row standard errors of one system on responses fitted on own rows.
-
-    Parameters
-    ----------
-    block : ObservedBlock
-    root : (k, m) ndarray
-        ``U`` of :meth:`ObservedDesign.root`.
-    delta : (m, r) ndarray
-        ``Cβ̂ − d`` per response.
-    independent : (q,) ndarray of int
-        The independent rows of the system.
-
-    Returns
-    -------
-    quad : (r,) ndarray
-        ``δ_Kᵀ (V_KK)⁻¹ δ_K`` with ``V = Uᵀ G⁻¹ U`` per response (divide by ``q σ²`` for F).
-    std_error : (r, m) ndarray
-        Unscaled standard error of each row (multiply by ``σ``).
-
-    Notes
-    -----
-    Each response's root ``L⁻¹ U`` comes from a batched forward substitution; ``V_KK`` is never
-    formed: its triangular factor comes from a batched Gram–Schmidt (twice) of the root's
-    independent columns, as :func:`~lincomb._core.triangular.triangular_factor` does by QR.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> from lincomb._core import factor_design, solve
-    >>> rng = np.random.default_rng(2)
-    >>> x = np.column_stack([np.ones(30), rng.normal(size=(30, 2))])
-    >>> y = rng.normal(size=30); y[[1, 8]] = np.nan
-    >>> f = factor_design(x, intercept=0); sol = solve(f.moments)
-    >>> od = observed_design(f, sol)
-    >>> block = od.fit(y[:, None])
-    >>> c = np.array([[0.0, 1.0, 0.0]])
-    >>> ck = sol.to_working(c)[:, sol.kept]
-    >>> quad, se = observed_wald(block, od.root(ck), ck @ block.theta, np.array([0]))
-    >>> keep = ~np.isnan(y)
-    >>> xtx = x[keep].T @ x[keep]
-    >>> bool(np.isclose(se[0, 0] ** 2, np.linalg.solve(xtx, c[0])[1]))
-    True
-    """
-    roots = _lower_solve(block.chol, np.broadcast_to(root, (block.count, *root.shape)))
-    se = np.sqrt(np.einsum("rkm,rkm->rm", roots, roots))
-    if independent.size == 0:
-        return np.zeros(block.count), se
-    tri = _r_factor(roots[:, :, independent])
-    z = _lower_solve(np.swapaxes(tri, 1, 2), delta[independent].T[:, :, None])[:, :, 0]
-    return np.einsum("rq,rq->r", z, z), se
-
-
-def row_distances(cd: Array, independent: NDArray[np.intp]) -> Array:
-    """Distance of each row (normalized) to the span of the independent rows before it.
-
-    ``cd`` are the rows of a system in decision coordinates and ``independent`` the rows that
-    :func:`~lincomb._core.rows.analyze_rows` kept: the numbers it compared with ``row_tol``
-    (used to check that a decision is far from its tolerance).
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> d = row_distances(np.array([[1.0, 0.0], [1.0, 1e-12], [0.0, 1.0]]), np.array([0, 2]))
-    >>> [f"{v:.0e}" for v in d]
-    ['1e+00', '1e-12', '1e+00']
-    """
-    m = cd.shape[0]
-    out = np.zeros(m)
-    norms = safe_norm(cd, axis=1)  # scaled: no overflow; the unit rows below cannot overflow
-    unit = cd / np.where(norms > 0, norms, 1.0)[:, None]
-    basis = np.zeros((0, cd.shape[1]))
-    kept = set(int(i) for i in independent)
-    for i in range(m):
-        v = unit[i]
-        for _ in range(2):
-            v = v - basis.T @ (basis @ v)
-        out[i] = float(np.sqrt(v @ v))
-        if i in kept and out[i] > 0:
-            basis = np.vstack([basis, v / out[i]])
+def _rough_mean(yc: Array) -> Array:
+    """Means of a sample of about 64 rows spread over the block (missing values left out; 0
+    for a response missing in all of them): a shift close to each response's mean; 0 where the
+    sample's mean is small beside its spread (such a response needs no shift)."""
+    sample = yc[:: max(1, yc.shape[0] // 64)]
+    seen = ~np.isnan(sample)
+    values = np.where(seen, sample, 0.0)
+    count = np.maximum(seen.sum(axis=0), 1)
+    mean = values.sum(axis=0) / count
+    square = np.einsum("ij,ij->j", values, values) / count
+    out: Array = np.where(4.0 * mean**2 <= square - mean**2, 0.0, mean)
     return out
+
+
+def _zero_missing(
+    part: Array, cols: NDArray[np.intp], ii: NDArray[np.intp], jj: NDArray[np.intp], r: int
+) -> None:
+    """Zero the missing values (rows ``ii``, responses ``jj`` of ``r``) of ``part``, which holds
+    the responses ``cols`` (in that order)."""
+    pos = np.full(r, -1)
+    pos[cols] = np.arange(cols.size)
+    hit = pos[jj] >= 0
+    part[ii[hit], pos[jj[hit]]] = 0.0
 
 
 # -- batched small factorizations (loops over the k columns, vectorized over responses) --------
 
 
 def _cholesky(g: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Lower Cholesky factors of a stack (r, k, k) and whether each is positive definite
-    (a failed factor is left with unit pivots and must not be used)."""
-    r, k, _ = g.shape
+    """Lower Cholesky factors of a stack (k, k, r), responses last, and whether each is
+    positive definite (a failed factor is left with unit pivots and must not be used)."""
+    k, _, r = g.shape
     low = np.zeros_like(g)
     ok = np.ones(r, dtype=bool)
     for j in range(k):
-        row = low[:, j, :j]
-        piv = g[:, j, j] - np.einsum("ri,ri->r", row, row)
+        row = low[j, :j]
+        piv = g[j, j] - np.einsum("ir,ir->r", row, row)
         good = piv > 0
         ok &= good
         d = np.sqrt(np.where(good, piv, 1.0))
-        low[:, j, j] = d
+        low[j, j] = d
         if j + 1 < k:
-            below = g[:, j + 1 :, j] - np.einsum("rik,rk->ri", low[:, j + 1 :, :j], row)
-            low[:, j + 1 :, j] = below / d[:, None]
+            below = g[j + 1 :, j] - np.einsum("ikr,kr->ir", low[j + 1 :, :j], row)
+            low[j + 1 :, j] = below / d
     return low, ok
-
-
-def _lower_solve(low: Array, b: Array, *, trans: bool = False) -> Array:
-    """``L⁻¹ b`` (or ``L⁻ᵀ b``) for stacks ``low`` (r, k, k) and ``b`` (r, k, m)."""
-    # worked with the responses last (contiguous rows of r numbers): fewer, longer loops
-    x = np.array(np.moveaxis(b, 0, -1), dtype=np.float64, order="C")  # (k, m, r), a copy
-    _lower_solve_last(np.ascontiguousarray(np.moveaxis(low, 0, -1)), x, trans=trans)
-    return np.moveaxis(x, -1, 0)
 
 
 def _lower_solve_last(low: Array, x: Array, *, trans: bool = False) -> None:
@@ -618,22 +774,3 @@ def _lower_solve_last(low: Array, x: Array, *, trans: bool = False) -> None:
                 x[:j] -= low[j, :j][lead] * x[j]
         elif j + 1 < k:
             x[j + 1 :] -= low[j + 1 :, j][lead] * x[j]
-
-
-def _r_factor(a: Array) -> Array:
-    """Upper triangular ``T`` (r, q, q) with ``Tᵀ T = aᵀ a`` for a stack ``a`` (r, k, q):
-    classical Gram–Schmidt twice (accurate as Householder QR for the small ``q`` here)."""
-    r, k, q = a.shape
-    basis = np.zeros((r, k, q))
-    tri = np.zeros((r, q, q))
-    for j in range(q):
-        v = a[:, :, j].copy()
-        b = basis[:, :, :j]
-        for _ in range(2):
-            h = np.einsum("rkj,rk->rj", b, v)
-            tri[:, :j, j] += h
-            v -= np.einsum("rkj,rj->rk", b, h)
-        nv = np.sqrt(np.einsum("rk,rk->r", v, v))
-        tri[:, j, j] = nv
-        basis[:, :, j] = v / np.where(nv > 0, nv, 1.0)[:, None]
-    return tri

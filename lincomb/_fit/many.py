@@ -59,6 +59,7 @@ from numpy.typing import ArrayLike, NDArray
 from lincomb import _core as core
 from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level
+from lincomb._core.observed import ObservedPart
 from lincomb._fit.linear import ZERO_RSS_TOL, LinearFit, fit_from_design
 from lincomb._fit.response_groups import (
     _Group,
@@ -126,6 +127,21 @@ def _coefficients(sol: core.Solution, theta: NDArray[np.float64]) -> NDArray[np.
 
 
 @dataclass(frozen=True)
+class _PerResponse:
+    """The numbers of every response of a :class:`ManyFit`, as arrays (responses last)."""
+
+    coef: NDArray[np.float64]  # (p, r), NaN where aliased
+    n_obs: NDArray[np.int64]
+    rank: NDArray[np.int64]
+    rss: NDArray[np.float64]
+    status: NDArray[np.int8]  # positions in STATUSES
+
+    @property
+    def df_error(self) -> NDArray[np.int64]:
+        return self.n_obs - self.rank
+
+
+@dataclass(frozen=True)
 class ManyFit:
     """Least-squares fits of many responses on one design, kept as sufficient statistics.
 
@@ -166,17 +182,13 @@ class ManyFit:
 
     names: tuple[str, ...]
     responses: tuple[str, ...]
-    coefficients: pd.DataFrame
-    n_obs: pd.Series
-    df_error: pd.Series
-    rss: pd.Series
-    sigma: pd.Series
-    rank: pd.Series
-    status: pd.Series
     aliased: tuple[str, ...]
     n_dropped: int
     weighted: bool
     formula: str | None
+    # the per-response numbers as arrays; the pandas attributes are built from them when first
+    # read (a fit tested right away never needs them)
+    _per: _PerResponse = field(repr=False, compare=False)
     rank_tol: float = field(default=core.RANK_TOL, repr=False)
     _design: Design = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _groups: tuple[_Group | _ObservedGroup, ...] = field(repr=False, compare=False, default=())
@@ -184,6 +196,52 @@ class ManyFit:
     _frame: pd.DataFrame | None = field(repr=False, compare=False, default=None)
     _positions: NDArray[np.intp] | None = field(repr=False, compare=False, default=None)
     _blas: int | None = field(repr=False, compare=False, default=1)
+
+    # -- per-response attributes (pandas, built once when first read) ---------------------------
+    @functools.cached_property
+    def _response_index(self) -> pd.Index:
+        return pd.Index(self.responses, name="response")
+
+    def _series(self, values: NDArray[Any] | pd.Categorical[str], name: str) -> pd.Series:
+        return pd.Series(values, index=self._response_index, name=name)
+
+    @functools.cached_property
+    def coefficients(self) -> pd.DataFrame:
+        """Estimates, one column per response (index: coefficient names; NaN where aliased)."""
+        return pd.DataFrame(self._per.coef, index=list(self.names), columns=self._response_index)
+
+    @functools.cached_property
+    def n_obs(self) -> pd.Series:
+        """Rows used per response."""
+        return self._series(self._per.n_obs, "n_obs")
+
+    @functools.cached_property
+    def df_error(self) -> pd.Series:
+        """Error degrees of freedom per response."""
+        return self._series(self._per.df_error, "df_error")
+
+    @functools.cached_property
+    def rss(self) -> pd.Series:
+        """Residual sum of squares per response."""
+        return self._series(self._per.rss, "rss")
+
+    @functools.cached_property
+    def sigma(self) -> pd.Series:
+        """Residual standard deviation per response (NaN without error degrees of freedom)."""
+        df = self._per.df_error
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sigma = np.where(df > 0, np.sqrt(self._per.rss / np.where(df > 0, df, 1)), np.nan)
+        return self._series(sigma, "sigma")
+
+    @functools.cached_property
+    def rank(self) -> pd.Series:
+        """Rank of the design on each response's rows."""
+        return self._series(self._per.rank, "rank")
+
+    @functools.cached_property
+    def status(self) -> pd.Series:
+        """``"ok"``, ``"too few rows"`` or ``"exact fit"`` per response (categorical)."""
+        return self._series(from_codes(self._per.status, STATUSES), "status")
 
     # -- single responses ----------------------------------------------------------------------
     def _position(self, response: str | int) -> int:
@@ -294,8 +352,8 @@ class ManyFit:
         se_all = t_all = None
         stat = np.full(r, np.nan)
         pval = np.full(r, np.nan)
-        df_error = self.df_error.to_numpy(dtype=np.float64).copy()
-        status = np.array(self.status.array.codes, dtype=np.int8)  # a copy: marked below
+        df_error = self._per.df_error.astype(np.float64)
+        status = self._per.status.copy()  # marked below
         main = self._groups[0]
         main_prepared = None
         groups = list(self._groups)
@@ -361,9 +419,9 @@ class ManyFit:
             df_error=df_error,
             p=pval,
             status=np.asarray(STATUSES)[status],
-            n_obs=self.n_obs.to_numpy(dtype=np.int64).copy(),
+            n_obs=self._per.n_obs.copy(),
             redundant=redundant,
-            _response_index=self.n_obs.index,
+            _response_index=self._response_index,
             _status_codes=status,
         )
 
@@ -530,8 +588,8 @@ def _build(
     width = _block_width(r, n)
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
-    obs_blocks: list[core.ObservedBlock] = []
-    obs_cols: list[NDArray[np.intp]] = []
+    own_parts: list[ObservedPart] = []
+    own_cols: list[NDArray[np.intp]] = []
     refit: list[NDArray[np.intp]] = []
     blocks = -(-r // width)
     workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
@@ -546,10 +604,8 @@ def _build(
             if own is None:
                 refit.append(cols[odd_cols])
             else:
-                ok = own.certified
-                obs_blocks.append(own if ok.all() else own.take(np.flatnonzero(ok)))
-                obs_cols.append(cols[odd_cols[ok]])
-                refit.append(cols[odd_cols[~ok]])
+                own_parts.append(own)
+                own_cols.append(cols[odd_cols])
         main_blocks.append(block)
         main_cols.append(cols[good])
         del yb
@@ -557,12 +613,22 @@ def _build(
         solve_group(factor, lf, main_blocks, _joined(main_cols), None)
     ]
     del main_blocks
-    observed_columns = _joined(obs_cols)
-    od = observed() if observed_columns.size else None
+    od = observed() if own_parts else None
     if od is not None:
-        joined = core.ObservedBlock.concat(obs_blocks, lf.solution.rank)
-        groups.append(_ObservedGroup(observed_columns, lf, od, joined))
-    del obs_blocks
+        # the own-rows fits of every block at once; responses not certified are refitted
+        columns = _joined(own_cols)
+
+        def read(at: NDArray[np.intp]) -> NDArray[np.float64]:
+            yb = source.block(columns[at])
+            return yb if positions is None else yb[positions]
+
+        joined = od.finish(own_parts, read)
+        ok = joined.certified
+        if ok.any():
+            kept = joined if ok.all() else joined.take(np.flatnonzero(ok))
+            groups.append(_ObservedGroup(columns[ok], lf, od, kept))
+        refit.append(columns[~ok])
+    del own_parts
     groups.extend(
         exact_groups(
             design, source, positions, _joined(refit), rank_tol, BLOCK_BYTES, MIN_BLOCK_COLUMNS
@@ -625,25 +691,10 @@ def _assemble(
         rss[cols] = g.rss
         exact = g.rss <= (ZERO_RSS_TOL * g.y_norm) ** 2
         status[cols[exact]] = _EXACT
-    df = n_obs - rank
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sigma = np.where(df > 0, np.sqrt(rss / np.where(df > 0, df, 1)), np.nan)
-    idx = pd.Index(source.names, name="response")
-    names = design.index.names
     return ManyFit(
-        names=names,
+        names=design.index.names,
         responses=source.names,
-        coefficients=pd.DataFrame(coef, index=list(names), columns=idx),
-        n_obs=pd.Series(n_obs, index=idx, name="n_obs"),
-        df_error=pd.Series(df, index=idx, name="df_error"),
-        rss=pd.Series(rss, index=idx, name="rss"),
-        sigma=pd.Series(sigma, index=idx, name="sigma"),
-        rank=pd.Series(rank, index=idx, name="rank"),
-        status=pd.Series(
-            from_codes(status, STATUSES),
-            index=idx,
-            name="status",
-        ),
+        _per=_PerResponse(coef, n_obs, rank, rss, status),
         aliased=lf.aliased,
         n_dropped=len(design.dropped),
         weighted=design.weights is not None,

@@ -12,6 +12,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._core.observed import ObservedPart
 from lincomb._model.design import Design
 from lincomb.errors import InputError, MissingValueError
 
@@ -115,7 +116,7 @@ def _array_source(
         raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
     r = arr.shape[1]
     if response_names is None:
-        names = tuple(f"y{j}" for j in range(r))
+        names = tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
     else:
         names = _unique_names(response_names, "response names")
         if len(names) != r:
@@ -174,7 +175,7 @@ def _check_no_inf(
         )
 
 
-_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "core.ObservedBlock | None"]
+_BlockFits = tuple[NDArray[np.bool_], core.ResponseBlock, "ObservedPart | None"]
 
 
 def _fit_block(
@@ -184,11 +185,12 @@ def _fit_block(
     mostly_missing: bool,
 ) -> _BlockFits:
     """Summaries of one block of responses: finite ones projected on the design of all rows,
-    the others (missing values; or an inf, refused later) fitted on their own rows when
-    ``observed()`` gives the design for it.
+    the others (missing values; or an inf, refused later) projected for a fit on their own rows
+    when ``observed()`` gives the design for it (:meth:`~lincomb._core.ObservedDesign.project`;
+    the caller finishes the fits of all blocks at once).
 
     Returns ``odd`` (the responses not projected), the projections of the others, and the
-    own-rows fits of the odd ones (None without ``observed()``).  Which responses are odd is
+    own-rows projections of the odd ones (None without ``observed()``).  Which responses are odd is
     found from the means that centring takes anyway
     (:meth:`~lincomb._core.DesignFactor.project_finite`); when most responses have missing
     values (``mostly_missing``, learnt from the blocks before), every response of the block is
@@ -198,11 +200,11 @@ def _fit_block(
         # every response of the block is fitted on its own rows (all rows when it has no
         # missing value): no pass over the block to sort them first
         odd = np.ones(yb.shape[1], dtype=bool)
-        return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.fit(yb)
+        return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.project(yb)
     odd, block = factor.project_finite(yb)
     if not odd.any() or (od := observed()) is None:
         return odd, block, None
-    return odd, block, od.fit(yb if odd.all() else yb[:, odd])
+    return odd, block, od.project(yb if odd.all() else yb[:, odd])
 
 
 def _refuse_bad_values(
@@ -210,7 +212,7 @@ def _refuse_bad_values(
     cols: NDArray[np.intp],
     odd: NDArray[np.bool_],
     block: core.ResponseBlock,
-    own: core.ObservedBlock | None,
+    own: ObservedPart | None,
     names: tuple[str, ...],
     design: Design,
     missing: str,

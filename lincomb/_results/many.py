@@ -19,7 +19,7 @@ from numpy.typing import NDArray
 from lincomb._docstrings import fill_doc
 from lincomb._results.format import _html_lines, _num, _p, _table_html, _table_text
 from lincomb._results.frames import ROW_COLUMNS, TEST_COLUMNS, WaldResult, _Groups, roles
-from lincomb._results.multiplicity import P_METHODS, adjust_pvalues
+from lincomb._results.multiplicity import P_METHODS, _adjust, _canonical
 
 __all__ = ["ManyWaldTest", "SCREEN_COLUMNS", "SCREEN_ROW_COLUMNS", "STATUSES"]
 
@@ -35,17 +35,18 @@ SCREEN_ROW_COLUMNS = ("response", *ROW_COLUMNS, *MANY_EXTRA_COLUMNS)
 
 
 def fdr_adjust(p: NDArray[np.float64], method: str | None) -> tuple[NDArray[np.float64], str]:
-    """Adjust the finite p-values (NaN stay NaN); ``None`` means no adjustment."""
+    """Adjust the finite p-values (NaN stay NaN); ``None`` means no adjustment.
+
+    The p-values are this package's own (in ``[0, 1]`` or NaN), so only the method is checked
+    (as :func:`~lincomb.multiplicity.adjust_pvalues` checks it, with its message).
+    """
     if method is None or (isinstance(method, str) and method.strip().lower() == "none"):
         return p.copy(), "none"
+    key = _canonical(method, P_METHODS, "p-value")
     out = np.full(p.shape, np.nan)
     ok = np.isfinite(p)
-    adj = adjust_pvalues(p[ok], method)
-    out[ok] = adj
-    # canonical name via a one-element call (the function validates and names the method)
-    from lincomb._results.multiplicity import _canonical
-
-    return out, _canonical(method, P_METHODS, "p-value")
+    out[ok] = _adjust(p[ok], key)
+    return out, key
 
 
 #: The example set-up of the methods below: six markers of the assay panel tested for a
