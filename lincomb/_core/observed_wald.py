@@ -13,10 +13,9 @@ from numpy.typing import NDArray
 
 from lincomb._core.observed import ObservedBlock, _forty_doc, _lower_solve_last
 from lincomb._core.triangular import safe_norm
+from lincomb._typing import Array
 
 __all__ = ["observed_wald", "row_distances"]
-
-Array = NDArray[np.float64]
 
 
 @_forty_doc
