@@ -7,7 +7,9 @@ summarizes responses into a :class:`ResponseBlock`, and :func:`solve_responses` 
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Sequence
+from dataclasses import dataclass, field, fields
+from typing import TYPE_CHECKING, Any, Self, cast
 
 import numpy as np
 import scipy.linalg as sla
@@ -19,6 +21,9 @@ from lincomb._core.triangular import triangular_factor, upper_solve
 from lincomb._docstrings import fill_doc
 from lincomb._typing import Array
 from lincomb.errors import InternalError
+
+if TYPE_CHECKING:  # pragma: no cover
+    from _typeshed import DataclassInstance
 
 __all__ = [
     "DesignFactor",
@@ -35,9 +40,67 @@ _FACTORED = RANDOM_DESIGN + "\n>>> f = factor_design(x, intercept=0)"
 _factored_doc = fill_doc(factored=_FACTORED)
 
 
+class PerResponse:
+    """Shared behaviour of records whose every field is an array with one entry per response on
+    its last axis (:class:`ResponseBlock`, :class:`~lincomb._core.observed.ObservedBlock`).
+
+    A subclass is a frozen dataclass that says what it holds for no response
+    (:meth:`empty`); the count, the selection and the joining of responses are written here
+    once, over its fields in order.
+    """
+
+    @classmethod
+    def empty(cls, k: int) -> Self:  # pragma: no cover - each record says what it is empty
+        """The record of no responses, for a design of ``k`` working columns."""
+        raise NotImplementedError
+
+    def arrays(self) -> list[NDArray[Any]]:
+        """The fields' arrays, in field order."""
+        return [getattr(self, f.name) for f in fields(cast("DataclassInstance", self))]
+
+    @property
+    def count(self) -> int:
+        """Number of responses."""
+        return int(self.arrays()[0].shape[-1])
+
+    @_factored_doc
+    def take(self, cols: NDArray[np.intp]) -> Self:
+        """The responses at positions ``cols``.
+
+        Examples
+        --------
+        %(factored)s
+        >>> block = f.project(np.column_stack([y, 2 * y, 3 * y]))
+        >>> part = block.take(np.array([2, 0]))
+        >>> part.count, bool(np.isclose(part.resid[0], 3 * part.resid[1]))
+        (2, True)
+        """
+        return type(self)(*(a[..., cols] for a in self.arrays()))
+
+    @classmethod
+    @_factored_doc
+    def concat(cls, blocks: Sequence[Self], k: int) -> Self:
+        """Join blocks of responses (in order) into one; :meth:`empty` (``k`` working columns)
+        when there are none.
+
+        Examples
+        --------
+        %(factored)s
+        >>> both = ResponseBlock.concat([f.project(y), f.project(2 * y)], k=2)
+        >>> both.count, bool(np.allclose(both.resid[1], 2 * both.resid[0]))
+        (2, True)
+        >>> ResponseBlock.concat([], k=2).qty.shape
+        (2, 0)
+        """
+        if not blocks:
+            return cls.empty(k)
+        parts = zip(*(b.arrays() for b in blocks), strict=True)
+        return cls(*(np.concatenate(list(a), axis=-1) for a in parts))
+
+
 @_factored_doc
 @dataclass(frozen=True)
-class ResponseBlock:
+class ResponseBlock(PerResponse):
     """Sufficient statistics of several responses fitted on one shared design.
 
     With ``Q R`` the QR factorization of the centred, ``sqrt(w)``-scaled non-intercept design
@@ -69,25 +132,9 @@ class ResponseBlock:
     center: Array
     raw_norm: Array
 
-    @property
-    def count(self) -> int:
-        return int(self.resid.shape[0])
-
-    @_factored_doc
-    def take(self, cols: NDArray[np.intp]) -> ResponseBlock:
-        """The responses at positions ``cols``.
-
-        Examples
-        --------
-        %(factored)s
-        >>> block = f.project(np.column_stack([y, 2 * y, 3 * y]))
-        >>> part = block.take(np.array([2, 0]))
-        >>> part.count, bool(np.isclose(part.resid[0], 3 * part.resid[1]))
-        (2, True)
-        """
-        return ResponseBlock(
-            self.qty[:, cols], self.resid[cols], self.center[cols], self.raw_norm[cols]
-        )
+    @classmethod
+    def empty(cls, k: int) -> ResponseBlock:
+        return cls(np.zeros((k, 0)), np.zeros(0), np.zeros(0), np.zeros(0))
 
     @_factored_doc
     def finite(self) -> NDArray[np.bool_]:
@@ -106,27 +153,6 @@ class ResponseBlock:
             & np.isfinite(self.center)
             & np.isfinite(self.raw_norm)
             & np.isfinite(self.qty).all(axis=0)
-        )
-
-    @staticmethod
-    @_factored_doc
-    def concat(blocks: list[ResponseBlock], q: int) -> ResponseBlock:
-        """Join blocks of responses (in order) into one.
-
-        Examples
-        --------
-        %(factored)s
-        >>> both = ResponseBlock.concat([f.project(y), f.project(2 * y)], q=2)
-        >>> both.count, bool(np.allclose(both.resid[1], 2 * both.resid[0]))
-        (2, True)
-        """
-        if not blocks:
-            return ResponseBlock(np.zeros((q, 0)), np.zeros(0), np.zeros(0), np.zeros(0))
-        return ResponseBlock(
-            qty=np.concatenate([b.qty for b in blocks], axis=1),
-            resid=np.concatenate([b.resid for b in blocks]),
-            center=np.concatenate([b.center for b in blocks]),
-            raw_norm=np.concatenate([b.raw_norm for b in blocks]),
         )
 
 

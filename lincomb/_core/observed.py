@@ -68,7 +68,7 @@ import numpy as np
 import scipy.sparse as sps
 from numpy.typing import NDArray
 
-from lincomb._core.many import DesignFactor
+from lincomb._core.many import DesignFactor, PerResponse
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import upper_solve
 from lincomb._docstrings import fill_doc
@@ -114,7 +114,7 @@ _forty_doc = fill_doc(forty_rows=_FORTY_ROWS)
 
 @_forty_doc
 @dataclass(frozen=True)
-class ObservedBlock:
+class ObservedBlock(PerResponse):
     """Responses fitted on their own rows of a shared design (see the module notes).
 
     Attributes
@@ -150,6 +150,30 @@ class ObservedBlock:
     low: Array
     certified: NDArray[np.bool_]
 
+    @classmethod
+    @_forty_doc
+    def empty(cls, k: int) -> ObservedBlock:
+        """The record of no responses (``k`` working columns), as :meth:`concat` gives it.
+
+        Examples
+        --------
+        %(forty_rows)s
+        >>> y = rng.normal(size=(40, 2)); y[5, 1] = np.nan
+        >>> od = observed_design(f, None)
+        >>> ObservedBlock.concat([od.fit(y), od.fit(y[:, ::-1])], 3).n.tolist()
+        [40, 39, 39, 40]
+        >>> od.fit(y).take(np.array([1, 0])).n.tolist(), ObservedBlock.concat([], 3).low.shape
+        ([39, 40], (3, 3, 0))
+        """
+        return cls(
+            np.zeros(0, dtype=np.int64),
+            np.zeros((k, 0)),
+            np.zeros(0),
+            np.zeros(0),
+            np.zeros((k, k, 0)),
+            np.zeros(0, dtype=bool),
+        )
+
     @property
     def chol(self) -> Array:
         """``L`` per response, (r, k, k) (a view of :attr:`low`)."""
@@ -160,10 +184,6 @@ class ObservedBlock:
         with np.errstate(over="ignore"):
             out: Array = self.resid_norm**2
         return out
-
-    @property
-    def count(self) -> int:
-        return int(self.n.shape[0])
 
     @_forty_doc
     def finite(self) -> NDArray[np.bool_]:
@@ -180,57 +200,6 @@ class ObservedBlock:
             np.isfinite(self.y_norm)
             & np.isfinite(self.resid_norm)
             & np.isfinite(self.theta).all(axis=0)
-        )
-
-    @_forty_doc
-    def take(self, cols: NDArray[np.intp]) -> ObservedBlock:
-        """The responses at positions ``cols``.
-
-        Examples
-        --------
-        %(forty_rows)s
-        >>> y = rng.normal(size=(40, 3)); y[5, 2] = np.nan
-        >>> observed_design(f, solve(f.moments)).fit(y).take(np.array([2, 0])).n.tolist()
-        [39, 40]
-        """
-        return ObservedBlock(
-            self.n[cols],
-            self.theta[:, cols],
-            self.resid_norm[cols],
-            self.y_norm[cols],
-            self.low[:, :, cols],
-            self.certified[cols],
-        )
-
-    @staticmethod
-    @_forty_doc
-    def concat(blocks: list[ObservedBlock], k: int) -> ObservedBlock:
-        """Join blocks of responses (in order) into one.
-
-        Examples
-        --------
-        %(forty_rows)s
-        >>> y = rng.normal(size=(40, 2)); y[5, 1] = np.nan
-        >>> od = observed_design(f, None)
-        >>> ObservedBlock.concat([od.fit(y), od.fit(y[:, ::-1])], 3).n.tolist()
-        [40, 39, 39, 40]
-        """
-        if not blocks:
-            return ObservedBlock(
-                np.zeros(0, dtype=np.int64),
-                np.zeros((k, 0)),
-                np.zeros(0),
-                np.zeros(0),
-                np.zeros((k, k, 0)),
-                np.zeros(0, dtype=bool),
-            )
-        return ObservedBlock(
-            np.concatenate([b.n for b in blocks]),
-            np.concatenate([b.theta for b in blocks], axis=1),
-            np.concatenate([b.resid_norm for b in blocks]),
-            np.concatenate([b.y_norm for b in blocks]),
-            np.concatenate([b.low for b in blocks], axis=2),
-            np.concatenate([b.certified for b in blocks]),
         )
 
 
