@@ -150,19 +150,8 @@ class WaldTest(WaldRows, WaldResult):
             return None
         return pd.DataFrame(self._c, index=list(self.labels), columns=list(self._names))
 
-    @property
-    @fill_lines_doc
-    def row_p(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row (t with ``df_error``, normal if ``df_error`` is inf).
-
-        Examples
-        --------
-        %(fill_lines_fit)s
-        >>> f.wald(lc.term("line") == 0).row_p.shape
-        (3,)
-        """
-        df = self.df_error if self.row_df is None else self.row_df
-        return self._row_p(self.ratio, np.array(df, dtype=np.float64))
+    def _row_df(self) -> NDArray[np.float64]:
+        return np.array(self.df_error if self.row_df is None else self.row_df, dtype=np.float64)
 
     @property
     @fill_lines_doc
@@ -649,18 +638,8 @@ class WaldBatch(WaldRows, WaldResult):
             return None
         return tuple(tuple(s.row_labels(self._index)) for s in self._given)
 
-    @property
-    def row_p(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row, ``(k, m)`` (t with ``df_error``; normal if inf).
-
-        Examples
-        --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]])).row_p.shape
-        (2, 1)
-        """
-        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
+    def _row_df(self) -> NDArray[np.float64]:
+        return np.array(self.df_error, dtype=np.float64)
 
     def row_labels(self, system: int) -> tuple[str, ...]:
         """Labels of the rows of the system at position ``system`` (written as algebra).
