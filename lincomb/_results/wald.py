@@ -24,12 +24,10 @@ from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
 from lincomb._results.frames import WaldResult, WaldRows, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 from lincomb._results.report import ReportTables
+from lincomb.plot import intervals as interval_chart
 
 if TYPE_CHECKING:  # pragma: no cover
     from collections.abc import Sequence
-
-    from matplotlib.axes import Axes
-    from matplotlib.figure import Figure
 
     from lincomb._core.wald import WaldCore
     from lincomb._results.multiplicity import MultipleInference
@@ -241,37 +239,8 @@ class WaldTest(WaldRows, WaldResult):
         """
         return self._test_frame()
 
-    @fill_lines_doc
-    def plot(
-        self,
-        level: float = 0.95,
-        *,
-        simultaneous: str | MultipleInference | pd.DataFrame | None = None,
-        simultaneous_label: str | None = None,
-        ax: Axes | None = None,
-        title: str | None = None,
-    ) -> Figure:
-        """Interval chart of the rows, hypothesized values marked (needs ``lincomb[plot]``).
-
-        Delegates to :func:`lincomb.plot.intervals`, whose arguments these are.
-
-        Examples
-        --------
-        %(fill_lines_fit)s
-        >>> fig = f.wald(lc.term("line") == 0).plot(level=0.9)
-        >>> len(fig.axes[0].get_yticklabels())
-        3
-        """
-        from lincomb.plot import intervals
-
-        return intervals(
-            self,
-            level,
-            simultaneous=simultaneous,
-            simultaneous_label=simultaneous_label,
-            ax=ax,
-            title=title,
-        )
+    # the chart's function is the method, so its signature and docstring are written once
+    plot = interval_chart
 
     @fill_lines_doc
     def adjust(
