@@ -196,12 +196,14 @@ def intervals(
     circle on a thick bar for its marginal interval, the hypothesized value ``d`` as a black
     vertical dash.  When simultaneous intervals are given, each row gets a second, thinner bar
     just below the marginal one, so the two can be compared side by side.  Redundant rows are
-    drawn in grey and marked in their label.  The title states the joint test.
+    drawn in grey and marked in their label.  The title states the joint test.  The same
+    function is the method :meth:`WaldTest.plot <lincomb.WaldTest.plot>` (``res.plot(...)``).
 
     Parameters
     ----------
     result : WaldTest
-        The test whose rows to draw (from :meth:`~lincomb.LinearFit.wald`).
+        The test whose rows to draw (from :meth:`~lincomb.LinearFit.wald`); the test itself
+        when called as its method ``plot``.
     level : float, default 0.95
         Confidence level of the marginal intervals (:meth:`~lincomb.WaldTest.intervals`).
     simultaneous : str, MultipleInference or DataFrame, optional

@@ -23,7 +23,7 @@ from numpy.typing import NDArray
 from scipy import stats
 
 from lincomb._core.checks import check_level
-from lincomb._docstrings import FILL_LINES_FIT, fill_doc
+from lincomb._docstrings import FILL_LINES_FIT, fill_doc, fill_lines_doc
 from lincomb._results.report import html_table, latex_table, markdown_table, wald_headers
 from lincomb._typing import Array
 
@@ -178,14 +178,39 @@ class WaldRows:
 class WaldResult:
     """Shared behaviour of the Wald result classes (a mixin over their frozen dataclasses)."""
 
+    ratio: Array
     reference: str
     covariance: str
 
     def _groups(self) -> _Groups:  # pragma: no cover - each class says what its groups are
         raise NotImplementedError
 
+    def _row_df(self) -> Array:  # pragma: no cover - each class says what its rows' df are
+        """The error df of each row, broadcastable against ``ratio``."""
+        raise NotImplementedError
+
     def _row_p(self, ratio: Array, df_error: Array) -> Array:
         return _row_tail(ratio, df_error)
+
+    @property
+    @fill_lines_doc
+    def row_p(self) -> Array:
+        """Two-sided p-value of each row: t with the row's ``df_error``, normal where it is inf.
+
+        Shaped as ``ratio``: ``(m,)`` for a :class:`~lincomb.WaldTest` (with each row's own
+        df where the covariance estimator gives them), ``(k, m)`` for a
+        :class:`~lincomb.WaldBatch` of ``k`` systems, ``(r, m)`` for a
+        :class:`~lincomb.ManyWaldTest` on ``r`` responses (each with its own ``df_error``).
+
+        Examples
+        --------
+        %(fill_lines_fit)s
+        >>> f.wald(lc.term("line") == 0).row_p.shape
+        (3,)
+        >>> f.wald_batch([lc.coef("line[T.L2]") == 0, lc.coef("line[T.L3]") == 0]).row_p.shape
+        (2, 1)
+        """
+        return self._row_p(self.ratio, self._row_df())
 
     def _row_frame(self, level: float) -> pd.DataFrame:
         check_level(level)

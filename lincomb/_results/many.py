@@ -143,18 +143,8 @@ class ManyWaldTest(WaldResult):
     _response_index: pd.Index | None = field(default=None, repr=False, compare=False)
     _status_codes: NDArray[np.int8] | None = field(default=None, repr=False, compare=False)
 
-    @property
-    @_screen_doc
-    def row_p(self) -> NDArray[np.float64]:
-        """Two-sided t p-value of each row, per response: (r, m).
-
-        Examples
-        --------
-        %(marker_screen)s
-        >>> res.row_p.shape
-        (6, 3)
-        """
-        return self._row_p(self.ratio, self.df_error[:, None])
+    def _row_df(self) -> NDArray[np.float64]:
+        return self.df_error[:, None]
 
     @_screen_doc
     def adjusted(self, method: str | None = "benjamini-hochberg") -> NDArray[np.float64]:

@@ -24,12 +24,10 @@ from lincomb._results.frames import TEST_COLUMNS as _TEST_COLUMNS
 from lincomb._results.frames import WaldResult, WaldRows, _Groups, roles
 from lincomb._results.multiplicity import DEFAULT_MAX_POINTS, DEFAULT_SEED, DEFAULT_TOL
 from lincomb._results.report import ReportTables
+from lincomb.plot import intervals as interval_chart
 
 if TYPE_CHECKING:  # pragma: no cover
     from collections.abc import Sequence
-
-    from matplotlib.axes import Axes
-    from matplotlib.figure import Figure
 
     from lincomb._core.wald import WaldCore
     from lincomb._results.multiplicity import MultipleInference
@@ -150,19 +148,8 @@ class WaldTest(WaldRows, WaldResult):
             return None
         return pd.DataFrame(self._c, index=list(self.labels), columns=list(self._names))
 
-    @property
-    @fill_lines_doc
-    def row_p(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row (t with ``df_error``, normal if ``df_error`` is inf).
-
-        Examples
-        --------
-        %(fill_lines_fit)s
-        >>> f.wald(lc.term("line") == 0).row_p.shape
-        (3,)
-        """
-        df = self.df_error if self.row_df is None else self.row_df
-        return self._row_p(self.ratio, np.array(df, dtype=np.float64))
+    def _row_df(self) -> NDArray[np.float64]:
+        return np.array(self.df_error if self.row_df is None else self.row_df, dtype=np.float64)
 
     @property
     @fill_lines_doc
@@ -252,37 +239,8 @@ class WaldTest(WaldRows, WaldResult):
         """
         return self._test_frame()
 
-    @fill_lines_doc
-    def plot(
-        self,
-        level: float = 0.95,
-        *,
-        simultaneous: str | MultipleInference | pd.DataFrame | None = None,
-        simultaneous_label: str | None = None,
-        ax: Axes | None = None,
-        title: str | None = None,
-    ) -> Figure:
-        """Interval chart of the rows, hypothesized values marked (needs ``lincomb[plot]``).
-
-        Delegates to :func:`lincomb.plot.intervals`, whose arguments these are.
-
-        Examples
-        --------
-        %(fill_lines_fit)s
-        >>> fig = f.wald(lc.term("line") == 0).plot(level=0.9)
-        >>> len(fig.axes[0].get_yticklabels())
-        3
-        """
-        from lincomb.plot import intervals
-
-        return intervals(
-            self,
-            level,
-            simultaneous=simultaneous,
-            simultaneous_label=simultaneous_label,
-            ax=ax,
-            title=title,
-        )
+    # the chart's function is the method, so its signature and docstring are written once
+    plot = interval_chart
 
     @fill_lines_doc
     def adjust(
@@ -649,18 +607,8 @@ class WaldBatch(WaldRows, WaldResult):
             return None
         return tuple(tuple(s.row_labels(self._index)) for s in self._given)
 
-    @property
-    def row_p(self) -> NDArray[np.float64]:
-        """Two-sided p-value of each row, ``(k, m)`` (t with ``df_error``; normal if inf).
-
-        Examples
-        --------
-        >>> import numpy as np, lincomb as lc
-        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
-        >>> f.wald_batch(np.array([[[0.0, 1, -1, 0]], [[0.0, 0, 0, 1]]])).row_p.shape
-        (2, 1)
-        """
-        return self._row_p(self.ratio, np.array(self.df_error, dtype=np.float64))
+    def _row_df(self) -> NDArray[np.float64]:
+        return np.array(self.df_error, dtype=np.float64)
 
     def row_labels(self, system: int) -> tuple[str, ...]:
         """Labels of the rows of the system at position ``system`` (written as algebra).
