@@ -1,9 +1,9 @@
-"""Turning restrictions into ``(C, d, labels)``: one method for every kind of fit.
+"""Turning restrictions into ``(C, d, labels)``: one method for fits and planned designs.
 
-A :class:`~lincomb.LinearFit` and an :class:`~lincomb.EstimatesFit` resolve the same
-restrictions (``coef``, ``term``, ``from_matrix``, level-mean contrasts where a formula
-encoder is known) through their ``resolver``, a
-:class:`~lincomb._builder.resolver.ModelResolver` built once per fit.
+A :class:`~lincomb.LinearFit`, an :class:`~lincomb.EstimatesFit` and a
+:class:`~lincomb.PlannedDesign` resolve the same restrictions (``coef``, ``term``,
+``from_matrix``, level-mean contrasts where a formula encoder is known) through their
+``resolver``, a :class:`~lincomb._builder.resolver.ModelResolver` built once per object.
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ __all__ = ["ResolvesRestrictions"]
 
 
 class ResolvesRestrictions:
-    """The ``resolve`` method of a fit whose ``resolver`` names its coefficients."""
+    """The ``resolve`` method of an object whose ``resolver`` names its coefficients."""
 
     if TYPE_CHECKING:  # pragma: no cover
 
@@ -45,6 +45,11 @@ class ResolvesRestrictions:
         >>> e = lc.from_estimates([1.0, 2.0], [[1.0, 0.0], [0.0, 4.0]], names=["a", "b"])
         >>> e.resolve(lc.coef("a") == lc.coef("b"))[0].tolist()
         [[1.0, -1.0]]
+        >>> import pandas as pd
+        >>> d = lc.planned_design("g", pd.DataFrame({"g": ["a", "b", "c"]}))
+        >>> c, target, labels = d.resolve(lc.term("g") == 0)
+        >>> c.tolist(), labels
+        ([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], ['g[T.b] = 0', 'g[T.c] = 0'])
         """
         system: RestrictionSystem = as_system(restrictions)
         # the resolver also carries the formula encoder, for contrasts on level means
