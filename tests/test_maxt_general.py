@@ -22,6 +22,7 @@ from lincomb._core.maxt import (
     COVERAGE,
     PAIRS_CONTROL_NOTE,
     SEQUENTIAL_ROUTINE,
+    IntegrationOptions,
     _Integrator,
     _unique_rows,
     adjusted_tails,
@@ -122,7 +123,9 @@ def test_reported_critical_value_error_covers_the_exact_value_over_200_seeds(nam
     within_bound = within_se = 0
     for seed in range(seeds):
         # forced through the general rule (the structured routes would be exact here)
-        c, rep = max_abs_t_quantile(0.95, corr, df, engine="sequential", seed=seed, tol=2e-4)
+        c, rep = max_abs_t_quantile(
+            0.95, corr, df, options=IntegrationOptions(tol=2e-4, seed=seed, engine="sequential")
+        )
         assert rep.routine == SEQUENTIAL_ROUTINE and rep.coverage == COVERAGE == 0.99
         within_bound += abs(c - exact) <= rep.critical_error
         within_se += abs(c - exact) <= rep.critical_std_error
@@ -141,9 +144,9 @@ def test_reported_critical_value_error_covers_the_exact_value_over_200_seeds(nam
 def test_general_rule_tails_match_the_studentized_range_and_keep_small_tails_relative() -> None:
     k, df = 6, 20.0
     corr = _pairs(k)[0]
-    integ = _Integrator(corr, df, k - 1, 3, "sequential")
+    integ = _Integrator(corr, df, k - 1, IntegrationOptions(1e-5, 3, 2**16, "sequential"))
     cs = np.array([1.0, 2.2, 3.0, 3.8, 5.0, 6.5, 9.0])
-    tail, se, _points, _note, ok = adjusted_tails(integ, cs, 1e-5, 2**16)
+    tail, se, _points, _note, ok = adjusted_tails(integ, cs)
     ref = stats.studentized_range.sf(np.sqrt(2) * cs, k, df)  # scipy, above 1e-9 here
     assert ok
     # within 4.5 reported standard errors (a t with 9 df exceeds 4.5 with probability 0.0015)
@@ -156,13 +159,16 @@ def test_general_rule_tails_match_the_studentized_range_and_keep_small_tails_rel
 def test_union_sampling_keeps_tiny_equicorrelated_tails_to_relative_accuracy() -> None:
     m, rho = 6, 0.3
     cs = np.array([4.5, 6.0])
-    prob, rep = max_abs_t_cdf(cs, _equicorrelated(m, rho), np.inf, engine="sequential")
+    prob, rep = max_abs_t_cdf(
+        cs, _equicorrelated(m, rho), np.inf, options=IntegrationOptions(engine="sequential")
+    )
     ref = np.array([_equi_tail_mp(c, m, rho) for c in cs])  # mpmath, 30 digits
     assert ref[-1] < 1e-7
     tail = 1 - prob  # the tails themselves are returned through 1 - P: absolute 1e-16
     assert np.all(np.abs(tail - ref) <= 4.5 * rep.std_error + 1e-15)
-    integ = _Integrator(_equicorrelated(m, rho), np.inf, m, 0, "sequential")
-    t_direct, se, _p, _n, _ok = adjusted_tails(integ, cs, 1e-5, 2**16)
+    options = IntegrationOptions(1e-5, 0, 2**16, "sequential")
+    integ = _Integrator(_equicorrelated(m, rho), np.inf, m, options)
+    t_direct, se, _p, _n, _ok = adjusted_tails(integ, cs)
     assert np.all(np.abs(t_direct / ref - 1) <= 4.5 * se / ref), (t_direct / ref - 1, se / ref)
     assert np.all(se / ref < 4e-3)
 
@@ -261,7 +267,9 @@ def test_unbalanced_all_pairs_reach_the_default_tolerance_and_match_monte_carlo(
     cov = res.estimate_covariance
     d = np.sqrt(np.diag(cov))
     corr = cov / np.outer(d, d)
-    plain, prep = max_abs_t_quantile(0.95, corr, f.df_error, engine="sequential", tol=1e-4)
+    plain, prep = max_abs_t_quantile(
+        0.95, corr, f.df_error, options=IntegrationOptions(tol=1e-4, engine="sequential")
+    )
     assert abs(plain - sim.critical_value) <= np.hypot(prep.critical_error, rep.critical_error)
     # seeded Monte Carlo of the family (400,000 draws): the coverage of the critical value is
     # 0.95 within 4 binomial standard errors (3.4e-4)

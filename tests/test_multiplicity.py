@@ -19,7 +19,7 @@ from statsmodels.stats.multicomp import pairwise_tukeyhsd
 from statsmodels.stats.multitest import multipletests
 
 import lincomb as lc
-from lincomb._core.maxt import SEQUENTIAL_ROUTINE
+from lincomb._core.maxt import SEQUENTIAL_ROUTINE, IntegrationOptions
 from lincomb._results.multiplicity import (
     MULTIPLE_COLUMNS,
     adjust_pvalues,
@@ -181,7 +181,7 @@ def test_max_t_cdf_matches_equicorrelated_reduction(m, rho, df, engine) -> None:
     # the spherical-radial rule is meant for singular families; in 8 full dimensions it
     # converges slowly, so it gets a looser target here
     tol = 2e-5 if engine == "scipy" or m < 8 else 1e-4
-    prob, rep = max_abs_t_cdf(cs, corr, df, engine=engine, tol=tol)
+    prob, rep = max_abs_t_cdf(cs, corr, df, options=IntegrationOptions(tol=tol, engine=engine))
     ref = np.array([equicorrelated_cdf(c, m, rho, df) for c in cs])
     # 5 standard errors of the integration, plus the reference's quadrature error (< 1e-9)
     assert np.all(np.abs(prob - ref) <= 5 * rep.std_error + 1e-9), (prob - ref, rep)
@@ -194,7 +194,9 @@ def test_max_t_critical_value_matches_equicorrelated_reduction(m, rho, df, engin
     from scipy.optimize import brentq
 
     corr = np.full((m, m), rho) + (1 - rho) * np.eye(m)
-    crit, rep = max_abs_t_quantile(0.95, corr, df, tol=2e-5, engine=engine)
+    crit, rep = max_abs_t_quantile(
+        0.95, corr, df, options=IntegrationOptions(tol=2e-5, engine=engine)
+    )
     ref = brentq(lambda c: equicorrelated_cdf(c, m, rho, df) - 0.95, 1.0, 6.0, xtol=1e-12)
     assert abs(crit - ref) <= 5 * rep.critical_std_error + 1e-7, (crit, ref, rep)
     if engine == "scipy":
@@ -430,10 +432,12 @@ def test_robust_covariance_reference_is_respected() -> None:
 def test_integration_settings_validation_and_warning() -> None:
     corr = np.array([[1.0, 0.3, 0.1], [0.3, 1.0, 0.2], [0.1, 0.2, 1.0]])
     with pytest.warns(IntegrationAccuracyWarning, match="reached max_points=1000"):
-        _c, rep = max_abs_t_quantile(0.95, corr, 10.0, tol=1e-9, max_points=1000)
+        _c, rep = max_abs_t_quantile(
+            0.95, corr, 10.0, options=IntegrationOptions(tol=1e-9, max_points=1000)
+        )
     assert not rep.converged and rep.points == 1000 and rep.replicates == 10
     with pytest.raises(InputError, match="tol must be in"):
-        max_abs_t_quantile(0.95, corr, tol=0.0)
+        max_abs_t_quantile(0.95, corr, options=IntegrationOptions(tol=0.0))
     with pytest.raises(InputError, match="unit diagonal"):
         max_abs_t_cdf(1.0, 2 * corr)
     with pytest.raises(InputError, match="not symmetric"):
@@ -441,7 +445,11 @@ def test_integration_settings_validation_and_warning() -> None:
     with pytest.raises(InputError, match="degrees of freedom must be positive"):
         max_abs_t_cdf(1.0, corr, df=0)
     with pytest.raises(InputError, match="rank 2 < 3: scipy's integrator is wrong"):
-        max_abs_t_cdf(1.0, np.array([[1, 1, 0], [1, 1, 0], [0, 0, 1.0]]), engine="scipy")
+        max_abs_t_cdf(
+            1.0,
+            np.array([[1, 1, 0], [1, 1, 0], [0, 0, 1.0]]),
+            options=IntegrationOptions(engine="scipy"),
+        )
     with pytest.raises(InputError, match="thresholds must be finite and non-negative"):
         max_abs_t_cdf(-1.0, corr)
     with pytest.raises(InputError, match="unknown interval method 'tukey'"):
@@ -555,7 +563,7 @@ def test_studentized_range_tails_and_far_tail() -> None:
     ).wald(lc.levels("g").pairwise())
     from lincomb._core.maxt import _Integrator
 
-    integ = _Integrator(_pairs_corr(k), df, k - 1, 1, "auto")
+    integ = _Integrator(_pairs_corr(k), df, k - 1, IntegrationOptions(seed=1))
     tail, _err = integ.tail(np.array([11.0]), 0)
     single = 2 * stats.t.sf(11.0, df)
     assert single < tail[0] <= 66 * single and tail[0] < 1e-19
@@ -594,7 +602,9 @@ def test_reported_error_is_honest_over_seeds() -> None:
     corr = cov / np.outer(d, d)
     crits, ses = [], []
     for seed in range(12):
-        c, rep = max_abs_t_quantile(0.95, corr, 25.0, seed=seed, tol=1e-4)
+        c, rep = max_abs_t_quantile(
+            0.95, corr, 25.0, options=IntegrationOptions(tol=1e-4, seed=seed)
+        )
         crits.append(c)
         ses.append(rep.critical_std_error)
     ratio = np.std(crits, ddof=1) / np.mean(ses)

@@ -47,7 +47,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -80,6 +80,7 @@ __all__ = [
     "DEFAULT_MAX_POINTS",
     "REPLICATES",
     "IntegrationReport",
+    "IntegrationOptions",
     "max_abs_t_cdf",
     "max_abs_t_quantile",
     "adjusted_tails",
@@ -279,6 +280,45 @@ def _check_df(df: float) -> float:
     return d
 
 
+@dataclass(frozen=True)
+class IntegrationOptions:
+    """How the max-|t| distribution is integrated: built and checked once by the caller and
+    passed through to every integration of a family.
+
+    Attributes
+    ----------
+    tol : float, default :data:`DEFAULT_TOL`
+        Target standard error of each probability (for the sequential rule: the points are
+        chosen on one set of scrambles to reach it, and the error reported is measured on an
+        independent set, see the module notes).
+    seed : int, default :data:`DEFAULT_SEED`
+    max_points : int, default :data:`DEFAULT_MAX_POINTS`
+        Cap on the integration points per replicate (at least 1000).
+    engine : {'auto', 'sequential', 'scipy', 'spherical-radial'}
+        ``'auto'``: a deterministic quadrature where the correlations have a structure for
+        it, else the sequential rule (with the pairs control family where it applies);
+        ``'sequential'``: the sequential rule alone; ``'scipy'`` (full rank only) and
+        ``'spherical-radial'``: the earlier rules (see the module notes).
+
+    Examples
+    --------
+    >>> IntegrationOptions(tol=1e-4, engine="sequential").max_points == DEFAULT_MAX_POINTS
+    True
+    """
+
+    tol: float = DEFAULT_TOL
+    seed: int = DEFAULT_SEED
+    max_points: int = DEFAULT_MAX_POINTS
+    engine: str = "auto"
+
+    def __post_init__(self) -> None:
+        check_tolerance("tol", self.tol, 0.5)
+        if int(self.max_points) < 1000:
+            raise InputError(f"max_points must be at least 1000, got {self.max_points!r}.")
+        if self.engine not in ENGINES:
+            raise InputError(f"engine must be one of {list(ENGINES)}, got {self.engine!r}.")
+
+
 class _Integrator:
     """``P(max|T_i| <= c)`` by a fixed rule: deterministic for a given number of points.
 
@@ -290,21 +330,23 @@ class _Integrator:
     from 0; the logarithm keeps small tail probabilities accurate in relative terms).
     """
 
-    def __init__(self, corr: Array, df: float, rank: int | None, seed: int, engine: str) -> None:
+    def __init__(
+        self, corr: Array, df: float, rank: int | None, options: IntegrationOptions
+    ) -> None:
+        engine = options.engine
         m = corr.shape[0]
         evals, evecs = np.linalg.eigh(corr)
         if rank is None:
             rank = int(np.count_nonzero(evals > 1e-9 * max(float(evals[-1]), 1e-300) * m))
         if not 1 <= rank <= m:
             raise InputError(f"rank must be between 1 and {m}, got {rank}.")
-        if engine not in ENGINES:
-            raise InputError(f"engine must be one of {list(ENGINES)}, got {engine!r}.")
         if engine == "scipy" and rank < m:
             raise InputError(
                 f"the correlation matrix has rank {rank} < {m}: scipy's integrator is wrong for"
                 " singular matrices; use engine='spherical-radial' (or 'auto')."
             )
-        self.m, self.rank, self.df, self.seed, self.corr = m, rank, df, int(seed), corr
+        self.m, self.rank, self.df, self.corr = m, rank, df, corr
+        self.options, self.seed = options, int(options.seed)
         self.param = float("nan")
         structure = "general"
         if rank > 1 and engine == "auto":
@@ -333,6 +375,12 @@ class _Integrator:
         self._engines: list[Any] = []
         self._drawn = 0
         self._snapshots: dict[int, tuple[Array, Array]] = {}
+
+    def spherical_radial(self) -> _Integrator:
+        """The same family under the spherical-radial rule (the ``'scipy'`` engine's guide
+        for first roots and small tails)."""
+        options = replace(self.options, engine="spherical-radial")
+        return _Integrator(self.corr, self.df, self.rank, options)
 
     @property
     def routine(self) -> str:
@@ -518,12 +566,6 @@ _BINS: int = 2**14
 _CHUNK: int = 2**15
 
 
-def _check_tol(tol: float, max_points: int) -> None:
-    check_tolerance("tol", tol, 0.5)
-    if int(max_points) < 1000:
-        raise InputError(f"max_points must be at least 1000, got {max_points!r}.")
-
-
 def _warn_unconverged(what: str, se: float, tol: float, max_points: int) -> None:
     warnings.warn(
         f"{what}: the integration reached max_points={max_points} with probability standard"
@@ -534,16 +576,22 @@ def _warn_unconverged(what: str, se: float, tol: float, max_points: int) -> None
     )
 
 
+def _checked_integrator(
+    corr: ArrayLike, df: float, rank: int | None, options: IntegrationOptions | None
+) -> _Integrator:
+    """The integrator of a family given by the caller (correlations and df checked; default
+    options when none are given)."""
+    opts = IntegrationOptions() if options is None else options
+    return _Integrator(_check_corr(corr), _check_df(df), rank, opts)
+
+
 def max_abs_t_cdf(
     c: ArrayLike,
     corr: ArrayLike,
     df: float = np.inf,
     *,
     rank: int | None = None,
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
-    engine: str = "auto",
+    options: IntegrationOptions | None = None,
 ) -> tuple[Array, IntegrationReport]:
     """``P(max_i |T_i| <= c)`` for a multivariate t vector with correlation ``corr``.
 
@@ -557,18 +605,8 @@ def max_abs_t_cdf(
         Degrees of freedom (``inf``: multivariate normal).
     rank : int, optional
         Rank of ``corr`` (default: eigenvalues above ``1e-9 · m ·`` the largest).
-    tol : float, default :data:`DEFAULT_TOL`
-        Target standard error of each probability (for the sequential rule: the points are
-        chosen on one set of scrambles to reach it, and the error reported is measured on an
-        independent set, see the module notes).
-    seed : int, default :data:`DEFAULT_SEED`
-    max_points : int, default :data:`DEFAULT_MAX_POINTS`
-        Cap on the integration points per replicate.
-    engine : {'auto', 'sequential', 'scipy', 'spherical-radial'}
-        ``'auto'``: a deterministic quadrature where the correlations have a structure for
-        it, else the sequential rule (with the pairs control family where it applies);
-        ``'sequential'``: the sequential rule alone; ``'scipy'`` (full rank only) and
-        ``'spherical-radial'``: the earlier rules (see the module notes).
+    options : IntegrationOptions, optional
+        Target standard error, seed, point cap and engine (default: their defaults).
 
     Returns
     -------
@@ -582,13 +620,11 @@ def max_abs_t_cdf(
     >>> round(float(p[0]), 6), rep.routine
     (0.95, 'exact')
     """
-    r = _check_corr(corr)
-    d = _check_df(df)
-    _check_tol(tol, max_points)
+    integ = _checked_integrator(corr, df, rank, options)
+    tol, max_points = integ.options.tol, integ.options.max_points
     cs = np.atleast_1d(np.array(c, dtype=np.float64))
     if np.any(~np.isfinite(cs)) or np.any(cs < 0):
         raise InputError(f"thresholds must be finite and non-negative, got {cs.tolist()}.")
-    integ = _Integrator(r, d, rank, seed, engine)
     if integ.kind == "sequential":
         uniq, inv = np.unique(cs, return_inverse=True)
         tail, se, points, ok = integ.rule.tails(uniq, tol, max_points)
@@ -703,11 +739,10 @@ def _refine(
     return _root(integ, alpha, points, c0 - width, c0 + width, xtol)
 
 
-def _quantile(
-    integ: _Integrator, level: float, tol: float, max_points: int
-) -> tuple[float, IntegrationReport]:
+def _quantile(integ: _Integrator, level: float) -> tuple[float, IntegrationReport]:
     """Critical value: a first root by the cheap spherical-radial rule, the integration
     points grown there until the standard error meets ``tol``, then one refined root."""
+    tol, max_points = integ.options.tol, integ.options.max_points
     lo, hi = _bounds(level, integ.m, integ.df)
     alpha = 1.0 - level
     if integ.kind == "exact":
@@ -725,7 +760,7 @@ def _quantile(
             _warn_unconverged("max-|t| critical value", se, tol, max_points)
         return crit, integ.report(points, se, tol, crit_se, converged=reached)
     if integ.kind == "scipy":
-        guide = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
+        guide = integ.spherical_radial()
     else:
         guide = integ
     c0 = _root(guide, alpha, guide.start_points(), lo, hi)
@@ -751,10 +786,7 @@ def max_abs_t_quantile(
     df: float = np.inf,
     *,
     rank: int | None = None,
-    tol: float = DEFAULT_TOL,
-    seed: int = DEFAULT_SEED,
-    max_points: int = DEFAULT_MAX_POINTS,
-    engine: str = "auto",
+    options: IntegrationOptions | None = None,
 ) -> tuple[float, IntegrationReport]:
     """Critical value ``c`` with ``P(max_i |T_i| <= c) = level``.
 
@@ -773,15 +805,10 @@ def max_abs_t_quantile(
     (2.388, 'equicorrelated quadrature')
     """
     check_level(level)
-    r = _check_corr(corr)
-    d = _check_df(df)
-    _check_tol(tol, max_points)
-    return _quantile(_Integrator(r, d, rank, seed, engine), level, tol, max_points)
+    return _quantile(_checked_integrator(corr, df, rank, options), level)
 
 
-def adjusted_tails(
-    integ: _Integrator, cs: Array, tol: float, max_points: int
-) -> tuple[Array, Array, int, str | None, bool]:
+def adjusted_tails(integ: _Integrator, cs: Array) -> tuple[Array, Array, int, str | None, bool]:
     """Tail probabilities for adjusted p-values; small ones by the spherical-radial rule.
 
     scipy's integrators control the absolute error, so a tail far below their noise (say
@@ -790,6 +817,7 @@ def adjusted_tails(
     integrated to relative standard error :data:`SMALL_TAIL_REL_TOL` (the absolute ``tol`` is
     far above them), whatever the family's rank.
     """
+    tol, max_points = integ.options.tol, integ.options.max_points
     # the relative targets tighten with ``tol`` (so a strict ``tol`` gives more digits)
     rel = P_REL_TOL * min(1.0, tol / DEFAULT_TOL)
     rel_small = SMALL_TAIL_REL_TOL * min(1.0, tol / DEFAULT_TOL)
@@ -807,7 +835,7 @@ def adjusted_tails(
     target = np.maximum(tol, rel * tail)
     if not integ.deterministic and small.any():
         if integ.kind == "scipy":
-            sr = _Integrator(integ.corr, integ.df, integ.rank, integ.seed, "spherical-radial")
+            sr = integ.spherical_radial()
             note = f"tails below {SMALL_TAIL:g} by spherical-radial Sobol"
         else:
             sr = integ

@@ -110,6 +110,11 @@ _FORTY_ROWS = """\
 >>> x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
 >>> f = factor_design(x, intercept=0)"""
 _forty_doc = fill_doc(forty_rows=_FORTY_ROWS)
+#: The same, with two responses: the first has a missing value, the second also an infinite one.
+_FORTY_ROWS_INFINITE = (
+    _FORTY_ROWS + "\n>>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf"
+)
+_forty_infinite_doc = fill_doc(forty_rows_infinite=_FORTY_ROWS_INFINITE)
 
 
 @_forty_doc
@@ -185,14 +190,13 @@ class ObservedBlock(PerResponse):
             out: Array = self.resid_norm**2
         return out
 
-    @_forty_doc
+    @_forty_infinite_doc
     def finite(self) -> NDArray[np.bool_]:
         """Responses whose fit is finite (an infinite value or an overflow propagates).
 
         Examples
         --------
-        %(forty_rows)s
-        >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
+        %(forty_rows_infinite)s
         >>> observed_design(f, None).fit(y).finite().tolist()
         [True, False]
         """
@@ -203,7 +207,7 @@ class ObservedBlock(PerResponse):
         )
 
 
-@_forty_doc
+@_forty_infinite_doc
 @dataclass(frozen=True)
 class ObservedPart:
     """A block of responses projected for an own-rows fit (:meth:`ObservedDesign.project`).
@@ -228,8 +232,7 @@ class ObservedPart:
 
     Examples
     --------
-    %(forty_rows)s
-    >>> y = rng.normal(size=(40, 2)); y[5] = np.nan; y[6, 1] = np.inf
+    %(forty_rows_infinite)s
     >>> observed_design(f, None).project(y).finite().tolist()
     [True, False]
     """

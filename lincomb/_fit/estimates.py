@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -30,12 +31,12 @@ from numpy.typing import ArrayLike, NDArray
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
-from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level
 from lincomb._covariance.given import refuse_nonfinite
 from lincomb._covariance.reference import check_reference, reference_result
 from lincomb._docstrings import fill_doc
 from lincomb._fit.coef_table import coefficient_frame
+from lincomb._fit.resolving import ResolvesRestrictions
 from lincomb._fit.restriction_rows import refuse_inconsistent
 from lincomb._model.design import CoefficientIndex, _parse_levels
 from lincomb._model.encoder import FormulaEncoder
@@ -69,7 +70,7 @@ _estimates_doc = fill_doc(two_estimates=_TWO_ESTIMATES)
 
 @_estimates_doc
 @dataclass(frozen=True)
-class EstimatesFit(ReportTables):
+class EstimatesFit(ResolvesRestrictions, ReportTables):
     """Estimates and their covariance from any model, ready for Wald tests.
 
     Built by :func:`from_estimates`; frozen.
@@ -187,19 +188,17 @@ class EstimatesFit(ReportTables):
         )
 
     # -- restrictions -------------------------------------------------------------------
+    @cached_property
     @_estimates_doc
-    def resolve(
-        self, restrictions: object
-    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
-        """Turn restrictions into ``(C, d, labels)`` on these coefficients.
+    def resolver(self) -> ModelResolver:
+        """The resolver of restriction names on these estimates, built once and reused by
+        every test (the coefficient index, with the formula encoder when one was given).
 
         %(two_estimates)s
-        >>> c, d, labels = e.resolve(lc.coef("a") == lc.coef("b"))
-        >>> c.tolist(), d.tolist()
-        ([[1.0, -1.0]], [0.0])
+        >>> e.resolver is e.resolver, e.resolver.column("b")
+        (True, 1)
         """
-        system: RestrictionSystem = as_system(restrictions)
-        return system.resolve(ModelResolver(self._index, self._encoder))
+        return ModelResolver(self._index, self._encoder)
 
     def _working(self, c: NDArray[np.float64]) -> NDArray[np.float64]:
         """Rows of ``C`` in scaled coordinates (``C D``)."""

@@ -24,7 +24,6 @@ from numpy.typing import ArrayLike, NDArray
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
-from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
@@ -32,6 +31,7 @@ from lincomb._covariance.reference import check_reference, reference_df, test_re
 from lincomb._docstrings import FILL_LINES_FIT, RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit import batch
 from lincomb._fit.coef_table import coefficient_frame
+from lincomb._fit.resolving import ResolvesRestrictions
 from lincomb._fit.restriction_rows import aliasing_hint, check_rows
 from lincomb._model.design import (
     CoefficientIndex,
@@ -69,7 +69,7 @@ ZERO_RSS_TOL: float = 1e-12
 
 
 @dataclass(frozen=True)
-class LinearFit(ReportTables):
+class LinearFit(ResolvesRestrictions, ReportTables):
     """A least-squares fit, kept as its sufficient statistics.
 
     Attributes
@@ -416,21 +416,6 @@ class LinearFit(ReportTables):
         return out
 
     # -- restrictions -------------------------------------------------------------------
-    @_line_fit_doc
-    def resolve(
-        self, restrictions: object
-    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
-        """Turn restrictions into ``(C, d, labels)`` on this fit's coefficients.
-
-        %(line_fit_examples)s
-        >>> c, d, labels = f.resolve(lc.coef("line[T.L2]") == lc.coef("line[T.L3]"))
-        >>> c.tolist(), d.tolist()
-        ([[0.0, 1.0, -1.0, 0.0]], [0.0])
-        """
-        system: RestrictionSystem = as_system(restrictions)
-        # the resolver also carries the formula encoder, for contrasts on level means
-        return system.resolve(self.resolver)
-
     @_line_fit_doc
     def prepare(
         self, restrictions: object

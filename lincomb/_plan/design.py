@@ -10,18 +10,19 @@ restrictions on level means (:func:`lincomb.levels`) resolve on it as on a fit.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from numpy.typing import ArrayLike, NDArray
+from numpy.typing import ArrayLike
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
-from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._core.checks import check_tolerance
 from lincomb._docstrings import RANK_TOL_PARAMETER, fill_doc
 from lincomb._fit.linear import LinearFit
+from lincomb._fit.resolving import ResolvesRestrictions
 from lincomb._model.design import CoefficientIndex, design_from_arrays, design_from_formula
 from lincomb._plan.checks import check_replicates
 from lincomb.errors import InputError, MissingValueError
@@ -43,7 +44,7 @@ three_groups_doc = fill_doc(three_groups=THREE_GROUPS)
 
 
 @dataclass(frozen=True)
-class PlannedDesign:
+class PlannedDesign(ResolvesRestrictions):
     """One replicate of a planned covariate pattern, factored for planning.
 
     Build it with :func:`planned_design`.  A study runs the pattern ``r`` times: its design is
@@ -126,21 +127,10 @@ class PlannedDesign:
         """
         return check_replicates(replicates) * self.n_obs - self.rank
 
-    @three_groups_doc
-    def resolve(
-        self, restrictions: object
-    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
-        """Turn restrictions into ``(C, d, labels)`` on this design's coefficients.
-
-        Examples
-        --------
-        %(three_groups)s
-        >>> c, target, labels = d.resolve(lc.term("g") == 0)
-        >>> c.tolist(), labels
-        ([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], ['g[T.b] = 0', 'g[T.c] = 0'])
-        """
-        system: RestrictionSystem = as_system(restrictions)
-        return system.resolve(ModelResolver(self._index, self._encoder))
+    @cached_property
+    def resolver(self) -> ModelResolver:
+        """The resolver of restriction names on this design (built once, used by ``resolve``)."""
+        return ModelResolver(self._index, self._encoder)
 
     def plan(self, restrictions: object, *, sigma: float, alpha: float = 0.05) -> PowerPlan:
         """Shorthand for :func:`power_plan` on this design.

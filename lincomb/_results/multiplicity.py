@@ -36,8 +36,8 @@ from lincomb._core.maxt import (
     DEFAULT_SEED,
     DEFAULT_TOL,
     REPLICATES,
+    IntegrationOptions,
     IntegrationReport,
-    _check_tol,
     _Integrator,
     _quantile,
     _row_dist,
@@ -594,9 +594,9 @@ def adjust_wald(
     elif key == "studentized-range":
         p_adj = studentized_range_tail(t, _pairwise_means(fam), fam["df"])
     else:
-        _check_tol(tol, max_points)
-        integ = _Integrator(_corr_of(wald, k), fam["df"], fam["rank"], seed, "auto")
-        tail, se, points, note, p_ok = adjusted_tails(integ, np.abs(t), tol, max_points)
+        options = IntegrationOptions(tol, seed, max_points)
+        integ = _Integrator(_corr_of(wald, k), fam["df"], fam["rank"], options)
+        tail, se, points, note, p_ok = adjusted_tails(integ, np.abs(t))
         worst = float(se.max())
         p_adj = np.clip(tail, p, np.minimum(1.0, k.size * p))
         integration = replace(
@@ -654,10 +654,10 @@ def simultaneous_wald(
         crit = float(studentized_range_critical(level, means, df)[0])
         p_adj = studentized_range_tail(t, means, df)
     else:
-        _check_tol(tol, max_points)
-        integ = _Integrator(_corr_of(wald, k), df, fam["rank"], seed, "auto")
-        crit, integration = _quantile(integ, level, tol, max_points)
-        tail, se, _pts, note, p_ok = adjusted_tails(integ, np.abs(t), tol, max_points)
+        options = IntegrationOptions(tol, seed, max_points)
+        integ = _Integrator(_corr_of(wald, k), df, fam["rank"], options)
+        crit, integration = _quantile(integ, level)
+        tail, se, _pts, note, p_ok = adjusted_tails(integ, np.abs(t))
         p_adj = np.clip(tail, p, np.minimum(1.0, m * p))
         integration = replace(
             integration,
