@@ -157,3 +157,35 @@ def scaled_main(
     res.update(versions(args.threads))
     emit(report(res), res, args.json)
     return 0
+
+
+def rounds_main(
+    doc: str | None,
+    run: Callable[[int], dict[str, Any]],
+    report: Callable[[dict[str, Any]], str],
+    rounds: int,
+    argv: list[str] | None,
+) -> int:
+    """The command line of the scripts timed in interleaved rounds: ``--json``, ``--threads``
+    and ``--rounds`` (default ``rounds``); the figures gain the loaded BLAS, the thread
+    setting and the 1-minute load average before and after the run."""
+    ap = parser(doc)
+    ap.add_argument(
+        "--rounds", type=int, default=rounds, help=f"interleaved rounds (default {rounds})"
+    )
+    args = ap.parse_args(argv)
+
+    # load every BLAS before limiting threads: threadpoolctl limits only loaded libraries
+    import scipy.linalg  # noqa: F401
+
+    import lincomb  # noqa: F401
+
+    load = os.getloadavg()[0]
+    with thread_limit(args.threads):
+        res = run(args.rounds)
+        res["blas"] = blas_info()
+    res["threads"] = args.threads or "default"
+    res["load_average"] = load
+    res["load_average_after"] = os.getloadavg()[0]
+    emit(report(res), res, args.json)
+    return 0

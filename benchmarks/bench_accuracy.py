@@ -94,19 +94,8 @@ def run(rounds: int) -> dict[str, Any]:
     }
 
 
-def main(argv: list[str] | None = None) -> int:
-    ap = _common.parser(__doc__)
-    ap.add_argument("--rounds", type=int, default=15)
-    args = ap.parse_args(argv)
-    import scipy.linalg  # noqa: F401
-
-    import lincomb  # noqa: F401
-
-    with _common.thread_limit(args.threads):
-        res = run(args.rounds)
-        res["blas"] = _common.blas_info()
-    res["threads"] = args.threads or "none (library default)"
-    text = "\n".join(
+def report(res: dict[str, Any]) -> str:
+    return "\n".join(
         [
             f"well-conditioned fit n=100000 p=20: shipped {res['median_s']['shipped']:.4f} s,"
             f" check skipped {res['median_s']['unchecked']:.4f} s,"
@@ -116,8 +105,10 @@ def main(argv: list[str] | None = None) -> int:
             _common.blas_line(res["blas"]),
         ]
     )
-    _common.emit(text, res, args.json)
-    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    return _common.rounds_main(__doc__, run, report, 15, argv)
 
 
 if __name__ == "__main__":

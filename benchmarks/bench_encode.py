@@ -138,8 +138,8 @@ def report(res: dict[str, Any]) -> str:
 
     lines = [
         f"formula fits, n = {pb['n']:,}, p = {pb['p']} ({pb['formula']}); {pb['rounds']} rounds"
-        f" round robin (load average {res['load_average_start']:.2f} at the start,"
-        f" {res['load_average']:.2f} at the end; threads {res['threads']})",
+        f" round robin (load average {res['load_average']:.2f} at the start,"
+        f" {res['load_average_after']:.2f} at the end; threads {res['threads']})",
         f"  baseline, model_matrix + fit_arrays: {1e3 * m['baseline_model_matrix_fit_arrays']:.1f}"
         " ms",
         f"  lc.fit: {1e3 * m['fit']:.1f} ms",
@@ -161,22 +161,7 @@ def report(res: dict[str, Any]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = _common.parser(__doc__)
-    ap.add_argument("--rounds", type=int, default=15)
-    args = ap.parse_args(argv)
-    import scipy.linalg  # noqa: F401  (load every BLAS before limiting threads)
-
-    import lincomb  # noqa: F401
-
-    load_start = os.getloadavg()[0]
-    with _common.thread_limit(args.threads):
-        res = run(args.rounds)
-        res["blas"] = _common.blas_info()
-    res["threads"] = args.threads or "default"
-    res["load_average_start"] = load_start
-    res["load_average"] = os.getloadavg()[0]
-    _common.emit(report(res), res, args.json)
-    return 0
+    return _common.rounds_main(__doc__, run, report, 15, argv)
 
 
 if __name__ == "__main__":

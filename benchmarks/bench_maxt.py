@@ -25,7 +25,6 @@ first, a deterministic two-dimensional integral written here (the rows' correlat
 
 from __future__ import annotations
 
-import os
 import sys
 import warnings
 from typing import Any
@@ -181,22 +180,7 @@ def report(res: dict[str, Any]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = _common.parser(__doc__)
-    ap.add_argument("--rounds", type=int, default=5)
-    args = ap.parse_args(argv)
-    import scipy.linalg  # noqa: F401  (load every BLAS before limiting threads)
-
-    import lincomb  # noqa: F401
-
-    load = os.getloadavg()[0]
-    with _common.thread_limit(args.threads):
-        res = run(args.rounds)
-        res["blas"] = _common.blas_info()
-    res["threads"] = args.threads or "default"
-    res["load_average"] = load
-    res["load_average_after"] = os.getloadavg()[0]
-    _common.emit(report(res), res, args.json)
-    return 0
+    return _common.rounds_main(__doc__, run, report, 5, argv)
 
 
 if __name__ == "__main__":
