@@ -116,6 +116,18 @@ def _system() -> tuple[Any, np.ndarray, np.ndarray]:
     return system, c, np.zeros(2)
 
 
+def _agreement(res: Any, ref: list[Any]) -> tuple[float, float]:
+    """Largest relative differences of F and p between lincomb's first ``len(ref)`` responses
+    and statsmodels' tests of them; an F off by more than 1e-9 stops the benchmark."""
+    k = len(ref)
+    f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
+    p_sm = np.array([float(t.pvalue) for t in ref])
+    f_rel = float(np.max(np.abs(res.stat[:k] / f_sm - 1)))
+    p_rel = float(np.max(np.abs(res.p[:k] / p_sm - 1)))
+    assert f_rel < 1e-9, f_rel
+    return f_rel, p_rel
+
+
 def run_against_loop(
     x: np.ndarray, y: np.ndarray, repeats: int, subset: int, target: float
 ) -> dict[str, Any]:
@@ -139,12 +151,7 @@ def run_against_loop(
         return [sm.OLS(y[obs[:, j], j], x[obs[:, j]]).fit().f_test((c, d)) for j in range(subset)]
 
     res, _ = lincomb_all()
-    ref = sm_subset()
-    f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
-    p_sm = np.array([float(t.pvalue) for t in ref])
-    f_rel = float(np.max(np.abs(res.stat[:subset] / f_sm - 1)))
-    p_rel = float(np.max(np.abs(res.p[:subset] / p_sm - 1)))
-    assert f_rel < 1e-9, f_rel
+    f_rel, p_rel = _agreement(res, sm_subset())
     cpu: dict[str, list[float]] = {"lincomb": [], "statsmodels_subset": []}
 
     def cpu_timed(name: str, fn: Any) -> Any:
@@ -215,12 +222,7 @@ def run(repeats: int, subset: int) -> dict[str, Any]:
 
     # correctness first
     res, frame = lincomb_all()
-    ref = sm_subset()
-    f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
-    p_sm = np.array([float(t.pvalue) for t in ref])
-    f_rel = float(np.max(np.abs(res.stat[:subset] / f_sm - 1)))
-    p_rel = float(np.max(np.abs(res.p[:subset] / p_sm - 1)))
-    assert f_rel < 1e-9, f_rel
+    f_rel, p_rel = _agreement(res, sm_subset())
 
     times: dict[str, list[float]] = {"lincomb": [], "statsmodels_subset": []}
     ratios, cpu_ratios, cpu_lc = [], [], []
