@@ -19,6 +19,8 @@ from __future__ import annotations
 
 import gc
 import warnings
+from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -29,6 +31,7 @@ import lincomb as lc
 from lincomb._covariance import cache
 from lincomb._covariance.in_memory import BLOCK_ELEMENTS, _limited
 from lincomb._covariance.meats import ClusterMeat
+from lincomb._covariance.specs import Clustered, CommonShocks, Heteroskedastic, Serial
 from lincomb._fit.linear import fit_from_design
 from lincomb.errors import FewClustersWarning
 
@@ -188,3 +191,38 @@ def test_at_most_a_few_estimates_are_kept_per_fit(big):
         for g in range(2, 2 + cache.KEPT_PER_FIT + 3):
             f.evaluate_covariance(lc.clustered(by=(big["firm"] % g).to_numpy()))
     assert len(cache._ENTRIES[id(f.design)].kept) == cache.KEPT_PER_FIT
+
+
+@dataclass(frozen=True, eq=False)
+class _WithNewOption(Heteroskedastic):
+    """An estimator given one more field, as a later change might (its evaluation ignores it)."""
+
+    extra: float = 1.0
+    extra_rows: Any = None
+
+
+def test_a_new_field_of_an_estimator_is_part_of_what_is_remembered(big):
+    # the key is derived from the fields: a new option separates estimates without being listed
+    f = lc.fit("y ~ x1 + x2", big)
+    one = f.evaluate_covariance(_WithNewOption("HC1", extra=1.0))
+    assert f.evaluate_covariance(_WithNewOption("HC1", extra=1.0)) is one
+    assert f.evaluate_covariance(_WithNewOption("HC1", extra=0.5)) is not one
+    assert f.evaluate_covariance(Heteroskedastic("HC1")) is not one  # another type
+    # a new field holding per-row data but not declared a row field: never kept, never stale
+    rows = np.zeros(f.n_obs)
+    spec = _WithNewOption("HC1", extra_rows=rows)
+    assert f.evaluate_covariance(spec) is not f.evaluate_covariance(spec)
+
+
+@pytest.mark.parametrize("kind", [Heteroskedastic, Clustered, Serial, CommonShocks])
+def test_row_fields_are_fields(kind):
+    # a misspelt row field would turn per-row data into an option
+    assert kind.ROW_FIELDS is not None
+    assert set(kind.ROW_FIELDS) <= {f.name for f in fields(kind)}
+
+
+def test_estimators_that_read_no_rows_are_not_kept(big):
+    f = lc.fit("y ~ x1 + x2", big)
+    assert f.evaluate_covariance("classical") is not f.evaluate_covariance("classical")
+    given = lc.given(f.covariance("HC3"))
+    assert f.evaluate_covariance(given) is not f.evaluate_covariance(given)

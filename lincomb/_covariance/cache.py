@@ -9,7 +9,8 @@ estimator is asked for on the same fit again.  The fit object is not touched.
 
 "The same estimator" is decided by value, never by identity alone:
 
-* its options (kind, small-sample factor, df, adjustment, lag, ...) are equal;
+* it is of the same type and its options (kind, small-sample factor, df, adjustment, lag,
+  ...: every field but those its ``ROW_FIELDS`` name) are equal;
 * each per-row source (cluster labels, time order, units) is the same column name (the fit's
   data are its own), or an array or Series equal, element by element and in dtype, index and
   name, to a copy taken when the estimate was made.  An array changed in place after an
@@ -26,9 +27,10 @@ covariances cost nothing that grows with ``n`` and are not kept.  At most
 
 from __future__ import annotations
 
+import numbers
 import threading
 import weakref
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -37,13 +39,7 @@ import pandas as pd
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.examples import LINES_FIT
 from lincomb._covariance.few_clusters import recorded_warnings, warn_few_clusters
-from lincomb._covariance.specs import (
-    Clustered,
-    CommonShocks,
-    Estimator,
-    Heteroskedastic,
-    Serial,
-)
+from lincomb._covariance.specs import Estimator
 from lincomb._docstrings import fill_doc
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -119,16 +115,22 @@ def forget(fit: LinearFit | None = None) -> None:
 
 
 def _signature(est: Estimator) -> tuple[tuple[Any, ...], tuple[Any, ...]] | None:
-    """The options and per-row sources of a row-based estimator; None for one not kept."""
-    if isinstance(est, Heteroskedastic):
-        return ("HC", est.kind), ()
-    if isinstance(est, Clustered):
-        return ("cluster", est.small_sample, est.df, est.adjust, est.two_way_factor), est.by
-    if isinstance(est, Serial):
-        return ("serial", est.lag, est.small_sample, est.df), (est.order, est.units)
-    if isinstance(est, CommonShocks):
-        return ("shocks", est.lag, est.small_sample, est.df), (est.time,)
-    return None
+    """The options and per-row sources of a row-based estimator; None for one not kept.
+
+    The options are the estimator's type and the values of all its fields but its
+    :attr:`~lincomb._covariance.specs.Estimator.ROW_FIELDS`, so a field added to an estimator
+    is part of the key by itself.  An option that is not a plain value (a number, string or
+    None: say an array a new field holds without being declared a row field) could change in
+    place unseen, so such an estimator is not kept.
+    """
+    row_fields = est.ROW_FIELDS
+    if row_fields is None:
+        return None
+    every = fields(est)  # type: ignore[arg-type]  # the specifications are dataclasses
+    options = tuple(getattr(est, f.name) for f in every if f.name not in row_fields)
+    if not all(o is None or isinstance(o, (str, numbers.Number)) for o in options):
+        return None
+    return (type(est), *options), est.row_sources()
 
 
 #: The snapshot of a source that cannot be compared by value (its estimate is not kept).

@@ -14,7 +14,7 @@ import difflib
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 import pandas as pd
@@ -64,6 +64,24 @@ class Estimator:
     >>> isinstance(lc.clustered(by="site"), Estimator), isinstance(as_estimator("HC1"), Estimator)
     (True, True)
     """
+
+    #: The fields that hold per-row data (cluster labels, time order, units); every other
+    #: field is an option.  None for an estimator that reads no rows: its estimate costs
+    #: nothing that grows with ``n`` and is not remembered (see :mod:`~lincomb._covariance.cache`).
+    ROW_FIELDS: ClassVar[tuple[str, ...] | None] = None
+
+    def row_sources(self) -> tuple[Any, ...]:
+        """The per-row sources this estimator reads: the values of its :attr:`ROW_FIELDS`.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> lc.serial(lag=2, order="week").row_sources()
+        ('week', None)
+        >>> lc.clustered(by=["site", "week"]).row_sources()  # one per clustering variable
+        ('site', 'week')
+        """
+        return tuple(getattr(self, name) for name in self.ROW_FIELDS or ())
 
     @lines_doc
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:  # pragma: no cover - abstract
@@ -119,6 +137,7 @@ class Heteroskedastic(Estimator):
     """
 
     kind: str = "HC3"
+    ROW_FIELDS = ()
 
     def __post_init__(self) -> None:
         if self.kind not in HC_KINDS:
@@ -149,6 +168,10 @@ class Clustered(Estimator):
     df: float | None = None
     adjust: str = "none"
     two_way_factor: str = "per-term"
+    ROW_FIELDS = ("by",)
+
+    def row_sources(self) -> tuple[Any, ...]:
+        return self.by  # one source per clustering variable
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit.check_variance()
@@ -175,6 +198,7 @@ class Serial(Estimator):
     small_sample: bool = False
     df: float | None = None
     units: Any = None
+    ROW_FIELDS = ("order", "units")
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit.check_variance()
@@ -197,6 +221,7 @@ class CommonShocks(Estimator):
     lag: int | None = None
     small_sample: bool = False
     df: float | None = None
+    ROW_FIELDS = ("time",)
 
     def evaluate(self, fit: LinearFit) -> CovarianceEstimate:
         fit.check_variance()
