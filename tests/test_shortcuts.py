@@ -302,6 +302,21 @@ def test_labels_are_written_when_first_read(cars):
         fit.wald((lc.coef("wt") == 0) & (2 * lc.coef("wt") == 1))
 
 
+@pytest.mark.parametrize("k", [3, 64, 65, 200])
+@pytest.mark.parametrize("zero", [0.0, -0.0])
+def test_triangular_solves_refuse_a_zero_on_the_diagonal_at_every_size(k, zero):
+    # both ways of searching the diagonal (a list for short ones, the array otherwise)
+    from lincomb._core.triangular import upper_solve
+    from lincomb.errors import SingularFactorError
+
+    r = np.triu(np.random.default_rng(k).normal(size=(k, k)) / k, 1) + 3 * np.eye(k)
+    b = np.ones(k)
+    np.testing.assert_allclose(r.T @ upper_solve(r, b, trans=True), b, rtol=1e-10)
+    r[k - 2, k - 2] = zero
+    with pytest.raises(SingularFactorError, match=f"zero at diagonal {k - 2}"):
+        upper_solve(r, b)
+
+
 # -- names, stacks, lazy attributes -------------------------------------------------------------
 def test_unknown_names_raise_every_time_and_known_ones_match_the_index(cars):
     _, _, fit = cars
