@@ -526,8 +526,8 @@ class LinearFit(ResolvesRestrictions, ReportTables):
         cu_kept = cu if self._kept_in_order else cu[:, sol.kept]
         root = vcov.root(cu_kept)
         est = cu_kept @ sol.theta
-        check_rank(root, analysis.independent, labels, vcov)
-        wc = core.wald_from_root(est - d, root, analysis.independent)
+        chol = check_rank(root, analysis.independent, labels, vcov)
+        wc = core.wald_from_root(est - d, root, analysis.independent, chol)
         k = analysis.independent
         dist, stat, df_error, p_value, row_df = test_reference(
             vcov, wc.quad, wc.rank, cu_kept, k, ref
