@@ -227,6 +227,96 @@ def test_checked_rows_are_the_full_maps(cars, touch):
         np.testing.assert_allclose(analysis.dependencies[2][k], w, rtol=1e-12)
 
 
+def random_plain_system(rng: np.random.Generator, names: list[str]):
+    """Three plain restrictions on random names: rows that share columns or not, touch the
+    intercept or not, and weights that partly cancel within a row."""
+    rows = []
+    for _ in range(3):
+        picked = rng.choice(names, size=int(rng.integers(1, 4)), replace=False)
+        expr = 0
+        for name in picked:
+            expr = expr + float(rng.integers(-3, 4) or 1) * lc.coef(str(name))
+        if rng.random() < 0.2:  # two names of one column, in part cancelling
+            expr = expr + 0.5 * lc.coef(str(picked[0]))
+        rows.append(expr == float(rng.integers(-2, 3)))
+    return rows[0] & rows[1] & rows[2]
+
+
+def test_row_layout_gives_the_checks_of_the_full_rows(cars):
+    # brute force: the layout against C itself, and check_rows with the layout against
+    # check_rows reading C (the intercept column and the greedy pass on every system)
+    _, _, fit = cars
+    sol, names = fit.solution, list(fit.names)
+    rng = np.random.default_rng(31)
+    apart_seen = {True: 0, False: 0}
+    for _ in range(300):
+        system = random_plain_system(rng, names)
+        resolved = system.resolved(fit.resolver)
+        c, d, labels, layout = resolved
+        want_c, want_d, want_labels = system._resolve_rows(fit.resolver)
+        assert np.array_equal(c, want_c) and np.array_equal(d, want_d)
+        assert list(labels) == want_labels
+        nz = c != 0
+        assert layout.touched == frozenset(np.flatnonzero(nz.any(axis=0)).tolist())
+        assert sorted(layout.positions) == np.flatnonzero(nz.ravel()).tolist()
+        assert layout.apart == bool((nz.sum(axis=0) <= 1).all())
+        apart_seen[layout.apart] += 1
+        try:
+            full = check_rows(sol, c, d, want_labels, names)
+        except LincombError as exc:  # contradictory rows: the same error either way
+            with pytest.raises(type(exc)) as got:
+                check_rows(sol, c, d, labels, names, layout=layout)
+            assert str(got.value) == str(exc)
+            continue
+        fast = check_rows(sol, c, d, labels, names, layout=layout)
+        assert np.array_equal(fast[0], full[0])
+        assert fast[1].independent.tolist() == full[1].independent.tolist()
+        assert fast[1].dependencies == full[1].dependencies
+    assert min(apart_seen.values()) > 30  # both kinds of system were drawn
+
+
+def test_row_layout_leaves_underflowing_rows_to_the_greedy_pass():
+    # a weight that the column scale takes below the smallest subnormal is zero in decision
+    # coordinates: the row is empty there and the greedy pass, not the layout, decides
+    rng = np.random.default_rng(4)
+    x = np.c_[np.ones(40), rng.normal(size=40) * 1e150, rng.normal(size=40)]
+    fit = lc.fit_arrays(x, rng.normal(size=40))
+    system = (lc.coef("x1") * 5e-324 == 0) & (lc.coef("x2") == 0)
+    c, d, labels, layout = system.resolved(fit.resolver)
+    assert layout.apart and (c[0] / fit.solution.scale == 0).all()
+    fast = check_rows(fit.solution, c, d, labels, fit.names, layout=layout)
+    full = check_rows(fit.solution, c, d, list(labels), fit.names)
+    assert fast[1].independent.tolist() == full[1].independent.tolist() == [1]
+    assert fast[1].dependencies == full[1].dependencies == {0: {}}
+
+
+def test_labels_are_written_when_first_read(cars):
+    _, _, fit = cars
+    system = (lc.coef("wt") == 0) & (lc.coef("qsec") - lc.coef("drat") == 1).labelled("gap")
+    res = fit.wald(system)
+    assert res._labels._written is None  # a loop that keeps only p-values writes no label
+    assert res.labels == ("wt = 0", "gap") == tuple(fit.resolve(system)[2])
+    assert res.row_frame()["restriction"].tolist() == ["wt = 0", "gap"]
+    # errors still name the rows
+    with pytest.raises(LincombError, match=r"row 1 \(2\*wt = 1\)"):
+        fit.wald((lc.coef("wt") == 0) & (2 * lc.coef("wt") == 1))
+
+
+@pytest.mark.parametrize("k", [3, 64, 65, 200])
+@pytest.mark.parametrize("zero", [0.0, -0.0])
+def test_triangular_solves_refuse_a_zero_on_the_diagonal_at_every_size(k, zero):
+    # both ways of searching the diagonal (a list for short ones, the array otherwise)
+    from lincomb._core.triangular import upper_solve
+    from lincomb.errors import SingularFactorError
+
+    r = np.triu(np.random.default_rng(k).normal(size=(k, k)) / k, 1) + 3 * np.eye(k)
+    b = np.ones(k)
+    np.testing.assert_allclose(r.T @ upper_solve(r, b, trans=True), b, rtol=1e-10)
+    r[k - 2, k - 2] = zero
+    with pytest.raises(SingularFactorError, match=f"zero at diagonal {k - 2}"):
+        upper_solve(r, b)
+
+
 # -- names, stacks, lazy attributes -------------------------------------------------------------
 def test_unknown_names_raise_every_time_and_known_ones_match_the_index(cars):
     _, _, fit = cars

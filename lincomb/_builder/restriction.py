@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from itertools import chain
 from operator import attrgetter
 from types import NotImplementedType
-from typing import Any, NamedTuple, Protocol, TypeGuard, cast
+from typing import Any, NamedTuple, Protocol, TypeGuard, cast, overload
 
 import numpy as np
 import pandas as pd
@@ -781,9 +781,32 @@ class RestrictionSystem:
         >>> c.shape, d.tolist(), labels[-1]
         ((4, 4), [0.0, 0.0, 0.0, 500.0], 'Intercept = 500')
         """
+        c, d, labels, _layout = self.resolved(index)
+        return c, d, list(labels)
+
+    def resolved(self, index: Resolver) -> Resolved:
+        """:meth:`resolve` for the test routes: the labels are written when first read, and
+        a system of plain restrictions says which columns its rows use.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> index = lc.fit("fill_g ~ line", lc.datasets.fill_lines()).index
+        >>> r = ((lc.coef("line[T.L2]") == 0) & (lc.coef("line[T.L3]") == 1)).resolved(index)
+        >>> r.layout.touched, r.layout.apart, list(r.labels)
+        (frozenset({1, 2}), True, ['line[T.L2] = 0', 'line[T.L3] = 1'])
+        """
         items = self._items
         if items and all(type(item) is Restriction for item in items):
             return _resolve_restrictions(items, index)  # type: ignore[arg-type]
+        c, d, labels = self._resolve_rows(index)
+        return Resolved(c, d, labels, None)
+
+    def _resolve_rows(
+        self, index: Resolver
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
+        """The general path of :meth:`resolve`: every item gives its rows."""
+        items = self._items
         rows: list[NDArray[np.float64]] = []
         ds: list[float] = []
         labels: list[str] = []
@@ -829,23 +852,121 @@ def _concat(a: _Flat, b: _Flat) -> _Flat:
     return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
 
 
-def _resolve_restrictions(
-    items: Sequence[Restriction], index: Resolver
-) -> tuple[NDArray[np.float64], NDArray[np.float64], list[str]]:
-    """:meth:`RestrictionSystem.resolve` for a system of plain restrictions (one row each).
+class RowLayout(NamedTuple):
+    """Which columns the rows of a resolved system of plain restrictions use.
 
-    The rows are summed in place into one ``C`` (in the order :meth:`Expr.row` adds them) and
-    checked in turn, so the values and the first error raised are those of the general path,
-    without a row array, a generator and a stacking pass per restriction.
+    Attributes
+    ----------
+    touched : frozenset of int
+        Columns with a nonzero weight in some row.
+    apart : bool
+        The rows use disjoint sets of columns and every weight is finite, so that rows in
+        any coordinates that scale columns by finite nonzero factors are exactly orthogonal
+        (when no entry over- or underflows; see :func:`lincomb._fit.restriction_rows.check_rows`).
+    positions : tuple of int
+        Flat positions in ``C`` of the nonzero weights, row by row (in a row, in the order of
+        its terms).
     """
-    c = np.zeros((len(items), len(index.names)))
-    for row, item in zip(c, items, strict=True):
+
+    touched: frozenset[int]
+    apart: bool
+    positions: tuple[int, ...]
+
+
+class Resolved(NamedTuple):
+    """A system resolved on a fit's coefficients (see :meth:`RestrictionSystem.resolved`).
+
+    Attributes
+    ----------
+    c, d : ndarray
+        As :meth:`RestrictionSystem.resolve` gives them.
+    labels : sequence of str
+        The row labels; for plain restrictions written when first read.
+    layout : RowLayout or None
+        The columns the rows use, for a system of plain restrictions; None otherwise.
+    """
+
+    c: NDArray[np.float64]
+    d: NDArray[np.float64]
+    labels: Sequence[str]
+    layout: RowLayout | None
+
+
+class RowLabels(Sequence[str]):
+    """The labels of plain restrictions, written when first read (a test whose labels nobody
+    reads, as in a loop that keeps only p-values, does not pay for writing them).
+
+    Examples
+    --------
+    >>> from lincomb import coef
+    >>> labels = RowLabels(((coef("a") == 1), (coef("b") == 2).labelled("b at two")))
+    >>> len(labels), labels[1], list(labels)
+    (2, 'b at two', ['a = 1', 'b at two'])
+    """
+
+    __slots__ = ("_items", "_written")
+
+    def __init__(self, items: Sequence[Restriction]) -> None:
+        self._items = items
+        self._written: tuple[str, ...] | None = None
+
+    def _all(self) -> tuple[str, ...]:
+        if self._written is None:
+            self._written = tuple(
+                item.text() if item.label is None else item.label for item in self._items
+            )
+        return self._written
+
+    @overload
+    def __getitem__(self, i: int) -> str: ...
+    @overload
+    def __getitem__(self, i: slice) -> tuple[str, ...]: ...
+    def __getitem__(self, i: int | slice) -> str | tuple[str, ...]:
+        return self._all()[i]
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._all())
+
+    def __repr__(self) -> str:
+        return repr(list(self._all()))
+
+
+def _resolve_restrictions(items: Sequence[Restriction], index: Resolver) -> Resolved:
+    """:meth:`RestrictionSystem.resolved` for a system of plain restrictions (one row each).
+
+    Each row's weights are summed per column in Python (in the order :meth:`Expr.row` adds
+    them, from 0.0, so the sums are those of the general path to the bit) and checked in turn,
+    so the values and the first error raised are those of the general path, without a row
+    array, a generator and a stacking pass per restriction; ``C`` is filled by one ``put``.
+    """
+    p = len(index.names)
+    positions: list[int] = []
+    weights: list[float] = []
+    touched: set[int] = set()
+    apart = True
+    for i, item in enumerate(items):
+        row: dict[int, float] = {}
         for ref, w in _terms_of(item).items():
-            row[_ref_column(ref, index)] += w
-        if not row.any():
+            j = _ref_column(ref, index)
+            row[j] = row.get(j, 0.0) + w
+        start = len(positions)
+        for j, w in row.items():
+            if w != 0:  # NaN (from an overflowed product) counts as nonzero, as in numpy
+                if j in touched or not math.isfinite(w):
+                    apart = False
+                touched.add(j)
+                positions.append(i * p + j)
+                weights.append(w)
+        if len(positions) == start:
             raise _cancelled(item)
+    c = np.zeros((len(items), p))
+    c.put(positions, weights)
     d = np.array([item.target for item in items])
-    return c, d, [item.text() if item.label is None else item.label for item in items]
+    layout = RowLayout(frozenset(touched), apart, tuple(positions))
+    return Resolved(c, d, RowLabels(items), layout)
 
 
 def from_matrix(

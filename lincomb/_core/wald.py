@@ -50,7 +50,9 @@ class WaldCore:
     chol: Array
 
 
-def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> WaldCore:
+def wald_from_root(
+    delta: Array, root: Array, independent: NDArray[np.intp], chol: Array | None = None
+) -> WaldCore:
     """Quadratic form ``δ_Kᵀ (Vᵀ V)⁻¹ δ_K`` over the independent rows ``K`` of a system.
 
     Parameters
@@ -61,6 +63,9 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
         A matrix ``V`` with ``Cov(Cβ̂) = Vᵀ V`` (scale included).
     independent : (q,) ndarray of int
         Rows to use (from :func:`analyze_rows`).
+    chol : (q, q) ndarray, optional
+        The triangular factor of ``root[:, independent]`` when the caller has made it already
+        (a covariance rank check makes the same one); made here otherwise.
 
     Notes
     -----
@@ -85,7 +90,8 @@ def wald_from_root(delta: Array, root: Array, independent: NDArray[np.intp]) -> 
     q = independent.size
     # every row independent (``independent`` is then 0 .. m-1): no copy of the root
     vk = root if q == root.shape[1] else root[:, independent]
-    chol = triangular_factor(vk)
+    if chol is None:
+        chol = triangular_factor(vk)
     if q:
         sol = upper_solve(chol, delta if vk is root else delta[independent], trans=True)
         quad = float(sol @ sol)

@@ -173,22 +173,23 @@ class CovarianceEstimate:
 
 def check_rank(
     root: Array, independent: NDArray[np.intp], labels: Sequence[str], estimate: CovarianceEstimate
-) -> None:
+) -> Array | None:
     """Raise :class:`~lincomb.errors.SingularCovarianceError` when the covariance of the
     independent rows is singular under ``estimate`` (see :data:`COV_RANK_TOL`).
 
     The classical covariance of independent, estimable rows is never singular, so it is not
-    checked.
+    checked (None is returned).  Otherwise the triangular factor of the independent columns of
+    ``root`` that the check made is returned, for :func:`lincomb._core.wald_from_root` to reuse.
     """
     if estimate.method == "classical" or independent.size == 0:
-        return
+        return None
     vk = root[:, independent]
     se = np.linalg.norm(vk, axis=0)
     chol = core.triangular_factor(vk)
     diag = np.abs(np.diag(chol))
     bad = np.flatnonzero(diag <= COV_RANK_TOL * np.maximum(se, np.finfo(float).tiny))
     if not bad.size:
-        return
+        return chol
     i = int(independent[bad[0]])
     rank = independent.size - bad.size
     why = ""

@@ -24,6 +24,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
+from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
@@ -444,9 +445,22 @@ class LinearFit(ResolvesRestrictions, ReportTables):
         >>> analysis.independent.tolist(), list(analysis.dependencies)
         ([0], [1])
         """
-        c, d, labels = self.resolve(restrictions)
+        c, d, labels, cu, analysis = self._prepared(restrictions)
+        return c, d, list(labels), cu, analysis
+
+    def _prepared(
+        self, restrictions: object
+    ) -> tuple[
+        NDArray[np.float64],
+        NDArray[np.float64],
+        Sequence[str],
+        NDArray[np.float64],
+        core.RowAnalysis,
+    ]:
+        """:meth:`prepare` with the labels left to be written when first read."""
+        c, d, labels, layout = as_system(restrictions).resolved(self.resolver)
         cu, analysis = check_rows(
-            self._sol, c, d, labels, self.names, hint=lambda: aliasing_hint(self)
+            self._sol, c, d, labels, self.names, hint=lambda: aliasing_hint(self), layout=layout
         )
         return c, d, labels, cu, analysis
 
@@ -507,13 +521,13 @@ class LinearFit(ResolvesRestrictions, ReportTables):
         """
         vcov = self.evaluate_covariance(covariance)
         ref = check_reference(reference)
-        c, d, labels, cu, analysis = self.prepare(restrictions)
+        c, d, labels, cu, analysis = self._prepared(restrictions)
         sol = self._sol
         cu_kept = cu if self._kept_in_order else cu[:, sol.kept]
         root = vcov.root(cu_kept)
         est = cu_kept @ sol.theta
-        check_rank(root, analysis.independent, labels, vcov)
-        wc = core.wald_from_root(est - d, root, analysis.independent)
+        chol = check_rank(root, analysis.independent, labels, vcov)
+        wc = core.wald_from_root(est - d, root, analysis.independent, chol)
         k = analysis.independent
         dist, stat, df_error, p_value, row_df = test_reference(
             vcov, wc.quad, wc.rank, cu_kept, k, ref
@@ -563,7 +577,7 @@ class LinearFit(ResolvesRestrictions, ReportTables):
         True
         """
         self.check_variance()
-        c, d, labels, cu, analysis = self.prepare(restrictions)
+        c, d, labels, cu, analysis = self._prepared(restrictions)
         sol = self._sol
         k = analysis.independent
         root_k = sol.root(cu[k][:, sol.kept])

@@ -6,6 +6,7 @@ rules and the wording of their errors are the same everywhere.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING
 
@@ -13,6 +14,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb import _core as core
+from lincomb._builder.restriction import RowLayout
 from lincomb._model.row_checks import unused_level_hint
 from lincomb.errors import InconsistentRestrictionError, NotEstimableError
 
@@ -60,12 +62,17 @@ def check_rows(
     names: Sequence[str],
     where: str = "this rank-deficient design",
     hint: str | Callable[[], str] = "",
+    layout: RowLayout | None = None,
 ) -> tuple[NDArray[np.float64], core.RowAnalysis]:
     """Map ``C`` to working coordinates and refuse contradictory or non-estimable rows.
 
     Shared by every path that tests or imposes restrictions (fits, planned designs), so the
     rules and the wording of their errors are the same everywhere.  ``hint`` ends the message
     of a non-estimable row: a string, or a function that gives it (called only then).
+    ``layout`` (from :meth:`~lincomb.RestrictionSystem.resolved`, for plain restrictions) says
+    which columns the rows use: whether a row involves the intercept is then read from it, and
+    rows on disjoint columns whose scaled weights stay finite and nonzero are independent
+    without :func:`~lincomb._core.analyze_rows` (whose answer for them is known: all kept).
 
     Returns
     -------
@@ -93,13 +100,17 @@ def check_rows(
     """
     c = np.asarray(c, dtype=np.float64)
     j = sol.intercept
-    if j is None or not c[:, j].any():
+    if j is None or not (j in layout.touched if layout is not None else c[:, j].any()):
         # no row involves the intercept: working and decision rows are both C / scale
         cu = cd = c / sol.scale
+        if layout is not None and layout.apart and _stay_apart(cd.take(layout.positions)):
+            analysis = core.RowAnalysis(np.arange(c.shape[0], dtype=np.intp), {}, [])
+        else:
+            analysis = core.analyze_rows(cd, d, core.ROW_TOL)
     else:
         cu, cd = sol.to_working(c), sol.decision_rows(c)
-    # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
-    analysis = core.analyze_rows(cd, d, core.ROW_TOL)
+        # redundancy and consistency in decision coordinates (invariant to column shifts/scales)
+        analysis = core.analyze_rows(cd, d, core.ROW_TOL)
     refuse_inconsistent(analysis, labels)
     if sol.null_basis.shape[1] == 0:  # a full-rank design: every row is estimable
         return cu, analysis
@@ -119,6 +130,12 @@ def check_rows(
             + (hint if isinstance(hint, str) else hint())
         )
     return cu, analysis
+
+
+def _stay_apart(weights: NDArray[np.float64]) -> bool:
+    """True when every scaled weight of rows on disjoint columns is finite and nonzero: the
+    rows are then exactly orthogonal, and each is nonzero."""
+    return all(w != 0 and -math.inf < w < math.inf for w in weights.tolist())
 
 
 def aliasing_hint(fit: LinearFit) -> str:

@@ -158,8 +158,8 @@ def overview(fit: LinearFit, *, reference: str = "F") -> FitOverview:
         ck = np.eye(sol.rank)[tested]
         est = ck @ sol.theta
         root = vcov.root(ck)
-        check_rank(root, np.arange(tested.size), ["overall"] * tested.size, vcov)
-        wc = core.wald_from_root(est, root, np.arange(tested.size))
+        chol = check_rank(root, np.arange(tested.size), ["overall"] * tested.size, vcov)
+        wc = core.wald_from_root(est, root, np.arange(tested.size), chol)
         _d, stat, df_err, p = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     else:
         stat, p = float("nan"), float("nan")

@@ -227,10 +227,10 @@ def term_tests(
         root = vcov.root(c)
         independent = np.arange(len(mine))
         try:
-            check_rank(root, independent, [t] * len(mine), vcov)
+            chol = check_rank(root, independent, [t] * len(mine), vcov)
         except SingularCovarianceError:
             continue  # the estimator cannot test this many directions: no statistic
-        wc = core.wald_from_root(est, root, independent)
+        wc = core.wald_from_root(est, root, independent, chol)
         _dist, stat[i], _df, pval[i] = reference_result(wc.quad, wc.rank, vcov.df_error, ref)
     return TermTests(
         terms=tuple(labels),

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from lincomb._builder.restriction import RowLabels
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import (
     batch_html,
@@ -94,7 +95,6 @@ class WaldTest(WaldRows, WaldResult):
     True
     """
 
-    labels: tuple[str, ...]
     stat: float
     df_test: int
     df_error: float
@@ -108,6 +108,21 @@ class WaldTest(WaldRows, WaldResult):
     _c: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
     _names: tuple[str, ...] = field(default=(), repr=False, compare=False)
     _root: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+    # the row labels, or a sequence that writes them when first read (see ``labels``)
+    _labels: Sequence[str] = field(default=(), repr=False, compare=False)
+
+    @cached_property
+    def labels(self) -> tuple[str, ...]:
+        """Each row written in coefficient names (or its label), written when first read.
+
+        Examples
+        --------
+        >>> import lincomb as lc
+        >>> f = lc.fit("fill_g ~ line", lc.datasets.fill_lines())
+        >>> f.wald(lc.coef("line[T.L2]") == lc.coef("line[T.L3]")).labels
+        ('line[T.L2] - line[T.L3] = 0',)
+        """
+        return tuple(self._labels)
 
     @cached_property
     def estimate_covariance(self) -> NDArray[np.float64] | None:
@@ -374,11 +389,12 @@ def assemble_wald_test(
 
     ``numbers`` holds the rows' standard errors and ratios and the rank; ``referred`` is
     ``(distribution, statistic, df_error, p)`` under the test's reference; ``target`` is
-    copied, so the result never shares it with the caller.
+    copied, so the result never shares it with the caller.  Labels not yet written
+    (:class:`~lincomb._builder.restriction.RowLabels`) are written when first read.
     """
     dist, stat, df_error, p_value = referred
     return WaldTest(
-        labels=tuple(labels),
+        _labels=labels if isinstance(labels, RowLabels) else tuple(labels),
         estimate=estimate,
         target=target.copy(),
         se=numbers.std_error,
