@@ -66,7 +66,7 @@ def test_missing_rows_are_dropped_alike_in_frame_and_chunks(warpbreaks: pd.DataF
 
 
 def test_unseen_levels_are_refused_everywhere(warpbreaks: pd.DataFrame) -> None:
-    enc = FormulaEncoder.from_data("breaks ~ wool + tension", warpbreaks)
+    enc = FormulaEncoder.learn("breaks ~ wool + tension", warpbreaks)[0]
     odd = warpbreaks.iloc[:3].assign(tension=["L", "Q", "H"])
     with pytest.raises(UnseenLevelError, match="chunk 9 holds a factor level the encoding lacks"):
         enc.encode(odd, where="chunk 9")
@@ -74,9 +74,9 @@ def test_unseen_levels_are_refused_everywhere(warpbreaks: pd.DataFrame) -> None:
         enc.encode_new(odd)
     with pytest.raises(UnseenLevelError, match="could not evaluate the model"):
         enc.encode_grid(pd.DataFrame({"wool": ["A"], "tension": ["Q"]}))
-    declared = FormulaEncoder.from_data(
+    declared = FormulaEncoder.learn(
         "breaks ~ wool + tension", warpbreaks, levels={"tension": ["L", "M", "H"]}
-    )
+    )[0]
     with pytest.raises(UnseenLevelError, match=r"holds level\(s\) \['Q'\] not among"):
         declared.encode(odd, where="chunk 2")
 
@@ -106,7 +106,7 @@ def test_declared_levels_without_data(warpbreaks: pd.DataFrame) -> None:
     np.testing.assert_array_equal(enc.encode(warpbreaks).x, _by_hand(warpbreaks))
     with pytest.raises(InputError, match="has no levels"):
         empty_text = pd.DataFrame({"breaks": [], "wool": pd.Series([], dtype=str)})
-        FormulaEncoder.from_data("breaks ~ wool", empty_text)
+        FormulaEncoder.learn("breaks ~ wool", empty_text)[0]
 
 
 def test_right_hand_side_only_formulas(warpbreaks: pd.DataFrame) -> None:
@@ -133,7 +133,7 @@ def test_right_hand_side_only_formulas(warpbreaks: pd.DataFrame) -> None:
 
 
 def test_grid_and_codings_for_contrasts(warpbreaks: pd.DataFrame) -> None:
-    enc = FormulaEncoder.from_data("breaks ~ wool * tension", warpbreaks)
+    enc = FormulaEncoder.learn("breaks ~ wool * tension", warpbreaks)[0]
     assert enc.codings()["tension"][0] == ("L", "M", "H")
     assert enc.categoricals()["wool"] == [("wool", ("A", "B"))]
     assert enc.term_variables()["wool:tension"] == frozenset({"wool", "tension"})
@@ -144,7 +144,7 @@ def test_grid_and_codings_for_contrasts(warpbreaks: pd.DataFrame) -> None:
 
 
 def test_encoder_pickles_and_is_frozen(warpbreaks: pd.DataFrame) -> None:
-    enc = FormulaEncoder.from_data("breaks ~ wool + tension", warpbreaks)
+    enc = FormulaEncoder.learn("breaks ~ wool + tension", warpbreaks)[0]
     again = pickle.loads(pickle.dumps(enc))
     np.testing.assert_array_equal(again.encode(warpbreaks).x, enc.encode(warpbreaks).x)
     with pytest.raises(AttributeError):

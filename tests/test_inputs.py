@@ -165,7 +165,7 @@ def test_bad_formula_and_data(breaks):
         lc.fit(FORMULA, breaks.to_dict())
     with pytest.raises(InputError, match="could not build the design.*nosuch"):
         lc.fit("breaks ~ nosuch", breaks)
-    with pytest.raises(InputError, match="weights column 'wgt' is not in data"):
+    with pytest.raises(InputError, match=r"data lacks column\(s\) \['wgt'\] that weights= names"):
         lc.fit(FORMULA, breaks, weights="wgt")
     with pytest.raises(InputError, match="weights has 2 entries for 54 rows"):
         lc.fit(FORMULA, breaks, weights=[1.0, 2.0])

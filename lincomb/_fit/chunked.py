@@ -53,6 +53,7 @@ from lincomb._fit.linear import LinearFit, fit_from_moments
 from lincomb._model.design import CoefficientIndex, Design, design_from_arrays
 from lincomb._model.encoder import EncodedRows, FormulaEncoder
 from lincomb._model.formula_text import require_response
+from lincomb._model.row_checks import require_frame
 from lincomb._settings import blas_limit, worker_threads
 from lincomb.errors import InputError, MissingValueError
 
@@ -130,7 +131,7 @@ class FrameRows:
     >>> import pandas as pd
     >>> from lincomb._model.encoder import FormulaEncoder
     >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, None, 2]})
-    >>> FrameRows(FormulaEncoder.from_data("y ~ x", df)).encode(df, "chunk 0").x.shape
+    >>> FrameRows(FormulaEncoder.learn("y ~ x", df)[0]).encode(df, "chunk 0").x.shape
     (2, 2)
     """
 
@@ -282,10 +283,7 @@ def fit_chunks(
         where = f"chunk {k}"
         with blas_limit(threads):
             if recipe is None:
-                if not isinstance(frame, pd.DataFrame):
-                    raise InputError(
-                        f"{where} is a {type(frame).__name__}, not a pandas DataFrame."
-                    )
+                frame = require_frame(frame, where)
                 if FormulaEncoder.complete_rows(formula, frame, weights) == 0:
                     # no row to learn the encoding from yet
                     if missing == "refuse" and len(frame):

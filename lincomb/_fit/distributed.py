@@ -400,9 +400,9 @@ def fit_dask(
     meta = make_meta(data)  # the empty frame of the right columns and dtypes
     FormulaEncoder.check_response(formula, meta)  # before the pass that finds levels
     all_levels = _levels_of(data, formula, weights, dict(levels or {}), dask, scheduler)
-    encoder = FormulaEncoder.from_data(
+    encoder = FormulaEncoder.learn(
         formula, meta, levels=all_levels, weights=weights, where="the data's metadata"
-    )
+    )[0]
     encoder.check_stateless()
     recipe = FrameRows(encoder, weights, missing)
     rec_d = dask.delayed(recipe, pure=True)

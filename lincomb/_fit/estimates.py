@@ -435,7 +435,7 @@ def _index(
     if formula is not None and data is not None:
         if terms is not None:
             raise InputError("give either terms= or formula= and data=, not both.")
-        encoder = FormulaEncoder.from_data(formula, data)
+        encoder = FormulaEncoder.learn(formula, data)[0]
         if list(encoder.index.names) != names:
             raise InputError(
                 f"the formula's coefficients {list(encoder.index.names)} differ from the"

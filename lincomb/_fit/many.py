@@ -81,6 +81,7 @@ from lincomb._fit.responses import (
 )
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
 from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
+from lincomb._model.row_checks import require_columns, require_frame
 from lincomb._results.many import (
     SCREEN_COLUMNS,
     SCREEN_ROW_COLUMNS,
@@ -757,8 +758,7 @@ def fit_many(
     >>> mf.status.tolist()
     ['ok', 'ok']
     """
-    if not isinstance(data, pd.DataFrame):
-        raise InputError(f"data must be a pandas DataFrame, got {type(data).__name__}.")
+    data = require_frame(data, "data")
     if not isinstance(design, str):
         raise InputError(f"design must be a formula string like '~ a + b', got {design!r}.")
     rhs = design.strip()
@@ -775,11 +775,7 @@ def fit_many(
     as_names = isinstance(responses, (list, tuple)) and all(isinstance(s, str) for s in responses)
     if as_names:
         names = _unique_names(responses, "response names")  # type: ignore[arg-type]
-        absent = [s for s in names if s not in data.columns]
-        if absent:
-            close = difflib.get_close_matches(absent[0], [str(c) for c in data.columns], n=4)
-            hint = f" Did you mean one of: {close}?" if close else ""
-            raise InputError(f"response column(s) {absent[:5]} not in data.{hint}")
+        require_columns(data, names, "data", "responses= names")
         if response_names is not None:
             raise InputError("response_names is for array responses; columns keep their names.")
     design_vars = FormulaEncoder.columns_read(f"~ {rhs}", data)
@@ -794,9 +790,7 @@ def fit_many(
         refuse_non_numeric_responses(responses, list(responses.columns))
     small = data[design_vars].copy(deep=False)
     if isinstance(weights, str):
-        if weights not in data.columns:
-            close = difflib.get_close_matches(weights, [str(c) for c in data.columns])
-            raise InputError(f"weights column {weights!r} is not in data. Close: {close}")
+        require_columns(data, [weights], "data", "weights= names")
         small[weights] = data[weights]
     dsg = design_from_formula(f"~ {rhs}", small, weights=weights, missing=missing)
     positions = None

@@ -49,6 +49,8 @@ from lincomb._model.row_checks import (
     _unused_levels,
     cast_levels,
     refuse_non_numeric_responses,
+    require_columns,
+    require_frame,
     screened_rows,
 )
 from lincomb.errors import InputError, MissingValueError, UnseenLevelError
@@ -86,7 +88,7 @@ class EncodedRows:
     --------
     >>> import pandas as pd
     >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, None, 2]})
-    >>> rows = FormulaEncoder.from_data("y ~ x", df).encode(df)
+    >>> rows = FormulaEncoder.learn("y ~ x", df)[0].encode(df)
     >>> rows.x.shape, list(rows.dropped)
     ((2, 2), [1])
     """
@@ -107,7 +109,7 @@ class EncodedRows:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2], "x": [0.5, 1]})
-        >>> FormulaEncoder.from_data("y ~ x", df).encode(df).response.tolist()
+        >>> FormulaEncoder.learn("y ~ x", df)[0].encode(df).response.tolist()
         [1.0, 2.0]
         """
         if self.y is None:
@@ -123,7 +125,7 @@ def _data_vars(variables: Any) -> set[str]:
 class FormulaEncoder:
     """A formula's encoding, fixed once, applied to any frame.
 
-    Build one with :meth:`from_data` (a sample of the data, possibly empty when the levels are
+    Build one with :meth:`learn` (a sample of the data, possibly empty when the levels are
     declared) or :meth:`from_levels`; :meth:`learn` builds it and encodes the sample's rows in
     the same pass.
 
@@ -150,12 +152,12 @@ class FormulaEncoder:
     --------
     >>> import pandas as pd
     >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"], "x": [0.5, 1, 2, 3]})
-    >>> enc = FormulaEncoder.from_data("y ~ g + x", df, levels={"g": ["a", "b", "c"]})
+    >>> enc = FormulaEncoder.learn("y ~ g + x", df, levels={"g": ["a", "b", "c"]})[0]
     >>> enc.index.names, enc.response
     (('Intercept', 'g[T.b]', 'g[T.c]', 'x'), 'y')
     >>> enc.encode(df.iloc[:2], where="chunk 1").x.shape
     (2, 4)
-    >>> FormulaEncoder.from_data("~ g", df).response is None
+    >>> FormulaEncoder.learn("~ g", df)[0].response is None
     True
     """
 
@@ -201,6 +203,8 @@ class FormulaEncoder:
         chunked fit), the encoder keeps a :class:`~lincomb._model.column_plan.ColumnPlan` if
         the formula allows one and it reproduces formulaic's design of ``data`` exactly;
         :meth:`encode` then builds the design without formulaic's fixed cost per call.
+        ``data`` may be an empty frame (a Dask DataFrame's metadata) when every categorical
+        variable has declared levels: the encoder alone is then what is wanted.
 
         Examples
         --------
@@ -209,6 +213,9 @@ class FormulaEncoder:
         >>> enc, rows = FormulaEncoder.learn("y ~ g", df)
         >>> enc.index.names, rows.x.tolist(), list(rows.dropped)
         (('Intercept', 'g[T.b]'), [[1.0, 0.0], [1.0, 1.0]], [2])
+        >>> empty = pd.DataFrame({"y": [], "g": [], "x": []})
+        >>> FormulaEncoder.learn("y ~ g + x", empty, levels={"g": ["a", "b"]})[0].index.names
+        ('Intercept', 'g[T.b]', 'x')
         """
         import formulaic
 
@@ -216,20 +223,12 @@ class FormulaEncoder:
         if not rhs:
             raise InputError(f"formula {formula!r} has no right-hand side terms.")
         label = where or "data"
-        if not isinstance(data, pd.DataFrame):
-            what = f"{where} is a" if where else "data must be a pandas DataFrame, got"
-            tail = ", not a pandas DataFrame." if where else "."
-            raise InputError(f"{what} {type(data).__name__}{tail}")
+        data = require_frame(data, label)
         if missing not in ("skip", "refuse"):
             raise InputError(f"missing must be 'skip' or 'refuse', got {missing!r}.")
         data = _string_names(data, where)
         declared = {k: tuple(v) for k, v in (levels or {}).items()}
-        unknown = [v for v in declared if v not in data.columns]
-        if unknown:
-            raise InputError(
-                f"levels were declared for {unknown}, which {label} does not have as columns."
-                f" Columns: {[str(c) for c in data.columns]}"
-            )
+        require_columns(data, list(declared), label, "levels= declares")
         variables = _required(formula, data)
         if "Intercept" in variables:
             raise InputError(
@@ -315,30 +314,6 @@ class FormulaEncoder:
         return encoder, rows
 
     @classmethod
-    def from_data(
-        cls,
-        formula: str,
-        data: pd.DataFrame,
-        *,
-        levels: Mapping[str, Sequence[Any]] | None = None,
-        weights: object = None,
-        where: str | None = None,
-    ) -> FormulaEncoder:
-        """The encoding of ``formula`` learned on ``data`` (with ``levels`` applied to it).
-
-        ``data`` may be an empty frame (a Dask DataFrame's metadata) when every categorical
-        variable has declared levels.
-
-        Examples
-        --------
-        >>> import pandas as pd
-        >>> empty = pd.DataFrame({"y": [], "g": [], "x": []})
-        >>> FormulaEncoder.from_data("y ~ g + x", empty, levels={"g": ["a", "b"]}).index.names
-        ('Intercept', 'g[T.b]', 'x')
-        """
-        return cls.learn(formula, data, levels=levels, weights=weights, where=where)[0]
-
-    @classmethod
     def from_levels(cls, formula: str, levels: Mapping[str, Sequence[Any]]) -> FormulaEncoder:
         """The encoding of ``formula`` from declared levels alone (other variables numeric).
 
@@ -362,9 +337,7 @@ class FormulaEncoder:
         cols = {v: pd.Series([], dtype=np.float64) for v in required}
         for v, lv in levels.items():
             cols[v] = pd.Series(pd.Categorical([], categories=list(lv)))
-        return cls.from_data(
-            formula, pd.DataFrame(cols), levels=levels, where="the declared levels"
-        )
+        return cls.learn(formula, pd.DataFrame(cols), levels=levels, where="the declared levels")[0]
 
     @staticmethod
     def categorical_variables(
@@ -482,7 +455,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "x": [0.5, 1, 2]})
-        >>> FormulaEncoder.from_data("y ~ center(x)", df).check_stateless()
+        >>> FormulaEncoder.learn("y ~ center(x)", df)[0].check_stateless()
         Traceback (most recent call last):
         ...
         lincomb.errors.InputError: the formula uses stateful transform(s) ['center(x)']: ...
@@ -503,7 +476,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"]})
-        >>> FormulaEncoder.from_data("y ~ g", df).codings()["g"][0]
+        >>> FormulaEncoder.learn("y ~ g", df)[0].codings()["g"][0]
         ('a', 'b', 'c')
         """
         return {
@@ -518,7 +491,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"]})
-        >>> FormulaEncoder.from_data("y ~ C(g)", df).categoricals()
+        >>> FormulaEncoder.learn("y ~ C(g)", df)[0].categoricals()
         {'g': [('C(g)', ('a', 'b', 'c'))]}
         """
         spec = self.rhs_spec
@@ -546,7 +519,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"], "x": [1.0, 0, 2]})
-        >>> tv = FormulaEncoder.from_data("y ~ g:x", df).term_variables()
+        >>> tv = FormulaEncoder.learn("y ~ g:x", df)[0].term_variables()
         >>> {t: sorted(v) for t, v in tv.items()}
         {'1': [], 'g:x': ['g', 'x']}
         """
@@ -574,23 +547,15 @@ class FormulaEncoder:
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3, 4], "g": ["a", "b", "a", "b"],
         ...                    "x": [0.5, None, 2, 3]})
-        >>> rows = FormulaEncoder.from_data("y ~ g + x", df).encode(df, where="chunk 1")
+        >>> rows = FormulaEncoder.learn("y ~ g + x", df)[0].encode(df, where="chunk 1")
         >>> rows.x.shape, list(rows.dropped)
         ((3, 3), [1])
         """
         import formulaic
 
-        if not isinstance(frame, pd.DataFrame):
-            raise InputError(
-                f"{where or 'data'} is a {type(frame).__name__}, not a pandas DataFrame."
-            )
+        frame = require_frame(frame, where or "data")
         need = list(self.variables) + ([weights] if isinstance(weights, str) else [])
-        absent = [v for v in need if v not in frame.columns]
-        if absent:
-            raise InputError(
-                f"{where or 'data'} lacks column(s) {absent} that the formula (or weights) uses."
-                f" It has: {[str(c) for c in frame.columns]}"
-            )
+        require_columns(frame, need, where or "data", "the formula (or weights) uses")
         frame = _string_names(frame, where)
         _, sub, w, na = screened_rows(frame, self.variables, weights, self.levels, missing, where)
         dropped = frame.index[na]
@@ -708,7 +673,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "a"]})
-        >>> enc = FormulaEncoder.from_data("y ~ g", df)
+        >>> enc = FormulaEncoder.learn("y ~ g", df)[0]
         >>> enc.encode_new(pd.DataFrame({"g": ["b"]})).to_numpy().tolist()
         [[1.0, 1.0]]
         >>> enc.encode_new(pd.DataFrame({"g": ["z"]}))
@@ -756,7 +721,7 @@ class FormulaEncoder:
         --------
         >>> import pandas as pd
         >>> df = pd.DataFrame({"y": [1.0, 2, 3], "g": ["a", "b", "c"], "x": [1.0, 0, 2]})
-        >>> enc = FormulaEncoder.from_data("y ~ g + x", df)
+        >>> enc = FormulaEncoder.learn("y ~ g + x", df)[0]
         >>> rows, names = enc.encode_grid(pd.DataFrame({"g": ["a", "b", "c"]}), ["g"])
         >>> names, rows.tolist()
         (('g[T.b]', 'g[T.c]'), [[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])

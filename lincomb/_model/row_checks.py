@@ -176,6 +176,48 @@ def _screen(
     return out
 
 
+def require_frame(obj: object, what: str) -> pd.DataFrame:
+    """``obj`` when it is a pandas DataFrame; otherwise an error naming ``what`` and the type.
+
+    Every route that takes a frame (a fit's data, a chunk, new data) refuses other types
+    with this one message.
+
+    Examples
+    --------
+    >>> require_frame({"y": [1.0]}, "chunk 3")
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: chunk 3 must be a pandas DataFrame, got dict.
+    """
+    if not isinstance(obj, pd.DataFrame):
+        raise InputError(f"{what} must be a pandas DataFrame, got {type(obj).__name__}.")
+    return obj
+
+
+def require_columns(frame: pd.DataFrame, wanted: Sequence[Any], label: str, asker: str) -> None:
+    """Refuse a frame that lacks columns in ``wanted``: the error names them, what asked for
+    them (``asker``), the frame's near matches and the columns it has (up to 20).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> frame = pd.DataFrame({"dose": [1.0], "site": ["a"]})
+    >>> require_columns(frame, ["dose", "sites"], "chunk 2", "the formula uses")
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: chunk 2 lacks column(s) ['sites'] that the formula uses.
+    Did you mean one of: ['site']? It has: ['dose', 'site']
+    """
+    absent = [v for v in wanted if v not in frame.columns]
+    if not absent:
+        return
+    have = [str(c) for c in frame.columns]
+    close = difflib.get_close_matches(str(absent[0]), have, n=4)
+    hint = f" Did you mean one of: {close}?" if close else ""
+    shown = have if len(have) <= 20 else [*have[:20], f"... {len(have)} in all"]
+    raise InputError(f"{label} lacks column(s) {absent[:5]} that {asker}.{hint} It has: {shown}")
+
+
 def _prefix(where: str | None) -> str:
     return f"{where}: " if where else ""
 
@@ -221,11 +263,7 @@ def _weights_series(frame: pd.DataFrame, weights: object, where: str | None) -> 
     if weights is None:
         return None
     if isinstance(weights, str):
-        if weights not in frame.columns:
-            close = difflib.get_close_matches(weights, [str(c) for c in frame.columns])
-            raise InputError(
-                f"weights column {weights!r} is not in {where or 'data'}. Close: {close}"
-            )
+        require_columns(frame, [weights], where or "data", "weights= names")
         series = frame[weights]
         if isinstance(series, pd.DataFrame):
             raise InputError(

@@ -27,6 +27,7 @@ from lincomb._core.checks import check_level
 from lincomb._covariance.estimate import CovarianceEstimate
 from lincomb._covariance.reference import check_reference, reference_df
 from lincomb._docstrings import fill_lines_doc
+from lincomb._model.row_checks import require_frame
 from lincomb._results.format import TableRepr, _num
 from lincomb._typing import Array
 from lincomb.errors import InputError
@@ -270,8 +271,7 @@ def expected_values(
             raise InputError("weights= is for new data; the fit's own rows use the fit's weights.")
         w_new: Array | None = np.ones(x.shape[0]) if w is None else w
     else:
-        if not isinstance(new, pd.DataFrame):
-            raise InputError(f"new data must be a pandas DataFrame, got {type(new).__name__}.")
+        new = require_frame(new, "new data")
         x = fit.encode(new).to_numpy(dtype=np.float64)
         labels = new.index
         w_new = _new_weights(fit, new, weights)
