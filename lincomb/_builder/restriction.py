@@ -25,12 +25,13 @@ from dataclasses import dataclass
 from itertools import chain
 from operator import attrgetter
 from types import NotImplementedType
-from typing import Any, NamedTuple, Protocol, TypeGuard, cast, overload
+from typing import Any, NamedTuple, Protocol, TypeGuard, cast
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from lincomb._builder.resolved import Resolved, RowLabels, RowLayout
 from lincomb.errors import (
     EmptyRestrictionError,
     RestrictionShapeError,
@@ -850,88 +851,6 @@ def _flat_rows(items: tuple[_Item, ...]) -> _Flat | None:
 
 def _concat(a: _Flat, b: _Flat) -> _Flat:
     return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
-
-
-class RowLayout(NamedTuple):
-    """Which columns the rows of a resolved system of plain restrictions use.
-
-    Attributes
-    ----------
-    touched : frozenset of int
-        Columns with a nonzero weight in some row.
-    apart : bool
-        The rows use disjoint sets of columns and every weight is finite, so that rows in
-        any coordinates that scale columns by finite nonzero factors are exactly orthogonal
-        (when no entry over- or underflows; see :func:`lincomb._fit.restriction_rows.check_rows`).
-    positions : tuple of int
-        Flat positions in ``C`` of the nonzero weights, row by row (in a row, in the order of
-        its terms).
-    """
-
-    touched: frozenset[int]
-    apart: bool
-    positions: tuple[int, ...]
-
-
-class Resolved(NamedTuple):
-    """A system resolved on a fit's coefficients (see :meth:`RestrictionSystem.resolved`).
-
-    Attributes
-    ----------
-    c, d : ndarray
-        As :meth:`RestrictionSystem.resolve` gives them.
-    labels : sequence of str
-        The row labels; for plain restrictions written when first read.
-    layout : RowLayout or None
-        The columns the rows use, for a system of plain restrictions; None otherwise.
-    """
-
-    c: NDArray[np.float64]
-    d: NDArray[np.float64]
-    labels: Sequence[str]
-    layout: RowLayout | None
-
-
-class RowLabels(Sequence[str]):
-    """The labels of plain restrictions, written when first read (a test whose labels nobody
-    reads, as in a loop that keeps only p-values, does not pay for writing them).
-
-    Examples
-    --------
-    >>> from lincomb import coef
-    >>> labels = RowLabels(((coef("a") == 1), (coef("b") == 2).labelled("b at two")))
-    >>> len(labels), labels[1], list(labels)
-    (2, 'b at two', ['a = 1', 'b at two'])
-    """
-
-    __slots__ = ("_items", "_written")
-
-    def __init__(self, items: Sequence[Restriction]) -> None:
-        self._items = items
-        self._written: tuple[str, ...] | None = None
-
-    def _all(self) -> tuple[str, ...]:
-        if self._written is None:
-            self._written = tuple(
-                item.text() if item.label is None else item.label for item in self._items
-            )
-        return self._written
-
-    @overload
-    def __getitem__(self, i: int) -> str: ...
-    @overload
-    def __getitem__(self, i: slice) -> tuple[str, ...]: ...
-    def __getitem__(self, i: int | slice) -> str | tuple[str, ...]:
-        return self._all()[i]
-
-    def __len__(self) -> int:
-        return len(self._items)
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._all())
-
-    def __repr__(self) -> str:
-        return repr(list(self._all()))
 
 
 def _resolve_restrictions(items: Sequence[Restriction], index: Resolver) -> Resolved:

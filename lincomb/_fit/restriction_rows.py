@@ -14,7 +14,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from lincomb import _core as core
-from lincomb._builder.restriction import RowLayout
+from lincomb._builder.resolved import RowLayout
 from lincomb._model.row_checks import unused_level_hint
 from lincomb.errors import InconsistentRestrictionError, NotEstimableError
 

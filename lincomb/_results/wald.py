@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from lincomb._builder.restriction import RowLabels
+from lincomb._builder.resolved import RowLabels
 from lincomb._docstrings import fill_lines_doc
 from lincomb._results.format import (
     batch_html,
@@ -390,7 +390,7 @@ def assemble_wald_test(
     ``numbers`` holds the rows' standard errors and ratios and the rank; ``referred`` is
     ``(distribution, statistic, df_error, p)`` under the test's reference; ``target`` is
     copied, so the result never shares it with the caller.  Labels not yet written
-    (:class:`~lincomb._builder.restriction.RowLabels`) are written when first read.
+    (:class:`~lincomb._builder.resolved.RowLabels`) are written when first read.
     """
     dist, stat, df_error, p_value = referred
     return WaldTest(
