@@ -46,10 +46,35 @@ def blas_limit(threads: int | None) -> contextlib.AbstractContextManager[Any]:
         return contextlib.nullcontext()
     if _CONTROLLER is None:
         _CONTROLLER = ThreadpoolController()
-    limit: contextlib.AbstractContextManager[Any] = _CONTROLLER.limit(
-        limits=threads, user_api="blas"
-    )
-    return limit
+    return _Limit([c for c in _CONTROLLER.lib_controllers if c.user_api == "blas"], threads)
+
+
+class _Limit:
+    """Set each BLAS library to ``threads`` threads for a ``with`` block, and back after.
+
+    What threadpoolctl's own ``limit`` does for ``user_api="blas"``, without the report of
+    every library it gathers first: a library already at ``threads`` is not touched, so a
+    block under a global limit of the same size costs a few ``get_num_threads`` calls.
+    """
+
+    __slots__ = ("_libs", "_threads", "_changed")
+
+    def __init__(self, libs: list[Any], threads: int) -> None:
+        self._libs = libs
+        self._threads = threads
+        self._changed: list[tuple[Any, int]] = []
+
+    def __enter__(self) -> None:
+        for lib in self._libs:
+            before = lib.num_threads
+            if before is not None and before != self._threads:
+                lib.set_num_threads(self._threads)
+                self._changed.append((lib, before))
+
+    def __exit__(self, *exc: object) -> None:
+        while self._changed:
+            lib, before = self._changed.pop()
+            lib.set_num_threads(before)
 
 
 def can_limit() -> bool:

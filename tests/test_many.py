@@ -696,3 +696,26 @@ def test_factor_design_and_projection_identities(
     # the inputs are not modified
     np.testing.assert_array_equal(ys, ys0)
     np.testing.assert_array_equal(x, x0)
+
+
+def test_small_and_large_means_in_one_block_match_numpy_least_squares() -> None:
+    # Invented data (a demo of the projection's three routes in one block): responses with a
+    # mean small beside their spread (projected as they are), with a large mean (centred
+    # first), a constant one (an exact fit) and one with a missing value (its own rows).  The
+    # reference is numpy's least squares on each response's observed rows.
+    rng = np.random.default_rng(21)
+    n = 80
+    x = np.column_stack([np.ones(n), rng.normal(size=(n, 3))])
+    y = rng.normal(size=(n, 6))
+    y[:, 1] += 1e6  # a large mean
+    y[:, 2] = 7.25  # constant
+    y[:, 3] += 3.0  # mean comparable to the spread
+    y[5, 4] = np.nan
+    mf = lc.fit_many_arrays(x, y)
+    for j in range(y.shape[1]):
+        ok = np.isfinite(y[:, j])
+        want, *_ = np.linalg.lstsq(x[ok], y[ok, j], rcond=None)
+        got = mf.coefficients.iloc[:, j].to_numpy()
+        np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9 * max(1.0, abs(want[0])))
+    assert mf.status.tolist()[2] == "exact fit"
+    assert mf.n_obs.tolist() == [n, n, n, n, n - 1, n]

@@ -53,3 +53,23 @@ def test_blocked_core_factor_runs_on_the_set_threads(monkeypatch):
     with lc.blas_threads(2):
         core_moments.moments_from_arrays(x, y, None, 0)
     assert seen == [1, 2]
+
+
+def test_blas_limit_sets_and_restores_every_blas_library_even_on_error():
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+    from lincomb._settings import blas_limit
+
+    def counts() -> list[int]:
+        return [
+            i["num_threads"] for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"
+        ]
+
+    with threadpoolctl.threadpool_limits(2, user_api="blas"):
+        assert set(counts()) == {2}
+        with pytest.raises(RuntimeError), blas_limit(1):
+            assert set(counts()) == {1}
+            raise RuntimeError("boom")
+        assert set(counts()) == {2}
+        with blas_limit(2):  # already there: nothing to set or restore
+            assert set(counts()) == {2}
+        assert set(counts()) == {2}

@@ -452,3 +452,31 @@ def test_p_value_functions_are_scipy_stats_exactly():
         np.testing.assert_array_equal(f_sf(x, 2, 10.0), float(stats.f.sf(x, 2, 10.0)))
         np.testing.assert_array_equal(chi2_sf(x, 2), float(stats.chi2.sf(x, 2)))
     np.testing.assert_array_equal(f_sf(1.0, 2, np.inf), float(stats.f.sf(1.0, 2, np.inf)))
+
+
+@pytest.mark.parametrize("gap", [0.0, 0.5e-10, 1.5e-10, 2.5e-10, 1e-6, 0.3])
+def test_full_rank_screen_of_solve_decides_as_the_greedy_pass(gap, monkeypatch):
+    # brute force: the same moments solved with the screen switched off (the greedy pass on
+    # every column); the rank, the kept and aliased columns and the estimates must agree
+    import importlib
+
+    solve_mod = importlib.import_module("lincomb._core.solve")
+    rng = np.random.default_rng(int(gap * 1e13) + 11)
+    for _ in range(20):
+        x = np.column_stack([np.ones(60), rng.normal(size=(60, 4))])
+        inside = 0.7 * x[:, 1] - 1.3 * x[:, 2]
+        out = rng.normal(size=60)
+        basis, _ = np.linalg.qr(x[:, :3])
+        out -= basis @ (basis.T @ out)
+        x[:, 3] = inside + gap * np.linalg.norm(inside) * out / np.linalg.norm(out)
+        y = rng.normal(size=60)
+        m = core.moments_from_arrays(x, y, None, 0)
+        fast = core.solve(m)
+        with monkeypatch.context() as mp:
+            mp.setattr(solve_mod, "_full_rank_factor", lambda *a: None)
+            slow = core.solve(m)
+        assert fast.rank == slow.rank
+        assert fast.kept.tolist() == slow.kept.tolist()
+        assert fast.aliased.tolist() == slow.aliased.tolist()
+        np.testing.assert_allclose(fast.coefficients(), slow.coefficients(), rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(fast.rss, slow.rss, rtol=1e-12)

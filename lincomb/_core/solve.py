@@ -304,6 +304,27 @@ def _ordered_columns(rs: Array, tol: float) -> tuple[NDArray[np.intp], int]:
     return np.array(kept + dropped, dtype=np.intp), len(kept)
 
 
+def _full_rank_factor(rs: Array, qty: Array, tol: float) -> tuple[Array, Array] | None:
+    """``R`` and ``Qᵀ qty`` of the unit-norm columns ``rs`` in order, when every column is
+    at least ``2·tol`` outside the span of the columns before it; None otherwise.
+
+    One Householder QR of ``[rs qty]``: ``|R_jj|`` is the distance of column ``j`` to the span
+    of the columns before it, the quantity :func:`_ordered_columns` compares with ``tol``, up to
+    rounding (about ``eps``); the margin of two leaves every decision near the threshold to the
+    greedy pass, so the rank decided is the same.  The last column of the factor is ``Qᵀ qty``.
+    """
+    q = rs.shape[1]
+    a = np.empty((rs.shape[0], q + 1), order="F")
+    a[:, :q] = rs
+    a[:, q] = qty
+    qr, _tau, _work, info = sla.lapack.dgeqrf(a, overwrite_a=1)
+    if info != 0 or qr.shape[0] < q:
+        return None
+    if not np.abs(qr.diagonal()[:q]).min() > 2 * tol:  # NaN fails too
+        return None
+    return np.triu(qr[:, :q]), qr[:q, q].copy()
+
+
 def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     """Decide the rank and solve the least-squares problem held in ``m``.
 
@@ -347,7 +368,12 @@ def solve(m: Moments, rank_tol: float = RANK_TOL) -> Solution:
     scale_o = np.where(live, col_norm, 1.0)
     rs = rx / scale_o
     rs[:, ~live] = 0.0
-    if q:
+    full = _full_rank_factor(rs, qty, rank_tol) if q else None
+    if full is not None:  # every column clearly kept: the greedy pass would keep them all
+        r2, z = full
+        piv = np.arange(q, dtype=np.intp)
+        rank_o = q
+    elif q:
         piv, rank_o = _ordered_columns(rs, rank_tol)
         q2, r2 = cast("tuple[Array, Array]", sla.qr(rs[:, piv], check_finite=False))
         z = q2.T @ qty
