@@ -221,10 +221,7 @@ class DesignFactor:
         missing or infinite value, or one that overflows a sum), and the summaries of the
         others, in order.  With an intercept the test costs nothing: it is the mean that
         centring takes anyway.  Unweighted responses whose mean is small beside their spread
-        need no centred copy and are projected as they are (:meth:`_project_small_means`);
-        their means then come from the projection itself (the intercept's direction is the
-        first column of the basis, ``1/√n`` in every row), so the block is read twice (the
-        product and the sums of squares), not three times.
+        need no centred copy and are projected as they are (:meth:`_project_small_means`).
 
         Examples
         --------
@@ -239,12 +236,7 @@ class DesignFactor:
             y = y[:, None]
         m = self.moments
         with np.errstate(invalid="ignore", over="ignore"):
-            qk = None
-            if m.intercept is not None and m.n > 0 and self.weights is None:
-                assert self._q_ext is not None
-                qk = self._q_ext.T @ y  # its first row is √n times the means
-                m1 = qk[0] / np.sqrt(m.weight_sum)
-            elif m.intercept is not None and m.n > 0:
+            if m.intercept is not None and m.n > 0:
                 m1 = _column_means(y, self.weights)
             else:
                 m1 = None
@@ -254,12 +246,11 @@ class DesignFactor:
             if odd.any():
                 y = y[:, ~odd]
                 m1 = None if m1 is None else m1[~odd]
-                qk = None if qk is None else qk[:, ~odd]
-            if qk is not None and m1 is not None:
-                return odd, self._project_small_means(y, m1, qk)
+            if m1 is not None and self.weights is None:
+                return odd, self._project_small_means(y, m1)
             return odd, self._project(y, m1)
 
-    def _project_small_means(self, y: Array, m1: Array, qk: Array) -> ResponseBlock:
+    def _project_small_means(self, y: Array, m1: Array) -> ResponseBlock:
         """:meth:`_project` without the centred copy for responses whose mean is small beside
         their spread (unweighted, with an intercept); the others are projected centred.
 
@@ -268,31 +259,29 @@ class DesignFactor:
         no more rounding than those of the centred copy, the intercept's coefficient gives
         the mean, and the residual is ``‖y‖² − ‖[1/√n, Q]ᵀy‖²`` as in
         :func:`_residual_squares` (the fit takes at most half, or the residual is formed).
-        ``qk`` is ``[1/√n, Q]ᵀ y``, made already; the means ``m1`` that come from its first row
-        only decide which responses are small.
         """
+        ext = self._q_ext
+        assert ext is not None
         y2 = np.einsum("ij,ij->j", y, y)
         small = self.moments.weight_sum * m1**2 <= 0.25 * y2  # NaN, inf: centred
         if small.all():
-            return self._project_uncentred(y, y2, qk)
-        # the centred copy is made from means summed again (one rounding, as before): a
-        # constant response then centres to exact zeros, and its fit is exact
+            return self._project_uncentred(y, y2)
         if not small.any():
-            return self._project(y)
+            return self._project(y, m1)
         parts = (
-            self._project_uncentred(y[:, small], y2[small], qk[:, small]),
-            self._project(y[:, ~small]),
+            self._project_uncentred(y[:, small], y2[small]),
+            self._project(y[:, ~small], m1[~small]),
         )
         order = np.argsort(np.concatenate([np.flatnonzero(small), np.flatnonzero(~small)]))
         return ResponseBlock.concat(list(parts), self.moments.others.size).take(order)
 
-    def _project_uncentred(self, y: Array, y2: Array, qk: Array) -> ResponseBlock:
-        """The summaries of uncentred responses ``y`` (sums of squares ``y2``, products
-        ``qk = [1/√n, Q]ᵀ y``): see :meth:`_project_small_means`.  ``y`` is read, not copied
-        or modified."""
+    def _project_uncentred(self, y: Array, y2: Array) -> ResponseBlock:
+        """The summaries of uncentred responses ``y`` (sums of squares ``y2``): see
+        :meth:`_project_small_means`.  ``y`` is read, not copied or modified."""
         m = self.moments
         ext = self._q_ext
         assert ext is not None
+        qk = ext.T @ y
         qty = np.zeros((m.others.size, y.shape[1]))
         qty[: ext.shape[1] - 1] = qk[1:]
         resid2 = _residual_squares(y, ext, qk, y2, overwrite=False)

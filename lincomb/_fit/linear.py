@@ -24,7 +24,6 @@ from numpy.typing import ArrayLike, NDArray
 
 from lincomb import _core as core
 from lincomb._builder.resolver import ModelResolver
-from lincomb._builder.restriction import as_system
 from lincomb._core.checks import check_level, check_tolerance
 from lincomb._covariance.estimate import CovarianceEstimate, check_rank
 from lincomb._covariance.estimators import coefficient_df, evaluate
@@ -458,7 +457,7 @@ class LinearFit(ResolvesRestrictions, ReportTables):
         core.RowAnalysis,
     ]:
         """:meth:`prepare` with the labels left to be written when first read."""
-        c, d, labels, layout = as_system(restrictions).resolved(self.resolver)
+        c, d, labels, layout = self._resolved(restrictions)
         cu, analysis = check_rows(
             self._sol, c, d, labels, self.names, hint=lambda: aliasing_hint(self), layout=layout
         )

@@ -13,6 +13,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import NDArray
 
+from lincomb._builder.resolved import Resolved
 from lincomb._builder.restriction import RestrictionSystem, as_system
 from lincomb._docstrings import fill_lines_doc
 
@@ -51,6 +52,12 @@ class ResolvesRestrictions:
         >>> c.tolist(), labels
         ([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], ['g[T.b] = 0', 'g[T.c] = 0'])
         """
+        c, d, labels, _layout = self._resolved(restrictions)
+        return c, d, list(labels)
+
+    def _resolved(self, restrictions: object) -> Resolved:
+        """:meth:`resolve` for the test routes: labels written when first read, and the
+        columns the rows of plain restrictions touch (:meth:`RestrictionSystem.resolved`)."""
         system: RestrictionSystem = as_system(restrictions)
         # the resolver also carries the formula encoder, for contrasts on level means
-        return system.resolve(self.resolver)
+        return system.resolved(self.resolver)
