@@ -112,6 +112,10 @@ __all__ = [
 BLOCK_BYTES: int = 2**21
 #: Fewest responses per block, so that very tall designs still use matrix products.
 MIN_BLOCK_COLUMNS: int = 16
+#: Responses per block fitted on their own rows when the response matrix is stored row by row
+#: (C order): the projection copies rows in bounded chunks, and each row is read in one piece
+#: of up to 8 KiB instead of ``8 * BLOCK_BYTES / n`` bytes.
+ROW_MAJOR_COLUMNS: int = 1024
 #: Most threads projecting blocks by default (the work is bound by memory bandwidth).
 MAX_WORKERS: int = 4
 #: Fewest blocks per thread: with fewer, starting threads and handing blocks over cost more than
@@ -583,10 +587,22 @@ def _build(
         od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
         return od if od.usable else None
 
-    def work(yb: NDArray[np.float64]) -> _BlockFits:
-        return _fit_block(factor, observed, yb, 2 * seen[1] > seen[0])
-
     width = _block_width(r, n)
+    # the own-rows route copies a block's rows in chunks (observed.CHUNK_BYTES), so it takes wide
+    # blocks: a matrix stored row by row is then read along its rows, not in short pieces
+    wide = width
+    share = 0.0  # the guess for the first block: a sample of rows (arrays stored by row)
+    if missing == "skip" and positions is None and source.stored_by_row:
+        wide = max(width, min(r, ROW_MAJOR_COLUMNS))
+        share = source.sampled_missing_share()
+
+    def plan() -> tuple[int, bool]:
+        own = (2 * seen[1] > seen[0] if seen[0] else 2 * share > 1) and observed() is not None
+        return (wide if own else width), own
+
+    def work(yb: NDArray[np.float64], own: bool) -> _BlockFits:
+        return _fit_block(factor, observed, yb, own)
+
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
     own_parts: list[ObservedPart] = []
@@ -594,7 +610,7 @@ def _build(
     refit: list[NDArray[np.intp]] = []
     blocks = -(-r // width)
     workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
-    for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
+    for cols, yb, fits in _projected(work, source, positions, r, plan, workers):
         odd, block, own = fits  # odd: a NaN, inf or overflow in the column
         seen[0] += odd.size
         seen[1] += int(odd.sum()) if own is None else int(np.count_nonzero(own.n < n))
