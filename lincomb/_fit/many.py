@@ -78,6 +78,7 @@ from lincomb._fit.responses import (
     _refuse_bad_values,
     _Responses,
     _unique_names,
+    response_index,
 )
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
 from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
@@ -205,7 +206,7 @@ class ManyFit:
     # -- per-response attributes (pandas, built once when first read) ---------------------------
     @functools.cached_property
     def _response_index(self) -> pd.Index:
-        return pd.Index(self.responses, name="response")
+        return response_index(self.responses)
 
     def _series(self, values: NDArray[Any] | pd.Categorical[str], name: str) -> pd.Series:
         return pd.Series(values, index=self._response_index, name=name)
@@ -659,9 +660,15 @@ def _joined(parts: list[NDArray[np.intp]]) -> NDArray[np.intp]:
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.intp)
 
 
+@functools.cache
+def _cpu_count() -> int:
+    # read once: os.cpu_count() reads the system's CPU list on every call (about 20 µs)
+    return os.cpu_count() or 1
+
+
 def _workers(workers: object) -> int:
     if workers is None:
-        return max(1, min(MAX_WORKERS, os.cpu_count() or 1))
+        return max(1, min(MAX_WORKERS, _cpu_count()))
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
         raise InputError(f"workers must be a positive whole number or None, got {workers!r}.")
     return int(workers)

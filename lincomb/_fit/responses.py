@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
@@ -95,6 +96,31 @@ class _Responses:
         return float(np.count_nonzero(np.isnan(sample).any(axis=0))) / self.count
 
 
+@functools.lru_cache(maxsize=4)
+def default_names(r: int) -> tuple[str, ...]:
+    """Names of ``r`` unnamed responses, ``y0, y1, ...`` (one tuple per count, kept for the
+    next fit of as many responses: see :func:`response_index`)."""
+    return tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
+
+
+@functools.lru_cache(maxsize=4)
+def _default_index(r: int) -> pd.Index:
+    return pd.Index(default_names(r))
+
+
+def response_index(names: tuple[str, ...]) -> pd.Index:
+    """The pandas index of response ``names``, named ``response``.
+
+    The index of the default names (:func:`default_names`) is converted once per count and
+    shared as a new index object (``copy``: the values are immutable, the name is its own), so
+    fits in a loop do not convert thousands of strings each time.
+    """
+    r = len(names)
+    if r and names[0] == "y0" and names[-1] == f"y{r - 1}" and names == default_names(r):
+        return _default_index(r).copy(name="response")
+    return pd.Index(names, name="response")
+
+
 def _unique_names(names: Sequence[Any], what: str) -> tuple[str, ...]:
     out = tuple(map(str, names))
     if len(set(out)) != len(out):
@@ -137,7 +163,7 @@ def _array_source(
         raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
     r = arr.shape[1]
     if response_names is None:
-        names = tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
+        names = default_names(r)
     else:
         names = _unique_names(response_names, "response names")
         if len(names) != r:
