@@ -719,3 +719,17 @@ def test_small_and_large_means_in_one_block_match_numpy_least_squares() -> None:
         np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9 * max(1.0, abs(want[0])))
     assert mf.status.tolist()[2] == "exact fit"
     assert mf.n_obs.tolist() == [n, n, n, n, n - 1, n]
+
+
+def test_default_response_names_shared_safely_between_fits() -> None:
+    # The index of the default names y0, y1, ... is converted once per count and shared as
+    # new index objects: naming one fit's index leaves the other fits' alone.
+    rng = np.random.default_rng(11)
+    x = np.column_stack([np.ones(30), rng.normal(size=30)])
+    y = rng.normal(size=(30, 4))
+    first, second = lc.fit_many_arrays(x, y), lc.fit_many_arrays(x, 2 * y)
+    first.rss.index.name = "renamed"
+    assert second.rss.index.name == "response" and first.rss.index is not second.rss.index
+    assert list(second.rss.index) == ["y0", "y1", "y2", "y3"]
+    named = lc.fit_many_arrays(x, y, response_names=["y0", "b", "c", "y3"])
+    assert list(named.rss.index) == ["y0", "b", "c", "y3"]

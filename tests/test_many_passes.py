@@ -153,3 +153,53 @@ def test_small_and_large_means_in_one_block_and_close_fits() -> None:
         np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
         ft = ref.f_test((np.array([[0.0, 1, 0, 0]]), np.array([0.999])))
         np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)
+
+
+@pytest.mark.parametrize("weighted", [False, True])
+def test_rows_copied_in_chunks_from_a_matrix_stored_by_row(
+    monkeypatch: pytest.MonkeyPatch, weighted: bool
+) -> None:
+    # A C-ordered response matrix whose responses mostly have missing values is read in wide
+    # blocks (the route is guessed from a sample of rows) whose rows are copied in small
+    # chunks; far shifts (responses large on the sampled rows), large means and close fits
+    # are among them, so every path of the chunked projection runs.  The F-ordered copy of the
+    # same matrix takes narrow blocks, copied whole.  Reference: statsmodels OLS/WLS per
+    # response on its own rows.
+    from lincomb._core import observed
+
+    monkeypatch.setattr(observed, "CHUNK_BYTES", 8 * 37 * 7)  # chunks of 7 rows (37 responses)
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8 * 640 * 6)  # 6 responses per narrow block
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    chunks = []
+    chunk = observed._chunk
+    monkeypatch.setattr(observed, "_chunk", lambda y, *a: chunks.append(y.shape) or chunk(y, *a))
+    n, r = 640, 37
+    x = _design(n, 9)
+    rng = np.random.default_rng(10)
+    ys = rng.normal(size=(n, r)) + 0.3 * x[:, [2]]
+    ys[:, 5:10] += 1e7  # large means
+    ys[np.arange(0, n, n // 64), 10:13] += 1e4  # far shifts
+    ys[:, 13:18] = x @ np.array([1.0, -2.0, 0.5, 3.0])[:, None] + 1e-4 * ys[:, 13:18]
+    ys[rng.uniform(size=ys.shape) < 0.03] = np.nan
+    ys[:, 20] = rng.normal(size=n)  # one complete response among them
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    names = ["one", "a", "b", "c"]
+    by_row = lc.fit_many_arrays(x, ys, names=names, weights=w)
+    assert len(chunks) == -(-n // 7) and {s[1] for s in chunks} == {r}  # one wide block
+    chunks.clear()
+    by_column = lc.fit_many_arrays(x, np.asfortranarray(ys), names=names, weights=w)
+    assert chunks and max(s[1] for s in chunks) == 6  # narrow blocks, each one chunk
+    system = (lc.coef("a") == 0) & (lc.coef("b") == lc.coef("c"))
+    c = np.array([[0.0, 1, 0, 0], [0.0, 0, 1, -1]])
+    for mf in (by_row, by_column):
+        res = mf.wald(system)
+        for j in range(r):
+            shift = 1e7 if 5 <= j < 10 else 0.0
+            ref = _reference(x, ys[:, j] - shift, w)
+            assert mf.n_obs.iloc[j] == ref.nobs
+            beta = mf.coefficients.iloc[:, j].to_numpy()
+            np.testing.assert_allclose(beta[1:], ref.params[1:], rtol=1e-9, atol=1e-11)
+            np.testing.assert_allclose(beta[0], ref.params[0] + shift, rtol=1e-13, atol=1e-10)
+            np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
+            ft = ref.f_test(c)
+            np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)

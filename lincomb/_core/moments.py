@@ -76,8 +76,11 @@ class Moments:
     @property
     def others(self) -> NDArray[np.intp]:
         """Indices of the non-intercept columns of ``X`` (the order used in ``r``)."""
-        idx = np.arange(self.p)
-        return idx if self.intercept is None else np.delete(idx, self.intercept)
+        if self.intercept is None:
+            return np.arange(self.p)
+        idx = np.arange(self.p - 1)  # 0..p-1 without the intercept (np.delete has a fixed cost)
+        idx[self.intercept :] += 1
+        return idx
 
 
 #: Weights spread wider than this (largest / smallest) are factored with row pivoting (see

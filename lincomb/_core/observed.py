@@ -75,6 +75,7 @@ from lincomb._docstrings import fill_doc
 from lincomb._typing import Array
 
 __all__ = [
+    "CHUNK_BYTES",
     "GRAM_FLOOR",
     "RANK_MARGIN",
     "RANK_FLOOR",
@@ -100,6 +101,10 @@ RANK_FLOOR: float = 2.0**-40
 ROW_MARGIN: float = 4.0
 #: A residual norm within this factor of the exact-fit threshold is refitted exactly.
 ZERO_MARGIN: float = 4.0
+#: Work memory of a projection (:meth:`ObservedDesign.project`): the rows of a block are copied
+#: in chunks of at most this many bytes (at least one row), so that a wide block of a matrix
+#: stored row by row is read in its storage order.
+CHUNK_BYTES: int = 2**21
 
 
 #: Example set-up shared by the docstrings below: 40 rows, an intercept and two columns.
@@ -383,8 +388,11 @@ class ObservedDesign:
 
         One pass over the block: a copy shifted by a rough mean (:func:`_rough_mean`), its
         product with ``Q̂``, its sums of squares and the Gram corrections ``Q̂_Mᵀ Q̂_M`` of the
-        missing rows; ``y`` is not modified.  Blocks projected one by one (on any thread) are
-        finished together, so the small per-response algebra runs once over all of them.
+        missing rows; ``y`` is not modified.  The rows are copied in chunks of at most
+        :data:`CHUNK_BYTES` (the products summed over the chunks), so the work memory does not
+        grow with the width of ``y`` and a wide block of a matrix stored row by row is read
+        along its rows.  Blocks projected one by one (on any thread) are finished together, so
+        the small per-response algebra runs once over all of them.
 
         Examples
         --------
@@ -419,44 +427,44 @@ class ObservedDesign:
                 ii,
                 jj,
             )
-        yc = np.array(y, dtype=np.float64, order="C")  # the one copy of the block
-        if missing is None:
-            missing = np.isnan(yc)
-        # the missing values row by row (no transposed copy of the mask): within each
-        # response they come in row order, so every sum over them below (and the sparse
-        # product, column by column) adds them in the same order as response by response
-        flat = np.flatnonzero(missing)
-        ii = flat // r
-        jj = flat - ii * r
+        # shifted by a rough mean from a sample of rows (no pass over the block for the mean;
+        # no shift at all where every mean is small beside its spread); what the shift leaves
+        # of the mean lies along the intercept, first in Q̂
+        shift = _rough_mean(y) if self._intercept else np.zeros(r)
+        qty = np.zeros((k, r))
+        y2 = np.zeros(r)
+        found_rows, found_cols = [], []
+        step = max(1, CHUNK_BYTES // (8 * max(r, 1)))
+        for i0 in range(0, n, step):
+            rows = slice(i0, min(n, i0 + step))
+            yc, ci, cj = _chunk(y[rows], shift, None if missing is None else missing[rows])
+            if self._sqrt_w is not None:
+                yc *= self._sqrt_w[rows, None]
+            qty += qh[rows].T @ yc  # (k, r)
+            y2 += np.einsum("ij,ij->j", yc, yc)
+            found_rows.append(ci + i0)
+            found_cols.append(cj)
+        # the missing values row by row (no transposed copy of the mask): within each response
+        # they come in row order, so every sum over them below (and the sparse product, column
+        # by column) adds them in the same order as response by response
+        ii = np.concatenate(found_rows)
+        jj = np.concatenate(found_cols)
         n_obs = n - np.bincount(jj, minlength=r)
-        if self._intercept:
-            # shifted by a rough mean from a sample of rows (no pass over the block for the
-            # mean; no shift at all where every mean is small beside its spread); what the
-            # shift leaves of the mean lies along the intercept, first in Q̂
-            shift = _rough_mean(yc)
-            if shift.any():
-                yc -= shift
-        else:
-            shift = np.zeros(r)
-        yc[ii, jj] = 0.0
-        if self._sqrt_w is not None:
-            yc *= self._sqrt_w[:, None]
-        qty = qh.T @ yc  # (k, r)
-        y2 = np.einsum("ij,ij->j", yc, yc)
         mean = np.zeros(r)
-        c2 = self._centre_far(yc, qty, y2, mean, ii, jj) if self._intercept else y2
+        c2 = self._centre_far(y, qty, y2, shift, mean, ii, jj) if self._intercept else y2
         # Q̂_Mᵀ Q̂_M from the missing rows only (upper triangles summed, by a sparse product)
         indptr = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(ii, minlength=n), out=indptr[1:])
-        missing_rows = sps.csc_array((np.ones(flat.size), jj, indptr), shape=(r, n))
+        missing_rows = sps.csc_array((np.ones(ii.size), jj, indptr), shape=(r, n))
         half = np.asarray(missing_rows @ self._outer)
         return ObservedPart(n_obs.astype(np.int64), qty, y2, c2, shift, mean, half, ii, jj)
 
     def _centre_far(
         self,
-        yc: Array,
+        y: Array,
         qty: Array,
         y2: Array,
+        shift: Array,
         mean: Array,
         ii: NDArray[np.intp],
         jj: NDArray[np.intp],
@@ -464,19 +472,19 @@ class ObservedDesign:
         """The centred sums of squares, after centring exactly where a rough shift left much of
         the mean.
 
-        ``yc`` (n, r) holds the shifted, scaled responses (zero where missing), ``qty`` and
-        ``y2`` their products with ``Q̂`` and sums of squares.  The weighted mean ``c`` left
+        ``y`` (n, r) is the block, ``qty`` and ``y2`` the products with ``Q̂`` and the sums of
+        squares of its shifted, scaled copy (zero where missing).  The weighted mean ``c`` left
         by the shift on a response's rows is ``qty[0]·√W / W_O`` and ``W_O c² = qty[0]²·W/W_O``
         is the part of ``y2`` it makes.  Where that part is at most ``y2 / 4`` the centred sum
         of squares ``y2 − W_O c²`` loses less than half a bit; elsewhere (a shift far from the
-        mean, a constant response) the response is centred on ``c`` in ``yc`` (the second
+        mean, a constant response) the response is read again and centred on ``c`` (the second
         pass of a two-pass mean, as a single fit centres), its products are taken again
         (``qty``, ``y2`` updated in place) and ``c`` is recorded in ``mean``.
         """
-        r = yc.shape[1]
+        n, r = y.shape
         w = self._w
         if w is None:
-            wsum = yc.shape[0] - np.bincount(jj, minlength=r).astype(np.float64)
+            wsum = n - np.bincount(jj, minlength=r).astype(np.float64)
         else:
             wsum = self._weight_sum - np.bincount(jj, weights=w[ii], minlength=r)
         wsum = np.where(wsum > 0, wsum, 1.0)
@@ -484,11 +492,12 @@ class ObservedDesign:
         far = np.flatnonzero(~(y2 - c2 <= 0.25 * y2))  # NaN, inf: centred as well
         if far.size:
             mean[far] = qty[0, far] * (np.sqrt(self._weight_sum) / wsum[far])
-            part = self._recentred(yc[:, far], mean[far])
-            _zero_missing(part, far, ii, jj, r)
-            yc[:, far] = part
-            qty[:, far] = self._q.T @ part
-            y2[far] = c2[far] = np.einsum("ij,ij->j", part, part)
+            step = max(1, CHUNK_BYTES // (8 * max(n, 1)))
+            for k0 in range(0, far.size, step):
+                cols = far[k0 : k0 + step]
+                part = self._copy_shifted(y[:, cols], cols, shift, mean, ii, jj, r)
+                qty[:, cols] = self._q.T @ part
+                y2[cols] = c2[cols] = np.einsum("ij,ij->j", part, part)
         return c2
 
     def _recentred(self, part: Array, mean: Array) -> Array:
@@ -583,17 +592,31 @@ class ObservedDesign:
     def _shifted(self, y: Array, part: ObservedPart, cols: NDArray[np.intp]) -> Array:
         """The responses ``cols`` of ``part`` as :meth:`project` left them in its copy (the same
         operations, so the same numbers)."""
+        return self._copy_shifted(y, cols, part.shift, part.mean, part.rows, part.cols, part.count)
+
+    def _copy_shifted(
+        self,
+        y: Array,
+        cols: NDArray[np.intp],
+        shift: Array,
+        mean: Array,
+        ii: NDArray[np.intp],
+        jj: NDArray[np.intp],
+        r: int,
+    ) -> Array:
+        """A copy of responses ``y`` (at positions ``cols`` of a block of ``r``) shifted, with
+        the missing values (rows ``ii``, positions ``jj``) zero, scaled, and centred on
+        ``mean`` where it is not zero: the numbers :meth:`project` works with."""
         yc = np.array(y, dtype=np.float64, order="C")
-        r = part.count
         if self._intercept:
-            yc -= part.shift[cols]
-        _zero_missing(yc, cols, part.rows, part.cols, r)
+            yc -= shift[cols]
+        _zero_missing(yc, cols, ii, jj, r)
         if self._sqrt_w is not None:
             yc *= self._sqrt_w[:, None]
-        far = np.flatnonzero(part.mean[cols] != 0.0)
+        far = np.flatnonzero(mean[cols] != 0.0)
         if far.size:
-            sub = self._recentred(yc[:, far], part.mean[cols[far]])
-            _zero_missing(sub, cols[far], part.rows, part.cols, r)
+            sub = self._recentred(yc[:, far], mean[cols[far]])
+            _zero_missing(sub, cols[far], ii, jj, r)
             yc[:, far] = sub
         return yc
 
@@ -698,6 +721,22 @@ def _rough_mean(yc: Array) -> Array:
     square = np.einsum("ij,ij->j", values, values) / count
     out: Array = np.where(4.0 * mean**2 <= square - mean**2, 0.0, mean)
     return out
+
+
+def _chunk(
+    y: Array, shift: Array, missing: NDArray[np.bool_] | None
+) -> tuple[Array, NDArray[np.intp], NDArray[np.intp]]:
+    """A copy of rows ``y`` of a block shifted by ``shift``, with its missing values zero, and
+    their rows (in ``y``) and columns, row by row."""
+    yc = np.array(y, dtype=np.float64, order="C")
+    r = yc.shape[1]
+    flat = np.flatnonzero(np.isnan(yc) if missing is None else missing)
+    ii = flat // r
+    jj = flat - ii * r
+    if shift.any():
+        yc -= shift
+    yc[ii, jj] = 0.0
+    return yc, ii, jj
 
 
 def _zero_missing(

@@ -180,14 +180,17 @@ def plain_norm(a: Array, axis: int) -> Array | None:
 
     Scaling by a power of two is exact, so where no square over- or underflows the plain sum
     of squares is the scaled one of :func:`safe_norm`: the norms are returned (all positive and
-    finite) when every sum of squares lies in ``[2**-900, inf)``, else None (then only
-    :func:`safe_norm`'s scaling gives them).  It spares a call's fixed cost of scaling.
+    finite) when every sum of squares lies in ``[2**-900, inf)``, and (all exactly 0) when every
+    entry is zero; else None (then only :func:`safe_norm`'s scaling gives them).  It spares a
+    call's fixed cost of scaling.
 
     Examples
     --------
     >>> import numpy as np
     >>> plain_norm(np.array([[3.0, 0.0], [4.0, 1.0]]), 0).tolist(), plain_norm(np.zeros(2), 0)
-    ([5.0, 1.0], None)
+    ([5.0, 1.0], np.float64(0.0))
+    >>> plain_norm(np.array([1e-300, 0.0]), 0) is None  # the square underflows: scale first
+    True
     """
     if axis in (-1, a.ndim - 1):
         last = a
@@ -200,7 +203,7 @@ def plain_norm(a: Array, axis: int) -> Array | None:
         ok = all(_SQUARES_LOW <= v < np.inf for v in ss.reshape(-1).tolist())  # NaN fails
     else:
         ok = _SQUARES_LOW <= ss.min() and ss.max() < np.inf
-    if ok:
+    if ok or not a.any():  # every entry zero: the sums of squares are exactly 0 too
         out: Array = np.sqrt(ss)
         return out
     return None

@@ -109,7 +109,6 @@ class LinearFit(ResolvesRestrictions, ReportTables):
     """
 
     names: tuple[str, ...]
-    coefficients: pd.Series
     aliased: tuple[str, ...]
     rank: int
     n_obs: int
@@ -125,6 +124,12 @@ class LinearFit(ResolvesRestrictions, ReportTables):
     _moments: core.Moments = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _sol: core.Solution = field(repr=False, compare=False, default=None)  # type: ignore[assignment]
     _vcov: CovarianceEstimate | None = field(repr=False, compare=False, default=None)
+    _beta: NDArray[np.float64] = field(repr=False, compare=False, default=None)  # type: ignore[arg-type]
+
+    @cached_property
+    def coefficients(self) -> pd.Series:
+        """Estimates; ``NaN`` for aliased (not estimable) columns (built when first read)."""
+        return pd.Series(self._beta, index=list(self.names), name="estimate")
 
     # -- the fit's internals, read-only, for the other layers ------------------------------
     @property
@@ -393,7 +398,7 @@ class LinearFit(ResolvesRestrictions, ReportTables):
             dfree = coefficient_df(self._sol, vcov)
         return coefficient_frame(
             self._design.index,
-            self.coefficients.to_numpy(),
+            self._beta,
             self.std_errors(vcov).to_numpy(),
             level=level,
             reference=ref,
@@ -864,7 +869,6 @@ def fit_from_moments(
     sigma = sol.resid_norm / float(np.sqrt(sol.df_resid))  # no squares: see _core
     return LinearFit(
         names=names,
-        coefficients=pd.Series(beta, index=list(names), name="estimate"),
         aliased=tuple(names[j] for j in sorted(sol.aliased)),
         rank=sol.rank,
         n_obs=sol.n,
@@ -879,6 +883,7 @@ def fit_from_moments(
         _design=design,
         _moments=moments,
         _sol=sol,
+        _beta=beta,
     )
 
 

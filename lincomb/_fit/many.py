@@ -78,6 +78,7 @@ from lincomb._fit.responses import (
     _refuse_bad_values,
     _Responses,
     _unique_names,
+    response_index,
 )
 from lincomb._model.design import Design, DesignRows, design_from_arrays, design_from_formula
 from lincomb._model.encoder import FormulaEncoder, refuse_non_numeric_responses
@@ -112,6 +113,10 @@ __all__ = [
 BLOCK_BYTES: int = 2**21
 #: Fewest responses per block, so that very tall designs still use matrix products.
 MIN_BLOCK_COLUMNS: int = 16
+#: Responses per block fitted on their own rows when the response matrix is stored row by row
+#: (C order): the projection copies rows in bounded chunks, and each row is read in one piece
+#: of up to 8 KiB instead of ``8 * BLOCK_BYTES / n`` bytes.
+ROW_MAJOR_COLUMNS: int = 1024
 #: Most threads projecting blocks by default (the work is bound by memory bandwidth).
 MAX_WORKERS: int = 4
 #: Fewest blocks per thread: with fewer, starting threads and handing blocks over cost more than
@@ -201,7 +206,7 @@ class ManyFit:
     # -- per-response attributes (pandas, built once when first read) ---------------------------
     @functools.cached_property
     def _response_index(self) -> pd.Index:
-        return pd.Index(self.responses, name="response")
+        return response_index(self.responses)
 
     def _series(self, values: NDArray[Any] | pd.Categorical[str], name: str) -> pd.Series:
         return pd.Series(values, index=self._response_index, name=name)
@@ -583,10 +588,22 @@ def _build(
         od = core.observed_design(factor, lf.solution, rank_tol, ZERO_RSS_TOL)
         return od if od.usable else None
 
-    def work(yb: NDArray[np.float64]) -> _BlockFits:
-        return _fit_block(factor, observed, yb, 2 * seen[1] > seen[0])
-
     width = _block_width(r, n)
+    # the own-rows route copies a block's rows in chunks (observed.CHUNK_BYTES), so it takes wide
+    # blocks: a matrix stored row by row is then read along its rows, not in short pieces
+    wide = width
+    share = 0.0  # the guess for the first block: a sample of rows (arrays stored by row)
+    if missing == "skip" and positions is None and source.stored_by_row:
+        wide = max(width, min(r, ROW_MAJOR_COLUMNS))
+        share = source.sampled_missing_share()
+
+    def plan() -> tuple[int, bool]:
+        own = (2 * seen[1] > seen[0] if seen[0] else 2 * share > 1) and observed() is not None
+        return (wide if own else width), own
+
+    def work(yb: NDArray[np.float64], own: bool) -> _BlockFits:
+        return _fit_block(factor, observed, yb, own)
+
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
     own_parts: list[ObservedPart] = []
@@ -594,7 +611,7 @@ def _build(
     refit: list[NDArray[np.intp]] = []
     blocks = -(-r // width)
     workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
-    for _j0, cols, yb, fits in _projected(work, source, positions, r, width, workers):
+    for cols, yb, fits in _projected(work, source, positions, r, plan, workers):
         odd, block, own = fits  # odd: a NaN, inf or overflow in the column
         seen[0] += odd.size
         seen[1] += int(odd.sum()) if own is None else int(np.count_nonzero(own.n < n))
@@ -643,9 +660,15 @@ def _joined(parts: list[NDArray[np.intp]]) -> NDArray[np.intp]:
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.intp)
 
 
+@functools.cache
+def _cpu_count() -> int:
+    # read once: os.cpu_count() reads the system's CPU list on every call (about 20 µs)
+    return os.cpu_count() or 1
+
+
 def _workers(workers: object) -> int:
     if workers is None:
-        return max(1, min(MAX_WORKERS, os.cpu_count() or 1))
+        return max(1, min(MAX_WORKERS, _cpu_count()))
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
         raise InputError(f"workers must be a positive whole number or None, got {workers!r}.")
     return int(workers)

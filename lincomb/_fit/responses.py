@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from collections import deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
@@ -73,6 +74,52 @@ class _Responses:
     def column(self, j: int) -> NDArray[np.float64]:
         return self.block(np.array([j]))[:, 0]
 
+    @property
+    def stored_by_row(self) -> bool:
+        """Whether blocks are views of a float64 matrix stored row by row (C order): a narrow
+        block then reads a short piece of every row, a wide one reads along the rows."""
+        get = self._get
+        if not isinstance(get, _ArrayColumns):
+            return False
+        arr = get.arr
+        return bool(arr.ndim == 2 and arr.dtype == np.float64 and arr.strides[1] == 8)
+
+    def sampled_missing_share(self, rows: int = 64) -> float:
+        """Share of the responses with a missing value in a sample of about ``rows`` rows
+        spread over the matrix (0 for a source not :attr:`stored_by_row`): a cheap first guess
+        of the route most responses take."""
+        get = self._get
+        if not isinstance(get, _ArrayColumns) or not self.stored_by_row or self.count == 0:
+            return 0.0
+        arr = get.arr
+        sample = arr[:: max(1, arr.shape[0] // rows)]
+        return float(np.count_nonzero(np.isnan(sample).any(axis=0))) / self.count
+
+
+@functools.lru_cache(maxsize=4)
+def default_names(r: int) -> tuple[str, ...]:
+    """Names of ``r`` unnamed responses, ``y0, y1, ...`` (one tuple per count, kept for the
+    next fit of as many responses: see :func:`response_index`)."""
+    return tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
+
+
+@functools.lru_cache(maxsize=4)
+def _default_index(r: int) -> pd.Index:
+    return pd.Index(default_names(r))
+
+
+def response_index(names: tuple[str, ...]) -> pd.Index:
+    """The pandas index of response ``names``, named ``response``.
+
+    The index of the default names (:func:`default_names`) is converted once per count and
+    shared as a new index object (``copy``: the values are immutable, the name is its own), so
+    fits in a loop do not convert thousands of strings each time.
+    """
+    r = len(names)
+    if r and names[0] == "y0" and names[-1] == f"y{r - 1}" and names == default_names(r):
+        return _default_index(r).copy(name="response")
+    return pd.Index(names, name="response")
+
 
 def _unique_names(names: Sequence[Any], what: str) -> tuple[str, ...]:
     out = tuple(map(str, names))
@@ -116,7 +163,7 @@ def _array_source(
         raise InputError(f"responses must be numeric, got dtype {arr.dtype}.")
     r = arr.shape[1]
     if response_names is None:
-        names = tuple([f"y{j}" for j in range(r)])  # a list first: faster for many
+        names = default_names(r)
     else:
         names = _unique_names(response_names, "response names")
         if len(names) != r:
@@ -125,41 +172,47 @@ def _array_source(
 
 
 def _projected(
-    work: Callable[[NDArray[np.float64]], T],
+    work: Callable[[NDArray[np.float64], bool], T],
     source: _Responses,
     positions: NDArray[np.intp] | None,
     r: int,
-    width: int,
+    plan: Callable[[], tuple[int, bool]],
     workers: int,
-) -> Iterator[tuple[int, NDArray[np.intp], NDArray[np.float64], T]]:
+) -> Iterator[tuple[NDArray[np.intp], NDArray[np.float64], T]]:
     """Blocks of responses with what ``work`` makes of them (their projections), in order.
 
-    Blocks are read in this thread (pandas is not asked to serve several threads) and handed
-    to ``work`` on ``workers`` threads (numpy and BLAS release the GIL); at most ``workers``
-    blocks wait.
+    ``plan()`` gives the width of the next block and the route it takes (``own``: fitted on
+    their own rows), decided when the block is read; ``work(yb, own)`` projects it.  Blocks are
+    read in this thread (pandas is not asked to serve several threads) and handed to ``work``
+    on ``workers`` threads (numpy and BLAS release the GIL); at most ``workers`` blocks wait.
     """
 
-    def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+    def read(j0: int) -> tuple[NDArray[np.intp], NDArray[np.float64], bool]:
+        width, own = plan()
         cols = np.arange(j0, min(r, j0 + width))
         yb = source.block(slice(j0, j0 + cols.size))
-        return cols, (yb if positions is None else yb[positions])
+        return cols, (yb if positions is None else yb[positions]), own
 
-    if workers <= 1 or width >= r:
-        for j0 in range(0, r, width):
-            cols, yb = read(j0)
-            yield j0, cols, yb, work(yb)
+    if workers <= 1:
+        j0 = 0
+        while j0 < r:
+            cols, yb, own = read(j0)
+            yield cols, yb, work(yb, own)
+            j0 += cols.size
         return
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        pending: deque[tuple[int, NDArray[np.intp], NDArray[np.float64], Future[T]]] = deque()
-        for j0 in range(0, r, width):
-            cols, yb = read(j0)
-            pending.append((j0, cols, yb, pool.submit(work, yb)))
+        pending: deque[tuple[NDArray[np.intp], NDArray[np.float64], Future[T]]] = deque()
+        j0 = 0
+        while j0 < r:
+            cols, yb, own = read(j0)
+            pending.append((cols, yb, pool.submit(work, yb, own)))
+            j0 += cols.size
             if len(pending) > workers:
-                k0, kc, ky, fut = pending.popleft()
-                yield k0, kc, ky, fut.result()
+                kc, ky, fut = pending.popleft()
+                yield kc, ky, fut.result()
         while pending:
-            k0, kc, ky, fut = pending.popleft()
-            yield k0, kc, ky, fut.result()
+            kc, ky, fut = pending.popleft()
+            yield kc, ky, fut.result()
 
 
 def _check_no_inf(
