@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from conftest import load_r
 from hypothesis import given, settings
@@ -553,7 +554,9 @@ def test_vectorized_equals_single_fits(
     x = np.column_stack([np.ones(n), rng.normal(size=(n, p)) * rng.uniform(0.1, 50, size=p)])
     if alias and p >= 2:
         x[:, 2] = x[:, 1] * 2.0  # an aliased column
-    ys = rng.normal(size=(n, r)) * 3 + 100
+    # large means (centred before the products) and means small beside the spread (products
+    # of the uncentred or roughly shifted responses)
+    ys = rng.normal(size=(n, r)) * 3 + rng.choice([0.5, 100.0], size=r)
     ys[rng.uniform(size=ys.shape) < nan_rate] = np.nan
     w = rng.uniform(0.5, 2.0, size=n) if weighted else None
     names = [f"c{j}" for j in range(x.shape[1])]
@@ -733,3 +736,29 @@ def test_default_response_names_shared_safely_between_fits() -> None:
     assert list(second.rss.index) == ["y0", "y1", "y2", "y3"]
     named = lc.fit_many_arrays(x, y, response_names=["y0", "b", "c", "y3"])
     assert list(named.rss.index) == ["y0", "b", "c", "y3"]
+
+
+@pytest.mark.filterwarnings("ignore:The design matrix is rank-deficient")  # the reference's
+@pytest.mark.parametrize("weighted", [False, True])
+def test_aliased_columns_and_small_means(weighted: bool) -> None:
+    # A design with a column aliased with a slope and a constant column aliased with the
+    # intercept: Householder completes Q arbitrarily for them, and the factor must keep those
+    # directions orthogonal to the intercept's, or the residuals of responses projected
+    # without centring (mean small beside the spread) pick up part of their mean.  Found by
+    # comparing with single fits; reference here: statsmodels OLS/WLS per response (its
+    # pseudo-inverse gives the same fitted values and estimable contrasts).
+    rng = np.random.default_rng(12)
+    n, r = 25, 40
+    z = rng.normal(size=(n, 2)) * [3.0, 0.2]
+    x = np.column_stack([np.ones(n), z[:, 0], 2.0 * z[:, 0], np.ones(n), z[:, 1]])
+    ys = rng.normal(size=(n, r)) + rng.uniform(-0.4, 0.4, size=r)
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    names = ["one", "a", "a2", "const", "b"]
+    mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
+    res = mf.wald((lc.coef("b") == 0.3) & (lc.coef("a") + 2 * lc.coef("a2") == 0))
+    c = np.array([[0.0, 0, 0, 0, 1], [0.0, 1, 2, 0, 0]])
+    for j in range(r):
+        ref = sm.WLS(ys[:, j], x, weights=1.0 if w is None else w).fit()
+        np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-10)
+        ft = ref.f_test((c, np.array([0.3, 0.0])))
+        np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)

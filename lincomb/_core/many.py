@@ -414,7 +414,9 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     Notes
     -----
     The centring (two passes) and scaling are those of :func:`moments_from_arrays`; the QR is
-    LAPACK ``geqrf``, then ``orgqr`` forms the thin ``Q`` (n, q) once, so that every block of
+    LAPACK ``geqrf`` (of the intercept's direction and the centred columns, in that order: the
+    columns of ``Q`` are then orthogonal to the intercept's direction even where a column is
+    aliased), then ``orgqr`` forms the thin ``Q`` (n, q) once, so that every block of
     responses is projected by matrix products (much faster than applying ``q`` reflectors one
     block at a time when ``q`` is small).
 
@@ -428,6 +430,10 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
     >>> one = f.response_moments(f.project(y[:, None]), 0)
     >>> ref = moments_from_arrays(x, y, intercept=0)
     >>> bool(np.allclose(one.r.T @ one.r, ref.r.T @ ref.r))
+    True
+    >>> x2 = np.column_stack([x, 2 * x[:, 1]])  # an aliased column: Q stays orthonormal
+    >>> ext = factor_design(x2, intercept=0)._q_ext
+    >>> bool(np.allclose(ext.T @ ext, np.eye(4), atol=1e-12))
     True
     """
     n, p = x.shape
@@ -447,25 +453,37 @@ def factor_design(x: Array, w: Array | None = None, intercept: int | None = None
         a *= np.sqrt(w)[:, None]
     q = cols.size
     r = np.zeros((q + 1, q + 1))
+    # with an intercept, its direction u = sqrt(w)/sqrt(W) is factored first, before the
+    # centred columns: Q's columns after it are then orthogonal to u by construction, also
+    # those Householder completes arbitrarily for aliased columns (which the centring alone
+    # would not make orthogonal to u: a response's component along them is part of its
+    # residual only if they are); u's row of R is uᵀ of the centred columns, zero to rounding
+    first = int(intercept is not None and n > 0)
+    if first:
+        u = (np.ones(n) if w is None else np.sqrt(w)) / np.sqrt(wsum)
+        aug = np.empty((n, q + 1), order="F")
+        aug[:, 0] = u
+        aug[:, 1:] = a
+        a = aug
     if q and n:
         qr, tau, _work, info = sla.lapack.dgeqrf(a, overwrite_a=1)
         if info != 0:  # pragma: no cover - LAPACK argument error
             raise InternalError(f"LAPACK dgeqrf failed with info={info}")
-        k = min(n, q)
-        r[:k, :q] = np.triu(qr[:k])
-        thin, _work, info = sla.lapack.dorgqr(qr[:, :k], tau[:k], overwrite_a=0)
+        k = min(n, q + first)
+        r[: k - first, :q] = np.triu(qr[:k])[first:, first:]
+        full, _work, info = sla.lapack.dorgqr(qr[:, :k], tau[:k], overwrite_a=0)
         if info != 0:  # pragma: no cover - LAPACK argument error
             raise InternalError(f"LAPACK dorgqr failed with info={info}")
+        thin = full[:, first:]
     else:
         thin = np.zeros((n, 0))
     moments = Moments(
         n=n, weight_sum=wsum, intercept=intercept, center=center, raw_norm=raw_norm, r=r
     )
-    if intercept is None or n == 0:
+    if not first:
         return DesignFactor(moments=moments, weights=w, _q=thin)
-    # the intercept's direction sqrt(w)/sqrt(W) first: orthogonal to the centred columns
     ext = np.empty((n, thin.shape[1] + 1), order="F")
-    ext[:, 0] = (1.0 if w is None else np.sqrt(w)) / np.sqrt(wsum)
+    ext[:, 0] = u  # Q's first column is ±u to rounding
     ext[:, 1:] = thin
     return DesignFactor(moments=moments, weights=w, _q=ext[:, 1:], _q_ext=ext)
 
