@@ -6,7 +6,7 @@ Run (unset the two OpenBLAS variables for timing only, in this command alone)::
     env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python benchmarks/bench_many.py --json
     ... --threads 1        # limit BLAS threads (threadpoolctl) for the whole run
     ... --subset 300       # responses in the timed statsmodels loop (see below)
-    ... --rows all         # or a comma list of: wide, missing, complete
+    ... --rows all         # or a comma list of: wide, missing, complete, tall
 
 Needs the ``bench`` extra (statsmodels, threadpoolctl).  statsmodels is a timing and numerical
 reference only.  The script times the ``lincomb`` of the checkout it lives in (its folder goes
@@ -48,6 +48,15 @@ process is reported beside the wall time, as above):
   r = 2,000 complete responses: the same lincomb pipeline, ``test_frame`` included, against the
   statsmodels loop.  Target >= 150.
 
+One more row, for information (``--rows tall``, no target in the issue):
+
+* **tall**: n = 100,000 rows, the same kind of design, r = 200 complete responses in a
+  C-ordered (row by row) matrix, whose blocks of columns would read 128-byte pieces of every
+  row: lincomb's pipeline on it, on its F-ordered copy (blocks of columns read whole columns)
+  and a statsmodels loop over ``--tall-subset`` responses (extrapolated), round robin.  The
+  ratio C / F shows what the storage order costs (it read at about half the speed of the
+  F-ordered copy before the rows were read in chunks).
+
 Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
 run interleaved in every repeat so that load changes on a shared machine hit both alike; we
 report medians and the median of the per-repeat ratios, in wall time (the target) and in CPU
@@ -88,6 +97,8 @@ N, P, R = 500, 10, 10_000
 N_MISS, R_MISS, MISS_RATE = 2_000, 600, 0.02
 #: The row with fewer complete responses.
 R_SMALL = 2_000
+#: The tall row: rows and responses.
+N_TALL, R_TALL = 100_000, 200
 
 
 def make_data() -> tuple[np.ndarray, np.ndarray]:
@@ -107,6 +118,59 @@ def make_missing() -> tuple[np.ndarray, np.ndarray]:
     return x, y
 
 
+def make_tall() -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(SEED + 2)
+    x = np.column_stack([np.ones(N_TALL), rng.normal(size=(N_TALL, P - 1))])
+    y = rng.normal(size=(N_TALL, R_TALL)) + 5.0
+    y[:, ::7] += 0.2 * x[:, [3]]
+    return x, y
+
+
+def run_tall(repeats: int, subset: int) -> dict[str, Any]:
+    """The tall row: the pipeline on a C-ordered matrix, on its F-ordered copy, and a
+    statsmodels loop over ``subset`` responses, round robin (medians)."""
+    import statsmodels.api as sm
+
+    import lincomb as lc
+
+    x, yc = make_tall()
+    yf = np.asfortranarray(yc)
+    names = [f"x{j}" for j in range(P)]
+    system, c, d = _system()
+
+    def pipeline(y: np.ndarray) -> Any:
+        res = lc.fit_many_arrays(x, y, names=names).wald(system)
+        return res, res.test_frame()
+
+    def sm_subset() -> list[Any]:
+        return [sm.OLS(yc[:, j], x).fit().f_test((c, d)) for j in range(subset)]
+
+    res_c, _ = pipeline(yc)
+    res_f, _ = pipeline(yf)
+    f_rel, p_rel = _agreement(res_c, sm_subset())
+    f_cf = float(np.max(np.abs(res_c.stat / res_f.stat - 1)))
+    timing = interleaved(
+        {"c_order": lambda: pipeline(yc), "f_order": lambda: pipeline(yf), "sm": sm_subset},
+        repeats,
+        warmup=1,
+    )
+    med = timing["median"]
+    return {
+        "n": N_TALL,
+        "responses": R_TALL,
+        "repeats": repeats,
+        "statsmodels_subset": subset,
+        "lincomb_c_order_s": med["c_order"],
+        "lincomb_f_order_s": med["f_order"],
+        "ratio_c_over_f": ratio(timing, "c_order", "f_order"),
+        "statsmodels_extrapolated_s": med["sm"] / subset * R_TALL,
+        "ratio_statsmodels_over_lincomb_c": ratio(timing, "sm", "c_order") / subset * R_TALL,
+        "max_rel_diff_F_c_vs_f": f_cf,
+        "max_rel_diff_F_vs_statsmodels": f_rel,
+        "max_rel_diff_p_vs_statsmodels": p_rel,
+    }
+
+
 def _system() -> tuple[Any, np.ndarray, np.ndarray]:
     import lincomb as lc
 
@@ -123,7 +187,8 @@ def _agreement(res: Any, ref: list[Any]) -> tuple[float, float]:
     f_sm = np.array([float(np.squeeze(t.fvalue)) for t in ref])
     p_sm = np.array([float(t.pvalue) for t in ref])
     f_rel = float(np.max(np.abs(res.stat[:k] / f_sm - 1)))
-    p_rel = float(np.max(np.abs(res.p[:k] / p_sm - 1)))
+    pos = p_sm > 0  # p-values that underflow to 0 (a strong effect) have no ratio
+    p_rel = float(np.max(np.abs(res.p[:k][pos] / p_sm[pos] - 1), initial=0.0))
     assert f_rel < 1e-9, f_rel
     return f_rel, p_rel
 
@@ -315,6 +380,20 @@ def report(res: dict[str, Any]) -> str:
         lines += report_loop("scattered missing values", res["missing"])
     if "complete" in res:
         lines += report_loop("complete responses", res["complete"])
+    if "tall" in res:
+        t = res["tall"]
+        lines += [
+            f"tall (information): n = {t['n']}, r = {t['responses']} complete responses;"
+            f" {t['repeats']} interleaved rounds (medians)",
+            f"  lincomb on the C-ordered matrix : {t['lincomb_c_order_s'] * 1e3:9.1f} ms",
+            f"  lincomb on its F-ordered copy   : {t['lincomb_f_order_s'] * 1e3:9.1f} ms"
+            f"  (C / F = {t['ratio_c_over_f']:.2f})",
+            f"  statsmodels OLS + f_test loop (extrapolated from {t['statsmodels_subset']}"
+            f" responses): {t['statsmodels_extrapolated_s']:8.2f} s"
+            f" ({t['ratio_statsmodels_over_lincomb_c']:.0f}x lincomb on the C-ordered matrix)",
+            f"  F: C vs F order max relative difference {t['max_rel_diff_F_c_vs_f']:.2e};"
+            f" vs statsmodels {t['max_rel_diff_F_vs_statsmodels']:.2e}",
+        ]
     lines += [
         f"  load average at the end: {res['load_average']}; lincomb from {res['lincomb_path']}",
         blas_line(res["blas"]),
@@ -327,8 +406,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--subset", type=int, default=300, help="responses in the statsmodels loop")
     ap.add_argument(
-        "--rows", default="all", help="comma list of rows to run: wide, missing, complete"
+        "--rows",
+        default="all",
+        help="comma list of rows to run: wide, missing, complete, tall (all: the first three)",
     )
+    ap.add_argument("--tall-subset", type=int, default=10, help="responses in the tall loop")
     args = ap.parse_args(argv)
     rows = {"wide", "missing", "complete"} if args.rows == "all" else set(args.rows.split(","))
     import scipy.linalg  # noqa: F401 - load scipy's BLAS so threadpoolctl sees it
@@ -344,6 +426,8 @@ def main(argv: list[str] | None = None) -> int:
             res["complete"] = run_against_loop(
                 x, y[:, :R_SMALL], 2 * args.repeats + 1, args.subset, 150.0
             )
+        if "tall" in rows:
+            res["tall"] = run_tall(args.repeats, args.tall_subset)
         res.update(machine())
     import lincomb
 

@@ -165,9 +165,10 @@ def test_rows_copied_in_chunks_from_a_matrix_stored_by_row(
     # are among them, so every path of the chunked projection runs.  The F-ordered copy of the
     # same matrix takes narrow blocks, copied whole.  Reference: statsmodels OLS/WLS per
     # response on its own rows.
+    from lincomb._core import many as core_many
     from lincomb._core import observed
 
-    monkeypatch.setattr(observed, "CHUNK_BYTES", 8 * 37 * 7)  # chunks of 7 rows (37 responses)
+    monkeypatch.setattr(core_many, "CHUNK_BYTES", 8 * 37 * 7)  # chunks of 7 rows (37 responses)
     monkeypatch.setattr(many, "BLOCK_BYTES", 8 * 640 * 6)  # 6 responses per narrow block
     monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
     chunks = []
@@ -201,5 +202,74 @@ def test_rows_copied_in_chunks_from_a_matrix_stored_by_row(
             np.testing.assert_allclose(beta[1:], ref.params[1:], rtol=1e-9, atol=1e-11)
             np.testing.assert_allclose(beta[0], ref.params[0] + shift, rtol=1e-13, atol=1e-10)
             np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
+            ft = ref.f_test(c)
+            np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)
+
+
+@pytest.mark.parametrize(("weighted", "intercept"), [(False, True), (True, True), (False, False)])
+def test_complete_responses_read_by_rows(
+    monkeypatch: pytest.MonkeyPatch, weighted: bool, intercept: bool
+) -> None:
+    # A tall C-ordered matrix whose narrow blocks of columns would read short pieces of every
+    # row is read in wide blocks, its rows in chunks (DesignFactor.project_rows): responses
+    # with large means, far shifts (large on the sampled rows), close fits and a few with
+    # missing values (a minority, fitted on their own rows a few columns at a time) in one
+    # block.  The F-ordered copy takes the blocks of columns.  Reference: statsmodels OLS/WLS
+    # per response on its own rows.
+    from lincomb._core import many as core_many
+
+    n, r = 640, 29
+    monkeypatch.setattr(core_many, "CHUNK_BYTES", 8 * r * 9)  # chunks of 9 rows
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8 * n * 4)  # narrow blocks: 4 responses
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
+    calls: list[tuple[int, ...]] = []
+    project_rows = core.DesignFactor.project_rows
+    monkeypatch.setattr(
+        core.DesignFactor,
+        "project_rows",
+        lambda self, y: calls.append(y.shape) or project_rows(self, y),
+    )
+    again: list[list[int]] = []  # responses whose products were taken again (far shifts)
+    products = core_many._row_products
+
+    def spy(y, cols, *args):
+        if cols is not None:
+            again.append(cols.tolist())
+        return products(y, cols, *args)
+
+    monkeypatch.setattr(core_many, "_row_products", spy)
+    x = _design(n, 13) if intercept else _design(n, 13)[:, 1:]
+    rng = np.random.default_rng(14)
+    ys = rng.normal(size=(n, r)) + 0.3 * x[:, [1]]
+    ys[:, 3:8] += 1e7  # large means
+    ys[np.arange(0, n, n // 64), 8:11] += 1e4  # far shifts
+    ys[:, 11:15] = x @ rng.normal(size=(x.shape[1], 4)) + 1e-4 * ys[:, 11:15]  # close fits
+    few = ys[:, 20:24]  # a few with missing values
+    few[rng.uniform(size=few.shape) < 0.05] = np.nan
+    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
+    names = ["one", "a", "b", "c"][-x.shape[1] :]
+    by_row = lc.fit_many_arrays(x, ys, names=names, weights=w)
+    assert calls == [(n, r)]  # one wide block
+    assert again == ([[8, 9, 10]] if intercept else [])  # far shifts centred exactly
+    calls.clear()
+    by_column = lc.fit_many_arrays(x, np.asfortranarray(ys), names=names, weights=w)
+    assert not calls
+    for mf in (by_row, by_column):
+        res = mf.wald(lc.coef("a") == lc.coef("b"))
+        for j in range(r):
+            shift = 1e7 if intercept and 3 <= j < 8 else 0.0  # exact deviations, as above
+            obs = ~np.isnan(ys[:, j])
+            ref = _reference(x, ys[:, j] - shift, w)
+            assert mf.n_obs.iloc[j] == obs.sum()
+            beta = mf.coefficients.iloc[:, j].to_numpy()
+            np.testing.assert_allclose(
+                beta,
+                ref.params + shift * (np.arange(beta.size) == 0) * intercept,
+                rtol=1e-9,
+                atol=1e-9,
+            )
+            np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-9)
+            c = np.zeros((1, x.shape[1]))
+            c[0, names.index("a")], c[0, names.index("b")] = 1.0, -1.0
             ft = ref.f_test(c)
             np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)

@@ -128,6 +128,7 @@ combined summaries, planned designs) keep the plain Householder solution, accura
 
 from lincomb._core.batch import BatchCore, wald_systems
 from lincomb._core.many import (
+    CHUNK_BYTES,
     DesignFactor,
     ResponseBlock,
     factor_design,
@@ -189,6 +190,7 @@ __all__ = [
     "intercept_rotation",
     "restricted_step",
     # many responses on one design
+    "CHUNK_BYTES",
     "ResponseBlock",
     "DesignFactor",
     "factor_design",

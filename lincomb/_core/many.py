@@ -26,12 +26,22 @@ if TYPE_CHECKING:  # pragma: no cover
     from _typeshed import DataclassInstance
 
 __all__ = [
+    "CHUNK_BYTES",
     "DesignFactor",
     "ResponseBlock",
+    "chunk_rows",
     "factor_design",
+    "rough_mean",
     "solve_responses",
     "wald_quadratic_forms",
 ]
+
+
+#: Work memory of a projection read in chunks of rows (:meth:`DesignFactor.project_rows`,
+#: :meth:`~lincomb._core.ObservedDesign.project`): the rows of a block are copied at most this
+#: many bytes at a time (at least one row), so that a wide block of a matrix stored row by row
+#: is read in its storage order.
+CHUNK_BYTES: int = 2**21
 
 
 #: Example set-up shared by the docstrings below: the random design of
@@ -250,6 +260,79 @@ class DesignFactor:
                 return odd, self._project_small_means(y, m1)
             return odd, self._project(y, m1)
 
+    @_factored_doc
+    def project_rows(self, y: Array) -> tuple[NDArray[np.bool_], ResponseBlock]:
+        """:meth:`project_finite` reading ``y`` in chunks of rows, for a wide block.
+
+        Returns ``odd`` (r,), True for the responses set aside (a NaN or inf makes their
+        products non-finite), and the summaries of the others, in order.  The rows are read
+        :data:`CHUNK_BYTES` at a time, so the work memory does not grow with the width of
+        ``y`` and a block of a matrix stored row by row (C order) is read along its rows.
+
+        Notes
+        -----
+        With an intercept, each response is shifted by a rough mean (:func:`rough_mean`, from
+        a sample of rows; no shift where that mean is small beside its spread) and its
+        products with ``[sqrt(w)/sqrt(W), Q]`` are summed over the chunks: the intercept's
+        coefficient is ``sqrt(W)`` times the mean the shift left, so the centred sum of
+        squares is ``‖y_s‖² − coef₀²``.  Where the shift left more than a quarter of the
+        shifted sum of squares (a shift far from the mean), the response is read again,
+        centred on its mean and its products taken again (the two passes of a two-pass
+        mean), so a shifted response is never more than ``√(4/3)`` times the centred one in
+        norm.  The residual sum of squares is the difference of the sums of squares where the
+        fit takes at most half of them and comes from the explicit residual, read again
+        chunk by chunk, elsewhere (as in :meth:`project`).
+
+        Examples
+        --------
+        %(factored)s
+        >>> ys = np.column_stack([y, 1e6 + y, 2 * y])
+        >>> odd, rows = f.project_rows(ys)
+        >>> _, whole = f.project_finite(ys)
+        >>> odd.tolist(), bool(np.allclose(rows.resid, whole.resid, rtol=1e-9))
+        ([False, False, False], True)
+        """
+        y = np.asarray(y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        with np.errstate(invalid="ignore", over="ignore"):
+            return self._project_rows(y)
+
+    def _project_rows(self, y: Array) -> tuple[NDArray[np.bool_], ResponseBlock]:
+        m = self.moments
+        r = y.shape[1]
+        basis = self._q_ext if self._q_ext is not None else self._q
+        intercept = self._q_ext is not None
+        sqrt_w = None if self.weights is None else np.sqrt(self.weights)
+        shift = rough_mean(y) if intercept else np.zeros(r)
+        coef, y2 = _row_products(y, None, basis, sqrt_w, shift)
+        odd = np.asarray(~np.isfinite(coef).all(axis=0))
+        good = np.flatnonzero(~odd)
+        if good.size < r:  # the responses set aside leave the arrays (not the block: no copy)
+            shift, coef, y2 = shift[good], coef[:, good], y2[good]
+        center = np.zeros(good.size)
+        if intercept:
+            # the mean the shift left, along the intercept's direction (first in the basis)
+            left = coef[0] / np.sqrt(m.weight_sum)
+            far = np.flatnonzero(~(coef[0] ** 2 <= 0.25 * y2))  # NaN, inf: again as well
+            if far.size:  # centred on the mean from the first pass, products taken again
+                shift[far] += left[far]
+                coef[:, far], y2[far] = _row_products(y, good[far], basis, sqrt_w, shift[far])
+                left[far] = coef[0, far] / np.sqrt(m.weight_sum)
+            center = shift + left
+        fit2 = np.einsum("ij,ij->j", coef, coef)
+        resid2 = np.maximum(y2 - fit2, 0.0)
+        close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN and inf go this way too
+        if close.size:
+            resid2[close] = _row_residuals(
+                y, good[close], basis, sqrt_w, shift[close], coef[:, close]
+            )
+        qty = np.zeros((m.others.size, good.size))
+        k0 = int(intercept)
+        qty[: basis.shape[1] - k0] = coef[k0:]
+        raw = np.sqrt(np.einsum("ij,ij->j", qty, qty) + resid2 + m.weight_sum * center**2)
+        return odd, ResponseBlock(qty=qty, resid=np.sqrt(resid2), center=center, raw_norm=raw)
+
     def _project_small_means(self, y: Array, m1: Array) -> ResponseBlock:
         """:meth:`_project` without the centred copy for responses whose mean is small beside
         their spread (unweighted, with an intercept); the others are projected centred.
@@ -351,6 +434,96 @@ class DesignFactor:
         raw = m.raw_norm.copy()
         raw[m.p] = block.raw_norm[j]
         return Moments(m.n, m.weight_sum, m.intercept, center, raw, r)
+
+
+def rough_mean(y: Array) -> Array:
+    """Means of a sample of about 64 rows spread over the block (missing values left out; 0
+    for a response missing in all of them): a shift close to each response's mean; 0 where the
+    sample's mean is small beside its spread (such a response needs no shift).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> y = np.column_stack([np.linspace(-1, 1, 200), np.linspace(99, 101, 200)])
+    >>> rough_mean(y).round(4).tolist()  # second: rows 0, 3, ..., 198, mean 99 + 2·99/199
+    [0.0, 99.995]
+    """
+    sample = y[:: max(1, y.shape[0] // 64)]
+    total = sample.sum(axis=0)
+    holes = np.flatnonzero(np.isnan(total))  # a missing value in the sample (or inf - inf)
+    if 2 * holes.size > total.size:  # mostly: every response the same way
+        holes = np.arange(total.size)
+    count = np.full(total.size, float(sample.shape[0]))
+    whole = holes.size == total.size
+    square = np.empty(total.size) if whole else np.einsum("ij,ij->j", sample, sample)
+    if holes.size:  # the values seen only
+        part = sample if whole else sample[:, holes]
+        seen = ~np.isnan(part)
+        values = np.where(seen, part, 0.0)
+        count[holes] = np.maximum(seen.sum(axis=0), 1)
+        total[holes] = values.sum(axis=0)
+        square[holes] = np.einsum("ij,ij->j", values, values)
+    mean = total / count
+    square = square / count
+    out: Array = np.where(4.0 * mean**2 <= square - mean**2, 0.0, mean)
+    return out
+
+
+def chunk_rows(width: int) -> int:
+    """Rows per chunk of a block ``width`` columns wide (:data:`CHUNK_BYTES`, at least 1)."""
+    return max(1, CHUNK_BYTES // (8 * max(width, 1)))
+
+
+def _shifted_rows(
+    y: Array, rows: slice, cols: NDArray[np.intp] | None, sqrt_w: Array | None, shift: Array
+) -> Array:
+    """``sqrt(w)·(y − shift)`` on ``rows`` (and columns ``cols``) of ``y``: a view of ``y``
+    where there is nothing to pick, subtract or scale, else a copy of the chunk."""
+    if cols is None and sqrt_w is None and not shift.any():
+        return y[rows]
+    c = y[rows] if cols is None else y[rows][:, cols]
+    c = c - shift
+    if sqrt_w is not None:
+        c *= sqrt_w[rows, None]
+    return c
+
+
+def _row_products(
+    y: Array, cols: NDArray[np.intp] | None, basis: Array, sqrt_w: Array | None, shift: Array
+) -> tuple[Array, Array]:
+    """``basisᵀ y_s`` and ``‖y_s‖²`` of ``y_s = sqrt(w)·(y − shift)`` (the responses ``cols``
+    of ``y``, all when None), summed over chunks of rows."""
+    n = y.shape[0]
+    width = y.shape[1] if cols is None else cols.size
+    coef = np.zeros((basis.shape[1], width))
+    y2 = np.zeros(width)
+    step = chunk_rows(width)
+    for i0 in range(0, n, step):
+        rows = slice(i0, min(n, i0 + step))
+        c = _shifted_rows(y, rows, cols, sqrt_w, shift)
+        coef += basis[rows].T @ c
+        y2 += np.einsum("ij,ij->j", c, c)
+    return coef, y2
+
+
+def _row_residuals(
+    y: Array,
+    cols: NDArray[np.intp],
+    basis: Array,
+    sqrt_w: Array | None,
+    shift: Array,
+    coef: Array,
+) -> Array:
+    """``‖y_s − basis·coef‖²`` per response (``y_s`` as in :func:`_row_products`), summed over
+    chunks of rows."""
+    n = y.shape[0]
+    out = np.zeros(cols.size)
+    step = chunk_rows(cols.size)
+    for i0 in range(0, n, step):
+        rows = slice(i0, min(n, i0 + step))
+        c = _shifted_rows(y, rows, cols, sqrt_w, shift) - basis[rows] @ coef
+        out += np.einsum("ij,ij->j", c, c)
+    return out
 
 
 def _column_means(y: Array, w: Array | None) -> Array:

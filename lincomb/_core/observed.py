@@ -68,14 +68,13 @@ import numpy as np
 import scipy.sparse as sps
 from numpy.typing import NDArray
 
-from lincomb._core.many import DesignFactor, PerResponse
+from lincomb._core.many import DesignFactor, PerResponse, chunk_rows, rough_mean
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import upper_solve
 from lincomb._docstrings import fill_doc
 from lincomb._typing import Array
 
 __all__ = [
-    "CHUNK_BYTES",
     "GRAM_FLOOR",
     "RANK_MARGIN",
     "RANK_FLOOR",
@@ -101,10 +100,6 @@ RANK_FLOOR: float = 2.0**-40
 ROW_MARGIN: float = 4.0
 #: A residual norm within this factor of the exact-fit threshold is refitted exactly.
 ZERO_MARGIN: float = 4.0
-#: Work memory of a projection (:meth:`ObservedDesign.project`): the rows of a block are copied
-#: in chunks of at most this many bytes (at least one row), so that a wide block of a matrix
-#: stored row by row is read in its storage order.
-CHUNK_BYTES: int = 2**21
 
 
 #: Example set-up shared by the docstrings below: 40 rows, an intercept and two columns.
@@ -386,13 +381,14 @@ class ObservedDesign:
     def project(self, y: Array, missing: NDArray[np.bool_] | None = None) -> ObservedPart:
         """The summaries of a block of responses ``y`` (n, b) that :meth:`finish` fits.
 
-        One pass over the block: a copy shifted by a rough mean (:func:`_rough_mean`), its
-        product with ``Q̂``, its sums of squares and the Gram corrections ``Q̂_Mᵀ Q̂_M`` of the
-        missing rows; ``y`` is not modified.  The rows are copied in chunks of at most
-        :data:`CHUNK_BYTES` (the products summed over the chunks), so the work memory does not
-        grow with the width of ``y`` and a wide block of a matrix stored row by row is read
-        along its rows.  Blocks projected one by one (on any thread) are finished together, so
-        the small per-response algebra runs once over all of them.
+        One pass over the block: a copy shifted by a rough mean
+        (:func:`~lincomb._core.many.rough_mean`), its product with ``Q̂``, its sums of squares
+        and the Gram corrections ``Q̂_Mᵀ Q̂_M`` of the missing rows; ``y`` is not modified.  The
+        rows are copied in chunks of at most :data:`~lincomb._core.many.CHUNK_BYTES` (the
+        products summed over the chunks), so the work memory does not grow with the width of
+        ``y`` and a wide block of a matrix stored row by row is read along its rows.  Blocks
+        projected one by one (on any thread) are finished together, so the small per-response
+        algebra runs once over all of them.
 
         Examples
         --------
@@ -430,11 +426,11 @@ class ObservedDesign:
         # shifted by a rough mean from a sample of rows (no pass over the block for the mean;
         # no shift at all where every mean is small beside its spread); what the shift leaves
         # of the mean lies along the intercept, first in Q̂
-        shift = _rough_mean(y) if self._intercept else np.zeros(r)
+        shift = rough_mean(y) if self._intercept else np.zeros(r)
         qty = np.zeros((k, r))
         y2 = np.zeros(r)
         found_rows, found_cols = [], []
-        step = max(1, CHUNK_BYTES // (8 * max(r, 1)))
+        step = chunk_rows(r)
         for i0 in range(0, n, step):
             rows = slice(i0, min(n, i0 + step))
             yc, ci, cj = _chunk(y[rows], shift, None if missing is None else missing[rows])
@@ -492,7 +488,7 @@ class ObservedDesign:
         far = np.flatnonzero(~(y2 - c2 <= 0.25 * y2))  # NaN, inf: centred as well
         if far.size:
             mean[far] = qty[0, far] * (np.sqrt(self._weight_sum) / wsum[far])
-            step = max(1, CHUNK_BYTES // (8 * max(n, 1)))
+            step = chunk_rows(n)  # responses of n rows at a time: the same bound
             for k0 in range(0, far.size, step):
                 cols = far[k0 : k0 + step]
                 part = self._copy_shifted(y[:, cols], cols, shift, mean, ii, jj, r)
@@ -707,20 +703,6 @@ def observed_design(
         _intercept=intercept,
         _zero_tol=zero_tol,
     )
-
-
-def _rough_mean(yc: Array) -> Array:
-    """Means of a sample of about 64 rows spread over the block (missing values left out; 0
-    for a response missing in all of them): a shift close to each response's mean; 0 where the
-    sample's mean is small beside its spread (such a response needs no shift)."""
-    sample = yc[:: max(1, yc.shape[0] // 64)]
-    seen = ~np.isnan(sample)
-    values = np.where(seen, sample, 0.0)
-    count = np.maximum(seen.sum(axis=0), 1)
-    mean = values.sum(axis=0) / count
-    square = np.einsum("ij,ij->j", values, values) / count
-    out: Array = np.where(4.0 * mean**2 <= square - mean**2, 0.0, mean)
-    return out
 
 
 def _chunk(

@@ -113,10 +113,13 @@ __all__ = [
 BLOCK_BYTES: int = 2**21
 #: Fewest responses per block, so that very tall designs still use matrix products.
 MIN_BLOCK_COLUMNS: int = 16
-#: Responses per block fitted on their own rows when the response matrix is stored row by row
-#: (C order): the projection copies rows in bounded chunks, and each row is read in one piece
-#: of up to 8 KiB instead of ``8 * BLOCK_BYTES / n`` bytes.
+#: Responses per block when the response matrix is stored row by row (C order, float64): the
+#: projections copy rows in bounded chunks (``core.CHUNK_BYTES``), and each row is read in one
+#: piece of up to 8 KiB instead of ``8 * BLOCK_BYTES / n`` bytes.
 ROW_MAJOR_COLUMNS: int = 1024
+#: Blocks of columns of a matrix stored row by row whose pieces of each row are shorter than
+#: this are read slowly (many short pieces): such a matrix is read in wide blocks instead.
+ROW_PIECE_BYTES: int = 4096
 #: Most threads projecting blocks by default (the work is bound by memory bandwidth).
 MAX_WORKERS: int = 4
 #: Fewest blocks per thread: with fewer, starting threads and handing blocks over cost more than
@@ -589,27 +592,28 @@ def _build(
         return od if od.usable else None
 
     width = _block_width(r, n)
-    # the own-rows route copies a block's rows in chunks (observed.CHUNK_BYTES), so it takes wide
-    # blocks: a matrix stored row by row is then read along its rows, not in short pieces
-    wide = width
-    share = 0.0  # the guess for the first block: a sample of rows (arrays stored by row)
-    if missing == "skip" and positions is None and source.stored_by_row:
-        wide = max(width, min(r, ROW_MAJOR_COLUMNS))
-        share = source.sampled_missing_share()
+    # a matrix stored row by row, whose blocks of columns would read n short pieces of its
+    # rows, is read in wide blocks whose rows are copied in chunks (core.CHUNK_BYTES)
+    by_rows = (
+        positions is None and source.stored_by_row and r > width and 8 * width < ROW_PIECE_BYTES
+    )
+    wide = max(width, min(r, ROW_MAJOR_COLUMNS)) if by_rows else width
+    # the route of the first block: guessed from a sample of rows (arrays stored by row)
+    share = source.sampled_missing_share() if by_rows and missing == "skip" else 0.0
 
     def plan() -> tuple[int, bool]:
         own = (2 * seen[1] > seen[0] if seen[0] else 2 * share > 1) and observed() is not None
-        return (wide if own else width), own
+        return wide, own
 
     def work(yb: NDArray[np.float64], own: bool) -> _BlockFits:
-        return _fit_block(factor, observed, yb, own)
+        return _fit_block(factor, observed, yb, own, by_rows, width)
 
     main_blocks: list[core.ResponseBlock] = []
     main_cols: list[NDArray[np.intp]] = []
     own_parts: list[ObservedPart] = []
     own_cols: list[NDArray[np.intp]] = []
     refit: list[NDArray[np.intp]] = []
-    blocks = -(-r // width)
+    blocks = -(-r // wide)
     workers = max(1, min(workers, blocks // MIN_BLOCKS_PER_WORKER))
     for cols, yb, fits in _projected(work, source, positions, r, plan, workers):
         odd, block, own = fits  # odd: a NaN, inf or overflow in the column

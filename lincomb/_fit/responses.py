@@ -236,6 +236,8 @@ def _fit_block(
     observed: Callable[[], core.ObservedDesign | None],
     yb: NDArray[np.float64],
     mostly_missing: bool,
+    by_rows: bool = False,
+    width: int = 1,
 ) -> _BlockFits:
     """Summaries of one block of responses: finite ones projected on the design of all rows,
     the others (missing values; or an inf, refused later) projected for a fit on their own rows
@@ -245,19 +247,26 @@ def _fit_block(
     Returns ``odd`` (the responses not projected), the projections of the others, and the
     own-rows projections of the odd ones (None without ``observed()``).  Which responses are odd is
     found from the means that centring takes anyway
-    (:meth:`~lincomb._core.DesignFactor.project_finite`); when most responses have missing
-    values (``mostly_missing``, learnt from the blocks before), every response of the block is
-    fitted on its own rows (those without missing values on all rows, exactly as well).
+    (:meth:`~lincomb._core.DesignFactor.project_finite`; with ``by_rows``, a wide block of a
+    matrix stored row by row, from the products summed over chunks of rows:
+    :meth:`~lincomb._core.DesignFactor.project_rows`, the odd ones then projected ``width`` at a
+    time); when most responses have missing values (``mostly_missing``, learnt from the blocks
+    before), every response of the block is fitted on its own rows (those without missing
+    values on all rows, exactly as well).
     """
     if mostly_missing and (od := observed()) is not None:
         # every response of the block is fitted on its own rows (all rows when it has no
         # missing value): no pass over the block to sort them first
         odd = np.ones(yb.shape[1], dtype=bool)
         return odd, core.ResponseBlock.concat([], factor.moments.others.size), od.project(yb)
-    odd, block = factor.project_finite(yb)
+    odd, block = factor.project_rows(yb) if by_rows else factor.project_finite(yb)
     if not odd.any() or (od := observed()) is None:
         return odd, block, None
-    return odd, block, od.project(yb if odd.all() else yb[:, odd])
+    if odd.all():
+        return odd, block, od.project(yb)
+    cols = np.flatnonzero(odd)  # copied ``width`` at a time: the work memory stays bounded
+    parts = [od.project(yb[:, cols[k : k + width]]) for k in range(0, cols.size, max(1, width))]
+    return odd, block, ObservedPart.concat(parts, parts[0].qty.shape[0], parts[0].half.shape[1])
 
 
 def _refuse_bad_values(
