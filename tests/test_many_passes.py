@@ -273,3 +273,39 @@ def test_complete_responses_read_by_rows(
             c[0, names.index("a")], c[0, names.index("b")] = 1.0, -1.0
             ft = ref.f_test(c)
             np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)
+
+
+def test_tall_matrix_in_either_order_read_by_rows(monkeypatch: pytest.MonkeyPatch) -> None:
+    # A matrix so tall that a block of the fewest columns is far larger than BLOCK_BYTES is read
+    # in wide blocks by rows whatever its storage order.  Reference: statsmodels OLS per
+    # response; the C- and F-ordered copies give the same numbers to rounding.
+    from lincomb._core import many as core_many
+
+    n, r = 900, 23
+    monkeypatch.setattr(core_many, "CHUNK_BYTES", 8 * r * 50)  # chunks of 50 rows
+    monkeypatch.setattr(many, "BLOCK_BYTES", 8 * n * 2)
+    monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 8)  # blocks of 8: 4 times BLOCK_BYTES
+    calls: list[tuple[int, ...]] = []
+    project_rows = core.DesignFactor.project_rows
+    monkeypatch.setattr(
+        core.DesignFactor,
+        "project_rows",
+        lambda self, y: calls.append(y.shape) or project_rows(self, y),
+    )
+    x = _design(n, 15)
+    rng = np.random.default_rng(16)
+    ys = rng.normal(size=(n, r)) * 2.0 + 40.0 + 0.5 * x[:, [2]]
+    fits = []
+    for order in ("C", "F"):
+        calls.clear()
+        fits.append(lc.fit_many_arrays(x, np.asarray(ys, order=order)))
+        assert calls == [(n, r)]
+    c = np.array([[0.0, 0, 1, 0]])
+    for mf in fits:
+        res = mf.wald(lc.coef("x2") == 0)
+        for j in range(r):
+            ref = _reference(x, ys[:, j])
+            np.testing.assert_allclose(mf.coefficients.iloc[:, j], ref.params, rtol=1e-10)
+            np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-10)
+            ft = ref.f_test(c)
+            np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)

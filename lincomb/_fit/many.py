@@ -113,9 +113,10 @@ __all__ = [
 BLOCK_BYTES: int = 2**21
 #: Fewest responses per block, so that very tall designs still use matrix products.
 MIN_BLOCK_COLUMNS: int = 16
-#: Responses per block when the response matrix is stored row by row (C order, float64): the
-#: projections copy rows in bounded chunks (``core.CHUNK_BYTES``), and each row is read in one
-#: piece of up to 8 KiB instead of ``8 * BLOCK_BYTES / n`` bytes.
+#: Responses per block when a float64 response matrix in memory is read by rows (stored row
+#: by row, C order, with short pieces of its rows in a block of columns; or so tall that a
+#: block of columns is far larger than BLOCK_BYTES): the projections copy rows in bounded
+#: chunks (``core.CHUNK_BYTES``), each row read in one piece of up to 8 KiB.
 ROW_MAJOR_COLUMNS: int = 1024
 #: Blocks of columns of a matrix stored row by row whose pieces of each row are shorter than
 #: this are read slowly (many short pieces): such a matrix is read in wide blocks instead.
@@ -592,11 +593,13 @@ def _build(
         return od if od.usable else None
 
     width = _block_width(r, n)
-    # a matrix stored row by row, whose blocks of columns would read n short pieces of its
-    # rows, is read in wide blocks whose rows are copied in chunks (core.CHUNK_BYTES)
-    by_rows = (
-        positions is None and source.stored_by_row and r > width and 8 * width < ROW_PIECE_BYTES
-    )
+    # a matrix in memory is read in wide blocks whose rows are copied in chunks
+    # (core.CHUNK_BYTES) where its blocks of columns would read it slowly: stored row by row,
+    # n short pieces of its rows; tall, blocks of MIN_BLOCK_COLUMNS far larger than BLOCK_BYTES
+    short_pieces = source.stored_by_row and 8 * width < ROW_PIECE_BYTES
+    tall = 8 * n * width > BLOCK_BYTES
+    by_rows = positions is None and source.matrix is not None and r > width
+    by_rows = by_rows and (short_pieces or tall)
     wide = max(width, min(r, ROW_MAJOR_COLUMNS)) if by_rows else width
     # the route of the first block: guessed from a sample of rows (arrays stored by row)
     share = source.sampled_missing_share() if by_rows and missing == "skip" else 0.0

@@ -75,23 +75,28 @@ class _Responses:
         return self.block(np.array([j]))[:, 0]
 
     @property
+    def matrix(self) -> NDArray[np.float64] | None:
+        """The float64 matrix whose blocks are views of it (no copy), or None (a frame, another
+        dtype)."""
+        get = self._get
+        if isinstance(get, _ArrayColumns) and get.arr.ndim == 2 and get.arr.dtype == np.float64:
+            return get.arr
+        return None
+
+    @property
     def stored_by_row(self) -> bool:
         """Whether blocks are views of a float64 matrix stored row by row (C order): a narrow
         block then reads a short piece of every row, a wide one reads along the rows."""
-        get = self._get
-        if not isinstance(get, _ArrayColumns):
-            return False
-        arr = get.arr
-        return bool(arr.ndim == 2 and arr.dtype == np.float64 and arr.strides[1] == 8)
+        arr = self.matrix
+        return arr is not None and arr.strides[1] == 8
 
     def sampled_missing_share(self, rows: int = 64) -> float:
         """Share of the responses with a missing value in a sample of about ``rows`` rows
-        spread over the matrix (0 for a source not :attr:`stored_by_row`): a cheap first guess
-        of the route most responses take."""
-        get = self._get
-        if not isinstance(get, _ArrayColumns) or not self.stored_by_row or self.count == 0:
+        spread over the :attr:`matrix` (0 without one): a cheap first guess of the route most
+        responses take."""
+        arr = self.matrix
+        if arr is None or self.count == 0:
             return 0.0
-        arr = get.arr
         sample = arr[:: max(1, arr.shape[0] // rows)]
         return float(np.count_nonzero(np.isnan(sample).any(axis=0))) / self.count
 
