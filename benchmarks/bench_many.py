@@ -53,9 +53,10 @@ One more row, for information (``--rows tall``, no target in the issue):
 * **tall**: n = 100,000 rows, the same kind of design, r = 200 complete responses in a
   C-ordered (row by row) matrix, whose blocks of columns would read 128-byte pieces of every
   row: lincomb's pipeline on it, on its F-ordered copy (blocks of columns read whole columns)
-  and a statsmodels loop over ``--tall-subset`` responses (extrapolated), round robin.  The
-  ratio C / F shows what the storage order costs (it read at about half the speed of the
-  F-ordered copy before the rows were read in chunks).
+  and a statsmodels loop over ``--tall-subset`` responses (extrapolated), round robin.  Both
+  are read in wide blocks by chunks of rows (blocks of columns would read short pieces of
+  the C-ordered rows, and blocks of the fewest columns of either order would be far larger
+  than the cache-sized BLOCK_BYTES); the ratio C / F shows what the storage order costs.
 
 Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
 run interleaved in every repeat so that load changes on a shared machine hit both alike; we
