@@ -36,6 +36,19 @@ def _design(n: int, seed: int) -> np.ndarray:
     return np.column_stack([np.ones(n), rng.normal(size=(n, 3))])
 
 
+def _blocks_read_by_rows(monkeypatch: pytest.MonkeyPatch) -> list[tuple[int, ...]]:
+    """The shapes of the blocks :meth:`DesignFactor.project_rows` is given, as they come."""
+    calls: list[tuple[int, ...]] = []
+    project_rows = core.DesignFactor.project_rows
+
+    def spy(self: core.DesignFactor, y: np.ndarray) -> object:
+        calls.append(y.shape)
+        return project_rows(self, y)
+
+    monkeypatch.setattr(core.DesignFactor, "project_rows", spy)
+    return calls
+
+
 def _reference(x, y, w=None):
     obs = ~np.isnan(y)
     model = sm.WLS(y[obs], x[obs], weights=1.0 if w is None else w[obs])
@@ -222,13 +235,7 @@ def test_complete_responses_read_by_rows(
     monkeypatch.setattr(core_many, "CHUNK_BYTES", 8 * r * 9)  # chunks of 9 rows
     monkeypatch.setattr(many, "BLOCK_BYTES", 8 * n * 4)  # narrow blocks: 4 responses
     monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 1)
-    calls: list[tuple[int, ...]] = []
-    project_rows = core.DesignFactor.project_rows
-    monkeypatch.setattr(
-        core.DesignFactor,
-        "project_rows",
-        lambda self, y: calls.append(y.shape) or project_rows(self, y),
-    )
+    calls = _blocks_read_by_rows(monkeypatch)
     again: list[list[int]] = []  # responses whose products were taken again (far shifts)
     products = core_many._row_products
 
@@ -285,13 +292,7 @@ def test_tall_matrix_in_either_order_read_by_rows(monkeypatch: pytest.MonkeyPatc
     monkeypatch.setattr(core_many, "CHUNK_BYTES", 8 * r * 50)  # chunks of 50 rows
     monkeypatch.setattr(many, "BLOCK_BYTES", 8 * n * 2)
     monkeypatch.setattr(many, "MIN_BLOCK_COLUMNS", 8)  # blocks of 8: 4 times BLOCK_BYTES
-    calls: list[tuple[int, ...]] = []
-    project_rows = core.DesignFactor.project_rows
-    monkeypatch.setattr(
-        core.DesignFactor,
-        "project_rows",
-        lambda self, y: calls.append(y.shape) or project_rows(self, y),
-    )
+    calls = _blocks_read_by_rows(monkeypatch)
     x = _design(n, 15)
     rng = np.random.default_rng(16)
     ys = rng.normal(size=(n, r)) * 2.0 + 40.0 + 0.5 * x[:, [2]]
