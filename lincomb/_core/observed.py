@@ -28,7 +28,7 @@ by one (:meth:`ObservedDesign.project`: the passes over the data) and finished t
 (:meth:`ObservedDesign.finish`: the small algebra per response).  The residual sum of
 squares is ``‖y_O‖² − cᵀ G c`` where the fit takes at most half of ``‖y_O‖²`` (at most one
 bit lost to cancellation) and comes from the explicit residual ``y_O − Q̂_O c`` elsewhere
-(those responses are read again).  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
+(those responses are read again, a few at a time).  The covariance of ``Cβ̂`` is ``σ² Uᵀ G⁻¹ U`` with
 ``U = R⁻ᵀ C_workingᵀ`` shared by every response: its root is ``L⁻¹ U`` (``L`` the Cholesky
 factor of ``G``, a batched forward substitution).
 
@@ -564,10 +564,12 @@ class ObservedDesign:
         fit2 = np.einsum("ij,ij->j", coef, qty)
         resid2 = np.maximum(y2 - fit2, 0.0)
         close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
-        if close.size:
-            resid = self._shifted(read(close), part, close) - qh @ coef[:, close]
-            _zero_missing(resid, close, part.rows, part.cols, r)
-            resid2[close] = np.einsum("ij,ij->j", resid, resid)
+        step = chunk_rows(n)  # read again a few at a time: the work memory stays bounded
+        for k0 in range(0, close.size, step):
+            cols = close[k0 : k0 + step]
+            resid = self._shifted(read(cols), part, cols) - qh @ coef[:, cols]
+            _zero_missing(resid, cols, part.rows, part.cols, r)
+            resid2[cols] = np.einsum("ij,ij->j", resid, resid)
         y_norm = np.sqrt(part.c2)
         resid_norm = np.sqrt(resid2)
         theta = upper_solve(self.r_work, coef)
