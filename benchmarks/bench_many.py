@@ -6,7 +6,7 @@ Run (unset the two OpenBLAS variables for timing only, in this command alone)::
     env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python benchmarks/bench_many.py --json
     ... --threads 1        # limit BLAS threads (threadpoolctl) for the whole run
     ... --subset 300       # responses in the timed statsmodels loop (see below)
-    ... --rows all         # or a comma list of: wide, missing, complete, tall
+    ... --rows all         # or a comma list of: wide, missing, complete, tall, frame
 
 Needs the ``bench`` extra (statsmodels, threadpoolctl).  statsmodels is a timing and numerical
 reference only.  The script times the ``lincomb`` of the checkout it lives in (its folder goes
@@ -57,6 +57,11 @@ One more row, for information (``--rows tall``, no target in the issue):
   are read in wide blocks by chunks of rows (blocks of columns would read short pieces of
   the C-ordered rows, and blocks of the fewest columns of either order would be far larger
   than the cache-sized BLOCK_BYTES); the ratio C / F shows what the storage order costs.
+
+And (``--rows frame``, for information): the 2,000 complete responses of the row above as a
+pandas DataFrame, through ``fit_many_arrays(X, frame)`` and through the formula route
+``fit_many("~ x1 + ... + x9", data, responses=[...])`` (the design's columns and the responses
+in one frame), each against the array pipeline, round robin (ratios of medians).
 
 Timing: ``time.perf_counter``; one warm-up call each; lincomb and the statsmodels subset loop
 run interleaved in every repeat so that load changes on a shared machine hit both alike; we
@@ -169,6 +174,49 @@ def run_tall(repeats: int, subset: int) -> dict[str, Any]:
         "max_rel_diff_F_c_vs_f": f_cf,
         "max_rel_diff_F_vs_statsmodels": f_rel,
         "max_rel_diff_p_vs_statsmodels": p_rel,
+    }
+
+
+def run_frame(repeats: int) -> dict[str, Any]:
+    """The complete responses of the ``complete`` row as a DataFrame, by arrays and by formula,
+    against the array pipeline (round robin, medians)."""
+    import pandas as pd
+
+    import lincomb as lc
+
+    x, y = make_data()
+    y = np.ascontiguousarray(y[:, :R_SMALL])
+    names = [f"x{j}" for j in range(P)]
+    system, _c, _d = _system()
+    frame = pd.DataFrame(y, columns=[f"g{j}" for j in range(R_SMALL)])
+    data = pd.concat([pd.DataFrame(x[:, 1:], columns=names[1:]), frame], axis=1)
+    formula = "~ " + " + ".join(names[1:])
+    responses = list(frame.columns)
+
+    def arrays() -> Any:
+        return lc.fit_many_arrays(x, y, names=names).wald(system).test_frame()
+
+    def frame_arrays() -> Any:
+        return lc.fit_many_arrays(x, frame, names=names).wald(system).test_frame()
+
+    def frame_formula() -> Any:
+        return lc.fit_many(formula, data, responses=responses).wald(system).test_frame()
+
+    stats = [f()["stat"].to_numpy() for f in (arrays, frame_arrays, frame_formula)]
+    timing = interleaved(
+        {"arrays": arrays, "frame": frame_arrays, "formula": frame_formula}, repeats, warmup=1
+    )
+    med = timing["median"]
+    return {
+        "responses": R_SMALL,
+        "repeats": repeats,
+        "arrays_s": med["arrays"],
+        "frame_s": med["frame"],
+        "formula_s": med["formula"],
+        "ratio_frame_over_arrays": ratio(timing, "frame", "arrays"),
+        "ratio_formula_over_arrays": ratio(timing, "formula", "arrays"),
+        "max_rel_diff_F_frame_vs_arrays": float(np.max(np.abs(stats[1] / stats[0] - 1))),
+        "max_rel_diff_F_formula_vs_arrays": float(np.max(np.abs(stats[2] / stats[0] - 1))),
     }
 
 
@@ -381,6 +429,17 @@ def report(res: dict[str, Any]) -> str:
         lines += report_loop("scattered missing values", res["missing"])
     if "complete" in res:
         lines += report_loop("complete responses", res["complete"])
+    if "frame" in res:
+        f = res["frame"]
+        lines += [
+            f"responses in a DataFrame (information): r = {f['responses']};"
+            f" {f['repeats']} interleaved rounds (medians)",
+            f"  arrays {f['arrays_s'] * 1e3:.1f} ms; DataFrame of responses"
+            f" {f['frame_s'] * 1e3:.1f} ms ({f['ratio_frame_over_arrays']:.2f} x); formula"
+            f" route {f['formula_s'] * 1e3:.1f} ms ({f['ratio_formula_over_arrays']:.2f} x)",
+            f"  F vs arrays: max relative difference {f['max_rel_diff_F_frame_vs_arrays']:.1e}"
+            f" (frame), {f['max_rel_diff_F_formula_vs_arrays']:.1e} (formula)",
+        ]
     if "tall" in res:
         t = res["tall"]
         lines += [
@@ -409,7 +468,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument(
         "--rows",
         default="all",
-        help="comma list of rows to run: wide, missing, complete, tall (all: the first three)",
+        help="comma list of rows to run: wide, missing, complete, tall, frame (all: the first"
+        " three)",
     )
     ap.add_argument("--tall-subset", type=int, default=10, help="responses in the tall loop")
     args = ap.parse_args(argv)
@@ -429,6 +489,8 @@ def main(argv: list[str] | None = None) -> int:
             )
         if "tall" in rows:
             res["tall"] = run_tall(args.repeats, args.tall_subset)
+        if "frame" in rows:
+            res["frame"] = run_frame(2 * args.repeats + 1)
         res.update(machine())
     import lincomb
 

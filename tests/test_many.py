@@ -823,3 +823,22 @@ def test_aliased_columns_and_small_means(weighted: bool) -> None:
         np.testing.assert_allclose(mf.rss.iloc[j], ref.ssr, rtol=1e-10)
         ft = ref.f_test((c, np.array([0.3, 0.0])))
         np.testing.assert_allclose(res.stat[j], float(np.squeeze(ft.fvalue)), rtol=1e-9)
+
+
+def test_responses_in_a_frame_checked_by_dtype_and_name() -> None:
+    # Many responses in a frame: a text column among hundreds is named, and a response name
+    # used by two columns is a typed error (it was a bare AttributeError), by both entry points.
+    rng = np.random.default_rng(17)
+    x = np.column_stack([np.ones(20), rng.normal(size=20)])
+    frame = pd.DataFrame(rng.normal(size=(20, 300)), columns=[f"g{j}" for j in range(300)])
+    text = frame.assign(g150="t")
+    with pytest.raises(lc.errors.InputError, match="'g150' is not numeric"):
+        lc.fit_many_arrays(x, text)
+    twice = frame.rename(columns={"g7": "g3"})
+    with pytest.raises(lc.errors.InputError, match="'g3' appears more than once"):
+        lc.fit_many_arrays(x, twice)
+    data = twice.assign(z=x[:, 1])
+    with pytest.raises(lc.errors.InputError, match="'g3' appears more than once"):
+        lc.fit_many("~ z", data, responses=["g1", "g3"])
+    ok = lc.fit_many("~ z", data, responses=["g1", "g2"])  # copies elsewhere do not matter
+    assert list(ok.rss.index) == ["g1", "g2"]

@@ -817,7 +817,7 @@ def fit_many(
             )
         refuse_non_numeric_responses(data, names)
     elif isinstance(responses, pd.DataFrame):
-        refuse_non_numeric_responses(responses, list(responses.columns))
+        refuse_non_numeric_responses(responses, responses.columns.tolist())
     small = data[design_vars].copy(deep=False)
     if isinstance(weights, str):
         require_columns(data, [weights], "data", "weights= names")
@@ -829,7 +829,11 @@ def fit_many(
         if (positions < 0).any() or not data.index.is_unique:
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
     if as_names:
-        cols = data.columns.get_indexer(pd.Index(list(names)))
+        if data.columns.is_unique:
+            cols = data.columns.get_indexer(pd.Index(list(names)))
+        else:  # copies of other columns: the responses' own names are unique (checked)
+            where = {c: i for i, c in enumerate(data.columns.tolist())}
+            cols = np.array([where[c] for c in names], dtype=np.intp)
         src = _Responses(names, _FrameColumns(data, cols), len(data))
         frame = data.drop(columns=list(names))
     else:
@@ -888,7 +892,7 @@ def fit_many_arrays(
     """
     dsg = design_from_arrays(x, None, names=names, weights=weights)
     if isinstance(responses, pd.DataFrame):
-        refuse_non_numeric_responses(responses, list(responses.columns))
+        refuse_non_numeric_responses(responses, responses.columns.tolist())
     src = _array_source(responses, dsg.x.shape[0], response_names, None)
     threads = worker_threads()
     nw = _workers(workers)

@@ -146,7 +146,7 @@ def _array_source(
                 " responses.reindex(data.index)) or pass the responses as column names of data."
             )
         names = _unique_names(
-            list(y.columns) if response_names is None else response_names, "response names"
+            y.columns.tolist() if response_names is None else response_names, "response names"
         )
         if len(names) != y.shape[1]:
             raise InputError(f"{len(names)} response names for {y.shape[1]} responses.")

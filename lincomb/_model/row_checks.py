@@ -367,9 +367,28 @@ def refuse_non_numeric_responses(frame: pd.DataFrame, columns: Sequence[str]) ->
     Traceback (most recent call last):
     ...
     lincomb.errors.InputError: response 'b' is not numeric: a response must be numeric, ...
+    >>> twice = pd.DataFrame([[1.0, 2.0, 3.0]], columns=["a", "a", "b"])
+    >>> refuse_non_numeric_responses(twice, ["a", "b"])
+    Traceback (most recent call last):
+    ...
+    lincomb.errors.InputError: response column 'a' appears more than once in the frame; ...
     """
-    for c in columns:
-        if not _numeric(frame[c].dtype):
+    # the dtypes read once and each distinct dtype judged once: a frame of thousands of
+    # responses would otherwise make a Series per column
+    dtypes = dict(zip(frame.columns.tolist(), frame.dtypes, strict=True))
+    if not frame.columns.is_unique:
+        twice = set(frame.columns[frame.columns.duplicated()].tolist())
+        repeated = [c for c in columns if c in twice]
+        if repeated:
+            raise InputError(
+                f"response column {repeated[0]!r} appears more than once in the frame; rename"
+                " or drop the copies (responses are read by name)."
+            )
+    seen = [dtypes[c] if c in dtypes else frame[c].dtype for c in columns]
+    if all(_numeric(d) for d in set(seen)):
+        return
+    for c, dtype in zip(columns, seen, strict=True):
+        if not _numeric(dtype):
             _check_response(frame, str(c), [c], None)
 
 
