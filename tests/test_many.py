@@ -566,7 +566,7 @@ def test_vectorized_equals_single_fits(
     _check_single_fits(mf, system, x, ys, w)
 
 
-@settings(max_examples=30, deadline=None)
+@settings(max_examples=50, deadline=None)
 @given(
     n=st.integers(30, 200),
     p=st.integers(1, 4),
@@ -574,8 +574,9 @@ def test_vectorized_equals_single_fits(
     seed=st.integers(0, 2**32 - 1),
     weighted=st.booleans(),
     intercept=st.booleans(),
-    rate=st.sampled_from([0.01, 0.05, 0.2]),
+    rate=st.sampled_from([0.0, 0.01, 0.05, 0.2]),
     offset=st.sampled_from([0.0, 1e4]),
+    by_rows=st.sampled_from([None, "C", "F"]),
 )
 def test_own_rows_route_equals_single_fits(
     n: int,
@@ -586,56 +587,15 @@ def test_own_rows_route_equals_single_fits(
     intercept: bool,
     rate: float,
     offset: float,
+    by_rows: str | None,
 ) -> None:
     # Scattered missing values on designs of various scales (with or without an intercept,
     # large column offsets, weights): each response equals its own single fit, whichever route
-    # (vectorized on its own rows, or refitted per pattern) it took.
-    rng = np.random.default_rng(seed)
-    x = rng.normal(size=(n, p)) * rng.uniform(0.01, 100, size=p) + offset
-    if intercept:
-        x = np.column_stack([np.ones(n), x])
-    ys = rng.normal(size=(n, r)) * 2 + (x @ rng.normal(size=x.shape[1]))[:, None] + offset
-    ys[rng.uniform(size=ys.shape) < rate] = np.nan
-    w = rng.uniform(0.5, 2.0, size=n) if weighted else None
-    names = [f"c{j}" for j in range(x.shape[1])]
-    try:
-        mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
-    except DegenerateFitError:
-        return
-    system = lc.from_matrix(np.eye(x.shape[1])[-1:], [0.25])
-    _check_single_fits(mf, system, x, ys, w, scaled_atol=True, rss=True)
-
-
-@settings(max_examples=30, deadline=None)
-@given(
-    n=st.integers(30, 200),
-    p=st.integers(1, 4),
-    r=st.integers(2, 12),
-    seed=st.integers(0, 2**32 - 1),
-    weighted=st.booleans(),
-    intercept=st.booleans(),
-    alias=st.booleans(),
-    rate=st.sampled_from([0.0, 0.02, 0.3]),
-    offset=st.sampled_from([0.0, 1e4]),
-    order=st.sampled_from(["C", "F"]),
-)
-def test_rows_route_equals_single_fits(
-    n: int,
-    p: int,
-    r: int,
-    seed: int,
-    weighted: bool,
-    intercept: bool,
-    alias: bool,
-    rate: float,
-    offset: float,
-    order: str,
-) -> None:
-    # Blocks made narrow and tall (two responses, each block twice BLOCK_BYTES), so that the
-    # matrix is read in wide blocks by chunks of a few rows (DesignFactor.project_rows, and the
-    # own-rows route for responses with missing values) in either storage order: each
-    # response equals its own single fit, on designs with and without an intercept, an
-    # aliased column, large offsets and weights.
+    # (vectorized on its own rows, or refitted per pattern) it took.  With ``by_rows`` the
+    # blocks are made narrow and tall (two responses, each block twice BLOCK_BYTES), so that
+    # the matrix, stored in that order, is read in wide blocks by chunks of a few rows
+    # (DesignFactor.project_rows, and the own-rows route), the last column is aliased and some
+    # means are small beside the spread.
     from lincomb._core import many as core_many
     from lincomb._fit import many as fit_many
 
@@ -643,25 +603,28 @@ def test_rows_route_equals_single_fits(
     x = rng.normal(size=(n, p)) * rng.uniform(0.01, 100, size=p) + offset
     if intercept:
         x = np.column_stack([np.ones(n), x])
-    if alias and p >= 2:
+    alias = by_rows is not None and p >= 2
+    if alias:
         x[:, -1] = 2.0 * x[:, -2]
     ys = rng.normal(size=(n, r)) * 2 + (x @ rng.normal(size=x.shape[1]))[:, None] + offset
-    ys[:, ::3] = rng.normal(size=(n, 1)) * 0.5 + 0.2  # means small beside the spread
+    if by_rows is not None:
+        ys[:, ::3] = rng.normal(size=(n, 1)) * 0.5 + 0.2  # means small beside the spread
     ys[rng.uniform(size=ys.shape) < rate] = np.nan
-    ys = np.asarray(ys, order=order)
+    ys = np.asarray(ys, order=by_rows or "C")
     w = rng.uniform(0.5, 2.0, size=n) if weighted else None
     names = [f"c{j}" for j in range(x.shape[1])]
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(fit_many, "BLOCK_BYTES", 8 * n)
-        mp.setattr(fit_many, "MIN_BLOCK_COLUMNS", 2)
-        mp.setattr(core_many, "CHUNK_BYTES", 8 * r * 7)
+        if by_rows is not None:
+            mp.setattr(fit_many, "BLOCK_BYTES", 8 * n)
+            mp.setattr(fit_many, "MIN_BLOCK_COLUMNS", 2)
+            mp.setattr(core_many, "CHUNK_BYTES", 8 * r * 7)
         try:
             mf = lc.fit_many_arrays(x, ys, names=names, weights=w)
         except DegenerateFitError:
             return
     row = np.zeros((1, x.shape[1]))
     row[0, -1] = 1.0
-    if alias and p >= 2:  # estimable under the aliasing: the columns enter as c + 2·c'
+    if alias:  # estimable under the aliasing: the columns enter as c + 2·c'
         row[0, -2:] = [1.0, 2.0]
     system = lc.from_matrix(row, [0.25])
     _check_single_fits(mf, system, x, ys, w, scaled_atol=True, rss=True)
