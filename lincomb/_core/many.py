@@ -29,7 +29,7 @@ __all__ = [
     "CHUNK_BYTES",
     "DesignFactor",
     "ResponseBlock",
-    "chunk_rows",
+    "per_chunk",
     "factor_design",
     "rough_mean",
     "solve_responses",
@@ -469,9 +469,11 @@ def rough_mean(y: Array) -> Array:
     return out
 
 
-def chunk_rows(width: int) -> int:
-    """Rows per chunk of a block ``width`` columns wide (:data:`CHUNK_BYTES`, at least 1)."""
-    return max(1, CHUNK_BYTES // (8 * max(width, 1)))
+def per_chunk(length: int) -> int:
+    """How many vectors of ``length`` float64 values fit in :data:`CHUNK_BYTES` (at least one):
+    the rows of a chunk of a block ``length`` columns wide, or the responses of ``length`` rows
+    read again at a time."""
+    return max(1, CHUNK_BYTES // (8 * max(length, 1)))
 
 
 def _shifted_rows(
@@ -497,7 +499,7 @@ def _row_products(
     width = y.shape[1] if cols is None else cols.size
     coef = np.zeros((basis.shape[1], width))
     y2 = np.zeros(width)
-    step = chunk_rows(width)
+    step = per_chunk(width)
     for i0 in range(0, n, step):
         rows = slice(i0, min(n, i0 + step))
         c = _shifted_rows(y, rows, cols, sqrt_w, shift)
@@ -518,7 +520,7 @@ def _row_residuals(
     chunks of rows."""
     n = y.shape[0]
     out = np.zeros(cols.size)
-    step = chunk_rows(cols.size)
+    step = per_chunk(cols.size)
     for i0 in range(0, n, step):
         rows = slice(i0, min(n, i0 + step))
         c = _shifted_rows(y, rows, cols, sqrt_w, shift) - basis[rows] @ coef

@@ -68,7 +68,7 @@ import numpy as np
 import scipy.sparse as sps
 from numpy.typing import NDArray
 
-from lincomb._core.many import DesignFactor, PerResponse, chunk_rows, rough_mean
+from lincomb._core.many import DesignFactor, PerResponse, per_chunk, rough_mean
 from lincomb._core.solve import CONSTANT_TOL, Solution
 from lincomb._core.triangular import upper_solve
 from lincomb._docstrings import fill_doc
@@ -430,7 +430,7 @@ class ObservedDesign:
         qty = np.zeros((k, r))
         y2 = np.zeros(r)
         found_rows, found_cols = [], []
-        step = chunk_rows(r)
+        step = per_chunk(r)
         for i0 in range(0, n, step):
             rows = slice(i0, min(n, i0 + step))
             yc, ci, cj = _chunk(y[rows], shift, None if missing is None else missing[rows])
@@ -488,7 +488,7 @@ class ObservedDesign:
         far = np.flatnonzero(~(y2 - c2 <= 0.25 * y2))  # NaN, inf: centred as well
         if far.size:
             mean[far] = qty[0, far] * (np.sqrt(self._weight_sum) / wsum[far])
-            step = chunk_rows(n)  # responses of n rows at a time: the same bound
+            step = per_chunk(n)  # responses of n rows, read again a few at a time
             for k0 in range(0, far.size, step):
                 cols = far[k0 : k0 + step]
                 part = self._copy_shifted(y[:, cols], cols, shift, mean, ii, jj, r)
@@ -564,10 +564,15 @@ class ObservedDesign:
         fit2 = np.einsum("ij,ij->j", coef, qty)
         resid2 = np.maximum(y2 - fit2, 0.0)
         close = np.flatnonzero(~(fit2 <= 0.5 * y2))  # NaN, inf: explicit as well
-        step = chunk_rows(n)  # read again a few at a time: the work memory stays bounded
+        step = per_chunk(n)  # read again a few at a time: the work memory stays bounded
         for k0 in range(0, close.size, step):
             cols = close[k0 : k0 + step]
-            resid = self._shifted(read(cols), part, cols) - qh @ coef[:, cols]
+            # the responses as project left them in its copy (the same operations, so the
+            # same numbers), less their fit
+            again = self._copy_shifted(
+                read(cols), cols, part.shift, part.mean, part.rows, part.cols, r
+            )
+            resid = again - qh @ coef[:, cols]
             _zero_missing(resid, cols, part.rows, part.cols, r)
             resid2[cols] = np.einsum("ij,ij->j", resid, resid)
         y_norm = np.sqrt(part.c2)
@@ -586,11 +591,6 @@ class ObservedDesign:
             & np.isfinite(y_norm)
         )
         return ObservedBlock(n_obs, theta, resid_norm, y_norm, low, certified)
-
-    def _shifted(self, y: Array, part: ObservedPart, cols: NDArray[np.intp]) -> Array:
-        """The responses ``cols`` of ``part`` as :meth:`project` left them in its copy (the same
-        operations, so the same numbers)."""
-        return self._copy_shifted(y, cols, part.shift, part.mean, part.rows, part.cols, part.count)
 
     def _copy_shifted(
         self,

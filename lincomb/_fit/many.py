@@ -829,11 +829,9 @@ def fit_many(
         if (positions < 0).any() or not data.index.is_unique:
             positions = np.flatnonzero(~data.index.isin(dsg.dropped))
     if as_names:
-        if data.columns.is_unique:
-            cols = data.columns.get_indexer(pd.Index(list(names)))
-        else:  # copies of other columns: the responses' own names are unique (checked)
-            where = {c: i for i, c in enumerate(data.columns.tolist())}
-            cols = np.array([where[c] for c in names], dtype=np.intp)
+        # one position per name: the responses' names are unique in data (checked), even
+        # where other columns have copies
+        cols = data.columns.get_indexer_for(pd.Index(list(names)))
         src = _Responses(names, _FrameColumns(data, cols), len(data))
         frame = data.drop(columns=list(names))
     else:

@@ -384,7 +384,7 @@ def refuse_non_numeric_responses(frame: pd.DataFrame, columns: Sequence[str]) ->
                 f"response column {repeated[0]!r} appears more than once in the frame; rename"
                 " or drop the copies (responses are read by name)."
             )
-    seen = [dtypes[c] if c in dtypes else frame[c].dtype for c in columns]
+    seen = [dtypes[c] for c in columns]
     if all(_numeric(d) for d in set(seen)):
         return
     for c, dtype in zip(columns, seen, strict=True):
